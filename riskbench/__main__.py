@@ -1,0 +1,3 @@
+from riskbench.workflow.cli import main
+
+raise SystemExit(main())

@@ -1,0 +1,1 @@
+"""riskbench.report"""
