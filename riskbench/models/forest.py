@@ -1,0 +1,174 @@
+"""Random survival forest on the landmark stack, with event times coarsened to a grid.
+
+scikit-survival's ``RandomSurvivalForest`` (Ishwaran et al. 2008, Ann Appl Stat 2:841-860) stores, in every
+leaf, the cumulative hazard and survival at each distinct training time, so its memory grows with the number
+of distinct times; at cohort scale with continuous times it runs out of memory. Coarsening the times to a
+grid (default one month = 30.4375 days) bounds the distinct times by ``horizon / grid``.
+
+Choices (documented because they shape the predictions):
+
+* **Times are rounded up to the grid** (``ceil(time / grid) * grid``): an event is never moved earlier than
+  observed, and a censored row stays at risk to the end of the grid interval in which it was last seen, so
+  within an interval events precede censorings (the usual tie convention). Predictions at a horizon ``w``
+  read the forest's survival at ``w`` itself; events in the last partial interval before ``w`` are then
+  rounded past ``w`` and not counted, so choose ``w`` on the grid (2 years = 24 months exactly) to avoid a
+  bias of at most one grid step.
+* **Cause-specific forest**: the competing event (status 2) is treated as censoring for the outcome, so
+  ``predict_risk`` is ``1 - S₁(w)``, the risk of the outcome *were the competing event removed*. It is larger
+  than the cumulative incidence when competing events are frequent; use the landmark super-model for the
+  cumulative incidence. The landmark ``s`` is not a split variable unless you list ``landmark`` among the
+  covariates.
+* Seeded: ``random_state`` fixes bootstrap samples and split candidates; ``max_samples`` subsamples rows per
+  tree (an int count or a fraction), which bounds time and memory on large stacks.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike
+
+from riskbench.models.risk_contract import (
+    ModelInputError,
+    check_covariates,
+    check_horizon,
+    step_function_at,
+)
+
+__all__ = ["SurvivalForest", "coarsen_times"]
+
+
+def coarsen_times(time: ArrayLike, grid_days: float | None) -> np.ndarray:
+    """Round times (days) up to the next multiple of ``grid_days`` (at least one step); None keeps them.
+
+    A tolerance of 1e-9 grid steps keeps a time already on the grid (e.g. 730.5 = 24 months) where it is.
+    """
+    time = np.asarray(time, dtype=float)
+    if grid_days is None:
+        return time.copy()
+    if not np.isfinite(grid_days) or grid_days <= 0:
+        raise ModelInputError(f"grid_days must be a positive number of days or None, got {grid_days!r}")
+    steps = np.maximum(np.ceil(time / grid_days - 1e-9), 1.0)
+    return steps * grid_days
+
+
+class SurvivalForest:
+    """Cause-specific random survival forest for the outcome (status 1) on a landmark stack.
+
+    Parameters
+    ----------
+    covariates : sequence of str
+        Covariate columns (values known at the landmark).
+    grid_days : float or None
+        Width of the time grid in days (default 30.4375 = one month); None keeps continuous times.
+    n_estimators : int
+        Number of trees.
+    max_samples : int, float or None
+        Rows drawn (with replacement) per tree: a count, a fraction of the rows, or None for all rows.
+    min_samples_leaf : int
+        Smallest leaf; also sets ``min_samples_split = 2 * min_samples_leaf``.
+    max_features : int, float or str
+        Candidate covariates per split (scikit-learn convention; default "sqrt").
+    max_depth : int or None
+    random_state : int
+        Seed for bootstrap samples and split candidates.
+    n_jobs : int
+        Worker processes/threads for fitting and prediction.
+
+    Attributes (after fit)
+    ----------------------
+    forest_ : sksurv.ensemble.RandomSurvivalForest
+    event_times_ : ndarray, the (coarsened) distinct event times of the forest, days from the landmark
+    max_time_ : float, longest follow-up from a landmark in the training stack (days, coarsened)
+    """
+
+    def __init__(
+        self,
+        covariates: Sequence[str],
+        *,
+        grid_days: float | None = 30.4375,
+        n_estimators: int = 200,
+        max_samples: int | float | None = None,
+        min_samples_leaf: int = 15,
+        max_features: int | float | str = "sqrt",
+        max_depth: int | None = None,
+        random_state: int = 0,
+        n_jobs: int = 1,
+    ) -> None:
+        self.covariates = covariates
+        self.grid_days = grid_days
+        self.n_estimators = n_estimators
+        self.max_samples = max_samples
+        self.min_samples_leaf = min_samples_leaf
+        self.max_features = max_features
+        self.max_depth = max_depth
+        self.random_state = random_state
+        self.n_jobs = n_jobs
+
+    def fit(self, stack: pd.DataFrame) -> SurvivalForest:
+        """Fit on a landmark stack (``time``, ``status`` + covariates); returns self."""
+        from sksurv.ensemble import RandomSurvivalForest
+
+        for column in ("time", "status"):
+            if column not in stack.columns:
+                raise ModelInputError(
+                    f"landmark stack lacks column '{column}'; build it with Cohort.landmark_stack(...)"
+                )
+        x = check_covariates(stack, list(self.covariates), what="landmark stack")
+        time = pd.to_numeric(stack["time"], errors="coerce").to_numpy(dtype=float)
+        status = pd.to_numeric(stack["status"], errors="coerce").to_numpy()
+        bad = ~np.isfinite(time) | (time <= 0) | ~np.isin(status, (0, 1, 2))
+        if bad.any():
+            raise ModelInputError(
+                f"landmark stack has {int(bad.sum())} rows with time <= 0 or status not in 0/1/2 "
+                f"(rows {stack.index[bad][:5].tolist()}); fix or drop them"
+            )
+        event = status == 1  # cause-specific: the competing event censors the outcome
+        if not event.any():
+            raise ModelInputError("the landmark stack has no outcome (status 1) rows; nothing to fit")
+        coarse = coarsen_times(time, self.grid_days)
+        target = np.empty(len(coarse), dtype=[("event", bool), ("time", float)])
+        target["event"], target["time"] = event, coarse
+        max_samples = self.max_samples
+        if isinstance(max_samples, int) and max_samples > len(stack):
+            max_samples = None  # fewer rows than requested: use them all
+        self.forest_ = RandomSurvivalForest(
+            n_estimators=self.n_estimators,
+            max_samples=max_samples,
+            min_samples_leaf=self.min_samples_leaf,
+            min_samples_split=2 * self.min_samples_leaf,
+            max_features=self.max_features,
+            max_depth=self.max_depth,
+            random_state=self.random_state,
+            n_jobs=self.n_jobs,
+        ).fit(x, target)
+        self.event_times_ = np.asarray(self.forest_.unique_times_, dtype=float)
+        self.max_time_ = float(coarse.max())
+        return self
+
+    def _check_fitted(self) -> None:
+        if not hasattr(self, "forest_"):
+            raise ModelInputError("this SurvivalForest is not fitted yet; call fit(stack) first")
+
+    def predict_curve(self, stack: pd.DataFrame, times: ArrayLike) -> np.ndarray:
+        """Risk ``1 - S₁(t)`` for each row and each t in ``times`` (days from the landmark).
+
+        Returns
+        -------
+        ndarray, shape (n_rows, len(times)), non-decreasing along each row.
+        """
+        self._check_fitted()
+        times = np.atleast_1d(np.asarray(times, dtype=float))
+        for t in times:
+            check_horizon(t, self.max_time_)
+        x = check_covariates(stack, list(self.covariates), what="prediction table")
+        # survival at the forest's own time points; 1 before the first event time
+        survival = self.forest_.predict_survival_function(x, return_array=True)
+        risk = 1.0 - survival
+        return step_function_at(self.event_times_, risk, times)
+
+    def predict_risk(self, stack: pd.DataFrame, horizon: float) -> np.ndarray:
+        """Risk of the outcome in (s, s + horizon] for each row (horizon in days; see module notes)."""
+        return self.predict_curve(stack, [horizon])[:, 0]

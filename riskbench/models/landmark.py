@@ -1,0 +1,398 @@
+"""Landmark super-model: dynamic prediction of the outcome in (s, s + w] from a landmark stack.
+
+Method (van Houwelingen 2007, Scand J Stat 34:70-85; van Houwelingen & Putter 2012, *Dynamic Prediction in
+Clinical Survival Analysis*, ch. 7-8): every landmark row of the stack (``patient_id, landmark, time, status``
+plus covariates as known at the landmark ``s``; ``time`` counts days from ``s`` and is administratively
+censored at the horizon ``w``) is one Cox observation with entry 0 and exit ``time``. One Cox model is fitted
+on the whole stack:
+
+* ``baseline="stratified"``: a separate Breslow baseline per landmark (strata = landmark). Predictions are
+  only available at the fitted landmarks.
+* ``baseline="smooth"``: one pooled baseline times ``exp(θ₁·s/S + θ₂·(s/S)²)`` -- the landmark terms enter as
+  covariates (``landmark_s``, ``landmark_s2``; only the linear one with two distinct landmarks, none with
+  one). ``S`` is the largest fitted landmark, so the terms stay in [0, 1]. Predictions are available at
+  any s in the fitted range (interpolation between landmarks is the point of the super-model).
+* ``landmark_effects``: coefficients that vary smoothly with the landmark,
+  β(s) = β₀ + β₁·(s/S) + β₂·(s/S)², through interaction columns ``<covariate>:s`` and ``<covariate>:s2``
+  (``"none"``, ``"linear"`` or ``"quadratic"``).
+* Variance: the stack repeats patients, so the reported variance is the cluster-robust (sandwich) variance
+  by ``patient_id`` (Lin & Wei 1989); the model-based one is kept as ``var_``.
+* Competing event (status 2) with ``competing=True``: a second cause-specific model of the same form for the
+  competing event; the risk of the outcome in (s, s + w] is the cumulative incidence from the two
+  cause-specific Breslow hazards given the covariates, combined by the Aalen–Johansen product-integral
+  (:func:`riskbench.models.risk_contract.cumulative_incidence`). Without a competing model the risk is
+  ``1 - prod(1 - dΛ₁)``, the product-limit form of ``1 - exp(-Λ₁)``.
+
+The baseline hazards are Breslow estimates at the training means of the design columns, recomputed here
+from the fitted coefficients (the Efron partial likelihood is used for the coefficients when ``ties="efron"``).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike
+
+from riskbench.models.risk_contract import (
+    ModelInputError,
+    check_covariates,
+    check_horizon,
+    cumulative_incidence,
+    prediction_origin,
+    step_function_at,
+)
+
+__all__ = ["LandmarkSupermodel", "CauseSpecificFit"]
+
+_EFFECT_POWERS = {"none": 0, "linear": 1, "quadratic": 2}
+_CHUNK_CELLS = 4_000_000  # rows x grid cells per block when combining hazards (~32 MB of float64)
+
+
+@dataclass(frozen=True)
+class CauseSpecificFit:
+    """One cause-specific Cox fit on the stack.
+
+    Attributes
+    ----------
+    coef : ndarray (p,)
+        Log hazard ratios per design column.
+    var, robust_var : ndarray (p, p)
+        Model-based and cluster-robust (by patient) covariance.
+    means : ndarray (p,)
+        Training means of the design columns (the baseline hazard refers to them).
+    baseline : dict
+        stratum -> (event times in days from the landmark, Breslow hazard increments at those times).
+    n_events : int
+    """
+
+    coef: np.ndarray
+    var: np.ndarray
+    robust_var: np.ndarray
+    means: np.ndarray
+    baseline: dict[float, tuple[np.ndarray, np.ndarray]]
+    n_events: int
+
+
+def _fit_cox_arrays(
+    design: np.ndarray,
+    time: np.ndarray,
+    event: np.ndarray,
+    *,
+    strata: np.ndarray,
+    cluster: np.ndarray,
+    ties: str,
+    names: Sequence[str],
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Cox fit of one cause on the stack (entry 0, exit ``time``): coef, model-based and robust covariance.
+
+    Uses the project's Cox engine when it is installed, else lifelines' CoxPHFitter (Efron ties only).
+    """
+    try:
+        from riskbench.models.cox_engine import fit_cox
+    except ImportError:
+        fit_cox = None
+    if fit_cox is not None:
+        fit = fit_cox(design, time, event, strata=strata, cluster=cluster, ties=ties, names=names)
+        return np.asarray(fit.coef), np.asarray(fit.var), np.asarray(fit.robust_var)
+    from lifelines import CoxPHFitter
+
+    if ties != "efron":
+        raise ModelInputError("without riskbench.models.cox_engine only ties='efron' is available")
+    columns = [f"x{j}" for j in range(design.shape[1])]
+    frame = pd.DataFrame(design, columns=columns)
+    frame["_time"], frame["_event"], frame["_stratum"] = time, event, strata
+    frame["_cluster"] = pd.factorize(cluster)[0]
+    strata_arg = ["_stratum"] if len(np.unique(strata)) > 1 else None
+    if strata_arg is None:
+        frame = frame.drop(columns="_stratum")
+    model = CoxPHFitter().fit(frame.drop(columns="_cluster"), "_time", "_event", strata=strata_arg)
+    robust = CoxPHFitter().fit(frame, "_time", "_event", strata=strata_arg, cluster_col="_cluster")
+    return (
+        model.params_.to_numpy(),
+        model.variance_matrix_.to_numpy(),
+        robust.variance_matrix_.to_numpy(),
+    )
+
+
+def _breslow_increments(
+    time: np.ndarray, event: np.ndarray, risk_score: np.ndarray, strata: np.ndarray
+) -> dict[float, tuple[np.ndarray, np.ndarray]]:
+    """Breslow increments d(t) / sum_{time >= t} exp(lp) per stratum (all rows enter at 0)."""
+    out: dict[float, tuple[np.ndarray, np.ndarray]] = {}
+    for stratum in np.unique(strata):
+        mask = strata == stratum
+        t, e, r = time[mask], event[mask], risk_score[mask]
+        unique, inverse = np.unique(t, return_inverse=True)
+        deaths = np.bincount(inverse, weights=e, minlength=len(unique))
+        at_risk = np.cumsum(np.bincount(inverse, weights=r, minlength=len(unique))[::-1])[::-1]
+        keep = deaths > 0
+        out[float(stratum)] = (unique[keep], deaths[keep] / at_risk[keep])
+    return out
+
+
+class LandmarkSupermodel:
+    """Cox landmark super-model on a landmark stack, with an optional competing event.
+
+    Parameters
+    ----------
+    covariates : sequence of str
+        Covariate columns of the stack (values known at the landmark).
+    landmark_effects : {"none", "linear", "quadratic"}
+        How each coefficient varies with the landmark s: constant, β₀ + β₁·s/S, or β₀ + β₁·s/S + β₂·(s/S)².
+    baseline : {"smooth", "stratified"}
+        Pooled baseline with landmark terms s/S and (s/S)² as covariates, or one baseline per landmark.
+    competing : bool
+        Fit a cause-specific model for status 2 and predict the cumulative incidence of status 1. If the
+        stack has no status-2 rows the outcome model alone is used.
+    ties : {"efron", "breslow"}
+        Tie handling in the partial likelihood.
+
+    Attributes (after fit)
+    ----------------------
+    design_columns_ : list of str
+    landmarks_ : ndarray, distinct fitted landmarks (days)
+    landmark_scale_ : float, S (days)
+    max_time_ : float, longest follow-up from a landmark in the stack (days); horizons are capped by it
+    outcome_ : CauseSpecificFit
+    competing_ : CauseSpecificFit or None
+    coef_, var_, robust_var_ : the outcome model's coefficients and covariances
+    """
+
+    def __init__(
+        self,
+        covariates: Sequence[str],
+        *,
+        landmark_effects: str = "quadratic",
+        baseline: str = "smooth",
+        competing: bool = True,
+        ties: str = "efron",
+    ) -> None:
+        self.covariates = covariates
+        self.landmark_effects = landmark_effects
+        self.baseline = baseline
+        self.competing = competing
+        self.ties = ties
+
+    # ------------------------------------------------------------------ design
+    def _check_params(self, n_landmarks: int) -> int:
+        if self.landmark_effects not in _EFFECT_POWERS:
+            raise ModelInputError(
+                f"landmark_effects must be one of {sorted(_EFFECT_POWERS)}, got {self.landmark_effects!r}"
+            )
+        if self.baseline not in ("smooth", "stratified"):
+            raise ModelInputError(f"baseline must be 'smooth' or 'stratified', got {self.baseline!r}")
+        if self.ties not in ("efron", "breslow"):
+            raise ModelInputError(f"ties must be 'efron' or 'breslow', got {self.ties!r}")
+        power = _EFFECT_POWERS[self.landmark_effects]
+        if power >= n_landmarks:
+            raise ModelInputError(
+                f"landmark_effects={self.landmark_effects!r} needs at least {power + 1} distinct landmarks, "
+                f"the stack has {n_landmarks}; use fewer landmark effects or more landmarks"
+            )
+        if not list(self.covariates):
+            raise ModelInputError("covariates is empty; name at least one covariate column")
+        return power
+
+    def _design(self, covariate_matrix: np.ndarray, s: np.ndarray) -> np.ndarray:
+        scaled = s / self.landmark_scale_
+        blocks = [covariate_matrix]
+        for k in range(1, self._effect_power_ + 1):
+            blocks.append(covariate_matrix * scaled[:, None] ** k)
+        for k in range(1, self._baseline_power_ + 1):
+            blocks.append((scaled**k)[:, None])
+        return np.hstack(blocks)
+
+    # --------------------------------------------------------------------- fit
+    def fit(self, stack: pd.DataFrame) -> LandmarkSupermodel:
+        """Fit on a landmark stack (``patient_id, landmark, time, status`` + covariates); returns self."""
+        for column in ("patient_id", "landmark", "time", "status"):
+            if column not in stack.columns:
+                raise ModelInputError(
+                    f"landmark stack lacks column '{column}'; build it with Cohort.landmark_stack(...)"
+                )
+        covariates = list(self.covariates)
+        x = check_covariates(stack, covariates, what="landmark stack")
+        s = prediction_origin(stack)
+        time = pd.to_numeric(stack["time"], errors="coerce").to_numpy(dtype=float)
+        status = pd.to_numeric(stack["status"], errors="coerce").to_numpy()
+        bad_time = ~np.isfinite(time) | (time <= 0)
+        if bad_time.any():
+            raise ModelInputError(
+                f"landmark stack column 'time' must be positive days from the landmark; "
+                f"{int(bad_time.sum())} rows are not (rows {stack.index[bad_time][:5].tolist()})"
+            )
+        bad_status = ~np.isin(status, (0, 1, 2))
+        if bad_status.any():
+            raise ModelInputError(
+                f"landmark stack column 'status' must be 0, 1 or 2; rows {stack.index[bad_status][:5].tolist()} "
+                "are not"
+            )
+        self.landmarks_ = np.unique(s)
+        n_landmarks = len(self.landmarks_)
+        self._effect_power_ = self._check_params(n_landmarks)
+        self._baseline_power_ = 0 if self.baseline == "stratified" else min(2, n_landmarks - 1)
+        self.landmark_scale_ = float(self.landmarks_.max()) if self.landmarks_.max() > 0 else 1.0
+        self.design_columns_ = (
+            covariates
+            + [f"{c}:s{'' if k == 1 else k}" for k in range(1, self._effect_power_ + 1) for c in covariates]
+            + ["landmark_s", "landmark_s2"][: self._baseline_power_]
+        )
+        self.max_time_ = float(time.max())
+        design = self._design(x, s)
+        strata = s if self.baseline == "stratified" else np.zeros(len(s))
+        cluster = stack["patient_id"].to_numpy()
+
+        self.outcome_ = self._fit_cause(design, time, (status == 1).astype(float), strata, cluster, "outcome")
+        has_competing = bool(self.competing) and bool((status == 2).any())
+        self.competing_ = (
+            self._fit_cause(design, time, (status == 2).astype(float), strata, cluster, "competing event")
+            if has_competing
+            else None
+        )
+        self.coef_ = self.outcome_.coef
+        self.var_ = self.outcome_.var
+        self.robust_var_ = self.outcome_.robust_var
+        return self
+
+    def _fit_cause(
+        self,
+        design: np.ndarray,
+        time: np.ndarray,
+        event: np.ndarray,
+        strata: np.ndarray,
+        cluster: np.ndarray,
+        label: str,
+    ) -> CauseSpecificFit:
+        if event.sum() == 0:
+            raise ModelInputError(f"the landmark stack has no {label} (status) rows; nothing to fit")
+        coef, var, robust_var = _fit_cox_arrays(
+            design, time, event, strata=strata, cluster=cluster, ties=self.ties, names=self.design_columns_
+        )
+        means = design.mean(axis=0)
+        risk_score = np.exp((design - means) @ coef)
+        return CauseSpecificFit(
+            coef=coef,
+            var=var,
+            robust_var=robust_var,
+            means=means,
+            baseline=_breslow_increments(time, event, risk_score, strata),
+            n_events=int(event.sum()),
+        )
+
+    # ----------------------------------------------------------------- predict
+    def _check_fitted(self) -> None:
+        if not hasattr(self, "outcome_"):
+            raise ModelInputError("this LandmarkSupermodel is not fitted yet; call fit(stack) first")
+
+    def _strata_for(self, s: np.ndarray) -> np.ndarray:
+        if self.baseline == "smooth":
+            low, high = self.landmarks_.min(), self.landmarks_.max()
+            outside = (s < low - 1e-9) | (s > high + 1e-9)
+            if outside.any():
+                raise ModelInputError(
+                    f"{int(outside.sum())} rows have a landmark outside the fitted range [{low:g}, {high:g}] "
+                    "days; the smooth landmark terms would be extrapolated -- refit with landmarks covering them"
+                )
+            return np.zeros(len(s))
+        nearest = self.landmarks_[np.abs(s[:, None] - self.landmarks_[None, :]).argmin(axis=1)]
+        unmatched = ~np.isclose(nearest, s)
+        if unmatched.any():
+            raise ModelInputError(
+                f"baseline='stratified' predicts only at the fitted landmarks {self.landmarks_.tolist()} days; "
+                f"{int(unmatched.sum())} rows have other landmarks -- use baseline='smooth' to predict "
+                "between landmarks"
+            )
+        return nearest
+
+    def predict_curve(self, stack: pd.DataFrame, times: ArrayLike) -> np.ndarray:
+        """Risk of the outcome in (s, s + t] for each row and each t in ``times`` (days from the landmark).
+
+        Returns
+        -------
+        ndarray, shape (n_rows, len(times)); cumulative incidence when a competing model was fitted.
+        """
+        self._check_fitted()
+        times = np.atleast_1d(np.asarray(times, dtype=float))
+        for t in times:
+            check_horizon(t, self.max_time_)
+        x = check_covariates(stack, list(self.covariates), what="prediction table")
+        s = prediction_origin(stack)
+        design = self._design(x, s)
+        strata = self._strata_for(s)
+        out = np.empty((len(stack), len(times)))
+        for stratum in np.unique(strata):
+            rows = np.flatnonzero(strata == stratum)
+            out[rows] = self._curve_in_stratum(design[rows], float(stratum), times)
+        return out
+
+    def _curve_in_stratum(self, design: np.ndarray, stratum: float, times: np.ndarray) -> np.ndarray:
+        fits = [self.outcome_] + ([self.competing_] if self.competing_ is not None else [])
+        empty = (np.empty(0), np.empty(0))
+        bases = [fit.baseline.get(stratum, empty) for fit in fits]
+        grid = np.unique(np.concatenate([b[0] for b in bases]))
+        grid = grid[grid <= times.max()]
+        # increments of each cause on the common grid (zero where that cause has no event)
+        jumps = []
+        for base in bases:
+            on_grid = np.zeros(len(grid))
+            keep = base[0] <= times.max()
+            on_grid[np.searchsorted(grid, base[0][keep])] = base[1][keep]
+            jumps.append(on_grid)
+        scores = [np.exp((design - fit.means) @ fit.coef) for fit in fits]
+        out = np.empty((len(design), len(times)))
+        block = max(1, _CHUNK_CELLS // max(1, len(grid)))
+        for start in range(0, len(design), block):
+            part = slice(start, start + block)
+            d1 = scores[0][part, None] * jumps[0][None, :]
+            d2 = scores[1][part, None] * jumps[1][None, :] if len(fits) > 1 else None
+            incidence = cumulative_incidence(d1, d2)
+            out[part] = step_function_at(grid, incidence, times)
+        return out
+
+    def predict_risk(self, stack: pd.DataFrame, horizon: float) -> np.ndarray:
+        """Risk of the outcome in (s, s + horizon] for each row (s = ``landmark``; horizon in days)."""
+        return self.predict_curve(stack, [horizon])[:, 0]
+
+    # ----------------------------------------------------------------- report
+    def summary(self) -> pd.DataFrame:
+        """Coefficients per cause with cluster-robust SE, hazard ratio, 95% interval and Wald p-value."""
+        from scipy.stats import norm
+
+        self._check_fitted()
+        frames = []
+        for cause, fit in (("outcome", self.outcome_), ("competing", self.competing_)):
+            if fit is None:
+                continue
+            se = np.sqrt(np.diag(fit.robust_var))
+            frames.append(
+                pd.DataFrame(
+                    {
+                        "cause": cause,
+                        "term": self.design_columns_,
+                        "coef": fit.coef,
+                        "se_robust": se,
+                        "se_model": np.sqrt(np.diag(fit.var)),
+                        "hazard_ratio": np.exp(fit.coef),
+                        "hr_lower_95": np.exp(fit.coef - 1.959963984540054 * se),
+                        "hr_upper_95": np.exp(fit.coef + 1.959963984540054 * se),
+                        "p_value": 2 * norm.sf(np.abs(fit.coef / se)),
+                    }
+                )
+            )
+        return pd.concat(frames, ignore_index=True)
+
+    def landmark_coefficients(self, landmarks: ArrayLike, cause: str = "outcome") -> pd.DataFrame:
+        """β(s) of each covariate at the given landmarks (days): one row per landmark, one column per covariate."""
+        self._check_fitted()
+        fit = self.outcome_ if cause == "outcome" else self.competing_
+        if fit is None:
+            raise ModelInputError(f"no fitted model for cause {cause!r}; use 'outcome' or 'competing'")
+        s = np.atleast_1d(np.asarray(landmarks, dtype=float)) / self.landmark_scale_
+        p = len(self.covariates)
+        values = sum(np.outer(s**k, fit.coef[k * p : (k + 1) * p]) for k in range(self._effect_power_ + 1))
+        frame = pd.DataFrame(values, columns=list(self.covariates))
+        frame.insert(0, "landmark", np.atleast_1d(np.asarray(landmarks, dtype=float)))
+        return frame

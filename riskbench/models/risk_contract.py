@@ -1,0 +1,202 @@
+"""The one prediction contract every riskbench model satisfies, and the arithmetic behind it.
+
+The contract
+------------
+A *prediction row* holds one patient's covariates as known at a time ``s`` (days since entry): a landmark
+(column ``landmark``), or the start of a counting-process interval (column ``start``); a table with neither
+column means ``s = 0``. Every model (``CoxModel``, ``LandmarkSupermodel``, ``SurvivalForest``) offers
+
+``fit(table) -> self``
+    learns from a counting-process table or a landmark stack (scikit-learn style: the constructor only
+    stores parameters; fitted attributes end in ``_``).
+``predict_risk(table, horizon) -> ndarray`` of shape ``(n_rows,)``
+    the probability of the outcome (status 1) in ``(s, s + horizon]`` for each row, ``horizon`` in days.
+    With a competing event this is the cumulative incidence of the outcome (the competing event removes the
+    patient from risk), never ``1 - survival`` of a model that treats the competing event as censoring,
+    unless the model's documentation says so (the survival forest does, and says so).
+``predict_curve(table, times) -> ndarray`` of shape ``(n_rows, len(times))``
+    the same risk for every horizon in ``times`` (days from ``s``); non-decreasing along each row.
+
+Rows need only the model's covariates (and ``landmark``/``start`` where the model uses ``s``): patients that
+were not in the fitting data are predicted the same way as those that were -- that is how a model is used.
+:func:`risk_curve` gives a curve for any model that only implements ``predict_risk``.
+
+Helpers here turn cumulative hazards into risk over ``(s, s + w]`` (:func:`risk_from_cumulative_hazard`),
+evaluate step functions (:func:`step_function_at`), and combine cause-specific hazard increments into the
+cumulative incidence of the outcome by the Aalen–Johansen product-integral (:func:`cumulative_incidence`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Protocol, runtime_checkable
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike
+
+__all__ = [
+    "ModelInputError",
+    "RiskModel",
+    "check_covariates",
+    "check_horizon",
+    "cumulative_incidence",
+    "prediction_origin",
+    "risk_curve",
+    "risk_from_cumulative_hazard",
+    "step_function_at",
+]
+
+
+class ModelInputError(ValueError):
+    """A table or argument handed to a model cannot be used; the message names the column, rows and fix."""
+
+
+@runtime_checkable
+class RiskModel(Protocol):
+    """What every riskbench model offers (see the module docstring for the meaning of each method)."""
+
+    def fit(self, table: pd.DataFrame) -> RiskModel: ...
+
+    def predict_risk(self, table: pd.DataFrame, horizon: float) -> np.ndarray: ...
+
+
+def prediction_origin(table: pd.DataFrame) -> np.ndarray:
+    """Time ``s`` (days since entry) from which each row's risk is predicted.
+
+    ``landmark`` if the table has it, else ``start``, else zeros.
+    """
+    for column in ("landmark", "start"):
+        if column in table.columns:
+            values = pd.to_numeric(table[column], errors="coerce").to_numpy(dtype=float)
+            bad = ~np.isfinite(values)
+            if bad.any():
+                rows = np.flatnonzero(bad)[:5].tolist()
+                raise ModelInputError(
+                    f"column '{column}' has {int(bad.sum())} missing or non-numeric values (rows {rows}); "
+                    "give every prediction row its time s in days since entry"
+                )
+            return values
+    return np.zeros(len(table))
+
+
+def check_covariates(table: pd.DataFrame, covariates: Sequence[str], *, what: str = "table") -> np.ndarray:
+    """Return the covariate matrix (float, ``(n_rows, p)``), refusing missing columns or missing values.
+
+    Raises
+    ------
+    ModelInputError
+        If a column is absent, not numeric, or holds NaN/inf; the message names column and first rows.
+    """
+    missing = [c for c in covariates if c not in table.columns]
+    if missing:
+        raise ModelInputError(
+            f"{what} lacks covariate column(s) {missing}; it has {list(table.columns)[:20]}. "
+            "Predict from the same covariates the model was fitted on."
+        )
+    matrix = np.empty((len(table), len(covariates)))
+    for j, name in enumerate(covariates):
+        values = pd.to_numeric(table[name], errors="coerce").to_numpy(dtype=float)
+        bad = ~np.isfinite(values)
+        if bad.any():
+            rows = table.index[bad][:5].tolist()
+            raise ModelInputError(
+                f"{what} column '{name}' has {int(bad.sum())} missing or non-numeric values (rows {rows}); "
+                "impute them or drop those rows before fitting/predicting"
+            )
+        matrix[:, j] = values
+    return matrix
+
+
+def check_horizon(horizon: float, limit: float | None = None) -> float:
+    """Validate a horizon in days: positive, finite and (if given) not beyond the fitted follow-up ``limit``."""
+    try:
+        value = float(horizon)
+    except (TypeError, ValueError) as exc:
+        raise ModelInputError(f"horizon must be a number of days, got {horizon!r}") from exc
+    if not np.isfinite(value) or value <= 0:
+        raise ModelInputError(f"horizon must be a positive number of days, got {horizon!r}")
+    if limit is not None and value > limit * (1 + 1e-9):
+        raise ModelInputError(
+            f"horizon {value:g} days is beyond the {limit:g} days of follow-up the model was fitted on; "
+            "refit on a landmark stack built with a horizon at least this long"
+        )
+    return value
+
+
+def step_function_at(jump_times: ArrayLike, values: ArrayLike, at: ArrayLike) -> np.ndarray:
+    """Value of a right-continuous step function at ``at`` (0 before the first jump).
+
+    Parameters
+    ----------
+    jump_times : array, shape (m,)
+        Sorted times (days) where the function jumps to ``values``.
+    values : array, shape (m,) or (n, m)
+        Function value from each jump time on (one row per subject if 2-D).
+    at : array, shape (k,)
+        Times (days) to evaluate.
+
+    Returns
+    -------
+    ndarray, shape (k,) or (n, k)
+    """
+    jump_times = np.asarray(jump_times, dtype=float)
+    values = np.asarray(values, dtype=float)
+    index = np.searchsorted(jump_times, np.asarray(at, dtype=float), side="right") - 1
+    padded = np.concatenate([np.zeros(values.shape[:-1] + (1,)), values], axis=-1)
+    return padded[..., index + 1]
+
+
+def risk_from_cumulative_hazard(cumhaz: ArrayLike) -> np.ndarray:
+    """Risk ``1 - exp(-H)`` over an interval whose cumulative hazard is ``H`` (e.g. ``H(s + w) - H(s)``)."""
+    return -np.expm1(-np.asarray(cumhaz, dtype=float))
+
+
+def cumulative_incidence(event_jumps: ArrayLike, competing_jumps: ArrayLike | None = None) -> np.ndarray:
+    """Cumulative incidence of the event from cause-specific hazard increments (Aalen–Johansen).
+
+    On a common grid of distinct times t_1 < ... < t_m, with cause-specific increments dA1(t_j) (event) and
+    dA2(t_j) (competing), the all-cause survival just before t_j is the product-integral
+    S(t_j-) = prod_{i<j} (1 - dA1(t_i) - dA2(t_i)) and the cumulative incidence is
+    F1(t_j) = sum_{i<=j} S(t_i-) dA1(t_i) (Aalen & Johansen 1978; Putter, Fiocco & Geskus 2007, Stat Med).
+    With Nelson–Aalen increments and no covariates this is exactly the Aalen–Johansen estimator; with
+    Breslow increments times exp(linear predictor) it is the Cox-based cumulative incidence.
+
+    Parameters
+    ----------
+    event_jumps, competing_jumps : array, shape (m,) or (n, m)
+        Hazard increments at the grid times (one row per subject). ``competing_jumps`` None means no
+        competing event, giving ``1 - prod(1 - dA1)``.
+
+    Returns
+    -------
+    ndarray, same shape: F1 at each grid time, in [0, 1], non-decreasing along the last axis.
+    """
+    d1 = np.clip(np.asarray(event_jumps, dtype=float), 0.0, None)
+    d2 = np.zeros_like(d1) if competing_jumps is None else np.clip(np.asarray(competing_jumps, float), 0.0, None)
+    if d1.shape != d2.shape:
+        raise ModelInputError(f"event and competing increments differ in shape: {d1.shape} vs {d2.shape}")
+    total = d1 + d2
+    # A Cox increment times a large exp(lp) can exceed 1; cap the total at 1 (everyone left fails),
+    # sharing it between causes in proportion, so the probabilities stay in [0, 1].
+    scale = np.where(total > 1.0, 1.0 / np.where(total > 0, total, 1.0), 1.0)
+    d1, total = d1 * scale, np.minimum(total, 1.0)
+    survival = np.cumprod(1.0 - total, axis=-1)
+    before = np.concatenate([np.ones(survival.shape[:-1] + (1,)), survival[..., :-1]], axis=-1)
+    return np.clip(np.cumsum(before * d1, axis=-1), 0.0, 1.0)
+
+
+def risk_curve(model: RiskModel, table: pd.DataFrame, times: ArrayLike) -> np.ndarray:
+    """Risk curve ``(n_rows, len(times))`` from any model: its ``predict_curve`` if it has one, else one
+    ``predict_risk`` call per horizon (made monotone, since a risk over a longer horizon is never smaller)."""
+    times = np.asarray(times, dtype=float)
+    curve_method = getattr(model, "predict_curve", None)
+    if callable(curve_method):
+        return np.asarray(curve_method(table, times), dtype=float)
+    columns = [np.asarray(model.predict_risk(table, float(t)), dtype=float) for t in times]
+    order = np.argsort(times)
+    curve = np.column_stack(columns)[:, order]
+    curve = np.maximum.accumulate(curve, axis=1)
+    out = np.empty_like(curve)
+    out[:, order] = curve
+    return out

@@ -1,0 +1,112 @@
+"""Landmark super-model: cross-checks against lifelines' CoxPHFitter and checks of the design."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from lifelines import CoxPHFitter
+
+from riskbench.models import LandmarkSupermodel, RiskModel
+from riskbench.models.risk_contract import ModelInputError, cumulative_incidence
+
+
+def test_stratified_constant_effects_equal_stratified_cox_with_robust_se(make_stack) -> None:
+    """landmark_effects="none" + baseline="stratified" is a Cox model on the stack stratified by landmark
+    (van Houwelingen 2007, section 3): coefficients, model-based SE and cluster-robust SE (by patient) equal
+    lifelines' CoxPHFitter(strata, cluster_col) to 1e-5."""
+    stack = make_stack(n_patients=250, competing_rate=0)
+    ours = LandmarkSupermodel(["x1", "x2"], landmark_effects="none", baseline="stratified").fit(stack)
+    data = stack[["time", "status", "x1", "x2", "landmark"]]
+    plain = CoxPHFitter().fit(data, "time", "status", strata=["landmark"])
+    robust = CoxPHFitter().fit(
+        stack[["time", "status", "x1", "x2", "landmark", "patient_id"]],
+        "time",
+        "status",
+        strata=["landmark"],
+        cluster_col="patient_id",
+    )
+    np.testing.assert_allclose(ours.coef_, plain.params_[["x1", "x2"]], atol=1e-5)
+    np.testing.assert_allclose(np.sqrt(np.diag(ours.var_)), plain.standard_errors_[["x1", "x2"]], atol=1e-5)
+    np.testing.assert_allclose(
+        np.sqrt(np.diag(ours.robust_var_)), robust.standard_errors_[["x1", "x2"]], atol=1e-5
+    )
+    summary = ours.summary()
+    assert list(summary["term"]) == ["x1", "x2"] and (summary["cause"] == "outcome").all()
+
+
+def test_competing_cumulative_incidence_matches_lifelines_cause_specific_hazards(make_stack) -> None:
+    """The risk in (s, s+w] is the Aalen–Johansen combination of the two cause-specific Cox cumulative hazards
+    given the covariates (Putter, Fiocco & Geskus 2007, Stat Med, section 4); here the hazards come from
+    lifelines' stratified CoxPHFitter (Breslow baseline) and only the combination is ours."""
+    stack = make_stack(n_patients=200, competing_rate=1 / 600, seed=1)
+    model = LandmarkSupermodel(["x1", "x2"], landmark_effects="none", baseline="stratified").fit(stack)
+    rows = stack.groupby("landmark").head(3)
+    horizon = 500.0
+    ours = model.predict_risk(rows, horizon)
+
+    grid = np.unique(stack["time"])
+    grid = grid[grid <= horizon]
+    cumhaz = []
+    for cause in (1, 2):
+        data = stack.assign(event=(stack["status"] == cause).astype(int))[["time", "event", "x1", "x2", "landmark"]]
+        fitted = CoxPHFitter().fit(data, "time", "event", strata=["landmark"])
+        cumhaz.append(fitted.predict_cumulative_hazard(rows, times=grid).to_numpy().T)
+    jumps = [np.diff(h, axis=1, prepend=0.0) for h in cumhaz]
+    expected = cumulative_incidence(jumps[0], jumps[1])[:, -1]
+    np.testing.assert_allclose(ours, expected, rtol=1e-5)
+    # competing event removes patients from risk: cause-specific 1 - S would be larger
+    no_competing = LandmarkSupermodel(
+        ["x1", "x2"], landmark_effects="none", baseline="stratified", competing=False
+    ).fit(stack)
+    assert np.all(no_competing.predict_risk(rows, horizon) > ours)
+
+
+def test_smooth_baseline_and_landmark_dependent_effects_recover_a_drifting_coefficient(make_stack) -> None:
+    """Data drawn with β₁(s) = 0.3 + 0.6·s/S: the linear landmark-effect model recovers slope and intercept
+    within 3 robust standard errors (van Houwelingen 2007, model with β(s) = β₀ + β₁·s)."""
+    stack = make_stack(n_patients=900, beta=(0.3, -0.4), beta_slope=(0.6, 0.0), seed=2, competing_rate=0)
+    model = LandmarkSupermodel(["x1", "x2"], landmark_effects="linear", baseline="smooth").fit(stack)
+    assert model.design_columns_ == ["x1", "x2", "x1:s", "x2:s", "landmark_s", "landmark_s2"]
+    se = np.sqrt(np.diag(model.robust_var_))
+    truth = {"x1": 0.3, "x2": -0.4, "x1:s": 0.6, "x2:s": 0.0}
+    for j, name in enumerate(model.design_columns_[:4]):
+        assert abs(model.coef_[j] - truth[name]) < 3 * se[j], name
+    at = model.landmark_coefficients([0.0, 365.25])
+    np.testing.assert_allclose(at["x1"], [model.coef_[0], model.coef_[0] + model.coef_[2]])
+
+
+def test_quadratic_model_predicts_between_landmarks_for_unseen_patients(make_stack) -> None:
+    """The contract: rows of patients not seen in fitting, with only covariates and a landmark, get risks in
+    [0, 1] that do not depend on the other rows, curves non-decreasing in the horizon."""
+    model = LandmarkSupermodel(["x1", "x2"]).fit(make_stack(n_patients=200, seed=5))
+    assert isinstance(model, RiskModel)
+    new = pd.DataFrame({"landmark": [0.0, 100.0, 300.0], "x1": [1.5, 0.0, -1.0], "x2": [0.0, 0.5, 1.0]})
+    risk = model.predict_risk(new, 365.25)
+    assert np.all((risk > 0) & (risk < 1))
+    assert risk[0] > risk[2]  # x1 raises the hazard
+    alone = model.predict_risk(new.iloc[[1]], 365.25)
+    np.testing.assert_allclose(alone, risk[[1]])
+    curve = model.predict_curve(new, [30.0, 182.0, 365.25, 700.0])
+    assert np.all(np.diff(curve, axis=1) >= 0)
+    np.testing.assert_allclose(curve[:, 2], risk)
+
+
+def test_clear_errors(make_stack) -> None:
+    stack = make_stack(n_patients=120, seed=6)
+    with pytest.raises(ModelInputError, match="lacks column 'status'"):
+        LandmarkSupermodel(["x1"]).fit(stack.drop(columns="status"))
+    with pytest.raises(ModelInputError, match="needs at least 3 distinct landmarks"):
+        LandmarkSupermodel(["x1"]).fit(stack[stack["landmark"] > 0])
+    with pytest.raises(ModelInputError, match="'x2' has 1 missing"):
+        LandmarkSupermodel(["x1", "x2"]).fit(stack.assign(x2=stack["x2"].mask(stack.index == 7)))
+    stratified = LandmarkSupermodel(["x1"], landmark_effects="none", baseline="stratified").fit(stack)
+    with pytest.raises(ModelInputError, match="only at the fitted landmarks"):
+        stratified.predict_risk(pd.DataFrame({"landmark": [50.0], "x1": [0.0]}), 365.25)
+    smooth = LandmarkSupermodel(["x1"]).fit(stack)
+    with pytest.raises(ModelInputError, match="outside the fitted range"):
+        smooth.predict_risk(pd.DataFrame({"landmark": [900.0], "x1": [0.0]}), 365.25)
+    with pytest.raises(ModelInputError, match="beyond"):
+        smooth.predict_risk(stack.head(2), 2000.0)
+    with pytest.raises(ModelInputError, match="not fitted"):
+        LandmarkSupermodel(["x1"]).predict_risk(stack.head(2), 100.0)
