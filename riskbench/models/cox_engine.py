@@ -1,0 +1,605 @@
+"""Cox proportional-hazards fitter for counting-process ``(start, stop]`` rows.
+
+Array level: :func:`fit_cox` takes a covariate matrix and the interval columns and
+returns a frozen :class:`CoxFit`.  Everything that the DataFrame estimator
+(:mod:`riskbench.models.cox_model`) and the landmark super-model need is here.
+
+Algorithm
+---------
+Rows are matched once to the sorted distinct event times of their stratum
+(``lo`` = first event time after ``start``, ``hi`` = last event time not after
+``stop``; the row is at risk at event times ``lo..hi``).  Each Newton iteration
+then gets every risk-set sum by a reverse cumulative sum over event times of the
+rows leaving at ``hi`` minus the rows that have not entered yet (``lo``), so one
+iteration costs O(n·p²) with no per-event-time mask over the rows.  The
+second-moment sums are never formed per event time: ``sum_k c_k S2_k`` equals
+``X' diag(v * sum_{k=lo}^{hi} c_k) X``.  Efron's tie correction is applied only
+over the tied event rows (one entry per event row).
+
+Conventions
+-----------
+- Covariates are centred (mean) and scaled (standard deviation, ``ddof=1``)
+  inside; results are reported on the original scale.
+- The ridge penalty maximises ``loglik - penalty * n_rows / 2 * sum((coef * scale)**2)``,
+  i.e. an L2 penalty on the standardised coefficients in units of the mean
+  log-likelihood per row.  This is the parameterisation of lifelines'
+  ``penalizer`` (``CoxPHFitter`` and ``CoxTimeVaryingFitter``, ``l1_ratio=0``).
+- Weighted Efron ties use the mean weight of the tied events for each of the
+  ``m`` correction terms (as R's survival package and lifelines do).
+- The baseline cumulative hazard is reported for a row whose covariates equal
+  ``CoxFit.center`` (the covariate means); use :meth:`CoxFit.linear_predictor`.
+  With ``ties="efron"`` its increments are Efron-consistent
+  (``sum_l mean_weight / D_l``), with ``ties="breslow"`` they are Breslow's.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from typing import Any, Sequence
+
+import numpy as np
+import pandas as pd
+from scipy import linalg, stats
+
+__all__ = [
+    "CoxFit",
+    "CoxInputError",
+    "CoxConvergenceWarning",
+    "LikelihoodTest",
+    "MonotoneLikelihoodWarning",
+    "fit_cox",
+]
+
+_MONOTONE_STD_COEF = 10.0  # |coef| per SD beyond which a hazard ratio of e^10 per SD is implausible
+
+
+class CoxInputError(ValueError):
+    """Bad input to the Cox engine (the message names the column, rows and the fix)."""
+
+
+class CoxConvergenceWarning(UserWarning):
+    """Newton–Raphson did not meet the convergence rule."""
+
+
+class MonotoneLikelihoodWarning(UserWarning):
+    """A coefficient runs off to infinity (the likelihood keeps rising along it)."""
+
+
+@dataclass(frozen=True)
+class LikelihoodTest:
+    """A chi-square test of all coefficients equal to zero."""
+
+    statistic: float
+    df: int
+    p_value: float
+
+
+@dataclass(frozen=True)
+class CoxFit:
+    """Result of :func:`fit_cox`; coefficients on the original covariate scale.
+
+    Attributes
+    ----------
+    names : covariate names.
+    coef : log hazard ratios per unit of each covariate.
+    var : model-based covariance of ``coef`` (inverse penalised information).
+    robust_var : cluster-robust sandwich covariance, ``None`` without ``cluster``.
+    loglik, loglik_null : partial log-likelihood at ``coef`` and at zero (unpenalised).
+    penalized_loglik : the objective that was maximised.
+    n_iter, converged : Newton–Raphson iterations and whether the rule was met.
+    baseline : DataFrame ``stratum, time, cumhaz`` — cumulative hazard at the event
+        times (days) of each stratum for a row whose covariates equal ``center``.
+    center, scale : covariate means and standard deviations used inside.
+    score_test, lr_test, wald_test : tests of all coefficients zero;
+        ``robust_wald_test`` uses ``robust_var`` (``None`` without cluster).
+    """
+
+    names: tuple[str, ...]
+    coef: np.ndarray
+    var: np.ndarray
+    robust_var: np.ndarray | None
+    loglik: float
+    loglik_null: float
+    penalized_loglik: float
+    n_iter: int
+    converged: bool
+    baseline: pd.DataFrame
+    center: np.ndarray
+    scale: np.ndarray
+    score_test: LikelihoodTest
+    lr_test: LikelihoodTest
+    wald_test: LikelihoodTest
+    robust_wald_test: LikelihoodTest | None
+    ties: str
+    penalty: float
+    n_rows: int
+    n_events: int
+    n_clusters: int | None
+    strata_levels: tuple[Any, ...]
+
+    @property
+    def se(self) -> np.ndarray:
+        """Model-based standard errors."""
+        return np.sqrt(np.diag(self.var))
+
+    @property
+    def robust_se(self) -> np.ndarray | None:
+        """Cluster-robust standard errors (``None`` without cluster)."""
+        return None if self.robust_var is None else np.sqrt(np.diag(self.robust_var))
+
+    def linear_predictor(self, X: np.ndarray | pd.DataFrame) -> np.ndarray:
+        """``(x - center) · coef`` per row: the log relative hazard against ``baseline``."""
+        x = np.asarray(X, dtype=float)
+        if x.ndim == 1:
+            x = x[None, :]
+        return (x - self.center) @ self.coef
+
+
+# --------------------------------------------------------------------------- input checks
+
+
+def _as_names(X: Any, names: Sequence[str] | None, p: int) -> tuple[str, ...]:
+    if names is not None:
+        out = tuple(str(n) for n in names)
+    elif isinstance(X, pd.DataFrame):
+        out = tuple(str(c) for c in X.columns)
+    else:
+        out = tuple(f"x{j}" for j in range(p))
+    if len(out) != p:
+        raise CoxInputError(f"{len(out)} covariate names given for {p} columns of X; pass one name per column.")
+    return out
+
+
+def _first_rows(mask: np.ndarray, k: int = 5) -> str:
+    rows = np.flatnonzero(mask)[:k]
+    more = " ..." if mask.sum() > k else ""
+    return ", ".join(str(r) for r in rows) + more
+
+
+def _check_finite(name: str, values: np.ndarray) -> None:
+    bad = ~np.isfinite(values)
+    if bad.any():
+        raise CoxInputError(
+            f"column '{name}' has {int(bad.sum())} missing or non-finite values (rows {_first_rows(bad)}); "
+            "drop or impute those rows before fitting."
+        )
+
+
+def _vector(name: str, values: Any, n: int) -> np.ndarray:
+    arr = np.asarray(values, dtype=float).reshape(-1)
+    if arr.shape[0] != n:
+        raise CoxInputError(f"'{name}' has {arr.shape[0]} rows but X has {n}; pass one value per row.")
+    _check_finite(name, arr)
+    return arr
+
+
+def _check_collinear(Xs: np.ndarray, names: tuple[str, ...]) -> None:
+    """Raise naming the columns that are linear combinations of earlier ones."""
+    p = Xs.shape[1]
+    if p < 2:
+        return
+    gram = (Xs.T @ Xs) / max(Xs.shape[0] - 1, 1)  # correlation matrix of the standardised columns
+    _, r, piv = linalg.qr(gram, pivoting=True)
+    diag = np.abs(np.diag(r))
+    rank = int((diag > 1e-10 * diag[0]).sum())
+    if rank == p:
+        return
+    keep = np.sort(piv[:rank])
+    parts = []
+    for j in sorted(piv[rank:]):
+        sol, *_ = linalg.lstsq(gram[np.ix_(keep, keep)], gram[keep, j])
+        partners = [names[keep[i]] for i in np.flatnonzero(np.abs(sol) > 1e-6)]
+        parts.append(f"'{names[j]}' = linear combination of {partners}")
+    raise CoxInputError(
+        "collinear covariates: " + "; ".join(parts) + ". Drop one column of each collinear set."
+    )
+
+
+# --------------------------------------------------------------------------- risk-set layout
+
+
+@dataclass(frozen=True)
+class _Layout:
+    """Row-to-event-time matching, computed once per fit (the one sort)."""
+
+    n_keys: int  # distinct (stratum, event time) pairs
+    bounds: np.ndarray  # segment starts per stratum in key space, plus n_keys
+    key_time: np.ndarray  # event time of each key
+    key_stratum: np.ndarray  # stratum code of each key
+    active: np.ndarray  # indices of rows at risk at >= 1 event time
+    lo: np.ndarray  # per active row: first key at risk
+    hi: np.ndarray  # per active row: last key at risk
+    sub_rows: np.ndarray  # positions (in active) of rows entering after their segment start
+    sub_key: np.ndarray  # key just before their entry
+    death: np.ndarray  # positions (in active) of event rows, sorted by key
+    death_key: np.ndarray  # key of each event row
+    frac: np.ndarray  # Efron fraction l/m of each event row (0 for Breslow)
+    ties_per_key: np.ndarray  # m_k, number of event rows per key
+
+
+def _layout(start: np.ndarray, stop: np.ndarray, event: np.ndarray, strata: np.ndarray, ties: str) -> _Layout:
+    is_event = event > 0
+    times = np.unique(stop[is_event])  # all distinct event times (one sort over the events)
+    base = np.int64(times.size + 1)
+    # integer codes keep exact float comparisons: code = number of event times <= t
+    key_row_stop = strata * base + np.searchsorted(times, stop, side="right")
+    key_row_start = strata * base + np.searchsorted(times, start, side="right")
+    keys = np.unique(key_row_stop[is_event])
+    n_keys = keys.size
+    lo_all = np.searchsorted(keys, key_row_start, side="right")
+    hi_all = np.searchsorted(keys, key_row_stop, side="right") - 1
+    key_stratum = keys // base
+    key_time = times[(keys % base) - 1]
+    seg_starts = np.flatnonzero(np.r_[True, key_stratum[1:] != key_stratum[:-1]])
+    bounds = np.r_[seg_starts, n_keys].astype(np.int64)
+    # rows whose interval holds no event time of their stratum contribute nothing
+    active = np.flatnonzero(lo_all <= hi_all)
+    lo, hi = lo_all[active], hi_all[active]
+    seg_of_key = np.repeat(np.arange(seg_starts.size), np.diff(bounds))
+    seg_start_of_row = bounds[seg_of_key[lo]]
+    sub_rows = np.flatnonzero(lo > seg_start_of_row)
+    death = np.flatnonzero(is_event[active])
+    death_key = hi[death]
+    order = np.argsort(death_key, kind="stable")
+    death, death_key = death[order], death_key[order]
+    ties_per_key = np.bincount(death_key, minlength=n_keys)
+    first = np.r_[0, np.cumsum(ties_per_key)[:-1]]
+    rank_in_key = np.arange(death.size) - first[death_key]
+    frac = rank_in_key / ties_per_key[death_key] if ties == "efron" else np.zeros(death.size)
+    return _Layout(
+        n_keys=n_keys,
+        bounds=bounds,
+        key_time=key_time,
+        key_stratum=key_stratum,
+        active=active,
+        lo=lo,
+        hi=hi,
+        sub_rows=sub_rows,
+        sub_key=lo[sub_rows] - 1,
+        death=death,
+        death_key=death_key,
+        frac=frac.astype(float),
+        ties_per_key=ties_per_key,
+    )
+
+
+def _segment_reverse_cumsum(values: np.ndarray, bounds: np.ndarray) -> np.ndarray:
+    """Sum over keys k..end of the stratum segment (keeps strata apart, exact resets)."""
+    out = np.empty_like(values)
+    for a, b in zip(bounds[:-1], bounds[1:]):
+        out[a:b] = np.cumsum(values[a:b][::-1], axis=0)[::-1]
+    return out
+
+
+def _bincount_cols(index: np.ndarray, weights: np.ndarray, size: int) -> np.ndarray:
+    """Column-wise ``np.bincount``: (rows, p) weights -> (size, p) sums."""
+    return np.stack([np.bincount(index, weights=weights[:, j], minlength=size) for j in range(weights.shape[1])], axis=1)
+
+
+@dataclass
+class _State:
+    """Everything computed at one coefficient vector (standardised scale)."""
+
+    loglik: float
+    score: np.ndarray
+    info: np.ndarray
+    shift: float
+    r: np.ndarray  # exp(eta - shift) per active row
+    S1: np.ndarray
+    E1: np.ndarray
+    alpha: np.ndarray  # sum_l mw / D_l per key
+    beta_f: np.ndarray  # sum_l mw f_l / D_l
+    a: np.ndarray  # sum_l mw / D_l^2
+    b: np.ndarray  # sum_l mw f_l / D_l^2
+    c: np.ndarray  # sum_l mw f_l^2 / D_l^2
+    inv_d: np.ndarray  # sum_l 1 / D_l
+    inv_d_f: np.ndarray  # sum_l f_l / D_l
+    A: np.ndarray  # per active row: sum of alpha over its keys
+
+
+def _evaluate(beta: np.ndarray, Xa: np.ndarray, wa: np.ndarray, L: _Layout, with_info: bool = True) -> _State:
+    """Partial log-likelihood, score and information at ``beta`` (standardised covariates)."""
+    K = L.n_keys
+    eta = Xa @ beta
+    shift = float(eta.max())
+    r = np.exp(eta - shift)  # shift guards overflow; every ratio below is shift-free
+    v = wa * r
+    vX = Xa * v[:, None]
+    d = L.death
+    # risk-set sums: rows leaving at hi (reverse cumsum) minus rows not yet entered
+    S0 = np.bincount(L.hi, weights=v, minlength=K) - np.bincount(L.sub_key, weights=v[L.sub_rows], minlength=K)
+    S1 = _bincount_cols(L.hi, vX, K) - _bincount_cols(L.sub_key, vX[L.sub_rows], K)
+    S0 = _segment_reverse_cumsum(S0, L.bounds)
+    S1 = _segment_reverse_cumsum(S1, L.bounds)
+    # tied-event sums and Efron terms, one entry per event row
+    E0 = np.bincount(L.death_key, weights=v[d], minlength=K)
+    E1 = _bincount_cols(L.death_key, vX[d], K)
+    dw = np.bincount(L.death_key, weights=wa[d], minlength=K)
+    mw = (dw / L.ties_per_key)[L.death_key]
+    f = L.frac
+    D = S0[L.death_key] - f * E0[L.death_key]
+    h = mw / D
+    hd = h / D
+    alpha = np.bincount(L.death_key, weights=h, minlength=K)
+    beta_f = np.bincount(L.death_key, weights=h * f, minlength=K)
+    a = np.bincount(L.death_key, weights=hd, minlength=K)
+    b = np.bincount(L.death_key, weights=hd * f, minlength=K)
+    c = np.bincount(L.death_key, weights=hd * f * f, minlength=K)
+    inv_d = np.bincount(L.death_key, weights=1.0 / D, minlength=K)
+    inv_d_f = np.bincount(L.death_key, weights=f / D, minlength=K)
+    loglik = float(wa[d] @ (eta[d] - shift) - mw @ np.log(D))
+    score = wa[d] @ Xa[d] - alpha @ S1 + beta_f @ E1
+    R = _segment_reverse_cumsum(alpha, L.bounds)
+    A = R[L.lo] - (R[L.hi] - alpha[L.hi])
+    info = np.empty((0, 0))
+    if with_info:
+        info = Xa.T @ (Xa * (v * A)[:, None])
+        info -= Xa[d].T @ (Xa[d] * (v[d] * beta_f[L.death_key])[:, None])
+        cross = S1.T @ (E1 * b[:, None])
+        info -= S1.T @ (S1 * a[:, None]) - cross - cross.T + E1.T @ (E1 * c[:, None])
+    return _State(loglik, score, info, shift, r, S1, E1, alpha, beta_f, a, b, c, inv_d, inv_d_f, A)
+
+
+def _score_residuals(Xa: np.ndarray, L: _Layout, s: _State) -> np.ndarray:
+    """Per-row score residuals (standardised scale, unweighted); ``sum(w * res) = score``.
+
+    Event rows use the Efron-averaged mean ``(1/m) sum_l xbar_l`` and are at risk with
+    weight ``1 - f_l`` in their own tie group, as in R's survival package.
+    """
+    d, k = L.death, L.death_key
+    G = s.S1 * s.a[:, None] - s.E1 * s.b[:, None]  # sum_l h_l xbar_l
+    Gf = s.S1 * s.b[:, None] - s.E1 * s.c[:, None]  # sum_l h_l f_l xbar_l
+    RG = _segment_reverse_cumsum(G, L.bounds)
+    B = RG[L.lo] - (RG[L.hi] - G[L.hi])
+    res = -s.r[:, None] * (Xa * s.A[:, None] - B)
+    m = L.ties_per_key[:, None]
+    xbar_event = (s.S1 * s.inv_d[:, None] - s.E1 * s.inv_d_f[:, None]) / m
+    res[d] += Xa[d] - xbar_event[k]
+    res[d] += s.r[d, None] * (Xa[d] * s.beta_f[k][:, None] - Gf[k])
+    return res
+
+
+def _chi2(stat: float, df: int) -> LikelihoodTest:
+    return LikelihoodTest(float(stat), int(df), float(stats.chi2.sf(stat, df)))
+
+
+def _solve_pd(H: np.ndarray, g: np.ndarray) -> np.ndarray:
+    try:
+        return linalg.cho_solve(linalg.cho_factor(H), g)
+    except linalg.LinAlgError:
+        return linalg.lstsq(H, g)[0]
+
+
+def _inverse_pd(H: np.ndarray) -> np.ndarray:
+    try:
+        return linalg.cho_solve(linalg.cho_factor(H), np.eye(H.shape[0]))
+    except linalg.LinAlgError:
+        return linalg.pinvh(H)
+
+
+def _quad_form_inv(x: np.ndarray, V: np.ndarray) -> float:
+    return float(x @ linalg.lstsq(V, x)[0])
+
+
+# --------------------------------------------------------------------------- the fitter
+
+
+def fit_cox(
+    X: np.ndarray | pd.DataFrame,
+    stop: Any,
+    event: Any,
+    start: Any = None,
+    *,
+    strata: Any = None,
+    weights: Any = None,
+    cluster: Any = None,
+    ties: str = "efron",
+    penalty: float = 0.0,
+    max_iter: int = 50,
+    tol: float = 1e-9,
+    names: Sequence[str] | None = None,
+) -> CoxFit:
+    """Fit a Cox model to counting-process rows ``(start, stop]`` by Newton–Raphson.
+
+    Parameters
+    ----------
+    X : (n, p) covariates as known at each row's start (DataFrame columns give names).
+    stop : (n,) end of each interval, days since entry.
+    event : (n,) 1 if the event happened at ``stop``, else 0.
+    start : (n,) start of each interval, days; default 0 (time-fixed data).
+    strata : (n,) stratum labels; each stratum has its own baseline hazard.
+    weights : (n,) positive case weights.
+    cluster : (n,) cluster labels (usually patient id) for the sandwich variance.
+    ties : ``"efron"`` or ``"breslow"``.
+    penalty : ridge penalty λ ≥ 0; maximises ``loglik - λ n/2 ‖coef·scale‖²``
+        (lifelines' ``penalizer`` parameterisation).
+    max_iter : maximum Newton–Raphson iterations.
+    tol : convergence when the relative change of the (penalised) log-likelihood is
+        ≤ ``tol`` and the largest step on the standardised scale is ≤ ``sqrt(tol)``.
+    names : covariate names (default: DataFrame columns or ``x0..``).
+
+    Returns
+    -------
+    CoxFit
+
+    Raises
+    ------
+    CoxInputError
+        No events, non-finite values, ``start >= stop``, constant or collinear columns,
+        bad ``ties``/``event``/``weights``.
+
+    Warns
+    -----
+    MonotoneLikelihoodWarning
+        A coefficient runs off to infinity (named).
+    CoxConvergenceWarning
+        The convergence rule was not met in ``max_iter`` iterations.
+    """
+    if ties not in ("efron", "breslow"):
+        raise CoxInputError(f"ties={ties!r}; use 'efron' or 'breslow'.")
+    if not (np.isfinite(penalty) and penalty >= 0):
+        raise CoxInputError(f"penalty={penalty!r}; use a finite value >= 0.")
+    x = np.asarray(X, dtype=float)
+    if x.ndim == 1:
+        x = x[:, None]
+    if x.ndim != 2 or x.shape[1] == 0:
+        raise CoxInputError("X must be a 2-D array with at least one covariate column.")
+    n, p = x.shape
+    col_names = _as_names(X, names, p)
+    for j, nm in enumerate(col_names):
+        _check_finite(nm, x[:, j])
+    t_stop = _vector("stop", stop, n)
+    t_start = np.zeros(n) if start is None else _vector("start", start, n)
+    ev = _vector("event", event, n)
+    if not np.isin(ev, (0.0, 1.0)).all():
+        bad = ~np.isin(ev, (0.0, 1.0))
+        raise CoxInputError(f"'event' must be 0 or 1; rows {_first_rows(bad)} are not. Recode other statuses first.")
+    bad = t_start >= t_stop
+    if bad.any():
+        raise CoxInputError(
+            f"start >= stop in {int(bad.sum())} rows ({_first_rows(bad)}); every interval (start, stop] needs "
+            "positive length — drop zero-length rows or move a same-day event to stop + a fraction of a day."
+        )
+    w = np.ones(n) if weights is None else _vector("weights", weights, n)
+    if (w <= 0).any():
+        raise CoxInputError(f"'weights' must be positive; rows {_first_rows(w <= 0)} are not. Drop those rows.")
+    if not (ev > 0).any():
+        raise CoxInputError("no events (event == 1) in the data: a Cox model needs at least one event.")
+    if strata is None:
+        strata_codes, strata_levels = np.zeros(n, dtype=np.int64), (0,)
+    else:
+        st = np.asarray(strata).reshape(-1)
+        if st.shape[0] != n:
+            raise CoxInputError(f"'strata' has {st.shape[0]} rows but X has {n}.")
+        codes, uniques = pd.factorize(pd.Series(st), sort=True)
+        if (codes < 0).any():
+            raise CoxInputError(f"'strata' is missing in rows {_first_rows(codes < 0)}; fill or drop them.")
+        strata_codes, strata_levels = codes.astype(np.int64), tuple(uniques.tolist())
+
+    center = x.mean(axis=0)
+    scale = x.std(axis=0, ddof=1) if n > 1 else np.zeros(p)
+    const = ~(scale > 0)
+    if const.any():
+        raise CoxInputError(
+            f"covariates {[col_names[j] for j in np.flatnonzero(const)]} are constant; drop them "
+            "(they are absorbed by the baseline hazard)."
+        )
+    Xs = (x - center) / scale
+    _check_collinear(Xs, col_names)
+
+    L = _layout(t_start, t_stop, ev, strata_codes, ties)
+    Xa, wa = Xs[L.active], w[L.active]
+    pen = float(penalty) * n
+
+    beta = np.zeros(p)
+    st0 = _evaluate(beta, Xa, wa, L)
+    loglik_null = st0.loglik
+    score_stat = _quad_form_inv(st0.score, st0.info)
+    state, obj = st0, st0.loglik
+    converged, n_iter, flat_runs = False, 0, 0
+    history = [beta.copy()]
+    for n_iter in range(1, max_iter + 1):
+        grad = state.score - pen * beta
+        hess = state.info + pen * np.eye(p)
+        step = _solve_pd(hess, grad)
+        for _ in range(40):  # step halving until the objective does not fall
+            trial = beta + step
+            new = _evaluate(trial, Xa, wa, L)
+            new_obj = new.loglik - 0.5 * pen * float(trial @ trial)
+            if np.isfinite(new_obj) and new_obj >= obj - 1e-12 * abs(obj):
+                break
+            step = step / 2.0
+        else:
+            break
+        rel = abs(new_obj - obj) / max(abs(obj), 1e-300)
+        max_step = float(np.abs(step).max())
+        beta, state, obj = trial, new, new_obj
+        history.append(beta.copy())
+        if rel <= tol and max_step <= np.sqrt(tol):
+            converged = True
+            break
+        flat_runs = flat_runs + 1 if rel <= tol else 0
+        if flat_runs >= 3:  # likelihood flat but coefficients still moving: monotone likelihood
+            break
+
+    running = _running_off(history, converged)
+    if running:
+        warnings.warn(
+            f"monotone likelihood: coefficient(s) {[col_names[j] for j in running]} run off to infinity "
+            "(an event pattern is perfectly separated by them); their estimates and standard errors are "
+            "meaningless — drop or coarsen them, or use a ridge penalty.",
+            MonotoneLikelihoodWarning,
+            stacklevel=2,
+        )
+    elif not converged:
+        warnings.warn(
+            f"Newton–Raphson did not converge in {n_iter} iterations (tol={tol}); results may be inaccurate.",
+            CoxConvergenceWarning,
+            stacklevel=2,
+        )
+
+    V_std = _inverse_pd(state.info + pen * np.eye(p))
+    coef = beta / scale
+    var = V_std / np.outer(scale, scale)
+    robust_var, robust_wald, n_clusters = None, None, None
+    if cluster is not None:
+        cl = np.asarray(cluster).reshape(-1)
+        if cl.shape[0] != n:
+            raise CoxInputError(f"'cluster' has {cl.shape[0]} rows but X has {n}.")
+        cl_codes, cl_uniques = pd.factorize(pd.Series(cl))
+        if (cl_codes < 0).any():
+            raise CoxInputError(f"'cluster' is missing in rows {_first_rows(cl_codes < 0)}; fill or drop them.")
+        n_clusters = len(cl_uniques)
+        res = _score_residuals(Xa, L, state) * wa[:, None]
+        per_cluster = _bincount_cols(cl_codes[L.active], res, n_clusters)
+        rv_std = V_std @ (per_cluster.T @ per_cluster) @ V_std
+        robust_var = rv_std / np.outer(scale, scale)
+        robust_wald = _chi2(_quad_form_inv(coef, robust_var), p)
+
+    dlam = state.alpha * np.exp(-state.shift)  # hazard increments at the centre (shift undone)
+    cumhaz = np.empty_like(dlam)
+    for a, b in zip(L.bounds[:-1], L.bounds[1:]):
+        cumhaz[a:b] = np.cumsum(dlam[a:b])
+    baseline = pd.DataFrame(
+        {
+            "stratum": np.asarray(strata_levels, dtype=object)[L.key_stratum] if strata is not None else 0,
+            "time": L.key_time,
+            "cumhaz": cumhaz,
+        }
+    )
+    return CoxFit(
+        names=col_names,
+        coef=coef,
+        var=var,
+        robust_var=robust_var,
+        loglik=state.loglik,
+        loglik_null=loglik_null,
+        penalized_loglik=obj,
+        n_iter=n_iter,
+        converged=converged,
+        baseline=baseline,
+        center=center,
+        scale=scale,
+        score_test=_chi2(score_stat, p),
+        lr_test=_chi2(2.0 * (state.loglik - loglik_null), p),
+        wald_test=_chi2(_quad_form_inv(coef, var), p),
+        robust_wald_test=robust_wald,
+        ties=ties,
+        penalty=float(penalty),
+        n_rows=n,
+        n_events=int((ev > 0).sum()),
+        n_clusters=n_clusters,
+        strata_levels=strata_levels,
+    )
+
+
+def _running_off(history: list[np.ndarray], converged: bool) -> list[int]:
+    """Coefficients (standardised) that are huge, or still growing at the end without convergence."""
+    last = history[-1]
+    huge = set(np.flatnonzero(np.abs(last) > _MONOTONE_STD_COEF).tolist())
+    if not converged and len(history) >= 4:
+        tail = np.abs(np.array(history[-4:]))
+        growing = np.all(np.diff(tail, axis=0) > 1e-3, axis=0) & (tail[-1] > 3.0)
+        huge |= set(np.flatnonzero(growing).tolist())
+    return sorted(huge)
