@@ -175,25 +175,23 @@ def _vector(name: str, values: Any, n: int) -> np.ndarray:
 
 
 def _check_collinear(Xs: np.ndarray, names: tuple[str, ...]) -> None:
-    """Raise naming the columns that are linear combinations of earlier ones."""
+    """Raise naming each column that is a linear combination of the columns before it."""
     p = Xs.shape[1]
     if p < 2:
         return
     gram = (Xs.T @ Xs) / max(Xs.shape[0] - 1, 1)  # correlation matrix of the standardised columns
-    _, r, piv = linalg.qr(gram, pivoting=True)
-    diag = np.abs(np.diag(r))
-    rank = int((diag > 1e-10 * diag[0]).sum())
-    if rank == p:
-        return
-    keep = np.sort(piv[:rank])
+    keep: list[int] = [0]
     parts = []
-    for j in sorted(piv[rank:]):
-        sol, *_ = linalg.lstsq(gram[np.ix_(keep, keep)], gram[keep, j])
+    for j in range(1, p):
+        sol = linalg.lstsq(gram[np.ix_(keep, keep)], gram[keep, j])[0]
+        residual = gram[j, j] - gram[keep, j] @ sol  # variance of column j not explained by the kept ones
+        if residual > 1e-10 * gram[j, j]:
+            keep.append(j)
+            continue
         partners = [names[keep[i]] for i in np.flatnonzero(np.abs(sol) > 1e-6)]
         parts.append(f"'{names[j]}' = linear combination of {partners}")
-    raise CoxInputError(
-        "collinear covariates: " + "; ".join(parts) + ". Drop one column of each collinear set."
-    )
+    if parts:
+        raise CoxInputError("collinear covariates: " + "; ".join(parts) + ". Drop one column of each collinear set.")
 
 
 # --------------------------------------------------------------------------- risk-set layout
