@@ -1,0 +1,190 @@
+"""``build_cohort``: sources in, ledger, flow, counting-process table and landmark stack out."""
+
+from __future__ import annotations
+
+import tempfile
+from collections.abc import Sequence
+from functools import cached_property
+from pathlib import Path
+
+import duckdb
+import pandas as pd
+import pyarrow as pa
+
+from riskbench.cohort import contract
+from riskbench.cohort.contract import CHECK_ORDER
+from riskbench.cohort.counting import build_counting_process
+from riskbench.cohort.landmark import landmark_sql
+from riskbench.cohort.reading import Source, load_table, quote
+from riskbench.cohort.reasons import RowState
+from riskbench.cohort.spec import CohortSpec
+
+TABLE_ORDER = ("patients", "measurements", "outcomes")
+
+
+def _to_pandas(rel: duckdb.DuckDBPyRelation) -> pd.DataFrame:
+    """Arrow-backed strings keep large tables cheap; numbers come out as numpy columns."""
+    table = rel.arrow()
+    if isinstance(table, pa.RecordBatchReader):
+        table = table.read_all()
+    mapper = {pa.string(): pd.StringDtype("pyarrow"), pa.large_string(): pd.StringDtype("pyarrow")}
+    frame = table.to_pandas(types_mapper=mapper.get)
+    if "status" in frame.columns:
+        frame["status"] = frame["status"].astype("int64")
+    return frame
+
+
+class Cohort:
+    """The tables of one cohort, held in a DuckDB connection and materialised on first access.
+
+    Attributes
+    ----------
+    spec : CohortSpec
+        The rules the cohort was built with.
+    counting_process : DataFrame
+        ``patient_id, start, stop, status`` (days since entry; 0 censored, 1 outcome, 2 competing) and the
+        covariates of ``spec.covariate_columns`` as known at ``start``.
+    ledger : DataFrame
+        ``table, row_number, patient_id, state``: every input row exactly once (``row_number`` is the
+        1-based data row of the source).
+    flow : DataFrame
+        ``label, table, state, remaining, excluded, step``: per table, the rows read, then the rows removed
+        (``excluded``) and left (``remaining``) at each check in check order, then the rows used.
+    patients : DataFrame
+        One row per included patient: ``patient_id, entry_date, end_days, end_status`` and static covariates.
+    """
+
+    def __init__(self, con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
+        self._con = con
+        self.spec = spec
+
+    @cached_property
+    def counting_process(self) -> pd.DataFrame:
+        return _to_pandas(self._con.sql("SELECT * FROM cp"))
+
+    @cached_property
+    def ledger(self) -> pd.DataFrame:
+        order = {t: i for i, t in enumerate(TABLE_ORDER)}
+        frame = _to_pandas(self._con.sql('SELECT * FROM ledger ORDER BY "table", row_number'))
+        return frame.sort_values(["table", "row_number"], key=lambda s: s.map(order) if s.name == "table" else s,
+                                 kind="stable", ignore_index=True)
+
+    @cached_property
+    def patients(self) -> pd.DataFrame:
+        statics = "".join(f", {quote(c)}" for c in self.spec.static)
+        return _to_pandas(self._con.sql(
+            f"SELECT patient_id, CAST(entry_ts AS DATE) AS entry_date, end_days, "
+            f"CAST(end_status AS TINYINT) AS end_status, entry_age_years{statics} FROM pat ORDER BY patient_id"))
+
+    def state_counts(self) -> pd.DataFrame:
+        """Rows per table and ledger state: ``table, state, n_rows``."""
+        return self._con.sql('SELECT "table", state, count(*) AS n_rows FROM ledger GROUP BY ALL '
+                             'ORDER BY "table", state').df()
+
+    @cached_property
+    def flow(self) -> pd.DataFrame:
+        counts = {(t, s): n for t, s, n in self.state_counts().itertuples(index=False)}
+        rows = []
+        for table in TABLE_ORDER:
+            remaining = sum(n for (t, _), n in counts.items() if t == table)
+            rows.append((f"{table}: read", table, "read", remaining, 0, 0))
+            for step, state in enumerate(CHECK_ORDER[table], start=1):
+                n = counts.get((table, str(state)), 0)
+                if state is RowState.USED:
+                    rows.append((f"{table}: used", table, str(state), n, 0, step))
+                else:
+                    remaining -= n
+                    rows.append((f"{table}: excluded, {state}", table, str(state), remaining, n, step))
+        return pd.DataFrame(rows, columns=["label", "table", "state", "remaining", "excluded", "step"])
+
+    def top_exclusions(self, n: int = 5) -> pd.DataFrame:
+        """The ``n`` exclusion reasons with the most rows: ``table, state, n_rows``."""
+        counts = self.state_counts()
+        counts = counts[counts["state"] != str(RowState.USED)]
+        return counts.sort_values("n_rows", ascending=False, kind="stable").head(n).reset_index(drop=True)
+
+    def landmark_stack(self, landmarks_days: Sequence[float], horizon_days: float) -> pd.DataFrame:
+        """Patients at risk at each landmark with covariates as known there.
+
+        Parameters
+        ----------
+        landmarks_days : sequence of float
+            Landmarks s, days since entry (see :func:`riskbench.cohort.landmark_grid` for a regular grid).
+        horizon_days : float
+            Prediction horizon w, days: ``time`` is at most w and follow-up is censored at s + w.
+
+        Returns
+        -------
+        DataFrame
+            ``patient_id, landmark, time, status`` and the covariate columns of the counting-process table;
+            patients whose follow-up ends at or before s are not at risk and are left out.
+        """
+        return _to_pandas(self._con.sql(landmark_sql(self.spec, landmarks_days, horizon_days)))
+
+    def write_parquet(self, folder: str | Path, *, landmarks_days: Sequence[float] | None = None,
+                      horizon_days: float | None = None) -> dict[str, Path]:
+        """Write the tables as Parquet files into ``folder`` (out of core); return the paths by table name."""
+        out = Path(folder)
+        out.mkdir(parents=True, exist_ok=True)
+        paths = {"counting_process": out / "counting_process.parquet", "ledger": out / "ledger.parquet",
+                 "patients": out / "patients.parquet"}
+        queries = {"counting_process": "SELECT * FROM cp", "ledger": "SELECT * FROM ledger",
+                   "patients": "SELECT * EXCLUDE (entry_ts), CAST(entry_ts AS DATE) AS entry_date FROM pat"}
+        if landmarks_days is not None:
+            if horizon_days is None:
+                raise ValueError("write_parquet: give horizon_days together with landmarks_days")
+            paths["landmark_stack"] = out / "landmark_stack.parquet"
+            queries["landmark_stack"] = landmark_sql(self.spec, landmarks_days, horizon_days)
+        for name, query in queries.items():
+            target = str(paths[name]).replace("'", "''")
+            self._con.execute(f"COPY ({query}) TO '{target}' (FORMAT parquet)")
+        flow_path = out / "flow.csv"
+        self.flow.to_csv(flow_path, index=False)
+        paths["flow"] = flow_path
+        return paths
+
+
+def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec: CohortSpec, *,
+                 memory_limit: str | None = None, threads: int | None = None) -> Cohort:
+    """Check the sources, keep the ledger and build the counting-process table.
+
+    Parameters
+    ----------
+    patients, measurements, outcomes : path, DataFrame or TableSource
+        The three source tables (CSV or Parquet files, or DataFrames) in the input contract of DESIGN.md;
+        column names and date formats are mapped by ``spec`` (or by a ``TableSource``).
+    spec : CohortSpec
+        Variables, units, plausible ranges, carry-forward, look-back and same-day rules.
+    memory_limit : str, optional
+        DuckDB memory limit (e.g. ``"6GB"``); larger work spills to a temporary folder.
+    threads : int, optional
+        DuckDB worker threads (default: all cores).
+
+    Returns
+    -------
+    Cohort
+
+    Raises
+    ------
+    CohortInputError
+        A required column is missing (the message names the file, the column and the columns present), a
+        patient id is repeated with different contents, or same-time values conflict under rule "error".
+    """
+    config: dict[str, object] = {"preserve_insertion_order": True,
+                                 "temp_directory": tempfile.mkdtemp(prefix="riskbench_duckdb_")}
+    if memory_limit:
+        config["memory_limit"] = memory_limit
+    if threads:
+        config["threads"] = int(threads)
+    con = duckdb.connect(":memory:", config=config)
+    extra = tuple(c for c in spec.static if c not in ("sex_male", "age_at_entry"))
+    loaded_p = load_table(con, "patients", patients, spec, extra)
+    loaded_m = load_table(con, "measurements", measurements, spec)
+    loaded_o = load_table(con, "outcomes", outcomes, spec)
+    contract.check_patients(con, loaded_p, spec)
+    contract.check_outcomes(con, loaded_o, spec)
+    contract.build_patient_table(con, loaded_p, spec)
+    contract.check_measurements(con, loaded_m, spec)
+    contract.build_ledger(con)
+    build_counting_process(con, spec)
+    return Cohort(con, spec)

@@ -1,0 +1,256 @@
+"""Contract checks: put every input row in exactly one ledger state and keep the usable rows.
+
+Checks run in a fixed order and a row takes the state of the first check it fails (see ``CHECK_ORDER``).
+The results are DuckDB tables:
+
+- ``ledger``: ``table, row_number, patient_id, state`` for every input row;
+- ``pat``: included patients with ``patient_id, entry_ts, end_days, end_status`` and static covariates;
+- ``meas``: used measurements, one per patient, variable and time: ``patient_id, day, variable, x``
+  (``x`` in the canonical unit, log-transformed where the spec says so).
+"""
+
+from __future__ import annotations
+
+import duckdb
+
+from riskbench.cohort.errors import CohortInputError
+from riskbench.cohort.reading import LoadedTable, blank, number_expr, quote, timestamp_expr
+from riskbench.cohort.reasons import RowState as S
+from riskbench.cohort.spec import DAYS_PER_YEAR, CohortSpec
+
+# The order in which each table's checks are applied (the flow table follows it).
+CHECK_ORDER: dict[str, tuple[S, ...]] = {
+    "patients": (S.MISSING_REQUIRED, S.UNPARSEABLE_DATE, S.EXACT_DUPLICATE, S.OUTCOME_BEFORE_ENTRY,
+                 S.NO_FOLLOW_UP, S.USED),
+    "outcomes": (S.MISSING_REQUIRED, S.UNPARSEABLE_DATE, S.UNKNOWN_KIND, S.UNKNOWN_PATIENT, S.EXACT_DUPLICATE,
+                 S.PATIENT_EXCLUDED, S.LATER_EVENT, S.USED),
+    "measurements": (S.MISSING_REQUIRED, S.UNPARSEABLE_DATE, S.UNPARSEABLE_VALUE, S.UNKNOWN_VARIABLE,
+                     S.UNKNOWN_PATIENT, S.EXACT_DUPLICATE, S.PATIENT_EXCLUDED, S.UNKNOWN_UNIT,
+                     S.IMPLAUSIBLE_VALUE, S.BEFORE_LOOKBACK, S.AFTER_FOLLOW_UP, S.SAME_DAY_MERGED, S.USED),
+}
+KIND_STATUS = {"outcome": 1, "competing": 2, "end_of_follow_up": 0}
+# At one date, an outcome outranks a competing event, which outranks a plain end of follow-up.
+KIND_RANK = {"outcome": 1, "competing": 2, "end_of_follow_up": 3}
+ERROR_ROWS_SHOWN = 10
+
+
+def _sql_str(value: str) -> str:
+    return "'" + value.replace("'", "''") + "'"
+
+
+def _days(ts: str, origin: str) -> str:
+    """SQL: days from ``origin`` to ``ts`` (fractional when a time of day is given)."""
+    return f"((epoch({ts}) - epoch({origin})) / 86400.0)"
+
+
+def _first_blank(columns: tuple[str, ...], alias: str | None = None) -> str:
+    return " OR ".join(blank(c, alias) for c in columns)
+
+
+def _dedupe(con: duckdb.DuckDBPyConnection, name: str, columns: tuple[str, ...]) -> None:
+    """Mark later copies of identical still-unresolved rows of table ``name`` as exact duplicates."""
+    keys = ", ".join(f"CAST({quote(c)} AS VARCHAR)" for c in columns)
+    con.execute(f"""
+        UPDATE {name} SET state = '{S.EXACT_DUPLICATE}' FROM (
+            SELECT row_number AS rn FROM (
+                SELECT row_number, row_number() OVER (PARTITION BY {keys} ORDER BY row_number) AS k
+                FROM {name} WHERE state IS NULL) WHERE k > 1) d
+        WHERE {name}.row_number = d.rn""")
+
+
+def check_patients(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
+    """First pass over patients: required fields, dates, exact duplicates, then duplicate ids (an error)."""
+    cols = loaded.columns
+    birth = timestamp_expr(loaded, "birth_date") if "birth_date" in cols else "NULL::TIMESTAMP"
+    birth_bad = f"(NOT {blank('birth_date')} AND {birth} IS NULL)" if "birth_date" in cols else "FALSE"
+    con.execute(f"""
+        CREATE TEMP TABLE p1 AS SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
+            {timestamp_expr(loaded, 'entry_date')} AS entry_ts, {birth} AS birth_ts, * EXCLUDE (row_number, patient_id),
+            CASE WHEN {_first_blank(('patient_id', 'entry_date'))} THEN '{S.MISSING_REQUIRED}'
+                 WHEN {timestamp_expr(loaded, 'entry_date')} IS NULL OR {birth_bad} THEN '{S.UNPARSEABLE_DATE}'
+            END AS state
+        FROM raw_patients""")
+    _dedupe(con, "p1", tuple(c for c in cols))
+    dups = con.execute(f"""
+        SELECT patient_id, list(row_number ORDER BY row_number) FROM p1 WHERE state IS NULL
+        GROUP BY patient_id HAVING count(*) > 1 ORDER BY min(row_number) LIMIT {ERROR_ROWS_SHOWN}""").fetchall()
+    if dups:
+        shown = "; ".join(f"{pid!r} at rows {rows}" for pid, rows in dups)
+        raise CohortInputError(
+            f"{loaded.label}: duplicate patient ids with different contents ({shown}). Each patient must "
+            "have exactly one row in the patients table; remove or correct the extra rows.")
+
+
+def check_outcomes(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
+    """Outcome rows: resolve each patient's first terminal event and the patients' follow-up states."""
+    kind_map = {k: k for k in KIND_STATUS} | dict(spec.kind_map)
+    kind_case = " ".join(f"WHEN {_sql_str(k)} THEN {_sql_str(v)}" for k, v in kind_map.items())
+    ts = timestamp_expr(loaded, "date")
+    con.execute(f"""
+        CREATE TEMP TABLE o1 AS SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
+            {ts} AS ts, CASE trim(CAST(kind AS VARCHAR)) {kind_case} END AS kind_std,
+            * EXCLUDE (row_number, patient_id),
+            CASE WHEN {_first_blank(('patient_id', 'date', 'kind'))} THEN '{S.MISSING_REQUIRED}'
+                 WHEN {ts} IS NULL THEN '{S.UNPARSEABLE_DATE}'
+                 WHEN (CASE trim(CAST(kind AS VARCHAR)) {kind_case} END) IS NULL THEN '{S.UNKNOWN_KIND}'
+                 WHEN trim(CAST(patient_id AS VARCHAR)) NOT IN (SELECT patient_id FROM p1
+                      WHERE patient_id IS NOT NULL) THEN '{S.UNKNOWN_PATIENT}'
+            END AS state
+        FROM raw_outcomes""")
+    _dedupe(con, "o1", loaded.columns)
+    status_case = " ".join(f"WHEN '{k}' THEN {v}" for k, v in KIND_STATUS.items())
+    rank_case = " ".join(f"WHEN '{k}' THEN {v}" for k, v in KIND_RANK.items())
+    con.execute(f"""
+        CREATE TEMP TABLE first_event AS SELECT * FROM (
+            SELECT o.row_number, o.patient_id, {_days('o.ts', 'p.entry_ts')} AS end_days,
+                CASE o.kind_std {status_case} END AS end_status,
+                row_number() OVER (PARTITION BY o.patient_id
+                    ORDER BY o.ts, CASE o.kind_std {rank_case} END, o.row_number) AS k
+            FROM o1 o JOIN p1 p ON o.patient_id = p.patient_id AND p.state IS NULL
+            WHERE o.state IS NULL) WHERE k = 1""")
+    con.execute(f"""
+        UPDATE p1 SET state = CASE WHEN f.end_days IS NULL THEN '{S.NO_FOLLOW_UP}'
+                                   WHEN f.end_days < 0 THEN '{S.OUTCOME_BEFORE_ENTRY}'
+                                   WHEN f.end_days = 0 THEN '{S.NO_FOLLOW_UP}'
+                                   ELSE '{S.USED}' END
+        FROM (SELECT p.patient_id, f.end_days FROM p1 p LEFT JOIN first_event f USING (patient_id)
+              WHERE p.state IS NULL) f
+        WHERE p1.patient_id = f.patient_id AND p1.state IS NULL""")
+    con.execute(f"""
+        UPDATE o1 SET state = CASE WHEN NOT p.ok THEN '{S.PATIENT_EXCLUDED}'
+                                   WHEN o1.row_number IN (SELECT row_number FROM first_event) THEN '{S.USED}'
+                                   ELSE '{S.LATER_EVENT}' END
+        FROM (SELECT patient_id, bool_or(state = '{S.USED}') AS ok FROM p1 GROUP BY patient_id) p
+        WHERE o1.patient_id = p.patient_id AND o1.state IS NULL""")
+
+
+def build_patient_table(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
+    """Create ``pat``: the included patients with follow-up and static covariates."""
+    cols = loaded.columns
+    if "birth_date" in cols:
+        age = f"({_days('p.entry_ts', 'p.birth_ts')} / {DAYS_PER_YEAR})"
+    elif "age_at_entry" in cols:
+        age = number_expr(loaded, "age_at_entry", "p")
+    else:
+        age = None
+    statics = []
+    for name in spec.static:
+        if name == "sex_male":
+            if "sex" not in cols:
+                raise CohortInputError(f"{loaded.label}: static covariate 'sex_male' needs a 'sex' column "
+                                       f"(F/M); the patients table has {list(cols)}")
+            statics.append("CASE upper(trim(CAST(p.sex AS VARCHAR))) WHEN 'M' THEN 1.0 WHEN 'MALE' THEN 1.0 "
+                           "WHEN 'F' THEN 0.0 WHEN 'FEMALE' THEN 0.0 END::DOUBLE AS sex_male")
+        elif name == "age_at_entry":
+            if age is None:
+                raise CohortInputError(f"{loaded.label}: static covariate 'age_at_entry' needs a 'birth_date' "
+                                       f"or 'age_at_entry' column; the patients table has {list(cols)}")
+            statics.append(f"{age} AS age_at_entry")
+        else:
+            if name not in cols:
+                raise CohortInputError(f"{loaded.label}: static covariate {name!r} is not a column of the "
+                                       f"patients table (columns: {list(cols)}); map it or drop it from static")
+            statics.append(f"{number_expr(loaded, name, 'p')} AS {quote(name)}")
+    if spec.current_age and age is None:
+        raise CohortInputError(f"{loaded.label}: current age needs a 'birth_date' or 'age_at_entry' column; "
+                               "set current_age = false otherwise")
+    age_sql = f"{age} AS entry_age_years" if age is not None else "NULL::DOUBLE AS entry_age_years"
+    static_sql = "".join(", " + s for s in statics)
+    con.execute(f"""
+        CREATE TEMP TABLE pat AS SELECT p.patient_id, p.entry_ts, f.end_days, f.end_status,
+            {age_sql}{static_sql}
+        FROM p1 p JOIN first_event f USING (patient_id) WHERE p.state = '{S.USED}'""")
+
+
+def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
+    """Measurement rows: parse, convert units, check ranges and windows, merge same-time values."""
+    rows = []
+    for v in spec.variables:
+        lo = "NULL" if v.plausible_min is None else repr(v.plausible_min)
+        hi = "NULL" if v.plausible_max is None else repr(v.plausible_max)
+        for unit, factor in v.factors.items():
+            rows.append(f"({_sql_str(v.name)}, {_sql_str(unit)}, {factor!r}, {lo}::DOUBLE, {hi}::DOUBLE, "
+                        f"{str(v.transform == 'log').upper()})")
+    if not rows:
+        raise CohortInputError("the cohort spec has no variables; add at least one under [cohort.variables]")
+    con.execute("CREATE TEMP TABLE units(variable VARCHAR, unit VARCHAR, factor DOUBLE, lo DOUBLE, hi DOUBLE, "
+                f"is_log BOOLEAN); INSERT INTO units VALUES {', '.join(rows)}")
+    canonical = ", ".join(f"({_sql_str(v.name)}, {_sql_str(v.unit)})" for v in spec.variables)
+    unit_raw = "trim(CAST(m.unit AS VARCHAR))" if "unit" in loaded.columns else "NULL"
+    ts = timestamp_expr(loaded, "date", "m")
+    value = number_expr(loaded, "value", "m")
+    con.execute(f"""
+        CREATE TEMP TABLE m1 AS SELECT m.row_number, trim(CAST(m.patient_id AS VARCHAR)) AS patient_id,
+            trim(CAST(m.variable AS VARCHAR)) AS var, {ts} AS ts, {value} AS raw_value,
+            coalesce(nullif({unit_raw}, ''), c.cunit) AS unit_std, m.* EXCLUDE (row_number, patient_id),
+            CASE WHEN {_first_blank(('patient_id', 'date', 'variable', 'value'), 'm')} THEN '{S.MISSING_REQUIRED}'
+                 WHEN {ts} IS NULL THEN '{S.UNPARSEABLE_DATE}'
+                 WHEN {value} IS NULL THEN '{S.UNPARSEABLE_VALUE}'
+                 WHEN c.cunit IS NULL THEN '{S.UNKNOWN_VARIABLE}'
+                 WHEN trim(CAST(m.patient_id AS VARCHAR)) NOT IN (SELECT patient_id FROM p1
+                      WHERE patient_id IS NOT NULL) THEN '{S.UNKNOWN_PATIENT}'
+            END AS state
+        FROM raw_measurements m
+        LEFT JOIN (VALUES {canonical}) c(cvar, cunit) ON trim(CAST(m.variable AS VARCHAR)) = c.cvar""")
+    _dedupe(con, "m1", loaded.columns)
+    # Resolve the remaining rows against the patient's window and the unit table in one pass.
+    lookback = f"{spec.lookback_days!r}"
+    con.execute(f"""
+        CREATE TEMP TABLE m2 AS SELECT m.row_number, m.patient_id, m.var, {_days('m.ts', 'p.entry_ts')} AS day,
+            m.raw_value * u.factor AS value,
+            u.is_log,
+            CASE WHEN p.patient_id IS NULL THEN '{S.PATIENT_EXCLUDED}'
+                 WHEN u.factor IS NULL THEN '{S.UNKNOWN_UNIT}'
+                 WHEN (u.lo IS NOT NULL AND m.raw_value * u.factor < u.lo)
+                   OR (u.hi IS NOT NULL AND m.raw_value * u.factor > u.hi)
+                   OR (u.is_log AND m.raw_value * u.factor <= 0) THEN '{S.IMPLAUSIBLE_VALUE}'
+                 WHEN {_days('m.ts', 'p.entry_ts')} < -{lookback} THEN '{S.BEFORE_LOOKBACK}'
+                 WHEN {_days('m.ts', 'p.entry_ts')} > p.end_days THEN '{S.AFTER_FOLLOW_UP}'
+            END AS state
+        FROM m1 m LEFT JOIN pat p USING (patient_id)
+        LEFT JOIN units u ON u.variable = m.var AND u.unit = m.unit_std
+        WHERE m.state IS NULL""")
+    _merge_same_time(con, spec)
+    con.execute(f"""
+        CREATE TEMP TABLE meas AS SELECT patient_id, day, var AS variable,
+            CASE WHEN is_log THEN ln(value) ELSE value END AS x
+        FROM m3 WHERE state = '{S.USED}'""")
+    con.execute(f"""
+        CREATE TEMP TABLE ledger_m AS
+        SELECT m1.row_number, m1.patient_id, coalesce(m1.state, m3.state) AS state
+        FROM m1 LEFT JOIN m3 USING (row_number)""")
+
+
+def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
+    """Create ``m3``: one used row per (patient, variable, time); the others are merged into it."""
+    rule = spec.same_day_rule
+    if rule == "error":
+        clash = con.execute(f"""
+            SELECT patient_id, var, day, list(row_number ORDER BY row_number), list(value ORDER BY row_number)
+            FROM m2 WHERE state IS NULL GROUP BY patient_id, var, day
+            HAVING min(value) <> max(value) ORDER BY min(row_number) LIMIT {ERROR_ROWS_SHOWN}""").fetchall()
+        if clash:
+            shown = "; ".join(f"patient {p!r} {v} at day {d:g}: rows {r} values {vals}" for p, v, d, r, vals in clash)
+            raise CohortInputError(
+                f"measurements: conflicting values of one variable at the same date ({shown}). The cohort "
+                "spec says same_day_rule = 'error'; correct the source rows or choose 'mean' or 'last'.")
+    keep = "k_last = 1" if rule == "last" else "k_first = 1"
+    merged = "avg(value) OVER g" if rule == "mean" else "value"
+    con.execute(f"""
+        CREATE TEMP TABLE m3 AS SELECT row_number, patient_id, var, day, is_log,
+            CASE WHEN {keep} THEN '{S.USED}' ELSE '{S.SAME_DAY_MERGED}' END AS state, value_m AS value FROM (
+            SELECT *, {merged} AS value_m,
+                row_number() OVER (PARTITION BY patient_id, var, day ORDER BY row_number) AS k_first,
+                row_number() OVER (PARTITION BY patient_id, var, day ORDER BY row_number DESC) AS k_last
+            FROM m2 WHERE state IS NULL
+            WINDOW g AS (PARTITION BY patient_id, var, day))
+        UNION ALL SELECT row_number, patient_id, var, day, is_log, state, value FROM m2 WHERE state IS NOT NULL""")
+
+
+def build_ledger(con: duckdb.DuckDBPyConnection) -> None:
+    """Create ``ledger`` from the per-table states."""
+    con.execute("""
+        CREATE TEMP TABLE ledger AS
+        SELECT 'patients' AS "table", row_number, patient_id, state FROM p1
+        UNION ALL SELECT 'measurements', row_number, patient_id, state FROM ledger_m
+        UNION ALL SELECT 'outcomes', row_number, patient_id, state FROM o1""")

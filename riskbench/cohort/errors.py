@@ -1,0 +1,11 @@
+"""Errors of the cohort stage meant for users (they name the file, column, rows and the fix)."""
+
+from __future__ import annotations
+
+
+class CohortInputError(ValueError):
+    """The source tables break the input contract (missing column, duplicate ids, ...)."""
+
+
+class SpecError(ValueError):
+    """The cohort or source configuration has an unknown key or a value of the wrong kind."""
