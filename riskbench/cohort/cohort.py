@@ -23,12 +23,11 @@ TABLE_ORDER = ("patients", "measurements", "outcomes")
 
 
 def _to_pandas(rel: duckdb.DuckDBPyRelation) -> pd.DataFrame:
-    """Arrow-backed strings keep large tables cheap; numbers come out as numpy columns."""
+    """Plain numpy-backed columns (object strings) so that every pandas operation downstream works."""
     table = rel.arrow()
     if isinstance(table, pa.RecordBatchReader):
         table = table.read_all()
-    mapper = {pa.string(): pd.StringDtype("pyarrow"), pa.large_string(): pd.StringDtype("pyarrow")}
-    frame = table.to_pandas(types_mapper=mapper.get)
+    frame = table.to_pandas()
     if "status" in frame.columns:
         frame["status"] = frame["status"].astype("int64")
     return frame
