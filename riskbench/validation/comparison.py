@@ -1,0 +1,191 @@
+"""Paired comparison of any number of model specs on the same bootstrap resamples of patients.
+
+Each replicate draws patients with replacement, refits every spec on the drawn patients, and evaluates all
+of them on the same patients, so differences between specs are paired. Two evaluation choices:
+
+* ``"out_of_bag"`` (default): evaluate on the patients *not* drawn (about 37 %); the estimate is the mean
+  over replicates (the leave-one-out bootstrap of Efron & Tibshirani 1997, JASA 92:548-560), a
+  slightly pessimistic out-of-sample value. Overfitting cannot make a useless covariate look useful here,
+  which is what the imaging-vs-clinical question needs.
+* ``"apparent"``: evaluate on the drawn patients; the estimate is the value on the full data and the
+  interval describes its sampling variability (optimistic for larger models; see
+  :func:`riskbench.validation.optimism.bootstrap_optimism` for the corrected values).
+
+Intervals are percentile bootstrap intervals (Efron & Tibshirani 1993, ch. 13).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from riskbench.validation.errors import ValidationInputError
+from riskbench.validation.model_specs import ModelSpec
+from riskbench.validation.paired import (
+    check_specs,
+    evaluate_fitted,
+    fit_all,
+    percentile_summary,
+    spec_pairs,
+)
+from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
+from riskbench.validation.performance import METRIC_DIRECTION, check_horizons
+from riskbench.validation.plans import bootstrap_patient_draw
+from riskbench.validation.sources import TableSource, draw_tables, subset_tables
+
+#: Errors a replicate may hit on an unlucky resample (a fit that cannot converge, no events by a horizon);
+#: such replicates are dropped and counted, everything else propagates.
+REPLICATE_ERRORS: tuple[type[BaseException], ...] = (ValueError, np.linalg.LinAlgError, FloatingPointError)
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Result of :func:`compare_specs`.
+
+    Attributes
+    ----------
+    performance : pandas.DataFrame
+        ``spec, metric, horizon_days, threshold, estimate, ci_low, ci_high, n_boot``.
+    differences : pandas.DataFrame
+        ``reference, candidate, metric, horizon_days, threshold, estimate, ci_low, ci_high, n_boot,
+        better_if`` -- candidate minus reference (NRI/IDI rows: improvement of candidate over reference).
+    replicates : pandas.DataFrame
+        Raw per-replicate values (``replicate`` column), for further summaries or plots.
+    n_failed : int
+        Replicates dropped because a fit or measure failed on that resample.
+    """
+
+    performance: pd.DataFrame
+    differences: pd.DataFrame
+    replicates: pd.DataFrame
+    n_failed: int
+
+
+@dataclass(frozen=True)
+class _ComparisonJob:
+    specs: tuple[ModelSpec, ...]
+    source: TableSource
+    horizons: tuple[float, ...]
+    pairs: tuple[tuple[int, int], ...]
+    thresholds: tuple[float, ...]
+    nri_categories: tuple[float, ...] | None
+    evaluation: str
+
+
+def _comparison_replicate(job: _ComparisonJob, index: int, seed: np.random.SeedSequence) -> Any:
+    rng = np.random.default_rng(seed)
+    ids = job.source.patient_ids()
+    drawn = bootstrap_patient_draw(ids, rng)
+    try:
+        fit_tables = draw_tables(job.source, drawn)
+        models = fit_all(job.specs, fit_tables, seed_to_int(seed))
+        if job.evaluation == "apparent":
+            stack = fit_tables.landmark_stack
+        else:
+            out_of_bag = np.setdiff1d(ids, drawn)
+            stack = subset_tables(job.source.full_tables(), out_of_bag).landmark_stack
+        per_spec, per_pair = evaluate_fitted(
+            job.specs, models, stack, job.horizons,
+            pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
+        )
+    except REPLICATE_ERRORS as exc:
+        return index, None, None, f"{type(exc).__name__}: {exc}"
+    per_spec.insert(0, "replicate", index)
+    per_pair.insert(0, "replicate", index)
+    return index, per_spec, per_pair, None
+
+
+def collect_replicates(results: list) -> tuple[pd.DataFrame, pd.DataFrame, int]:
+    """Stack per-replicate frames (dropping failed replicates) and count failures."""
+    specs = [r[1] for r in results if r[1] is not None]
+    pairs = [r[2] for r in results if r[2] is not None]
+    n_failed = sum(r[1] is None for r in results)
+    if not specs:
+        reasons = sorted({r[3] for r in results if r[3]})[:3]
+        raise ValidationInputError(f"every replicate failed; first reasons: {reasons}")
+    return pd.concat(specs, ignore_index=True), (pd.concat(pairs, ignore_index=True) if pairs else None), n_failed
+
+
+def compare_specs(
+    specs: Sequence[ModelSpec],
+    source: TableSource,
+    horizons: Sequence[float],
+    *,
+    n_boot: int = 200,
+    seed: int = 0,
+    evaluation: str = "out_of_bag",
+    pairs: str | Sequence[tuple[int, int]] = "all",
+    thresholds: Sequence[float] = (),
+    nri_categories: Sequence[float] | None = None,
+    level: float = 0.95,
+    config: ExecutionConfig | None = None,
+) -> Comparison:
+    """Evaluate specs on the same bootstrap resamples of patients and compare them pairwise.
+
+    Parameters
+    ----------
+    specs : sequence of ModelSpec
+        Two or more specs; differences are candidate minus reference for each pair.
+    source : TableSource
+        Where tables for a set of patients come from (see :mod:`riskbench.validation.sources`).
+    horizons : sequence of float
+        Prediction horizons (days), at most the landmark stack's horizon.
+    n_boot : int, default 200
+        Bootstrap replicates.
+    seed : int, default 0
+        Seed of the run; replicate i always uses the i-th spawned seed.
+    evaluation : {"out_of_bag", "apparent"}
+        Where each replicate is evaluated (module notes).
+    pairs : "all", "vs_first" or sequence of (int, int)
+        Which specs to compare (reference index, candidate index).
+    thresholds : sequence of float
+        Risk thresholds for net benefit and its difference.
+    nri_categories : sequence of float, optional
+        Risk cut points for the categorical NRI.
+    level : float, default 0.95
+        Coverage of the percentile intervals.
+    config : ExecutionConfig, optional
+        Serial, joblib processes or a Dask scheduler.
+
+    Returns
+    -------
+    Comparison
+    """
+    specs = check_specs(specs)
+    if len(specs) < 2:
+        raise ValidationInputError("compare_specs needs at least two specs.")
+    if evaluation not in ("out_of_bag", "apparent"):
+        raise ValidationInputError(f"evaluation must be 'out_of_bag' or 'apparent'; got {evaluation!r}.")
+    if n_boot < 2:
+        raise ValidationInputError(f"n_boot must be at least 2 for an interval; got {n_boot}.")
+    full = source.full_tables()
+    hs = check_horizons(horizons, full.landmark_stack)
+    job = _ComparisonJob(
+        specs=specs,
+        source=source,
+        horizons=hs,
+        pairs=tuple(spec_pairs(len(specs), pairs)),
+        thresholds=tuple(float(t) for t in thresholds),
+        nri_categories=None if nri_categories is None else tuple(float(c) for c in nri_categories),
+        evaluation=evaluation,
+    )
+    results = run_replicates(_comparison_replicate, job, seed, n_boot, config, description="paired bootstrap")
+    spec_reps, pair_reps, n_failed = collect_replicates(results)
+    spec_keys = ["spec", "metric", "horizon_days", "threshold"]
+    pair_keys = ["reference", "candidate", "metric", "horizon_days", "threshold"]
+    spec_point = pair_point = None
+    if evaluation == "apparent":
+        models = fit_all(specs, full, seed)
+        spec_point, pair_point = evaluate_fitted(
+            specs, models, full.landmark_stack, hs,
+            pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
+        )
+    performance = percentile_summary(spec_reps, spec_keys, level=level, point=spec_point)
+    differences = percentile_summary(pair_reps, pair_keys, level=level, point=pair_point)
+    differences["better_if"] = differences["metric"].map(METRIC_DIRECTION).fillna("higher")
+    replicates = pd.concat([spec_reps, pair_reps], ignore_index=True)
+    return Comparison(performance=performance, differences=differences, replicates=replicates, n_failed=n_failed)

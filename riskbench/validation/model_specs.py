@@ -1,0 +1,101 @@
+"""Model specifications: a named covariate set with a model family, and fitting one on tables."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+from riskbench.validation.errors import ValidationInputError
+from riskbench.validation.sources import ValidationTables
+
+FAMILIES: tuple[str, ...] = ("landmark_cox", "cox", "forest")
+
+
+@dataclass(frozen=True)
+class ModelSpec:
+    """A model to validate: a name, its covariates and a model family.
+
+    Attributes
+    ----------
+    name : str
+        Label used in every result table (e.g. ``"clinical"``, ``"imaging + clinical"``).
+    covariates : tuple of str
+        Covariate column names (cohort-stage names, e.g. ``log_nodule_volume``).
+    family : {"landmark_cox", "cox", "forest"}
+        ``landmark_cox``: :class:`riskbench.models.LandmarkSupermodel` on the landmark stack;
+        ``cox``: :class:`riskbench.models.CoxModel` on the counting-process table;
+        ``forest``: :class:`riskbench.models.SurvivalForest` on the landmark stack.
+    params : mapping
+        Extra keyword arguments of the model's constructor. For ``forest``, ``random_state`` is set
+        per replicate from the replicate's seed unless given here.
+    """
+
+    name: str
+    covariates: tuple[str, ...]
+    family: str = "landmark_cox"
+    params: Mapping[str, Any] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.name, str) or not self.name:
+            raise ValidationInputError("a ModelSpec needs a non-empty name.")
+        covs = (self.covariates,) if isinstance(self.covariates, str) else tuple(self.covariates)
+        if not covs or not all(isinstance(c, str) and c for c in covs):
+            raise ValidationInputError(f"ModelSpec '{self.name}': covariates must be non-empty column names; got {self.covariates!r}.")
+        if len(set(covs)) != len(covs):
+            raise ValidationInputError(f"ModelSpec '{self.name}': covariates repeat a name: {list(covs)}.")
+        if self.family not in FAMILIES:
+            raise ValidationInputError(f"ModelSpec '{self.name}': family must be one of {FAMILIES}; got {self.family!r}.")
+        object.__setattr__(self, "covariates", covs)
+        object.__setattr__(self, "params", dict(self.params))
+
+    def without(self, group: Sequence[str], *, name: str | None = None) -> ModelSpec:
+        """This spec with the covariates of ``group`` removed (for leave-one-group-out refits)."""
+        absent = [c for c in group if c not in self.covariates]
+        if absent:
+            raise ValidationInputError(f"ModelSpec '{self.name}' has no covariate(s) {absent} to remove.")
+        kept = tuple(c for c in self.covariates if c not in set(group))
+        if not kept:
+            raise ValidationInputError(f"removing {list(group)} leaves ModelSpec '{self.name}' without covariates.")
+        return ModelSpec(name or f"{self.name} without {', '.join(group)}", kept, self.family, self.params)
+
+
+def build_estimator(spec: ModelSpec, *, seed: int | None = None) -> Any:
+    """An unfitted estimator for ``spec`` (``seed`` feeds the forest's ``random_state``)."""
+    from riskbench import models
+
+    params = dict(spec.params)
+    if spec.family == "landmark_cox":
+        return models.LandmarkSupermodel(spec.covariates, **params)
+    if spec.family == "cox":
+        return models.CoxModel(spec.covariates, **params)
+    if seed is not None:
+        params.setdefault("random_state", seed)
+    return models.SurvivalForest(spec.covariates, **params)
+
+
+def fit_spec(spec: ModelSpec, tables: ValidationTables, *, seed: int | None = None) -> Any:
+    """Fit ``spec`` on the tables of one set of patients.
+
+    Parameters
+    ----------
+    spec : ModelSpec
+    tables : ValidationTables
+        The ``cox`` family fits on ``tables.counting_process``; the others on ``tables.landmark_stack``.
+    seed : int, optional
+        Seed for random model families (forest).
+
+    Returns
+    -------
+    object
+        The fitted model (has ``predict_risk(table, horizon)``).
+    """
+    estimator = build_estimator(spec, seed=seed)
+    if spec.family == "cox":
+        if tables.counting_process is None:
+            raise ValidationInputError(
+                f"ModelSpec '{spec.name}' (family 'cox') fits on the counting-process table, but the table "
+                "source has none; build the source with the counting-process table."
+            )
+        return estimator.fit(tables.counting_process)
+    return estimator.fit(tables.landmark_stack)

@@ -1,0 +1,191 @@
+"""Fit several specs on one set of patients and evaluate them on another, with pairwise measures.
+
+This is the unit of work every resampling plan repeats: bootstrap replicates, cross-validation folds,
+a temporal split, an external cohort. All specs see the same fitting and evaluation patients, so their
+differences are paired.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from riskbench.validation.errors import ValidationInputError
+from riskbench.validation.model_specs import ModelSpec, fit_spec
+from riskbench.validation.performance import (
+    RESULT_COLUMNS,
+    evaluate_risks,
+    evaluation_time,
+    predict_horizons,
+    stack_outcome,
+)
+from riskbench.validation.reclassification import integrated_discrimination, net_reclassification
+from riskbench.validation.sources import ValidationTables
+
+SPEC_COLUMNS = ["spec", *RESULT_COLUMNS]
+PAIR_COLUMNS = ["reference", "candidate", *RESULT_COLUMNS]
+
+
+def check_specs(specs: ModelSpec | Sequence[ModelSpec]) -> tuple[ModelSpec, ...]:
+    """Specs as a tuple with unique names."""
+    out = (specs,) if isinstance(specs, ModelSpec) else tuple(specs)
+    if not out or not all(isinstance(s, ModelSpec) for s in out):
+        raise ValidationInputError("pass one ModelSpec or a sequence of ModelSpec objects.")
+    names = [s.name for s in out]
+    if len(set(names)) != len(names):
+        raise ValidationInputError(f"ModelSpec names must be unique; got {names}.")
+    return out
+
+
+def spec_pairs(n_specs: int, pairs: str | Sequence[tuple[int, int]]) -> list[tuple[int, int]]:
+    """Index pairs (reference, candidate): ``"all"`` (i < j) or ``"vs_first"`` (0, j), or explicit pairs."""
+    if pairs == "all":
+        return [(i, j) for i in range(n_specs) for j in range(i + 1, n_specs)]
+    if pairs == "vs_first":
+        return [(0, j) for j in range(1, n_specs)]
+    if isinstance(pairs, str):
+        raise ValidationInputError(f"pairs must be 'all', 'vs_first' or a list of index pairs; got {pairs!r}.")
+    out = [(int(i), int(j)) for i, j in pairs]
+    if any(not (0 <= i < n_specs and 0 <= j < n_specs and i != j) for i, j in out):
+        raise ValidationInputError(f"pairs {out} must index distinct specs in 0..{n_specs - 1}.")
+    return out
+
+
+def fit_all(specs: Sequence[ModelSpec], tables: ValidationTables, seed: int | None) -> list[Any]:
+    """Fit every spec on the same tables (the seed feeds random families)."""
+    return [fit_spec(spec, tables, seed=seed) for spec in specs]
+
+
+def evaluate_fitted(
+    specs: Sequence[ModelSpec],
+    models: Sequence[Any],
+    stack: pd.DataFrame,
+    horizons: Sequence[float],
+    *,
+    pairs: Sequence[tuple[int, int]] = (),
+    thresholds: Sequence[float] = (),
+    nri_categories: Sequence[float] | None = None,
+) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Per-spec measures and pairwise measures of fitted models on one evaluation stack.
+
+    Parameters
+    ----------
+    specs, models : sequences of equal length
+        The specs and their fitted models.
+    stack : pandas.DataFrame
+        Evaluation landmark stack.
+    horizons : sequence of float
+        Horizons (days).
+    pairs : sequence of (int, int)
+        (reference, candidate) index pairs.
+    thresholds : sequence of float
+        Net-benefit thresholds.
+    nri_categories : sequence of float, optional
+        Risk cut points for the categorical NRI (the category-free NRI is always given).
+
+    Returns
+    -------
+    (per_spec, per_pair) : pair of pandas.DataFrame
+        ``per_spec``: ``spec, metric, horizon_days, threshold, value``.
+        ``per_pair``: ``reference, candidate, metric, horizon_days, threshold, value`` where ``value`` is
+        candidate minus reference for every per-spec measure, plus ``nri*`` and ``idi*`` rows
+        (event and non-event parts separately; see :mod:`riskbench.validation.reclassification`).
+    """
+    time, event = stack_outcome(stack)
+    risks = [predict_horizons(model, stack, horizons) for model in models]
+    per_spec = []
+    for spec, risk in zip(specs, risks):
+        frame = evaluate_risks(time, event, risk, thresholds=thresholds)
+        frame.insert(0, "spec", spec.name)
+        per_spec.append(frame)
+    spec_frame = pd.concat(per_spec, ignore_index=True)
+    keyed = spec_frame.set_index(["spec", "metric", "horizon_days", "threshold"])["value"]
+    pair_rows = []
+    for i, j in pairs:
+        ref, cand = specs[i].name, specs[j].name
+        diff = (keyed.xs(cand, level="spec") - keyed.xs(ref, level="spec")).reset_index()
+        diff.insert(0, "candidate", cand)
+        diff.insert(0, "reference", ref)
+        pair_rows.append(diff)
+        pair_rows.append(_reclassification_rows(ref, cand, time, event, risks[i], risks[j], nri_categories))
+    pair_frame = pd.concat(pair_rows, ignore_index=True) if pair_rows else pd.DataFrame(columns=PAIR_COLUMNS)
+    return spec_frame[SPEC_COLUMNS], pair_frame[PAIR_COLUMNS]
+
+
+def _reclassification_rows(
+    ref: str,
+    cand: str,
+    time: np.ndarray,
+    event: np.ndarray,
+    risk_ref: dict[float, np.ndarray],
+    risk_cand: dict[float, np.ndarray],
+    categories: Sequence[float] | None,
+) -> pd.DataFrame:
+    rows = []
+    for h in risk_ref:
+        t_eval = evaluation_time(h, time)
+        nri = net_reclassification(time, event, risk_ref[h], risk_cand[h], t_eval)
+        idi = integrated_discrimination(time, event, risk_ref[h], risk_cand[h], t_eval)
+        rows += [
+            ("nri_events", h, nri.events),
+            ("nri_nonevents", h, nri.nonevents),
+            ("nri", h, nri.total),
+            ("idi_events", h, idi.events),
+            ("idi_nonevents", h, idi.nonevents),
+            ("idi", h, idi.total),
+        ]
+        if categories is not None:
+            cat = net_reclassification(time, event, risk_ref[h], risk_cand[h], t_eval, categories=categories)
+            rows += [("nri_cat_events", h, cat.events), ("nri_cat_nonevents", h, cat.nonevents), ("nri_cat", h, cat.total)]
+    frame = pd.DataFrame(rows, columns=["metric", "horizon_days", "value"])
+    frame["threshold"] = np.nan
+    frame.insert(0, "candidate", cand)
+    frame.insert(0, "reference", ref)
+    return frame[PAIR_COLUMNS]
+
+
+def percentile_summary(
+    replicates: pd.DataFrame,
+    keys: Sequence[str],
+    *,
+    level: float,
+    point: pd.DataFrame | None = None,
+) -> pd.DataFrame:
+    """Percentile bootstrap interval of ``value`` per key.
+
+    Parameters
+    ----------
+    replicates : pandas.DataFrame
+        One row per (replicate, key) with column ``value``.
+    keys : sequence of str
+        Grouping columns.
+    level : float
+        Interval coverage, e.g. 0.95.
+    point : pandas.DataFrame, optional
+        Point estimates (``keys`` + ``value``); without it the replicate mean is the estimate.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``keys`` + ``estimate, ci_low, ci_high, n_boot``.
+    """
+    if not 0.0 < level < 1.0:
+        raise ValidationInputError(f"interval level must lie in (0, 1); got {level!r}.")
+    keys = list(keys)
+    alpha = (1.0 - level) / 2.0
+    # NaN keys (threshold of non-net-benefit rows) must group too.
+    grouped = replicates.groupby(keys, dropna=False, sort=False)["value"]
+    out = grouped.agg(
+        estimate="mean",
+        ci_low=lambda v: float(np.nanquantile(v, alpha)) if v.notna().any() else np.nan,
+        ci_high=lambda v: float(np.nanquantile(v, 1.0 - alpha)) if v.notna().any() else np.nan,
+        n_boot="count",
+    ).reset_index()
+    if point is not None:
+        merged = out.merge(point[keys + ["value"]], on=keys, how="left")
+        merged["estimate"] = merged.pop("value")
+        out = merged
+    return out

@@ -1,0 +1,142 @@
+"""All performance measures of one fitted model on one evaluation set, as one long table.
+
+The evaluation set is a landmark stack: each row is a patient at a landmark s with ``time`` (days from s,
+administratively censored at the stack's horizon) and ``status`` (0/1/2). The outcome is status 1;
+competing events (2) count as censored in the metrics (the predicted risk of the landmark super-model is a
+cumulative incidence, so read absolute calibration with that in mind when competing events are common).
+Rows of one patient at several landmarks are pooled, as in van Houwelingen & Putter (2012, ch. 7).
+
+Result columns: ``metric, horizon_days, threshold, value`` (``threshold`` only for net benefit, else NaN).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from riskbench.validation.errors import ValidationInputError
+
+#: Which direction of each measure is better (for reading differences).
+METRIC_DIRECTION: dict[str, str] = {
+    "harrell_c": "higher",
+    "uno_c": "higher",
+    "auc": "higher",
+    "brier": "lower",
+    "scaled_brier": "higher",
+    "calibration_slope": "closer to 1",
+    "ici": "lower",
+    "net_benefit": "higher",
+}
+
+RESULT_COLUMNS = ["metric", "horizon_days", "threshold", "value"]
+
+
+def stack_outcome(stack: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """``time`` (days from the landmark) and the 0/1 outcome indicator (status 1) of a landmark stack."""
+    for column in ("time", "status"):
+        if column not in stack.columns:
+            raise ValidationInputError(f"the evaluation stack lacks column '{column}' (landmark-stack contract).")
+    time = pd.to_numeric(stack["time"], errors="coerce").to_numpy(dtype=float)
+    if not np.isfinite(time).all():
+        raise ValidationInputError(f"the evaluation stack's 'time' has missing values in rows {np.flatnonzero(~np.isfinite(time))[:5].tolist()}.")
+    return time, (stack["status"].to_numpy() == 1).astype(int)
+
+
+def predict_horizons(model: Any, stack: pd.DataFrame, horizons: Sequence[float]) -> dict[float, np.ndarray]:
+    """Predicted risk of the outcome by each horizon (days) for every stack row."""
+    return {float(h): np.asarray(model.predict_risk(stack, float(h)), dtype=float) for h in horizons}
+
+
+def evaluation_time(horizon: float, time: np.ndarray) -> float:
+    """The time at which "outcome by the horizon" is scored.
+
+    The stack censors everyone still event-free at the horizon w exactly at w, so at t = w no patient is
+    observed beyond t and time-dependent AUC / Brier have no controls; scoring just inside the follow-up
+    (w minus a millionth of a day) keeps those patients as controls, as McLernon et al. (2023) do at 5 years.
+    """
+    top = float(np.max(time)) if len(time) else horizon
+    return horizon - 1e-6 if horizon >= top else horizon
+
+
+def evaluate_risks(
+    time: np.ndarray,
+    event: np.ndarray,
+    risks: Mapping[float, np.ndarray],
+    *,
+    thresholds: Sequence[float] = (),
+) -> pd.DataFrame:
+    """Every measure at every horizon for one set of predicted risks.
+
+    Parameters
+    ----------
+    time : numpy.ndarray
+        Days from the landmark to event or censoring.
+    event : numpy.ndarray
+        1 for the outcome, 0 otherwise.
+    risks : mapping float -> numpy.ndarray
+        Horizon (days) -> predicted risk by that horizon per row.
+    thresholds : sequence of float
+        Risk thresholds for net benefit (empty: net benefit skipped).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``metric, horizon_days, threshold, value``: Harrell's C (outcome and risk truncated at the
+        horizon), Uno's C (tau = horizon), cumulative/dynamic AUC, Brier and scaled Brier, calibration
+        slope and ICI, and net benefit at each threshold.
+    """
+    from riskbench import metrics
+
+    rows: list[tuple[str, float, float, float]] = []
+    for horizon, risk in risks.items():
+        h = float(horizon)
+        t_eval = evaluation_time(h, time)
+        within = event.astype(bool) & (time <= t_eval)
+        harrell = metrics.concordance_harrell(np.minimum(time, t_eval), within.astype(int), risk)
+        uno = metrics.concordance_uno(time, event, risk, t_eval)
+        auc = metrics.auc_cumulative_dynamic(time, event, risk, [t_eval])
+        brier = metrics.brier_score(time, event, risk, [t_eval])
+        calib = metrics.calibration_at_horizon(time, event, risk, t_eval)
+        rows += [
+            ("harrell_c", h, np.nan, float(harrell.estimate)),
+            ("uno_c", h, np.nan, float(uno.estimate)),
+            ("auc", h, np.nan, float(np.asarray(auc.table["auc"])[0])),
+            ("brier", h, np.nan, float(np.asarray(brier["brier"])[0])),
+            ("scaled_brier", h, np.nan, float(np.asarray(brier["scaled_brier"])[0])),
+            ("calibration_slope", h, np.nan, float(calib.slope)),
+            ("ici", h, np.nan, float(calib.ici)),
+        ]
+        if len(thresholds):
+            nb = metrics.net_benefit(time, event, risk, t_eval, list(thresholds))
+            rows += [("net_benefit", h, float(th), float(v)) for th, v in zip(nb["threshold"], nb["model"])]
+    return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+
+
+def evaluate_model(
+    model: Any,
+    stack: pd.DataFrame,
+    horizons: Sequence[float],
+    *,
+    thresholds: Sequence[float] = (),
+) -> pd.DataFrame:
+    """Every measure of one fitted model on one evaluation stack (see :func:`evaluate_risks`)."""
+    time, event = stack_outcome(stack)
+    return evaluate_risks(time, event, predict_horizons(model, stack, horizons), thresholds=thresholds)
+
+
+def check_horizons(horizons: Sequence[float], stack: pd.DataFrame) -> tuple[float, ...]:
+    """Validated horizons (days): positive, and not beyond the stack's follow-up from the landmark."""
+    hs = tuple(float(h) for h in np.atleast_1d(np.asarray(horizons, dtype=float)))
+    if not hs or any(not np.isfinite(h) or h <= 0 for h in hs):
+        raise ValidationInputError(f"horizons must be positive numbers of days; got {horizons!r}.")
+    longest = float(pd.to_numeric(stack["time"]).max())
+    beyond = [h for h in hs if h > longest + 1e-9]
+    if beyond:
+        raise ValidationInputError(
+            f"horizons {beyond} days lie beyond the landmark stack's follow-up ({longest:g} days); "
+            "build the stack with a longer horizon or evaluate at shorter horizons."
+        )
+    return hs
