@@ -1,0 +1,180 @@
+"""The analysis report: one self-contained HTML page built from a run folder's tables and figures.
+
+Figures are embedded as base64 PNG, styles are inline, there are no scripts and no links to other sites,
+so the page opens offline and can be sent as one file. It reads only ``tables/*.csv`` and
+``figures/*.png`` (already pseudonymised and suppressed by the stages), never the ``data/`` folder.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+
+from riskbench.report.outputs import FIGURES, TABLES, atomic_write_text
+
+
+@dataclass(frozen=True)
+class Section:
+    """One report section: its anchor, heading, explanation and the figures/tables it shows.
+
+    ``figures`` and ``tables`` are file-name patterns (``glob`` style, without extension) in the run's
+    ``figures/`` and ``tables/`` folders.
+    """
+
+    anchor: str
+    title: str
+    text: str
+    figures: tuple[str, ...] = ()
+    tables: tuple[str, ...] = ()
+
+
+CAUTION = (
+    "This report was produced by research software. It is <strong>not a medical device</strong>, and the "
+    "predictions in it must not be used for decisions about individual patients without proper validation "
+    "in the population where they would be used. Any use of real patient data must follow local ethics "
+    "approval, data-protection rules and clinical governance; those bodies, not this report, decide what "
+    "may be done with it. Patients are shown only under pseudonyms and counts below {threshold} are shown "
+    "as &ldquo;&lt;{threshold}&rdquo;."
+)
+
+SECTIONS: tuple[Section, ...] = (
+    Section("cohort-flow", "Cohort flow",
+            "How many patients remained after each step of the cohort derivation, and what the input rows "
+            "were used for (every row of every source table ends in exactly one state).",
+            figures=("cohort_flow",), tables=("cohort_flow", "ledger_summary", "landmark_summary")),
+    Section("baseline", "Baseline characteristics by outcome status",
+            "Covariates as known at entry, by how follow-up ended. Medians with interquartile ranges; "
+            "groups smaller than the threshold are not described.",
+            tables=("baseline_characteristics",)),
+    Section("timelines", "Example patient timelines",
+            "A few patients drawn at random (with the run's seed), shown under pseudonyms with time since "
+            "entry instead of dates: each covariate as it was known over follow-up and how follow-up ended.",
+            figures=("example_timelines",)),
+    Section("hazard-ratios", "Hazard ratios",
+            "Outcome hazard ratios with 95% intervals (cluster-robust by patient) of the models fitted on the "
+            "whole cohort.",
+            figures=("hazard_ratios",), tables=("coefficients_*",)),
+    Section("discrimination", "Time-dependent AUC",
+            "Cumulative/dynamic AUC of the cross-validated predictions against the horizon after the "
+            "landmark, and the concordance and Brier scores at the report horizons.",
+            figures=("auc_curves",), tables=("discrimination", "brier")),
+    Section("calibration", "Calibration at each horizon",
+            "Predicted against observed risk of the outcome by the horizon (cross-validated predictions).",
+            figures=("calibration_*",), tables=("calibration_summary",)),
+    Section("decision-curves", "Decision curves",
+            "Net benefit of acting on the model's risk over a range of risk thresholds, against treating "
+            "everyone and no one.",
+            figures=("decision_curve*",)),
+    Section("comparison", "Comparison of the model sets",
+            "Paired comparison of the candidate model against the reference on the same patients, with "
+            "intervals from resampling patients, and the optimism-corrected performance.",
+            tables=("model_comparison", "bootstrap_optimism")),
+    Section("triage", "Triage operating point",
+            "The risk threshold below which patients could be spared a procedure, chosen for a high "
+            "negative predictive value, with its consequences and bootstrap intervals.",
+            tables=("triage_operating_point",)),
+)
+
+
+def _find(folder: Path, patterns: Sequence[str], suffix: str) -> list[Path]:
+    found: list[Path] = []
+    for pattern in patterns:
+        for path in sorted(folder.glob(pattern + suffix)):
+            if path not in found and not path.name.startswith("."):
+                found.append(path)
+    return found
+
+
+def _title_of(path: Path) -> str:
+    return path.stem.replace("_", " ")
+
+
+def _figure_html(path: Path) -> str:
+    data = base64.b64encode(path.read_bytes()).decode("ascii")
+    caption = html.escape(_title_of(path))
+    return (f'<figure><img src="data:image/png;base64,{data}" alt="{caption}">'
+            f"<figcaption>{caption} (also <code>figures/{html.escape(path.stem)}.svg</code>)</figcaption>"
+            "</figure>")
+
+
+def _table_html(path: Path) -> str:
+    table = pd.read_csv(path, dtype=str, keep_default_na=False)
+    body = table.to_html(index=False, escape=True, border=0, classes="data")
+    return (f"<h3>{html.escape(_title_of(path))}</h3>{body}"
+            f'<p class="source">Table file: <code>tables/{html.escape(path.name)}</code></p>')
+
+
+_STYLE = """
+body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;max-width:1050px;margin:2em auto;padding:0 1em;
+color:#1d2731;line-height:1.45}
+h1{font-size:1.6em;margin-bottom:.2em} h2{border-bottom:2px solid #d5dde5;padding-bottom:.2em;margin-top:2em}
+h3{font-size:1em;margin-bottom:.3em}
+.caution{border:2px solid #b35900;background:#fff4e5;padding:.8em 1em;border-radius:6px}
+.caution h2{border:none;margin:0 0 .3em 0;color:#8a4500;font-size:1.15em}
+table.data{border-collapse:collapse;font-size:.85em;margin:.4em 0}
+table.data th,table.data td{border:1px solid #ccd5de;padding:.25em .5em;text-align:right}
+table.data th{background:#eef3f8}
+table.data td:first-child,table.data th:first-child{text-align:left}
+figure{margin:1em 0} figure img{max-width:100%;height:auto;border:1px solid #e3e8ee}
+figcaption,.source,.meta{font-size:.8em;color:#5a6b7b} .missing{color:#8a4500;font-style:italic}
+nav ol{columns:2;font-size:.9em}
+"""
+
+
+def build_report(
+    run_dir: str | Path,
+    *,
+    title: str,
+    threshold: int,
+    facts: Sequence[tuple[str, str]] = (),
+    sections: Sequence[Section] = SECTIONS,
+) -> Path:
+    """Write ``report.html`` in the run folder from its tables and figures; return its path.
+
+    Parameters
+    ----------
+    run_dir
+        The run folder (reads ``tables/`` and ``figures/``).
+    title
+        Heading of the report.
+    threshold
+        The small-count threshold the tables were suppressed with (stated in the caution box).
+    facts
+        ``(label, value)`` pairs shown under the title (configuration, seeds, versions).
+    sections
+        What to show, in order; a section whose files are missing says so.
+    """
+    run_dir = Path(run_dir)
+    parts = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{html.escape(title)}</title><style>{_STYLE}</style></head><body>",
+        f"<h1>{html.escape(title)}</h1>",
+    ]
+    if facts:
+        parts.append('<p class="meta">' + " · ".join(
+            f"{html.escape(k)}: {html.escape(v)}" for k, v in facts) + "</p>")
+    parts.append('<section class="caution" id="caution"><h2>Caution</h2><p>'
+                 + CAUTION.format(threshold=int(threshold)) + "</p></section>")
+    parts.append("<nav><ol>" + "".join(f'<li><a href="#{s.anchor}">{html.escape(s.title)}</a></li>'
+                                        for s in sections) + "</ol></nav>")
+    for section in sections:
+        parts.append(f'<section id="{section.anchor}"><h2>{html.escape(section.title)}</h2>'
+                     f"<p>{html.escape(section.text)}</p>")
+        figures = _find(run_dir / FIGURES, section.figures, ".png")
+        tables = _find(run_dir / TABLES, section.tables, ".csv")
+        if not figures and not tables:
+            parts.append('<p class="missing">Not produced in this run.</p>')
+        parts.extend(_figure_html(p) for p in figures)
+        parts.extend(_table_html(p) for p in tables)
+        parts.append("</section>")
+    parts.append('<p class="meta">Every number above comes from the files in <code>tables/</code> and '
+                 "<code>figures/</code> of this run; <code>manifest.json</code> records the configuration, "
+                 "the input files' SHA-256, the software versions and the seeds.</p></body></html>")
+    return atomic_write_text(run_dir / "report.html", "\n".join(parts) + "\n")

@@ -1,0 +1,50 @@
+"""The Jupyter kernel that runs the stage notebooks: always the current Python interpreter.
+
+The notebooks must see the same riskbench and the same package versions as the command that runs them, so
+the kernel spec ``riskbench`` is (re)registered inside the current environment when it is missing or points
+at another interpreter. Nothing is downloaded.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import tempfile
+
+KERNEL_NAME = "riskbench"
+
+
+def _spec_python(name: str) -> str | None:
+    from jupyter_client.kernelspec import KernelSpecManager, NoSuchKernel
+
+    try:
+        return KernelSpecManager().get_kernel_spec(name).argv[0]
+    except (NoSuchKernel, IndexError):
+        return None
+
+
+def ensure_kernel(name: str = KERNEL_NAME) -> str:
+    """Make sure a kernel spec ``name`` runs ``sys.executable``; return the name to give papermill.
+
+    The spec is installed under ``sys.prefix`` (the virtual environment); if that folder is not writable,
+    under a private temporary folder added to ``JUPYTER_PATH`` for this process.
+    """
+    if _spec_python(name) == sys.executable:
+        return name
+    from ipykernel.kernelspec import install
+
+    display = "riskbench (this environment)"
+    try:
+        install(kernel_name=name, display_name=display, prefix=sys.prefix)
+    except OSError:
+        private = tempfile.mkdtemp(prefix="riskbench-kernels-")
+        install(kernel_name=name, display_name=display, prefix=private)
+        os.environ["JUPYTER_PATH"] = os.pathsep.join(
+            p for p in (os.path.join(private, "share", "jupyter"), os.environ.get("JUPYTER_PATH")) if p
+        )
+    if _spec_python(name) != sys.executable:
+        raise RuntimeError(
+            f"the Jupyter kernel {name!r} does not run {sys.executable}; remove the conflicting kernel spec "
+            f"(jupyter kernelspec remove {name}) and retry"
+        )
+    return name

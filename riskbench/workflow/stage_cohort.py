@@ -1,0 +1,124 @@
+"""Stage 1, cohort: source tables -> pseudonymised survival tables, flow, ledger summary, baseline, timelines.
+
+Writes ``data/counting_process``, ``data/landmark_stack``, ``data/patients`` (Parquet, run pseudonyms only,
+no dates), ``tables/cohort_flow``, ``tables/ledger_summary``, ``tables/landmark_summary``,
+``tables/baseline_characteristics`` (CSV, small counts hidden) and ``figures/cohort_flow``,
+``figures/example_timelines`` (PNG and SVG).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+
+from riskbench.report.baseline_table import baseline_table
+from riskbench.report.flow_diagram import flow_figure
+from riskbench.report.outputs import save_data, save_figure, save_table
+from riskbench.report.suppression import suppress_counts
+from riskbench.report.timelines import choose_example_patients, timeline_figure
+from riskbench.workflow.config import AnalysisConfig
+from riskbench.workflow.pseudonyms import pseudonym_map, replace_ids
+from riskbench.workflow.stage_result import StageResult
+
+PATIENT_COLUMNS = ("patient_id", "end_days", "end_status")
+
+
+def build_stage_cohort(config: AnalysisConfig):
+    """Build the cohort of the configuration with the cohort stage (its ``Cohort`` object)."""
+    from riskbench.cohort import build_cohort
+
+    src = config.sources
+    return build_cohort(src.patients, src.measurements, src.outcomes, config.cohort)
+
+
+STATE_LABELS = {
+    "read": "Patients in the source table",
+    "used": "Patients included",
+}
+END_LABELS = {1: "Outcome", 2: "Competing event", 0: "Censored (end of follow-up)"}
+
+
+def patient_flow(flow: pd.DataFrame, patients: pd.DataFrame) -> pd.DataFrame:
+    """Patients remaining after each exclusion step, from the cohort stage's row flow (patients table).
+
+    Returns ``step, n_patients, n_excluded, level`` (level 1: the included patients by end of follow-up); steps that excluded nobody are left out, and the included
+    patients are split by how follow-up ended.
+    """
+    excluded = _excluded_column(flow)
+    rows = []
+    for r in flow[flow["table"] == "patients"].to_dict("records"):
+        if r["state"] in STATE_LABELS:
+            rows.append((STATE_LABELS[r["state"]], int(r["remaining"]), 0, 0))
+        elif r[excluded] > 0:
+            rows.append((f"after excluding: {r['state'].replace('_', ' ')}", int(r["remaining"]),
+                         int(r[excluded]), 0))
+    rows[-1] = (STATE_LABELS["used"], len(patients), 0, 0)
+    for code, label in END_LABELS.items():
+        rows.append((label, int((patients["end_status"] == code).sum()), 0, 1))
+    return pd.DataFrame(rows, columns=["step", "n_patients", "n_excluded", "level"])
+
+
+def _excluded_column(flow: pd.DataFrame) -> str:
+    return "excluded" if "excluded" in flow.columns else "n_rows"
+
+
+def time_varying_columns(config: AnalysisConfig) -> list[str]:
+    """Covariate columns of the configured time-varying variables (what the timelines draw)."""
+    return [v.column for v in config.cohort.variables]
+
+
+def landmark_summary(stack: pd.DataFrame, threshold: int) -> pd.DataFrame:
+    """Patients at risk and events within the horizon at each landmark (years), small counts hidden."""
+    rows = []
+    for s, g in stack.groupby("landmark", sort=True):
+        rows.append({"landmark_years": round(float(s) / 365.25, 4), "at_risk": int(g["patient_id"].nunique()),
+                     "outcomes": int((g["status"] == 1).sum()), "competing_events": int((g["status"] == 2).sum())})
+    table = pd.DataFrame(rows, columns=["landmark_years", "at_risk", "outcomes", "competing_events"])
+    return suppress_counts(table, ["at_risk", "outcomes", "competing_events"], threshold)
+
+
+def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
+    """Run stage 1 (see the module docstring); return what it wrote."""
+    run_dir = Path(run_dir)
+    threshold = config.report.small_count_threshold
+    cohort = build_stage_cohort(config)
+
+    ids = pd.concat([cohort.ledger["patient_id"], cohort.counting_process["patient_id"]], ignore_index=True)
+    mapping = pseudonym_map(ids, config.seed)
+    cp = replace_ids(cohort.counting_process, mapping)
+    stack = replace_ids(
+        cohort.landmark_stack(list(config.landmarks.landmarks_days), config.landmarks.horizon_days), mapping)
+    static = [c for c in config.cohort.static if c in cohort.patients.columns]
+    patients = replace_ids(cohort.patients[[*PATIENT_COLUMNS, *static]], mapping)  # no dates leave the stage
+    save_data(cp, run_dir, "counting_process")
+    save_data(stack, run_dir, "landmark_stack")
+    save_data(patients, run_dir, "patients")
+
+    result = StageResult(stage="cohort", run_dir=run_dir)
+    flow = patient_flow(cohort.flow, patients)
+    result.tables["cohort_flow"] = suppress_counts(flow, ["n_patients", "n_excluded"], threshold)
+    result.figures["cohort_flow"] = save_figure(flow_figure(flow, threshold=threshold), run_dir, "cohort_flow")
+    # the full row ledger, summarised: every input row of every table in exactly one state
+    rows_flow = cohort.flow[["table", "state", "remaining", _excluded_column(cohort.flow)]]
+    rows_flow.columns = ["table", "state", "rows_remaining", "rows_excluded"]
+    rows_flow = rows_flow[rows_flow["state"].isin(["read", "used"]) | (rows_flow["rows_excluded"] > 0)]
+    result.tables["ledger_summary"] = suppress_counts(rows_flow, ["rows_remaining", "rows_excluded"], threshold)
+    result.tables["landmark_summary"] = landmark_summary(stack, threshold)
+
+    covariates = list(dict.fromkeys(c for m in config.models for c in m.covariates))
+    at_entry = cp.sort_values(["patient_id", "start"]).groupby("patient_id", sort=True).head(1)
+    at_entry = at_entry.drop(columns=[c for c in ("start", "stop", "status") if c in at_entry.columns])
+    result.tables["baseline_characteristics"] = baseline_table(
+        patients, at_entry, covariates, threshold=threshold)
+
+    if config.report.example_patients > 0:
+        chosen = choose_example_patients(cp, config.report.example_patients, config.seed)
+        result.figures["example_timelines"] = save_figure(
+            timeline_figure(cp, chosen, time_varying_columns(config)), run_dir, "example_timelines")
+    else:
+        result.notes.append("Example timelines are switched off ([report] example_patients = 0).")
+
+    for name, table in result.tables.items():
+        save_table(table, run_dir, name)
+    return result
