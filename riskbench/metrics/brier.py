@@ -1,0 +1,100 @@
+"""Brier score with inverse-probability-of-censoring weights (Graf et al. 1999), its integral over time, and
+the scaled Brier score (index of prediction accuracy, Kattan & Gerds 2018) against a Kaplan–Meier null model.
+
+Agrees with scikit-survival's ``brier_score`` and ``integrated_brier_score`` (which take survival
+probabilities; here ``risk`` = 1 − survival).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from riskbench.metrics.auc import _prepare_horizon_inputs
+from riskbench.metrics.censoring import censoring_weights_at, kaplan_meier
+from riskbench.metrics.concordance import _censoring_curve
+from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_status, as_time
+
+
+def _ipcw_brier(t, status, risk_col, horizon, g_at_obs, g_at_h) -> float:
+    is_case = (status == 1) & (t <= horizon)
+    is_ctrl = t > horizon
+    with np.errstate(divide="ignore", invalid="ignore"):
+        case_term = np.where(is_case, (1.0 - risk_col) ** 2 / g_at_obs, 0.0)
+    ctrl_term = np.where(is_ctrl, risk_col**2 / g_at_h if g_at_h > 0 else 0.0, 0.0)
+    return float(np.mean(case_term + ctrl_term))
+
+
+def brier_score(
+    time: ArrayLike,
+    event: ArrayLike,
+    risk: ArrayLike,
+    horizons: float | ArrayLike,
+    *,
+    train_time: ArrayLike | None = None,
+    train_event: ArrayLike | None = None,
+) -> pd.DataFrame:
+    """IPCW Brier score of predicted risks at each horizon, with the Kaplan–Meier null model.
+
+    Parameters
+    ----------
+    time, event
+        Evaluation follow-up (days) and status (0/1).
+    risk
+        Predicted probability of the outcome by each horizon: 1-D for one horizon, else shape
+        (n, len(horizons)). Not a survival probability.
+    horizons
+        Times (days) within [min(time), max(time)).
+    train_time, train_event
+        Data for the censoring Kaplan–Meier and for the null model (default: the evaluation data).
+
+    Returns
+    -------
+    DataFrame
+        ``horizon``, ``brier``, ``brier_null`` (every subject predicted the Kaplan–Meier risk by the
+        horizon), ``scaled_brier`` = 1 − brier / brier_null (index of prediction accuracy; 0 = no better
+        than the null model, 1 = perfect).
+    """
+    t, status, r, h = _prepare_horizon_inputs(time, event, risk, horizons, probability=True)
+    if r.ndim == 1:
+        if h.size != 1:
+            raise MetricInputError(
+                f"`risk` is one column but {h.size} horizons were given: the risk by each horizon differs, so "
+                "give shape (n, len(horizons))"
+            )
+        r = r[:, None]
+    g_curve = _censoring_curve(t, status, train_time, train_event)
+    g_obs = censoring_weights_at(g_curve, t, what="follow-up times")
+    g_h = censoring_weights_at(g_curve, h, what="horizons")
+    if train_time is None:
+        null_curve = kaplan_meier(t, status)
+    else:
+        tt = as_time(train_time, "train_time")
+        null_curve = kaplan_meier(tt, as_status(train_event, tt.size, allow_competing=True, name="train_event"))
+    rows = []
+    for k, hz in enumerate(h):
+        b = _ipcw_brier(t, status, r[:, k], hz, g_obs, g_h[k])
+        null_risk = np.full(t.size, 1.0 - float(null_curve(hz)))
+        b0 = _ipcw_brier(t, status, null_risk, hz, g_obs, g_h[k])
+        rows.append((hz, b, b0, 1.0 - b / b0 if b0 > 0 else np.nan))
+    return pd.DataFrame(rows, columns=["horizon", "brier", "brier_null", "scaled_brier"])
+
+
+def integrated_brier_score(
+    time: ArrayLike,
+    event: ArrayLike,
+    risk: ArrayLike,
+    horizons: ArrayLike,
+    *,
+    train_time: ArrayLike | None = None,
+    train_event: ArrayLike | None = None,
+) -> float:
+    """Brier score integrated over the horizons by the trapezoid rule, divided by the time span.
+
+    Same rule as scikit-survival's ``integrated_brier_score``; ``risk`` has shape (n, len(horizons)).
+    """
+    table = brier_score(time, event, risk, horizons, train_time=train_time, train_event=train_event)
+    if len(table) < 2:
+        raise MetricInputError("integrated Brier score needs at least two horizons")
+    h = table["horizon"].to_numpy()
+    return float(np.trapezoid(table["brier"].to_numpy(), h) / (h[-1] - h[0]))

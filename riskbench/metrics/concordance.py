@@ -1,0 +1,295 @@
+"""Harrell's and Uno's concordance index in O(n log n), a risk-set variant for counting-process rows, and
+infinitesimal-jackknife standard errors.
+
+Conventions (those of scikit-survival's ``concordance_index_censored`` / ``concordance_index_ipcw``):
+a pair is comparable when the earlier time is an outcome; a subject censored at the same time as an
+outcome counts as later; two outcomes at the same time are not compared; equal risks count one half.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from riskbench.metrics.censoring import censoring_survival, censoring_weights_at
+from riskbench.metrics.dominance import dominance_sums
+from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_risk, as_status, as_time, check_lengths
+
+
+@dataclass(frozen=True)
+class Concordance:
+    """A concordance estimate with its pair counts.
+
+    Attributes
+    ----------
+    estimate
+        Concordance index (probability that the subject with the earlier outcome has the higher risk).
+    se
+        Infinitesimal-jackknife standard error (censoring weights, if any, treated as fixed).
+    concordant, discordant, tied_risk, comparable
+        Unweighted counts of comparable pairs (for Uno's C: pairs whose earlier outcome falls before ``tau``).
+    tied_time
+        Pairs of an outcome and a censoring at the same time (counted as comparable).
+    """
+
+    estimate: float
+    se: float
+    concordant: int
+    discordant: int
+    tied_risk: int
+    comparable: int
+    tied_time: int = 0
+
+
+TIED_TOL = 1e-8
+"""Scores closer than this (absolute) count as tied, as in scikit-survival, so that rounding noise in a
+computed score (e.g. 0.1 + 0.2 vs 0.3) does not decide a pair."""
+
+
+def _dense_rank(values: np.ndarray, tol: float = 0.0) -> np.ndarray:
+    """Dense ranks; with ``tol`` > 0, sorted neighbours closer than ``tol`` share a rank."""
+    uniq, inv = np.unique(values, return_inverse=True)
+    if tol > 0 and uniq.size > 1:
+        step = np.r_[0, np.cumsum(np.diff(uniq) > tol)]
+        return step[inv.reshape(-1)]
+    return inv.reshape(-1)
+
+
+def _pair_sums(key_point, key_query, rank, weight_point):
+    """Per item i: dominance sums over items j with ``key_point[j] <= key_query[i]``.
+
+    Each item enters twice in one key order, once counted (as a point) and once asking (as a query).
+    """
+    n = rank.size
+    key = np.concatenate([2 * key_point, 2 * key_query + 1])  # equal keys: the point is not before the query
+    rk = np.concatenate([rank, rank])
+    w = np.concatenate([weight_point, np.zeros(n)])
+    sums = dominance_sums(key, rk, w)
+    return sums.below[n:], sums.tied[n:], sums.total[n:]
+
+
+def _influence_se(num_i, den_i, estimate, den_total, cluster=None) -> float:
+    """sqrt(sum_k (dC/dv_k)^2) with case weights v (pairs weighted by v_i v_j); summed within clusters."""
+    dc = (num_i - estimate * den_i) / den_total
+    if cluster is not None:
+        dc = np.bincount(_dense_rank(cluster), weights=dc)
+    return float(np.sqrt(np.sum(dc**2)))
+
+
+def _time_keys(time: np.ndarray, is_event: np.ndarray) -> np.ndarray:
+    """Order key for 'later than': a larger time comes first; a censoring before an outcome at equal time."""
+    t_rank = _dense_rank(-time)
+    return 2 * t_rank + is_event.astype(np.int64)
+
+
+def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool) -> Concordance:
+    """C = sum_i w_i (#{j later, r_j < r_i} + ½ #{ties}) / sum_i w_i #{j later}; i over outcomes."""
+    n = time.size
+    key = _time_keys(time, is_event)
+    rank = _dense_rank(risk, TIED_TOL)
+    ev = is_event.astype(bool)
+    # role 1: outcome i asks for the subjects later than it (key strictly smaller)
+    sums = dominance_sums(key, rank, np.ones(n))
+    below, tied, total = (np.where(ev, a, 0.0) for a in (sums.below, sums.tied, sums.total))
+    num_i = event_weight * (below + 0.5 * tied)
+    den_i = event_weight * total
+    den = float(den_i.sum())
+    if den == 0:
+        raise MetricInputError(
+            "no comparable pair: every outcome is the last observation (or no outcome before `tau`); "
+            "concordance is undefined"
+        )
+    estimate = float(num_i.sum() / den)
+    used = ev & (event_weight > 0)
+    concordant = int(round(below[used].sum()))
+    tied_risk = int(round(tied[used].sum()))
+    comparable = int(round(total[used].sum()))
+    tied_time = int(_tied_time_pairs(time, is_event, used))
+    se = float("nan")
+    if with_se:
+        # role 2: subject j asks for the outcomes it is later than, weighted by the outcome's weight;
+        # flipping both orders turns "earlier outcome with higher risk" into a dominance question again
+        flip = dominance_sums(int(key.max()) - key, int(rank.max()) - rank, np.where(ev, event_weight, 0.0))
+        num_j = flip.below + 0.5 * flip.tied
+        se = _influence_se(num_i + num_j, den_i + flip.total, estimate, den)
+    return Concordance(
+        estimate=estimate,
+        se=se,
+        concordant=concordant,
+        discordant=comparable - concordant - tied_risk,
+        tied_risk=tied_risk,
+        comparable=comparable,
+        tied_time=tied_time,
+    )
+
+
+def _tied_time_pairs(time: np.ndarray, is_event: np.ndarray, used: np.ndarray) -> int:
+    uniq, inv = np.unique(time, return_inverse=True)
+    cens = np.bincount(inv, weights=(~is_event.astype(bool)).astype(float), minlength=uniq.size)
+    ev = np.bincount(inv, weights=used.astype(float), minlength=uniq.size)
+    return int(round(float(np.sum(cens * ev))))
+
+
+def _prepare(time, event, risk, *, allow_competing: bool):
+    t = as_time(time)
+    status = as_status(event, t.size, allow_competing=allow_competing)
+    r = as_risk(risk, t.size)
+    if r.ndim != 1:
+        raise MetricInputError("`risk` must be one score per subject (1-D) for concordance")
+    return t, status, r
+
+
+def concordance_harrell(time: ArrayLike, event: ArrayLike, risk: ArrayLike, *, with_se: bool = True) -> Concordance:
+    """Harrell's concordance index.
+
+    Parameters
+    ----------
+    time
+        Follow-up time (days; any unit used consistently).
+    event
+        0 censored, 1 outcome, 2 competing event. A subject with a competing event stays comparable with
+        every later outcome (it can never have the outcome), as in Wolbers et al. (2009).
+    risk
+        Score where higher means worse (e.g. predicted probability of the outcome). A survival
+        probability or survival time must be negated first.
+    with_se
+        Compute the infinitesimal-jackknife standard error (doubles the work).
+
+    Returns
+    -------
+    Concordance
+    """
+    t, status, r = _prepare(time, event, risk, allow_competing=True)
+    if (status == 2).any():
+        # never having the outcome: later than every observed time
+        t = np.where(status == 2, t.max() + 1.0, t)
+    is_event = status == 1
+    if not is_event.any():
+        raise MetricInputError("`event` holds no outcome (code 1): concordance is undefined")
+    return _weighted_concordance(t, is_event, r, is_event.astype(float), with_se=with_se)
+
+
+def concordance_uno(
+    time: ArrayLike,
+    event: ArrayLike,
+    risk: ArrayLike,
+    tau: float | None = None,
+    *,
+    train_time: ArrayLike | None = None,
+    train_event: ArrayLike | None = None,
+    with_se: bool = True,
+) -> Concordance:
+    """Uno's concordance index (Uno et al. 2011): pairs weighted by 1/G(T_i)² up to the truncation time ``tau``.
+
+    Parameters
+    ----------
+    time, event, risk
+        Evaluation data; ``event`` 0/1, ``risk`` higher = worse.
+    tau
+        Truncation time: only outcomes before ``tau`` start a pair (``None``: no truncation).
+    train_time, train_event
+        Data for the censoring Kaplan–Meier G (default: the evaluation data).
+    with_se
+        Infinitesimal-jackknife standard error, treating the censoring weights as fixed.
+    """
+    t, status, r = _prepare(time, event, risk, allow_competing=False)
+    g_curve = _censoring_curve(t, status, train_time, train_event)
+    is_event = status == 1
+    use = is_event & (t < tau if tau is not None else True)
+    if not use.any():
+        raise MetricInputError(f"no outcome happens before tau={tau}: Uno's C is undefined; choose a later tau")
+    g = censoring_weights_at(g_curve, t[use], what="outcome times")
+    if (g <= 0).any():
+        raise MetricInputError(
+            "the censoring survival G reaches 0 before some outcome times: the weights 1/G² are infinite; "
+            "choose a `tau` before the last censoring"
+        )
+    weight = np.zeros(t.size)
+    weight[use] = 1.0 / g**2
+    return _weighted_concordance(t, is_event, r, weight, with_se=with_se)
+
+
+def _censoring_curve(t, status, train_time, train_event):
+    if (train_time is None) != (train_event is None):
+        raise MetricInputError("give both `train_time` and `train_event`, or neither")
+    if train_time is None:
+        return censoring_survival(t, status)
+    tt = as_time(train_time, "train_time")
+    te = as_status(train_event, tt.size, allow_competing=True, name="train_event")
+    return censoring_survival(tt, te)
+
+
+def concordance_counting_process(
+    start: ArrayLike,
+    stop: ArrayLike,
+    event: ArrayLike,
+    risk: ArrayLike,
+    patient_id: ArrayLike | None = None,
+) -> Concordance:
+    """Concordance over risk sets of counting-process rows (time-varying risk).
+
+    At each outcome time t (a row with ``event`` 1 and ``stop`` = t) the outcome row is compared with every
+    other row at risk at t (``start`` < t <= ``stop``; a row censored at t counts, one with an outcome at t
+    does not), each scored with the risk of that row. Equal risks count one half.
+
+    Parameters
+    ----------
+    start, stop
+        Row interval (start, stop] in days.
+    event
+        1 when the row ends with the outcome, 0 otherwise (a competing event, 2, ends the row as censored).
+    risk
+        Row's score, higher = worse.
+    patient_id
+        Optional; the standard error then sums influences within patient (rows of one patient are not
+        independent).
+    """
+    stop_a = as_time(stop, "stop")
+    start_a = as_time(start, "start")
+    n = check_lengths(start=start_a, stop=stop_a, event=np.asarray(event), risk=np.asarray(risk))
+    if patient_id is not None:
+        check_lengths(stop=stop_a, patient_id=np.asarray(patient_id))
+    bad = np.flatnonzero(start_a >= stop_a)
+    if bad.size:
+        raise MetricInputError(f"rows {bad[:5].tolist()} have `start` >= `stop`: each row must cover (start, stop]")
+    is_event = as_status(event, n, allow_competing=True) == 1
+    r = as_risk(risk, n)
+    if not is_event.any():
+        raise MetricInputError("`event` holds no outcome (code 1): concordance is undefined")
+    # one time scale for starts and stops; rank 0 = latest time
+    grid = np.unique(np.r_[start_a, stop_a])
+    inv_stop = grid.size - 1 - np.searchsorted(grid, stop_a)
+    inv_start = grid.size - 1 - np.searchsorted(grid, start_a)
+    key_stop = 2 * inv_stop + is_event  # same 'later than' order as for one row per subject
+    rank = _dense_rank(r, TIED_TOL)
+    ones = np.ones(n)
+    # rows with stop later than t (or censored at t) ...
+    a = dominance_sums(key_stop, rank, ones)
+    # ... minus those that have not started by t (start >= t): a start at or after t sorts before the query
+    b_below, b_tied, b_total = _pair_sums(inv_start, inv_stop, rank, ones)
+    below = np.where(is_event, a.below - b_below, 0.0)
+    tied = np.where(is_event, a.tied - b_tied, 0.0)
+    total = np.where(is_event, a.total - b_total, 0.0)
+    den = float(total.sum())
+    if den == 0:
+        raise MetricInputError("no row is at risk at any outcome time besides the outcome row: concordance is undefined")
+    num_i = below + 0.5 * tied
+    estimate = float(num_i.sum() / den)
+    # influence of each row as a member of other rows' risk sets (both orders flipped)
+    rmax, last = int(rank.max()), grid.size - 1
+    ev_w = is_event.astype(float)
+    fa = dominance_sums(int(key_stop.max()) - key_stop, rmax - rank, ev_w)
+    fb_below, fb_tied, fb_total = _pair_sums(last - inv_stop, last - inv_start, rmax - rank, ev_w)
+    num_j = (fa.below - fb_below) + 0.5 * (fa.tied - fb_tied)
+    den_j = fa.total - fb_total
+    se = _influence_se(num_i + num_j, total + den_j, estimate, den, cluster=patient_id)
+    concordant, tied_risk, comparable = (int(round(x.sum())) for x in (below, tied, total))
+    return Concordance(
+        estimate=estimate,
+        se=se,
+        concordant=concordant,
+        discordant=comparable - concordant - tied_risk,
+        tied_risk=tied_risk,
+        comparable=comparable,
+    )
