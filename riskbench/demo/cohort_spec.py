@@ -11,14 +11,14 @@ from __future__ import annotations
 from riskbench.cohort.spec import CohortSpec, VariableSpec
 
 #: Values dated up to this many days before entry count as history known at entry.
-DEMO_LOOKBACK_DAYS = 90.0
-#: A value older than 30 months is no longer current (missing, with its staleness recorded).
-DEMO_MAX_CARRY_DAYS = 30 * 365.25 / 12
+DEMO_LOOKBACK_DAYS = 180.0
+#: A value 1095 days (about three years) old is no longer current (missing, with its staleness recorded).
+DEMO_MAX_CARRY_DAYS = 1095.0
 #: Conflicting values of one variable on one day are averaged.
 DEMO_SAME_DAY_RULE = "mean"
 #: Plausible ranges in the canonical units (inclusive).
 DEMO_RANGES: dict[str, tuple[float, float]] = {
-    "nodule_volume": (1.0, 1.0e6),  # mm3: below ~1 mm diameter or above ~12 cm is a recording error
+    "nodule_volume": (1.0, 5.0e5),  # mm3: below ~1 mm or above ~10 cm diameter is a recording error
     "suspicion_score": (0.0, 1.0),  # a probability-like score
     "serum_marker": (0.0, 1000.0),  # ng/mL
 }
