@@ -40,7 +40,7 @@ from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
-from scipy import linalg, stats
+from scipy import linalg, sparse, stats
 
 __all__ = [
     "CoxFit",
@@ -199,21 +199,57 @@ def _check_collinear(Xs: np.ndarray, names: tuple[str, ...]) -> None:
 
 @dataclass(frozen=True)
 class _Layout:
-    """Row-to-event-time matching, computed once per fit (the one sort)."""
+    """Row-to-event-time matching, computed once per fit (the one sort).
+
+    Positions below index the *active* rows (rows at risk at one event time or more).
+    The sparse (keys x rows) difference pattern gets the per-row weights ``v`` as data at
+    each iteration; its product with the covariates, reverse-cumulated over keys, gives
+    the risk-set sums in O(n·p) without an (n, p) temporary.
+    """
 
     n_keys: int  # distinct (stratum, event time) pairs
     bounds: np.ndarray  # segment starts per stratum in key space, plus n_keys
     key_time: np.ndarray  # event time of each key
     key_stratum: np.ndarray  # stratum code of each key
-    active: np.ndarray  # indices of rows at risk at >= 1 event time
+    active: np.ndarray  # indices (into the input rows) of active rows
     lo: np.ndarray  # per active row: first key at risk
     hi: np.ndarray  # per active row: last key at risk
-    sub_rows: np.ndarray  # positions (in active) of rows entering after their segment start
-    sub_key: np.ndarray  # key just before their entry
-    death: np.ndarray  # positions (in active) of event rows, sorted by key
+    risk: sparse.csc_matrix  # key x row: +1 at the row's last key, -1 at the key before it enters
+    risk_src: np.ndarray  # row of each stored entry of ``risk``
+    risk_sign: np.ndarray  # +1 / -1 of each stored entry
+    death: np.ndarray  # positions of event rows, sorted by key
     death_key: np.ndarray  # key of each event row
     frac: np.ndarray  # Efron fraction l/m of each event row (0 for Breslow)
     ties_per_key: np.ndarray  # m_k, number of event rows per key
+
+
+def _risk_matrix(lo: np.ndarray, hi: np.ndarray, entering: np.ndarray, n_keys: int):
+    """Difference pattern whose reverse cumulative sum over keys is the at-risk indicator.
+
+    Column i holds +1 at ``hi[i]`` and, if the row enters after its stratum's first key,
+    -1 at ``lo[i] - 1``.  Stored column by column so a product with X reads X once, in order.
+    """
+    n = hi.size
+    counts = 1 + entering.astype(np.int64)
+    indptr = np.r_[0, np.cumsum(counts)]
+    indices = np.empty(indptr[-1], dtype=np.int64)
+    sign = np.ones(indptr[-1])
+    first = indptr[:-1]
+    indices[first] = hi
+    second = first[entering] + 1
+    indices[second] = lo[entering] - 1
+    sign[second] = -1.0
+    src = np.repeat(np.arange(n), counts)
+    matrix = sparse.csc_matrix((sign.copy(), indices, indptr), shape=(n_keys, n))
+    return matrix, src, sign
+
+
+def _count_up_to(keys: np.ndarray, queries: np.ndarray, size: int) -> np.ndarray:
+    """Number of ``keys`` (sorted, distinct, in ``[0, size)``) that are <= each query."""
+    if size <= 50_000_000:  # dense table: a gather instead of a binary search per row
+        table = np.cumsum(np.bincount(keys, minlength=size))
+        return table[queries]
+    return np.searchsorted(keys, queries, side="right")
 
 
 def _layout(start: np.ndarray, stop: np.ndarray, event: np.ndarray, strata: np.ndarray, ties: str) -> _Layout:
@@ -225,8 +261,9 @@ def _layout(start: np.ndarray, stop: np.ndarray, event: np.ndarray, strata: np.n
     key_row_start = strata * base + np.searchsorted(times, start, side="right")
     keys = np.unique(key_row_stop[is_event])
     n_keys = keys.size
-    lo_all = np.searchsorted(keys, key_row_start, side="right")
-    hi_all = np.searchsorted(keys, key_row_stop, side="right") - 1
+    size = int((strata.max() + 1) * base)
+    lo_all = _count_up_to(keys, key_row_start, size)
+    hi_all = _count_up_to(keys, key_row_stop, size) - 1
     key_stratum = keys // base
     key_time = times[(keys % base) - 1]
     seg_starts = np.flatnonzero(np.r_[True, key_stratum[1:] != key_stratum[:-1]])
@@ -235,8 +272,8 @@ def _layout(start: np.ndarray, stop: np.ndarray, event: np.ndarray, strata: np.n
     active = np.flatnonzero(lo_all <= hi_all)
     lo, hi = lo_all[active], hi_all[active]
     seg_of_key = np.repeat(np.arange(seg_starts.size), np.diff(bounds))
-    seg_start_of_row = bounds[seg_of_key[lo]]
-    sub_rows = np.flatnonzero(lo > seg_start_of_row)
+    entering = lo > bounds[seg_of_key[lo]]  # rows entering after their stratum's first key
+    risk, risk_src, risk_sign = _risk_matrix(lo, hi, entering, n_keys)
     death = np.flatnonzero(is_event[active])
     death_key = hi[death]
     order = np.argsort(death_key, kind="stable")
@@ -253,8 +290,9 @@ def _layout(start: np.ndarray, stop: np.ndarray, event: np.ndarray, strata: np.n
         active=active,
         lo=lo,
         hi=hi,
-        sub_rows=sub_rows,
-        sub_key=lo[sub_rows] - 1,
+        risk=risk,
+        risk_src=risk_src,
+        risk_sign=risk_sign,
         death=death,
         death_key=death_key,
         frac=frac.astype(float),
@@ -273,6 +311,40 @@ def _segment_reverse_cumsum(values: np.ndarray, bounds: np.ndarray) -> np.ndarra
 def _bincount_cols(index: np.ndarray, weights: np.ndarray, size: int) -> np.ndarray:
     """Column-wise ``np.bincount``: (rows, p) weights -> (size, p) sums."""
     return np.stack([np.bincount(index, weights=weights[:, j], minlength=size) for j in range(weights.shape[1])], axis=1)
+
+
+def _risk_set_sums(L: _Layout, v: np.ndarray, Xa: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """S0 (K,) and S1 (K, p): sums of ``v`` and ``v * x`` over each key's risk set."""
+    M = L.risk
+    M.data = v[L.risk_src] * L.risk_sign
+    diff0 = np.bincount(M.indices, weights=M.data, minlength=L.n_keys)
+    diff1 = M @ Xa
+    return _segment_reverse_cumsum(diff0, L.bounds), _segment_reverse_cumsum(diff1, L.bounds)
+
+
+def _weighted_gram(Xa: np.ndarray, wt: np.ndarray, chunk: int = 1 << 15) -> np.ndarray:
+    """``X' diag(wt) X`` in row chunks (cache-sized temporaries instead of an (n, p) copy)."""
+    out = np.zeros((Xa.shape[1], Xa.shape[1]))
+    for a in range(0, Xa.shape[0], chunk):
+        xc = Xa[a : a + chunk]
+        out += xc.T @ (xc * wt[a : a + chunk, None])
+    return out
+
+
+@dataclass(frozen=True)
+class _Fixed:
+    """Per-fit constants: event-row covariates, weights and their weighted sum."""
+
+    Xd: np.ndarray
+    wd: np.ndarray
+    mw: np.ndarray  # mean weight of the tie group, per event row
+    wx_events: np.ndarray  # sum over events of w * x
+
+
+def _fixed(Xa: np.ndarray, wa: np.ndarray, L: _Layout) -> _Fixed:
+    Xd, wd = Xa[L.death], wa[L.death]
+    dw = np.bincount(L.death_key, weights=wd, minlength=L.n_keys)
+    return _Fixed(Xd, wd, (dw / L.ties_per_key)[L.death_key], wd @ Xd)
 
 
 @dataclass
@@ -296,46 +368,39 @@ class _State:
     A: np.ndarray  # per active row: sum of alpha over its keys
 
 
-def _evaluate(beta: np.ndarray, Xa: np.ndarray, wa: np.ndarray, L: _Layout, with_info: bool = True) -> _State:
+def _evaluate(beta: np.ndarray, Xa: np.ndarray, wa: np.ndarray, L: _Layout, F: _Fixed | None = None) -> _State:
     """Partial log-likelihood, score and information at ``beta`` (standardised covariates)."""
-    K = L.n_keys
+    F = _fixed(Xa, wa, L) if F is None else F
+    K, k = L.n_keys, L.death_key
     eta = Xa @ beta
     shift = float(eta.max())
     r = np.exp(eta - shift)  # shift guards overflow; every ratio below is shift-free
     v = wa * r
-    vX = Xa * v[:, None]
-    d = L.death
-    # risk-set sums: rows leaving at hi (reverse cumsum) minus rows not yet entered
-    S0 = np.bincount(L.hi, weights=v, minlength=K) - np.bincount(L.sub_key, weights=v[L.sub_rows], minlength=K)
-    S1 = _bincount_cols(L.hi, vX, K) - _bincount_cols(L.sub_key, vX[L.sub_rows], K)
-    S0 = _segment_reverse_cumsum(S0, L.bounds)
-    S1 = _segment_reverse_cumsum(S1, L.bounds)
+    # risk-set sums: rows leaving at their last key (reverse cumsum) minus rows not yet entered
+    S0, S1 = _risk_set_sums(L, v, Xa)
     # tied-event sums and Efron terms, one entry per event row
-    E0 = np.bincount(L.death_key, weights=v[d], minlength=K)
-    E1 = _bincount_cols(L.death_key, vX[d], K)
-    dw = np.bincount(L.death_key, weights=wa[d], minlength=K)
-    mw = (dw / L.ties_per_key)[L.death_key]
+    vd = v[L.death]
+    E0 = np.bincount(k, weights=vd, minlength=K)
+    E1 = _bincount_cols(k, F.Xd * vd[:, None], K)
     f = L.frac
-    D = S0[L.death_key] - f * E0[L.death_key]
-    h = mw / D
+    D = S0[k] - f * E0[k]
+    h = F.mw / D
     hd = h / D
-    alpha = np.bincount(L.death_key, weights=h, minlength=K)
-    beta_f = np.bincount(L.death_key, weights=h * f, minlength=K)
-    a = np.bincount(L.death_key, weights=hd, minlength=K)
-    b = np.bincount(L.death_key, weights=hd * f, minlength=K)
-    c = np.bincount(L.death_key, weights=hd * f * f, minlength=K)
-    inv_d = np.bincount(L.death_key, weights=1.0 / D, minlength=K)
-    inv_d_f = np.bincount(L.death_key, weights=f / D, minlength=K)
-    loglik = float(wa[d] @ (eta[d] - shift) - mw @ np.log(D))
-    score = wa[d] @ Xa[d] - alpha @ S1 + beta_f @ E1
+    alpha = np.bincount(k, weights=h, minlength=K)
+    beta_f = np.bincount(k, weights=h * f, minlength=K)
+    a = np.bincount(k, weights=hd, minlength=K)
+    b = np.bincount(k, weights=hd * f, minlength=K)
+    c = np.bincount(k, weights=hd * f * f, minlength=K)
+    inv_d = np.bincount(k, weights=1.0 / D, minlength=K)
+    inv_d_f = np.bincount(k, weights=f / D, minlength=K)
+    loglik = float(F.wd @ (eta[L.death] - shift) - F.mw @ np.log(D))
+    score = F.wx_events - alpha @ S1 + beta_f @ E1
     R = _segment_reverse_cumsum(alpha, L.bounds)
     A = R[L.lo] - (R[L.hi] - alpha[L.hi])
-    info = np.empty((0, 0))
-    if with_info:
-        info = Xa.T @ (Xa * (v * A)[:, None])
-        info -= Xa[d].T @ (Xa[d] * (v[d] * beta_f[L.death_key])[:, None])
-        cross = S1.T @ (E1 * b[:, None])
-        info -= S1.T @ (S1 * a[:, None]) - cross - cross.T + E1.T @ (E1 * c[:, None])
+    info = _weighted_gram(Xa, v * A)
+    info -= F.Xd.T @ (F.Xd * (vd * beta_f[k])[:, None])
+    cross = S1.T @ (E1 * b[:, None])
+    info -= S1.T @ (S1 * a[:, None]) - cross - cross.T + E1.T @ (E1 * c[:, None])
     return _State(loglik, score, info, shift, r, S1, E1, alpha, beta_f, a, b, c, inv_d, inv_d_f, A)
 
 
@@ -483,15 +548,17 @@ def fit_cox(
             f"covariates {[col_names[j] for j in np.flatnonzero(const)]} are constant; drop them "
             "(they are absorbed by the baseline hazard)."
         )
-    Xs = (x - center) / scale
+    Xs = x - center
+    Xs /= scale
     _check_collinear(Xs, col_names)
 
     L = _layout(t_start, t_stop, ev, strata_codes, ties)
-    Xa, wa = Xs[L.active], w[L.active]
+    Xa, wa = (Xs, w) if L.active.size == n else (Xs[L.active], w[L.active])
+    F = _fixed(Xa, wa, L)
     pen = float(penalty) * n
 
     beta = np.zeros(p)
-    st0 = _evaluate(beta, Xa, wa, L)
+    st0 = _evaluate(beta, Xa, wa, L, F)
     loglik_null = st0.loglik
     score_stat = _quad_form_inv(st0.score, st0.info)
     state, obj = st0, st0.loglik
@@ -503,7 +570,7 @@ def fit_cox(
         step = _solve_pd(hess, grad)
         for _ in range(40):  # step halving until the objective does not fall
             trial = beta + step
-            new = _evaluate(trial, Xa, wa, L)
+            new = _evaluate(trial, Xa, wa, L, F)
             new_obj = new.loglik - 0.5 * pen * float(trial @ trial)
             if np.isfinite(new_obj) and new_obj >= obj - 1e-12 * abs(obj):
                 break
