@@ -36,6 +36,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
+from riskbench.models.cox_engine import fit_cox
 from riskbench.models.risk_contract import (
     ModelInputError,
     check_covariates,
@@ -88,33 +89,11 @@ def _fit_cox_arrays(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Cox fit of one cause on the stack (entry 0, exit ``time``): coef, model-based and robust covariance.
 
-    Uses the project's Cox engine when it is installed, else lifelines' CoxPHFitter (Efron ties only).
+    The coefficients come from :func:`riskbench.models.cox_engine.fit_cox` (Newton–Raphson, cluster-robust
+    sandwich variance by ``cluster``).
     """
-    try:
-        from riskbench.models.cox_engine import fit_cox
-    except ImportError:
-        fit_cox = None
-    if fit_cox is not None:
-        fit = fit_cox(design, time, event, strata=strata, cluster=cluster, ties=ties, names=names)
-        return np.asarray(fit.coef), np.asarray(fit.var), np.asarray(fit.robust_var)
-    from lifelines import CoxPHFitter
-
-    if ties != "efron":
-        raise ModelInputError("without riskbench.models.cox_engine only ties='efron' is available")
-    columns = [f"x{j}" for j in range(design.shape[1])]
-    frame = pd.DataFrame(design, columns=columns)
-    frame["_time"], frame["_event"], frame["_stratum"] = time, event, strata
-    frame["_cluster"] = pd.factorize(cluster)[0]
-    strata_arg = ["_stratum"] if len(np.unique(strata)) > 1 else None
-    if strata_arg is None:
-        frame = frame.drop(columns="_stratum")
-    model = CoxPHFitter().fit(frame.drop(columns="_cluster"), "_time", "_event", strata=strata_arg)
-    robust = CoxPHFitter().fit(frame, "_time", "_event", strata=strata_arg, cluster_col="_cluster")
-    return (
-        model.params_.to_numpy(),
-        model.variance_matrix_.to_numpy(),
-        robust.variance_matrix_.to_numpy(),
-    )
+    fit = fit_cox(design, time, event, strata=strata, cluster=cluster, ties=ties, names=names)
+    return np.asarray(fit.coef), np.asarray(fit.var), np.asarray(fit.robust_var)
 
 
 def _breslow_increments(

@@ -179,8 +179,7 @@ def cumulative_incidence(event_jumps: ArrayLike, competing_jumps: ArrayLike | No
     total = d1 + d2
     # A Cox increment times a large exp(lp) can exceed 1; cap the total at 1 (everyone left fails),
     # sharing it between causes in proportion, so the probabilities stay in [0, 1].
-    scale = np.where(total > 1.0, 1.0 / np.where(total > 0, total, 1.0), 1.0)
-    d1, total = d1 * scale, np.minimum(total, 1.0)
+    d1, total = d1 / np.maximum(total, 1.0), np.minimum(total, 1.0)
     survival = np.cumprod(1.0 - total, axis=-1)
     before = np.concatenate([np.ones(survival.shape[:-1] + (1,)), survival[..., :-1]], axis=-1)
     return np.clip(np.cumsum(before * d1, axis=-1), 0.0, 1.0)
