@@ -35,7 +35,8 @@ def baseline_table(
     covariates_at_entry
         One row per patient with ``patient_id`` and the covariates as known at entry.
     covariates
-        Which covariate columns to summarise. Binary 0/1 columns show n (%) of ones; others median (IQR).
+        Which covariate columns to summarise. Binary 0/1 columns show n (%) of ones; others median (IQR);
+        columns that are the same for everyone are left out.
     threshold
         Groups or counts below it are shown as ``"<threshold"`` and their summaries left blank.
 
@@ -70,12 +71,15 @@ def baseline_table(
 
     row = {"characteristic": "Patients, n"}
     for label, g in groups:
-        row[label] = format_count(len(g), threshold) if shown[label] else f"<{threshold}" if len(g) else "0"
+        if shown[label]:
+            row[label] = format_count(len(g), threshold)
+        else:
+            row[label] = f"<{threshold}" if is_suppressed(len(g), threshold) else "suppressed"
     rows.append(row)
     add("Follow-up, years, median (IQR)", lambda g: _median_iqr(g["end_days"] / DAYS_PER_YEAR))
     for cov in covariates:
-        if cov not in merged.columns:
-            continue
+        if cov not in merged.columns or merged[cov].nunique(dropna=True) <= 1:
+            continue  # absent, or the same for everyone at entry (e.g. change from the first value)
         if _is_binary(merged[cov]):
             add(f"{cov} = 1, n (%)", lambda g, c=cov: _count_pct(g[c], threshold))
         else:

@@ -128,7 +128,7 @@ def run_analysis(
             pm.execute_notebook(
                 str(source), str(executed),
                 parameters={"config_path": str(config.path), "run_dir": str(staging)},
-                kernel_name=kernel, progress_bar=False, log_output=False, cwd=str(staging),
+                kernel_name=kernel, language="python", progress_bar=False, log_output=False, cwd=str(staging),
                 request_save_on_cell_execute=True,
             )
         except PapermillExecutionError as exc:
@@ -162,7 +162,8 @@ def _stop(config: AnalysisConfig, staging: Path, failed: Path, stage: str, noteb
 
 
 def _failing_cell(path: Path) -> str:
-    """``<n>`` (1-based position among code cells) of the cell whose output holds the error."""
+    """``<n>``: 1-based position, among the code cells of the executed notebook (papermill's injected
+    parameters cell included), of the cell whose output holds the error."""
     try:
         nb = nbformat.read(path, as_version=4)
     except (OSError, ValueError):

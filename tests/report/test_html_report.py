@@ -1,0 +1,55 @@
+"""The report page: every section, the caution, figures embedded, nothing loaded from the web."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import matplotlib.pyplot as plt
+import pandas as pd
+
+from riskbench.report.html_report import SECTIONS, build_report
+from riskbench.report.outputs import save_figure, save_table
+from riskbench.report.render_check import check_report_renders
+
+
+def _fake_run(run: Path, *, broken_png: bool = False) -> None:
+    for section in SECTIONS:
+        for pattern in section.figures:
+            fig, ax = plt.subplots(figsize=(2, 1.5))
+            ax.plot([0, 1], [0, 1])
+            files = save_figure(fig, run, pattern.replace("*", "_1y"))
+            if broken_png:
+                files.png.write_bytes(b"not a png")
+        for pattern in section.tables:
+            save_table(pd.DataFrame({"what": ["a", "b"], "n": ["<10", "25"]}), run, pattern.replace("*", "_x"))
+
+
+def test_report_has_every_section_caution_and_embedded_figures(tmp_path):
+    _fake_run(tmp_path)
+    page = build_report(tmp_path, title="Demo <analysis>", threshold=10, facts=[("seed", "1")]).read_text()
+    assert "not a medical device" in page and "ethics approval" in page and "&lt;10" in page
+    for section in SECTIONS:
+        assert f'id="{section.anchor}"' in page
+    assert "Not produced in this run" not in page
+    assert "Demo &lt;analysis&gt;" in page  # text is escaped
+    n_figures = sum(len(s.figures) for s in SECTIONS)
+    assert page.count('src="data:image/png;base64,') == n_figures
+    assert not re.search(r"""(src|href)\s*=\s*["']?https?:""", page)
+    assert "<script" not in page
+
+
+def test_missing_section_says_so(tmp_path):
+    page = build_report(tmp_path, title="t", threshold=11).read_text()
+    assert page.count("Not produced in this run") == len(SECTIONS)
+    assert "&lt;11" in page
+
+
+def test_every_figure_loads_in_headless_chromium(tmp_path, chromium):
+    _fake_run(tmp_path / "good")
+    good = check_report_renders(build_report(tmp_path / "good", title="t", threshold=10), chromium)
+    assert good.images == sum(len(s.figures) for s in SECTIONS) and good.broken == 0
+    # the check can fail: a figure whose bytes are not an image is reported broken
+    _fake_run(tmp_path / "bad", broken_png=True)
+    bad = check_report_renders(build_report(tmp_path / "bad", title="t", threshold=10), chromium)
+    assert bad.broken == bad.images > 0

@@ -1,0 +1,122 @@
+"""The run-folder protocol of the notebook runner, with tiny stand-in notebooks (fast).
+
+The real stages run in tests/workflow/test_end_to_end.py; here the notebooks only write a file, so these
+tests check the protocol: refusal to overwrite, staging folder, one-line failure with the partial notebook
+kept, restart after an interruption, manifest contents.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import nbformat
+import pytest
+from nbformat.v4 import new_code_cell, new_notebook
+
+from riskbench.workflow.config import file_sha256
+from riskbench.workflow.runner import RunFolderExists, StageFailed, run_analysis
+
+CONFIG = """
+seed = 3
+[sources.patients]
+path = "patients.csv"
+[sources.measurements]
+path = "measurements.csv"
+[sources.outcomes]
+path = "outcomes.csv"
+[cohort]
+[landmarks]
+landmarks_years = [0.0, 1.0]
+horizon_years = 1.0
+[[models]]
+name = "a"
+covariates = ["x"]
+[[models]]
+name = "b"
+covariates = ["x", "y"]
+"""
+
+
+def _notebook(code: str) -> nbformat.NotebookNode:
+    params = new_code_cell('config_path = ""\nrun_dir = ""')
+    params.metadata["tags"] = ["parameters"]
+    return new_notebook(cells=[params, new_code_cell(code)])
+
+
+WRITE = ("from pathlib import Path\n"
+         "from riskbench.workflow.config import load_config\n"
+         "c = load_config(config_path)\n"
+         "(Path(run_dir) / 'tables').mkdir(exist_ok=True)\n"
+         "(Path(run_dir) / 'tables' / '{name}.csv').write_text(f'seed,{{c.seed}}\\n')\n")
+
+
+@pytest.fixture()
+def project(tmp_path: Path) -> dict:
+    for name in ("patients", "measurements", "outcomes"):
+        (tmp_path / f"{name}.csv").write_text("patient_id\nP1\n")
+    (tmp_path / "analysis.toml").write_text(CONFIG)
+    books = tmp_path / "books"
+    books.mkdir()
+    nbformat.write(_notebook(WRITE.format(name="one")), str(books / "one.ipynb"))
+    nbformat.write(_notebook(WRITE.format(name="two")), str(books / "two.ipynb"))
+    nbformat.write(_notebook("x = 1\nraise KeyError('no such column: volume')"), str(books / "bad.ipynb"))
+    return {"config": tmp_path / "analysis.toml", "books": books, "out": tmp_path / "results" / "run"}
+
+
+def _run(project: dict, stages, **kw):
+    return run_analysis(project["config"], project["out"], notebooks_dir=project["books"], stages=stages,
+                        log=None, **kw)
+
+
+def test_run_writes_outputs_html_and_manifest_then_refuses_to_overwrite(project):
+    result = _run(project, [("first", "one.ipynb"), ("second", "two.ipynb")])
+    out = project["out"]
+    assert result.run_dir == out.resolve()
+    assert (out / "tables" / "one.csv").read_text() == "seed,3\n"
+    assert (out / "notebooks" / "two.html").is_file()
+    html = (out / "notebooks" / "two.html").read_text()
+    assert "cdnjs" not in html and 'src="http' not in html  # the exported page loads nothing from the web
+    manifest = json.loads((out / "manifest.json").read_text())
+    assert manifest["status"] == "complete"
+    assert set(manifest["stage_seconds"]) == {"first", "second"}
+    assert manifest["input_sha256"]["patients"] == file_sha256(project["config"].parent / "patients.csv")
+    assert manifest["input_sha256"]["configuration"] == file_sha256(project["config"])
+    assert manifest["configuration"]["seed"] == 3 and manifest["seeds"]["analysis"] == 3
+    assert manifest["versions"]["numpy"] != "not installed"
+    assert manifest["outputs_sha256"]["tables/one.csv"] == file_sha256(out / "tables" / "one.csv")
+    assert not list(out.parent.glob(".*partial"))
+    with pytest.raises(RunFolderExists, match="--overwrite"):
+        _run(project, [("first", "one.ipynb")])
+    _run(project, [("first", "one.ipynb")], overwrite=True)
+    assert not (out / "tables" / "two.csv").exists()  # the old run was replaced as a whole
+
+
+def test_failing_stage_gives_one_line_and_keeps_the_partial_notebook(project):
+    with pytest.raises(StageFailed) as err:
+        _run(project, [("first", "one.ipynb"), ("broken", "bad.ipynb"), ("second", "two.ipynb")])
+    message = str(err.value)
+    assert "\n" not in message
+    # cells are counted in the executed notebook, where papermill added the injected-parameters cell
+    assert message.startswith("stage broken failed in cell 3: KeyError:")
+    assert "no such column: volume" in message
+    failed = project["out"].parent / "run.failed"
+    kept = nbformat.read(str(failed / "notebooks" / "bad.ipynb"), as_version=4)
+    assert any(o.get("output_type") == "error" for c in kept.cells for o in c.get("outputs", []))
+    assert (failed / "tables" / "one.csv").is_file() and not (failed / "tables" / "two.csv").exists()
+    assert json.loads((failed / "manifest.json").read_text())["status"] == "failed"
+    assert not project["out"].exists()  # no half run under the real name
+
+
+def test_restart_after_an_interruption_gives_the_same_outputs(project):
+    stages = [("first", "one.ipynb")]
+    # an interrupted run leaves only its hidden staging folder, with stale or half-written files
+    staging = project["out"].parent / ".run.partial"
+    (staging / "tables").mkdir(parents=True)
+    (staging / "tables" / "one.csv").write_text("half a fi")
+    (staging / "tables" / "stale.csv").write_text("left over\n")
+    _run(project, stages)
+    restarted = {p.name: p.read_bytes() for p in (project["out"] / "tables").iterdir()}
+    clean = project["out"].parent / "clean"
+    run_analysis(project["config"], clean, notebooks_dir=project["books"], stages=stages, log=None)
+    assert restarted == {p.name: p.read_bytes() for p in (clean / "tables").iterdir()}
