@@ -94,11 +94,12 @@ def evaluate_fitted(
         candidate minus reference for every per-spec measure, plus ``nri*`` and ``idi*`` rows
         (event and non-event parts separately; see :mod:`riskbench.validation.reclassification`).
     """
-    time, event = stack_outcome(stack)
+    time, status = stack_outcome(stack)
+    event = (status == 1).astype(int)
     risks = [predict_horizons(model, stack, horizons) for model in models]
     per_spec = []
     for spec, risk in zip(specs, risks):
-        frame = evaluate_risks(time, event, risk, thresholds=thresholds)
+        frame = evaluate_risks(time, status, risk, thresholds=thresholds)
         frame.insert(0, "spec", spec.name)
         per_spec.append(frame)
     spec_frame = pd.concat(per_spec, ignore_index=True)

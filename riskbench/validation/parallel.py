@@ -147,14 +147,8 @@ def _run_dask(
             client.submit(func, shared_future, i, s, pure=False)
             for i, s in enumerate(seeds)
         ]
-        bar = tqdm(total=len(futures), desc=description, disable=not show)
-        for _ in _as_completed(futures):
-            bar.update(1)
-        bar.close()
-        return client.gather(futures)
-
-
-def _as_completed(futures: list) -> Any:
-    from distributed import as_completed
-
-    return as_completed(futures)
+        results = []
+        # Gather in replicate order; the bar advances as each finishes in that order.
+        for future in tqdm(futures, total=len(futures), desc=description, disable=not show):
+            results.append(client.gather(future))
+        return results

@@ -2,8 +2,12 @@
 
 The evaluation set is a landmark stack: each row is a patient at a landmark s with ``time`` (days from s,
 administratively censored at the stack's horizon) and ``status`` (0/1/2). The outcome is status 1;
-competing events (2) count as censored in the metrics (the predicted risk of the landmark super-model is a
-cumulative incidence, so read absolute calibration with that in mind when competing events are common).
+competing events (2) count as censored in concordance, AUC, Brier and ICI, while the calibration slope,
+the observed/expected ratio and net benefit compare the predicted risk with the Aalen–Johansen observed
+cumulative incidence (a competing event removes the patient from risk). The
+smoothed-calibration ICI of :func:`riskbench.metrics.calibration_at_horizon` is defined without competing
+events, so ``ici`` is computed with them censored: its observed risk is 1 − Kaplan–Meier, which exceeds
+the cumulative incidence when competing events are common; compare ICI between models, not with zero.
 Rows of one patient at several landmarks are pooled, as in van Houwelingen & Putter (2012, ch. 7).
 
 Result columns: ``metric, horizon_days, threshold, value`` (``threshold`` only for net benefit, else NaN).
@@ -28,6 +32,7 @@ METRIC_DIRECTION: dict[str, str] = {
     "scaled_brier": "higher",
     "calibration_slope": "closer to 1",
     "ici": "lower",
+    "oe_ratio": "closer to 1",
     "net_benefit": "higher",
 }
 
@@ -35,14 +40,17 @@ RESULT_COLUMNS = ["metric", "horizon_days", "threshold", "value"]
 
 
 def stack_outcome(stack: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
-    """``time`` (days from the landmark) and the 0/1 outcome indicator (status 1) of a landmark stack."""
+    """``time`` (days from the landmark) and ``status`` (0 censored, 1 outcome, 2 competing) of a landmark stack."""
     for column in ("time", "status"):
         if column not in stack.columns:
             raise ValidationInputError(f"the evaluation stack lacks column '{column}' (landmark-stack contract).")
     time = pd.to_numeric(stack["time"], errors="coerce").to_numpy(dtype=float)
     if not np.isfinite(time).all():
         raise ValidationInputError(f"the evaluation stack's 'time' has missing values in rows {np.flatnonzero(~np.isfinite(time))[:5].tolist()}.")
-    return time, (stack["status"].to_numpy() == 1).astype(int)
+    status = pd.to_numeric(stack["status"], errors="coerce").to_numpy()
+    if not np.isin(status, (0, 1, 2)).all():
+        raise ValidationInputError("the evaluation stack's 'status' must be 0, 1 or 2 (landmark-stack contract).")
+    return time, status.astype(int)
 
 
 def predict_horizons(model: Any, stack: pd.DataFrame, horizons: Sequence[float]) -> dict[float, np.ndarray]:
@@ -63,7 +71,7 @@ def evaluation_time(horizon: float, time: np.ndarray) -> float:
 
 def evaluate_risks(
     time: np.ndarray,
-    event: np.ndarray,
+    status: np.ndarray,
     risks: Mapping[float, np.ndarray],
     *,
     thresholds: Sequence[float] = (),
@@ -74,8 +82,9 @@ def evaluate_risks(
     ----------
     time : numpy.ndarray
         Days from the landmark to event or censoring.
-    event : numpy.ndarray
-        1 for the outcome, 0 otherwise.
+    status : numpy.ndarray
+        0 censored, 1 outcome, 2 competing event. Calibration uses all three (observed risk by
+        Aalen–Johansen); the other measures count competing events as censored.
     risks : mapping float -> numpy.ndarray
         Horizon (days) -> predicted risk by that horizon per row.
     thresholds : sequence of float
@@ -86,20 +95,28 @@ def evaluate_risks(
     pandas.DataFrame
         Columns ``metric, horizon_days, threshold, value``: Harrell's C (outcome and risk truncated at the
         horizon), Uno's C (tau = horizon), cumulative/dynamic AUC, Brier and scaled Brier, calibration
-        slope and ICI, and net benefit at each threshold.
+        slope, observed/expected ratio and ICI, and net benefit at each threshold (module notes say how
+        competing events enter each).
     """
     from riskbench import metrics
 
+    event = (status == 1).astype(int)
+    competing_absent = not (status == 2).any()
     rows: list[tuple[str, float, float, float]] = []
     for horizon, risk in risks.items():
         h = float(horizon)
         t_eval = evaluation_time(h, time)
         within = event.astype(bool) & (time <= t_eval)
-        harrell = metrics.concordance_harrell(np.minimum(time, t_eval), within.astype(int), risk)
-        uno = metrics.concordance_uno(time, event, risk, t_eval)
+        harrell = metrics.concordance_harrell(np.minimum(time, t_eval), within.astype(int), risk, with_se=False)
+        uno = metrics.concordance_uno(time, event, risk, t_eval, with_se=False)
         auc = metrics.auc_cumulative_dynamic(time, event, risk, [t_eval])
         brier = metrics.brier_score(time, event, risk, [t_eval])
-        calib = metrics.calibration_at_horizon(time, event, risk, t_eval)
+        # No confidence band (the resampling gives intervals) and no direction check: a poor model in
+        # an unlucky replicate is a result to report, not an input error.
+        calib = metrics.calibration_at_horizon(time, status, risk, t_eval, n_boot=0, check_direction=False)
+        smooth = calib if competing_absent else metrics.calibration_at_horizon(
+            time, event, risk, t_eval, n_boot=0, check_direction=False
+        )
         rows += [
             ("harrell_c", h, np.nan, float(harrell.estimate)),
             ("uno_c", h, np.nan, float(uno.estimate)),
@@ -107,10 +124,11 @@ def evaluate_risks(
             ("brier", h, np.nan, float(np.asarray(brier["brier"])[0])),
             ("scaled_brier", h, np.nan, float(np.asarray(brier["scaled_brier"])[0])),
             ("calibration_slope", h, np.nan, float(calib.slope)),
-            ("ici", h, np.nan, float(calib.ici)),
+            ("oe_ratio", h, np.nan, float(calib.oe_ratio)),
+            ("ici", h, np.nan, float(smooth.ici)),
         ]
         if len(thresholds):
-            nb = metrics.net_benefit(time, event, risk, t_eval, list(thresholds))
+            nb = metrics.net_benefit(time, status, risk, t_eval, list(thresholds), check_direction=False)
             rows += [("net_benefit", h, float(th), float(v)) for th, v in zip(nb["threshold"], nb["model"])]
     return pd.DataFrame(rows, columns=RESULT_COLUMNS)
 
@@ -123,8 +141,8 @@ def evaluate_model(
     thresholds: Sequence[float] = (),
 ) -> pd.DataFrame:
     """Every measure of one fitted model on one evaluation stack (see :func:`evaluate_risks`)."""
-    time, event = stack_outcome(stack)
-    return evaluate_risks(time, event, predict_horizons(model, stack, horizons), thresholds=thresholds)
+    time, status = stack_outcome(stack)
+    return evaluate_risks(time, status, predict_horizons(model, stack, horizons), thresholds=thresholds)
 
 
 def check_horizons(horizons: Sequence[float], stack: pd.DataFrame) -> tuple[float, ...]:

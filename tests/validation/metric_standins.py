@@ -29,11 +29,11 @@ def _km_risk(time, event, t):
     return 1 - kaplan_meier_at(np.asarray(time, float), np.asarray(event), t)
 
 
-def concordance_harrell(time, event, risk):
+def concordance_harrell(time, event, risk, with_se=False):
     return SimpleNamespace(estimate=concordance_index_censored(np.asarray(event).astype(bool), np.asarray(time, float), risk)[0])
 
 
-def concordance_uno(time, event, risk, tau, *, train_time=None, train_event=None):
+def concordance_uno(time, event, risk, tau, *, train_time=None, train_event=None, with_se=False):
     y = _surv(time, event)
     return SimpleNamespace(estimate=concordance_index_ipcw(y, y, risk, tau=tau)[0])
 
@@ -54,8 +54,9 @@ def brier_score(time, event, risk, horizons, *, train_time=None, train_event=Non
     return pd.DataFrame({"horizon": horizons, "brier": b, "brier_null": null, "scaled_brier": 1 - b / np.array(null)})
 
 
-def calibration_at_horizon(time, event, risk, horizon, *, n_groups=10):
+def calibration_at_horizon(time, event, risk, horizon, *, n_groups=10, n_boot=0, check_direction=False):
     risk = np.asarray(risk, float)
+    event = (np.asarray(event) == 1).astype(int)
     groups = pd.qcut(risk, n_groups, labels=False, duplicates="drop")
     obs, pred, size = [], [], []
     for g in np.unique(groups):
