@@ -1,0 +1,150 @@
+"""Schoenfeld residuals and the proportional-hazards test of Grambsch & Therneau (1994).
+
+For an event row at time t the Schoenfeld residual is ``x - xbar(t)``, with ``xbar`` the
+risk-weighted covariate mean of the risk set (for Efron ties: the average over the m Efron
+terms, as in R's survival package and lifelines).  The scaled residual
+``d · V · r + β`` (d events, V the model-based covariance) estimates β(t).
+
+The test (Grambsch & Therneau 1994, Biometrika 81:515–526) regresses the scaled residuals on a
+transform g(t) of event time:
+
+- per covariate j: ``T_j = (Σ (g - ḡ) r*_j)² / (d · V_jj · Σ (g - ḡ)²)`` ~ χ²(1);
+- global: ``T = d · (gc' R) V (R' gc) / Σ gc²`` ~ χ²(p), with R the unscaled residuals and gc = g - ḡ.
+
+This is the approximation R's ``cox.zph`` used before survival 3.0 and that lifelines'
+``proportional_hazard_test`` uses today; the per-covariate statistics equal lifelines' for the
+``km``, ``identity`` and ``log`` transforms.  ``km`` is 1 − the (unstratified) Kaplan–Meier estimate at
+each event time from the fitting rows (left-truncated product-limit for (start, stop] rows);
+``rank`` is the average rank of the event times (R's convention; lifelines' ``rank`` numbers tied event
+times consecutively, so it differs when times are tied).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from riskbench.models.cox_engine import _evaluate, _layout
+from riskbench.models.cox_model import CoxModel
+from riskbench.models.risk_contract import ModelInputError
+
+__all__ = ["TIME_TRANSFORMS", "proportional_hazards_test", "schoenfeld_residuals"]
+
+TIME_TRANSFORMS = ("km", "rank", "identity", "log")
+
+
+def _strata_codes(strata: np.ndarray | None, n: int) -> np.ndarray:
+    if strata is None:
+        return np.zeros(n, dtype=np.int64)
+    return pd.factorize(pd.Series(strata), sort=True)[0].astype(np.int64)
+
+
+def schoenfeld_residuals(model: CoxModel, table: pd.DataFrame, *, scaled: bool = False) -> pd.DataFrame:
+    """Schoenfeld residuals of a fitted :class:`CoxModel` on its fitting ``table``.
+
+    Parameters
+    ----------
+    model : fitted CoxModel.
+    table : the counting-process rows it was fitted on.
+    scaled : if True return ``d · V · r + β`` (Grambsch & Therneau's scaled residuals).
+
+    Returns
+    -------
+    DataFrame with one row per event: ``row`` (position in ``table``), ``time`` (days), then one
+    column per covariate (original units; log hazard ratio if ``scaled``).
+    """
+    model._check_fitted()
+    fit = model.fit_
+    arr = model.fitting_arrays(table)
+    X, event = arr["X"], arr["event"]
+    n = X.shape[0]
+    start = np.zeros(n) if arr["start"] is None else arr["start"]
+    weights = np.ones(n) if arr["weights"] is None else np.asarray(arr["weights"], float)
+    L = _layout(start, arr["stop"], event, _strata_codes(arr["strata"], n), fit.ties)
+    if int(event.sum()) != fit.n_events:
+        raise ModelInputError(
+            f"table has {int(event.sum())} events but the model was fitted on {fit.n_events}; "
+            "pass the table the model was fitted on."
+        )
+    Xs = (X[L.active] - fit.center) / fit.scale
+    state = _evaluate(fit.coef * fit.scale, Xs, weights[L.active], L)
+    k = L.death_key
+    xbar = (state.S1 * state.inv_d[:, None] - state.E1 * state.inv_d_f[:, None]) / L.ties_per_key[:, None]
+    resid = (Xs[L.death] - xbar[k]) * fit.scale
+    if scaled:
+        resid = fit.n_events * resid @ fit.var + fit.coef
+    out = pd.DataFrame(resid, columns=list(fit.names))
+    out.insert(0, "time", L.key_time[k])
+    out.insert(0, "row", L.active[L.death])
+    return out.sort_values(["time", "row"], kind="stable").reset_index(drop=True)
+
+
+def _km_at_event_times(start: np.ndarray, stop: np.ndarray, event: np.ndarray, weights: np.ndarray,
+                       at: np.ndarray) -> np.ndarray:
+    """Product-limit survival (all strata pooled; left truncation at ``start``) at times ``at``."""
+    times = np.unique(stop[event > 0])
+    order_stop, order_start = np.argsort(stop), np.argsort(start)
+    w_stop = np.r_[np.cumsum(weights[order_stop][::-1])[::-1], 0.0]
+    w_start = np.r_[np.cumsum(weights[order_start][::-1])[::-1], 0.0]
+    at_risk = (w_stop[np.searchsorted(stop[order_stop], times, side="left")]
+               - w_start[np.searchsorted(start[order_start], times, side="left")])
+    deaths = np.bincount(np.searchsorted(times, stop[event > 0]), weights=weights[event > 0], minlength=times.size)
+    surv = np.cumprod(1.0 - deaths / at_risk)
+    return surv[np.searchsorted(times, at)]
+
+
+def _transform(kind: str, times: np.ndarray, arr: dict) -> np.ndarray:
+    if kind == "identity":
+        return times
+    if kind == "log":
+        if (times <= 0).any():
+            raise ModelInputError("transform='log' needs event times > 0 days.")
+        return np.log(times)
+    if kind == "rank":
+        return stats.rankdata(times)
+    n = arr["X"].shape[0]
+    start = np.zeros(n) if arr["start"] is None else arr["start"]
+    weights = np.ones(n) if arr["weights"] is None else np.asarray(arr["weights"], float)
+    return 1.0 - _km_at_event_times(start, arr["stop"], arr["event"], weights, times)
+
+
+def proportional_hazards_test(model: CoxModel, table: pd.DataFrame, transform: str = "km") -> pd.DataFrame:
+    """Grambsch–Therneau test of proportional hazards, per covariate and global.
+
+    Parameters
+    ----------
+    model : fitted CoxModel (model-based variance is used).
+    table : the rows it was fitted on.
+    transform : time scale g(t): ``"km"`` (1 − Kaplan–Meier), ``"rank"``, ``"identity"`` (days) or ``"log"``.
+
+    Returns
+    -------
+    DataFrame indexed by covariate plus ``"GLOBAL"``: ``statistic``, ``df``, ``p_value``;
+    ``attrs["transform"]`` records the transform.
+    """
+    if transform not in TIME_TRANSFORMS:
+        raise ModelInputError(f"transform={transform!r}; use one of {TIME_TRANSFORMS}.")
+    fit = model.fit_ if hasattr(model, "fit_") else None
+    resid = schoenfeld_residuals(model, table)
+    names = list(fit.names)
+    R = resid[names].to_numpy()
+    g = _transform(transform, resid["time"].to_numpy(), model.fitting_arrays(table))
+    gc = g - g.mean()
+    ss = float(gc @ gc)
+    if ss <= 0:
+        raise ModelInputError("all events happen at one time: proportional hazards cannot be tested.")
+    d = fit.n_events
+    u = gc @ R  # (p,)
+    per = d * (u @ fit.var) ** 2 / (np.diag(fit.var) * ss)
+    glob = d * float(u @ fit.var @ u) / ss
+    out = pd.DataFrame(
+        {
+            "statistic": np.r_[per, glob],
+            "df": np.r_[np.ones(len(names), dtype=int), len(names)],
+            "p_value": np.r_[stats.chi2.sf(per, 1), stats.chi2.sf(glob, len(names))],
+        },
+        index=pd.Index([*names, "GLOBAL"], name="covariate"),
+    )
+    out.attrs["transform"] = transform
+    return out

@@ -1,0 +1,79 @@
+"""Schoenfeld residuals and the Grambsch–Therneau proportional-hazards test."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from lifelines import CoxPHFitter
+from lifelines.datasets import load_rossi
+from lifelines.statistics import proportional_hazard_test
+
+from riskbench.models import CoxModel, ModelInputError, proportional_hazards_test, schoenfeld_residuals
+
+ROSSI_COLS = ["fin", "age", "race", "wexp", "mar", "paro", "prio"]
+
+
+@pytest.fixture(scope="module")
+def rossi_fit():
+    r = load_rossi()
+    table = r.rename(columns={"week": "stop", "arrest": "status"})
+    model = CoxModel(ROSSI_COLS).fit(table)
+    peer = CoxPHFitter().fit(r, "week", "arrest", fit_options={"precision": 1e-11, "r_precision": 1e-14})
+    return r, table, model, peer
+
+
+@pytest.mark.parametrize("transform", ["km", "identity", "log"])
+def test_ph_test_matches_lifelines_on_rossi(rossi_fit, transform):
+    """lifelines' proportional_hazard_test (Grambsch & Therneau 1994 approximation, as R's cox.zph before
+    survival 3.0) on Rossi: same per-covariate statistics for the km, identity and log transforms."""
+    r, table, model, peer = rossi_fit
+    ours = proportional_hazards_test(model, table, transform=transform)
+    theirs = proportional_hazard_test(peer, r, time_transform=transform).summary["test_statistic"]
+    np.testing.assert_allclose(ours.loc[ROSSI_COLS, "statistic"], theirs.loc[ROSSI_COLS], rtol=1e-6)
+    assert ours.attrs["transform"] == transform
+    assert ours.loc["GLOBAL", "df"] == len(ROSSI_COLS) and 0 < ours.loc["GLOBAL", "p_value"] < 1
+
+
+def test_scaled_residuals_match_lifelines(rossi_fit):
+    """Scaled Schoenfeld residuals d·V·r (+β here, as R adds it) equal lifelines' (which omits β)."""
+    r, table, model, peer = rossi_fit
+    ours = schoenfeld_residuals(model, table, scaled=True)
+    theirs = peer.compute_residuals(r, kind="scaled_schoenfeld")
+    ours_sorted = ours.set_index("row").loc[theirs.index, ROSSI_COLS].to_numpy() - model.coef_.to_numpy()
+    np.testing.assert_allclose(ours_sorted, theirs[ROSSI_COLS].to_numpy(), atol=1e-6)
+    unscaled = schoenfeld_residuals(model, table)
+    np.testing.assert_allclose(unscaled[ROSSI_COLS].sum().to_numpy(), 0.0, atol=1e-6)  # score at the MLE
+
+
+def _simulate(beta_late: float, seed: int, n: int = 1500) -> pd.DataFrame:
+    """x has log hazard ratio 0.8 before day 200 and ``beta_late`` after (piecewise exponential)."""
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=n)
+    t1 = rng.exponential(200 / np.exp(0.8 * x))
+    t2 = 200 + rng.exponential(200 / np.exp(beta_late * x))
+    t = np.where(t1 < 200, t1, t2)
+    cens = rng.uniform(100, 800, n)
+    return pd.DataFrame({"x": x, "stop": np.minimum(t, cens), "status": (t <= cens).astype(int)})
+
+
+def test_ph_test_detects_a_changing_effect_and_global_equals_single():
+    """Simulation (fixed seeds): a log hazard ratio that drops from 0.8 to -0.4 is flagged; a constant one
+    is not. With one covariate the global statistic equals the per-covariate one."""
+    changing = _simulate(-0.4, seed=1)
+    constant = _simulate(0.8, seed=2)
+    res_changing = proportional_hazards_test(CoxModel(["x"]).fit(changing), changing, "km")
+    res_constant = proportional_hazards_test(CoxModel(["x"]).fit(constant), constant, "km")
+    assert res_changing.loc["x", "p_value"] < 1e-6
+    assert res_constant.loc["x", "p_value"] > 0.01
+    assert res_changing.loc["GLOBAL", "statistic"] == pytest.approx(res_changing.loc["x", "statistic"], rel=1e-10)
+    rank = proportional_hazards_test(CoxModel(["x"]).fit(changing), changing, "rank")
+    assert rank.loc["x", "p_value"] < 1e-6
+
+
+def test_ph_test_errors(rossi_fit):
+    r, table, model, _ = rossi_fit
+    with pytest.raises(ModelInputError, match="transform"):
+        proportional_hazards_test(model, table, transform="sqrt")
+    with pytest.raises(ModelInputError, match="events"):
+        proportional_hazards_test(model, table.iloc[:200], transform="km")
