@@ -7,6 +7,7 @@ where higher means worse.
 
 from riskbench.metrics.auc import AUCResult, auc_cumulative_dynamic, roc_at_horizon
 from riskbench.metrics.brier import brier_score, integrated_brier_score
+from riskbench.metrics.calibration import Calibration, DCalibration, calibration_at_horizon, d_calibration
 from riskbench.metrics.censoring import aalen_johansen, censoring_survival, kaplan_meier
 from riskbench.metrics.concordance import (
     Concordance,
@@ -15,19 +16,27 @@ from riskbench.metrics.concordance import (
     concordance_uno,
 )
 from riskbench.metrics.inputs import MetricInputError
+from riskbench.metrics.net_benefit import net_benefit
+from riskbench.metrics.triage import triage_operating_point
 
 __all__ = [
     "AUCResult",
+    "Calibration",
     "Concordance",
+    "DCalibration",
     "MetricInputError",
     "aalen_johansen",
     "auc_cumulative_dynamic",
     "brier_score",
+    "calibration_at_horizon",
     "censoring_survival",
     "concordance_counting_process",
     "concordance_harrell",
     "concordance_uno",
+    "d_calibration",
     "integrated_brier_score",
     "kaplan_meier",
+    "net_benefit",
     "roc_at_horizon",
+    "triage_operating_point",
 ]

@@ -14,6 +14,7 @@ from riskbench.metrics.auc import _prepare_horizon_inputs
 from riskbench.metrics.censoring import censoring_weights_at, kaplan_meier
 from riskbench.metrics.concordance import _censoring_curve
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_status, as_time
+from riskbench.metrics.risk_direction import check_risk_direction
 
 
 def _ipcw_brier(t, status, risk_col, horizon, g_at_obs, g_at_h) -> float:
@@ -33,6 +34,7 @@ def brier_score(
     *,
     train_time: ArrayLike | None = None,
     train_event: ArrayLike | None = None,
+    check_direction: bool = True,
 ) -> pd.DataFrame:
     """IPCW Brier score of predicted risks at each horizon, with the Kaplan–Meier null model.
 
@@ -47,6 +49,8 @@ def brier_score(
         Times (days) within [min(time), max(time)).
     train_time, train_event
         Data for the censoring Kaplan–Meier and for the null model (default: the evaluation data).
+    check_direction
+        Refuse a ``risk`` that is clearly anti-concordant (a survival probability passed by mistake).
 
     Returns
     -------
@@ -63,6 +67,8 @@ def brier_score(
                 "give shape (n, len(horizons))"
             )
         r = r[:, None]
+    if check_direction:
+        check_risk_direction(t, status, r[:, -1])
     g_curve = _censoring_curve(t, status, train_time, train_event)
     g_obs = censoring_weights_at(g_curve, t, what="follow-up times")
     g_h = censoring_weights_at(g_curve, h, what="horizons")
@@ -88,12 +94,15 @@ def integrated_brier_score(
     *,
     train_time: ArrayLike | None = None,
     train_event: ArrayLike | None = None,
+    check_direction: bool = True,
 ) -> float:
     """Brier score integrated over the horizons by the trapezoid rule, divided by the time span.
 
     Same rule as scikit-survival's ``integrated_brier_score``; ``risk`` has shape (n, len(horizons)).
     """
-    table = brier_score(time, event, risk, horizons, train_time=train_time, train_event=train_event)
+    table = brier_score(
+        time, event, risk, horizons, train_time=train_time, train_event=train_event, check_direction=check_direction
+    )
     if len(table) < 2:
         raise MetricInputError("integrated Brier score needs at least two horizons")
     h = table["horizon"].to_numpy()

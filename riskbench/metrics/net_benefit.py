@@ -1,0 +1,77 @@
+"""Net benefit of treating by predicted risk at a horizon (decision curve analysis, Vickers et al. 2008,
+survival version: the observed risk among those above a threshold is estimated by Kaplan–Meier, or by
+Aalen–Johansen when competing events are present).
+
+NB(p) = P(risk >= p)·[O⁺ − (1 − O⁺)·p/(1 − p)], O⁺ = observed risk by the horizon among risk >= p;
+treat-all uses the whole cohort's observed risk; treat-none is 0.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_horizons, as_risk, as_status, as_time
+from riskbench.metrics.risk_direction import check_risk_direction
+from riskbench.metrics.threshold_groups import split_by_thresholds
+
+
+def net_benefit(
+    time: ArrayLike,
+    event: ArrayLike,
+    risk: ArrayLike,
+    horizon: float,
+    thresholds: ArrayLike,
+    *,
+    check_direction: bool = True,
+) -> pd.DataFrame:
+    """Net benefit of the model, of treating everyone and of treating no one, at each risk threshold.
+
+    Parameters
+    ----------
+    time
+        Follow-up (days).
+    event
+        0 censored, 1 outcome, 2 competing event.
+    risk
+        Predicted probability of the outcome by ``horizon``.
+    horizon
+        Days; within [min(time), max(time)).
+    thresholds
+        Threshold probabilities in (0, 1) at which one would act.
+    check_direction
+        Refuse a ``risk`` that is clearly anti-concordant (a survival probability passed by mistake).
+
+    Returns
+    -------
+    DataFrame
+        ``threshold, model, treat_all, treat_none, fraction_treated``.
+    """
+    t = as_time(time)
+    status = as_status(event, t.size, allow_competing=True)
+    r = as_risk(risk, t.size, probability=True)
+    if r.ndim != 1:
+        raise MetricInputError("`risk` must be one predicted probability per subject (1-D) for net benefit")
+    h = float(as_horizons(horizon, t, name="horizon")[0])
+    p = np.atleast_1d(np.asarray(thresholds, dtype=float))
+    if p.size == 0 or (p <= 0).any() or (p >= 1).any() or not np.isfinite(p).all():
+        raise MetricInputError("`thresholds` must be probabilities strictly between 0 and 1 (e.g. 0.01 … 0.5)")
+    if check_direction:
+        check_risk_direction(t, status, r)
+    order = np.argsort(p)
+    split = split_by_thresholds(t, status, r, h, np.r_[p[order], 1.0 + 1e-9])  # last: nobody above = whole cohort below
+    n = t.size
+    overall = split.risk_below[-1]
+    odds = p[order] / (1 - p[order])
+    frac = split.n_above[:-1] / n
+    model = frac * (split.risk_above[:-1] - (1 - split.risk_above[:-1]) * odds)
+    table = pd.DataFrame(
+        {
+            "threshold": p[order],
+            "model": model,
+            "treat_all": overall - (1 - overall) * odds,
+            "treat_none": 0.0,
+            "fraction_treated": frac,
+        }
+    )
+    return table.reset_index(drop=True)

@@ -1,0 +1,127 @@
+"""Calibration at a horizon and D-calibration.
+
+Outside checks: grouped observed risks equal lifelines' Kaplan–Meier / Aalen–Johansen within each group;
+the calibration-slope Cox fit equals scikit-survival's ``CoxPHSurvivalAnalysis(ties="breslow")``;
+simulated properties (tolerances from the simulation size): a correctly specified model has ICI near 0,
+slope near 1 and O/E near 1 (Austin, Harrell & van Klaveren 2020 use the same check); risks inflated by a
+known factor show O/E = 1/factor; a linear predictor stretched by a factor shows slope = 1/factor.
+"""
+
+import numpy as np
+import pytest
+from lifelines import AalenJohansenFitter, KaplanMeierFitter
+from sksurv.linear_model import CoxPHSurvivalAnalysis
+from sksurv.util import Surv
+
+from riskbench.metrics import MetricInputError, calibration_at_horizon, d_calibration
+from riskbench.metrics.calibration import cloglog
+from riskbench.metrics.hazard_fit import fit_hazard
+
+HORIZON = 5.0
+BASE_HAZARD = 0.1
+
+
+def _cohort(n, seed, competing=False):
+    """Exponential outcome times with hazard 0.1·exp(x); uniform censoring on [0, 20]."""
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=n)
+    t_event = rng.exponential(1 / (BASE_HAZARD * np.exp(x)))
+    t_cens = rng.uniform(0, 20, n)
+    t = np.minimum(t_event, t_cens)
+    status = (t_event <= t_cens).astype(int)
+    if competing:
+        t_comp = rng.exponential(20.0, n)
+        status = np.where(t_comp < t, 2, status)
+        t = np.minimum(t, t_comp)
+    return t, status, x
+
+
+def _true_risk(x, stretch=1.0):
+    return 1 - np.exp(-BASE_HAZARD * HORIZON * np.exp(stretch * x))
+
+
+@pytest.fixture(scope="module")
+def cohort():
+    return _cohort(3000, 7)
+
+
+def test_correct_model_is_calibrated(cohort):
+    t, e, x = cohort
+    cal = calibration_at_horizon(t, e, _true_risk(x), HORIZON, n_boot=20)
+    # n = 3000: sampling noise of the smoothed curve is a few points; slope SE about 0.03
+    assert cal.ici < 0.03 and cal.e90 < 0.06
+    assert abs(cal.slope - 1) < 3 * cal.slope_se
+    assert cal.oe_lower < 1 < cal.oe_upper
+
+
+def test_inflated_risks_detected_by_observed_expected(cohort):
+    t, e, x = cohort
+    truth = calibration_at_horizon(t, e, _true_risk(x), HORIZON, n_boot=0)
+    deflated = calibration_at_horizon(t, e, 0.8 * _true_risk(x), HORIZON, n_boot=0)
+    assert deflated.oe_ratio == pytest.approx(truth.oe_ratio / 0.8, rel=1e-9)
+    inflated = calibration_at_horizon(t, e, np.minimum(1.5 * _true_risk(x), 1), HORIZON, n_boot=0)
+    assert inflated.oe_upper < 0.8 and inflated.ici > 0.1
+
+
+def test_stretched_linear_predictor_detected_by_slope(cohort):
+    t, e, x = cohort
+    cal = calibration_at_horizon(t, e, _true_risk(x, stretch=2.0), HORIZON, n_boot=0)
+    assert abs(cal.slope - 0.5) < 3 * cal.slope_se
+
+
+def test_slope_fit_agrees_with_scikit_survival_breslow(cohort):
+    t, e, x = cohort
+    z = cloglog(_true_risk(x))
+    ours = fit_hazard(z[:, None], t, e)
+    ref = CoxPHSurvivalAnalysis(ties="breslow").fit(z[:, None], Surv.from_arrays(e == 1, t))
+    assert ours.coef[0] == pytest.approx(ref.coef_[0], abs=1e-6)
+
+
+def test_groups_match_lifelines_kaplan_meier(cohort):
+    t, e, x = cohort
+    risk = _true_risk(x)
+    cal = calibration_at_horizon(t, e, risk, HORIZON, n_groups=5, n_boot=0)
+    edges = np.quantile(risk, np.linspace(0, 1, 6))
+    first = risk <= edges[1]
+    km = KaplanMeierFitter().fit(t[first], e[first])
+    assert cal.groups["n"].iloc[0] == first.sum()
+    assert cal.groups["observed"].iloc[0] == pytest.approx(1 - km.predict(HORIZON), abs=1e-10)
+    assert (cal.groups["observed_lower"] <= cal.groups["observed"]).all()
+    assert (cal.groups["observed"] <= cal.groups["observed_upper"]).all()
+
+
+def test_competing_events_use_aalen_johansen():
+    t, status, x = _cohort(1500, 3, competing=True)
+    t = t + np.random.default_rng(0).uniform(0, 1e-6, t.size)  # lifelines jitters ties; avoid them
+    cal = calibration_at_horizon(t, status, _true_risk(x), HORIZON, n_groups=1, n_boot=0)
+    aj = AalenJohansenFitter().fit(t, status, event_of_interest=1)
+    expected = aj.cumulative_density_.loc[:HORIZON].iloc[-1, 0]
+    assert cal.groups["observed"].iloc[0] == pytest.approx(expected, abs=1e-10)
+    assert np.isnan(cal.ici) and np.isnan(cal.slope)
+
+
+def test_survival_passed_as_risk_is_refused(cohort):
+    t, e, x = cohort
+    with pytest.raises(MetricInputError, match="`risk` ranks subjects in reverse"):
+        calibration_at_horizon(t, e, 1 - _true_risk(x), HORIZON, n_boot=0)
+
+
+def test_horizon_out_of_follow_up_says_range(cohort):
+    t, e, x = cohort
+    with pytest.raises(MetricInputError, match="allowed range"):
+        calibration_at_horizon(t, e, _true_risk(x), 100.0)
+
+
+def test_d_calibration_accepts_true_model_and_rejects_wrong_one(cohort):
+    t, e, x = cohort
+    surv_at_t = np.exp(-BASE_HAZARD * t * np.exp(x))
+    good = d_calibration(e, surv_at_t)
+    bad = d_calibration(e, surv_at_t**2)
+    assert good.p_value > 0.01 and bad.p_value < 1e-6
+    assert good.bins["observed"].sum() == pytest.approx(t.size)
+
+
+def test_d_calibration_splits_a_censored_subject():
+    """Haider et al. (2020): censored at survival 0.25 → bins [0.2, 0.3) gets 0.05/0.25, lower bins 0.1/0.25."""
+    dc = d_calibration(np.array([0]), np.array([0.25]), n_bins=10)
+    np.testing.assert_allclose(dc.bins["observed"], [0.4, 0.4, 0.2, 0, 0, 0, 0, 0, 0, 0])
