@@ -29,11 +29,13 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
+from sklearn.base import BaseEstimator
 
 from riskbench.models.risk_contract import (
     ModelInputError,
     check_covariates,
     check_horizon,
+    check_stack_outcome,
     step_function_at,
 )
 
@@ -54,7 +56,7 @@ def coarsen_times(time: ArrayLike, grid_days: float | None) -> np.ndarray:
     return steps * grid_days
 
 
-class SurvivalForest:
+class SurvivalForest(BaseEstimator):
     """Cause-specific random survival forest for the outcome (status 1) on a landmark stack.
 
     Parameters
@@ -111,20 +113,8 @@ class SurvivalForest:
         """Fit on a landmark stack (``time``, ``status`` + covariates); returns self."""
         from sksurv.ensemble import RandomSurvivalForest
 
-        for column in ("time", "status"):
-            if column not in stack.columns:
-                raise ModelInputError(
-                    f"landmark stack lacks column '{column}'; build it with Cohort.landmark_stack(...)"
-                )
+        time, status = check_stack_outcome(stack)
         x = check_covariates(stack, list(self.covariates), what="landmark stack")
-        time = pd.to_numeric(stack["time"], errors="coerce").to_numpy(dtype=float)
-        status = pd.to_numeric(stack["status"], errors="coerce").to_numpy()
-        bad = ~np.isfinite(time) | (time <= 0) | ~np.isin(status, (0, 1, 2))
-        if bad.any():
-            raise ModelInputError(
-                f"landmark stack has {int(bad.sum())} rows with time <= 0 or status not in 0/1/2 "
-                f"(rows {stack.index[bad][:5].tolist()}); fix or drop them"
-            )
         event = status == 1  # cause-specific: the competing event censors the outcome
         if not event.any():
             raise ModelInputError("the landmark stack has no outcome (status 1) rows; nothing to fit")

@@ -35,12 +35,14 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
+from sklearn.base import BaseEstimator
 
 from riskbench.models.cox_engine import fit_cox
 from riskbench.models.risk_contract import (
     ModelInputError,
     check_covariates,
     check_horizon,
+    check_stack_outcome,
     cumulative_incidence,
     prediction_origin,
     step_function_at,
@@ -112,7 +114,7 @@ def _breslow_increments(
     return out
 
 
-class LandmarkSupermodel:
+class LandmarkSupermodel(BaseEstimator):
     """Cox landmark super-model on a landmark stack, with an optional competing event.
 
     Parameters
@@ -187,28 +189,10 @@ class LandmarkSupermodel:
     # --------------------------------------------------------------------- fit
     def fit(self, stack: pd.DataFrame) -> LandmarkSupermodel:
         """Fit on a landmark stack (``patient_id, landmark, time, status`` + covariates); returns self."""
-        for column in ("patient_id", "landmark", "time", "status"):
-            if column not in stack.columns:
-                raise ModelInputError(
-                    f"landmark stack lacks column '{column}'; build it with Cohort.landmark_stack(...)"
-                )
+        time, status = check_stack_outcome(stack, required=("patient_id", "landmark"))
         covariates = list(self.covariates)
         x = check_covariates(stack, covariates, what="landmark stack")
         s = prediction_origin(stack)
-        time = pd.to_numeric(stack["time"], errors="coerce").to_numpy(dtype=float)
-        status = pd.to_numeric(stack["status"], errors="coerce").to_numpy()
-        bad_time = ~np.isfinite(time) | (time <= 0)
-        if bad_time.any():
-            raise ModelInputError(
-                f"landmark stack column 'time' must be positive days from the landmark; "
-                f"{int(bad_time.sum())} rows are not (rows {stack.index[bad_time][:5].tolist()})"
-            )
-        bad_status = ~np.isin(status, (0, 1, 2))
-        if bad_status.any():
-            raise ModelInputError(
-                f"landmark stack column 'status' must be 0, 1 or 2; rows {stack.index[bad_status][:5].tolist()} "
-                "are not"
-            )
         self.landmarks_ = np.unique(s)
         n_landmarks = len(self.landmarks_)
         self._effect_power_ = self._check_params(n_landmarks)

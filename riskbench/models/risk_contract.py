@@ -39,6 +39,7 @@ __all__ = [
     "ModelInputError",
     "RiskModel",
     "check_covariates",
+    "check_stack_outcome",
     "check_horizon",
     "cumulative_incidence",
     "prediction_origin",
@@ -106,6 +107,30 @@ def check_covariates(table: pd.DataFrame, covariates: Sequence[str], *, what: st
             )
         matrix[:, j] = values
     return matrix
+
+
+def check_stack_outcome(stack: pd.DataFrame, required: Sequence[str] = ()) -> tuple[np.ndarray, np.ndarray]:
+    """Return ``time`` (days from the landmark, > 0) and ``status`` (0/1/2) of a landmark stack.
+
+    Raises
+    ------
+    ModelInputError
+        If ``time``, ``status`` or a ``required`` column is missing, or rows have time <= 0 or another status.
+    """
+    for column in (*required, "time", "status"):
+        if column not in stack.columns:
+            raise ModelInputError(
+                f"landmark stack lacks column '{column}'; build it with Cohort.landmark_stack(...)"
+            )
+    time = pd.to_numeric(stack["time"], errors="coerce").to_numpy(dtype=float)
+    status = pd.to_numeric(stack["status"], errors="coerce").to_numpy()
+    bad = ~np.isfinite(time) | (time <= 0) | ~np.isin(status, (0, 1, 2))
+    if bad.any():
+        raise ModelInputError(
+            f"landmark stack has {int(bad.sum())} rows with time <= 0 days or status not in 0/1/2 "
+            f"(rows {stack.index[bad][:5].tolist()}); fix or drop them"
+        )
+    return time, status.astype(int)
 
 
 def check_horizon(horizon: float, limit: float | None = None) -> float:

@@ -11,6 +11,7 @@ from lifelines import AalenJohansenFitter
 
 from riskbench.models.risk_contract import (
     ModelInputError,
+    RiskModel,
     check_covariates,
     check_horizon,
     cumulative_incidence,
@@ -118,3 +119,33 @@ def test_risk_curve_from_a_model_with_only_predict_risk() -> None:
     table = pd.DataFrame({"rate": [0.001, 0.01]})
     curve = risk_curve(ExponentialModel(), table, [365.0, 30.0])
     np.testing.assert_allclose(curve, 1 - np.exp(-np.outer(table["rate"], [365.0, 30.0])))
+
+
+def _fitted_model(name: str, stack: pd.DataFrame) -> RiskModel:
+    from riskbench.models import CoxModel, LandmarkSupermodel, SurvivalForest
+
+    if name == "cox":  # counting-process rows (start 0) from the first landmark
+        first = stack[stack["landmark"] == 0]
+        return CoxModel(["x1", "x2"]).fit(first.assign(start=0.0, stop=first["time"]).drop(columns="time"))
+    if name == "landmark":
+        return LandmarkSupermodel(["x1", "x2"]).fit(stack)
+    return SurvivalForest(["x1", "x2"], n_estimators=20, random_state=1).fit(stack)
+
+
+@pytest.mark.parametrize("name", ["cox", "landmark", "forest"])
+def test_every_model_keeps_the_contract_on_unseen_patients(make_stack, name: str) -> None:
+    """Each model answers predict_risk/predict_curve for rows of patients it never saw, holding only the
+    covariates and the time s: risks in [0, 1], one per row, independent of the other rows, curves
+    non-decreasing and equal to predict_risk at the same horizon, higher for a higher-hazard covariate."""
+    model = _fitted_model(name, make_stack(n_patients=200, seed=31))
+    assert isinstance(model, RiskModel)
+    new = pd.DataFrame({"landmark": [0.0, 0.0, 182.625], "x1": [2.0, -2.0, 0.3], "x2": [0.0, 0.0, -0.5]})
+    if name == "cox":
+        new = new.rename(columns={"landmark": "start"})
+    risk = model.predict_risk(new, 365.25)
+    assert risk.shape == (3,) and np.all((risk >= 0) & (risk <= 1))
+    assert risk[0] > risk[1]  # x1 carries hazard ratio e^0.7 per unit in the simulation
+    np.testing.assert_allclose(model.predict_risk(new.iloc[[2]], 365.25), risk[[2]])
+    curve = risk_curve(model, new, [91.3125, 365.25, 700.0])
+    assert curve.shape == (3, 3) and np.all(np.diff(curve, axis=1) >= 0)
+    np.testing.assert_allclose(curve[:, 1], risk)
