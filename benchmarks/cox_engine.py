@@ -90,7 +90,7 @@ def main() -> None:
         raise SystemExit(f"coefficients differ by {diff:.2e} > 1e-6")
 
     if not args.skip_large:
-        big = simulate_counting_process(1_000_000, 10, rows_per_patient=5.0, seed=7)
+        big = simulate_counting_process(1_150_000, 10, rows_per_patient=5.4, seed=7)
         big_cols = [f"x{j}" for j in range(10)]
         X = big[big_cols].to_numpy()
         stop, event, start = big["stop"].to_numpy(), big["event"].to_numpy(), big["start"].to_numpy()

@@ -372,7 +372,7 @@ def _evaluate(beta: np.ndarray, Xa: np.ndarray, wa: np.ndarray, L: _Layout, F: _
     """Partial log-likelihood, score and information at ``beta`` (standardised covariates)."""
     F = _fixed(Xa, wa, L) if F is None else F
     K, k = L.n_keys, L.death_key
-    eta = Xa @ beta
+    eta = np.einsum("ij,j->i", Xa, beta)  # not BLAS gemv: its threads stall on a shared machine
     shift = float(eta.max())
     r = np.exp(eta - shift)  # shift guards overflow; every ratio below is shift-free
     v = wa * r
