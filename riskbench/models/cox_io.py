@@ -64,6 +64,7 @@ def save_cox_model(model: Any, path: str | Path) -> Path:
         "format": FORMAT,
         "format_version": FORMAT_VERSION,
         "params": params,
+        "time_scale": model.time_scale_,
         "fit": {f.name: _plain(getattr(model.fit_, f.name)) for f in fields(CoxFit)},
         "versions": _versions(),
     }
@@ -114,6 +115,6 @@ def load_cox_model(path: str | Path) -> Any:
             v = tuple(v)
         values[f.name] = v
     model = CoxModel(**doc["params"])
-    model._set_fitted(CoxFit(**values))
+    model._set_fitted(CoxFit(**values), doc.get("time_scale", "since_entry"))
     model.saved_versions_ = doc.get("versions", {})
     return model

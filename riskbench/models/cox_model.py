@@ -57,6 +57,9 @@ class CoxModel:
     coef_, se_, robust_se_ : Series indexed by covariate (``robust_se_`` None without clusters).
     baseline_cumhaz_ : DataFrame ``stratum, time, cumhaz`` (days; at covariates ``center_``).
     center_ : Series of covariate means.
+    time_scale_ : ``"since_entry"`` when fitted on ``stop`` (counting-process rows; predictions start at
+        ``landmark``/``start``) or ``"since_landmark"`` when fitted on a stack's ``time`` (predictions
+        start at 0 on that clock, since the stack's rows already begin at their landmark).
     """
 
     def __init__(
@@ -88,7 +91,7 @@ class CoxModel:
             strata=arrays["strata"], weights=arrays["weights"], cluster=arrays["cluster"],
             ties=self.ties, penalty=self.penalty, names=list(self.covariates),
         )
-        self._set_fitted(fit)
+        self._set_fitted(fit, "since_entry" if "stop" in table.columns else "since_landmark")
         return self
 
     def fitting_arrays(self, table: pd.DataFrame) -> dict[str, np.ndarray | None]:
@@ -115,7 +118,7 @@ class CoxModel:
             "cluster": cluster,
         }
 
-    def _set_fitted(self, fit: CoxFit) -> None:
+    def _set_fitted(self, fit: CoxFit, time_scale: str) -> None:
         index = pd.Index(fit.names, name="covariate")
         self.fit_ = fit
         self.coef_ = pd.Series(fit.coef, index=index, name="coef")
@@ -124,10 +127,11 @@ class CoxModel:
         self.center_ = pd.Series(fit.center, index=index, name="center")
         self.baseline_cumhaz_ = fit.baseline
         self.n_events_ = fit.n_events
-        self._curves = {
-            level: (grp["time"].to_numpy(float), grp["cumhaz"].to_numpy(float))
-            for level, grp in fit.baseline.groupby("stratum", sort=False)
-        }
+        self.time_scale_ = time_scale
+        # strata without events keep a zero cumulative hazard
+        self._curves = {level: (np.empty(0), np.empty(0)) for level in fit.strata_levels}
+        for level, grp in fit.baseline.groupby("stratum", sort=False):
+            self._curves[level] = (grp["time"].to_numpy(float), grp["cumhaz"].to_numpy(float))
 
     @staticmethod
     def _numeric(table: pd.DataFrame, column: str) -> np.ndarray:
@@ -212,7 +216,8 @@ class CoxModel:
         if (~np.isfinite(times)).any() or (times < 0).any():
             raise ModelInputError(f"times must be finite days >= 0, got {times[:5].tolist()}.")
         lp = self.predict_log_relative_hazard(table)
-        origin = prediction_origin(table)
+        # a model fitted on a landmark stack ('time' from the landmark) predicts from its own origin 0
+        origin = prediction_origin(table) if self.time_scale_ == "since_entry" else np.zeros(len(table))
         strata = self._strata_of(table)
         out = np.empty((len(table), times.size))
         for level in pd.unique(strata):

@@ -151,3 +151,20 @@ def test_veterans_breslow_concordance():
     assert model.robust_se_ is None and (model.summary()["se_used"] == "model").all()
     c = concordance_index_censored(y["Status"], y["Survival_in_days"], model.predict_log_relative_hazard(table))[0]
     assert c == pytest.approx(0.73626, abs=5e-6)
+
+
+def test_landmark_stack_time_scale_and_event_free_stratum():
+    """Fitted on a stack's ``time`` (days from the landmark), risk over w is 1 - exp(-H0(w)·exp(lp)),
+    whatever the row's landmark; a stratum without events has zero predicted risk."""
+    df = _untied(6).rename(columns={"stop": "time"})
+    df["landmark"] = np.where(np.arange(len(df)) % 2 == 0, 0.0, 180.0)
+    df["grp"] = np.where(np.arange(len(df)) < 20, "quiet", "busy")
+    df.loc[df["grp"] == "quiet", "status"] = 0
+    model = CoxModel(["a", "b"], strata="grp", cluster=None).fit(df)
+    assert model.time_scale_ == "since_landmark"
+    busy = df[df["grp"] == "busy"].iloc[:5]
+    base = model.baseline_cumhaz_.query("stratum == 'busy'")
+    h0 = base["cumhaz"].to_numpy()[np.searchsorted(base["time"].to_numpy(), 200.0, side="right") - 1]
+    expected = 1 - np.exp(-h0 * np.exp(model.predict_log_relative_hazard(busy)))
+    np.testing.assert_allclose(model.predict_risk(busy, 200.0), expected, rtol=1e-12)
+    np.testing.assert_array_equal(model.predict_risk(df[df["grp"] == "quiet"], 200.0), 0.0)
