@@ -2,12 +2,12 @@
 
 The evaluation set is a landmark stack: each row is a patient at a landmark s with ``time`` (days from s,
 administratively censored at the stack's horizon) and ``status`` (0/1/2). The outcome is status 1;
-competing events (2) count as censored in concordance, AUC, Brier and ICI, while the calibration slope,
-the observed/expected ratio and net benefit compare the predicted risk with the Aalen–Johansen observed
-cumulative incidence (a competing event removes the patient from risk). The
-smoothed-calibration ICI of :func:`riskbench.metrics.calibration_at_horizon` is defined without competing
-events, so ``ici`` is computed with them censored: its observed risk is 1 − Kaplan–Meier, which exceeds
-the cumulative incidence when competing events are common; compare ICI between models, not with zero.
+competing events (2) count as censored in concordance, AUC, Brier, calibration slope and ICI (the
+smoothed calibration of :func:`riskbench.metrics.calibration_at_horizon` is defined for one cause only:
+its observed risk is then 1 − Kaplan–Meier, which exceeds the cumulative incidence when competing events
+are common, so compare slope and ICI between models rather than with their ideal values). The
+observed/expected ratio and net benefit use the Aalen–Johansen cumulative incidence (a competing event
+removes the patient from risk), matching a model that predicts the cumulative incidence.
 Rows of one patient at several landmarks are pooled, as in van Houwelingen & Putter (2012, ch. 7).
 
 Result columns: ``metric, horizon_days, threshold, value`` (``threshold`` only for net benefit, else NaN).
@@ -54,8 +54,16 @@ def stack_outcome(stack: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
 
 
 def predict_horizons(model: Any, stack: pd.DataFrame, horizons: Sequence[float]) -> dict[float, np.ndarray]:
-    """Predicted risk of the outcome by each horizon (days) for every stack row."""
-    return {float(h): np.asarray(model.predict_risk(stack, float(h)), dtype=float) for h in horizons}
+    """Predicted risk of the outcome by each horizon (days) for every stack row.
+
+    One ``predict_curve`` call covers all horizons when the model has it (the cumulative-incidence
+    product-integral is the costly part and is shared by every horizon).
+    """
+    from riskbench.models import risk_curve
+
+    hs = [float(h) for h in horizons]
+    curve = risk_curve(model, stack, hs)
+    return {h: np.asarray(curve[:, j], dtype=float) for j, h in enumerate(hs)}
 
 
 def evaluation_time(horizon: float, time: np.ndarray) -> float:
@@ -113,9 +121,9 @@ def evaluate_risks(
         brier = metrics.brier_score(time, event, risk, [t_eval])
         # No confidence band (the resampling gives intervals) and no direction check: a poor model in
         # an unlucky replicate is a result to report, not an input error.
-        calib = metrics.calibration_at_horizon(time, status, risk, t_eval, n_boot=0, check_direction=False)
-        smooth = calib if competing_absent else metrics.calibration_at_horizon(
-            time, event, risk, t_eval, n_boot=0, check_direction=False
+        smooth = metrics.calibration_at_horizon(time, event, risk, t_eval, n_boot=0, check_direction=False)
+        calib = smooth if competing_absent else metrics.calibration_at_horizon(
+            time, status, risk, t_eval, n_boot=0, check_direction=False
         )
         rows += [
             ("harrell_c", h, np.nan, float(harrell.estimate)),
@@ -123,7 +131,7 @@ def evaluate_risks(
             ("auc", h, np.nan, float(np.asarray(auc.table["auc"])[0])),
             ("brier", h, np.nan, float(np.asarray(brier["brier"])[0])),
             ("scaled_brier", h, np.nan, float(np.asarray(brier["scaled_brier"])[0])),
-            ("calibration_slope", h, np.nan, float(calib.slope)),
+            ("calibration_slope", h, np.nan, float(smooth.slope)),
             ("oe_ratio", h, np.nan, float(calib.oe_ratio)),
             ("ici", h, np.nan, float(smooth.ici)),
         ]

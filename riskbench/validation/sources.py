@@ -149,6 +149,21 @@ class PrecomputedTables:
                 f"(e.g. {sorted(missing)[:3]}); build both tables from the same cohort."
             )
 
+    @classmethod
+    def from_cohort(
+        cls,
+        cohort: Any,
+        landmarks_days: Sequence[float],
+        horizon_days: float,
+        *,
+        with_counting_process: bool = True,
+    ) -> PrecomputedTables:
+        """Source from a built :class:`riskbench.cohort.Cohort` (its landmark stack, counting-process
+        table and patients with entry dates)."""
+        stack = cohort.landmark_stack(tuple(float(s) for s in landmarks_days), float(horizon_days))
+        cp = cohort.counting_process if with_counting_process else None
+        return cls(stack, cp, cohort.patients)
+
     def patient_ids(self) -> np.ndarray:
         """Unique patient ids (sorted)."""
         return self._status.index.to_numpy()

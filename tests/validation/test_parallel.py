@@ -5,10 +5,14 @@ from pathlib import Path
 
 import cloudpickle
 import numpy as np
+import pandas as pd
 import pytest
 
+from riskbench.validation import ModelSpec, PrecomputedTables, bootstrap_optimism
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.parallel import ExecutionConfig, replicate_seeds, run_replicates
+
+from .conftest import simulate_stack
 
 
 # Worker processes cannot import this test module by name; ship its functions by value.
@@ -39,14 +43,36 @@ def test_bad_n_jobs():
         ExecutionConfig(n_jobs=0)
 
 
-def test_dask_local_cluster_equals_serial(monkeypatch):
-    """Replicates on a two-process Dask LocalCluster (started and stopped here) equal the serial run."""
+@pytest.fixture(scope="module")
+def local_cluster():
+    """A real two-process Dask LocalCluster, started and stopped by these tests."""
     distributed = pytest.importorskip("distributed")
-    # Dask ships functions by reference: let worker processes import this test package.
-    # (spawned workers copy the parent's sys.path).
-    monkeypatch.syspath_prepend(str(Path(__file__).parents[1]))
+    # Dask ships functions by reference and spawned workers copy the parent's sys.path at start:
+    # make this test package importable there before the workers start.
+    tests_dir = str(Path(__file__).parents[1])
+    sys.path.insert(0, tests_dir)
+    try:
+        with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                      dashboard_address=None, silence_logs=40) as cluster:
+            yield cluster
+    finally:
+        sys.path.remove(tests_dir)
+
+
+def test_dask_local_cluster_equals_serial(local_cluster):
+    """Replicates on the two-process LocalCluster equal the serial run."""
     serial = run_replicates(_mean_of_draws, {"n": 30}, 5, 5)
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  dashboard_address=None, silence_logs=40) as cluster:
-        on_cluster = run_replicates(_mean_of_draws, {"n": 30}, 5, 5, ExecutionConfig(scheduler_address=cluster.scheduler_address))
+    on_cluster = run_replicates(_mean_of_draws, {"n": 30}, 5, 5, ExecutionConfig(scheduler_address=local_cluster.scheduler_address))
     assert on_cluster == serial
+
+
+def test_bootstrap_optimism_on_local_cluster_equals_serial(local_cluster):
+    """The full pipeline (resample patients, refit, all metrics) gives identical numbers on the cluster."""
+    stack, cp = simulate_stack(200, seed=8)
+    source = PrecomputedTables(stack, cp)
+    specs = [ModelSpec("clinical", ["clinical"], params={"landmark_effects": "none"}),
+             ModelSpec("both", ["clinical", "imaging"], params={"landmark_effects": "none"})]
+    serial = bootstrap_optimism(specs, source, [365.0], n_boot=3, seed=4)
+    on_cluster = bootstrap_optimism(specs, source, [365.0], n_boot=3, seed=4,
+                                    config=ExecutionConfig(scheduler_address=local_cluster.scheduler_address))
+    pd.testing.assert_frame_equal(serial, on_cluster, check_exact=True)
