@@ -15,11 +15,11 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
 from scipy import stats
+from sklearn.base import BaseEstimator
 
 from riskbench.models.cox_engine import CoxFit, fit_cox
 from riskbench.models.risk_contract import (
@@ -36,7 +36,7 @@ __all__ = ["CoxModel"]
 _DEFAULT_CLUSTER = "patient_id"
 
 
-class CoxModel:
+class CoxModel(BaseEstimator):
     """Cox proportional-hazards model on counting-process rows (scikit-learn conventions).
 
     Parameters
@@ -254,15 +254,3 @@ class CoxModel:
         from riskbench.models.cox_io import load_cox_model
 
         return load_cox_model(path)
-
-    def get_params(self, deep: bool = True) -> dict[str, Any]:
-        """Constructor parameters (scikit-learn convention)."""
-        return {k: getattr(self, k) for k in ("covariates", "ties", "penalty", "strata", "weights", "cluster", "event_code")}
-
-    def set_params(self, **params: Any) -> CoxModel:
-        """Set constructor parameters (scikit-learn convention)."""
-        for key, value in params.items():
-            if key not in self.get_params():
-                raise ModelInputError(f"CoxModel has no parameter {key!r}.")
-            setattr(self, key, value)
-        return self

@@ -134,6 +134,9 @@ def test_errors_name_the_problem():
         model.predict_risk(df, -1)
     assert model.get_params()["ties"] == "efron"
     assert model.set_params(penalty=0.1).penalty == 0.1
+    from sklearn.base import clone
+
+    assert clone(model).get_params() == model.get_params() and not hasattr(clone(model), "fit_")
 
 
 def test_veterans_breslow_concordance():
