@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from riskbench.metrics.censoring import censoring_weights_at, kaplan_meier
+from riskbench.metrics.censoring import inverse_censoring_weights, kaplan_meier
 from riskbench.metrics.concordance import TIED_TOL, _censoring_curve, _dense_rank
 from riskbench.metrics.inputs import (
     ArrayLike,
@@ -46,16 +46,7 @@ class AUCResult:
 def _case_weights(t, status, last_horizon, train_time, train_event) -> np.ndarray:
     """1/G(T_i) for outcomes at or before the last horizon, 0 otherwise."""
     g_curve = _censoring_curve(t, status, train_time, train_event)
-    is_event = (status == 1) & (t <= last_horizon)
-    g = censoring_weights_at(g_curve, t[is_event], what="outcome times")
-    if (g <= 0).any():
-        raise MetricInputError(
-            "the censoring survival G reaches 0 before some outcome times: inverse-probability weights are "
-            "infinite; choose horizons before the last censoring"
-        )
-    w = np.zeros(t.size)
-    w[is_event] = 1.0 / g
-    return w
+    return inverse_censoring_weights(g_curve, t, (status == 1) & (t <= last_horizon))
 
 
 def _prepare_horizon_inputs(time, event, risk, horizons, *, probability: bool):

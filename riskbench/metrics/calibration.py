@@ -19,17 +19,8 @@ from scipy import stats
 
 from riskbench.metrics.censoring import observed_risk
 from riskbench.metrics.hazard_fit import fit_hazard
-from riskbench.metrics.inputs import (
-    ArrayLike,
-    MetricInputError,
-    as_horizons,
-    as_risk,
-    as_status,
-    as_time,
-    check_lengths,
-    require_events_before,
-)
-from riskbench.metrics.risk_direction import check_risk_direction
+from riskbench.metrics.horizon_inputs import single_horizon_inputs
+from riskbench.metrics.inputs import ArrayLike, MetricInputError, check_lengths
 
 Z95 = float(stats.norm.ppf(0.975))
 _CLIP = 1e-10
@@ -166,17 +157,11 @@ def calibration_at_horizon(
     smoothed measures and the slope are NaN: a Cox model of the cause-specific hazard does not estimate
     the cumulative incidence; the grouped table and O/E use Aalen–Johansen.
     """
-    t = as_time(time)
-    status = as_status(event, t.size, allow_competing=True)
-    r = as_risk(risk, t.size, probability=True)
-    if r.ndim != 1:
-        raise MetricInputError("`risk` must be one predicted probability per subject (1-D) for calibration")
-    h = float(as_horizons(horizon, t, name="horizon")[0])
-    require_events_before(t, status, h)
+    t, status, r, h = single_horizon_inputs(
+        time, event, risk, horizon, metric="calibration", check_direction=check_direction
+    )
     if n_groups < 1 or n_groups > t.size:
         raise MetricInputError(f"`n_groups` must be between 1 and the number of subjects ({t.size}); got {n_groups}")
-    if check_direction:
-        check_risk_direction(t, status, r)
 
     groups = _grouped(t, status, r, h, n_groups)
     obs_all, var_all = observed_risk(t, status, h)

@@ -103,6 +103,19 @@ def censoring_weights_at(curve: StepCurve, t: np.ndarray, *, what: str) -> np.nd
     return g
 
 
+def inverse_censoring_weights(curve: StepCurve, time: np.ndarray, use: np.ndarray, power: int = 1) -> np.ndarray:
+    """1/G(T_i)^power for the subjects in ``use`` (0 for the others), refusing G = 0 (infinite weight)."""
+    g = censoring_weights_at(curve, time[use], what="outcome times")
+    if (g <= 0).any():
+        raise MetricInputError(
+            "the censoring survival G reaches 0 before some outcome times: inverse-probability weights are "
+            "infinite; choose a horizon (or `tau`) before the last censoring"
+        )
+    weight = np.zeros(time.size)
+    weight[use] = 1.0 / g**power
+    return weight
+
+
 def aalen_johansen(time: np.ndarray, status: np.ndarray, cause: int = 1) -> StepCurve:
     """Aalen–Johansen cumulative incidence of ``cause`` with competing causes (status 0 = censored).
 

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from riskbench.metrics.censoring import censoring_survival, censoring_weights_at
+from riskbench.metrics.censoring import censoring_survival, inverse_censoring_weights
 from riskbench.metrics.dominance import dominance_sums
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_risk, as_status, as_time, check_lengths
 
@@ -47,6 +47,20 @@ TIED_TOL = 1e-8
 computed score (e.g. 0.1 + 0.2 vs 0.3) does not decide a pair."""
 
 
+def _result(estimate: float, se: float, below: np.ndarray, tied: np.ndarray, total: np.ndarray, tied_time: int = 0) -> Concordance:
+    """Concordance with pair counts summed from per-outcome counts."""
+    concordant, tied_risk, comparable = (int(round(float(x.sum()))) for x in (below, tied, total))
+    return Concordance(
+        estimate=estimate,
+        se=se,
+        concordant=concordant,
+        discordant=comparable - concordant - tied_risk,
+        tied_risk=tied_risk,
+        comparable=comparable,
+        tied_time=tied_time,
+    )
+
+
 def _dense_rank(values: np.ndarray, tol: float = 0.0) -> np.ndarray:
     """Dense ranks; with ``tol`` > 0, sorted neighbours closer than ``tol`` share a rank."""
     uniq, inv = np.unique(values, return_inverse=True)
@@ -77,16 +91,17 @@ def _influence_se(num_i, den_i, estimate, den_total, cluster=None) -> float:
     return float(np.sqrt(np.sum(dc**2)))
 
 
-def _time_keys(time: np.ndarray, is_event: np.ndarray) -> np.ndarray:
-    """Order key for 'later than': a larger time comes first; a censoring before an outcome at equal time."""
+def _time_keys(time: np.ndarray, is_event: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Order key for 'later than' (a larger time first; a censoring before an outcome at an equal time)
+    and the dense rank of -time."""
     t_rank = _dense_rank(-time)
-    return 2 * t_rank + is_event.astype(np.int64)
+    return 2 * t_rank + is_event.astype(np.int64), t_rank
 
 
 def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool) -> Concordance:
     """C = sum_i w_i (#{j later, r_j < r_i} + ½ #{ties}) / sum_i w_i #{j later}; i over outcomes."""
     n = time.size
-    key = _time_keys(time, is_event)
+    key, t_rank = _time_keys(time, is_event)
     rank = _dense_rank(risk, TIED_TOL)
     ev = is_event.astype(bool)
     # role 1: outcome i asks for the subjects later than it (key strictly smaller)
@@ -102,32 +117,23 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool) 
         )
     estimate = float(num_i.sum() / den)
     used = ev & (event_weight > 0)
-    concordant = int(round(below[used].sum()))
-    tied_risk = int(round(tied[used].sum()))
-    comparable = int(round(total[used].sum()))
-    tied_time = int(_tied_time_pairs(time, is_event, used))
+    tied_time = _tied_time_pairs(t_rank, is_event, used)
     se = float("nan")
     if with_se:
         # role 2: subject j asks for the outcomes it is later than, weighted by the outcome's weight;
         # flipping both orders turns "earlier outcome with higher risk" into a dominance question again
-        flip = dominance_sums(int(key.max()) - key, int(rank.max()) - rank, np.where(ev, event_weight, 0.0))
+        flip = dominance_sums(
+            int(key.max()) - key, int(rank.max()) - rank, np.where(ev, event_weight, 0.0), reuse_reversed=sums
+        )
         num_j = flip.below + 0.5 * flip.tied
         se = _influence_se(num_i + num_j, den_i + flip.total, estimate, den)
-    return Concordance(
-        estimate=estimate,
-        se=se,
-        concordant=concordant,
-        discordant=comparable - concordant - tied_risk,
-        tied_risk=tied_risk,
-        comparable=comparable,
-        tied_time=tied_time,
-    )
+    return _result(estimate, se, below[used], tied[used], total[used], tied_time)
 
 
-def _tied_time_pairs(time: np.ndarray, is_event: np.ndarray, used: np.ndarray) -> int:
-    uniq, inv = np.unique(time, return_inverse=True)
-    cens = np.bincount(inv, weights=(~is_event.astype(bool)).astype(float), minlength=uniq.size)
-    ev = np.bincount(inv, weights=used.astype(float), minlength=uniq.size)
+def _tied_time_pairs(t_rank: np.ndarray, is_event: np.ndarray, used: np.ndarray) -> int:
+    """Pairs of a counted outcome and a censoring at the same time."""
+    cens = np.bincount(t_rank, weights=(~is_event.astype(bool)).astype(float))
+    ev = np.bincount(t_rank, weights=used.astype(float), minlength=cens.size)
     return int(round(float(np.sum(cens * ev))))
 
 
@@ -199,14 +205,7 @@ def concordance_uno(
     use = is_event & (t < tau if tau is not None else True)
     if not use.any():
         raise MetricInputError(f"no outcome happens before tau={tau}: Uno's C is undefined; choose a later tau")
-    g = censoring_weights_at(g_curve, t[use], what="outcome times")
-    if (g <= 0).any():
-        raise MetricInputError(
-            "the censoring survival G reaches 0 before some outcome times: the weights 1/G² are infinite; "
-            "choose a `tau` before the last censoring"
-        )
-    weight = np.zeros(t.size)
-    weight[use] = 1.0 / g**2
+    weight = inverse_censoring_weights(g_curve, t, use, power=2)
     return _weighted_concordance(t, is_event, r, weight, with_se=with_se)
 
 
@@ -279,17 +278,9 @@ def concordance_counting_process(
     # influence of each row as a member of other rows' risk sets (both orders flipped)
     rmax, last = int(rank.max()), grid.size - 1
     ev_w = is_event.astype(float)
-    fa = dominance_sums(int(key_stop.max()) - key_stop, rmax - rank, ev_w)
+    fa = dominance_sums(int(key_stop.max()) - key_stop, rmax - rank, ev_w, reuse_reversed=a)
     fb_below, fb_tied, fb_total = _pair_sums(last - inv_stop, last - inv_start, rmax - rank, ev_w)
     num_j = (fa.below - fb_below) + 0.5 * (fa.tied - fb_tied)
     den_j = fa.total - fb_total
     se = _influence_se(num_i + num_j, total + den_j, estimate, den, cluster=patient_id)
-    concordant, tied_risk, comparable = (int(round(x.sum())) for x in (below, tied, total))
-    return Concordance(
-        estimate=estimate,
-        se=se,
-        concordant=concordant,
-        discordant=comparable - concordant - tied_risk,
-        tied_risk=tied_risk,
-        comparable=comparable,
-    )
+    return _result(estimate, se, below, tied, total)

@@ -24,6 +24,8 @@ class DominanceSums:
     below: np.ndarray
     tied: np.ndarray
     total: np.ndarray
+    sequence: np.ndarray
+    rank_key_order: np.ndarray
 
 
 _BASE = 32  # blocks this small are counted pairwise by broadcasting before merging starts
@@ -95,7 +97,13 @@ def _sums_before_run(
     return out
 
 
-def dominance_sums(key: np.ndarray, rank: np.ndarray, weight: np.ndarray) -> DominanceSums:
+def dominance_sums(
+    key: np.ndarray,
+    rank: np.ndarray,
+    weight: np.ndarray,
+    *,
+    reuse_reversed: DominanceSums | None = None,
+) -> DominanceSums:
     """Sum ``weight`` over items with a strictly smaller ``key``, split by ``rank`` below / tied / any.
 
     Parameters
@@ -106,6 +114,9 @@ def dominance_sums(key: np.ndarray, rank: np.ndarray, weight: np.ndarray) -> Dom
         Non-negative integer ranks of the score (ties share a rank).
     weight
         Weight of each item as a counted point (1 for plain pair counts, 0 for an item that only asks).
+    reuse_reversed
+        Result of a call on the same items with both ``key`` and ``rank`` order-reversed: its two sort
+        orders, reversed, serve here and save the two sorts.
     """
     key = np.asarray(key, dtype=np.int64)
     rank = np.asarray(rank, dtype=np.int64)
@@ -115,9 +126,13 @@ def dominance_sums(key: np.ndarray, rank: np.ndarray, weight: np.ndarray) -> Dom
 
     # sequence by key ascending, rank descending: an item with an equal key and a smaller rank comes later,
     # so the merge counts only strictly smaller keys as "before"
-    seq = np.argsort(key * n_ranks + (n_ranks - 1 - rank))
+    if reuse_reversed is not None:
+        seq, by_rank_key = reuse_reversed.sequence[::-1], reuse_reversed.rank_key_order[::-1]
+    else:
+        seq = np.argsort(key * n_ranks + (n_ranks - 1 - rank))
+        by_rank_key = np.argsort(rank * n_keys + key)
     total = _sums_before_run(key, weight, order=seq)
-    tied = _sums_before_run(rank * n_keys + key, weight, group=rank)
+    tied = _sums_before_run(rank * n_keys + key, weight, group=rank, order=by_rank_key)
     below = np.empty(key.size)
     below[seq] = _merge_sums_below(rank[seq], weight[seq])
-    return DominanceSums(below, tied, total)
+    return DominanceSums(below, tied, total, seq, by_rank_key)

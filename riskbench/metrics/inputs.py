@@ -87,7 +87,7 @@ def as_risk(risk: ArrayLike, n: int, n_columns: int | None = None, *, probabilit
 
 
 def as_horizons(horizons: float | ArrayLike, time: np.ndarray, *, name: str = "horizons") -> np.ndarray:
-    """Return sorted unique horizons, each within ``[min(time), max(time))`` of the evaluation data.
+    """Return the horizons as a float array, each within ``[min(time), max(time))`` of the evaluation data.
 
     Outside that range the censoring distribution (or the set of controls) is not estimable: before the
     first follow-up time nobody can have had the outcome, and at or after the last one no subject remains

@@ -11,8 +11,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_horizons, as_risk, as_status, as_time
-from riskbench.metrics.risk_direction import check_risk_direction
+from riskbench.metrics.horizon_inputs import single_horizon_inputs
+from riskbench.metrics.inputs import ArrayLike, MetricInputError
 from riskbench.metrics.threshold_groups import split_by_thresholds
 
 
@@ -47,17 +47,12 @@ def net_benefit(
     DataFrame
         ``threshold, model, treat_all, treat_none, fraction_treated``.
     """
-    t = as_time(time)
-    status = as_status(event, t.size, allow_competing=True)
-    r = as_risk(risk, t.size, probability=True)
-    if r.ndim != 1:
-        raise MetricInputError("`risk` must be one predicted probability per subject (1-D) for net benefit")
-    h = float(as_horizons(horizon, t, name="horizon")[0])
+    t, status, r, h = single_horizon_inputs(
+        time, event, risk, horizon, metric="net benefit", check_direction=check_direction
+    )
     p = np.atleast_1d(np.asarray(thresholds, dtype=float))
     if p.size == 0 or (p <= 0).any() or (p >= 1).any() or not np.isfinite(p).all():
         raise MetricInputError("`thresholds` must be probabilities strictly between 0 and 1 (e.g. 0.01 … 0.5)")
-    if check_direction:
-        check_risk_direction(t, status, r)
     order = np.argsort(p)
     split = split_by_thresholds(t, status, r, h, np.r_[p[order], 1.0 + 1e-9])  # last: nobody above = whole cohort below
     n = t.size

@@ -13,16 +13,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from riskbench.metrics.inputs import (
-    ArrayLike,
-    MetricInputError,
-    as_horizons,
-    as_risk,
-    as_status,
-    as_time,
-    require_events_before,
-)
-from riskbench.metrics.risk_direction import check_risk_direction
+from riskbench.metrics.horizon_inputs import single_horizon_inputs
+from riskbench.metrics.inputs import ArrayLike, MetricInputError
 from riskbench.metrics.threshold_groups import split_by_thresholds
 
 QUANTITIES = ("threshold", "sensitivity", "specificity", "ppv", "npv", "fraction_below")
@@ -105,15 +97,7 @@ def triage_operating_point(
     target = target_npv if target_npv is not None else target_sensitivity
     if not 0 < float(target) < 1:
         raise MetricInputError(f"the target must be a proportion strictly between 0 and 1; got {target}")
-    t = as_time(time)
-    status = as_status(event, t.size, allow_competing=True)
-    r = as_risk(risk, t.size, probability=True)
-    if r.ndim != 1:
-        raise MetricInputError("`risk` must be one predicted probability per subject (1-D) for triage")
-    h = float(as_horizons(horizon, t, name="horizon")[0])
-    require_events_before(t, status, h)
-    if check_direction:
-        check_risk_direction(t, status, r)
+    t, status, r, h = single_horizon_inputs(time, event, risk, horizon, metric="triage", check_direction=check_direction)
 
     candidates = np.unique(r)
     if candidates.size > _MAX_CANDIDATES:

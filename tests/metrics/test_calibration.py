@@ -9,6 +9,8 @@ known factor show O/E = 1/factor; a linear predictor stretched by a factor shows
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from lifelines import AalenJohansenFitter, KaplanMeierFitter
 from sksurv.linear_model import CoxPHSurvivalAnalysis
 from sksurv.util import Surv
@@ -52,6 +54,16 @@ def test_correct_model_is_calibrated(cohort):
     assert cal.ici < 0.03 and cal.e90 < 0.06
     assert abs(cal.slope - 1) < 3 * cal.slope_se
     assert cal.oe_lower < 1 < cal.oe_upper
+
+
+@settings(max_examples=6, deadline=None)
+@given(seed=st.integers(0, 100_000))
+def test_correct_model_calibrated_for_any_seed(seed):
+    """n = 2000: slope within 4 SE of 1; ICI under 0.04 (a few times its sampling spread at this size)."""
+    t, e, x = _cohort(2000, seed)
+    cal = calibration_at_horizon(t, e, _true_risk(x), HORIZON, n_boot=0, check_direction=False)
+    assert abs(cal.slope - 1) < 4 * cal.slope_se
+    assert cal.ici < 0.04
 
 
 def test_inflated_risks_detected_by_observed_expected(cohort):

@@ -7,7 +7,6 @@ scikit-survival's ``CensoringDistributionEstimator`` (outcomes before censorings
 """
 
 import numpy as np
-import pytest
 from lifelines import AalenJohansenFitter
 from lifelines.datasets import load_leukemia
 from sksurv.nonparametric import CensoringDistributionEstimator
