@@ -5,8 +5,8 @@ The results are DuckDB tables:
 
 - ``ledger``: ``table, row_number, patient_id, state`` for every input row;
 - ``pat``: included patients with ``patient_id, entry_ts, end_days, end_status`` and static covariates;
-- ``meas``: used measurements, one per patient, variable and time: ``patient_id, day, variable, x``
-  (``x`` in the canonical unit, log-transformed where the spec says so).
+- ``meas``: used measurements, one per patient, variable and time: ``pidx, day, vidx, x`` (integer keys of
+  ``pat`` and of the spec's variables; ``x`` in the canonical unit, log-transformed where the spec says so).
 """
 
 from __future__ import annotations
@@ -157,94 +157,110 @@ def build_patient_table(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spe
     age_sql = f"{age} AS entry_age_years" if age is not None else "NULL::DOUBLE AS entry_age_years"
     static_sql = "".join(", " + s for s in statics)
     con.execute(f"""
-        CREATE TEMP TABLE pat AS SELECT p.patient_id, p.entry_ts, f.end_days, f.end_status,
+        CREATE TEMP TABLE pat AS SELECT
+            CAST(row_number() OVER (ORDER BY p.patient_id) AS INTEGER) AS pidx,
+            p.patient_id, p.entry_ts, f.end_days, f.end_status,
             {age_sql}{static_sql}
         FROM p1 p JOIN first_event f USING (patient_id) WHERE p.state = '{S.USED}'""")
 
 
 def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
-    """Measurement rows: parse, convert units, check ranges and windows, merge same-time values."""
-    rows = []
-    for v in spec.variables:
+    """Measurement rows: parse, convert units, check ranges and windows, merge same-time values.
+
+    All row checks run in one pass. Exact duplicates are found among all rows: each earlier check depends
+    only on the row's content, so identical rows share their earlier state and the order is kept.
+    """
+    units, canon = [], []
+    for i, v in enumerate(spec.variables):
         lo = "NULL" if v.plausible_min is None else repr(v.plausible_min)
         hi = "NULL" if v.plausible_max is None else repr(v.plausible_max)
+        canon.append(f"({_sql_str(v.name)}, {i}::SMALLINT, {_sql_str(v.unit)}, {str(v.transform == 'log').upper()})")
         for unit, factor in v.factors.items():
-            rows.append(f"({_sql_str(v.name)}, {_sql_str(unit)}, {factor!r}, {lo}::DOUBLE, {hi}::DOUBLE, "
-                        f"{str(v.transform == 'log').upper()})")
-    if not rows:
+            units.append(f"({i}::SMALLINT, {_sql_str(unit)}, {factor!r}, {lo}::DOUBLE, {hi}::DOUBLE)")
+    if not units:
         raise CohortInputError("the cohort spec has no variables; add at least one under [cohort.variables]")
-    con.execute("CREATE TEMP TABLE units(variable VARCHAR, unit VARCHAR, factor DOUBLE, lo DOUBLE, hi DOUBLE, "
-                f"is_log BOOLEAN); INSERT INTO units VALUES {', '.join(rows)}")
-    canonical = ", ".join(f"({_sql_str(v.name)}, {_sql_str(v.unit)})" for v in spec.variables)
-    unit_raw = "trim(CAST(m.unit AS VARCHAR))" if "unit" in loaded.columns else "NULL"
-    ts = timestamp_expr(loaded, "date", "m")
-    value = number_expr(loaded, "value", "m")
+    con.execute(f"CREATE TEMP TABLE var_canon(variable VARCHAR, vidx SMALLINT, unit VARCHAR, is_log BOOLEAN); "
+                f"INSERT INTO var_canon VALUES {', '.join(canon)}")
+    con.execute(f"CREATE TEMP TABLE units(vidx SMALLINT, unit VARCHAR, factor DOUBLE, lo DOUBLE, hi DOUBLE); "
+                f"INSERT INTO units VALUES {', '.join(units)}")
+    # One join on the text id gives both "known id" and the included patient's key and window.
+    con.execute("""CREATE TEMP TABLE id_lookup AS SELECT k.patient_id, p.pidx, p.entry_ts, p.end_days
+                   FROM (SELECT DISTINCT patient_id FROM p1 WHERE patient_id IS NOT NULL) k
+                   LEFT JOIN pat p USING (patient_id)""")
+    unit_raw = "nullif(trim(CAST(m.unit AS VARCHAR)), '')" if "unit" in loaded.columns else "NULL"
+    same = ", ".join(quote(c) for c in loaded.columns)
+    # Exact duplicates: a cheap hash finds the candidate rows, the exact comparison runs on those only.
     con.execute(f"""
-        CREATE TEMP TABLE m1 AS SELECT m.row_number, trim(CAST(m.patient_id AS VARCHAR)) AS patient_id,
-            trim(CAST(m.variable AS VARCHAR)) AS var, {ts} AS ts, {value} AS raw_value,
-            coalesce(nullif({unit_raw}, ''), c.cunit) AS unit_std, m.* EXCLUDE (row_number, patient_id),
-            CASE WHEN {_first_blank(('patient_id', 'date', 'variable', 'value'), 'm')} THEN '{S.MISSING_REQUIRED}'
-                 WHEN {ts} IS NULL THEN '{S.UNPARSEABLE_DATE}'
-                 WHEN {value} IS NULL THEN '{S.UNPARSEABLE_VALUE}'
-                 WHEN c.cunit IS NULL THEN '{S.UNKNOWN_VARIABLE}'
-                 WHEN trim(CAST(m.patient_id AS VARCHAR)) NOT IN (SELECT patient_id FROM p1
-                      WHERE patient_id IS NOT NULL) THEN '{S.UNKNOWN_PATIENT}'
-            END AS state
-        FROM raw_measurements m
-        LEFT JOIN (VALUES {canonical}) c(cvar, cunit) ON trim(CAST(m.variable AS VARCHAR)) = c.cvar""")
-    _dedupe(con, "m1", loaded.columns)
-    # Resolve the remaining rows against the patient's window and the unit table in one pass.
-    lookback = f"{spec.lookback_days!r}"
+        CREATE TEMP TABLE dup_rows AS SELECT row_number FROM (
+            SELECT row_number, row_number() OVER (PARTITION BY {same} ORDER BY row_number) AS copy
+            FROM raw_measurements WHERE hash({same}) IN (
+                SELECT h FROM (SELECT hash({same}) AS h FROM raw_measurements) GROUP BY h HAVING count(*) > 1))
+        WHERE copy > 1""")
+    day = _days("m.ts", "k.entry_ts")
+    value = "m.raw_value * u.factor"
     con.execute(f"""
-        CREATE TEMP TABLE m2 AS SELECT m.row_number, m.patient_id, m.var, {_days('m.ts', 'p.entry_ts')} AS day,
-            m.raw_value * u.factor AS value,
-            u.is_log,
-            CASE WHEN p.patient_id IS NULL THEN '{S.PATIENT_EXCLUDED}'
+        CREATE TEMP TABLE m2 AS SELECT m.row_number, m.patient_id, k.pidx, c.vidx, {day} AS day, {value} AS value,
+            c.is_log,
+            CASE WHEN m.is_blank THEN '{S.MISSING_REQUIRED}'
+                 WHEN m.ts IS NULL THEN '{S.UNPARSEABLE_DATE}'
+                 WHEN m.raw_value IS NULL THEN '{S.UNPARSEABLE_VALUE}'
+                 WHEN c.vidx IS NULL THEN '{S.UNKNOWN_VARIABLE}'
+                 WHEN k.patient_id IS NULL THEN '{S.UNKNOWN_PATIENT}'
+                 WHEN d.row_number IS NOT NULL THEN '{S.EXACT_DUPLICATE}'
+                 WHEN k.pidx IS NULL THEN '{S.PATIENT_EXCLUDED}'
                  WHEN u.factor IS NULL THEN '{S.UNKNOWN_UNIT}'
-                 WHEN (u.lo IS NOT NULL AND m.raw_value * u.factor < u.lo)
-                   OR (u.hi IS NOT NULL AND m.raw_value * u.factor > u.hi)
-                   OR (u.is_log AND m.raw_value * u.factor <= 0) THEN '{S.IMPLAUSIBLE_VALUE}'
-                 WHEN {_days('m.ts', 'p.entry_ts')} < -{lookback} THEN '{S.BEFORE_LOOKBACK}'
-                 WHEN {_days('m.ts', 'p.entry_ts')} > p.end_days THEN '{S.AFTER_FOLLOW_UP}'
+                 WHEN (u.lo IS NOT NULL AND {value} < u.lo) OR (u.hi IS NOT NULL AND {value} > u.hi)
+                   OR (c.is_log AND {value} <= 0) THEN '{S.IMPLAUSIBLE_VALUE}'
+                 WHEN {day} < -{spec.lookback_days!r} THEN '{S.BEFORE_LOOKBACK}'
+                 WHEN {day} > k.end_days THEN '{S.AFTER_FOLLOW_UP}'
             END AS state
-        FROM m1 m LEFT JOIN pat p USING (patient_id)
-        LEFT JOIN units u ON u.variable = m.var AND u.unit = m.unit_std
-        WHERE m.state IS NULL""")
+        FROM (SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
+                     trim(CAST(variable AS VARCHAR)) AS var, {unit_raw} AS unit_given,
+                     {timestamp_expr(loaded, 'date', 'm')} AS ts, {number_expr(loaded, 'value', 'm')} AS raw_value,
+                     {_first_blank(('patient_id', 'date', 'variable', 'value'), 'm')} AS is_blank
+              FROM raw_measurements m) m
+        LEFT JOIN var_canon c ON m.var = c.variable
+        LEFT JOIN id_lookup k ON m.patient_id = k.patient_id
+        LEFT JOIN dup_rows d ON m.row_number = d.row_number
+        LEFT JOIN units u ON u.vidx = c.vidx AND u.unit = coalesce(m.unit_given, c.unit)""")
     _merge_same_time(con, spec)
     con.execute(f"""
-        CREATE TEMP TABLE meas AS SELECT patient_id, day, var AS variable,
-            CASE WHEN is_log THEN ln(value) ELSE value END AS x
+        CREATE TEMP TABLE meas AS SELECT pidx, day, vidx, CASE WHEN is_log THEN ln(value) ELSE value END AS x
         FROM m3 WHERE state = '{S.USED}'""")
-    con.execute(f"""
-        CREATE TEMP TABLE ledger_m AS
-        SELECT m1.row_number, m1.patient_id, coalesce(m1.state, m3.state) AS state
-        FROM m1 LEFT JOIN m3 USING (row_number)""")
 
 
 def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
-    """Create ``m3``: one used row per (patient, variable, time); the others are merged into it."""
+    """Create ``m3`` (``row_number, patient_id, pidx, vidx, day, is_log, state, value``): the rows of ``m2``
+    with the same-time groups resolved; one row per (patient, variable, time) is used, the others merged."""
     rule = spec.same_day_rule
+    names = {i: v.name for i, v in enumerate(spec.variables)}
     if rule == "error":
         clash = con.execute(f"""
-            SELECT patient_id, var, day, list(row_number ORDER BY row_number), list(value ORDER BY row_number)
-            FROM m2 WHERE state IS NULL GROUP BY patient_id, var, day
+            SELECT patient_id, vidx, day, list(row_number ORDER BY row_number), list(value ORDER BY row_number)
+            FROM m2 WHERE state IS NULL GROUP BY patient_id, vidx, day
             HAVING min(value) <> max(value) ORDER BY min(row_number) LIMIT {ERROR_ROWS_SHOWN}""").fetchall()
         if clash:
-            shown = "; ".join(f"patient {p!r} {v} at day {d:g}: rows {r} values {vals}" for p, v, d, r, vals in clash)
+            shown = "; ".join(f"patient {p!r} {names[v]} at day {d:g}: rows {r} values {vals}"
+                              for p, v, d, r, vals in clash)
             raise CohortInputError(
                 f"measurements: conflicting values of one variable at the same date ({shown}). The cohort "
                 "spec says same_day_rule = 'error'; correct the source rows or choose 'mean' or 'last'.")
-    keep = "k_last = 1" if rule == "last" else "k_first = 1"
+    keep = "k_first = n" if rule == "last" else "k_first = 1"
     merged = "avg(value) OVER g" if rule == "mean" else "value"
+    # Only the few (patient, variable, time) groups with several rows need a window.
+    con.execute("""CREATE TEMP TABLE crowded AS SELECT pidx, vidx, day FROM m2 WHERE state IS NULL
+                   GROUP BY pidx, vidx, day HAVING count(*) > 1""")
     con.execute(f"""
-        CREATE TEMP TABLE m3 AS SELECT row_number, patient_id, var, day, is_log,
+        CREATE TEMP TABLE m3 AS SELECT row_number, patient_id, pidx, vidx, day, is_log,
             CASE WHEN {keep} THEN '{S.USED}' ELSE '{S.SAME_DAY_MERGED}' END AS state, value_m AS value FROM (
-            SELECT *, {merged} AS value_m,
-                row_number() OVER (PARTITION BY patient_id, var, day ORDER BY row_number) AS k_first,
-                row_number() OVER (PARTITION BY patient_id, var, day ORDER BY row_number DESC) AS k_last
-            FROM m2 WHERE state IS NULL
-            WINDOW g AS (PARTITION BY patient_id, var, day))
-        UNION ALL SELECT row_number, patient_id, var, day, is_log, state, value FROM m2 WHERE state IS NOT NULL""")
+            SELECT m.*, {merged} AS value_m,
+                row_number() OVER (g ORDER BY row_number) AS k_first, count(*) OVER g AS n
+            FROM m2 m SEMI JOIN crowded c USING (pidx, vidx, day) WHERE m.state IS NULL
+            WINDOW g AS (PARTITION BY m.pidx, m.vidx, m.day))
+        UNION ALL SELECT row_number, patient_id, pidx, vidx, day, is_log, '{S.USED}', value
+        FROM m2 m ANTI JOIN crowded c USING (pidx, vidx, day) WHERE m.state IS NULL
+        UNION ALL SELECT row_number, patient_id, pidx, vidx, day, is_log, state, value FROM m2
+        WHERE state IS NOT NULL""")
 
 
 def build_ledger(con: duckdb.DuckDBPyConnection) -> None:
@@ -252,5 +268,5 @@ def build_ledger(con: duckdb.DuckDBPyConnection) -> None:
     con.execute("""
         CREATE TEMP TABLE ledger AS
         SELECT 'patients' AS "table", row_number, patient_id, state FROM p1
-        UNION ALL SELECT 'measurements', row_number, patient_id, state FROM ledger_m
+        UNION ALL SELECT 'measurements', row_number, patient_id, state FROM m3
         UNION ALL SELECT 'outcomes', row_number, patient_id, state FROM o1""")

@@ -1,12 +1,13 @@
 """The counting-process table: ``(start, stop]`` rows per patient with covariates as known at ``start``.
 
-How it is built (all in DuckDB, out of core):
+How it is built (all in DuckDB, out of core, on integer patient and variable keys):
 
 1. the patient's timeline holds day 0, every day with a used value (look-back history before day 0
    included) and every day at which a value runs out of carry-forward (it is the latest value of its
    variable and becomes ``max_carry_days`` old before the next one arrives);
 2. one window pass over the timeline per patient takes, at each time t, the last value of each variable dated
-   on or before t (a value dated d is known from d on), its date, the first value, and exam counts;
+   on or before t (a value dated d is known from d on) with its date, first value and slope, and the exam
+   count;
 3. rows start at every timeline time in [0, end) and stop at the next one (or at the end of follow-up,
    where the row carries the patient's terminal status).
 
@@ -23,57 +24,43 @@ from riskbench.cohort.reading import quote
 from riskbench.cohort.spec import DAYS_PER_YEAR, CohortSpec
 
 
-def _col(prefix: str, index: int) -> str:
-    return f"{prefix}{index}"
-
-
 def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
     """Create the DuckDB table ``cp`` (the counting-process table) from ``pat`` and ``meas``."""
     carry = spec.max_carry_days
-    exam_list = ", ".join("'" + v.replace("'", "''") + "'" for v in spec.exam_variables) or "NULL"
-    slope_cases = []
-    for v in spec.variables:
-        if v.slope:
-            slope_cases.append(
-                f"WHEN '{v.name}' THEN regr_slope(m.x, m.day) OVER (PARTITION BY m.patient_id, m.variable "
-                f"ORDER BY m.day RANGE BETWEEN {v.slope_window_days!r} PRECEDING AND CURRENT ROW) * {DAYS_PER_YEAR}")
-    slope_sql = f"CASE m.variable {' '.join(slope_cases)} END" if slope_cases else "NULL::DOUBLE"
+    index = {v.name: i for i, v in enumerate(spec.variables)}
+    exam_list = ", ".join(str(index[v]) for v in spec.exam_variables) or "NULL"
+    slope_cases = [
+        f"WHEN {i} THEN regr_slope(m.x, m.day) OVER (PARTITION BY m.pidx, m.vidx ORDER BY m.day "
+        f"RANGE BETWEEN {v.slope_window_days!r} PRECEDING AND CURRENT ROW) * {DAYS_PER_YEAR}"
+        for i, v in enumerate(spec.variables) if v.slope]
+    slope_sql = f"CASE m.vidx {' '.join(slope_cases)} END" if slope_cases else "NULL::DOUBLE"
     # Values dated at or after the end never enter a row (rows start before the end).
     con.execute(f"""
-        CREATE TEMP TABLE mv AS SELECT m.patient_id, m.day, m.variable, m.x,
-            first_value(m.x) OVER w AS x_first,
-            lead(m.day) OVER w AS next_day,
-            {slope_sql} AS slope
-        FROM meas m JOIN pat p USING (patient_id) WHERE m.day < p.end_days
-        WINDOW w AS (PARTITION BY m.patient_id, m.variable ORDER BY m.day)""")
+        CREATE TEMP TABLE mv AS SELECT m.pidx, m.day, m.vidx, m.x,
+            first_value(m.x) OVER w AS x_first, {slope_sql} AS slope,
+            lead(m.day) OVER w AS next_day, p.end_days
+        FROM meas m JOIN pat p USING (pidx) WHERE m.day < p.end_days
+        WINDOW w AS (PARTITION BY m.pidx, m.vidx ORDER BY m.day)""")
     expiry = ""
     if carry is not None:
         expiry = f"""
-            UNION ALL SELECT m.patient_id, m.day + {carry!r}, NULL, NULL, NULL, NULL, FALSE
-            FROM mv m JOIN pat p USING (patient_id)
-            WHERE (m.next_day IS NULL OR m.next_day > m.day + {carry!r})
-              AND m.day + {carry!r} > 0 AND m.day + {carry!r} < p.end_days"""
-    pivots = []
-    for i, v in enumerate(spec.variables):
-        name = "'" + v.name.replace("'", "''") + "'"
-        pivots.append(f"max(x) FILTER (WHERE variable = {name}) AS {_col('x', i)}")
-        pivots.append(f"max(x_first) FILTER (WHERE variable = {name}) AS {_col('f', i)}")
-        pivots.append(f"max(slope) FILTER (WHERE variable = {name}) AS {_col('s', i)}")
+            UNION ALL SELECT pidx, day + {carry!r}, NULL, NULL, NULL, NULL, FALSE FROM mv
+            WHERE (next_day IS NULL OR next_day > day + {carry!r}) AND day + {carry!r} > 0
+              AND day + {carry!r} < end_days"""
+    pivots = ", ".join(f"max({c}) FILTER (WHERE vidx = {i}) AS {c}{i}"
+                       for i in range(len(spec.variables)) for c in ("x", "x_first", "slope"))
     con.execute(f"""
-        CREATE TEMP TABLE timeline AS SELECT patient_id, t, {', '.join(pivots)}, bool_or(is_exam) AS is_exam
+        CREATE TEMP TABLE timeline AS SELECT pidx, t, {pivots}, bool_or(is_exam) AS is_exam
         FROM (
-            SELECT patient_id, day AS t, variable, x, x_first, slope, variable IN ({exam_list}) AS is_exam FROM mv
-            UNION ALL SELECT patient_id, 0.0::DOUBLE, NULL, NULL, NULL, NULL, FALSE FROM pat{expiry}
-        ) GROUP BY patient_id, t""")
+            SELECT pidx, day AS t, vidx, x, x_first, slope, vidx IN ({exam_list}) AS is_exam FROM mv
+            UNION ALL SELECT pidx, 0.0::DOUBLE, NULL, NULL, NULL, NULL, FALSE FROM pat{expiry}
+        ) GROUP BY pidx, t""")
     window_cols = []
     for i in range(len(spec.variables)):
-        x, f, s = _col("x", i), _col("f", i), _col("s", i)
-        window_cols += [
-            f"last_value({x} IGNORE NULLS) OVER w AS l{x}",
-            f"last_value(CASE WHEN {x} IS NOT NULL THEN t END IGNORE NULLS) OVER w AS d{x}",
-            f"last_value({f} IGNORE NULLS) OVER w AS l{f}",
-            f"last_value({s} IGNORE NULLS) OVER w AS l{s}",
-        ]
+        window_cols += [f"last_value(x{i} IGNORE NULLS) OVER w AS x{i}",
+                        f"last_value(CASE WHEN x{i} IS NOT NULL THEN t END IGNORE NULLS) OVER w AS d{i}",
+                        f"last_value(x_first{i} IGNORE NULLS) OVER w AS f{i}",
+                        f"last_value(slope{i} IGNORE NULLS) OVER w AS s{i}"]
     window_cols += [
         "sum(CASE WHEN is_exam THEN 1 ELSE 0 END) OVER w AS n_exams_",
         "last_value(CASE WHEN is_exam THEN t END IGNORE NULLS) OVER w AS last_exam",
@@ -81,26 +68,24 @@ def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> 
     ]
     outputs = []
     for i, v in enumerate(spec.variables):
-        x = _col("x", i)
-        fresh = "TRUE" if carry is None else f"(start - d{x} < {carry!r})"
-        value = f"CASE WHEN {fresh} THEN l{x} END"
-        outputs.append(f"{value} AS {quote(v.column)}")
+        fresh = "TRUE" if carry is None else f"(start - d{i} < {carry!r})"
+        outputs.append(f"CASE WHEN {fresh} THEN x{i} END AS {quote(v.column)}")
         if v.change:
-            outputs.append(f"CASE WHEN {fresh} THEN l{x} - l{_col('f', i)} END AS {quote(v.column + '_change')}")
+            outputs.append(f"CASE WHEN {fresh} THEN x{i} - f{i} END AS {quote(v.column + '_change')}")
         if v.slope:
-            outputs.append(f"CASE WHEN {fresh} THEN l{_col('s', i)} END AS {quote(v.column + '_slope_per_year')}")
-        outputs.append(f"start - d{x} AS {quote(v.staleness_column)}")
+            outputs.append(f"CASE WHEN {fresh} THEN s{i} END AS {quote(v.column + '_slope_per_year')}")
+        outputs.append(f"start - d{i} AS {quote(v.staleness_column)}")
     if spec.exam_variables:
         outputs += ["start - last_exam AS days_since_exam", "CAST(coalesce(n_exams_, 0) AS INTEGER) AS n_exams"]
     if spec.current_age:
         outputs.append(f"p.entry_age_years + start / {DAYS_PER_YEAR} AS age")
     outputs += [f"p.{quote(c)}" for c in spec.static]
     con.execute(f"""
-        CREATE TEMP TABLE cp AS SELECT w.patient_id, start, coalesce(next_t, p.end_days) AS stop,
+        CREATE TEMP TABLE cp AS SELECT p.patient_id, start, coalesce(next_t, p.end_days) AS stop,
             CAST(CASE WHEN next_t IS NULL THEN p.end_status ELSE 0 END AS TINYINT) AS status,
             {', '.join(outputs)}
-        FROM (SELECT patient_id, t AS start, {', '.join(window_cols)} FROM timeline
-              WINDOW w AS (PARTITION BY patient_id ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW)) w
-        JOIN pat p USING (patient_id)
+        FROM (SELECT pidx, t AS start, {', '.join(window_cols)} FROM timeline
+              WINDOW w AS (PARTITION BY pidx ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW)) w
+        JOIN pat p USING (pidx)
         WHERE start >= 0
-        ORDER BY w.patient_id, start""")
+        ORDER BY w.pidx, start""")

@@ -75,10 +75,12 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
     columns = dict(spec.columns.get(table, {}))
     date_format = spec.date_format
     layout = spec.measurement_layout
+    parquet = False
     if isinstance(source, TableSource):
         columns.update(source.columns)
         date_format = source.date_format or date_format
         layout = source.layout
+        parquet = source.file_format == "parquet"
         relation, label = _file_relation(source.path, source.file_format), str(source.path)
     elif isinstance(source, pd.DataFrame):
         name = f"frame_{table}"
@@ -88,6 +90,7 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         path = Path(source)
         if not path.exists():
             raise CohortInputError(f"{table} source {path} does not exist")
+        parquet = TableSource(path).file_format == "parquet"
         relation, label = _file_relation(path, TableSource(path).file_format), str(path)
 
     described = con.execute(f"DESCRIBE SELECT * FROM {relation}").fetchall()
@@ -121,10 +124,12 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         types.update(variable="VARCHAR", value="VARCHAR")
         return LoadedTable(table, label, tuple(wanted) + ("variable", "value"), types, date_format)
     selects = ", ".join(f"{quote(columns.get(c, c))} AS {quote(c)}" for c in wanted)
-    # Insertion order is preserved, so rowid is the position of the row in the source.
-    con.execute(f"CREATE TEMP TABLE src_{table} AS SELECT {selects} FROM {relation}")
-    con.execute(f"CREATE TEMP TABLE raw_{table} AS SELECT rowid + 1 AS row_number, * FROM src_{table}")
-    con.execute(f"DROP TABLE src_{table}")
+    if parquet:  # read in place: Parquet knows each row's position
+        con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT file_row_number + 1 AS row_number, {selects} "
+                    f"FROM {relation[:-1]}, file_row_number = true)")
+    else:  # insertion order is preserved, so rowid is the position of the row in the source
+        con.execute(f"CREATE TEMP TABLE src_{table} AS SELECT {selects} FROM {relation}")
+        con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT rowid + 1 AS row_number, * FROM src_{table}")
     types = {c: present[columns.get(c, c)] for c in wanted}
     return LoadedTable(table, label, tuple(wanted), types, date_format)
 
