@@ -499,6 +499,91 @@ def fit_cox(
     CoxConvergenceWarning
         The convergence rule was not met in ``max_iter`` iterations.
     """
+    inp = _checked_inputs(X, stop, event, start, strata, weights, cluster, ties, penalty, names)
+    n, p = inp.x.shape
+    center = inp.x.mean(axis=0)
+    scale = inp.x.std(axis=0, ddof=1) if n > 1 else np.zeros(p)
+    const = ~(scale > 0)
+    if const.any():
+        raise CoxInputError(
+            f"covariates {[inp.names[j] for j in np.flatnonzero(const)]} are constant; drop them "
+            "(they are absorbed by the baseline hazard)."
+        )
+    Xs = inp.x - center
+    Xs /= scale
+    _check_collinear(Xs, inp.names)
+
+    L = _layout(inp.start, inp.stop, inp.event, inp.strata_codes, ties)
+    Xa, wa = (Xs, inp.weights) if L.active.size == n else (Xs[L.active], inp.weights[L.active])
+    pen = float(penalty) * n
+    nr = _newton_raphson(Xa, wa, L, pen, max_iter, tol)
+    _warn_convergence(nr, inp.names, tol)
+
+    V_std = _inverse_pd(nr.state.info + pen * np.eye(p))
+    coef = nr.beta / scale
+    var = V_std / np.outer(scale, scale)
+    robust_var = robust_wald = None
+    if inp.cluster_codes is not None:
+        res = _score_residuals(Xa, L, nr.state) * wa[:, None]
+        per_cluster = _bincount_cols(inp.cluster_codes[L.active], res, inp.n_clusters)
+        robust_var = (V_std @ (per_cluster.T @ per_cluster) @ V_std) / np.outer(scale, scale)
+        robust_wald = _chi2(_quad_form_inv(coef, robust_var), p)
+    return CoxFit(
+        names=inp.names,
+        coef=coef,
+        var=var,
+        robust_var=robust_var,
+        loglik=nr.state.loglik,
+        loglik_null=nr.null.loglik,
+        penalized_loglik=nr.objective,
+        n_iter=nr.n_iter,
+        converged=nr.converged,
+        baseline=_baseline_frame(nr.state, L, inp.strata_levels if strata is not None else None),
+        center=center,
+        scale=scale,
+        score_test=_chi2(_quad_form_inv(nr.null.score, nr.null.info), p),
+        lr_test=_chi2(2.0 * (nr.state.loglik - nr.null.loglik), p),
+        wald_test=_chi2(_quad_form_inv(coef, var), p),
+        robust_wald_test=robust_wald,
+        ties=ties,
+        penalty=float(penalty),
+        n_rows=n,
+        n_events=int((inp.event > 0).sum()),
+        n_clusters=inp.n_clusters,
+        strata_levels=inp.strata_levels,
+    )
+
+
+@dataclass(frozen=True)
+class _Inputs:
+    """Validated arrays of one fit."""
+
+    x: np.ndarray
+    stop: np.ndarray
+    start: np.ndarray
+    event: np.ndarray
+    weights: np.ndarray
+    strata_codes: np.ndarray
+    strata_levels: tuple[Any, ...]
+    cluster_codes: np.ndarray | None
+    n_clusters: int | None
+    names: tuple[str, ...]
+
+
+def _labels(name: str, values: Any, n: int) -> tuple[np.ndarray, list[Any]]:
+    arr = np.asarray(values).reshape(-1)
+    if arr.shape[0] != n:
+        raise CoxInputError(f"'{name}' has {arr.shape[0]} rows but X has {n}; pass one label per row.")
+    codes, uniques = pd.factorize(pd.Series(arr), sort=True)
+    if (codes < 0).any():
+        raise CoxInputError(f"'{name}' is missing in rows {_first_rows(codes < 0)}; fill or drop them.")
+    return codes.astype(np.int64), uniques.tolist()
+
+
+def _checked_inputs(
+    X: Any, stop: Any, event: Any, start: Any, strata: Any, weights: Any, cluster: Any,
+    ties: str, penalty: float, names: Sequence[str] | None,
+) -> _Inputs:
     if ties not in ("efron", "breslow"):
         raise CoxInputError(f"ties={ties!r}; use 'efron' or 'breslow'.")
     if not (np.isfinite(penalty) and penalty >= 0):
@@ -515,8 +600,8 @@ def fit_cox(
     t_stop = _vector("stop", stop, n)
     t_start = np.zeros(n) if start is None else _vector("start", start, n)
     ev = _vector("event", event, n)
-    if not np.isin(ev, (0.0, 1.0)).all():
-        bad = ~np.isin(ev, (0.0, 1.0))
+    bad = ~np.isin(ev, (0.0, 1.0))
+    if bad.any():
         raise CoxInputError(f"'event' must be 0 or 1; rows {_first_rows(bad)} are not. Recode other statuses first.")
     bad = t_start >= t_stop
     if bad.any():
@@ -529,45 +614,43 @@ def fit_cox(
         raise CoxInputError(f"'weights' must be positive; rows {_first_rows(w <= 0)} are not. Drop those rows.")
     if not (ev > 0).any():
         raise CoxInputError("no events (event == 1) in the data: a Cox model needs at least one event.")
-    if strata is None:
-        strata_codes, strata_levels = np.zeros(n, dtype=np.int64), (0,)
-    else:
-        st = np.asarray(strata).reshape(-1)
-        if st.shape[0] != n:
-            raise CoxInputError(f"'strata' has {st.shape[0]} rows but X has {n}.")
-        codes, uniques = pd.factorize(pd.Series(st), sort=True)
-        if (codes < 0).any():
-            raise CoxInputError(f"'strata' is missing in rows {_first_rows(codes < 0)}; fill or drop them.")
-        strata_codes, strata_levels = codes.astype(np.int64), tuple(uniques.tolist())
+    strata_codes, strata_levels = (np.zeros(n, dtype=np.int64), [0]) if strata is None else _labels("strata", strata, n)
+    cluster_codes, n_clusters = None, None
+    if cluster is not None:
+        cluster_codes, uniques = _labels("cluster", cluster, n)
+        n_clusters = len(uniques)
+    return _Inputs(x, t_stop, t_start, ev, w, strata_codes, tuple(strata_levels), cluster_codes, n_clusters, col_names)
 
-    center = x.mean(axis=0)
-    scale = x.std(axis=0, ddof=1) if n > 1 else np.zeros(p)
-    const = ~(scale > 0)
-    if const.any():
-        raise CoxInputError(
-            f"covariates {[col_names[j] for j in np.flatnonzero(const)]} are constant; drop them "
-            "(they are absorbed by the baseline hazard)."
-        )
-    Xs = x - center
-    Xs /= scale
-    _check_collinear(Xs, col_names)
 
-    L = _layout(t_start, t_stop, ev, strata_codes, ties)
-    Xa, wa = (Xs, w) if L.active.size == n else (Xs[L.active], w[L.active])
+@dataclass(frozen=True)
+class _Newton:
+    """Outcome of the Newton–Raphson iterations (standardised scale)."""
+
+    beta: np.ndarray
+    state: _State
+    null: _State
+    objective: float
+    n_iter: int
+    converged: bool
+    history: tuple[np.ndarray, ...]
+
+
+def _newton_raphson(Xa: np.ndarray, wa: np.ndarray, L: _Layout, pen: float, max_iter: int, tol: float) -> _Newton:
+    """Maximise ``loglik - pen/2 ‖β‖²`` from β = 0 with step halving.
+
+    Converged when the relative change of the objective is ≤ ``tol`` and the largest step is
+    ≤ ``sqrt(tol)``; stopped early when the objective stays flat for 3 steps while the
+    coefficients still move (monotone likelihood).
+    """
     F = _fixed(Xa, wa, L)
-    pen = float(penalty) * n
-
+    p = Xa.shape[1]
     beta = np.zeros(p)
-    st0 = _evaluate(beta, Xa, wa, L, F)
-    loglik_null = st0.loglik
-    score_stat = _quad_form_inv(st0.score, st0.info)
-    state, obj = st0, st0.loglik
+    null = state = _evaluate(beta, Xa, wa, L, F)
+    obj = state.loglik
     converged, n_iter, flat_runs = False, 0, 0
     history = [beta.copy()]
     for n_iter in range(1, max_iter + 1):
-        grad = state.score - pen * beta
-        hess = state.info + pen * np.eye(p)
-        step = _solve_pd(hess, grad)
+        step = _solve_pd(state.info + pen * np.eye(p), state.score - pen * beta)
         for _ in range(40):  # step halving until the objective does not fall
             trial = beta + step
             new = _evaluate(trial, Xa, wa, L, F)
@@ -585,78 +668,37 @@ def fit_cox(
             converged = True
             break
         flat_runs = flat_runs + 1 if rel <= tol else 0
-        if flat_runs >= 3:  # likelihood flat but coefficients still moving: monotone likelihood
+        if flat_runs >= 3:
             break
+    return _Newton(beta, state, null, obj, n_iter, converged, tuple(history))
 
-    running = _running_off(history, converged)
+
+def _warn_convergence(nr: _Newton, names: tuple[str, ...], tol: float) -> None:
+    running = _running_off(list(nr.history), nr.converged)
     if running:
         warnings.warn(
-            f"monotone likelihood: coefficient(s) {[col_names[j] for j in running]} run off to infinity "
+            f"monotone likelihood: coefficient(s) {[names[j] for j in running]} run off to infinity "
             "(an event pattern is perfectly separated by them); their estimates and standard errors are "
             "meaningless — drop or coarsen them, or use a ridge penalty.",
             MonotoneLikelihoodWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
-    elif not converged:
+    elif not nr.converged:
         warnings.warn(
-            f"Newton–Raphson did not converge in {n_iter} iterations (tol={tol}); results may be inaccurate.",
+            f"Newton–Raphson did not converge in {nr.n_iter} iterations (tol={tol}); results may be inaccurate.",
             CoxConvergenceWarning,
-            stacklevel=2,
+            stacklevel=3,
         )
 
-    V_std = _inverse_pd(state.info + pen * np.eye(p))
-    coef = beta / scale
-    var = V_std / np.outer(scale, scale)
-    robust_var, robust_wald, n_clusters = None, None, None
-    if cluster is not None:
-        cl = np.asarray(cluster).reshape(-1)
-        if cl.shape[0] != n:
-            raise CoxInputError(f"'cluster' has {cl.shape[0]} rows but X has {n}.")
-        cl_codes, cl_uniques = pd.factorize(pd.Series(cl))
-        if (cl_codes < 0).any():
-            raise CoxInputError(f"'cluster' is missing in rows {_first_rows(cl_codes < 0)}; fill or drop them.")
-        n_clusters = len(cl_uniques)
-        res = _score_residuals(Xa, L, state) * wa[:, None]
-        per_cluster = _bincount_cols(cl_codes[L.active], res, n_clusters)
-        rv_std = V_std @ (per_cluster.T @ per_cluster) @ V_std
-        robust_var = rv_std / np.outer(scale, scale)
-        robust_wald = _chi2(_quad_form_inv(coef, robust_var), p)
 
+def _baseline_frame(state: _State, L: _Layout, strata_levels: tuple[Any, ...] | None) -> pd.DataFrame:
+    """Cumulative baseline hazard per stratum at the covariate centre."""
     dlam = state.alpha * np.exp(-state.shift)  # hazard increments at the centre (shift undone)
     cumhaz = np.empty_like(dlam)
     for a, b in zip(L.bounds[:-1], L.bounds[1:]):
         cumhaz[a:b] = np.cumsum(dlam[a:b])
-    baseline = pd.DataFrame(
-        {
-            "stratum": np.asarray(strata_levels, dtype=object)[L.key_stratum] if strata is not None else 0,
-            "time": L.key_time,
-            "cumhaz": cumhaz,
-        }
-    )
-    return CoxFit(
-        names=col_names,
-        coef=coef,
-        var=var,
-        robust_var=robust_var,
-        loglik=state.loglik,
-        loglik_null=loglik_null,
-        penalized_loglik=obj,
-        n_iter=n_iter,
-        converged=converged,
-        baseline=baseline,
-        center=center,
-        scale=scale,
-        score_test=_chi2(score_stat, p),
-        lr_test=_chi2(2.0 * (state.loglik - loglik_null), p),
-        wald_test=_chi2(_quad_form_inv(coef, var), p),
-        robust_wald_test=robust_wald,
-        ties=ties,
-        penalty=float(penalty),
-        n_rows=n,
-        n_events=int((ev > 0).sum()),
-        n_clusters=n_clusters,
-        strata_levels=strata_levels,
-    )
+    stratum = np.asarray(strata_levels, dtype=object)[L.key_stratum] if strata_levels is not None else 0
+    return pd.DataFrame({"stratum": stratum, "time": L.key_time, "cumhaz": cumhaz})
 
 
 def _running_off(history: list[np.ndarray], converged: bool) -> list[int]:
