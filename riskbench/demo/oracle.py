@@ -11,8 +11,8 @@ oracle therefore averages over ``n_paths`` simulated futures (Monte Carlo, seede
 * given one future path, the cumulative incidence of the outcome with death as a competing risk,
   ``integral_s^{s+w} h1(t) exp(-(H1(t) - H1(s)) - (H2(t) - H2(s))) dt``, is computed without sampling
   event times: in each piece the integral is taken over the baseline cumulative hazard by
-  4-point Gauss-Legendre quadrature (the integrand is smooth there; quadrature error far below the
-  Monte Carlo error);
+  4-point Gauss-Legendre quadrature (24 points on pieces starting at entry, where the Weibull
+  baseline is not smooth); the quadrature error is far below the Monte Carlo error;
 * surveillance is assumed to continue by protocol (no discharge, no loss to follow-up): the risk is
   the one a perfect model should predict, free of censoring.
 
@@ -27,7 +27,8 @@ import numpy as np
 import pandas as pd
 
 from riskbench.demo.hazards import baseline_cumhaz, baseline_cumhaz_inverse, death_cumhaz
-from riskbench.demo.process import HiddenState, measure_exam, measure_lab, next_exam_day, next_lab_day
+from riskbench.demo.parameters import GeneratorParameters
+from riskbench.demo.process import measure_exam, measure_lab, next_exam_day, next_lab_day
 from riskbench.demo.simulate import (
     SimulatedProcess,
     build_covariate_path,
@@ -36,7 +37,8 @@ from riskbench.demo.simulate import (
     piece_stops,
 )
 
-_NODES, _WEIGHTS = np.polynomial.legendre.leggauss(4)
+_RULE = np.polynomial.legendre.leggauss(4)
+_RULE_AT_ENTRY = np.polynomial.legendre.leggauss(24)
 _MAX_REJECTIONS = 200
 _PATHS_PER_CHUNK = 100_000
 
@@ -131,13 +133,11 @@ def _chunk_risk(
     age = sim.age_at_entry[g][fut.patient]
     lo, hi = baseline_cumhaz(start, p), baseline_cumhaz(stop, p)
     death_lo = death_cumhaz(start, age, p)
-    # Gauss-Legendre in the baseline cumulative hazard u: dH1 = exp(eta) du on the piece
-    u = lo[:, None] + (hi - lo)[:, None] * (1 + _NODES[None, :]) / 2
-    t = baseline_cumhaz_inverse(u, p)
-    integrand = eta[:, None] * np.exp(
-        -eta[:, None] * (u - lo[:, None]) - (death_cumhaz(t, age[:, None], p) - death_lo[:, None])
-    )
-    piece_cif = (hi - lo) / 2 * (integrand @ _WEIGHTS)
+    piece_cif = np.empty(start.size)
+    at_entry = start == 0  # the Weibull baseline is not smooth at t = 0: more nodes there
+    for mask, (nodes, weights) in ((~at_entry, _RULE), (at_entry, _RULE_AT_ENTRY)):
+        piece_cif[mask] = _piece_incidence(lo[mask], hi[mask], eta[mask], age[mask], death_lo[mask], nodes,
+                                           weights, p)
     increment = eta * (hi - lo) + death_cumhaz(stop, age, p) - death_lo
     running = np.cumsum(increment)
     first = np.r_[True, fut.patient[1:] != fut.patient[:-1]]
@@ -147,6 +147,23 @@ def _chunk_risk(
     per_path = per_path.reshape(-1, n_paths)
     se = per_path.std(axis=1, ddof=1) / np.sqrt(n_paths) if n_paths > 1 else np.full(per_path.shape[0], np.nan)
     return per_path.mean(axis=1), se
+
+
+def _piece_incidence(
+    lo: np.ndarray, hi: np.ndarray, eta: np.ndarray, age: np.ndarray, death_lo: np.ndarray,
+    nodes: np.ndarray, weights: np.ndarray, p: GeneratorParameters,
+) -> np.ndarray:
+    """Outcome incidence within each piece given event-free at its start.
+
+    Gauss-Legendre in the baseline cumulative hazard u (dH1 = exp(eta) du on the piece), where the
+    integrand exp(eta) exp(-exp(eta) (u - lo) - (H2(t(u)) - H2(start))) is smooth.
+    """
+    u = lo[:, None] + (hi - lo)[:, None] * (1 + nodes[None, :]) / 2
+    t = baseline_cumhaz_inverse(u, p)
+    integrand = eta[:, None] * np.exp(
+        -eta[:, None] * (u - lo[:, None]) - (death_cumhaz(t, age[:, None], p) - death_lo[:, None])
+    )
+    return (hi - lo) / 2 * (integrand @ weights)
 
 
 def _pad(
