@@ -2,8 +2,13 @@
 integral over horizons, and the ROC curve at one horizon.
 
 At horizon t, cases are subjects with the outcome at or before t (weighted by 1/G(T_i)), controls are
-subjects still event-free after t (weight 1). Equal risks count one half. Agrees with scikit-survival's
-``cumulative_dynamic_auc``, including its integrated ("mean") AUC weighted by Kaplan–Meier survival drops.
+subjects still event-free after t (weight 1/G(t), a constant). Equal risks count one half. Agrees with
+scikit-survival's ``cumulative_dynamic_auc``, including its integrated ("mean") AUC weighted by the
+Kaplan–Meier survival drops.
+
+With competing events (code 2), a subject whose competing event comes at or before t is a control weighted
+by 1/G(T_j) (Blanche, Dartigues & Jacqmin-Gadda 2013, Stat Med, "definition 2" of controls), and the
+integrated AUC weights by the rises of the Aalen–Johansen cumulative incidence.
 """
 
 from __future__ import annotations
@@ -13,7 +18,13 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from riskbench.metrics.censoring import inverse_censoring_weights, kaplan_meier
+from riskbench.metrics.censoring import (
+    StepCurve,
+    aalen_johansen,
+    censoring_weights_at,
+    inverse_censoring_weights,
+    kaplan_meier,
+)
 from riskbench.metrics.concordance import TIED_TOL, _censoring_curve, _dense_rank
 from riskbench.metrics.inputs import (
     ArrayLike,
@@ -43,15 +54,49 @@ class AUCResult:
     integrated: float
 
 
-def _case_weights(t, status, last_horizon, train_time, train_event) -> np.ndarray:
-    """1/G(T_i) for outcomes at or before the last horizon, 0 otherwise."""
+@dataclass(frozen=True)
+class HorizonWeights:
+    """Inverse-probability-of-censoring weights for cases and controls at horizons.
+
+    ``at_end[i]`` = 1/G(T_i) for subjects whose outcome or competing event is at or before the last
+    horizon (0 otherwise); ``at_horizon[k]`` = 1/G(h_k) for subjects still event-free after h_k.
+    """
+
+    at_end: np.ndarray
+    at_horizon: np.ndarray
+
+    def case(self, t: np.ndarray, status: np.ndarray, horizon: float) -> np.ndarray:
+        """Weights of the cases at horizon ``k``: outcome (code 1) at or before it."""
+        return np.where((status == 1) & (t <= horizon), self.at_end, 0.0)
+
+    def control(self, t: np.ndarray, status: np.ndarray, k: int, horizon: float) -> np.ndarray:
+        """Weights of the controls: event-free after the horizon, or a competing event (code 2) before it."""
+        return np.where(t > horizon, self.at_horizon[k], np.where((status == 2) & (t <= horizon), self.at_end, 0.0))
+
+
+def horizon_weights(t, status, horizons, train_time, train_event) -> HorizonWeights:
+    """Censoring weights from the Kaplan–Meier of censoring (training data if given)."""
     g_curve = _censoring_curve(t, status, train_time, train_event)
-    return inverse_censoring_weights(g_curve, t, (status == 1) & (t <= last_horizon))
+    at_end = inverse_censoring_weights(g_curve, t, (status != 0) & (t <= horizons[-1]))
+    g_h = censoring_weights_at(g_curve, horizons, what="horizons")
+    if (g_h <= 0).any():
+        raise MetricInputError(
+            f"no follow-up remains uncensored at horizon(s) {horizons[g_h <= 0].tolist()}: choose shorter horizons"
+        )
+    return HorizonWeights(at_end, 1.0 / g_h)
+
+
+def observed_incidence(t: np.ndarray, status: np.ndarray) -> StepCurve:
+    """Observed risk curve of the outcome: Aalen–Johansen with competing events, else 1 − Kaplan–Meier."""
+    if (status == 2).any():
+        return aalen_johansen(t, status, cause=1)
+    km = kaplan_meier(t, status)
+    return StepCurve(km.times, 1.0 - km.values, km.variance, 0.0, km.last_time)
 
 
 def _prepare_horizon_inputs(time, event, risk, horizons, *, probability: bool):
     t = as_time(time)
-    status = as_status(event, t.size, allow_competing=False)
+    status = as_status(event, t.size, allow_competing=True)
     h = as_horizons(horizons, t)
     order = np.argsort(h, kind="stable")
     r = as_risk(risk, t.size, h.size, probability=probability)
@@ -79,7 +124,7 @@ def auc_cumulative_dynamic(
     Parameters
     ----------
     time, event
-        Evaluation follow-up (days) and status (0/1).
+        Evaluation follow-up (days) and status (0 censored, 1 outcome, 2 competing event).
     risk
         Higher = worse; 1-D (one score for all horizons) or shape (n, len(horizons)).
     horizons
@@ -92,28 +137,27 @@ def auc_cumulative_dynamic(
     AUCResult
     """
     t, status, r, h = _prepare_horizon_inputs(time, event, risk, horizons, probability=False)
-    w = _case_weights(t, status, h[-1], train_time, train_event)
+    weights = horizon_weights(t, status, h, train_time, train_event)
     aucs, n_cases, n_ctrl = np.empty(h.size), np.empty(h.size, dtype=int), np.empty(h.size, dtype=int)
     rank = _dense_rank(r, TIED_TOL) if r.ndim == 1 else None
     for k, hz in enumerate(h):
         rk = rank if rank is not None else _dense_rank(r[:, k], TIED_TOL)
-        is_case = (status == 1) & (t <= hz)
-        is_ctrl = t > hz
-        ctrl_per_rank = np.bincount(rk[is_ctrl], minlength=int(rk.max()) + 1).astype(float)
-        below = np.cumsum(ctrl_per_rank) - ctrl_per_rank
-        wc = w[is_case]
-        n_c = float(is_ctrl.sum())
-        if n_c == 0:
+        case_w = weights.case(t, status, hz)
+        ctrl_w = weights.control(t, status, k, hz)
+        if not (ctrl_w > 0).any():
             raise MetricInputError(f"no subject is event-free after horizon {hz:g}: AUC is undefined there")
-        rc = rk[is_case]
-        aucs[k] = float(np.sum(wc * (below[rc] + 0.5 * ctrl_per_rank[rc])) / (wc.sum() * n_c))
-        n_cases[k], n_ctrl[k] = int(is_case.sum()), int(n_c)
+        ctrl_per_rank = np.bincount(rk, weights=ctrl_w, minlength=int(rk.max()) + 1)
+        below = np.cumsum(ctrl_per_rank) - ctrl_per_rank
+        is_case = case_w > 0
+        rc, wc = rk[is_case], case_w[is_case]
+        aucs[k] = float(np.sum(wc * (below[rc] + 0.5 * ctrl_per_rank[rc])) / (wc.sum() * ctrl_w.sum()))
+        n_cases[k], n_ctrl[k] = int(is_case.sum()), int((ctrl_w > 0).sum())
     if h.size == 1:
         integrated = float(aucs[0])
     else:
-        s = kaplan_meier(t, status)(h)
-        drops = -np.diff(np.r_[1.0, s])
-        integrated = float(np.sum(aucs * drops) / (1.0 - s[-1]))
+        incidence = observed_incidence(t, status)(h)
+        rises = np.diff(np.r_[0.0, incidence])
+        integrated = float(np.sum(aucs * rises) / incidence[-1])
     table = pd.DataFrame({"horizon": h, "auc": aucs, "n_cases": n_cases, "n_controls": n_ctrl})
     return AUCResult(table=table, integrated=integrated)
 
@@ -136,18 +180,16 @@ def roc_at_horizon(
         of cases with risk >= threshold), ``specificity`` (share of controls with risk < threshold).
     """
     t, status, r, h = _prepare_horizon_inputs(time, event, risk, horizon, probability=False)
-    w = _case_weights(t, status, h[-1], train_time, train_event)
+    weights = horizon_weights(t, status, h, train_time, train_event)
     if r.ndim == 2:
         r = r[:, 0]
     hz = float(h[0])
-    is_case = (status == 1) & (t <= hz)
-    is_ctrl = t > hz
     thresholds, rk = np.unique(r, return_inverse=True)
-    case_w = np.bincount(rk, weights=np.where(is_case, w, 0.0), minlength=thresholds.size)
-    ctrl_n = np.bincount(rk, weights=is_ctrl.astype(float), minlength=thresholds.size)
+    case_w = np.bincount(rk, weights=weights.case(t, status, hz), minlength=thresholds.size)
+    ctrl_n = np.bincount(rk, weights=weights.control(t, status, 0, hz), minlength=thresholds.size)
     # positives at threshold c are risk >= c: reverse cumulative sums over descending thresholds
     tp = np.cumsum(case_w[::-1]) / case_w.sum()
-    fp = np.cumsum(ctrl_n[::-1]) / max(ctrl_n.sum(), 1.0)
+    fp = np.cumsum(ctrl_n[::-1]) / ctrl_n.sum()
     return pd.DataFrame(
         {
             "threshold": np.r_[np.inf, thresholds[::-1]],

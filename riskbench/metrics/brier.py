@@ -2,7 +2,9 @@
 the scaled Brier score (index of prediction accuracy, Kattan & Gerds 2018) against a Kaplan–Meier null model.
 
 Agrees with scikit-survival's ``brier_score`` and ``integrated_brier_score`` (which take survival
-probabilities; here ``risk`` = 1 − survival).
+probabilities; here ``risk`` = 1 − survival). With competing events (code 2) the outcome indicator is
+"outcome by the horizon", a competing event before the horizon counts as a known non-outcome weighted by
+1/G(T_j) (Schoop et al. 2011, Stat Med), and the null model is the Aalen–Johansen cumulative incidence.
 """
 
 from __future__ import annotations
@@ -10,20 +12,15 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from riskbench.metrics.auc import _prepare_horizon_inputs
-from riskbench.metrics.censoring import censoring_weights_at, kaplan_meier
-from riskbench.metrics.concordance import _censoring_curve
+from riskbench.metrics.auc import HorizonWeights, _prepare_horizon_inputs, horizon_weights, observed_incidence
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_status, as_time
 from riskbench.metrics.risk_direction import check_risk_direction
 
 
-def _ipcw_brier(t, status, risk_col, horizon, g_at_obs, g_at_h) -> float:
-    is_case = (status == 1) & (t <= horizon)
-    is_ctrl = t > horizon
-    with np.errstate(divide="ignore", invalid="ignore"):
-        case_term = np.where(is_case, (1.0 - risk_col) ** 2 / g_at_obs, 0.0)
-    ctrl_term = np.where(is_ctrl, risk_col**2 / g_at_h if g_at_h > 0 else 0.0, 0.0)
-    return float(np.mean(case_term + ctrl_term))
+def _ipcw_brier(t, status, risk_col, horizon, k, weights: HorizonWeights) -> float:
+    case_w = weights.case(t, status, horizon)
+    ctrl_w = weights.control(t, status, k, horizon)
+    return float(np.mean(case_w * (1.0 - risk_col) ** 2 + ctrl_w * risk_col**2))
 
 
 def brier_score(
@@ -41,7 +38,7 @@ def brier_score(
     Parameters
     ----------
     time, event
-        Evaluation follow-up (days) and status (0/1).
+        Evaluation follow-up (days) and status (0 censored, 1 outcome, 2 competing event).
     risk
         Predicted probability of the outcome by each horizon: 1-D for one horizon, else shape
         (n, len(horizons)). Not a survival probability.
@@ -55,8 +52,8 @@ def brier_score(
     Returns
     -------
     DataFrame
-        ``horizon``, ``brier``, ``brier_null`` (every subject predicted the Kaplan–Meier risk by the
-        horizon), ``scaled_brier`` = 1 − brier / brier_null (index of prediction accuracy; 0 = no better
+        ``horizon``, ``brier``, ``brier_null`` (every subject predicted the Kaplan–Meier (or
+        Aalen–Johansen) risk by the horizon), ``scaled_brier`` = 1 − brier / brier_null (index of prediction accuracy; 0 = no better
         than the null model, 1 = perfect).
     """
     t, status, r, h = _prepare_horizon_inputs(time, event, risk, horizons, probability=True)
@@ -69,19 +66,17 @@ def brier_score(
         r = r[:, None]
     if check_direction:
         check_risk_direction(t, status, r[:, -1])
-    g_curve = _censoring_curve(t, status, train_time, train_event)
-    g_obs = censoring_weights_at(g_curve, t, what="follow-up times")
-    g_h = censoring_weights_at(g_curve, h, what="horizons")
+    weights = horizon_weights(t, status, h, train_time, train_event)
     if train_time is None:
-        null_curve = kaplan_meier(t, status)
+        null_curve = observed_incidence(t, status)
     else:
         tt = as_time(train_time, "train_time")
-        null_curve = kaplan_meier(tt, as_status(train_event, tt.size, allow_competing=True, name="train_event"))
+        null_curve = observed_incidence(tt, as_status(train_event, tt.size, allow_competing=True, name="train_event"))
     rows = []
     for k, hz in enumerate(h):
-        b = _ipcw_brier(t, status, r[:, k], hz, g_obs, g_h[k])
-        null_risk = np.full(t.size, 1.0 - float(null_curve(hz)))
-        b0 = _ipcw_brier(t, status, null_risk, hz, g_obs, g_h[k])
+        b = _ipcw_brier(t, status, r[:, k], hz, k, weights)
+        null_risk = np.full(t.size, float(null_curve(hz)))
+        b0 = _ipcw_brier(t, status, null_risk, hz, k, weights)
         rows.append((hz, b, b0, 1.0 - b / b0 if b0 > 0 else np.nan))
     return pd.DataFrame(rows, columns=["horizon", "brier", "brier_null", "scaled_brier"])
 
