@@ -20,6 +20,11 @@ Choices (documented because they shape the predictions):
   covariates.
 * Seeded: ``random_state`` fixes bootstrap samples and split candidates; ``max_samples`` subsamples rows per
   tree (an int count or a fraction), which bounds time and memory on large stacks.
+* Parallel in blocks: scikit-survival's tree builder holds the interpreter lock, so threads do not speed it
+  up. The trees are grown in blocks of at most 25, each a small forest with its own seed spawned from
+  ``random_state`` (``numpy.random.SeedSequence``); blocks run in ``n_jobs`` worker processes and are merged
+  into one forest. The block layout depends only on ``n_estimators`` and ``random_state``, so the fitted
+  forest is the same for every ``n_jobs``.
 """
 
 from __future__ import annotations
@@ -41,6 +46,8 @@ from riskbench.models.risk_contract import (
 
 __all__ = ["SurvivalForest", "coarsen_times"]
 
+_TREES_PER_BLOCK = 25  # trees per independently seeded block (fixed, so results do not depend on n_jobs)
+
 
 def coarsen_times(time: ArrayLike, grid_days: float | None) -> np.ndarray:
     """Round times (days) up to the next multiple of ``grid_days`` (at least one step); None keeps them.
@@ -54,6 +61,13 @@ def coarsen_times(time: ArrayLike, grid_days: float | None) -> np.ndarray:
         raise ModelInputError(f"grid_days must be a positive number of days or None, got {grid_days!r}")
     steps = np.maximum(np.ceil(time / grid_days - 1e-9), 1.0)
     return steps * grid_days
+
+
+def _grow_block(x: np.ndarray, target: np.ndarray, n_trees: int, seed: int, params: dict):
+    """One seeded block of trees (a scikit-survival forest fitted in a single thread)."""
+    from sksurv.ensemble import RandomSurvivalForest
+
+    return RandomSurvivalForest(n_estimators=n_trees, random_state=seed, n_jobs=1, **params).fit(x, target)
 
 
 class SurvivalForest(BaseEstimator):
@@ -77,7 +91,7 @@ class SurvivalForest(BaseEstimator):
     random_state : int
         Seed for bootstrap samples and split candidates.
     n_jobs : int
-        Worker processes/threads for fitting and prediction.
+        Worker processes for growing the trees (blocks of 25 trees; see module notes).
 
     Attributes (after fit)
     ----------------------
@@ -111,8 +125,6 @@ class SurvivalForest(BaseEstimator):
 
     def fit(self, stack: pd.DataFrame) -> SurvivalForest:
         """Fit on a landmark stack (``time``, ``status`` + covariates); returns self."""
-        from sksurv.ensemble import RandomSurvivalForest
-
         time, status = check_stack_outcome(stack)
         x = check_covariates(stack, list(self.covariates), what="landmark stack")
         event = status == 1  # cause-specific: the competing event censors the outcome
@@ -121,22 +133,40 @@ class SurvivalForest(BaseEstimator):
         coarse = coarsen_times(time, self.grid_days)
         target = np.empty(len(coarse), dtype=[("event", bool), ("time", float)])
         target["event"], target["time"] = event, coarse
+        self.forest_ = self._grow(x, target)
+        self.event_times_ = np.asarray(self.forest_.unique_times_, dtype=float)
+        self.max_time_ = float(coarse.max())
+        return self
+
+    def _grow(self, x: np.ndarray, target: np.ndarray):
+        """Grow the trees in seeded blocks (in parallel processes when n_jobs > 1) and merge them."""
+        from joblib import Parallel, delayed
+
+        if int(self.n_estimators) < 1:
+            raise ModelInputError(f"n_estimators must be at least 1, got {self.n_estimators!r}")
         max_samples = self.max_samples
-        if isinstance(max_samples, int) and max_samples > len(stack):
+        if isinstance(max_samples, (int, np.integer)) and max_samples > len(x):
             max_samples = None  # fewer rows than requested: use them all
-        self.forest_ = RandomSurvivalForest(
-            n_estimators=self.n_estimators,
+        sizes = [_TREES_PER_BLOCK] * (int(self.n_estimators) // _TREES_PER_BLOCK)
+        if int(self.n_estimators) % _TREES_PER_BLOCK:
+            sizes.append(int(self.n_estimators) % _TREES_PER_BLOCK)
+        spawned = np.random.SeedSequence(self.random_state).spawn(len(sizes))
+        seeds = [int(child.generate_state(1)[0]) for child in spawned]
+        params = dict(
             max_samples=max_samples,
             min_samples_leaf=self.min_samples_leaf,
             min_samples_split=2 * self.min_samples_leaf,
             max_features=self.max_features,
             max_depth=self.max_depth,
-            random_state=self.random_state,
-            n_jobs=self.n_jobs,
-        ).fit(x, target)
-        self.event_times_ = np.asarray(self.forest_.unique_times_, dtype=float)
-        self.max_time_ = float(coarse.max())
-        return self
+        )
+        n_workers = max(1, min(int(self.n_jobs), len(sizes)))
+        blocks = Parallel(n_jobs=n_workers, backend="loky" if n_workers > 1 else "sequential")(
+            delayed(_grow_block)(x, target, size, seed, params) for size, seed in zip(sizes, seeds)
+        )
+        forest = blocks[0]
+        forest.estimators_ = [tree for block in blocks for tree in block.estimators_]
+        forest.n_estimators = len(forest.estimators_)
+        return forest
 
     def _check_fitted(self) -> None:
         if not hasattr(self, "forest_"):

@@ -45,6 +45,15 @@ def test_same_seed_same_forest_other_seed_other_forest(make_stack) -> None:
     assert not np.allclose(a, c)
 
 
+def test_worker_count_does_not_change_the_forest(make_stack) -> None:
+    """Trees grow in seeded blocks of 25 whatever n_jobs is, so 1 and 2 workers give the same forest."""
+    stack = make_stack(n_patients=100, seed=16)
+    one = _small_forest(n_estimators=30, n_jobs=1).fit(stack)
+    two = _small_forest(n_estimators=30, n_jobs=2).fit(stack)
+    assert len(one.forest_.estimators_) == 30 == one.forest_.n_estimators
+    np.testing.assert_array_equal(one.predict_curve(stack, [200.0, 600.0]), two.predict_curve(stack, [200.0, 600.0]))
+
+
 def test_forest_is_cause_specific_and_on_the_grid(make_stack) -> None:
     """The competing event is treated as censoring (a cause-specific forest); event times sit on the grid."""
     stack = make_stack(n_patients=150, seed=12, competing_rate=1 / 500)
