@@ -27,7 +27,7 @@ _CAUTION = (
 
 _PARAMETERS = '''# Parameters (papermill replaces this cell's values when it runs the analysis).
 # By hand (make lab): run the notebooks in order; each reads the previous stage's files in run_dir.
-config_path = "../demo_data/analysis.toml"
+config_path = "../configs/demo.toml"
 run_dir = "../results/lab"'''
 
 _STAGES: dict[str, tuple[str, str, str]] = {

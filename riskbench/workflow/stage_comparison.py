@@ -67,13 +67,13 @@ def auc_table(time: np.ndarray, event: np.ndarray, horizons: np.ndarray,
     return pd.concat(frames, ignore_index=True)
 
 
-def discrimination_table(time: np.ndarray, event: np.ndarray, horizons: np.ndarray,
+def discrimination_table(time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
                          risks: dict[str, np.ndarray], report_days: tuple[float, ...]) -> pd.DataFrame:
     """Every measure of :func:`riskbench.validation.performance.evaluate_risks` at the report horizons."""
     frames = []
     for model, risk in risks.items():
         by_h = {h: risk[:, _column(horizons, h)] for h in report_days}
-        frame = evaluate_risks(time, event, by_h)
+        frame = evaluate_risks(time, status, by_h)
         frame.insert(0, "model", model)
         frames.append(frame)
     table = pd.concat(frames, ignore_index=True)
@@ -118,50 +118,59 @@ def comparison_table(comparison, reference: str, candidate: str) -> pd.DataFrame
 def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
     """Run stage 4 (see the module docstring) and write the report; return what it wrote."""
     from riskbench import metrics
-    from riskbench.report.calibration_plot import calibration_plot
-    from riskbench.report.decision_curve_plot import decision_curve_plot
+    from riskbench.report.calibration_plot import calibration_figure
+    from riskbench.report.decision_curve_plot import decision_curve_figure
 
     run_dir = Path(run_dir)
     threshold = config.report.small_count_threshold
     stack = load_data(run_dir, "landmark_stack")
     cp = load_data(run_dir, "counting_process")
     cv = load_data(run_dir, "cv_predictions")
-    time, event = stack_outcome(stack)
+    time, status = stack_outcome(stack)
+    event = (status == 1).astype(int)  # discrimination scores the outcome; competing events count as censored
     horizons, risks = risk_matrices(cv, len(stack))
     result = StageResult(stage="comparison", run_dir=run_dir)
 
     auc = auc_table(time, event, horizons, risks)
     result.tables["auc_by_horizon"] = auc.assign(horizon_years=auc["horizon"] / DAYS_PER_YEAR)
     result.figures["auc_curves"] = save_figure(auc_curve_figure(auc), run_dir, "auc_curves")
-    result.tables["discrimination"] = discrimination_table(time, event, horizons, risks,
+    result.tables["discrimination"] = discrimination_table(time, status, horizons, risks,
                                                            config.report.horizons_days)
 
+    # calibration, net benefit and triage use status 0/1/2: observed risk by Aalen-Johansen, so that a
+    # cumulative-incidence prediction is compared with a cumulative incidence
     summaries = []
     for h in config.report.horizons_days:
         t_eval = evaluation_time(h, time)
-        calibrations = {m: metrics.calibration_at_horizon(time, event, r[:, _column(horizons, h)], t_eval)
-                        for m, r in risks.items()}
-        result.figures[f"calibration_{years_label(h)}"] = save_figure(
-            calibration_plot(calibrations, horizon=h), run_dir, f"calibration_{years_label(h)}")
-        summaries += [{"model": m, "horizon_years": h / DAYS_PER_YEAR, "ici": c.ici, "e50": c.e50, "e90": c.e90,
-                       "slope": c.slope, "observed_expected_ratio": c.oe_ratio} for m, c in calibrations.items()]
+        for model, risk in risks.items():
+            r = risk[:, _column(horizons, h)]
+            cal = metrics.calibration_at_horizon(time, status, r, t_eval)
+            name = f"calibration_{model}_{years_label(h)}"
+            result.figures[name] = save_figure(
+                calibration_figure(cal, r, model_name=model, min_group_size=threshold), run_dir, name)
+            summaries.append({"model": model, "horizon_years": h / DAYS_PER_YEAR, "observed_expected": cal.oe_ratio,
+                              "oe_lower": cal.oe_lower, "oe_upper": cal.oe_upper, "slope": cal.slope,
+                              "slope_se": cal.slope_se, "ici": cal.ici, "e50": cal.e50, "e90": cal.e90})
     result.tables["calibration_summary"] = pd.DataFrame(summaries)
 
     main = max(config.report.horizons_days)
     t_main = evaluation_time(main, time)
     thresholds = np.round(np.linspace(0.01, config.report.decision_threshold_max, 50), 4)
-    curves = {m: metrics.net_benefit(time, event, r[:, _column(horizons, main)], t_main, thresholds)
-              for m, r in risks.items()}
+    curves = pd.concat([metrics.net_benefit(time, status, r[:, _column(horizons, main)], t_main, thresholds)
+                        .assign(model_name=m) for m, r in risks.items()], ignore_index=True)
     name = f"decision_curve_{years_label(main)}"
-    result.figures[name] = save_figure(decision_curve_plot(curves, horizon=main), run_dir, name)
+    result.tables[name] = curves
+    result.figures[name] = save_figure(decision_curve_figure(curves, horizon_days=main), run_dir, name)
 
     triage = []
     for m, r in risks.items():
-        op = metrics.triage_operating_point(time, event, r[:, _column(horizons, main)], t_main,
+        op = metrics.triage_operating_point(time, status, r[:, _column(horizons, main)], t_main,
                                             target_npv=config.report.triage_target_npv,
                                             n_boot=max(config.validation.bootstrap_reps, 20),
                                             seed=config.validation.seed)
-        triage.append(op.assign(model=m, horizon_years=main / DAYS_PER_YEAR))
+        op.insert(0, "model", m)
+        op.insert(1, "horizon_years", main / DAYS_PER_YEAR)
+        triage.append(op)
     triage_table = pd.concat(triage, ignore_index=True)
     result.tables["triage_operating_point"] = suppress_counts(triage_table, count_columns(triage_table), threshold)
 

@@ -49,12 +49,19 @@ def outcome_hazard_ratios(summary: pd.DataFrame) -> pd.DataFrame:
     return summary.reset_index(drop=True)
 
 
-def hazard_ratio_figure(tables: dict[str, pd.DataFrame]):
-    """Forest plot of the outcome hazard ratios of every model that has them."""
-    from riskbench.report.hazard_ratio_plot import hazard_ratio_plot
+def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, tuple[str, ...]]):
+    """Forest plot of each model's outcome hazard ratios for its covariates (main terms).
 
-    frames = [t.assign(model=name) for name, t in tables.items()]
-    return hazard_ratio_plot(pd.concat(frames, ignore_index=True))
+    For a landmark super-model the main term of a covariate is its effect at landmark 0 (entry); the
+    landmark interactions are in the coefficient tables.
+    """
+    from riskbench.report.hazard_ratio_plot import hazard_ratio_figure as forest
+
+    main = {}
+    for name, table in tables.items():
+        rows = table.set_index("term") if "term" in table.columns else table
+        main[name] = rows.loc[[c for c in covariates[name] if c in rows.index]]
+    return forest(main, title="Outcome hazard ratios (landmark models: at entry)")
 
 
 def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
@@ -78,12 +85,9 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
             result.notes.append(f"Model {spec.name!r} ({spec.family}) has no coefficients to show.")
     save_data(pd.concat(predictions, ignore_index=True), run_dir, "apparent_predictions")
     if hazard_ratios:
-        try:
-            figure = hazard_ratio_figure(hazard_ratios)
-        except ImportError as exc:  # the plotting module of the Cox stage is not installed in this build
-            result.notes.append(f"Hazard-ratio figure not drawn: {exc}.")
-        else:
-            result.figures["hazard_ratios"] = save_figure(figure, run_dir, "hazard_ratios")
+        covariates = {m.name: m.covariates for m in config.models}
+        result.figures["hazard_ratios"] = save_figure(hazard_ratio_figure(hazard_ratios, covariates), run_dir,
+                                                      "hazard_ratios")
     for name, table in result.tables.items():
         save_table(table, run_dir, name)
     return result

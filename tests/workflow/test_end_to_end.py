@@ -1,0 +1,117 @@
+"""The demo analysis end to end through papermill (the one slow test of this folder, budget 3 minutes).
+
+One module-scoped run of configs/demo.toml with a small bootstrap feeds every check: the report has every
+section and renders in headless chromium with every figure loaded; no input patient id appears in any
+output; the stage functions run again in-process give byte-identical tables (same configuration and data,
+same tables); changing the horizon changes the outputs that depend on it.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from riskbench.report.html_report import SECTIONS
+from riskbench.report.render_check import check_report_renders
+from riskbench.workflow.config import load_config
+from riskbench.workflow.runner import run_analysis
+from riskbench.workflow.stages import STAGE_FUNCTIONS
+
+ROOT = Path(__file__).resolve().parents[2]
+DEMO = ROOT / "configs" / "demo.toml"
+DATA = ROOT / "demo_data" / "clean"
+
+
+def small_config(folder: Path, *, horizon_years: float = 2.0) -> Path:
+    """configs/demo.toml with absolute data paths, 3 folds and 2 bootstrap resamples."""
+    text = DEMO.read_text().replace("../demo_data/", f"{ROOT / 'demo_data'}/")
+    text = re.sub(r"(?m)^bootstrap_reps = \d+", "bootstrap_reps = 2", text)
+    text = re.sub(r"(?m)^folds = \d+", "folds = 3", text)
+    if horizon_years != 2.0:
+        text = re.sub(r"(?m)^horizon_years = [\d.]+", f"horizon_years = {horizon_years}", text)
+        text = re.sub(r"(?m)^horizons_years = \[.*\]", f"horizons_years = [1.0, {horizon_years}]", text)
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / "analysis.toml"
+    path.write_text(text)
+    return path
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    if not (DATA / "patients.csv").is_file():
+        pytest.skip("the committed demo cohort (demo_data/clean) is not in this checkout")
+    base = tmp_path_factory.mktemp("e2e")
+    config = small_config(base)
+    result = run_analysis(config, base / "results" / "demo", log=None)
+    return {"base": base, "config": config, "result": result, "run": result.run_dir}
+
+
+def test_report_has_every_section_and_the_run_folder_is_complete(demo_run):
+    run = demo_run["run"]
+    page = (run / "report.html").read_text()
+    for section in SECTIONS:
+        assert f'id="{section.anchor}"' in page, section.anchor
+    assert "Not produced in this run" not in page
+    assert "not a medical device" in page
+    for name in ("01_cohort", "02_models", "03_validation", "04_comparison"):
+        assert (run / "notebooks" / f"{name}.ipynb").is_file() and (run / "notebooks" / f"{name}.html").is_file()
+    for png in (run / "figures").glob("*.png"):
+        assert png.with_suffix(".svg").is_file()
+    manifest = json.loads((run / "manifest.json").read_text())
+    assert manifest["status"] == "complete"
+    assert list(manifest["stage_seconds"]) == ["cohort", "models", "validation", "comparison"]
+    assert set(manifest["input_sha256"]) == {"configuration", "patients", "measurements", "outcomes"}
+
+
+def test_no_input_patient_id_appears_in_any_output(demo_run):
+    ids = set(pd.read_csv(DATA / "patients.csv", dtype=str)["patient_id"])
+    ids |= set(pd.read_csv(DATA / "outcomes.csv", dtype=str)["patient_id"])
+    pattern = re.compile("|".join(sorted(map(re.escape, ids), key=len, reverse=True)).encode())
+    run = demo_run["run"]
+    files = [p for p in run.rglob("*") if p.is_file()]
+    assert len(files) > 20
+    for path in files:
+        found = pattern.search(path.read_bytes())
+        assert found is None, f"{path.relative_to(run)} contains input id {found.group().decode()}"
+    for parquet in (run / "data").glob("*.parquet"):  # compressed pages: check the decoded ids too
+        table = pd.read_parquet(parquet)
+        if "patient_id" in table.columns:
+            assert not ids & set(table["patient_id"].astype(str)), parquet.name
+
+
+def test_every_figure_of_the_report_loads_in_headless_chromium(demo_run, chromium):
+    check = check_report_renders(demo_run["run"] / "report.html", chromium)
+    assert check.images >= 8 and check.broken == 0
+
+
+def test_same_configuration_and_data_give_identical_tables(demo_run):
+    """The stage functions run in-process reproduce the papermill run's tables byte for byte."""
+    config = load_config(demo_run["config"])
+    again = demo_run["base"] / "again"
+    for stage in STAGE_FUNCTIONS.values():
+        stage(config, again)
+    first = {p.name: p.read_bytes() for p in (demo_run["run"] / "tables").glob("*.csv")}
+    second = {p.name: p.read_bytes() for p in (again / "tables").glob("*.csv")}
+    assert first.keys() == second.keys() and len(first) >= 10
+    for name in first:
+        assert first[name] == second[name], name
+
+
+def test_changing_the_horizon_changes_the_outputs_that_depend_on_it(demo_run):
+    config = load_config(small_config(demo_run["base"] / "h15", horizon_years=1.5))
+    out = demo_run["base"] / "h15" / "run"
+    STAGE_FUNCTIONS["cohort"](config, out)
+    STAGE_FUNCTIONS["models"](config, out)
+    run = demo_run["run"]
+    for table in ("landmark_summary.csv", "coefficients_imaging_clinical.csv"):
+        assert (out / "tables" / table).read_bytes() != (run / "tables" / table).read_bytes(), table
+    stack = pd.read_parquet(out / "data" / "landmark_stack.parquet")
+    assert stack["time"].max() <= 1.5 * 365.25 + 1e-9
+    assert pd.read_parquet(run / "data" / "landmark_stack.parquet")["time"].max() > 1.5 * 365.25
+    # what does not depend on the horizon stays the same
+    assert (out / "tables" / "baseline_characteristics.csv").read_bytes() == \
+        (run / "tables" / "baseline_characteristics.csv").read_bytes()
