@@ -18,13 +18,16 @@ setup: $(STAMP)
 test: $(STAMP)
 	$(BIN)/python -m pytest
 
+# The whole analysis of configs/demo.toml on the committed demo cohort; the last line printed is the report.
 demo: $(STAMP)
-	$(BIN)/riskbench demo-summary --data demo_data/clean --out results/demo
+	$(BIN)/riskbench run-analysis configs/demo.toml --out results/demo --overwrite
 
+# JupyterLab on notebooks/ with this environment as the "riskbench" kernel; run 01..04 in order
+# (each reads the previous stage's files in results/lab/).
 lab: $(STAMP)
 	$(BIN)/python -m pip install --quiet -e '.[lab]'
-	$(BIN)/python -m ipykernel install --sys-prefix --name riskbench --display-name "riskbench (.venv)"
-	$(BIN)/jupyter lab notebooks/
+	$(BIN)/python -m ipykernel install --sys-prefix --name riskbench --display-name "riskbench (this environment)"
+	$(BIN)/jupyter lab --notebook-dir=notebooks
 
 benchmarks: $(STAMP)
 	for f in benchmarks/*.py; do $(BIN)/python $$f || exit 1; done

@@ -64,7 +64,9 @@ SECTIONS: tuple[Section, ...] = (
             "landmark, and the concordance and Brier scores at the report horizons.",
             figures=("auc_curves",), tables=("discrimination", "brier")),
     Section("calibration", "Calibration at each horizon",
-            "Predicted against observed risk of the outcome by the horizon (cross-validated predictions).",
+            "Predicted against observed risk of the outcome by the horizon (cross-validated predictions). The "
+            "curves, slopes and ICI count competing events as censored; the observed/expected ratio in the table "
+            "compares the predicted cumulative incidence with the Aalen–Johansen estimate.",
             figures=("calibration_*",), tables=("calibration_summary",)),
     Section("decision-curves", "Decision curves",
             "Net benefit of acting on the model's risk over a range of risk thresholds, against treating "

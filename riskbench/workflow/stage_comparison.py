@@ -137,20 +137,23 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     result.tables["discrimination"] = discrimination_table(time, status, horizons, risks,
                                                            config.report.horizons_days)
 
-    # calibration, net benefit and triage use status 0/1/2: observed risk by Aalen-Johansen, so that a
-    # cumulative-incidence prediction is compared with a cumulative incidence
+    # Observed/expected uses status 0/1/2 (observed risk by Aalen-Johansen, comparable with a predicted
+    # cumulative incidence); the smoothed curve, slope and ICI are cause-specific (competing events
+    # censored), as in riskbench.validation.performance. Net benefit and triage use 0/1/2.
     summaries = []
     for h in config.report.horizons_days:
         t_eval = evaluation_time(h, time)
         for model, risk in risks.items():
             r = risk[:, _column(horizons, h)]
-            cal = metrics.calibration_at_horizon(time, status, r, t_eval)
+            whole = metrics.calibration_at_horizon(time, status, r, t_eval, n_boot=0)
+            cause = metrics.calibration_at_horizon(time, event, r, t_eval, seed=config.validation.seed)
             name = f"calibration_{model}_{years_label(h)}"
             result.figures[name] = save_figure(
-                calibration_figure(cal, r, model_name=model, min_group_size=threshold), run_dir, name)
-            summaries.append({"model": model, "horizon_years": h / DAYS_PER_YEAR, "observed_expected": cal.oe_ratio,
-                              "oe_lower": cal.oe_lower, "oe_upper": cal.oe_upper, "slope": cal.slope,
-                              "slope_se": cal.slope_se, "ici": cal.ici, "e50": cal.e50, "e90": cal.e90})
+                calibration_figure(cause, r, model_name=model, min_group_size=threshold), run_dir, name)
+            summaries.append({"model": model, "horizon_years": h / DAYS_PER_YEAR,
+                              "observed_expected": whole.oe_ratio, "oe_lower": whole.oe_lower,
+                              "oe_upper": whole.oe_upper, "slope": cause.slope, "slope_se": cause.slope_se,
+                              "ici": cause.ici, "e50": cause.e50, "e90": cause.e90})
     result.tables["calibration_summary"] = pd.DataFrame(summaries)
 
     main = max(config.report.horizons_days)
