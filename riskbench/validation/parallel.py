@@ -73,6 +73,19 @@ def seed_to_int(seq: np.random.SeedSequence) -> int:
     return int(seq.generate_state(1, dtype=np.uint32)[0] & 0x7FFFFFFF)
 
 
+def _single_threaded(func: ReplicateFunction, shared: Any, index: int, seed: np.random.SeedSequence) -> Any:
+    """Run one replicate with BLAS/OpenMP limited to one thread.
+
+    Worker processes of joblib and Dask already run their numerical libraries single-threaded; doing the
+    same in the serial path makes every floating-point reduction happen in the same order, so results are
+    bit-for-bit identical whatever executes them (and parallel workers do not oversubscribe the cores).
+    """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):
+        return func(shared, index, seed)
+
+
 def _show_progress(config: ExecutionConfig) -> bool:
     if config.progress is not None:
         return config.progress
@@ -118,11 +131,14 @@ def run_replicates(
     if config.scheduler_address is not None:
         return _run_dask(func, shared, seeds, config.scheduler_address, show, description)
     if config.n_jobs == 1:
-        return [func(shared, i, s) for i, s in tqdm(list(enumerate(seeds)), desc=description, disable=not show)]
+        return [
+            _single_threaded(func, shared, i, s)
+            for i, s in tqdm(list(enumerate(seeds)), desc=description, disable=not show)
+        ]
     from joblib import Parallel, delayed
 
     parallel = Parallel(n_jobs=config.n_jobs, backend="loky", return_as="generator")
-    results = parallel(delayed(func)(shared, i, s) for i, s in enumerate(seeds))
+    results = parallel(delayed(_single_threaded)(func, shared, i, s) for i, s in enumerate(seeds))
     return list(tqdm(results, total=n, desc=description, disable=not show))
 
 
@@ -144,7 +160,7 @@ def _run_dask(
     with Client(address, set_as_default=False) as client:
         shared_future = client.scatter(shared, broadcast=True)
         futures = [
-            client.submit(func, shared_future, i, s, pure=False)
+            client.submit(_single_threaded, func, shared_future, i, s, pure=False)
             for i, s in enumerate(seeds)
         ]
         results = []
