@@ -14,7 +14,14 @@ rows leaving at ``hi`` minus the rows that have not entered yet (``lo``), so one
 iteration costs O(n·p²) with no per-event-time mask over the rows.  The
 second-moment sums are never formed per event time: ``sum_k c_k S2_k`` equals
 ``X' diag(v * sum_{k=lo}^{hi} c_k) X``.  Efron's tie correction is applied only
-over the tied event rows (one entry per event row).
+over the tied event rows (one entry per event row).  The per-key differences are
+one product of a sparse (keys x rows) +1/-1 pattern with X, read in row order.
+
+Newton–Raphson starts at zero, halves a step while the objective falls, and stops
+when the relative change of the objective is <= ``tol`` and the largest step on the
+standardised scale is <= ``sqrt(tol)``.  The cluster-robust (sandwich) variance is
+``V D'D V`` with D the per-row score residuals (weighted) summed per cluster
+(Lin & Wei 1989; R's ``coxph(..., cluster=)``).
 
 Conventions
 -----------
