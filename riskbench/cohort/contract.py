@@ -264,9 +264,9 @@ def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
 
 
 def build_ledger(con: duckdb.DuckDBPyConnection) -> None:
-    """Create ``ledger`` from the per-table states."""
+    """Create the view ``ledger`` over the per-table states (computed when read)."""
     con.execute("""
-        CREATE TEMP TABLE ledger AS
+        CREATE TEMP VIEW ledger AS
         SELECT 'patients' AS "table", row_number, patient_id, state FROM p1
         UNION ALL SELECT 'measurements', row_number, patient_id, state FROM m3
         UNION ALL SELECT 'outcomes', row_number, patient_id, state FROM o1""")
