@@ -213,10 +213,10 @@ def generate_cohort(
             "start": sim.interval_start,
             "stop": sim.interval_stop,
             "status": sim.interval_status,
-        }
+            **{name: sim.interval_covariates[:, j] for j, name in enumerate(COVARIATES)},
+        },
+        copy=False,
     )
-    for j, name in enumerate(COVARIATES):
-        intervals[name] = sim.interval_covariates[:, j]
     true_risk = None
     if paths:
         risk = oracle_risk(sim, marks, horizon, paths, np.random.default_rng(oracle_seed))

@@ -21,7 +21,7 @@ The result reports the Monte Carlo standard error beside each risk.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 import pandas as pd
@@ -35,6 +35,7 @@ from riskbench.demo.simulate import (
     covariate_matrix,
     day_key,
     piece_stops,
+    visit_rounds,
 )
 
 _RULE = np.polynomial.legendre.leggauss(4)
@@ -44,7 +45,7 @@ _PATHS_PER_CHUNK = 100_000
 
 
 def _conditional_next(
-    draw: callable, last_day: np.ndarray, after: np.ndarray  # type: ignore[valid-type]
+    draw: Callable[[np.ndarray, np.ndarray], np.ndarray], last_day: np.ndarray, after: np.ndarray
 ) -> np.ndarray:
     """Next visit day drawn by ``draw(last_day_subset, index)``, conditioned on being > ``after``."""
     out = draw(last_day, np.arange(last_day.size))
@@ -55,27 +56,6 @@ def _conditional_next(
         out[bad] = draw(last_day[bad], bad)
     # practically unreachable (probability < 1e-9); keep the path valid rather than loop forever
     return np.maximum(out, np.floor(after) + 1)
-
-
-def _future_visits(
-    step: callable,  # type: ignore[valid-type]
-    first_day: np.ndarray,
-    until: np.ndarray,
-) -> tuple[np.ndarray, np.ndarray, list[np.ndarray]]:
-    """Visits from ``first_day`` on while the day is <= ``until``; ``step(rows, day)`` measures and returns
-    (next_day, measured values...). Returns path index, day and the measured values of every visit."""
-    rows = np.flatnonzero(first_day <= until)
-    day = first_day[rows]
-    out: list[tuple[np.ndarray, ...]] = []
-    while rows.size:
-        nxt, *values = step(rows, day)
-        out.append((rows, day, *values))
-        keep = nxt <= until[rows]
-        rows, day = rows[keep], nxt[keep]
-    if not out:
-        return np.empty(0, np.int64), np.empty(0), []
-    cols = [np.concatenate(c) for c in zip(*out)]
-    return cols[0], cols[1], cols[2:]
 
 
 def _chunk_risk(
@@ -111,8 +91,10 @@ def _chunk_risk(
         marker = measure_lab(hidden, g[rows], day, p, rng)
         return next_lab_day(day, p, rng), marker
 
-    ex_path, ex_day, (ex_vol, ex_sus) = _pad(_future_visits(exam_step, first_exam, end), 2)
-    lb_path, lb_day, (lb_mark,) = _pad(_future_visits(lab_step, first_lab, end), 1)
+    # visits on whole days <= s + w, i.e. before floor(s + w) + 1
+    paths, limit = np.arange(m), np.floor(end) + 1
+    ex_path, ex_day, ex_vol, ex_sus = _or_empty(visit_rounds(exam_step, paths, first_exam, limit), 4)
+    lb_path, lb_day, lb_mark = _or_empty(visit_rounds(lab_step, paths, first_lab, limit), 3)
     # the state at s opens every path as an exam and a lab "on day s" (offset so days stay >= 0)
     # days relative to floor(s), so the state at s sits on day 0 and every future visit after it
     base = np.arange(m)
@@ -166,14 +148,11 @@ def _piece_incidence(
     return (hi - lo) / 2 * (integrand @ weights)
 
 
-def _pad(
-    visits: tuple[np.ndarray, np.ndarray, list[np.ndarray]], n_values: int
-) -> tuple[np.ndarray, np.ndarray, list[np.ndarray]]:
-    """Give an empty visit list the right number of value arrays."""
-    path_idx, day, values = visits
-    if not values:
-        values = [np.empty(0) for _ in range(n_values)]
-    return path_idx, day, values
+def _or_empty(columns: list[np.ndarray], n_columns: int) -> list[np.ndarray]:
+    """Visit columns, or empty ones when no path had a visit."""
+    if columns:
+        return columns
+    return [np.empty(0, np.int64)] + [np.empty(0) for _ in range(n_columns - 1)]
 
 
 def oracle_risk(

@@ -20,6 +20,7 @@ Order of the data-generating process (all patients at once, one visit round at a
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -182,39 +183,57 @@ def _iso_day(text: str) -> int:
     return int(np.datetime64(text, "D").astype(np.int64))
 
 
+def visit_rounds(
+    step: Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, ...]],
+    rows: np.ndarray,
+    day: np.ndarray,
+    limit: np.ndarray,
+) -> list[np.ndarray]:
+    """Repeated visits, one vectorised round at a time, while the visit day is before ``limit[row]``.
+
+    ``step(rows, day)`` measures the visit and returns ``(next_day, value, ...)``. Returns the
+    concatenated ``[row, day, value, ...]`` of every visit (grouped by round, not sorted).
+    """
+    keep = day < limit[rows]
+    rows, day = rows[keep], day[keep]
+    out: list[tuple[np.ndarray, ...]] = []
+    while rows.size:
+        nxt, *values = step(rows, day)
+        out.append((rows, day, *values))
+        keep = nxt < limit[rows]
+        rows, day = rows[keep], nxt[keep]
+    return [np.concatenate(c) for c in zip(*out)] if out else []
+
+
+def _by_patient(columns: list[np.ndarray]) -> tuple[np.ndarray, ...]:
+    order = np.argsort(columns[0], kind="stable")  # rounds already run forward in time
+    return tuple(c[order] for c in columns)
+
+
 def _simulate_exams(
     hidden: HiddenState, admin_days: np.ndarray, p: GeneratorParameters, rng: np.random.Generator
 ) -> tuple[np.ndarray, ...]:
-    """All CT exams up to the study close, sorted by patient and day."""
-    rows = np.arange(admin_days.size)
-    day = np.zeros(rows.size)
-    out: list[tuple[np.ndarray, ...]] = []
-    while rows.size:
+    """All CT exams up to the study close: patient, day, volume, suspicion (sorted by patient, day)."""
+
+    def step(rows: np.ndarray, day: np.ndarray) -> tuple[np.ndarray, ...]:
         volume, suspicion = measure_exam(hidden, rows, day, p, rng)
-        out.append((rows, day, volume, suspicion))
-        nxt = next_exam_day(day, volume, p, rng)
-        keep = nxt < admin_days[rows]
-        rows, day = rows[keep], nxt[keep]
-    patient, day, volume, suspicion = (np.concatenate(c) for c in zip(*out))
-    order = np.argsort(patient, kind="stable")  # rounds already run forward in time
-    return patient[order], day[order], volume[order], suspicion[order]
+        return next_exam_day(day, volume, p, rng), volume, suspicion
+
+    n = admin_days.size
+    return _by_patient(visit_rounds(step, np.arange(n), np.zeros(n), admin_days))
 
 
 def _simulate_labs(
     hidden: HiddenState, end_days: np.ndarray, p: GeneratorParameters, rng: np.random.Generator
 ) -> tuple[np.ndarray, ...]:
-    """All serum-marker draws before each patient's ``end_days``, sorted by patient and day."""
-    rows = np.arange(end_days.size)
-    day = np.zeros(rows.size)
-    out: list[tuple[np.ndarray, ...]] = []
-    while rows.size:
-        out.append((rows, day, measure_lab(hidden, rows, day, p, rng)))
-        nxt = next_lab_day(day, p, rng)
-        keep = nxt < end_days[rows]
-        rows, day = rows[keep], nxt[keep]
-    patient, day, marker = (np.concatenate(c) for c in zip(*out))
-    order = np.argsort(patient, kind="stable")
-    return patient[order], day[order], marker[order]
+    """All serum-marker draws before ``end_days``: patient, day, marker (sorted by patient, day)."""
+
+    def step(rows: np.ndarray, day: np.ndarray) -> tuple[np.ndarray, ...]:
+        marker = measure_lab(hidden, rows, day, p, rng)
+        return next_lab_day(day, p, rng), marker
+
+    n = end_days.size
+    return _by_patient(visit_rounds(step, np.arange(n), np.zeros(n), end_days))
 
 
 def _discharge_days(

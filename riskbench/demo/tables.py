@@ -61,7 +61,8 @@ def build_tables(sim: SimulatedProcess, ids: np.ndarray) -> tuple[pd.DataFrame, 
             "birth_date": dates(sim.birth_day),
             "sex": np.where(sim.male, "M", "F").astype(object),
             "pack_years": sim.pack_years,
-        }
+        },
+        copy=False,  # keep the column arrays as they are: no consolidation copy of 10^7-row columns
     )
 
     n_e, n_l = sim.exam_day.size, sim.lab_day.size
@@ -80,7 +81,8 @@ def build_tables(sim: SimulatedProcess, ids: np.ndarray) -> tuple[pd.DataFrame, 
             "value": value,
             "unit": _categorical_text(units, code),
             "source": _categorical_text(sources, code),
-        }
+        },
+        copy=False,  # keep the column arrays as they are: no consolidation copy of 10^7-row columns
     )
 
     kinds, details = zip(*(END_ROWS[r] for r in END_REASONS))
@@ -90,6 +92,7 @@ def build_tables(sim: SimulatedProcess, ids: np.ndarray) -> tuple[pd.DataFrame, 
             "date": dates(sim.entry_day + sim.end_day),
             "kind": _categorical_text(kinds, sim.end_reason),
             "detail": _categorical_text(details, sim.end_reason),
-        }
+        },
+        copy=False,  # keep the column arrays as they are: no consolidation copy of 10^7-row columns
     )
     return patients, measurements, outcomes
