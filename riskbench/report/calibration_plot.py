@@ -59,7 +59,13 @@ def calibration_figure(
     ax.set_ylim(0, top)
     ax.set_ylabel("observed risk")
     years = calibration.horizon / DAYS_PER_YEAR
-    stats_text = f"ICI {calibration.ici:.3f}   E90 {calibration.e90:.3f}\nslope {calibration.slope:.2f}   O/E {calibration.oe_ratio:.2f}"
+    if np.isnan(calibration.ici):  # competing events: only grouped (Aalen–Johansen) calibration and O/E
+        stats_text = f"O/E {calibration.oe_ratio:.2f}"
+    else:
+        stats_text = (
+            f"ICI {calibration.ici:.3f}   E90 {calibration.e90:.3f}\n"
+            f"slope {calibration.slope:.2f}   O/E {calibration.oe_ratio:.2f}"
+        )
     ax.text(0.03, 0.97, stats_text, transform=ax.transAxes, va="top", fontsize=8)
     ax.set_title(f"Calibration of {model_name} at {years:.2g} years")
     ax.legend(frameon=False, fontsize=7, loc="lower right")

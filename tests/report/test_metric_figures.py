@@ -39,3 +39,13 @@ def test_decision_curve_figure_lines(cohort):
     assert labels == ["model", "treat all", "treat none"]
     with pytest.raises(ValueError, match="lacks column"):
         decision_curve_figure(table.drop(columns=["treat_all"]))
+
+
+def test_calibration_figure_with_competing_events_shows_groups_only(cohort):
+    t, e, risk = cohort
+    status = np.where((np.arange(t.size) % 7 == 0) & (e == 1), 2, e)
+    cal = calibration_at_horizon(t, status, risk, 5.0, n_groups=5)
+    fig = calibration_figure(cal, risk)
+    labels = [str(ln.get_label()) for ln in fig.axes[0].get_lines()]
+    assert not any("smoothed" in lab for lab in labels)
+    assert "O/E" in fig.axes[0].texts[0].get_text()
