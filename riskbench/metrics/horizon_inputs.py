@@ -27,7 +27,7 @@ def single_horizon_inputs(
     r = as_risk(risk, t.size, probability=True)
     if r.ndim != 1:
         raise MetricInputError(f"`risk` must be one predicted probability per subject (1-D) for {metric}")
-    h = float(as_horizons(horizon, t, name="horizon")[0])
+    h = float(as_horizons(horizon, t, name="horizon", include_last=True)[0])
     require_events_before(t, status, h)
     if check_direction:
         check_risk_direction(t, status, r)

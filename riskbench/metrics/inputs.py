@@ -86,23 +86,33 @@ def as_risk(risk: ArrayLike, n: int, n_columns: int | None = None, *, probabilit
     return arr
 
 
-def as_horizons(horizons: float | ArrayLike, time: np.ndarray, *, name: str = "horizons") -> np.ndarray:
-    """Return the horizons as a float array, each within ``[min(time), max(time))`` of the evaluation data.
+def as_horizons(
+    horizons: float | ArrayLike, time: np.ndarray, *, name: str = "horizons", include_last: bool = False
+) -> np.ndarray:
+    """Return the horizons as a float array, each within the follow-up of the evaluation data.
 
-    Outside that range the censoring distribution (or the set of controls) is not estimable: before the
-    first follow-up time nobody can have had the outcome, and at or after the last one no subject remains
-    event-free under observation.
+    Weighted (IPCW) metrics need ``[min(time), max(time))``: at or beyond the last observed time nobody
+    remains event-free under observation, so there are no controls and the censoring weights are
+    undefined. Kaplan–Meier based metrics (``include_last=True``) also accept ``max(time)`` itself.
     """
     arr = np.atleast_1d(np.asarray(horizons, dtype=float))
     if arr.ndim != 1 or arr.size == 0 or not np.isfinite(arr).all():
         raise MetricInputError(f"`{name}` must be one or more finite times (same unit as `time`); got {horizons!r}")
     lo, hi = float(time.min()), float(time.max())
-    outside = arr[(arr < lo) | (arr >= hi)]
+    too_late = arr > hi if include_last else arr >= hi
+    outside = arr[(arr < lo) | too_late]
     if outside.size:
+        bracket = "]" if include_last else ")"
+        why = (
+            "beyond the last observed time the Kaplan–Meier estimate is undefined"
+            if include_last
+            else "from the last observed time on no subject remains event-free under observation, so there are "
+            "no controls and the censoring weights are undefined"
+        )
         raise MetricInputError(
             f"`{name}` {outside[:5].tolist()} lie outside the follow-up of the evaluation data: allowed range is "
-            f"[{lo:g}, {hi:g}) (first to last observed time, last excluded) because beyond the last observed time "
-            "no subject is under observation and the censoring weights are undefined; choose shorter horizons"
+            f"[{lo:g}, {hi:g}{bracket} (first to last observed time) because {why}; choose shorter horizons "
+            "(for data administratively censored at the horizon, evaluate just inside it, e.g. horizon − 0.01)"
         )
     return arr
 

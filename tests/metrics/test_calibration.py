@@ -137,3 +137,17 @@ def test_d_calibration_splits_a_censored_subject():
     """Haider et al. (2020): censored at survival 0.25 → bins [0.2, 0.3) gets 0.05/0.25, lower bins 0.1/0.25."""
     dc = d_calibration(np.array([0]), np.array([0.25]), n_bins=10)
     np.testing.assert_allclose(dc.bins["observed"], [0.4, 0.4, 0.2, 0, 0, 0, 0, 0, 0, 0])
+
+
+def test_horizon_at_administrative_censoring(cohort):
+    """Data censored at the horizon (a landmark stack): Kaplan–Meier metrics accept the horizon itself,
+    weighted metrics ask for a horizon just inside it."""
+    from riskbench.metrics import auc_cumulative_dynamic
+
+    t, e, x = cohort
+    e_h = np.where(t > HORIZON, 0, e)
+    t_h = np.minimum(t, HORIZON)
+    cal = calibration_at_horizon(t_h, e_h, _true_risk(x), HORIZON, n_boot=0)
+    assert cal.oe_lower < 1 < cal.oe_upper
+    with pytest.raises(MetricInputError, match="just inside"):
+        auc_cumulative_dynamic(t_h, e_h, _true_risk(x), HORIZON)
