@@ -99,3 +99,16 @@ def fit_spec(spec: ModelSpec, tables: ValidationTables, *, seed: int | None = No
             )
         return estimator.fit(tables.counting_process)
     return estimator.fit(tables.landmark_stack)
+
+
+def prediction_columns(spec: ModelSpec, table_columns: Sequence[str]) -> list[str]:
+    """Columns a fitted model of ``spec`` can read when predicting a row.
+
+    The covariates, the prediction origin (``landmark`` / ``start``) and any column a parameter names
+    (e.g. ``strata="sex_male"``). Rows equal on these columns get equal predictions (the prediction
+    contract is row-wise), which lets resampling predict each distinct row once.
+    """
+    present = set(table_columns)
+    named = [v for v in spec.params.values() if isinstance(v, str) and v in present]
+    columns = [*spec.covariates, *[c for c in ("landmark", "start") if c in present], *named]
+    return list(dict.fromkeys(columns))

@@ -24,7 +24,7 @@ import pandas as pd
 from riskbench.validation.comparison import REPLICATE_ERRORS, collect_replicates
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec
-from riskbench.validation.paired import check_specs, evaluate_fitted, fit_all
+from riskbench.validation.paired import check_specs, evaluate_fitted, fit_all, predict_all
 from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
 from riskbench.validation.performance import check_horizons
 from riskbench.validation.plans import bootstrap_patient_draw
@@ -47,9 +47,14 @@ def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSeque
     try:
         boot_tables = draw_tables(job.source, drawn)
         models = fit_all(job.specs, boot_tables, seed_to_int(seed))
-        on_boot, _ = evaluate_fitted(job.specs, models, boot_tables.landmark_stack, job.horizons, thresholds=job.thresholds)
+        boot_stack, orig_stack = boot_tables.landmark_stack, job.source.full_tables().landmark_stack
+        # The drawn rows repeat original rows: predict each distinct row once for both evaluations.
+        risk_boot, risk_orig = predict_all(job.specs, models, [boot_stack, orig_stack], job.horizons)
+        on_boot, _ = evaluate_fitted(
+            job.specs, models, boot_stack, job.horizons, thresholds=job.thresholds, risks=risk_boot
+        )
         on_orig, _ = evaluate_fitted(
-            job.specs, models, job.source.full_tables().landmark_stack, job.horizons, thresholds=job.thresholds
+            job.specs, models, orig_stack, job.horizons, thresholds=job.thresholds, risks=risk_orig
         )
     except REPLICATE_ERRORS as exc:
         return index, None, None, f"{type(exc).__name__}: {exc}"

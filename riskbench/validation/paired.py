@@ -14,11 +14,12 @@ import numpy as np
 import pandas as pd
 
 from riskbench.validation.errors import ValidationInputError
-from riskbench.validation.model_specs import ModelSpec, fit_spec
+from riskbench.validation.model_specs import ModelSpec, fit_spec, prediction_columns
 from riskbench.validation.performance import (
     RESULT_COLUMNS,
     evaluate_risks,
     evaluation_time,
+    predict_distinct_rows,
     predict_horizons,
     stack_outcome,
 )
@@ -59,6 +60,23 @@ def fit_all(specs: Sequence[ModelSpec], tables: ValidationTables, seed: int | No
     return [fit_spec(spec, tables, seed=seed) for spec in specs]
 
 
+def predict_all(
+    specs: Sequence[ModelSpec],
+    models: Sequence[Any],
+    stacks: Sequence[pd.DataFrame],
+    horizons: Sequence[float],
+) -> list[list[dict[float, np.ndarray]]]:
+    """Predictions of every model on every stack, each distinct row predicted once per model.
+
+    Returns ``out[k][m]``: the ``{horizon: risk}`` of model m on stack k.
+    """
+    per_model = [
+        predict_distinct_rows(model, stacks, horizons, prediction_columns(spec, stacks[0].columns))
+        for spec, model in zip(specs, models)
+    ]
+    return [[per_model[m][k] for m in range(len(models))] for k in range(len(stacks))]
+
+
 def evaluate_fitted(
     specs: Sequence[ModelSpec],
     models: Sequence[Any],
@@ -68,6 +86,7 @@ def evaluate_fitted(
     pairs: Sequence[tuple[int, int]] = (),
     thresholds: Sequence[float] = (),
     nri_categories: Sequence[float] | None = None,
+    risks: Sequence[dict[float, np.ndarray]] | None = None,
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Per-spec measures and pairwise measures of fitted models on one evaluation stack.
 
@@ -85,6 +104,8 @@ def evaluate_fitted(
         Net-benefit thresholds.
     nri_categories : sequence of float, optional
         Risk cut points for the categorical NRI (the category-free NRI is always given).
+    risks : sequence of dict, optional
+        Predictions already made (one ``{horizon: risk}`` per model, see :func:`predict_all`).
 
     Returns
     -------
@@ -96,7 +117,8 @@ def evaluate_fitted(
     """
     time, status = stack_outcome(stack)
     event = (status == 1).astype(int)
-    risks = [predict_horizons(model, stack, horizons) for model in models]
+    if risks is None:
+        risks = [predict_horizons(model, stack, horizons) for model in models]
     per_spec = []
     for spec, risk in zip(specs, risks):
         frame = evaluate_risks(time, status, risk, thresholds=thresholds)

@@ -131,3 +131,18 @@ def test_spec_and_argument_errors(source):
     with pytest.raises(ValidationInputError, match="unique"):
         compare_specs([CLINICAL, CLINICAL], source, [365.0], n_boot=3)
     assert BOTH.without(["imaging"]).covariates == ("clinical",)
+
+
+def test_cox_and_forest_families_run_through_the_same_pipeline(source):
+    """The counting-process Cox model and the forest are validated by the same code as the super-model."""
+    splits = patient_folds(source.full_tables().counting_process["patient_id"],
+                           source.full_tables().counting_process["status"], 2, seed=3)[:1]
+    cox = ModelSpec("cox", ["clinical", "imaging"], family="cox")
+    forest = ModelSpec("forest", ["clinical", "imaging"], family="forest", params={"n_estimators": 25})
+    per_spec, per_pair = evaluate_splits([cox, forest], source, splits, [365.0])
+    c = per_spec[per_spec["metric"] == "harrell_c"].set_index("spec")["value"]
+    assert c["cox"] > 0.65 and c["forest"] > 0.6
+    assert set(per_pair["metric"]) >= {"nri", "idi", "harrell_c"}
+    no_cp = PrecomputedTables(source.full_tables().landmark_stack)
+    with pytest.raises(ValidationInputError, match="counting-process"):
+        evaluate_splits([cox], no_cp, splits, [365.0])
