@@ -5,8 +5,8 @@ nodule state (known to the oracle) and on the random future exams and lab draws 
 oracle therefore averages over ``n_paths`` simulated futures (Monte Carlo, seeded):
 
 * the next CT is drawn from the protocol rule starting at the last exam before s, conditioned on
-  falling after s (rejection sampling; the realised history showed no exam in between); likewise the
-  next lab draw; later visits follow the protocol unconditionally; each visit measures new values
+  falling after s (exactly, by inverting the conditional distribution: the realised history showed
+  no exam in between); likewise the next lab draw; later visits follow the protocol unconditionally; each visit measures new values
   from the patient's hidden state;
 * given one future path, the cumulative incidence of the outcome with death as a competing risk,
   ``integral_s^{s+w} h1(t) exp(-(H1(t) - H1(s)) - (H2(t) - H2(s))) dt``, is computed without sampling
@@ -21,14 +21,22 @@ The result reports the Monte Carlo standard error beside each risk.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
 
 from riskbench.demo.hazards import baseline_cumhaz, baseline_cumhaz_inverse, death_cumhaz
 from riskbench.demo.parameters import GeneratorParameters
-from riskbench.demo.process import measure_exam, measure_lab, next_exam_day, next_lab_day
+from riskbench.demo.process import (
+    exam_interval_bounds,
+    lab_interval_bounds,
+    measure_exam,
+    measure_lab,
+    next_exam_day,
+    next_lab_day,
+    next_visit_after,
+)
 from riskbench.demo.simulate import (
     SimulatedProcess,
     build_covariate_path,
@@ -40,22 +48,7 @@ from riskbench.demo.simulate import (
 
 _RULE = np.polynomial.legendre.leggauss(4)
 _RULE_AT_ENTRY = np.polynomial.legendre.leggauss(24)
-_MAX_REJECTIONS = 200
 _PATHS_PER_CHUNK = 100_000
-
-
-def _conditional_next(
-    draw: Callable[[np.ndarray, np.ndarray], np.ndarray], last_day: np.ndarray, after: np.ndarray
-) -> np.ndarray:
-    """Next visit day drawn by ``draw(last_day_subset, index)``, conditioned on being > ``after``."""
-    out = draw(last_day, np.arange(last_day.size))
-    for _ in range(_MAX_REJECTIONS):
-        bad = np.flatnonzero(out <= after)
-        if not bad.size:
-            break
-        out[bad] = draw(last_day[bad], bad)
-    # practically unreachable (probability < 1e-9); keep the path valid rather than loop forever
-    return np.maximum(out, np.floor(after) + 1)
 
 
 def _chunk_risk(
@@ -74,14 +67,11 @@ def _chunk_risk(
     hidden = sim.hidden
     last_volume = path.volume[state]
 
-    def draw_exam(day: np.ndarray, idx: np.ndarray) -> np.ndarray:
-        return next_exam_day(day, last_volume[idx], p, rng)
-
-    def draw_lab(day: np.ndarray, idx: np.ndarray) -> np.ndarray:
-        return next_lab_day(day, p, rng)
-
-    first_exam = _conditional_next(draw_exam, path.last_exam_day[state], s)
-    first_lab = _conditional_next(draw_lab, path.last_lab_day[state], s)
+    # next exam and lab after s, given that none happened between the last one and s
+    first_exam = next_visit_after(path.last_exam_day[state], *exam_interval_bounds(last_volume, p),
+                                  p.exam_miss_probability, p.min_gap_days, s, rng)
+    first_lab = next_visit_after(path.last_lab_day[state], *lab_interval_bounds(m, p),
+                                 p.lab_miss_probability, p.min_gap_days, s, rng)
 
     def exam_step(rows: np.ndarray, day: np.ndarray) -> tuple[np.ndarray, ...]:
         volume, suspicion = measure_exam(hidden, g[rows], day, p, rng)
@@ -95,8 +85,7 @@ def _chunk_risk(
     paths, limit = np.arange(m), np.floor(end) + 1
     ex_path, ex_day, ex_vol, ex_sus = _or_empty(visit_rounds(exam_step, paths, first_exam, limit), 4)
     lb_path, lb_day, lb_mark = _or_empty(visit_rounds(lab_step, paths, first_lab, limit), 3)
-    # the state at s opens every path as an exam and a lab "on day s" (offset so days stay >= 0)
-    # days relative to floor(s), so the state at s sits on day 0 and every future visit after it
+    # the state at s opens every path as an exam and a lab on relative day 0 (days counted from floor(s))
     base = np.arange(m)
     origin = np.floor(s)
     fut = build_covariate_path(

@@ -119,3 +119,64 @@ def next_lab_day(day: np.ndarray, p: GeneratorParameters, rng: np.random.Generat
     missed = rng.random(n) < p.lab_miss_probability
     gap = np.rint(first + np.where(missed, second, 0.0))
     return day + np.maximum(gap, p.min_gap_days)
+
+
+def exam_interval_bounds(volume_mm3: np.ndarray, p: GeneratorParameters) -> tuple[np.ndarray, np.ndarray]:
+    """Range (days) of one jittered CT interval after an exam that measured ``volume_mm3``."""
+    planned = planned_exam_interval(volume_mm3, p)
+    return planned * (1 - p.exam_jitter), planned * (1 + p.exam_jitter)
+
+
+def lab_interval_bounds(n: int, p: GeneratorParameters) -> tuple[np.ndarray, np.ndarray]:
+    """Range (days) of one jittered lab interval."""
+    return (np.full(n, p.lab_interval_days - p.lab_jitter_days), np.full(n, p.lab_interval_days + p.lab_jitter_days))
+
+
+def next_visit_after(
+    day: np.ndarray,
+    lo: np.ndarray,
+    hi: np.ndarray,
+    miss_probability: float,
+    min_gap_days: int,
+    after: np.ndarray,
+    rng: np.random.Generator,
+) -> np.ndarray:
+    """Next attended visit after ``day``, drawn from its law conditioned on falling after ``after``.
+
+    The unconditioned gap is X = U1 (visit attended) or U1 + U2 (one visit missed, probability
+    ``miss_probability``), U1, U2 ~ U(lo, hi), rounded to whole days: this is :func:`next_exam_day` /
+    :func:`next_lab_day`. The next day exceeds ``after`` iff X >= c = floor(after) + 0.5 - day, so the
+    conditional law is the mixture of a truncated uniform and a truncated triangular (the sum of two
+    uniforms) with weights proportional to their tail probabilities; both are drawn by inverting
+    their distribution functions. Exact (no rejection loop).
+    """
+    n = day.size
+    c = np.floor(after) + 0.5 - day
+    width = hi - lo
+    a, b, mode = 2 * lo, 2 * hi, lo + hi  # the triangular law of U1 + U2
+    tail_one = np.clip((hi - c) / width, 0.0, 1.0)
+
+    def tri_cdf(x: np.ndarray) -> np.ndarray:
+        x = np.clip(x, a, b)
+        left = (x - a) ** 2 / ((b - a) * (mode - a))
+        right = 1 - (b - x) ** 2 / ((b - a) * (b - mode))
+        return np.where(x <= mode, left, right)
+
+    def tri_inverse(u: np.ndarray) -> np.ndarray:
+        left = a + np.sqrt(u * (b - a) * (mode - a))
+        right = b - np.sqrt((1 - u) * (b - a) * (b - mode))
+        return np.where(u <= 0.5, left, right)
+
+    start_two = tri_cdf(c)
+    tail_two = 1 - start_two
+    w_one = (1 - miss_probability) * tail_one
+    w_two = miss_probability * tail_two
+    total = w_one + w_two
+    # a history the protocol cannot produce (no weight left): take the longest possible gap
+    impossible = total <= 0
+    missed = rng.random(n) * np.where(impossible, 1.0, total) >= w_one
+    u = rng.random(n)
+    one = np.maximum(c, lo) + u * (hi - np.maximum(c, lo))
+    two = tri_inverse(start_two + u * tail_two)
+    gap = np.where(impossible, b, np.where(missed, two, one))
+    return day + np.maximum(np.rint(gap), min_gap_days)

@@ -158,3 +158,41 @@ def test_bad_parameters_get_a_one_line_message_naming_the_parameter(kwargs, name
 def test_generator_parameters_reject_unknown_coefficients():
     with pytest.raises(ValueError, match="coefficients"):
         GeneratorParameters(coefficients={"tumour_size": 1.0})
+
+
+@pytest.mark.parametrize(("volume", "after"), [(50.0, 0.0), (50.0, 380.0), (50.0, 520.0), (500.0, 120.0)])
+def test_conditional_next_exam_matches_rejection_sampling(volume, after):
+    """The oracle's exact conditional draw of the next exam (given none up to ``after``) has the law of
+    the protocol draw restricted to days > ``after`` (two-sample Kolmogorov-Smirnov test, 20,000 each,
+    p > 0.001)."""
+    from scipy.stats import ks_2samp
+
+    from riskbench.demo.process import exam_interval_bounds, next_visit_after
+
+    p = GeneratorParameters()
+    rng = np.random.default_rng(17)
+    raw = next_exam_day(np.zeros(400_000), np.full(400_000, volume), p, rng)
+    reference = raw[raw > after][:20_000]
+    assert reference.size == 20_000
+    lo, hi = exam_interval_bounds(np.full(20_000, volume), p)
+    ours = next_visit_after(np.zeros(20_000), lo, hi, p.exam_miss_probability, p.min_gap_days,
+                            np.full(20_000, after), np.random.default_rng(18))
+    assert (ours > after).all()
+    assert ks_2samp(ours, reference).pvalue > 0.001
+
+
+@pytest.mark.parametrize("after", [150.0, 250.0])
+def test_conditional_next_lab_matches_rejection_sampling(after):
+    """As above for the lab schedule (additive jitter; beyond 228 days only a missed draw remains)."""
+    from scipy.stats import ks_2samp
+
+    from riskbench.demo.process import lab_interval_bounds, next_lab_day, next_visit_after
+
+    p = GeneratorParameters()
+    raw = next_lab_day(np.zeros(400_000), p, np.random.default_rng(5))
+    reference = raw[raw > after][:20_000]
+    assert reference.size == 20_000
+    ours = next_visit_after(np.zeros(20_000), *lab_interval_bounds(20_000, p), p.lab_miss_probability,
+                            p.min_gap_days, np.full(20_000, after), np.random.default_rng(6))
+    assert (ours > after).all()
+    assert ks_2samp(ours, reference).pvalue > 0.001
