@@ -88,7 +88,9 @@ class SpoiledTables:
 
 
 def _days(dates: pd.Series) -> np.ndarray:
-    return np.asarray(dates.to_numpy(dtype=str), dtype="datetime64[D]").astype(np.int64)
+    """Epoch days of clean ISO dates (few distinct values: parsed once each)."""
+    parsed = pd.to_datetime(dates, format="%Y-%m-%d", cache=True)
+    return parsed.to_numpy().astype("datetime64[D]").astype(np.int64)
 
 
 def _iso(days: np.ndarray) -> np.ndarray:
@@ -107,7 +109,7 @@ class _Spoiler:
         self.end = _days(outcomes["date"]) - self.entry  # clean: one terminal row per patient, in order
         self.kind = outcomes["kind"].to_numpy()
         self.m = measurements.copy()
-        self.m["value"] = self.m["value"].astype(object)
+        self.m["_text"] = None  # text that replaces a number (unparseable values)
         self.m_patient = self.index_of[self.m["patient_id"].to_numpy()].to_numpy()
         self.m_day = _days(self.m["date"]) - self.entry[self.m_patient]
         self.free = np.ones(self.n, dtype=bool)
@@ -189,11 +191,11 @@ def spoil(
     sp.add("measurements", RowState.UNPARSEABLE_DATE, rows.size)
 
     rows = sp.take_rows("m_missing_value", ("nodule_volume", "suspicion_score", "serum_marker"))
-    m.loc[m.index[rows], "value"] = None
+    m.loc[m.index[rows], "value"] = np.nan
     sp.add("measurements", RowState.MISSING_REQUIRED, rows.size)
 
     rows = sp.take_rows("m_bad_value", ("nodule_volume", "suspicion_score", "serum_marker"))
-    m.loc[m.index[rows], "value"] = np.array(BAD_VALUES, dtype=object)[np.arange(rows.size) % len(BAD_VALUES)]
+    m.loc[m.index[rows], "_text"] = np.array(BAD_VALUES, dtype=object)[np.arange(rows.size) % len(BAD_VALUES)]
     sp.add("measurements", RowState.UNPARSEABLE_VALUE, rows.size)
 
     # --- appended measurement rows (copies of a template row, changed)
@@ -311,9 +313,13 @@ def spoil(
     order = np.argsort(np.concatenate([sp.m_patient] + sp.extra_m_key), kind="stable")
     m_all = m_all.iloc[order].reset_index(drop=True)
     # one text type for the whole value column (it holds numbers, blanks and text)
-    value = m_all["value"]
-    text = value.map(lambda v: v if isinstance(v, str) or v is None else repr(float(v)))
-    m_all["value"] = text.astype(object)
+    # one text type for the whole value column (numbers as their shortest round-trip text, blanks, text)
+    text = m_all["value"].astype(str).to_numpy(dtype=object)
+    text[m_all["value"].isna().to_numpy()] = None
+    override = m_all["_text"].notna().to_numpy()
+    text[override] = m_all["_text"].to_numpy()[override]
+    m_all["value"] = text
+    m_all = m_all.drop(columns="_text")
     excluded = sum(sp.counts["measurements"].values())
     sp.counts["measurements"][str(RowState.USED)] = int(len(m_all) - excluded)
 
