@@ -88,15 +88,48 @@ def _comparison_replicate(job: _ComparisonJob, index: int, seed: np.random.SeedS
         else:
             out_of_bag = np.setdiff1d(ids, drawn)
             stack = subset_tables(job.source.full_tables(), out_of_bag).landmark_stack
-        per_spec, per_pair = evaluate_fitted(
+        frames = evaluate_fitted(
             job.specs, models, stack, job.horizons,
             pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
         )
     except REPLICATE_ERRORS as exc:
-        return index, None, None, f"{type(exc).__name__}: {exc}"
-    per_spec.insert(0, "replicate", index)
-    per_pair.insert(0, "replicate", index)
+        return failed_replicate(index, exc)
+    return tagged_replicate(index, *frames)
+
+
+def failed_replicate(index: int, exc: BaseException) -> tuple:
+    """The result of a replicate whose resample could not be fitted or evaluated."""
+    return index, None, None, f"{type(exc).__name__}: {exc}"
+
+
+def tagged_replicate(index: int, per_spec: pd.DataFrame, per_pair: pd.DataFrame | None = None) -> tuple:
+    """The result of a successful replicate, its frames tagged with the replicate index."""
+    for frame in (per_spec, per_pair):
+        if frame is not None:
+            frame.insert(0, "replicate", index)
     return index, per_spec, per_pair, None
+
+
+def summarise_comparison(
+    results: list,
+    *,
+    level: float,
+    spec_point: pd.DataFrame | None = None,
+    pair_point: pd.DataFrame | None = None,
+) -> Comparison:
+    """Percentile summaries of per-spec and pairwise replicate values (estimates: the points if given)."""
+    spec_reps, pair_reps, n_failed = collect_replicates(results)
+    spec_keys = ["spec", "metric", "horizon_days", "threshold"]
+    pair_keys = ["reference", "candidate", *spec_keys[1:]]
+    performance = percentile_summary(spec_reps, spec_keys, level=level, point=spec_point)
+    if pair_reps is not None and len(pair_reps):
+        differences = percentile_summary(pair_reps, pair_keys, level=level, point=pair_point)
+        differences["better_if"] = differences["metric"].map(METRIC_DIRECTION).fillna("higher")
+    else:
+        differences = pd.DataFrame(columns=[*pair_keys, "estimate", "ci_low", "ci_high", "n_boot", "better_if"])
+        pair_reps = pd.DataFrame()
+    replicates = pd.concat([spec_reps, pair_reps], ignore_index=True)
+    return Comparison(performance=performance, differences=differences, replicates=replicates, n_failed=n_failed)
 
 
 def collect_replicates(results: list) -> tuple[pd.DataFrame, pd.DataFrame, int]:
@@ -174,9 +207,6 @@ def compare_specs(
         evaluation=evaluation,
     )
     results = run_replicates(_comparison_replicate, job, seed, n_boot, config, description="paired bootstrap")
-    spec_reps, pair_reps, n_failed = collect_replicates(results)
-    spec_keys = ["spec", "metric", "horizon_days", "threshold"]
-    pair_keys = ["reference", "candidate", "metric", "horizon_days", "threshold"]
     spec_point = pair_point = None
     if evaluation == "apparent":
         models = fit_all(specs, full, seed)
@@ -184,8 +214,4 @@ def compare_specs(
             specs, models, full.landmark_stack, hs,
             pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
         )
-    performance = percentile_summary(spec_reps, spec_keys, level=level, point=spec_point)
-    differences = percentile_summary(pair_reps, pair_keys, level=level, point=pair_point)
-    differences["better_if"] = differences["metric"].map(METRIC_DIRECTION).fillna("higher")
-    replicates = pd.concat([spec_reps, pair_reps], ignore_index=True)
-    return Comparison(performance=performance, differences=differences, replicates=replicates, n_failed=n_failed)
+    return summarise_comparison(results, level=level, spec_point=spec_point, pair_point=pair_point)

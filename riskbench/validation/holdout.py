@@ -9,12 +9,18 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from riskbench.validation.comparison import Comparison, collect_replicates
+from riskbench.validation.comparison import (
+    REPLICATE_ERRORS,
+    Comparison,
+    failed_replicate,
+    summarise_comparison,
+    tagged_replicate,
+)
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec
-from riskbench.validation.paired import check_specs, evaluate_fitted, fit_all, percentile_summary, spec_pairs
+from riskbench.validation.paired import check_specs, evaluate_fitted, fit_all, spec_pairs
 from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
-from riskbench.validation.performance import METRIC_DIRECTION, check_horizons
+from riskbench.validation.performance import check_horizons
 from riskbench.validation.plans import Split, bootstrap_patient_draw
 from riskbench.validation.sources import TableSource, draw_tables, subset_tables
 
@@ -116,15 +122,13 @@ def _external_replicate(job: _ExternalJob, index: int, seed: np.random.SeedSeque
     drawn = bootstrap_patient_draw(job.eval_source.patient_ids(), np.random.default_rng(seed))
     try:
         stack = draw_tables(job.eval_source, drawn).landmark_stack
-        per_spec, per_pair = evaluate_fitted(
+        frames = evaluate_fitted(
             job.specs, job.models, stack, job.horizons,
             pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
         )
-    except ValueError as exc:
-        return index, None, None, f"{type(exc).__name__}: {exc}"
-    per_spec.insert(0, "replicate", index)
-    per_pair.insert(0, "replicate", index)
-    return index, per_spec, per_pair, None
+    except REPLICATE_ERRORS as exc:
+        return failed_replicate(index, exc)
+    return tagged_replicate(index, *frames)
 
 
 def external_validation(
@@ -182,19 +186,4 @@ def external_validation(
         pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
     )
     results = run_replicates(_external_replicate, job, seed, n_boot, config, description="external bootstrap")
-    spec_reps, pair_reps, n_failed = collect_replicates(results)
-    spec_keys = ["spec", "metric", "horizon_days", "threshold"]
-    pair_keys = ["reference", "candidate", *spec_keys[1:]]
-    performance = percentile_summary(spec_reps, spec_keys, level=level, point=point_spec)
-    if pair_reps is not None and len(pair_reps):
-        differences = percentile_summary(pair_reps, pair_keys, level=level, point=point_pair)
-        differences["better_if"] = differences["metric"].map(METRIC_DIRECTION).fillna("higher")
-    else:
-        differences = pd.DataFrame(columns=[*pair_keys, "estimate", "ci_low", "ci_high", "n_boot", "better_if"])
-        pair_reps = pd.DataFrame()
-    return Comparison(
-        performance=performance,
-        differences=differences,
-        replicates=pd.concat([spec_reps, pair_reps], ignore_index=True),
-        n_failed=n_failed,
-    )
+    return summarise_comparison(results, level=level, spec_point=point_spec, pair_point=point_pair)

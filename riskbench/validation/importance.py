@@ -19,7 +19,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from riskbench.validation.comparison import REPLICATE_ERRORS, collect_replicates, compare_specs
+from riskbench.validation.comparison import (
+    REPLICATE_ERRORS,
+    collect_replicates,
+    compare_specs,
+    failed_replicate,
+    tagged_replicate,
+)
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec, fit_spec
 from riskbench.validation.paired import percentile_summary
@@ -135,10 +141,8 @@ def _permutation_replicate(job: _PermutationJob, index: int, seed: np.random.See
             frame.insert(0, "group", name)
             frames.append(frame)
     except REPLICATE_ERRORS as exc:
-        return index, None, None, f"{type(exc).__name__}: {exc}"
-    out = pd.concat(frames, ignore_index=True)
-    out.insert(0, "replicate", index)
-    return index, out, None, None
+        return failed_replicate(index, exc)
+    return tagged_replicate(index, pd.concat(frames, ignore_index=True))
 
 
 def permutation_importance(

@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from riskbench.validation.comparison import REPLICATE_ERRORS, collect_replicates
+from riskbench.validation.comparison import REPLICATE_ERRORS, collect_replicates, failed_replicate, tagged_replicate
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec
 from riskbench.validation.paired import check_specs, evaluate_fitted, fit_all, predict_all
@@ -57,12 +57,11 @@ def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSeque
             job.specs, models, orig_stack, job.horizons, thresholds=job.thresholds, risks=risk_orig
         )
     except REPLICATE_ERRORS as exc:
-        return index, None, None, f"{type(exc).__name__}: {exc}"
+        return failed_replicate(index, exc)
     frame = on_boot.rename(columns={"value": "bootstrap"})
     frame["test"] = on_orig["value"].to_numpy()
     frame["value"] = frame["bootstrap"] - frame["test"]
-    frame.insert(0, "replicate", index)
-    return index, frame, None, None
+    return tagged_replicate(index, frame)
 
 
 def bootstrap_optimism(
