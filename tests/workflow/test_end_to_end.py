@@ -1,6 +1,7 @@
 """The demo analysis end to end through papermill (the one slow test of this folder, budget 3 minutes).
 
-One module-scoped run of configs/demo.toml with a small bootstrap feeds every check: the report has every
+One module-scoped run of configs/demo.toml, on its first 800 patients and with a small bootstrap (make demo
+runs the whole cohort), feeds every check: the report has every
 section and renders in headless chromium with every figure loaded; no input patient id appears in any
 output; the stage functions run again in-process give byte-identical tables (same configuration and data,
 same tables); changing the horizon changes the outputs that depend on it.
@@ -26,11 +27,26 @@ DEMO = ROOT / "configs" / "demo.toml"
 DATA = ROOT / "demo_data" / "clean"
 
 
-def small_config(folder: Path, *, horizon_years: float = 2.0) -> Path:
-    """configs/demo.toml with absolute data paths, 3 folds and 2 bootstrap resamples."""
-    text = DEMO.read_text().replace("../demo_data/", f"{ROOT / 'demo_data'}/")
+N_PATIENTS = 800
+
+
+def demo_slice(folder: Path) -> Path:
+    """The first ``N_PATIENTS`` patients of the demo cohort (all their rows), as CSV files in ``folder``."""
+    folder.mkdir(parents=True, exist_ok=True)
+    patients = pd.read_csv(DATA / "patients.csv", dtype=str)
+    keep = set(sorted(patients["patient_id"])[:N_PATIENTS])
+    for name in ("patients", "measurements", "outcomes"):
+        table = patients if name == "patients" else pd.read_csv(DATA / f"{name}.csv", dtype=str)
+        table[table["patient_id"].isin(keep)].to_csv(folder / f"{name}.csv", index=False)
+    return folder
+
+
+def small_config(folder: Path, data: Path, *, horizon_years: float = 2.0) -> Path:
+    """configs/demo.toml reading ``data``, with 3 folds, 2 bootstrap resamples, one process."""
+    text = DEMO.read_text().replace("../demo_data/clean/", f"{data}/")
     text = re.sub(r"(?m)^bootstrap_reps = \d+", "bootstrap_reps = 2", text)
     text = re.sub(r"(?m)^folds = \d+", "folds = 3", text)
+    text = re.sub(r"(?m)^n_jobs = \d+", "n_jobs = 1", text)  # worker start-up would cost more than it saves
     if horizon_years != 2.0:
         text = re.sub(r"(?m)^horizon_years = [\d.]+", f"horizon_years = {horizon_years}", text)
         text = re.sub(r"(?m)^horizons_years = \[.*\]", f"horizons_years = [1.0, {horizon_years}]", text)
@@ -45,9 +61,10 @@ def demo_run(tmp_path_factory):
     if not (DATA / "patients.csv").is_file():
         pytest.skip("the committed demo cohort (demo_data/clean) is not in this checkout")
     base = tmp_path_factory.mktemp("e2e")
-    config = small_config(base)
+    data = demo_slice(base / "data")
+    config = small_config(base, data)
     result = run_analysis(config, base / "results" / "demo", log=None)
-    return {"base": base, "config": config, "result": result, "run": result.run_dir}
+    return {"base": base, "data": data, "config": config, "result": result, "run": result.run_dir}
 
 
 def test_report_has_every_section_and_the_run_folder_is_complete(demo_run):
@@ -68,8 +85,9 @@ def test_report_has_every_section_and_the_run_folder_is_complete(demo_run):
 
 
 def test_no_input_patient_id_appears_in_any_output(demo_run):
-    ids = set(pd.read_csv(DATA / "patients.csv", dtype=str)["patient_id"])
-    ids |= set(pd.read_csv(DATA / "outcomes.csv", dtype=str)["patient_id"])
+    data = demo_run["data"]
+    ids = set(pd.read_csv(data / "patients.csv", dtype=str)["patient_id"])
+    ids |= set(pd.read_csv(data / "outcomes.csv", dtype=str)["patient_id"])
     pattern = re.compile("|".join(sorted(map(re.escape, ids), key=len, reverse=True)).encode())
     run = demo_run["run"]
     files = [p for p in run.rglob("*") if p.is_file()]
@@ -102,7 +120,7 @@ def test_same_configuration_and_data_give_identical_tables(demo_run):
 
 
 def test_changing_the_horizon_changes_the_outputs_that_depend_on_it(demo_run):
-    config = load_config(small_config(demo_run["base"] / "h15", horizon_years=1.5))
+    config = load_config(small_config(demo_run["base"] / "h15", demo_run["data"], horizon_years=1.5))
     out = demo_run["base"] / "h15" / "run"
     STAGE_FUNCTIONS["cohort"](config, out)
     STAGE_FUNCTIONS["models"](config, out)
