@@ -44,6 +44,14 @@ def sample_death_days(age_at_entry: np.ndarray, p: GeneratorParameters, rng: np.
     return DAYS_PER_YEAR * np.log1p(e / scale) / p.gompertz_c
 
 
+def cumulative_before(group: np.ndarray, increment: np.ndarray) -> np.ndarray:
+    """Sum of ``increment`` over the earlier rows of the same group (rows of a group are contiguous)."""
+    running = np.cumsum(increment)
+    first = np.r_[True, group[1:] != group[:-1]]
+    group_first = np.maximum.accumulate(np.where(first, np.arange(first.size), 0))
+    return running - increment - (running[group_first] - increment[group_first])
+
+
 def sample_piecewise_event_days(
     piece_patient: np.ndarray,
     start: np.ndarray,
@@ -79,12 +87,8 @@ def sample_piecewise_event_days(
     e = rng.exponential(size=n_patients)
     base0 = baseline_cumhaz(start, p)
     increment = np.exp(linear_predictor) * (baseline_cumhaz(stop, p) - base0)
-    running = np.cumsum(increment)
-    # restart the running sum at each patient's first piece
-    first = np.r_[True, piece_patient[1:] != piece_patient[:-1]]
-    group_first = np.maximum.accumulate(np.where(first, np.arange(first.size), 0))
-    cum_after = running - (running[group_first] - increment[group_first])
-    cum_before = cum_after - increment
+    cum_before = cumulative_before(piece_patient, increment)
+    cum_after = cum_before + increment
     target = e[piece_patient]
     hit = (cum_before < target) & (cum_after >= target)
     event = np.full(n_patients, np.inf)

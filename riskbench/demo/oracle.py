@@ -6,8 +6,8 @@ oracle therefore averages over ``n_paths`` simulated futures (Monte Carlo, seede
 
 * the next CT is drawn from the protocol rule starting at the last exam before s, conditioned on
   falling after s (exactly, by inverting the conditional distribution: the realised history showed
-  no exam in between); likewise the next lab draw; later visits follow the protocol unconditionally; each visit measures new values
-  from the patient's hidden state;
+  no exam in between); likewise the next lab draw; later visits follow the protocol; each visit
+  measures new values from the patient's hidden state;
 * given one future path, the cumulative incidence of the outcome with death as a competing risk,
   ``integral_s^{s+w} h1(t) exp(-(H1(t) - H1(s)) - (H2(t) - H2(s))) dt``, is computed without sampling
   event times: in each piece the integral is taken over the baseline cumulative hazard by
@@ -26,7 +26,7 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
-from riskbench.demo.hazards import baseline_cumhaz, baseline_cumhaz_inverse, death_cumhaz
+from riskbench.demo.hazards import baseline_cumhaz, baseline_cumhaz_inverse, cumulative_before, death_cumhaz
 from riskbench.demo.parameters import GeneratorParameters
 from riskbench.demo.process import (
     exam_interval_bounds,
@@ -100,20 +100,17 @@ def _chunk_risk(
     start = np.maximum(fut.day + origin[fut.patient], s[fut.patient])  # back to days since entry
     stop = piece_stops(fut.patient, start, end)
     x = covariate_matrix(fut, sim.first_log_volume[g], sim.age_at_entry[g], sim.pack_years[g])
-    eta = np.exp(x @ np.asarray(p.beta()))
+    ratio = np.exp(x @ np.asarray(p.beta()))  # hazard ratio on each piece
     age = sim.age_at_entry[g][fut.patient]
     lo, hi = baseline_cumhaz(start, p), baseline_cumhaz(stop, p)
     death_lo = death_cumhaz(start, age, p)
     piece_cif = np.empty(start.size)
     at_entry = start == 0  # the Weibull baseline is not smooth at t = 0: more nodes there
     for mask, (nodes, weights) in ((~at_entry, _RULE), (at_entry, _RULE_AT_ENTRY)):
-        piece_cif[mask] = _piece_incidence(lo[mask], hi[mask], eta[mask], age[mask], death_lo[mask], nodes,
+        piece_cif[mask] = _piece_incidence(lo[mask], hi[mask], ratio[mask], age[mask], death_lo[mask], nodes,
                                            weights, p)
-    increment = eta * (hi - lo) + death_cumhaz(stop, age, p) - death_lo
-    running = np.cumsum(increment)
-    first = np.r_[True, fut.patient[1:] != fut.patient[:-1]]
-    group_first = np.maximum.accumulate(np.where(first, np.arange(first.size), 0))
-    before = running - increment - (running[group_first] - increment[group_first])
+    increment = ratio * (hi - lo) + death_cumhaz(stop, age, p) - death_lo
+    before = cumulative_before(fut.patient, increment)
     per_path = np.bincount(fut.patient, weights=np.exp(-before) * piece_cif, minlength=m)
     per_path = per_path.reshape(-1, n_paths)
     se = per_path.std(axis=1, ddof=1) / np.sqrt(n_paths) if n_paths > 1 else np.full(per_path.shape[0], np.nan)
@@ -121,18 +118,18 @@ def _chunk_risk(
 
 
 def _piece_incidence(
-    lo: np.ndarray, hi: np.ndarray, eta: np.ndarray, age: np.ndarray, death_lo: np.ndarray,
+    lo: np.ndarray, hi: np.ndarray, ratio: np.ndarray, age: np.ndarray, death_lo: np.ndarray,
     nodes: np.ndarray, weights: np.ndarray, p: GeneratorParameters,
 ) -> np.ndarray:
     """Outcome incidence within each piece given event-free at its start.
 
-    Gauss-Legendre in the baseline cumulative hazard u (dH1 = exp(eta) du on the piece), where the
-    integrand exp(eta) exp(-exp(eta) (u - lo) - (H2(t(u)) - H2(start))) is smooth.
+    Gauss-Legendre in the baseline cumulative hazard u (dH1 = ratio du on the piece, ratio = exp(eta)),
+    where the integrand ratio exp(-ratio (u - lo) - (H2(t(u)) - H2(start))) is smooth.
     """
     u = lo[:, None] + (hi - lo)[:, None] * (1 + nodes[None, :]) / 2
     t = baseline_cumhaz_inverse(u, p)
-    integrand = eta[:, None] * np.exp(
-        -eta[:, None] * (u - lo[:, None]) - (death_cumhaz(t, age[:, None], p) - death_lo[:, None])
+    integrand = ratio[:, None] * np.exp(
+        -ratio[:, None] * (u - lo[:, None]) - (death_cumhaz(t, age[:, None], p) - death_lo[:, None])
     )
     return (hi - lo) / 2 * (integrand @ weights)
 
