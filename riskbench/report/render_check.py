@@ -87,3 +87,14 @@ def check_report_renders(html_path: str | Path, chromium: str, *, timeout: float
     if not found:
         raise RuntimeError(f"chromium did not render the page (exit {proc.returncode}): {proc.stderr[-500:]}")
     return RenderCheck(images=int(found.group(1)), broken=int(found.group(2)))
+
+
+def require_chromium(*, install: bool = True) -> str:
+    """The chromium path, or raise :class:`unittest.SkipTest` with the reason (test-setup helper: test
+    runners, pytest included, report that as a skip)."""
+    import unittest
+
+    path, reason = chromium_or_reason(install=install)
+    if path is None:
+        raise unittest.SkipTest(f"headless browser check skipped: {reason}")
+    return path
