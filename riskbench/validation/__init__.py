@@ -1,5 +1,18 @@
 """riskbench.validation: patient-grouped resampling, bootstrap optimism, paired comparison of model specs,
-reclassification, variable-group importance and parallel execution (joblib or Dask)."""
+reclassification, variable-group importance and parallel execution (joblib or Dask).
+
+Typical use (time in days)::
+
+    source = PrecomputedTables.from_cohort(cohort, landmarks_days, horizon_days)
+    clinical = ModelSpec("clinical", ["serum_marker", "age_at_entry", "pack_years"])
+    full = ModelSpec("imaging + clinical", [*clinical.covariates, "log_nodule_volume", "suspicion_score"])
+    optimism = bootstrap_optimism([clinical, full], source, [365.25, 730.5], n_boot=200, seed=1)
+    comparison = compare_specs([clinical, full], source, [730.5], n_boot=200, seed=1,
+                               config=ExecutionConfig(n_jobs=2))   # or scheduler_address="tcp://..."
+
+Every resampling step works on patients (all of a patient's rows move together) and every replicate
+draws from its own seed spawned from ``seed``, so serial, joblib and Dask runs give identical numbers.
+"""
 
 from riskbench.validation.comparison import Comparison, compare_specs
 from riskbench.validation.errors import ValidationInputError

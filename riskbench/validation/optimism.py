@@ -24,7 +24,7 @@ import pandas as pd
 from riskbench.validation.comparison import REPLICATE_ERRORS, collect_replicates, failed_replicate, tagged_replicate
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec
-from riskbench.validation.paired import check_specs, evaluate_fitted, fit_all, predict_all
+from riskbench.validation.paired import check_specs, evaluate_fitted, fit_all, percentile_summary, predict_all
 from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
 from riskbench.validation.performance import check_horizons
 from riskbench.validation.plans import bootstrap_patient_draw
@@ -111,16 +111,8 @@ def bootstrap_optimism(
     job = _OptimismJob(specs=specs, source=source, horizons=hs, thresholds=ths)
     results = run_replicates(_optimism_replicate, job, seed, n_boot, config, description="bootstrap optimism")
     reps, _, _ = collect_replicates(results)
-    alpha = (1.0 - level) / 2.0
-    summary = (
-        reps.groupby(OPTIMISM_KEYS, dropna=False, sort=False)["value"]
-        .agg(
-            optimism="mean",
-            optimism_low=lambda v: float(np.nanquantile(v, alpha)),
-            optimism_high=lambda v: float(np.nanquantile(v, 1 - alpha)),
-            n_boot="count",
-        )
-        .reset_index()
+    summary = percentile_summary(reps, OPTIMISM_KEYS, level=level).rename(
+        columns={"estimate": "optimism", "ci_low": "optimism_low", "ci_high": "optimism_high"}
     )
     out = apparent.rename(columns={"value": "apparent"}).merge(summary, on=OPTIMISM_KEYS, how="left")
     out["corrected"] = out["apparent"] - out["optimism"]

@@ -76,3 +76,10 @@ def test_bootstrap_optimism_on_local_cluster_equals_serial(local_cluster):
     on_cluster = bootstrap_optimism(specs, source, [365.0], n_boot=3, seed=4,
                                     config=ExecutionConfig(scheduler_address=local_cluster.scheduler_address))
     pd.testing.assert_frame_equal(serial, on_cluster, check_exact=True)
+
+
+def test_progress_bar_only_when_asked_or_interactive(capsys):
+    run_replicates(_mean_of_draws, {"n": 5}, 1, 3, ExecutionConfig(progress=True), description="resampling")
+    assert "resampling" in capsys.readouterr().err
+    run_replicates(_mean_of_draws, {"n": 5}, 1, 3, description="resampling")  # stderr is not a terminal here
+    assert "resampling" not in capsys.readouterr().err
