@@ -5,10 +5,12 @@ Goal (issue 4): 50 000 landmark-stack rows fitted (and predicted on 10 000 held-
 held-out Harrell concordance of the coarsened forest within 0.01 of a forest on continuous times, both fitted
 on the same 5 000-row subsample (continuous times are what makes the forest run out of memory at scale).
 
-The stack is simulated here with a seed (the demo cohort is smaller than 50 k rows): patients seen at
-landmarks 0, 6, 12, 18 and 24 months, eight covariates known at the landmark (two with a non-linear effect,
-two pure noise), an outcome and a competing event, horizon 2 years. Each measured fit runs in its own
-child process so its peak resident set size (``ru_maxrss``) is its own.
+Data: the synthetic demo cohort (``riskbench.demo.generate_cohort``, seeded) through the cohort stage
+(``build_cohort`` with ``demo_cohort_spec()``), landmarks every 6 months for 3.5 years, horizon 2 years;
+the first 50 000 stack rows (sorted by patient) of one cohort for fitting, 10 000 rows of another for testing.
+The data are built once (not timed); each measured fit runs in its own child process; its peak memory is the
+larger of its own ``ru_maxrss`` and the peak, sampled every 50 ms, of the summed resident set size of the
+child and its worker processes.
 
 Run: ``.venv/bin/python benchmarks/forest.py [--repeats 3]``. Prints medians; the last line is the summary.
 """
@@ -17,44 +19,44 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import resource
 import subprocess
 import sys
+import tempfile
 import time
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 MONTH = 365.25 / 12
 HORIZON = 24 * MONTH
-COVARIATES = [f"x{j}" for j in range(8)]
+LANDMARKS = [k * 6 * MONTH for k in range(8)]
+COVARIATES = [
+    "landmark", "log_nodule_volume", "log_nodule_volume_change", "suspicion_score", "serum_marker",
+    "days_since_exam", "n_exams", "age", "sex_male", "pack_years",
+]
 N_ROWS, N_TEST, N_SUB = 50_000, 10_000, 5_000
 FOREST_PARAMS = dict(n_estimators=100, max_samples=5_000, min_samples_leaf=15, random_state=0, n_jobs=2)
 SUBSAMPLE_PARAMS = dict(n_estimators=50, max_samples=None)
 
 
-def simulate_stack(n_rows: int, seed: int) -> pd.DataFrame:
-    """Landmark stack of ``n_rows`` rows (5 landmarks per patient) from a known non-linear hazard."""
-    rng = np.random.default_rng(seed)
-    landmarks = np.arange(5) * 6 * MONTH
-    n_patients = n_rows // len(landmarks)
-    base = rng.normal(size=(n_patients, len(COVARIATES)))
-    frames = []
-    for s in landmarks:
-        x = base + rng.normal(scale=0.3, size=base.shape)
-        lp = 0.8 * x[:, 0] - 0.5 * x[:, 1] + 0.6 * np.abs(x[:, 2]) + 0.4 * (x[:, 3] > 0.5) + 0.3 * x[:, 4] * x[:, 5]
-        t1 = rng.exponential(1500.0 / np.exp(lp))
-        t2 = rng.exponential(4000.0, size=n_patients)
-        censor = rng.uniform(90.0, 1500.0, size=n_patients)
-        t = np.minimum.reduce([t1, t2, censor, np.full(n_patients, HORIZON)])
-        status = np.where(t == t1, 1, np.where(t == t2, 2, 0))
-        frame = pd.DataFrame(x, columns=COVARIATES)
-        frame.insert(0, "status", status)
-        frame.insert(0, "time", t)
-        frame.insert(0, "landmark", s)
-        frame.insert(0, "patient_id", [f"B{seed}_{i:06d}" for i in range(n_patients)])
-        frames.append(frame)
-    return pd.concat(frames, ignore_index=True)
+def demo_stack(n_rows: int, n_patients: int, seed: int) -> pd.DataFrame:
+    """The first ``n_rows`` landmark rows (sorted by patient) of a seeded demo cohort."""
+    from riskbench.cohort import build_cohort
+    from riskbench.demo import generate_cohort
+    from riskbench.demo.cohort_spec import demo_cohort_spec
+
+    cohort = generate_cohort(n_patients, seed=seed, n_risk_paths=0)
+    tables = build_cohort(cohort.patients, cohort.measurements, cohort.outcomes, demo_cohort_spec())
+    stack = tables.landmark_stack(LANDMARKS, HORIZON).dropna(subset=COVARIATES)
+    stack = stack.sort_values(["patient_id", "landmark"], kind="stable").reset_index(drop=True)
+    last_patient = stack["patient_id"].iloc[min(n_rows, len(stack)) - 1]
+    keep = stack["patient_id"] <= last_patient
+    if keep.sum() < n_rows:
+        raise RuntimeError(f"the demo cohort gave only {int(keep.sum())} rows; raise n_patients")
+    return stack[keep].iloc[:n_rows]
 
 
 def concordance(stack: pd.DataFrame, risk: np.ndarray) -> float:
@@ -64,12 +66,12 @@ def concordance(stack: pd.DataFrame, risk: np.ndarray) -> float:
     return float(concordance_index(stack["time"], -risk, stack["status"] == 1))
 
 
-def child(task: str) -> None:
+def child(task: str, folder: Path) -> None:
     """Run one measured task and print a JSON line: seconds, peak RSS (bytes), concordance."""
     from riskbench.models import SurvivalForest
 
-    train = simulate_stack(N_ROWS, seed=1)
-    test = simulate_stack(N_TEST, seed=2)
+    train = pd.read_parquet(folder / "train.parquet")
+    test = pd.read_parquet(folder / "test.parquet")
     if task == "full":
         params, rows = FOREST_PARAMS | {"grid_days": MONTH}, train
     else:
@@ -86,27 +88,60 @@ def child(task: str) -> None:
     print(json.dumps({"seconds": seconds, "fit_seconds": fitted - started, "peak_bytes": peak, "c_index": concordance(test, risk)}))
 
 
-def run(task: str) -> dict:
-    out = subprocess.run([sys.executable, __file__, "--child", task], capture_output=True, text=True, check=True)
-    return json.loads(out.stdout.strip().splitlines()[-1])
+def run(task: str, folder: Path) -> dict:
+    """Run one task in a child process; add the peak of the summed RSS of the child and its workers."""
+    import psutil
+
+    command = [sys.executable, __file__, "--child", task, "--data", str(folder)]
+    child_process = subprocess.Popen(command, stdout=subprocess.PIPE, text=True)
+    watched, peak, cpu = psutil.Process(child_process.pid), 0, {}
+    while child_process.poll() is None:
+        total = 0
+        try:
+            for proc in [watched, *watched.children(recursive=True)]:
+                with proc.oneshot():
+                    total += proc.memory_info().rss
+                    times = proc.cpu_times()
+                    cpu[proc.pid] = times.user + times.system
+        except psutil.Error:  # a worker ended between listing and reading
+            pass
+        peak = max(peak, total)
+        time.sleep(0.05)
+    out, _ = child_process.communicate()
+    if child_process.returncode:
+        raise RuntimeError(f"benchmark task {task} failed with exit code {child_process.returncode}")
+    result = json.loads(out.strip().splitlines()[-1])
+    result["tree_peak_bytes"] = peak
+    result["cpu_seconds"] = sum(cpu.values())  # last CPU times seen of the child and its workers (incl. setup)
+    return result
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=3)
-    parser.add_argument("--child", choices=["full", "sub_grid", "sub_continuous"])
+    parser.add_argument("--child", choices=["full", "sub_grid", "sub_continuous"], help=argparse.SUPPRESS)
+    parser.add_argument("--data", type=Path, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
-        child(args.child)
+        child(args.child, args.data)
         return
-    full = [run("full") for _ in range(args.repeats)]
-    grid, continuous = run("sub_grid"), run("sub_continuous")
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        train = demo_stack(N_ROWS, n_patients=9_000, seed=101)
+        demo_stack(N_TEST, n_patients=2_000, seed=202).to_parquet(folder / "test.parquet")
+        train.to_parquet(folder / "train.parquet")
+        print(f"training stack: {len(train)} rows, {train['patient_id'].nunique()} patients, "
+              f"{int((train['status'] == 1).sum())} outcomes, {int((train['status'] == 2).sum())} competing")
+        full = [run("full", folder) for _ in range(args.repeats)]
+        grid, continuous = run("sub_grid", folder), run("sub_continuous", folder)
     seconds = float(np.median([r["seconds"] for r in full]))
-    peak_gb = max(r["peak_bytes"] for r in full) / 1e9
+    peak_gb = max(max(r["peak_bytes"], r["tree_peak_bytes"]) for r in full) / 1e9
     gap = abs(grid["c_index"] - continuous["c_index"])
     print(f"50k rows, monthly grid, {FOREST_PARAMS['n_estimators']} trees of {FOREST_PARAMS['max_samples']} rows, "
           f"2 jobs: median {seconds:.1f} s over {args.repeats} runs, peak RSS {peak_gb:.2f} GB, "
-          f"held-out C {np.median([r['c_index'] for r in full]):.4f}")
+          f"held-out C {np.median([r['c_index'] for r in full]):.4f}; CPU of the whole child process tree "
+          f"(data loading included) median {np.median([r['cpu_seconds'] for r in full]):.1f} s; "
+          f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
     print(f"5k-row subsample: C monthly grid {grid['c_index']:.4f} ({grid['seconds']:.1f} s, "
           f"{grid['peak_bytes'] / 1e9:.2f} GB) vs continuous times {continuous['c_index']:.4f} "
           f"({continuous['seconds']:.1f} s, {continuous['peak_bytes'] / 1e9:.2f} GB); "
