@@ -86,12 +86,12 @@ def child_large(folder: Path, what: str) -> None:
     if what == "counting_process":
         cohort._con.execute(f"COPY cp TO '{out / 'cp.parquet'}' (FORMAT parquet)")
         seconds = time.perf_counter() - t0
-        rows = cohort._con.execute("SELECT count(*) FROM cp").fetchone()[0]
+        rows = cohort._con.execute("SELECT count(*) FROM cp").fetchall()[0][0]
     else:
         t0 = time.perf_counter()  # the stack alone, from the built cohort
         paths = cohort.write_parquet(out, landmarks_days=LANDMARKS_DAYS, horizon_days=HORIZON_DAYS)
         seconds = time.perf_counter() - t0
-        rows = cohort._con.execute(f"SELECT count(*) FROM read_parquet('{paths['landmark_stack']}')").fetchone()[0]
+        rows = cohort._con.execute(f"SELECT count(*) FROM read_parquet('{paths['landmark_stack']}')").fetchall()[0][0]
     peak_gb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
     print(json.dumps({"what": what, "seconds": seconds, "rows": rows, "peak_gb": peak_gb}))
 
