@@ -225,34 +225,32 @@ class CohortDerivation:
         self._landmarks = tuple(float(s) for s in landmarks_days)
         self._horizon = float(horizon_days)
         self._with_cp = with_counting_process
-        self._id_column = self._patient_id_column(patients)
-        self._full, self._cohort_patients = self._derive(patients[self._id_column].unique())
+        patient_column = self._id_columns()[0]
+        self._full, self._cohort_patients = self._derive(patients[patient_column].astype(str).unique())
         cp = self._full.counting_process
         rows = cp if cp is not None else self._full.landmark_stack
-        status = patient_outcome_status(rows["patient_id"].to_numpy(), rows["status"].to_numpy())
-        self._status = status
+        self._status = patient_outcome_status(rows["patient_id"].to_numpy(), rows["status"].to_numpy())
 
-    def _patient_id_column(self, patients: pd.DataFrame) -> str:
-        columns = getattr(self._spec, "columns", None) or {}
-        name = columns.get("patient_id", "patient_id") if isinstance(columns, dict) else "patient_id"
-        if name not in patients.columns:
-            raise ValidationInputError(f"the patients table lacks the patient id column '{name}'.")
-        return name
+    def _id_columns(self) -> tuple[str, str, str]:
+        """Source column holding the patient id in each raw table, from the spec's column map."""
+        mapping = getattr(self._spec, "columns", None) or {}
+        names = []
+        for table, frame in zip(("patients", "measurements", "outcomes"), self._raw):
+            name = dict(mapping.get(table, {})).get("patient_id", "patient_id")
+            if name not in frame.columns:
+                raise ValidationInputError(
+                    f"the {table} table lacks its patient id column '{name}' (from the cohort spec's column map)."
+                )
+            names.append(name)
+        return names[0], names[1], names[2]
 
     def _derive(self, raw_ids: np.ndarray) -> tuple[ValidationTables, pd.DataFrame]:
         from riskbench.cohort import build_cohort
 
-        patients, measurements, outcomes = self._raw
         keep = set(np.asarray(raw_ids).tolist())
-        # Measurements and outcomes use the same id column name as patients under the spec's column map.
-        cohort = build_cohort(
-            patients.loc[patients[self._id_column].isin(keep)],
-            measurements.loc[measurements[self._id_column].isin(keep)]
-            if self._id_column in measurements.columns
-            else measurements,
-            outcomes.loc[outcomes[self._id_column].isin(keep)] if self._id_column in outcomes.columns else outcomes,
-            self._spec,
-        )
+        # Raw ids may be typed differently from the cohort's string ids: compare as text.
+        subsets = [frame.loc[frame[col].astype(str).isin(keep)] for frame, col in zip(self._raw, self._id_columns())]
+        cohort = build_cohort(*subsets, self._spec)
         stack = cohort.landmark_stack(self._landmarks, self._horizon)
         cp = cohort.counting_process if self._with_cp else None
         return ValidationTables(stack.reset_index(drop=True), cp), cohort.patients
