@@ -110,3 +110,18 @@ def test_clear_errors(make_stack) -> None:
         smooth.predict_risk(stack.head(2), 2000.0)
     with pytest.raises(ModelInputError, match="not fitted"):
         LandmarkSupermodel(["x1"]).predict_risk(stack.head(2), 100.0)
+
+
+def test_breslow_ties_equal_scikit_survival_on_one_landmark(make_stack) -> None:
+    """With one landmark, ties="breslow" and times rounded to whole weeks (many ties), the coefficients equal
+    scikit-survival's CoxPHSurvivalAnalysis(ties="breslow") to 1e-5."""
+    from sksurv.linear_model import CoxPHSurvivalAnalysis
+
+    stack = make_stack(n_patients=300, landmarks=(0.0,), seed=8, competing_rate=0)
+    stack = stack.assign(time=np.ceil(stack["time"] / 7) * 7)
+    assert stack.loc[stack["status"] == 1, "time"].duplicated().sum() > 20
+    ours = LandmarkSupermodel(["x1", "x2"], landmark_effects="none", ties="breslow").fit(stack)
+    target = np.empty(len(stack), dtype=[("event", bool), ("time", float)])
+    target["event"], target["time"] = stack["status"] == 1, stack["time"]
+    reference = CoxPHSurvivalAnalysis(ties="breslow").fit(stack[["x1", "x2"]].to_numpy(), target)
+    np.testing.assert_allclose(ours.coef_, reference.coef_, atol=1e-5)
