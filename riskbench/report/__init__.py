@@ -1,1 +1,6 @@
 """riskbench.report"""
+
+from riskbench.report.html_report import build_report
+from riskbench.report.suppression import format_count, suppress_counts
+
+__all__ = ["build_report", "format_count", "suppress_counts"]

@@ -80,7 +80,7 @@ def discrimination_table(time: np.ndarray, status: np.ndarray, horizons: np.ndar
     table["horizon_years"] = table.pop("horizon_days") / DAYS_PER_YEAR
     table = table.drop(columns=["threshold"])
     return table.pivot_table(index=["horizon_years", "metric"], columns="model", values="value",
-                             sort=False).reset_index()
+                             sort=False, dropna=False).reset_index()
 
 
 def _column(horizons: np.ndarray, h: float) -> int:
