@@ -91,7 +91,7 @@ class SurvivalForest(BaseEstimator):
     random_state : int
         Seed for bootstrap samples and split candidates.
     n_jobs : int
-        Worker processes for growing the trees (blocks of 25 trees; see module notes).
+        Worker processes for growing the trees (blocks of 25 trees; see module notes); -1 uses every core.
 
     Attributes (after fit)
     ----------------------
@@ -140,7 +140,7 @@ class SurvivalForest(BaseEstimator):
 
     def _grow(self, x: np.ndarray, target: np.ndarray):
         """Grow the trees in seeded blocks (in parallel processes when n_jobs > 1) and merge them."""
-        from joblib import Parallel, delayed
+        from joblib import Parallel, delayed, effective_n_jobs
 
         if int(self.n_estimators) < 1:
             raise ModelInputError(f"n_estimators must be at least 1, got {self.n_estimators!r}")
@@ -159,7 +159,7 @@ class SurvivalForest(BaseEstimator):
             max_features=self.max_features,
             max_depth=self.max_depth,
         )
-        n_workers = max(1, min(int(self.n_jobs), len(sizes)))
+        n_workers = max(1, min(effective_n_jobs(self.n_jobs), len(sizes)))  # -1 means every core
         blocks = Parallel(n_jobs=n_workers, backend="loky" if n_workers > 1 else "sequential")(
             delayed(_grow_block)(x, target, size, seed, params) for size, seed in zip(sizes, seeds)
         )
