@@ -104,13 +104,13 @@ class _Spoiler:
                  rng: np.random.Generator) -> None:
         self.rng = rng
         self.n = len(patients)
-        self.index_of = pd.Series(np.arange(self.n), index=patients["patient_id"].to_numpy())
+        ids = pd.Index(patients["patient_id"].to_numpy())
         self.entry = _days(patients["entry_date"])
         self.end = _days(outcomes["date"]) - self.entry  # clean: one terminal row per patient, in order
         self.kind = outcomes["kind"].to_numpy()
         self.m = measurements.copy()
         self.m["_text"] = None  # text that replaces a number (unparseable values)
-        self.m_patient = self.index_of[self.m["patient_id"].to_numpy()].to_numpy()
+        self.m_patient = ids.get_indexer(self.m["patient_id"].to_numpy())
         self.m_day = _days(self.m["date"]) - self.entry[self.m_patient]
         self.free = np.ones(self.n, dtype=bool)
         self.extra_m: list[pd.DataFrame] = []

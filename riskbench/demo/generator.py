@@ -202,6 +202,7 @@ def generate_cohort(
     if variant == "messy":
         from riskbench.demo.defects import spoil  # the clean path never needs it
 
+        del sim  # the simulated arrays are not needed to spoil the tables: free them first
         spoiled = spoil(patients, measurements, outcomes, np.random.default_rng(defect_seed))
         return SyntheticCohort(
             spoiled.patients, spoiled.measurements, spoiled.outcomes, variant, seed, spoiled.defects, None
