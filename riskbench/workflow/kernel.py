@@ -48,3 +48,24 @@ def ensure_kernel(name: str = KERNEL_NAME) -> str:
             f"(jupyter kernelspec remove {name}) and retry"
         )
     return name
+
+
+def local_socket_kernel_manager(folder: str) -> type:
+    """A kernel manager class that talks to the kernel over Unix-domain sockets in ``folder``, not TCP.
+
+    Running the notebooks then opens no network port, not even on localhost. Keep ``folder`` short (socket
+    names are limited to about 100 characters), private, and remove it after the run.
+    """
+    from jupyter_client.manager import AsyncKernelManager
+    from traitlets import default
+
+    class LocalSocketKernelManager(AsyncKernelManager):
+        @default("transport")
+        def _default_transport(self) -> str:
+            return "ipc"
+
+        @default("ip")
+        def _default_ip(self) -> str:
+            return os.path.join(folder, "k")
+
+    return LocalSocketKernelManager

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import os
 import shutil
+import tempfile
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -23,7 +24,7 @@ from pathlib import Path
 import nbformat
 
 from riskbench.workflow.config import AnalysisConfig, load_config
-from riskbench.workflow.kernel import ensure_kernel
+from riskbench.workflow.kernel import ensure_kernel, local_socket_kernel_manager
 from riskbench.workflow.manifest import build_manifest, utc_now, write_manifest
 from riskbench.workflow.notebook_builder import STAGE_NOTEBOOKS, write_notebooks
 from riskbench.workflow.notebook_html import export_html
@@ -94,9 +95,6 @@ def run_analysis(
     StageFailed
         A stage notebook raised an error.
     """
-    import papermill as pm
-    from papermill.exceptions import PapermillExecutionError
-
     say = log or (lambda _msg: None)
     config: AnalysisConfig = load_config(config_path)
     out = Path(out).resolve()
@@ -116,8 +114,25 @@ def run_analysis(
         write_notebooks(notebooks_dir)
     notebooks_dir = Path(notebooks_dir)
     kernel = ensure_kernel()
-
     started = utc_now()
+    with tempfile.TemporaryDirectory(prefix="rbk-") as sockets:
+        seconds = _run_stages(config, stages, notebooks_dir, staging, failed, kernel,
+                              local_socket_kernel_manager(sockets), started, say)
+
+    shutil.rmtree(staging / ".templates", ignore_errors=True)
+    manifest = build_manifest(config, staging, started=started, finished=utc_now(), stage_seconds=seconds)
+    write_manifest(manifest, staging)
+    _move_into_place(staging, out)
+    return RunResult(run_dir=out, report=out / REPORT, manifest=out / "manifest.json", stage_seconds=seconds)
+
+
+def _run_stages(config: AnalysisConfig, stages: Sequence[tuple[str, str]], notebooks_dir: Path, staging: Path,
+                failed: Path, kernel: str, manager: type, started: str,
+                say: Callable[[str], None]) -> dict[str, float]:
+    """Execute each stage notebook into the staging folder and export it; return seconds per stage."""
+    import papermill as pm
+    from papermill.exceptions import PapermillExecutionError
+
     seconds: dict[str, float] = {}
     for name, notebook in stages:
         source = notebooks_dir / notebook
@@ -129,7 +144,7 @@ def run_analysis(
                 str(source), str(executed),
                 parameters={"config_path": str(config.path), "run_dir": str(staging)},
                 kernel_name=kernel, language="python", progress_bar=False, log_output=False, cwd=str(staging),
-                request_save_on_cell_execute=True,
+                request_save_on_cell_execute=True, kernel_manager_class=manager,
             )
         except PapermillExecutionError as exc:
             seconds[name] = time.perf_counter() - t0
@@ -137,12 +152,7 @@ def run_analysis(
         seconds[name] = time.perf_counter() - t0
         export_html(executed, executed.with_suffix(".html"))
         say(f"stage {name}: done in {seconds[name]:.1f} s")
-
-    shutil.rmtree(staging / ".templates", ignore_errors=True)
-    manifest = build_manifest(config, staging, started=started, finished=utc_now(), stage_seconds=seconds)
-    write_manifest(manifest, staging)
-    _move_into_place(staging, out)
-    return RunResult(run_dir=out, report=out / REPORT, manifest=out / "manifest.json", stage_seconds=seconds)
+    return seconds
 
 
 def _stop(config: AnalysisConfig, staging: Path, failed: Path, stage: str, notebook: str, started: str,
