@@ -35,11 +35,14 @@ class ExecutionConfig:
         replicates run on that cluster.
     progress : bool, optional
         Show a progress bar; by default only when standard error is an interactive terminal.
+    connect_timeout_s : float, default 20
+        Seconds to wait for the Dask scheduler before giving up.
     """
 
     n_jobs: int = 1
     scheduler_address: str | None = None
     progress: bool | None = None
+    connect_timeout_s: float = 20.0
 
     def __post_init__(self) -> None:
         if not isinstance(self.n_jobs, (int, np.integer)) or self.n_jobs == 0 or self.n_jobs < -1:
@@ -129,7 +132,7 @@ def run_replicates(
     seeds = replicate_seeds(seed, n)
     show = _show_progress(config)
     if config.scheduler_address is not None:
-        return _run_dask(func, shared, seeds, config.scheduler_address, show, description)
+        return _run_dask(func, shared, seeds, config, show, description)
     if config.n_jobs == 1:
         return [
             _single_threaded(func, shared, i, s)
@@ -146,7 +149,7 @@ def _run_dask(
     func: ReplicateFunction,
     shared: Any,
     seeds: Sequence[np.random.SeedSequence],
-    address: str,
+    config: ExecutionConfig,
     show: bool,
     description: str,
 ) -> list[Any]:
@@ -157,7 +160,15 @@ def _run_dask(
             "a Dask scheduler address was configured but dask.distributed is not installed; "
             "install the 'cluster' extra (pip install 'riskbench[cluster]') or unset scheduler_address."
         ) from exc
-    with Client(address, set_as_default=False) as client:
+    address = config.scheduler_address
+    try:
+        client = Client(address, set_as_default=False, timeout=f"{config.connect_timeout_s}s")
+    except (OSError, TimeoutError) as exc:
+        raise ValidationInputError(
+            f"cannot reach the Dask scheduler at {address!r} ({exc}); check the address and that the "
+            "scheduler runs, or unset scheduler_address to run on local processes."
+        ) from exc
+    with client:
         shared_future = client.scatter(shared, broadcast=True)
         futures = [
             client.submit(_single_threaded, func, shared_future, i, s, pure=False)

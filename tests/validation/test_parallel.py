@@ -83,3 +83,8 @@ def test_progress_bar_only_when_asked_or_interactive(capsys):
     assert "resampling" in capsys.readouterr().err
     run_replicates(_mean_of_draws, {"n": 5}, 1, 3, description="resampling")  # stderr is not a terminal here
     assert "resampling" not in capsys.readouterr().err
+
+
+def test_unreachable_scheduler_gives_a_clear_error():
+    with pytest.raises(ValidationInputError, match="cannot reach the Dask scheduler"):
+        run_replicates(_mean_of_draws, {"n": 3}, 1, 2, ExecutionConfig(scheduler_address="tcp://127.0.0.1:9", connect_timeout_s=1.0))

@@ -15,8 +15,10 @@ from riskbench.validation import (
     bootstrap_optimism,
     compare_specs,
     draw_tables,
+    evaluate_model,
     evaluate_splits,
     external_validation,
+    fit_spec,
     leave_group_out,
     patient_folds,
     permutation_importance,
@@ -146,3 +148,13 @@ def test_cox_and_forest_families_run_through_the_same_pipeline(source):
     no_cp = PrecomputedTables(source.full_tables().landmark_stack)
     with pytest.raises(ValidationInputError, match="counting-process"):
         evaluate_splits([cox], no_cp, splits, [365.0])
+
+
+def test_apparent_mode_estimates_are_the_full_data_values(source):
+    res = compare_specs([CLINICAL, BOTH], source, [365.0], n_boot=3, seed=1, evaluation="apparent", thresholds=[0.1])
+    full = source.full_tables()
+    direct = evaluate_model(fit_spec(CLINICAL, full), full.landmark_stack, [365.0], thresholds=[0.1])
+    got = res.performance[res.performance["spec"] == "clinical"].set_index(["metric", "threshold"])["estimate"]
+    want = direct.set_index(["metric", "threshold"])["value"]
+    pd.testing.assert_series_equal(got.sort_index(), want.sort_index(), check_names=False)
+    assert res.performance["estimate"].notna().all()
