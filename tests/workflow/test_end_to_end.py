@@ -133,3 +133,25 @@ def test_changing_the_horizon_changes_the_outputs_that_depend_on_it(demo_run):
     # what does not depend on the horizon stays the same
     assert (out / "tables" / "baseline_characteristics.csv").read_bytes() == \
         (run / "tables" / "baseline_characteristics.csv").read_bytes()
+
+
+COUNT_COLUMNS = {
+    "cohort_flow.csv": ("n_patients", "n_excluded"),
+    "ledger_summary.csv": ("rows_remaining", "rows_excluded"),
+    "landmark_summary.csv": ("at_risk", "outcomes", "competing_events"),
+}
+
+
+def test_small_counts_are_hidden_and_pages_load_nothing_from_the_web(demo_run):
+    """Counts 1-9 never appear (threshold 10, common practice); no page refers to a remote script or image."""
+    tables = demo_run["run"] / "tables"
+    for name, columns in COUNT_COLUMNS.items():
+        table = pd.read_csv(tables / name, dtype=str)
+        for column in columns:
+            for value in table[column]:
+                assert value.startswith("<") or not 0 < int(value) < 10, (name, column, value)
+    baseline = pd.read_csv(tables / "baseline_characteristics.csv", dtype=str, keep_default_na=False)
+    for value in baseline.iloc[0, 1:]:
+        assert value in ("<10", "suppressed") or int(value) >= 10
+    for page in demo_run["run"].rglob("*.html"):
+        assert not re.search(r"""(src|href)\s*=\s*["']?(https?:)?//""", page.read_text()), page.name
