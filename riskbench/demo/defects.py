@@ -112,6 +112,7 @@ class _Spoiler:
         self.m["_text"] = None  # text that replaces a number (unparseable values)
         self.m_patient = ids.get_indexer(self.m["patient_id"].to_numpy())
         self.m_day = _days(self.m["date"]) - self.entry[self.m_patient]
+        self.m_variable, self.variable_names = pd.factorize(self.m["variable"])  # codes: cheap to test
         self.free = np.ones(self.n, dtype=bool)
         self.extra_m: list[pd.DataFrame] = []
         self.extra_m_key: list[np.ndarray] = []
@@ -132,7 +133,8 @@ class _Spoiler:
 
     def take_rows(self, defect: str, variables: tuple[str, ...]) -> np.ndarray:
         """One random measurement row (not on the entry day) of each of a fresh group of patients."""
-        ok = self.m["variable"].isin(variables).to_numpy() & (self.m_day >= 1)
+        wanted = [i for i, name in enumerate(self.variable_names) if name in variables]
+        ok = np.isin(self.m_variable, wanted) & (self.m_day >= 1)
         eligible = np.zeros(self.n, dtype=bool)
         eligible[self.m_patient[ok]] = True
         chosen = self.take_patients(defect, eligible)
