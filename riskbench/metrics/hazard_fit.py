@@ -17,23 +17,27 @@ from riskbench.metrics.inputs import MetricInputError
 class HazardFit:
     """Coefficients, their covariance, and the Breslow cumulative baseline hazard.
 
-    ``baseline_times`` are the distinct outcome times; ``baseline_cumhaz`` the cumulative hazard just after each.
+    ``baseline_times`` are the distinct outcome times; ``baseline_log_cumhaz`` the log cumulative hazard
+    just after each (kept on the log scale: with nearly separated data the coefficients grow large and
+    the baseline hazard tiny, and only their combination is meaningful).
     """
 
     coef: np.ndarray
     var: np.ndarray
     baseline_times: np.ndarray
-    baseline_cumhaz: np.ndarray
+    baseline_log_cumhaz: np.ndarray
     converged: bool
 
-    def cumhaz_at(self, t: float) -> float:
-        """Baseline cumulative hazard at time ``t`` (0 before the first outcome)."""
+    def log_cumhaz_at(self, t: float) -> float:
+        """Log baseline cumulative hazard at time ``t`` (-inf before the first outcome)."""
         k = np.searchsorted(self.baseline_times, t, side="right")
-        return float(np.r_[0.0, self.baseline_cumhaz][k])
+        return float(np.r_[-np.inf, self.baseline_log_cumhaz][k])
 
     def risk_at(self, x: np.ndarray, t: float) -> np.ndarray:
         """Probability of the outcome by ``t`` for covariate rows ``x``."""
-        return 1.0 - np.exp(-self.cumhaz_at(t) * np.exp(np.atleast_2d(x) @ self.coef))
+        with np.errstate(over="ignore"):
+            cumhaz = np.exp(self.log_cumhaz_at(t) + np.atleast_2d(x) @ self.coef)
+        return -np.expm1(-cumhaz)
 
 
 def _risk_set_sums(eta, x, order, last_of_time):
@@ -74,13 +78,18 @@ def fit_hazard(x: np.ndarray, time: np.ndarray, event: np.ndarray, *, max_iter: 
 
     def loglik_grad_hess(beta):
         eta = x @ beta
-        s0, s1, s2, shift = _risk_set_sums(eta, x, order, last_of_time)
-        s0, s1, s2, dd = s0[has_d], s1[has_d], s2[has_d], d[has_d]
-        mean = s1 / s0[:, None]
-        ll = eta[ev].sum() - np.sum(dd * (np.log(s0) + shift))
-        grad = x_events - (dd[:, None] * mean).sum(axis=0)
-        info = np.einsum("k,kij->ij", dd, s2 / s0[:, None, None] - mean[:, :, None] * mean[:, None, :])
+        with np.errstate(all="ignore"):  # a diverging step shows up as non-finite values, refused below
+            s0, s1, s2, shift = _risk_set_sums(eta, x, order, last_of_time)
+            s0, s1, s2, dd = s0[has_d], s1[has_d], s2[has_d], d[has_d]
+            mean = s1 / s0[:, None]
+            ll = eta[ev].sum() - np.sum(dd * (np.log(s0) + shift))
+            grad = x_events - (dd[:, None] * mean).sum(axis=0)
+            info = np.einsum("k,kij->ij", dd, s2 / s0[:, None, None] - mean[:, :, None] * mean[:, None, :])
         return ll, grad, info
+
+    def acceptable(new_ll, new_grad, new_info, old_ll):
+        finite = np.isfinite(new_ll) and np.isfinite(new_grad).all() and np.isfinite(new_info).all()
+        return finite and new_ll >= old_ll - 1e-12
 
     beta = np.zeros(x.shape[1])
     ll, grad, info = loglik_grad_hess(beta)
@@ -92,25 +101,26 @@ def fit_hazard(x: np.ndarray, time: np.ndarray, event: np.ndarray, *, max_iter: 
             raise MetricInputError("the calibration model is singular (predicted risks nearly constant?)") from exc
         for _half in range(30):
             new_ll, new_grad, new_info = loglik_grad_hess(beta + step)
-            if np.isfinite(new_ll) and new_ll >= ll - 1e-12:
+            if acceptable(new_ll, new_grad, new_info, ll):
                 break
             step = step / 2
+        else:
+            # no finite improvement: the likelihood is monotone (separated data); keep the last estimate
+            break
         beta = beta + step
         done = abs(new_ll - ll) < tol * (1 + abs(ll))
         ll, grad, info = new_ll, new_grad, new_info
         if done:
             converged = True
             break
-    eta = x @ beta
-    s0, _, _, shift = _risk_set_sums(eta, x, order, last_of_time)
-    # Breslow baseline hazard on the scale exp(x beta)
-    jumps = np.where(has_d, d / (s0 * np.exp(shift)), 0.0)[::-1]
-    asc_times = times[::-1]
-    keep = jumps > 0
+    # Breslow baseline hazard on the scale exp(x beta), in logs: log S0 by a running log-sum-exp is exact
+    # even when the risk sets' linear predictors differ by hundreds
+    log_s0 = np.logaddexp.accumulate((x @ beta)[order])[last_of_time]
+    log_jumps = (np.log(d[has_d]) - log_s0[has_d])[::-1]
     return HazardFit(
         coef=beta,
-        var=np.linalg.inv(info),
-        baseline_times=asc_times[keep],
-        baseline_cumhaz=np.cumsum(jumps[keep]),
+        var=np.linalg.pinv(info),
+        baseline_times=times[has_d][::-1],
+        baseline_log_cumhaz=np.logaddexp.accumulate(log_jumps),
         converged=converged,
     )
