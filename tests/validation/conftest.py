@@ -1,20 +1,7 @@
-"""Shared fixtures: small synthetic landmark stacks with a known hazard, and metric stand-ins if needed."""
+"""Shared helper: small synthetic landmark stacks with a known hazard."""
 
 import numpy as np
 import pandas as pd
-import pytest
-
-import riskbench.metrics
-
-from . import metric_standins
-
-
-@pytest.fixture(autouse=True)
-def _metrics_or_standins(monkeypatch):
-    """Use riskbench.metrics; a name it does not define yet is filled by a test-only stand-in."""
-    for name in metric_standins.NAMES:
-        if not hasattr(riskbench.metrics, name):
-            monkeypatch.setattr(riskbench.metrics, name, getattr(metric_standins, name), raising=False)
 
 
 def simulate_stack(
