@@ -107,7 +107,7 @@ def _figure_html(path: Path) -> str:
 def _table_html(path: Path) -> str:
     table = pd.read_csv(path, dtype=str, keep_default_na=False)
     body = table.to_html(index=False, escape=True, border=0, classes="data")
-    return (f"<h3>{html.escape(_title_of(path))}</h3>{body}"
+    return (f'<h3>{html.escape(_title_of(path))}</h3><div class="wide">{body}</div>'
             f'<p class="source">Table file: <code>tables/{html.escape(path.name)}</code></p>')
 
 
@@ -124,7 +124,7 @@ table.data th{background:#eef3f8}
 table.data td:first-child,table.data th:first-child{text-align:left}
 figure{margin:1em 0} figure img{max-width:100%;height:auto;border:1px solid #e3e8ee}
 figcaption,.source,.meta{font-size:.8em;color:#5a6b7b} .missing{color:#8a4500;font-style:italic}
-nav ol{columns:2;font-size:.9em}
+nav ol{columns:2;font-size:.9em} .wide{overflow-x:auto}
 """
 
 

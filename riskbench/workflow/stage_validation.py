@@ -75,7 +75,9 @@ def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
             PrecomputedTables(tables["landmark_stack"], tables["counting_process"]),
             list(config.report.horizons_days), n_boot=config.validation.bootstrap_reps,
             seed=config.validation.seed, config=execution(config))
-        result.tables["bootstrap_optimism"] = optimism.rename(columns={"spec": "model"})
+        optimism = optimism.rename(columns={"spec": "model"})
+        optimism.insert(2, "horizon_years", optimism.pop("horizon_days") / 365.25)
+        result.tables["bootstrap_optimism"] = optimism.dropna(axis="columns", how="all")
         result.notes.append(
             f"Bootstrap optimism from {config.validation.bootstrap_reps} resamples of patients "
             "(Harrell, Lee & Mark 1996): corrected = apparent - mean optimism.")
