@@ -184,29 +184,22 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
     con.execute(f"CREATE TEMP TABLE units(vidx SMALLINT, unit VARCHAR, factor DOUBLE, lo DOUBLE, hi DOUBLE); "
                 f"INSERT INTO units VALUES {', '.join(units)}")
     # One join on the text id gives both "known id" and the included patient's key and window.
-    con.execute("""CREATE TEMP TABLE id_lookup AS SELECT k.patient_id, p.pidx, p.entry_ts, p.end_days
-                   FROM (SELECT DISTINCT patient_id FROM p1 WHERE patient_id IS NOT NULL) k
+    con.execute("""CREATE TEMP TABLE id_lookup AS SELECT k.patient_id, k.kidx, p.pidx, p.entry_ts, p.end_days
+                   FROM (SELECT patient_id, CAST(row_number() OVER () AS INTEGER) AS kidx
+                         FROM (SELECT DISTINCT patient_id FROM p1 WHERE patient_id IS NOT NULL)) k
                    LEFT JOIN pat p USING (patient_id)""")
     unit_raw = "nullif(trim(CAST(m.unit AS VARCHAR)), '')" if "unit" in loaded.columns else "NULL"
-    same = ", ".join(quote(c) for c in loaded.columns)
-    # Exact duplicates: a cheap hash finds the candidate rows, the exact comparison runs on those only.
-    con.execute(f"""
-        CREATE TEMP TABLE dup_rows AS SELECT row_number FROM (
-            SELECT row_number, row_number() OVER (PARTITION BY {same} ORDER BY row_number) AS copy
-            FROM raw_measurements WHERE hash({same}) IN (
-                SELECT h FROM (SELECT hash({same}) AS h FROM raw_measurements) GROUP BY h HAVING count(*) > 1))
-        WHERE copy > 1""")
     day = _days("m.ts", "k.entry_ts")
     value = "m.raw_value * u.factor"
+    # Exact duplicates are settled after this pass (they share patient, variable and time, see below).
     con.execute(f"""
-        CREATE TEMP TABLE m2 AS SELECT m.row_number, m.patient_id, k.pidx, c.vidx, {day} AS day, {value} AS value,
-            c.is_log,
+        CREATE TEMP TABLE m2 AS SELECT m.row_number, m.patient_id, k.pidx, k.kidx, c.vidx, m.ts,
+            {day} AS day, {value} AS value, c.is_log,
             CASE WHEN m.is_blank THEN '{S.MISSING_REQUIRED}'
                  WHEN m.ts IS NULL THEN '{S.UNPARSEABLE_DATE}'
                  WHEN m.raw_value IS NULL THEN '{S.UNPARSEABLE_VALUE}'
                  WHEN c.vidx IS NULL THEN '{S.UNKNOWN_VARIABLE}'
                  WHEN k.patient_id IS NULL THEN '{S.UNKNOWN_PATIENT}'
-                 WHEN d.row_number IS NOT NULL THEN '{S.EXACT_DUPLICATE}'
                  WHEN k.pidx IS NULL THEN '{S.PATIENT_EXCLUDED}'
                  WHEN u.factor IS NULL THEN '{S.UNKNOWN_UNIT}'
                  WHEN (u.lo IS NOT NULL AND {value} < u.lo) OR (u.hi IS NOT NULL AND {value} > u.hi)
@@ -221,17 +214,36 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
               FROM raw_measurements m) m
         LEFT JOIN var_canon c ON m.var = c.variable
         LEFT JOIN id_lookup k ON m.patient_id = k.patient_id
-        LEFT JOIN dup_rows d ON m.row_number = d.row_number
         LEFT JOIN units u ON u.vidx = c.vidx AND u.unit = coalesce(m.unit_given, c.unit)""")
+    # Identical rows share patient, variable and time, so only rows in crowded (patient, variable, time)
+    # groups can be duplicates or need merging: one grouping on integer keys finds them, and the exact
+    # comparison of every column runs on those few rows only. The checks before the duplicate check depend
+    # only on a row's content, so identical rows that failed them already share that state.
+    early = ", ".join(f"'{st}'" for st in CHECK_ORDER["measurements"][:CHECK_ORDER["measurements"].index(
+        S.EXACT_DUPLICATE)])
+    con.execute(f"""CREATE TEMP TABLE crowded AS SELECT kidx, vidx, ts FROM m2
+                    WHERE state IS NULL OR state NOT IN ({early})
+                    GROUP BY kidx, vidx, ts HAVING count(*) > 1""")
+    same = ", ".join(quote(c) for c in loaded.columns)
+    con.execute(f"""
+        UPDATE m2 SET state = '{S.EXACT_DUPLICATE}' WHERE row_number IN (
+            SELECT row_number FROM (
+                SELECT row_number, row_number() OVER (PARTITION BY {same} ORDER BY row_number) AS copy
+                FROM raw_measurements WHERE row_number IN (
+                    SELECT row_number FROM m2 SEMI JOIN crowded USING (kidx, vidx, ts)
+                    WHERE state IS NULL OR state NOT IN ({early})))
+            WHERE copy > 1)""")
     _merge_same_time(con, spec)
     con.execute(f"""
         CREATE TEMP TABLE meas AS SELECT pidx, day, vidx, CASE WHEN is_log THEN ln(value) ELSE value END AS x
-        FROM m3 WHERE state = '{S.USED}'""")
+        FROM (SELECT pidx, day, vidx, is_log, value FROM m2 m ANTI JOIN crowded c USING (kidx, vidx, ts)
+              WHERE m.state IS NULL
+              UNION ALL SELECT pidx, day, vidx, is_log, value FROM merged WHERE state = '{S.USED}')""")
 
 
 def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
-    """Create ``m3`` (``row_number, patient_id, pidx, vidx, day, is_log, state, value``): the rows of ``m2``
-    with the same-time groups resolved; one row per (patient, variable, time) is used, the others merged."""
+    """Create ``merged`` (``row_number, pidx, vidx, day, is_log, state, value``): the rows of crowded
+    same-time groups resolved; one row per (patient, variable, time) is used, the others merged into it."""
     rule = spec.same_day_rule
     names = {i: v.name for i, v in enumerate(spec.variables)}
     if rule == "error":
@@ -247,20 +259,14 @@ def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
                 "spec says same_day_rule = 'error'; correct the source rows or choose 'mean' or 'last'.")
     keep = "k_first = n" if rule == "last" else "k_first = 1"
     merged = "avg(value) OVER g" if rule == "mean" else "value"
-    # Only the few (patient, variable, time) groups with several rows need a window.
-    con.execute("""CREATE TEMP TABLE crowded AS SELECT pidx, vidx, day FROM m2 WHERE state IS NULL
-                   GROUP BY pidx, vidx, day HAVING count(*) > 1""")
+    # Only the few crowded (patient, variable, time) groups need a window; every other row is used as it is.
     con.execute(f"""
-        CREATE TEMP TABLE m3 AS SELECT row_number, patient_id, pidx, vidx, day, is_log,
+        CREATE TEMP TABLE merged AS SELECT row_number, pidx, vidx, day, is_log,
             CASE WHEN {keep} THEN '{S.USED}' ELSE '{S.SAME_DAY_MERGED}' END AS state, value_m AS value FROM (
             SELECT m.*, {merged} AS value_m,
                 row_number() OVER (g ORDER BY row_number) AS k_first, count(*) OVER g AS n
-            FROM m2 m SEMI JOIN crowded c USING (pidx, vidx, day) WHERE m.state IS NULL
-            WINDOW g AS (PARTITION BY m.pidx, m.vidx, m.day))
-        UNION ALL SELECT row_number, patient_id, pidx, vidx, day, is_log, '{S.USED}', value
-        FROM m2 m ANTI JOIN crowded c USING (pidx, vidx, day) WHERE m.state IS NULL
-        UNION ALL SELECT row_number, patient_id, pidx, vidx, day, is_log, state, value FROM m2
-        WHERE state IS NOT NULL""")
+            FROM m2 m SEMI JOIN crowded c USING (kidx, vidx, ts) WHERE m.state IS NULL
+            WINDOW g AS (PARTITION BY m.pidx, m.vidx, m.day))""")
 
 
 def build_ledger(con: duckdb.DuckDBPyConnection) -> None:
@@ -268,5 +274,6 @@ def build_ledger(con: duckdb.DuckDBPyConnection) -> None:
     con.execute("""
         CREATE TEMP VIEW ledger AS
         SELECT 'patients' AS "table", row_number, patient_id, state FROM p1
-        UNION ALL SELECT 'measurements', row_number, patient_id, state FROM m3
+        UNION ALL SELECT 'measurements', m.row_number, m.patient_id, coalesce(m.state, g.state, 'used')
+            FROM m2 m LEFT JOIN merged g USING (row_number)
         UNION ALL SELECT 'outcomes', row_number, patient_id, state FROM o1""")
