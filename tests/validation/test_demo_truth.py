@@ -106,7 +106,7 @@ def test_interval_includes_zero_when_imaging_is_pure_noise(development):
 def test_cohort_derivation_redoes_the_cohort_stage_per_draw():
     """Re-deriving from raw records gives the same rows as cutting the derived tables (per-patient
     features), the property that lets PrecomputedTables stand in for CohortDerivation."""
-    raw, cohort = _cohort(120, 303)
+    raw, cohort = _cohort(200, 303)
     derived = CohortDerivation(raw.patients, raw.measurements, raw.outcomes, demo_cohort_spec(), LANDMARKS, HORIZON)
     cut = PrecomputedTables.from_cohort(cohort, LANDMARKS, HORIZON, with_counting_process=False)
     drawn = np.random.default_rng(1).choice(derived.patient_ids(), size=len(derived.patient_ids()))
