@@ -43,7 +43,7 @@ def predictions_long(model, stack: pd.DataFrame, name: str, horizons: np.ndarray
 
 
 def outcome_hazard_ratios(summary: pd.DataFrame) -> pd.DataFrame:
-    """The outcome terms of a model summary (the competing-event part is reported in its own table)."""
+    """The outcome terms of a model summary (the competing-event model is not reported; see ``summary()``)."""
     if "cause" in summary.columns:
         summary = summary[summary["cause"] == "outcome"]
     return summary.reset_index(drop=True)
