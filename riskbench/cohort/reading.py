@@ -125,8 +125,10 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         return LoadedTable(table, label, tuple(wanted) + ("variable", "value"), types, date_format)
     selects = ", ".join(f"{quote(columns.get(c, c))} AS {quote(c)}" for c in wanted)
     if parquet:  # read in place: Parquet knows each row's position
+        path = source.path if isinstance(source, TableSource) else Path(source)
+        numbered = f"read_parquet({_literal(path)}, file_row_number = true)"
         con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT file_row_number + 1 AS row_number, {selects} "
-                    f"FROM {relation[:-1]}, file_row_number = true)")
+                    f"FROM {numbered}")
     else:  # insertion order is preserved, so rowid is the position of the row in the source
         con.execute(f"CREATE TEMP TABLE src_{table} AS SELECT {selects} FROM {relation}")
         con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT rowid + 1 AS row_number, * FROM src_{table}")
@@ -134,8 +136,12 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
     return LoadedTable(table, label, tuple(wanted), types, date_format)
 
 
+def _literal(path: Path) -> str:
+    return "'" + str(path).replace("'", "''") + "'"
+
+
 def _file_relation(path: Path, file_format: str) -> str:
-    literal = "'" + str(path).replace("'", "''") + "'"
+    literal = _literal(path)
     if file_format == "parquet":
         return f"read_parquet({literal})"
     # Everything as text: bad dates and values must reach the ledger, not stop the reader.
