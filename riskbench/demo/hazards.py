@@ -44,12 +44,24 @@ def sample_death_days(age_at_entry: np.ndarray, p: GeneratorParameters, rng: np.
     return DAYS_PER_YEAR * np.log1p(e / scale) / p.gompertz_c
 
 
+#: Cumulative hazards are summed with each piece's increment capped here. A cumulative hazard above
+#: 50 means a survival probability below 2e-22, so the cap changes no event time (an Exp(1) draw
+#: exceeds 50 with probability 2e-22) and no risk by more than 2e-22; without it, one patient with an
+#: extreme hazard would swamp the running sum and round away the small hazards of every later patient.
+CUMHAZ_CAP = 50.0
+
+
 def cumulative_before(group: np.ndarray, increment: np.ndarray) -> np.ndarray:
-    """Sum of ``increment`` over the earlier rows of the same group (rows of a group are contiguous)."""
-    running = np.cumsum(increment)
+    """Sum of ``increment`` (each capped at :data:`CUMHAZ_CAP`) over the earlier rows of the same group.
+
+    Rows of a group are contiguous. One running sum serves all groups; the cap keeps its magnitude,
+    and so its rounding error, small.
+    """
+    capped = np.minimum(increment, CUMHAZ_CAP)
+    running = np.cumsum(capped)
     first = np.r_[True, group[1:] != group[:-1]]
     group_first = np.maximum.accumulate(np.where(first, np.arange(first.size), 0))
-    return running - increment - (running[group_first] - increment[group_first])
+    return running - capped - (running[group_first] - capped[group_first])
 
 
 def sample_piecewise_event_days(

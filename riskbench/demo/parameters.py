@@ -105,6 +105,7 @@ class GeneratorParameters:
     marker_sd: float = 0.3
     marker_rise_per_year: float = 0.1  # ln units per year per unit of positive aggressiveness
     marker_noise_sd: float = 0.15  # ln units: assay variability
+    marker_max_ng_ml: float = 100.0  # upper reporting limit of the assay
     # --- visit schedule (days)
     exam_interval_small_days: float = 365.25  # volume < small_volume_mm3
     exam_interval_medium_days: float = 182.625  # small_volume_mm3 <= volume < large_volume_mm3

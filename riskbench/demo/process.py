@@ -81,12 +81,14 @@ def measure_exam(
 def measure_lab(
     state: HiddenState, rows: np.ndarray, day: np.ndarray, p: GeneratorParameters, rng: np.random.Generator
 ) -> np.ndarray:
-    """Serum marker (ng/mL, 0.01 resolution) of one lab draw; rises over time in aggressive nodules."""
+    """Serum marker (ng/mL, 0.01 resolution, at most the assay limit) of one lab draw; rises over time
+    in aggressive nodules."""
     level = state.marker_log_level[rows] + p.marker_rise_per_year * np.maximum(
         state.aggressiveness[rows], 0.0
     ) * (day / DAYS_PER_YEAR)
     measured = level + p.marker_noise_sd * rng.standard_normal(rows.size)
-    return np.maximum(np.round(np.exp(measured), 2), 0.01)
+    # the assay reports values beyond its range at its limits
+    return np.clip(np.round(np.exp(measured), 2), 0.01, p.marker_max_ng_ml)
 
 
 def planned_exam_interval(volume_mm3: np.ndarray, p: GeneratorParameters) -> np.ndarray:

@@ -90,3 +90,31 @@ def test_piecewise_draws_follow_closed_form_survival():
 def test_sizes_checked_before_any_work(bad):
     with pytest.raises(ValueError, match="n_patients"):
         generate_cohort(bad["n_patients"], seed=0)
+
+
+def test_an_extreme_hazard_does_not_disturb_other_patients_draws():
+    """Regression: one patient with a huge linear predictor (hazard ratio e^60) must leave the draws
+    of every other patient unchanged up to rounding (the running sum of cumulative hazards stays small;
+    without the cap every later patient lost its event)."""
+    params = GeneratorParameters()
+    n = 2000
+    patient = np.repeat(np.arange(n), 3)
+    start = np.tile([0.0, 100.0, 400.0], n)
+    stop = np.tile([100.0, 400.0, 2000.0], n)
+    eta = np.tile([9.0, 9.5, 10.0], n)
+    calm = sample_piecewise_event_days(patient, start, stop, eta, n, params, np.random.default_rng(4))
+    eta_wild = eta.copy()
+    eta_wild[:3] = 60.0
+    wild = sample_piecewise_event_days(patient, start, stop, eta_wild, n, params, np.random.default_rng(4))
+    np.testing.assert_allclose(wild[1:], calm[1:], rtol=1e-10)  # only rounding in the last digits
+    assert wild[0] < 1.0  # the extreme patient has the event almost at once
+
+
+def test_serum_marker_stays_inside_the_assay_range_for_extreme_nodules():
+    from riskbench.demo.process import draw_hidden_state, measure_lab
+
+    params = GeneratorParameters()
+    state = draw_hidden_state(5, params, np.random.default_rng(0))
+    state.aggressiveness[:] = 6.0  # far beyond anything a normal cohort holds
+    marker = measure_lab(state, np.arange(5), np.full(5, 3000.0), params, np.random.default_rng(1))
+    assert (marker <= params.marker_max_ng_ml).all() and (marker > 0).all()
