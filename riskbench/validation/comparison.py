@@ -25,13 +25,7 @@ import pandas as pd
 
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec
-from riskbench.validation.paired import (
-    check_specs,
-    evaluate_fitted,
-    fit_all,
-    percentile_summary,
-    spec_pairs,
-)
+from riskbench.validation.paired import Evaluation, check_specs, fit_all, percentile_summary
 from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
 from riskbench.validation.performance import METRIC_DIRECTION, check_horizons
 from riskbench.validation.plans import bootstrap_patient_draw
@@ -67,13 +61,9 @@ class Comparison:
 
 @dataclass(frozen=True)
 class _ComparisonJob:
-    specs: tuple[ModelSpec, ...]
+    evaluation: Evaluation
     source: TableSource
-    horizons: tuple[float, ...]
-    pairs: tuple[tuple[int, int], ...]
-    thresholds: tuple[float, ...]
-    nri_categories: tuple[float, ...] | None
-    evaluation: str
+    out_of_bag: bool
 
 
 def _comparison_replicate(job: _ComparisonJob, index: int, seed: np.random.SeedSequence) -> Any:
@@ -82,16 +72,12 @@ def _comparison_replicate(job: _ComparisonJob, index: int, seed: np.random.SeedS
     drawn = bootstrap_patient_draw(ids, rng)
     try:
         fit_tables = draw_tables(job.source, drawn)
-        models = fit_all(job.specs, fit_tables, seed_to_int(seed))
-        if job.evaluation == "apparent":
-            stack = fit_tables.landmark_stack
+        models = fit_all(job.evaluation.specs, fit_tables, seed_to_int(seed))
+        if job.out_of_bag:
+            stack = subset_tables(job.source.full_tables(), np.setdiff1d(ids, drawn)).landmark_stack
         else:
-            out_of_bag = np.setdiff1d(ids, drawn)
-            stack = subset_tables(job.source.full_tables(), out_of_bag).landmark_stack
-        frames = evaluate_fitted(
-            job.specs, models, stack, job.horizons,
-            pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
-        )
+            stack = fit_tables.landmark_stack
+        frames = job.evaluation.run(models, stack)
     except REPLICATE_ERRORS as exc:
         return failed_replicate(index, exc)
     return tagged_replicate(index, *frames)
@@ -197,21 +183,10 @@ def compare_specs(
         raise ValidationInputError(f"n_boot must be at least 2 for an interval; got {n_boot}.")
     full = source.full_tables()
     hs = check_horizons(horizons, full.landmark_stack)
-    job = _ComparisonJob(
-        specs=specs,
-        source=source,
-        horizons=hs,
-        pairs=tuple(spec_pairs(len(specs), pairs)),
-        thresholds=tuple(float(t) for t in thresholds),
-        nri_categories=None if nri_categories is None else tuple(float(c) for c in nri_categories),
-        evaluation=evaluation,
-    )
+    plan = Evaluation.build(specs, hs, pairs=pairs, thresholds=thresholds, nri_categories=nri_categories)
+    job = _ComparisonJob(evaluation=plan, source=source, out_of_bag=evaluation == "out_of_bag")
     results = run_replicates(_comparison_replicate, job, seed, n_boot, config, description="paired bootstrap")
     spec_point = pair_point = None
     if evaluation == "apparent":
-        models = fit_all(specs, full, seed)
-        spec_point, pair_point = evaluate_fitted(
-            specs, models, full.landmark_stack, hs,
-            pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
-        )
+        spec_point, pair_point = plan.run(fit_all(specs, full, seed), full.landmark_stack)
     return summarise_comparison(results, level=level, spec_point=spec_point, pair_point=pair_point)

@@ -18,7 +18,7 @@ from riskbench.validation.comparison import (
 )
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec
-from riskbench.validation.paired import check_specs, evaluate_fitted, fit_all, spec_pairs
+from riskbench.validation.paired import Evaluation, check_specs, fit_all
 from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
 from riskbench.validation.performance import check_horizons
 from riskbench.validation.plans import Split, bootstrap_patient_draw
@@ -27,13 +27,9 @@ from riskbench.validation.sources import TableSource, draw_tables, subset_tables
 
 @dataclass(frozen=True)
 class _SplitJob:
-    specs: tuple[ModelSpec, ...]
+    evaluation: Evaluation
     source: TableSource
     splits: tuple[Split, ...]
-    horizons: tuple[float, ...]
-    pairs: tuple[tuple[int, int], ...]
-    thresholds: tuple[float, ...]
-    nri_categories: tuple[float, ...] | None
 
 
 def _split_replicate(job: _SplitJob, index: int, seed: np.random.SeedSequence) -> Any:
@@ -44,12 +40,9 @@ def _split_replicate(job: _SplitJob, index: int, seed: np.random.SeedSequence) -
             f"split '{split.label}' has {len(overlap)} patients on both sides (e.g. {overlap[:3].tolist()}); "
             "build splits with riskbench.validation.plans."
         )
-    models = fit_all(job.specs, job.source.tables(split.fit_ids), seed_to_int(seed))
+    models = fit_all(job.evaluation.specs, job.source.tables(split.fit_ids), seed_to_int(seed))
     stack = subset_tables(job.source.full_tables(), split.eval_ids).landmark_stack
-    per_spec, per_pair = evaluate_fitted(
-        job.specs, models, stack, job.horizons,
-        pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
-    )
+    per_spec, per_pair = job.evaluation.run(models, stack)
     for frame in (per_spec, per_pair):
         frame.insert(0, "split", split.label)
     return per_spec, per_pair
@@ -94,12 +87,8 @@ def evaluate_splits(
     if not splits:
         raise ValidationInputError("evaluate_splits needs at least one split.")
     hs = check_horizons(horizons, source.full_tables().landmark_stack)
-    job = _SplitJob(
-        specs=specs, source=source, splits=tuple(splits), horizons=hs,
-        pairs=tuple(spec_pairs(len(specs), pairs)) if len(specs) > 1 else (),
-        thresholds=tuple(float(t) for t in thresholds),
-        nri_categories=None if nri_categories is None else tuple(float(c) for c in nri_categories),
-    )
+    plan = Evaluation.build(specs, hs, pairs=pairs, thresholds=thresholds, nri_categories=nri_categories)
+    job = _SplitJob(evaluation=plan, source=source, splits=tuple(splits))
     results = run_replicates(_split_replicate, job, seed, len(job.splits), config, description="splits")
     return (
         pd.concat([r[0] for r in results], ignore_index=True),
@@ -109,23 +98,16 @@ def evaluate_splits(
 
 @dataclass(frozen=True)
 class _ExternalJob:
-    specs: tuple[ModelSpec, ...]
+    evaluation: Evaluation
     models: tuple[Any, ...]
     eval_source: TableSource
-    horizons: tuple[float, ...]
-    pairs: tuple[tuple[int, int], ...]
-    thresholds: tuple[float, ...]
-    nri_categories: tuple[float, ...] | None
 
 
 def _external_replicate(job: _ExternalJob, index: int, seed: np.random.SeedSequence) -> Any:
     drawn = bootstrap_patient_draw(job.eval_source.patient_ids(), np.random.default_rng(seed))
     try:
         stack = draw_tables(job.eval_source, drawn).landmark_stack
-        frames = evaluate_fitted(
-            job.specs, job.models, stack, job.horizons,
-            pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
-        )
+        frames = job.evaluation.run(job.models, stack)
     except REPLICATE_ERRORS as exc:
         return failed_replicate(index, exc)
     return tagged_replicate(index, *frames)
@@ -175,15 +157,8 @@ def external_validation(
             "validation needs separate patients. Rename ids if they are different people."
         )
     models = tuple(fit_all(specs, fit_source.full_tables(), seed))
-    job = _ExternalJob(
-        specs=specs, models=models, eval_source=eval_source, horizons=hs,
-        pairs=tuple(spec_pairs(len(specs), pairs)) if len(specs) > 1 else (),
-        thresholds=tuple(float(t) for t in thresholds),
-        nri_categories=None if nri_categories is None else tuple(float(c) for c in nri_categories),
-    )
-    point_spec, point_pair = evaluate_fitted(
-        specs, models, eval_full.landmark_stack, hs,
-        pairs=job.pairs, thresholds=job.thresholds, nri_categories=job.nri_categories,
-    )
+    plan = Evaluation.build(specs, hs, pairs=pairs, thresholds=thresholds, nri_categories=nri_categories)
+    job = _ExternalJob(evaluation=plan, models=models, eval_source=eval_source)
+    point_spec, point_pair = plan.run(models, eval_full.landmark_stack)
     results = run_replicates(_external_replicate, job, seed, n_boot, config, description="external bootstrap")
     return summarise_comparison(results, level=level, spec_point=point_spec, pair_point=point_pair)

@@ -24,7 +24,7 @@ import pandas as pd
 from riskbench.validation.comparison import REPLICATE_ERRORS, collect_replicates, failed_replicate, tagged_replicate
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec
-from riskbench.validation.paired import check_specs, evaluate_fitted, fit_all, percentile_summary, predict_all
+from riskbench.validation.paired import Evaluation, check_specs, fit_all, percentile_summary, predict_all
 from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
 from riskbench.validation.performance import check_horizons
 from riskbench.validation.plans import bootstrap_patient_draw
@@ -35,10 +35,8 @@ OPTIMISM_KEYS = ["spec", "metric", "horizon_days", "threshold"]
 
 @dataclass(frozen=True)
 class _OptimismJob:
-    specs: tuple[ModelSpec, ...]
+    evaluation: Evaluation
     source: TableSource
-    horizons: tuple[float, ...]
-    thresholds: tuple[float, ...]
 
 
 def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSequence) -> Any:
@@ -46,16 +44,13 @@ def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSeque
     drawn = bootstrap_patient_draw(job.source.patient_ids(), rng)
     try:
         boot_tables = draw_tables(job.source, drawn)
-        models = fit_all(job.specs, boot_tables, seed_to_int(seed))
+        plan = job.evaluation
+        models = fit_all(plan.specs, boot_tables, seed_to_int(seed))
         boot_stack, orig_stack = boot_tables.landmark_stack, job.source.full_tables().landmark_stack
         # The drawn rows repeat original rows: predict each distinct row once for both evaluations.
-        risk_boot, risk_orig = predict_all(job.specs, models, [boot_stack, orig_stack], job.horizons)
-        on_boot, _ = evaluate_fitted(
-            job.specs, models, boot_stack, job.horizons, thresholds=job.thresholds, risks=risk_boot
-        )
-        on_orig, _ = evaluate_fitted(
-            job.specs, models, orig_stack, job.horizons, thresholds=job.thresholds, risks=risk_orig
-        )
+        risk_boot, risk_orig = predict_all(plan.specs, models, [boot_stack, orig_stack], plan.horizons)
+        on_boot, _ = plan.run(models, boot_stack, risk_boot)
+        on_orig, _ = plan.run(models, orig_stack, risk_orig)
     except REPLICATE_ERRORS as exc:
         return failed_replicate(index, exc)
     frame = on_boot.rename(columns={"value": "bootstrap"})
@@ -105,10 +100,9 @@ def bootstrap_optimism(
         raise ValidationInputError(f"n_boot must be at least 1; got {n_boot}.")
     full = source.full_tables()
     hs = check_horizons(horizons, full.landmark_stack)
-    ths = tuple(float(t) for t in thresholds)
-    models = fit_all(specs, full, seed)
-    apparent, _ = evaluate_fitted(specs, models, full.landmark_stack, hs, thresholds=ths)
-    job = _OptimismJob(specs=specs, source=source, horizons=hs, thresholds=ths)
+    plan = Evaluation.build(specs, hs, pairs=(), thresholds=thresholds)
+    apparent, _ = plan.run(fit_all(specs, full, seed), full.landmark_stack)
+    job = _OptimismJob(evaluation=plan, source=source)
     results = run_replicates(_optimism_replicate, job, seed, n_boot, config, description="bootstrap optimism")
     reps, _, _ = collect_replicates(results)
     summary = percentile_summary(reps, OPTIMISM_KEYS, level=level).rename(

@@ -10,6 +10,8 @@ from __future__ import annotations
 from collections.abc import Sequence
 from typing import Any
 
+from dataclasses import dataclass
+
 import numpy as np
 import pandas as pd
 
@@ -53,6 +55,58 @@ def spec_pairs(n_specs: int, pairs: str | Sequence[tuple[int, int]]) -> list[tup
     if any(not (0 <= i < n_specs and 0 <= j < n_specs and i != j) for i, j in out):
         raise ValidationInputError(f"pairs {out} must index distinct specs in 0..{n_specs - 1}.")
     return out
+
+
+@dataclass(frozen=True)
+class Evaluation:
+    """What is measured each time fitted specs meet an evaluation stack.
+
+    Attributes
+    ----------
+    specs : tuple of ModelSpec
+    horizons : tuple of float
+        Horizons (days), already checked against the data.
+    pairs : tuple of (int, int)
+        (reference, candidate) index pairs for paired differences, NRI and IDI.
+    thresholds : tuple of float
+        Net-benefit thresholds.
+    nri_categories : tuple of float or None
+        Risk cut points of the categorical NRI.
+    """
+
+    specs: tuple[ModelSpec, ...]
+    horizons: tuple[float, ...]
+    pairs: tuple[tuple[int, int], ...] = ()
+    thresholds: tuple[float, ...] = ()
+    nri_categories: tuple[float, ...] | None = None
+
+    @classmethod
+    def build(
+        cls,
+        specs: Sequence[ModelSpec],
+        horizons: Sequence[float],
+        *,
+        pairs: str | Sequence[tuple[int, int]] = "all",
+        thresholds: Sequence[float] = (),
+        nri_categories: Sequence[float] | None = None,
+    ) -> Evaluation:
+        """Normalise user arguments (pairs by name, numbers as float tuples)."""
+        return cls(
+            specs=tuple(specs),
+            horizons=tuple(float(h) for h in horizons),
+            pairs=tuple(spec_pairs(len(specs), pairs)) if len(specs) > 1 else (),
+            thresholds=tuple(float(t) for t in thresholds),
+            nri_categories=None if nri_categories is None else tuple(float(c) for c in nri_categories),
+        )
+
+    def run(
+        self, models: Sequence[Any], stack: pd.DataFrame, risks: Sequence[dict[float, np.ndarray]] | None = None
+    ) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """Per-spec and pairwise measures of ``models`` on ``stack`` (see :func:`evaluate_fitted`)."""
+        return evaluate_fitted(
+            self.specs, models, stack, self.horizons,
+            pairs=self.pairs, thresholds=self.thresholds, nri_categories=self.nri_categories, risks=risks,
+        )
 
 
 def fit_all(specs: Sequence[ModelSpec], tables: ValidationTables, seed: int | None) -> list[Any]:
