@@ -61,7 +61,7 @@ def _used_values(patients, meas, outcomes, spec):
     return out, end
 
 
-@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=20, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(cohorts())
 def test_invariants(data) -> None:
     patients, meas, outcomes, spec = data

@@ -90,3 +90,13 @@ def test_project_cox_engine_on_rebuilt_rows_gives_published_fit(rebuilt) -> None
     assert np.round(fit.coef, 4).tolist() == PUBLISHED_COEF
     assert np.round(fit.se, 4).tolist() == PUBLISHED_SE
     assert round(fit.lr_test.statistic, 1) == 15.1
+
+
+def test_project_cox_model_on_rebuilt_rows_gives_published_fit(rebuilt) -> None:
+    from riskbench.models import CoxModel
+
+    ours, _ = rebuilt
+    model = CoxModel(COVARIATES, cluster=None).fit(ours.rename(columns={"event": "status"}))
+    assert np.round(model.coef_, 4).tolist() == PUBLISHED_COEF
+    assert np.round(model.se_, 4).tolist() == PUBLISHED_SE
+    assert round(model.fit_.lr_test.statistic, 1) == 15.1
