@@ -3,7 +3,7 @@
 Checks run in a fixed order and a row takes the state of the first check it fails (see ``CHECK_ORDER``).
 The results are DuckDB tables:
 
-- ``ledger``: ``table, row_number, patient_id, state`` for every input row;
+- ``ledger`` (a view): ``table, row_number, patient_id, state`` for every input row;
 - ``pat``: included patients with ``patient_id, entry_ts, end_days, end_status`` and static covariates;
 - ``meas``: used measurements, one per patient, variable and time: ``pidx, day, vidx, x`` (integer keys of
   ``pat`` and of the spec's variables; ``x`` in the canonical unit, log-transformed where the spec says so).
@@ -167,8 +167,8 @@ def build_patient_table(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spe
 def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
     """Measurement rows: parse, convert units, check ranges and windows, merge same-time values.
 
-    All row checks run in one pass. Exact duplicates are found among all rows: each earlier check depends
-    only on the row's content, so identical rows share their earlier state and the order is kept.
+    The row checks run in one pass; exact duplicates and same-time merges are then settled inside the few
+    crowded (patient, variable, time) groups.
     """
     units, canon = [], []
     for i, v in enumerate(spec.variables):
