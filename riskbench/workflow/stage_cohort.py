@@ -12,6 +12,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from riskbench.cohort import Cohort, build_cohort
 from riskbench.report.baseline_table import baseline_table
 from riskbench.report.flow_diagram import flow_figure
 from riskbench.report.outputs import save_data, save_figure, save_table
@@ -24,10 +25,8 @@ from riskbench.workflow.stage_result import StageResult
 PATIENT_COLUMNS = ("patient_id", "end_days", "end_status")
 
 
-def build_stage_cohort(config: AnalysisConfig):
+def build_stage_cohort(config: AnalysisConfig) -> Cohort:
     """Build the cohort of the configuration with the cohort stage (its ``Cohort`` object)."""
-    from riskbench.cohort import build_cohort
-
     src = config.sources
     return build_cohort(src.patients, src.measurements, src.outcomes, config.cohort)
 

@@ -21,7 +21,7 @@ from riskbench.report.auc_plot import auc_curve_figure
 from riskbench.report.html_report import build_report
 from riskbench.report.outputs import load_data, save_figure, save_table
 from riskbench.report.suppression import count_columns, suppress_counts
-from riskbench.validation.comparison import compare_specs
+from riskbench.validation.comparison import Comparison, compare_specs
 from riskbench.validation.performance import evaluate_risks, evaluation_time, stack_outcome
 from riskbench.validation.sources import PrecomputedTables
 from riskbench.workflow.config import DAYS_PER_YEAR, AnalysisConfig
@@ -94,7 +94,7 @@ def _interval(estimate: float, low: float, high: float) -> str:
     return f"{estimate:.3f} ({low:.3f} to {high:.3f})"
 
 
-def comparison_table(comparison, reference: str, candidate: str) -> pd.DataFrame:
+def comparison_table(comparison: Comparison, reference: str, candidate: str) -> pd.DataFrame:
     """One row per measure and horizon: each model's estimate and the difference, with 95% intervals."""
     perf = comparison.performance
     diff = comparison.differences

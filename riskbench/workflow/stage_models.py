@@ -9,9 +9,11 @@ risk at every evaluation horizon, horizons in days).
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
+from matplotlib.figure import Figure
 
 from riskbench.models.risk_contract import risk_curve
 from riskbench.report.outputs import load_data, save_data, save_figure, save_table
@@ -29,7 +31,7 @@ def evaluation_horizons(config: AnalysisConfig, n_grid: int = 8) -> np.ndarray:
     return np.unique(np.round(np.r_[grid, config.report.horizons_days], 6))
 
 
-def predictions_long(model, stack: pd.DataFrame, name: str, horizons: np.ndarray,
+def predictions_long(model: Any, stack: pd.DataFrame, name: str, horizons: np.ndarray,
                      rows: np.ndarray | None = None) -> pd.DataFrame:
     """Risks of ``model`` for the stack rows at each horizon, as ``row, model, horizon, risk``."""
     curve = np.asarray(risk_curve(model, stack, horizons), dtype=float)
@@ -49,7 +51,7 @@ def outcome_hazard_ratios(summary: pd.DataFrame) -> pd.DataFrame:
     return summary.reset_index(drop=True)
 
 
-def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, tuple[str, ...]]):
+def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, tuple[str, ...]]) -> Figure:
     """Forest plot of each model's outcome hazard ratios for its covariates (main terms).
 
     For a landmark super-model the main term of a covariate is its effect at landmark 0 (entry); the
