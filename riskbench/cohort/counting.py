@@ -24,7 +24,7 @@ import numpy as np
 import pyarrow as pa
 
 from riskbench.cohort.reading import quote
-from riskbench.cohort.row_assembly import ValueBlock, assemble_rows, covariate_columns
+from riskbench.cohort.row_assembly import ValueBlock, assemble_rows, covariate_columns, exam_dates
 from riskbench.cohort.spec import DAYS_PER_YEAR, CohortSpec
 
 #: Patients per block handed from DuckDB to the array assembly (bounds the memory of one step).
@@ -32,28 +32,16 @@ BLOCK_PATIENTS = 250_000
 
 
 def _slope_rows(spec: CohortSpec) -> str:
-    """SQL: used values before the end with their trailing-window slope (per year) where the spec asks, and
-    ``exam_day``: true on exactly one row of each exam date (the exam variable listed first that has a value)."""
-    exam_ids = [i for i, v in enumerate(spec.variables) if v.name in spec.exam_variables]
-    exam_cases = []
-    for k, i in enumerate(exam_ids):
-        earlier = ", ".join(map(str, exam_ids[:k]))
-        clash = (f"NOT EXISTS (SELECT 1 FROM meas e WHERE e.pidx = m.pidx AND e.day = m.day "
-                 f"AND e.vidx IN ({earlier}))") if earlier else "TRUE"
-        exam_cases.append(f"WHEN {i} THEN {clash}")
-    exam_sql = f"CASE m.vidx {' '.join(exam_cases)} ELSE FALSE END" if exam_cases else "FALSE"
+    """SQL: used values with their trailing-window slope (per year) where the spec asks for one."""
     parts = []
     slope_ids = [i for i, v in enumerate(spec.variables) if v.slope]
     for i in slope_ids:
         w = spec.variables[i].slope_window_days
         parts.append(
-            f"SELECT m.pidx, m.day, m.vidx, m.x, regr_slope(m.x, m.day) OVER (PARTITION BY m.pidx ORDER BY m.day "
-            f"RANGE BETWEEN {w!r} PRECEDING AND CURRENT ROW) * {DAYS_PER_YEAR} AS slope, {exam_sql} AS exam_day "
-            f"FROM meas m JOIN pat p USING (pidx) WHERE m.vidx = {i} AND m.day < p.end_days")
-    others = f"AND m.vidx NOT IN ({', '.join(map(str, slope_ids))})" if slope_ids else ""
-    parts.append(f"SELECT m.pidx, m.day, m.vidx, m.x, NULL::DOUBLE AS slope, {exam_sql} AS exam_day "
-                 f"FROM meas m JOIN pat p USING (pidx) "
-                 f"WHERE m.day < p.end_days {others}")
+            f"SELECT pidx, day, vidx, x, regr_slope(x, day) OVER (PARTITION BY pidx ORDER BY day "
+            f"RANGE BETWEEN {w!r} PRECEDING AND CURRENT ROW) * {DAYS_PER_YEAR} AS slope FROM meas WHERE vidx = {i}")
+    others = f"WHERE vidx NOT IN ({', '.join(map(str, slope_ids))})" if slope_ids else ""
+    parts.append(f"SELECT pidx, day, vidx, x, NULL::DOUBLE AS slope FROM meas {others}")
     return " UNION ALL ".join(parts)
 
 
@@ -65,6 +53,7 @@ def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec,
                            block_patients: int = BLOCK_PATIENTS) -> None:
     """Create the DuckDB table ``cp`` (the counting-process table) from ``pat`` and ``meas``."""
     con.execute(f"CREATE TEMP TABLE used_values AS {_slope_rows(spec)}")
+    exam_ids = [i for i, v in enumerate(spec.variables) if v.name in spec.exam_variables]
     n_patients = con.execute("SELECT count(*) FROM pat").fetchall()[0][0]  # pidx runs 1..n_patients
     static_sql = "".join(f", {quote(c)}" for c in spec.static)
     if n_patients == 0:
@@ -75,16 +64,20 @@ def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec,
     for first in range(1, n_patients + 1, block_patients):
         last = min(first + block_patients - 1, n_patients)
         values = con.sql("""
-            SELECT pidx, day, vidx, x, slope, exam_day FROM used_values WHERE pidx BETWEEN $1 AND $2
-            UNION ALL SELECT pidx, 0.0::DOUBLE, -1, NULL, NULL, FALSE FROM pat WHERE pidx BETWEEN $1 AND $2
+            SELECT pidx, day, vidx, x, slope FROM used_values WHERE pidx BETWEEN $1 AND $2
+            UNION ALL SELECT pidx, 0.0::DOUBLE, -1, NULL, NULL FROM pat WHERE pidx BETWEEN $1 AND $2
             ORDER BY pidx, day, vidx""", params=[first, last]).to_arrow_table()
         patients = con.sql(f"""
             SELECT patient_id, end_days, end_status, entry_age_years{static_sql} FROM pat
             WHERE pidx BETWEEN $1 AND $2 ORDER BY pidx""", params=[first, last]).to_arrow_table()
-        block = ValueBlock(patient=_numpy(values, "pidx") - first, day=_numpy(values, "day"),
-                           var=_numpy(values, "vidx"), x=_numpy(values, "x"), slope=_numpy(values, "slope"),
-                           exam_day=_numpy(values, "exam_day").astype(bool))
-        rows = assemble_rows(block, _numpy(patients, "end_days"), spec)
+        end_days = _numpy(patients, "end_days")
+        patient, day, var = _numpy(values, "pidx") - first, _numpy(values, "day"), _numpy(values, "vidx")
+        before_end = day < end_days[patient]  # a value dated at the end never enters a row
+        patient, day, var = patient[before_end], day[before_end], var[before_end]
+        block = ValueBlock(patient=patient, day=day, var=var, x=_numpy(values, "x")[before_end],
+                           slope=_numpy(values, "slope")[before_end],
+                           exam_day=exam_dates(patient, day, var, exam_ids))
+        rows = assemble_rows(block, end_days, spec)
         statics = {c: _numpy(patients, c).astype(float) for c in spec.static}
         covariates = covariate_columns(rows, spec, _numpy(patients, "entry_age_years").astype(float), statics)
         status = np.where(rows["last_row"], _numpy(patients, "end_status")[rows["patient"]], 0).astype(np.int8)

@@ -29,6 +29,17 @@ class ValueBlock:
     exam_day: np.ndarray
 
 
+def exam_dates(patient: np.ndarray, day: np.ndarray, var: np.ndarray, exam_ids: list[int]) -> np.ndarray:
+    """True on exactly one row of each exam date (a date with a value of any exam variable) of sorted rows."""
+    is_exam = np.isin(var, exam_ids)
+    rows = np.flatnonzero(is_exam)
+    p, t = patient[rows], day[rows]
+    first = np.r_[True, (p[1:] != p[:-1]) | (t[1:] != t[:-1])] if rows.size else np.zeros(0, bool)
+    out = np.zeros(patient.size, dtype=bool)
+    out[rows[first]] = True
+    return out
+
+
 def _last_index(mask: np.ndarray, start_of_patient: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """For each row, the index of the last row at or before it (same patient) where ``mask``; and validity."""
     n = mask.size
