@@ -10,7 +10,6 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-import duckdb
 import numpy as np
 
 from riskbench.cohort.errors import CohortInputError
