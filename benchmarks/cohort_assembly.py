@@ -16,6 +16,7 @@ from __future__ import annotations
 import argparse
 import json
 import resource
+import shutil
 import statistics
 import subprocess
 import sys
@@ -97,6 +98,7 @@ def child_large(folder: Path, what: str) -> None:
         seconds = time.perf_counter() - t0
         rows = cohort._con.execute(f"SELECT count(*) FROM read_parquet('{target}')").fetchall()[0][0]
     peak_gb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
+    shutil.rmtree(out, ignore_errors=True)
     print(json.dumps({"what": what, "seconds": seconds, "rows": rows, "peak_gb": peak_gb}))
 
 

@@ -53,9 +53,11 @@ class Cohort:
         One row per included patient: ``patient_id, entry_date, end_days, end_status`` and static covariates.
     """
 
-    def __init__(self, con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
+    def __init__(self, con: duckdb.DuckDBPyConnection, spec: CohortSpec,
+                 spill_folder: tempfile.TemporaryDirectory | None = None) -> None:
         self._con = con
         self.spec = spec
+        self._spill_folder = spill_folder  # removed when the cohort is garbage-collected
 
     @cached_property
     def counting_process(self) -> pd.DataFrame:
@@ -169,8 +171,8 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
         A required column is missing (the message names the file, the column and the columns present), a
         patient id is repeated with different contents, or same-time values conflict under rule "error".
     """
-    config: dict[str, object] = {"preserve_insertion_order": True,
-                                 "temp_directory": tempfile.mkdtemp(prefix="riskbench_duckdb_")}
+    spill = tempfile.TemporaryDirectory(prefix="riskbench_duckdb_")
+    config: dict[str, object] = {"preserve_insertion_order": True, "temp_directory": spill.name}
     if memory_limit:
         config["memory_limit"] = memory_limit
     if threads:
@@ -186,4 +188,4 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
     contract.check_measurements(con, loaded_m, spec)
     contract.build_ledger(con)
     build_counting_process(con, spec)
-    return Cohort(con, spec)
+    return Cohort(con, spec, spill)
