@@ -9,12 +9,14 @@ from __future__ import annotations
 
 import base64
 import html
+import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
 import pandas as pd
 
+from riskbench.report.display_format import display_table
 from riskbench.report.outputs import FIGURES, TABLES, atomic_write_text
 
 
@@ -57,7 +59,8 @@ SECTIONS: tuple[Section, ...] = (
             figures=("example_timelines",)),
     Section("hazard-ratios", "Hazard ratios",
             "Outcome hazard ratios with 95% intervals (cluster-robust by patient) of the models fitted on the "
-            "whole cohort.",
+            "whole cohort. A term marked × (s/S) or × (s/S)² is the change of the log hazard ratio with the "
+            "landmark time s (S: the last landmark).",
             figures=("hazard_ratios",), tables=("coefficients_*",)),
     Section("discrimination", "Time-dependent AUC",
             "Cumulative/dynamic AUC of the cross-validated predictions against the horizon after the "
@@ -93,7 +96,8 @@ def _find(folder: Path, patterns: Sequence[str], suffix: str) -> list[Path]:
 
 
 def _title_of(path: Path) -> str:
-    return path.stem.replace("_", " ")
+    words = path.stem.replace("_", " ")
+    return words[:1].upper() + words[1:]
 
 
 def _figure_html(path: Path) -> str:
@@ -104,11 +108,26 @@ def _figure_html(path: Path) -> str:
             "</figure>")
 
 
+_NUM = ' class="num"'
+_NUMERIC_CELL = re.compile(r"^[-<>]?\d")
+
+
+def _is_numeric_column(cells: pd.Series) -> bool:
+    """Numbers (and suppressed counts such as "<10") are right-aligned; labels are left-aligned."""
+    shown = [c for c in cells if c != ""]
+    return bool(shown) and all(_NUMERIC_CELL.match(c) for c in shown)
+
+
 def _table_html(path: Path) -> str:
-    table = pd.read_csv(path, dtype=str, keep_default_na=False)
-    body = table.to_html(index=False, escape=True, border=0, classes="data")
+    # the page shows rounded numbers; the CSV named under the table keeps full precision
+    table = display_table(pd.read_csv(path, dtype=str, keep_default_na=False))
+    numeric = [_is_numeric_column(table[c]) for c in table.columns]
+    head = "".join(f"<th{_NUM if n else ''}>{html.escape(str(c))}</th>" for c, n in zip(table.columns, numeric))
+    rows = "".join("<tr>" + "".join(f"<td{_NUM if n else ''}>{html.escape(v)}</td>" for v, n in zip(row, numeric))
+                   + "</tr>" for row in table.itertuples(index=False))
+    body = f'<table class="data"><thead><tr>{head}</tr></thead><tbody>{rows}</tbody></table>'
     return (f'<h3>{html.escape(_title_of(path))}</h3><div class="wide">{body}</div>'
-            f'<p class="source">Table file: <code>tables/{html.escape(path.name)}</code></p>')
+            f'<p class="source">Rounded for reading; full precision in <code>tables/{html.escape(path.name)}</code>.</p>')
 
 
 _STYLE = """
@@ -119,9 +138,8 @@ h3{font-size:1em;margin-bottom:.3em}
 .caution{border:2px solid #b35900;background:#fff4e5;padding:.8em 1em;border-radius:6px}
 .caution h2{border:none;margin:0 0 .3em 0;color:#8a4500;font-size:1.15em}
 table.data{border-collapse:collapse;font-size:.85em;margin:.4em 0}
-table.data th,table.data td{border:1px solid #ccd5de;padding:.25em .5em;text-align:right}
-table.data th{background:#eef3f8}
-table.data td:first-child,table.data th:first-child{text-align:left}
+table.data th,table.data td{border:1px solid #ccd5de;padding:.25em .5em;text-align:left;white-space:nowrap}
+table.data th{background:#eef3f8;white-space:normal;vertical-align:bottom} table.data .num{text-align:right;font-variant-numeric:tabular-nums}
 figure{margin:1em 0} figure img{max-width:100%;height:auto;border:1px solid #e3e8ee}
 figcaption,.source,.meta{font-size:.8em;color:#5a6b7b} .missing{color:#8a4500;font-style:italic}
 nav ol{columns:2;font-size:.9em} .wide{overflow-x:auto}
