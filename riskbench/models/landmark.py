@@ -43,9 +43,8 @@ from riskbench.models.risk_contract import (
     check_covariates,
     check_horizon,
     check_stack_outcome,
-    cumulative_incidence,
+    cumulative_incidence_at,
     prediction_origin,
-    step_function_at,
 )
 
 __all__ = ["LandmarkSupermodel", "CauseSpecificFit"]
@@ -305,15 +304,11 @@ class LandmarkSupermodel(BaseEstimator):
             on_grid[np.searchsorted(grid, base[0][keep])] = base[1][keep]
             jumps.append(on_grid)
         scores = [np.exp((design - fit.means) @ fit.coef) for fit in fits]
-        out = np.empty((len(design), len(times)))
-        block = max(1, _CHUNK_CELLS // max(1, len(grid)))
-        for start in range(0, len(design), block):
-            part = slice(start, start + block)
-            d1 = scores[0][part, None] * jumps[0][None, :]
-            d2 = scores[1][part, None] * jumps[1][None, :] if len(fits) > 1 else None
-            incidence = cumulative_incidence(d1, d2)
-            out[part] = step_function_at(grid, incidence, times)
-        return out
+        competing = len(fits) > 1
+        return cumulative_incidence_at(
+            scores[0], jumps[0], scores[1] if competing else None, jumps[1] if competing else None,
+            grid, times, block_cells=_CHUNK_CELLS,
+        )
 
     def predict_risk(self, stack: pd.DataFrame, horizon: float) -> np.ndarray:
         """Risk of the outcome in (s, s + horizon] for each row (s = ``landmark``; horizon in days)."""

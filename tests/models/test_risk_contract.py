@@ -149,3 +149,27 @@ def test_every_model_keeps_the_contract_on_unseen_patients(make_stack, name: str
     curve = risk_curve(model, new, [91.3125, 365.25, 700.0])
     assert curve.shape == (3, 3) and np.all(np.diff(curve, axis=1) >= 0)
     np.testing.assert_allclose(curve[:, 1], risk)
+
+
+def test_cumulative_incidence_at_equals_the_full_product_integral_read_at_times():
+    """The in-place evaluator used in prediction gives exactly the full-grid Aalen–Johansen combination
+    (including capped increments and times before the first jump or past the last)."""
+    import numpy as np
+
+    from riskbench.models.risk_contract import cumulative_incidence, cumulative_incidence_at, step_function_at
+
+    rng = np.random.default_rng(1)
+    n, m = 300, 200
+    grid = np.sort(rng.choice(np.arange(1, 2000), m, replace=False)).astype(float)
+    a = rng.uniform(0, 0.01, m) * (rng.random(m) < 0.6)
+    b = rng.uniform(0, 0.01, m)
+    s1, s2 = np.exp(rng.normal(0, 1.5, n)), np.exp(rng.normal(0, 1, n))
+    s1[0] = 1e4  # increments past 1 are capped
+    times = np.array([0.5, 100.0, 700.0, 1999.0, 5000.0])
+    for competing in (True, False):
+        full = cumulative_incidence(s1[:, None] * a, s2[:, None] * b if competing else None)
+        expected = step_function_at(grid, full, times)
+        got = cumulative_incidence_at(
+            s1, a, s2 if competing else None, b if competing else None, grid, times, block_cells=7_000
+        )
+        np.testing.assert_array_equal(got, expected)
