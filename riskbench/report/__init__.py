@@ -1,6 +1,7 @@
 """riskbench.report"""
 
+from riskbench.report.display_format import display_table
 from riskbench.report.html_report import build_report
 from riskbench.report.suppression import format_count, suppress_counts
 
-__all__ = ["build_report", "format_count", "suppress_counts"]
+__all__ = ["build_report", "display_table", "format_count", "suppress_counts"]
