@@ -83,7 +83,7 @@ def child_large(folder: Path, what: str) -> None:
     out = Path(tempfile.mkdtemp(prefix="riskbench_cohort_bench_"))
     t0 = time.perf_counter()
     cohort = build_cohort(folder / "patients.parquet", folder / "measurements.parquet",
-                          folder / "outcomes.parquet", demo_cohort_spec(), memory_limit="4GB")
+                          folder / "outcomes.parquet", demo_cohort_spec(), memory_limit="5GB", threads=2)
     if what == "counting_process":
         cohort._con.execute(f"COPY cp TO '{out / 'cp.parquet'}' (FORMAT parquet)")
         seconds = time.perf_counter() - t0

@@ -239,6 +239,10 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
         FROM (SELECT pidx, day, vidx, is_log, value FROM m2 m ANTI JOIN crowded c USING (kidx, vidx, ts)
               WHERE m.state IS NULL
               UNION ALL SELECT pidx, day, vidx, is_log, value FROM merged WHERE state = '{S.USED}')""")
+    # Only the ledger reads m2 from here on: keep its three columns and free the memory of the others.
+    con.execute("CREATE TEMP TABLE m2_ledger AS SELECT row_number, patient_id, state FROM m2")
+    con.execute("DROP TABLE m2")
+    con.execute("ALTER TABLE m2_ledger RENAME TO m2")
 
 
 def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:

@@ -53,6 +53,7 @@ def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec,
                            block_patients: int = BLOCK_PATIENTS) -> None:
     """Create the DuckDB table ``cp`` (the counting-process table) from ``pat`` and ``meas``."""
     con.execute(f"CREATE TEMP TABLE used_values AS {_slope_rows(spec)}")
+    con.execute("DROP TABLE meas")  # used_values holds every used value; spare the memory
     exam_ids = [i for i, v in enumerate(spec.variables) if v.name in spec.exam_variables]
     n_patients = con.execute("SELECT count(*) FROM pat").fetchall()[0][0]  # pidx runs 1..n_patients
     static_sql = "".join(f", {quote(c)}" for c in spec.static)
@@ -88,3 +89,4 @@ def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec,
         select = "SELECT CAST(patient_id AS VARCHAR) AS patient_id, * EXCLUDE (patient_id) FROM cp_block"
         con.execute(f"CREATE TEMP TABLE cp AS {select}" if first == 1 else f"INSERT INTO cp {select}")
         con.unregister("cp_block")
+    con.execute("DROP TABLE used_values")  # frees memory for the later reads of cp

@@ -40,19 +40,20 @@ def landmark_sql(spec: CohortSpec, landmarks_days: Sequence[float], horizon_days
     covs = []
     for c in spec.covariate_columns:
         if c in clocks:
-            covs.append(f"cp.{quote(c)} + (a.landmark - cp.start) AS {quote(c)}")
+            covs.append(f"cp.{quote(c)} + (cp.landmark - cp.start) AS {quote(c)}")
         elif c == "age" and spec.current_age:
-            covs.append(f"cp.age + (a.landmark - cp.start) / {DAYS_PER_YEAR} AS age")
+            covs.append(f"cp.age + (cp.landmark - cp.start) / {DAYS_PER_YEAR} AS age")
         else:
             covs.append(f"cp.{quote(c)}")
-    values = ", ".join(f"({s!r}::DOUBLE)" for s in marks)
+    # Rows of a patient tile (0, end] without gaps, so the row with start <= s < stop is the as-of row at s
+    # and exists exactly when the patient is still at risk at s (end > s): one range filter per landmark.
+    # Both keys of the final sort are numbers (pidx follows the order of patient_id).
+    at_s = " UNION ALL ".join(
+        f"SELECT {s!r}::DOUBLE AS landmark, * FROM cp WHERE cp.start <= {s!r} AND cp.stop > {s!r}" for s in marks)
     return f"""
-        WITH lm(landmark) AS (VALUES {values}),
-        at_risk AS (SELECT p.patient_id, lm.landmark, p.end_days, p.end_status FROM pat p, lm
-                    WHERE p.end_days > lm.landmark)
-        SELECT a.patient_id, a.landmark,
-            least(a.end_days, a.landmark + {w!r}) - a.landmark AS time,
-            CAST(CASE WHEN a.end_days <= a.landmark + {w!r} THEN a.end_status ELSE 0 END AS TINYINT) AS status,
+        SELECT cp.patient_id, cp.landmark,
+            least(p.end_days, cp.landmark + {w!r}) - cp.landmark AS time,
+            CAST(CASE WHEN p.end_days <= cp.landmark + {w!r} THEN p.end_status ELSE 0 END AS TINYINT) AS status,
             {', '.join(covs)}
-        FROM at_risk a ASOF JOIN cp ON a.patient_id = cp.patient_id AND a.landmark >= cp.start
-        ORDER BY a.landmark, a.patient_id"""
+        FROM ({at_s}) cp JOIN pat p ON p.patient_id = cp.patient_id
+        ORDER BY cp.landmark, p.pidx"""
