@@ -43,8 +43,8 @@ def _days(ts: str, origin: str) -> str:
     return f"((epoch({ts}) - epoch({origin})) / 86400.0)"
 
 
-def _first_blank(columns: tuple[str, ...], alias: str | None = None) -> str:
-    return " OR ".join(blank(c, alias) for c in columns)
+def _first_blank(loaded: LoadedTable, columns: tuple[str, ...], alias: str | None = None) -> str:
+    return " OR ".join(blank(c, alias, loaded.types[c]) for c in columns)
 
 
 def _dedupe(con: duckdb.DuckDBPyConnection, name: str, columns: tuple[str, ...]) -> None:
@@ -62,11 +62,13 @@ def check_patients(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Co
     """First pass over patients: required fields, dates, exact duplicates, then duplicate ids (an error)."""
     cols = loaded.columns
     birth = timestamp_expr(loaded, "birth_date") if "birth_date" in cols else "NULL::TIMESTAMP"
-    birth_bad = f"(NOT {blank('birth_date')} AND {birth} IS NULL)" if "birth_date" in cols else "FALSE"
+    birth_bad = "FALSE"
+    if "birth_date" in cols:
+        birth_bad = f"(NOT {blank('birth_date', None, loaded.types['birth_date'])} AND {birth} IS NULL)"
     con.execute(f"""
         CREATE TEMP TABLE p1 AS SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
             {timestamp_expr(loaded, 'entry_date')} AS entry_ts, {birth} AS birth_ts, * EXCLUDE (row_number, patient_id),
-            CASE WHEN {_first_blank(('patient_id', 'entry_date'))} THEN '{S.MISSING_REQUIRED}'
+            CASE WHEN {_first_blank(loaded, ('patient_id', 'entry_date'))} THEN '{S.MISSING_REQUIRED}'
                  WHEN {timestamp_expr(loaded, 'entry_date')} IS NULL OR {birth_bad} THEN '{S.UNPARSEABLE_DATE}'
             END AS state
         FROM raw_patients""")
@@ -90,7 +92,7 @@ def check_outcomes(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Co
         CREATE TEMP TABLE o1 AS SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
             {ts} AS ts, CASE trim(CAST(kind AS VARCHAR)) {kind_case} END AS kind_std,
             * EXCLUDE (row_number, patient_id),
-            CASE WHEN {_first_blank(('patient_id', 'date', 'kind'))} THEN '{S.MISSING_REQUIRED}'
+            CASE WHEN {_first_blank(loaded, ('patient_id', 'date', 'kind'))} THEN '{S.MISSING_REQUIRED}'
                  WHEN {ts} IS NULL THEN '{S.UNPARSEABLE_DATE}'
                  WHEN (CASE trim(CAST(kind AS VARCHAR)) {kind_case} END) IS NULL THEN '{S.UNKNOWN_KIND}'
                  WHEN trim(CAST(patient_id AS VARCHAR)) NOT IN (SELECT patient_id FROM p1
@@ -210,7 +212,7 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
         FROM (SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
                      trim(CAST(variable AS VARCHAR)) AS var, {unit_raw} AS unit_given,
                      {timestamp_expr(loaded, 'date', 'm')} AS ts, {number_expr(loaded, 'value', 'm')} AS raw_value,
-                     {_first_blank(('patient_id', 'date', 'variable', 'value'), 'm')} AS is_blank
+                     {_first_blank(loaded, ('patient_id', 'date', 'variable', 'value'), 'm')} AS is_blank
               FROM raw_measurements m) m
         LEFT JOIN var_canon c ON m.var = c.variable
         LEFT JOIN id_lookup k ON m.patient_id = k.patient_id

@@ -148,9 +148,15 @@ def _file_relation(path: Path, file_format: str) -> str:
     return f"read_csv({literal}, all_varchar = true, header = true)"
 
 
-def blank(column: str, alias: str | None = None) -> str:
-    """SQL: the column (of table ``alias`` if given) is missing or only white space."""
+def blank(column: str, alias: str | None = None, column_type: str = "VARCHAR") -> str:
+    """SQL: the column (of table ``alias`` if given) is missing or only white space.
+
+    Only text can be white space; a typed column (``column_type`` not VARCHAR) is blank when NULL, which
+    spares turning every number into text.
+    """
     col = f"{alias}.{quote(column)}" if alias else quote(column)
+    if not column_type.upper().startswith("VARCHAR"):
+        return f"({col} IS NULL)"
     return f"({col} IS NULL OR trim(CAST({col} AS VARCHAR)) = '')"
 
 
