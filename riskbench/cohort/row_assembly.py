@@ -121,7 +121,7 @@ def _cut_at_expiry(rows: Mapping[str, np.ndarray], carry: float, n_var: int) -> 
     piece_start = start[src].copy()
     piece_start[~first_piece] = times[distinct]  # row-major order = the pieces' order within each row
     piece_stop = np.where(last_piece, stop[src], np.r_[piece_start[1:], 0.0])
-    out = {k: a[src] for k, a in rows.items()}
+    out = {k: a.take(src) for k, a in rows.items()}  # take: a plain gather, quicker than fancy indexing
     out.update(start=piece_start, stop=piece_stop, last_row=rows["last_row"][src] & last_piece)
     return out
 
