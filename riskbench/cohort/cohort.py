@@ -182,10 +182,14 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
     loaded_p = load_table(con, "patients", patients, spec, extra)
     loaded_m = load_table(con, "measurements", measurements, spec)
     loaded_o = load_table(con, "outcomes", outcomes, spec)
+    # The checks order every result they need explicitly (row numbers are fixed on loading), so their
+    # intermediate tables may be written in any order; the counting-process table keeps patient-time order.
+    con.execute("SET preserve_insertion_order = false")
     contract.check_patients(con, loaded_p, spec)
     contract.check_outcomes(con, loaded_o, spec)
     contract.build_patient_table(con, loaded_p, spec)
     contract.check_measurements(con, loaded_m, spec)
     contract.build_ledger(con)
+    con.execute("SET preserve_insertion_order = true")
     build_counting_process(con, spec)
     return Cohort(con, spec, spill)
