@@ -27,7 +27,7 @@ demo: $(STAMP)
 lab: $(STAMP)
 	$(BIN)/python -m pip install --quiet -e '.[lab]'
 	$(BIN)/python -m ipykernel install --sys-prefix --name riskbench --display-name "riskbench (this environment)"
-	$(BIN)/jupyter lab --notebook-dir=notebooks
+	$(BIN)/jupyter lab --notebook-dir=notebooks $(if $(filter 0,$(shell id -u)),--allow-root,)
 
 benchmarks: $(STAMP)
 	for f in benchmarks/*.py; do $(BIN)/python $$f || exit 1; done
