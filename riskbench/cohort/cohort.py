@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import shutil
 import tempfile
 from collections.abc import Sequence
 from functools import cached_property
@@ -10,6 +11,7 @@ from pathlib import Path
 import duckdb
 import pandas as pd
 import pyarrow as pa
+import pyarrow.parquet as pq
 
 from riskbench.cohort import contract
 from riskbench.cohort.contract import CHECK_ORDER
@@ -22,9 +24,9 @@ from riskbench.cohort.spec import CohortSpec
 TABLE_ORDER = ("patients", "measurements", "outcomes")
 
 
-def _to_pandas(rel: duckdb.DuckDBPyRelation) -> pd.DataFrame:
+def _to_pandas(source: duckdb.DuckDBPyRelation | pa.Table) -> pd.DataFrame:
     """Plain numpy-backed columns (object strings) so that every pandas operation downstream works."""
-    table = rel.arrow()
+    table = source if isinstance(source, pa.Table) else source.arrow()
     if isinstance(table, pa.RecordBatchReader):
         table = table.read_all()
     frame = table.to_pandas()
@@ -35,6 +37,9 @@ def _to_pandas(rel: duckdb.DuckDBPyRelation) -> pd.DataFrame:
 
 class Cohort:
     """The tables of one cohort, held in a DuckDB connection and materialised on first access.
+
+    The counting-process table is stored as a Parquet file in the cohort's temporary folder (written block by
+    block while it was built, so it never has to fit in memory); the DuckDB view ``cp`` reads it.
 
     Attributes
     ----------
@@ -53,15 +58,22 @@ class Cohort:
         One row per included patient: ``patient_id, entry_date, end_days, end_status`` and static covariates.
     """
 
-    def __init__(self, con: duckdb.DuckDBPyConnection, spec: CohortSpec,
+    def __init__(self, con: duckdb.DuckDBPyConnection, spec: CohortSpec, counting_process_file: Path,
                  spill_folder: tempfile.TemporaryDirectory | None = None) -> None:
         self._con = con
         self.spec = spec
+        self._cp_file = counting_process_file  # the Parquet file the view cp reads
         self._spill_folder = spill_folder  # removed when the cohort is garbage-collected
+
+    @property
+    def counting_process_file(self) -> Path:
+        """The Parquet file holding the counting-process table (patient and time order), for reading it out
+        of core; it lives in a temporary folder removed with the cohort, so copy it to keep it."""
+        return self._cp_file
 
     @cached_property
     def counting_process(self) -> pd.DataFrame:
-        return _to_pandas(self._con.sql("SELECT * FROM cp"))
+        return _to_pandas(pq.read_table(self._cp_file))
 
     @cached_property
     def ledger(self) -> pd.DataFrame:
@@ -129,13 +141,14 @@ class Cohort:
         out.mkdir(parents=True, exist_ok=True)
         paths = {"counting_process": out / "counting_process.parquet", "ledger": out / "ledger.parquet",
                  "patients": out / "patients.parquet"}
-        queries = {"counting_process": "SELECT * FROM cp", "ledger": "SELECT * FROM ledger",
+        queries = {"ledger": "SELECT * FROM ledger",
                    "patients": "SELECT * EXCLUDE (entry_ts), CAST(entry_ts AS DATE) AS entry_date FROM pat"}
         if landmarks_days is not None:
             if horizon_days is None:
                 raise ValueError("write_parquet: give horizon_days together with landmarks_days")
             paths["landmark_stack"] = out / "landmark_stack.parquet"
             queries["landmark_stack"] = landmark_sql(self.spec, landmarks_days, horizon_days)
+        shutil.copyfile(self._cp_file, paths["counting_process"])  # already written, in table order
         for name, query in queries.items():
             target = str(paths[name]).replace("'", "''")
             self._con.execute(f"COPY ({query}) TO '{target}' (FORMAT parquet)")
@@ -191,5 +204,6 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
     contract.check_measurements(con, loaded_m, spec)
     contract.build_ledger(con)
     con.execute("SET preserve_insertion_order = true")
-    build_counting_process(con, spec)
-    return Cohort(con, spec, spill)
+    cp_file = Path(spill.name) / "counting_process.parquet"
+    build_counting_process(con, spec, cp_file)
+    return Cohort(con, spec, cp_file, spill)

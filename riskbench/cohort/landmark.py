@@ -46,14 +46,16 @@ def landmark_sql(spec: CohortSpec, landmarks_days: Sequence[float], horizon_days
         else:
             covs.append(f"cp.{quote(c)}")
     # Rows of a patient tile (0, end] without gaps, so the row with start <= s < stop is the as-of row at s
-    # and exists exactly when the patient is still at risk at s (end > s): one range filter per landmark.
-    # Both keys of the final sort are numbers (pidx follows the order of patient_id).
-    at_s = " UNION ALL ".join(
-        f"SELECT {s!r}::DOUBLE AS landmark, * FROM cp WHERE cp.start <= {s!r} AND cp.stop > {s!r}" for s in marks)
+    # and exists exactly when the patient is still at risk at s (end > s): one range join against the
+    # landmarks, so the table is scanned once whatever their number. Both keys of the final sort are
+    # numbers (pidx follows the order of patient_id).
+    marks_sql = ", ".join(f"({s!r}::DOUBLE)" for s in marks)
     return f"""
         SELECT cp.patient_id, cp.landmark,
             least(p.end_days, cp.landmark + {w!r}) - cp.landmark AS time,
             CAST(CASE WHEN p.end_days <= cp.landmark + {w!r} THEN p.end_status ELSE 0 END AS TINYINT) AS status,
             {', '.join(covs)}
-        FROM ({at_s}) cp JOIN pat p ON p.patient_id = cp.patient_id
+        FROM (SELECT m.landmark, cp.* FROM cp JOIN (VALUES {marks_sql}) m(landmark)
+              ON cp.start <= m.landmark AND cp.stop > m.landmark) cp
+        JOIN pat p ON p.patient_id = cp.patient_id
         ORDER BY cp.landmark, p.pidx"""

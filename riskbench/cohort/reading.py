@@ -13,13 +13,17 @@ from pathlib import Path
 from typing import Union
 
 import duckdb
+import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from riskbench.cohort.errors import CohortInputError
 from riskbench.cohort.sources import TableSource
 from riskbench.cohort.spec import CohortSpec
 
 Source = Union[str, Path, pd.DataFrame, TableSource]
+#: Name of the row-position column added to a DataFrame's Arrow copy (unlikely to clash with a source column).
+ROW_NUMBER = "__riskbench_row_number"
 
 REQUIRED: dict[str, tuple[str, ...]] = {
     "patients": ("patient_id", "entry_date"),
@@ -76,6 +80,7 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
     date_format = spec.date_format
     layout = spec.measurement_layout
     parquet = False
+    numbered = False  # the relation already carries row_number
     if isinstance(source, TableSource):
         columns.update(source.columns)
         date_format = source.date_format or date_format
@@ -84,7 +89,9 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         relation, label = _file_relation(source.path, source.file_format), str(source.path)
     elif isinstance(source, pd.DataFrame):
         name = f"frame_{table}"
-        con.register(name, source)
+        frame = _numbered_arrow(source)
+        numbered = frame is not None
+        con.register(name, frame if numbered else source)
         relation, label = quote(name), f"{table} DataFrame"
     else:
         path = Path(source)
@@ -124,7 +131,9 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         types.update(variable="VARCHAR", value="VARCHAR")
         return LoadedTable(table, label, tuple(wanted) + ("variable", "value"), types, date_format)
     selects = ", ".join(f"{quote(columns.get(c, c))} AS {quote(c)}" for c in wanted)
-    if parquet:  # read in place: Parquet knows each row's position
+    if numbered:  # read in place: the Arrow copy of the DataFrame carries the row positions
+        con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT {ROW_NUMBER} AS row_number, {selects} FROM {relation}")
+    elif parquet:  # read in place: Parquet knows each row's position
         path = source.path if isinstance(source, TableSource) else Path(source)
         numbered = f"read_parquet({_literal(path)}, file_row_number = true)"
         con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT file_row_number + 1 AS row_number, {selects} "
@@ -134,6 +143,22 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT rowid + 1 AS row_number, * FROM src_{table}")
     types = {c: present[columns.get(c, c)] for c in wanted}
     return LoadedTable(table, label, tuple(wanted), types, date_format)
+
+
+def _numbered_arrow(frame: pd.DataFrame) -> pa.Table | None:
+    """The DataFrame as an Arrow table with its 1-based row positions in column ``ROW_NUMBER``.
+
+    DuckDB scans Arrow memory directly, so the rows need not be copied into a table to get their positions.
+    Returns None when a column mixes types that Arrow cannot hold in one column (text and numbers, say);
+    the caller then lets DuckDB read the DataFrame itself.
+    """
+    try:
+        table = pa.Table.from_pandas(frame, preserve_index=False)
+    except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError):
+        return None
+    if ROW_NUMBER in table.column_names:
+        return None
+    return table.append_column(ROW_NUMBER, pa.array(np.arange(1, len(frame) + 1, dtype=np.int64)))
 
 
 def _literal(path: Path) -> str:

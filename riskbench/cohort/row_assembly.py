@@ -31,7 +31,9 @@ class ValueBlock:
 
 def exam_dates(patient: np.ndarray, day: np.ndarray, var: np.ndarray, exam_ids: list[int]) -> np.ndarray:
     """True on exactly one row of each exam date (a date with a value of any exam variable) of sorted rows."""
-    is_exam = np.isin(var, exam_ids)
+    is_exam = np.zeros(var.size, dtype=bool)
+    for i in exam_ids:  # a few variables: one comparison each beats a general set lookup
+        is_exam |= var == i
     rows = np.flatnonzero(is_exam)
     p, t = patient[rows], day[rows]
     first = np.r_[True, (p[1:] != p[:-1]) | (t[1:] != t[:-1])] if rows.size else np.zeros(0, bool)
@@ -40,12 +42,17 @@ def exam_dates(patient: np.ndarray, day: np.ndarray, var: np.ndarray, exam_ids: 
     return out
 
 
-def _last_index(mask: np.ndarray, start_of_patient: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """For each row, the index of the last row at or before it (same patient) where ``mask``; and validity."""
-    n = mask.size
-    idx = np.maximum.accumulate(np.where(mask, np.arange(n), -1))
+def _last_index(mask: np.ndarray, positions: np.ndarray, start_of_patient: np.ndarray
+                ) -> tuple[np.ndarray, np.ndarray]:
+    """For each row, the index of the last row at or before it (same patient) where ``mask``; and validity.
+
+    ``positions`` is ``arange(n)`` in a small integer type (half the memory traffic of 64-bit indices).
+    """
+    idx = np.where(mask, positions, -1)
+    np.maximum.accumulate(idx, out=idx)
     valid = idx >= start_of_patient
-    return np.where(valid, idx, 0), valid
+    idx[~valid] = 0
+    return idx, valid
 
 
 def assemble_rows(block: ValueBlock, end_days: np.ndarray, spec: CohortSpec) -> dict[str, np.ndarray]:
@@ -69,8 +76,10 @@ def assemble_rows(block: ValueBlock, end_days: np.ndarray, spec: CohortSpec) -> 
     """
     p, t, v = block.patient, block.day, block.var
     n = p.size
+    positions = np.arange(n, dtype=np.int32 if n < 2**31 else np.int64)
     new_patient = np.r_[True, p[1:] != p[:-1]]
-    start_of_patient = np.maximum.accumulate(np.where(new_patient, np.arange(n), 0))
+    start_of_patient = np.where(new_patient, positions, 0)
+    np.maximum.accumulate(start_of_patient, out=start_of_patient)
     # The last row of each (patient, day) has seen every value of that day.
     keep = np.r_[new_patient[1:] | (t[1:] != t[:-1]), True] & (t >= 0)
     rows = np.flatnonzero(keep)
@@ -82,12 +91,12 @@ def assemble_rows(block: ValueBlock, end_days: np.ndarray, spec: CohortSpec) -> 
     ordinal = np.cumsum(new_patient) - 1
     for i, var in enumerate(spec.variables):
         is_var = v == i
-        idx, valid = _last_index(is_var, start_of_patient)
+        idx, valid = _last_index(is_var, positions, start_of_patient)
         idx, valid = idx[rows], valid[rows]
         out[f"x{i}"] = np.where(valid, block.x[idx], np.nan)
         out[f"d{i}"] = np.where(valid, t[idx], np.nan)
         if var.change:
-            first = np.minimum.reduceat(np.where(is_var, np.arange(n), n - 1), starts)[ordinal[rows]]
+            first = np.minimum.reduceat(np.where(is_var, positions, n - 1), starts)[ordinal[rows]]
             out[f"f{i}"] = np.where(valid, block.x[first], np.nan)
         if var.slope:
             out[f"s{i}"] = np.where(valid, block.slope[idx], np.nan)
@@ -95,7 +104,7 @@ def assemble_rows(block: ValueBlock, end_days: np.ndarray, spec: CohortSpec) -> 
         counted = np.cumsum(block.exam_day)
         before = (counted - block.exam_day)[start_of_patient]
         out["n_exams"] = (counted - before)[rows]
-        idx, valid = _last_index(block.exam_day, start_of_patient)
+        idx, valid = _last_index(block.exam_day, positions, start_of_patient)
         out["last_exam"] = np.where(valid[rows], t[idx[rows]], np.nan)
     if spec.max_carry_days is not None and spec.variables:
         out = _cut_at_expiry(out, spec.max_carry_days, len(spec.variables))
@@ -105,12 +114,16 @@ def assemble_rows(block: ValueBlock, end_days: np.ndarray, spec: CohortSpec) -> 
 def _cut_at_expiry(rows: Mapping[str, np.ndarray], carry: float, n_var: int) -> dict[str, np.ndarray]:
     """Cut each row at the moments (strictly inside it) when a value becomes ``carry`` days old."""
     start, stop = rows["start"], rows["stop"]
-    expiry = np.column_stack([rows[f"d{i}"] + carry for i in range(n_var)])
-    inside = (expiry > start[:, None]) & (expiry < stop[:, None])  # NaN compares False
-    cut = inside.any(axis=1)
+    cut = np.zeros(start.size, dtype=bool)
+    for i in range(n_var):
+        expiry = rows[f"d{i}"] + carry
+        cut |= (expiry > start) & (expiry < stop)  # NaN compares False
     if not cut.any():
         return dict(rows)
-    times = np.where(inside, expiry, np.inf)[cut]
+    # Only the rows that are cut (a small share) need the per-variable expiry times side by side.
+    expiry = np.column_stack([rows[f"d{i}"][cut] + carry for i in range(n_var)])
+    inside = (expiry > start[cut, None]) & (expiry < stop[cut, None])
+    times = np.where(inside, expiry, np.inf)
     times.sort(axis=1)
     distinct = np.isfinite(times) & np.c_[np.ones(len(times), bool), times[:, 1:] != times[:, :-1]]
     pieces = np.ones(start.size, dtype=np.int64)
