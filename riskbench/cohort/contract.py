@@ -16,7 +16,7 @@ import numpy as np
 import pyarrow as pa
 
 from riskbench.cohort.errors import CohortInputError
-from riskbench.cohort.reading import LoadedTable, blank, number_expr, quote, timestamp_expr
+from riskbench.cohort.reading import LoadedTable, blank, number_expr, quote, timestamp_expr, trimmed_expr
 from riskbench.cohort.reasons import RowState as S
 from riskbench.cohort.spec import DAYS_PER_YEAR, CohortSpec
 
@@ -196,7 +196,11 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
                    FROM (SELECT patient_id, CAST(row_number() OVER () AS INTEGER) AS kidx
                          FROM (SELECT DISTINCT patient_id FROM p1 WHERE patient_id IS NOT NULL)) k
                    LEFT JOIN pat p USING (patient_id)""")
-    unit_raw = "nullif(trim(CAST(m.unit AS VARCHAR)), '')" if "unit" in loaded.columns else "NULL"
+    # Each text column is trimmed once, in the innermost query, and its parsed forms are built on that.
+    required = ("patient_id", "date", "variable", "value")
+    texts = required + (("unit",) if "unit" in loaded.columns else ())
+    trimmed = ", ".join(f"{trimmed_expr(loaded, c, 'm')} AS t_{c}" for c in texts)
+    unit_raw = "nullif(CAST(t_unit AS VARCHAR), '')" if "unit" in loaded.columns else "NULL"
     day = _days("m.ts", "k.entry_ts")
     value = "m.raw_value * u.factor"
     # Exact duplicates are settled after this pass (they share patient, variable and time, see below).
@@ -215,11 +219,11 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
                  WHEN {day} < -{spec.lookback_days!r} THEN '{S.BEFORE_LOOKBACK}'
                  WHEN {day} > k.end_days THEN '{S.AFTER_FOLLOW_UP}'
             END AS state
-        FROM (SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
-                     trim(CAST(variable AS VARCHAR)) AS var, {unit_raw} AS unit_given,
-                     {timestamp_expr(loaded, 'date', 'm')} AS ts, {number_expr(loaded, 'value', 'm')} AS raw_value,
-                     {_first_blank(loaded, ('patient_id', 'date', 'variable', 'value'), 'm')} AS is_blank
-              FROM raw_measurements m) m
+        FROM (SELECT row_number, CAST(t_patient_id AS VARCHAR) AS patient_id, CAST(t_variable AS VARCHAR) AS var,
+                     {unit_raw} AS unit_given, {timestamp_expr(loaded, 'date', trimmed='t_date')} AS ts,
+                     {number_expr(loaded, 'value', trimmed='t_value')} AS raw_value,
+                     {" OR ".join(blank(c, None, loaded.types[c], trimmed=f"t_{c}") for c in required)} AS is_blank
+              FROM (SELECT row_number, {trimmed} FROM raw_measurements m)) m
         LEFT JOIN var_canon c ON m.var = c.variable
         LEFT JOIN id_lookup k ON m.patient_id = k.patient_id
         LEFT JOIN units u ON u.vidx = c.vidx AND u.unit = coalesce(m.unit_given, c.unit)""")

@@ -38,6 +38,9 @@ from riskbench.cohort.spec import DAYS_PER_YEAR, CohortSpec
 #: Patients per block handed from DuckDB to the array assembly. Blocks this size keep every array of a step
 #: small enough that the allocator reuses memory instead of mapping fresh pages for each block.
 BLOCK_PATIENTS = 100_000
+#: A small cohort is still cut into this many blocks, of at least MIN_BLOCK_PATIENTS patients each.
+MIN_BLOCKS = 4
+MIN_BLOCK_PATIENTS = 1_000
 PATIENT_ID_TYPE = pa.dictionary(pa.int32(), pa.string())
 #: Blocks read ahead of the one being written (bounds the memory in flight).
 BLOCKS_IN_FLIGHT = 2
@@ -113,14 +116,16 @@ def _assemble_block(values: pa.Table, first: int, last: int, patients: _Patients
 def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec, target: Path,
                            block_patients: int | None = None) -> None:
     """Write the counting-process table of ``pat`` and ``meas`` to the Parquet file ``target``; create the
-    DuckDB view ``cp`` over it. ``block_patients`` defaults to :data:`BLOCK_PATIENTS`."""
-    block_patients = block_patients or BLOCK_PATIENTS
+    DuckDB view ``cp`` over it. ``block_patients`` defaults to :data:`BLOCK_PATIENTS`, or for a small cohort
+    to a share that still gives :data:`MIN_BLOCKS` blocks (so assembling one overlaps writing the last)."""
     con.execute(f"""CREATE TEMP TABLE used_values AS
                         {_slope_rows(spec)} UNION ALL SELECT pidx, 0.0::DOUBLE, -1, NULL, NULL FROM pat""")
     con.execute("DROP TABLE meas")  # used_values holds every used value; spare the memory
     exam_ids = [i for i, v in enumerate(spec.variables) if v.name in spec.exam_variables]
     patients = _read_patients(con, spec)
     n_patients = patients.end_days.size  # pidx runs 1..n_patients
+    if block_patients is None:
+        block_patients = min(BLOCK_PATIENTS, max(MIN_BLOCK_PATIENTS, -(-n_patients // MIN_BLOCKS)))
     schema = table_schema(spec)
     # Plain (not dictionary-encoded) floats: the values rarely repeat, and trying costs time.
     options = {"compression": "snappy", "use_dictionary": ["patient_id"], "store_schema": False}

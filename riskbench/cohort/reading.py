@@ -173,34 +173,60 @@ def _file_relation(path: Path, file_format: str) -> str:
     return f"read_csv({literal}, all_varchar = true, header = true)"
 
 
-def blank(column: str, alias: str | None = None, column_type: str = "VARCHAR") -> str:
+def blank(column: str, alias: str | None = None, column_type: str = "VARCHAR", *, trimmed: str | None = None) -> str:
     """SQL: the column (of table ``alias`` if given) is missing or only white space.
 
     Only text can be white space; a typed column (``column_type`` not VARCHAR) is blank when NULL, which
-    spares turning every number into text.
+    spares turning every number into text. ``trimmed`` is the SQL of the column already passed through
+    :func:`trimmed_expr`, when there is one.
     """
     col = f"{alias}.{quote(column)}" if alias else quote(column)
-    if not column_type.upper().startswith("VARCHAR"):
-        return f"({col} IS NULL)"
+    if not _is_text(column_type):
+        return f"({trimmed or col} IS NULL)"
+    if trimmed:
+        return f"({trimmed} IS NULL OR {trimmed} = '')"
     return f"({col} IS NULL OR trim(CAST({col} AS VARCHAR)) = '')"
 
 
-def timestamp_expr(loaded: LoadedTable, column: str, alias: str | None = None) -> str:
-    """SQL: the column (of table ``alias`` if given) as a TIMESTAMP (NULL when it cannot be parsed)."""
+def trimmed_expr(loaded: LoadedTable, column: str, alias: str | None = None) -> str:
+    """SQL: the column (of table ``alias`` if given) as trimmed text if it holds text, else as it is.
+
+    Computing this once in an inner query and handing it to :func:`timestamp_expr`, :func:`number_expr` and
+    :func:`blank` (``trimmed=``) spares trimming the same strings several times per row.
+    """
     col = f"{alias}.{quote(column)}" if alias else quote(column)
+    return f"trim(CAST({col} AS VARCHAR))" if _is_text(loaded.types[column]) else col
+
+
+def _is_text(column_type: str) -> bool:
+    return column_type.upper().startswith("VARCHAR")
+
+
+def timestamp_expr(loaded: LoadedTable, column: str, alias: str | None = None, *, trimmed: str | None = None) -> str:
+    """SQL: the column (of table ``alias`` if given) as a TIMESTAMP (NULL when it cannot be parsed).
+
+    ``trimmed`` is the SQL of the column already passed through :func:`trimmed_expr`, when there is one.
+    """
+    col = trimmed or (f"{alias}.{quote(column)}" if alias else quote(column))
     kind = loaded.types[column].upper()
     if kind.startswith("DATE") or kind.startswith("TIMESTAMP"):
         return f"CAST({col} AS TIMESTAMP)"
-    text = f"trim(CAST({col} AS VARCHAR))"
+    text = trimmed or f"trim(CAST({col} AS VARCHAR))"
     if loaded.date_format:
         fmt = loaded.date_format.replace("'", "''")
         return f"try_strptime({text}, '{fmt}')"
     return f"TRY_CAST({text} AS TIMESTAMP)"
 
 
-def number_expr(loaded: LoadedTable, column: str, alias: str | None = None) -> str:
-    """SQL: the column (of table ``alias`` if given) as a finite DOUBLE (NULL when it cannot be parsed)."""
+def number_expr(loaded: LoadedTable, column: str, alias: str | None = None, *, trimmed: str | None = None) -> str:
+    """SQL: the column (of table ``alias`` if given) as a finite DOUBLE (NULL when it cannot be parsed).
+
+    ``trimmed`` is the SQL of the column already passed through :func:`trimmed_expr`, when there is one.
+    """
     col = f"{alias}.{quote(column)}" if alias else quote(column)
     kind = loaded.types[column].upper()
-    raw = f"TRY_CAST({col} AS DOUBLE)" if kind != "VARCHAR" else f"TRY_CAST(trim({col}) AS DOUBLE)"
+    if trimmed:
+        raw = f"TRY_CAST({trimmed} AS DOUBLE)"
+    else:
+        raw = f"TRY_CAST({col} AS DOUBLE)" if kind != "VARCHAR" else f"TRY_CAST(trim({col}) AS DOUBLE)"
     return f"(CASE WHEN isfinite({raw}) THEN {raw} END)"

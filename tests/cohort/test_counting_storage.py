@@ -74,3 +74,20 @@ def test_empty_cohort_has_an_empty_table_with_the_columns() -> None:
     cp = cohort.counting_process
     assert len(cp) == 0
     assert list(cp.columns) == ["patient_id", "start", "stop", "status", *SPEC.covariate_columns]
+
+
+def test_typed_columns_are_read_like_text(cohort_tables, plain) -> None:
+    # Integer patient ids, real dates and numeric values (as Parquet or a typed DataFrame brings them) give
+    # the same table as the same data written as text.
+    patients, meas, outcomes = (t.copy() for t in cohort_tables)
+    number = {pid: int(pid[1:]) for pid in patients["patient_id"]}
+    for table in (patients, meas, outcomes):
+        table["patient_id"] = table["patient_id"].map(number)
+    meas["date"] = pd.to_datetime(meas["date"])
+    cohort = build_cohort(patients, meas, outcomes, SPEC)
+    expected = plain[0].assign(patient_id=plain[0]["patient_id"].map(lambda p: str(number[p])))
+    got = cohort.counting_process.sort_values(["patient_id", "start"], key=lambda s: s.astype(float) if
+                                               s.name == "patient_id" else s, ignore_index=True)
+    expected = expected.sort_values(["patient_id", "start"], key=lambda s: s.astype(float) if
+                                    s.name == "patient_id" else s, ignore_index=True)
+    pd.testing.assert_frame_equal(got, expected)
