@@ -7,7 +7,7 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
-from riskbench.report.suppression import format_count, is_suppressed
+from riskbench.report.suppression import complementary_hidden, format_count, is_suppressed
 
 DAYS_PER_YEAR = 365.25
 STATUS_GROUPS: tuple[tuple[int, str], ...] = ((1, "Outcome"), (2, "Competing event"), (0, "Censored"))
@@ -54,12 +54,10 @@ def baseline_table(
     groups.append(("All", merged))
     # a group that is too small shows no summary at all: its medians would describe single people
     shown = {label: not is_suppressed(len(g), threshold) for label, g in groups}
-    # complementary suppression: one hidden group could be recovered from "All" minus the others
-    hidden = [label for label, g in groups[:-1] if not shown[label] and len(g) > 0]
-    if len(hidden) == 1:
-        candidates = [(len(g), label) for label, g in groups[:-1] if shown[label] and len(g) > 0]
-        if candidates:
-            shown[min(candidates)[1]] = False
+    # complementary suppression: hidden groups could be recovered from "All" minus the others
+    hidden = complementary_hidden(np.array([len(g) for _, g in groups[:-1]], dtype=float), threshold)
+    for (label, _), hide in zip(groups[:-1], hidden):
+        shown[label] = not hide
 
     rows: list[dict[str, str]] = []
 

@@ -3,7 +3,8 @@
 A count of people below the threshold (default 10, common practice) is shown as ``"<10"``; a zero stays
 ``0`` because it discloses nobody. Percentages derived from a suppressed count are suppressed with it.
 Within one row of group counts, a single suppressed cell could be recovered from the row total, so the
-next-smallest shown cell of that row is suppressed too (complementary suppression, common practice).
+next-smallest shown cell of that row is suppressed too (complementary suppression, common practice); the
+same holds for several hidden cells that add up to less than the threshold.
 """
 
 from __future__ import annotations
@@ -37,6 +38,22 @@ def is_suppressed(n: float | int, threshold: int) -> bool:
     return 0 < int(round(float(n))) < threshold
 
 
+def complementary_hidden(counts: np.ndarray, threshold: int) -> np.ndarray:
+    """Which of a set of group counts (adding up to a shown total) to hide.
+
+    The small ones (``0 < n < threshold``), and then, while the hidden ones add up to less than
+    ``threshold`` (their sum would follow from the total), the smallest shown non-zero count as well.
+    """
+    counts = np.asarray(counts, dtype=float)
+    hide = (counts > 0) & (np.round(counts) < threshold)
+    while 0 < counts[hide].sum() < threshold:
+        shown = np.flatnonzero(~hide & (counts > 0))
+        if not shown.size:
+            break
+        hide[shown[np.argmin(counts[shown])]] = True
+    return hide
+
+
 def suppress_counts(
     table: pd.DataFrame,
     columns: Sequence[str],
@@ -55,8 +72,9 @@ def suppress_counts(
     threshold
         Counts ``0 < n < threshold`` become ``"<threshold"``.
     complementary
-        If true, a row with exactly one hidden cell among ``columns`` also hides its smallest other
-        non-zero cell, so the hidden value cannot be recovered from a total.
+        If true, each row's cells are treated as groups of a shown total: see :func:`complementary_hidden`
+        (a single hidden cell, or several adding up to less than ``threshold``, takes the smallest shown
+        cell with it).
 
     Raises
     ------
@@ -73,10 +91,7 @@ def suppress_counts(
     hide = (values > 0) & (np.round(values) < threshold)
     if complementary and len(columns) > 1:
         for i in range(len(values)):
-            if hide[i].sum() == 1:
-                shown = np.where(~hide[i] & (values[i] > 0))[0]
-                if len(shown):
-                    hide[i, shown[np.argmin(values[i, shown])]] = True
+            hide[i] = complementary_hidden(np.nan_to_num(values[i]), threshold)
     for j, col in enumerate(columns):
         texts = []
         for i in range(len(values)):

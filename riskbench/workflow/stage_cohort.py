@@ -15,6 +15,7 @@ import pandas as pd
 from riskbench.cohort import Cohort, build_cohort
 from riskbench.report.baseline_table import baseline_table
 from riskbench.report.flow_diagram import flow_figure
+from riskbench.report.flow_suppression import suppress_flow
 from riskbench.report.outputs import save_data, save_figure, save_table
 from riskbench.report.suppression import suppress_counts
 from riskbench.report.timelines import choose_example_patients, timeline_figure
@@ -58,6 +59,23 @@ def patient_flow(flow: pd.DataFrame, patients: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["step", "n_patients", "n_excluded", "level"])
 
 
+def ledger_summary(rows_flow: pd.DataFrame, threshold: int) -> pd.DataFrame:
+    """Rows read, excluded per reason and used, per source table, with small counts hidden.
+
+    ``rows_flow`` has ``table, state, rows_remaining, rows_excluded`` (states ``read`` and ``used`` plus the
+    reasons that excluded rows). Within a table the counts are linked by subtraction, so each table goes
+    through :func:`~riskbench.report.flow_suppression.suppress_flow` (small reasons merged).
+    """
+    parts = []
+    for table, rows in rows_flow.groupby("table", sort=False):
+        flow = pd.DataFrame({"step": rows["state"].to_numpy(), "n_patients": rows["rows_remaining"].to_numpy(),
+                             "n_excluded": rows["rows_excluded"].to_numpy(), "level": 0})
+        shown = suppress_flow(flow, threshold, prefix="")
+        parts.append(pd.DataFrame({"table": table, "state": shown["step"], "rows_remaining": shown["n_patients"],
+                                   "rows_excluded": shown["n_excluded"]}))
+    return pd.concat(parts, ignore_index=True)
+
+
 def _excluded_column(flow: pd.DataFrame) -> str:
     return "excluded" if "excluded" in flow.columns else "n_rows"
 
@@ -96,13 +114,13 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
 
     result = StageResult(stage="cohort", run_dir=run_dir)
     flow = patient_flow(cohort.flow, patients)
-    result.tables["cohort_flow"] = suppress_counts(flow, ["n_patients", "n_excluded"], threshold)
+    result.tables["cohort_flow"] = suppress_flow(flow, threshold)
     result.figures["cohort_flow"] = save_figure(flow_figure(flow, threshold=threshold), run_dir, "cohort_flow")
     # the full row ledger, summarised: every input row of every table in exactly one state
     rows_flow = cohort.flow[["table", "state", "remaining", _excluded_column(cohort.flow)]]
     rows_flow.columns = ["table", "state", "rows_remaining", "rows_excluded"]
     rows_flow = rows_flow[rows_flow["state"].isin(["read", "used"]) | (rows_flow["rows_excluded"] > 0)]
-    result.tables["ledger_summary"] = suppress_counts(rows_flow, ["rows_remaining", "rows_excluded"], threshold)
+    result.tables["ledger_summary"] = ledger_summary(rows_flow, threshold)
     result.tables["landmark_summary"] = landmark_summary(stack, threshold)
 
     covariates = list(dict.fromkeys(c for m in config.models for c in m.covariates))
