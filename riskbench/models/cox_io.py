@@ -9,10 +9,7 @@ precision, so a round trip reproduces predictions exactly.
 
 from __future__ import annotations
 
-import json
-import platform
 from dataclasses import fields
-from importlib import metadata
 from pathlib import Path
 from typing import Any
 
@@ -20,13 +17,13 @@ import numpy as np
 import pandas as pd
 
 from riskbench.models.cox_engine import CoxFit, LikelihoodTest
+from riskbench.models.model_file import read_model_file, write_model_file
 from riskbench.models.risk_contract import ModelInputError
 
 __all__ = ["FORMAT", "load_cox_model", "save_cox_model"]
 
 FORMAT = "riskbench.cox_model"
 FORMAT_VERSION = 1
-_PACKAGES = ("riskbench", "numpy", "pandas", "scipy")
 
 
 def _plain(value: Any) -> Any:
@@ -44,33 +41,13 @@ def _plain(value: Any) -> Any:
     return value
 
 
-def _versions() -> dict[str, str]:
-    out = {"python": platform.python_version()}
-    for name in _PACKAGES:
-        try:
-            out[name] = metadata.version(name)
-        except metadata.PackageNotFoundError:
-            out[name] = "unknown"
-    return out
-
-
 def save_cox_model(model: Any, path: str | Path) -> Path:
     """Write a fitted ``CoxModel`` to ``path`` (JSON); returns the path."""
     if not hasattr(model, "fit_"):
         raise ModelInputError("only a fitted CoxModel can be saved; call fit(table) first.")
-    params = model.get_params()
-    params["covariates"] = list(params["covariates"])
-    doc = {
-        "format": FORMAT,
-        "format_version": FORMAT_VERSION,
-        "params": params,
-        "time_scale": model.time_scale_,
-        "fit": {f.name: _plain(getattr(model.fit_, f.name)) for f in fields(CoxFit)},
-        "versions": _versions(),
-    }
-    path = Path(path)
-    path.write_text(json.dumps(doc, indent=1, allow_nan=True))
-    return path
+    body = {"time_scale": model.time_scale_,
+            "fit": {f.name: _plain(getattr(model.fit_, f.name)) for f in fields(CoxFit)}}
+    return write_model_file(path, FORMAT, FORMAT_VERSION, model, body)
 
 
 def _test(d: dict[str, Any] | None) -> LikelihoodTest | None:
@@ -87,18 +64,7 @@ def load_cox_model(path: str | Path) -> Any:
     """
     from riskbench.models.cox_model import CoxModel
 
-    path = Path(path)
-    try:
-        doc = json.loads(path.read_text())
-    except (OSError, json.JSONDecodeError) as exc:
-        raise ModelInputError(f"cannot read a Cox model from {path}: {exc}") from exc
-    if not isinstance(doc, dict) or doc.get("format") != FORMAT:
-        raise ModelInputError(f"{path} is not a riskbench Cox model file (format {FORMAT!r} expected).")
-    if int(doc.get("format_version", 0)) > FORMAT_VERSION:
-        raise ModelInputError(
-            f"{path} has format version {doc['format_version']}, newer than this riskbench reads "
-            f"({FORMAT_VERSION}); upgrade riskbench."
-        )
+    doc = read_model_file(path, FORMAT, FORMAT_VERSION, "Cox model")
     raw = doc["fit"]
     arrays = {"coef", "var", "robust_var", "center", "scale"}
     values: dict[str, Any] = {}

@@ -31,6 +31,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -313,6 +314,20 @@ class LandmarkSupermodel(BaseEstimator):
     def predict_risk(self, stack: pd.DataFrame, horizon: float) -> np.ndarray:
         """Risk of the outcome in (s, s + horizon] for each row (s = ``landmark``; horizon in days)."""
         return self.predict_curve(stack, [horizon])[:, 0]
+
+    # ------------------------------------------------------------------ saving
+    def to_json(self, path: str | Path) -> Path:
+        """Write the fitted model (design, both cause-specific fits, baselines, spec, versions) as JSON."""
+        from riskbench.models.landmark_io import save_landmark_model
+
+        return save_landmark_model(self, path)
+
+    @classmethod
+    def from_json(cls, path: str | Path) -> LandmarkSupermodel:
+        """Read a model written by :meth:`to_json`."""
+        from riskbench.models.landmark_io import load_landmark_model
+
+        return load_landmark_model(path)
 
     # ----------------------------------------------------------------- report
     def summary(self) -> pd.DataFrame:
