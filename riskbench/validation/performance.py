@@ -1,13 +1,20 @@
 """All performance measures of one fitted model on one evaluation set, as one long table.
 
 The evaluation set is a landmark stack: each row is a patient at a landmark s with ``time`` (days from s,
-administratively censored at the stack's horizon) and ``status`` (0/1/2). The outcome is status 1;
-competing events (2) count as censored in concordance, AUC, Brier, calibration slope and ICI (the
-smoothed calibration of :func:`riskbench.metrics.calibration_at_horizon` is defined for one cause only:
-its observed risk is then 1 − Kaplan–Meier, which exceeds the cumulative incidence when competing events
-are common, so compare slope and ICI between models rather than with their ideal values). The
-observed/expected ratio and net benefit use the Aalen–Johansen cumulative incidence (a competing event
-removes the patient from risk), matching a model that predicts the cumulative incidence.
+administratively censored at the stack's horizon) and ``status`` (0/1/2). The outcome is status 1, and the
+predictions are cumulative incidences, so a competing event (2) before the horizon is a known non-outcome:
+
+- Harrell's C keeps such a patient comparable with every outcome (Wolbers et al. 2009, Epidemiology);
+- the cumulative/dynamic AUC counts them among the controls, weighted by 1/G(T) (Blanche, Dartigues &
+  Jacqmin-Gadda 2013, Stat Med, definition 2 of the controls);
+- the Brier score scores them as 0 with the same weight, against the Aalen–Johansen null model;
+- the observed/expected ratio and net benefit use the Aalen–Johansen cumulative incidence.
+
+Two measures count competing events as censored instead: Uno's C (its inverse-probability weights are
+for one cause; the competing-risk form of Wolbers et al. 2014 is not implemented) and the smoothed
+calibration slope and ICI of :func:`riskbench.metrics.calibration_at_horizon`, which is defined for one
+cause only (its observed risk is then 1 − Kaplan–Meier, above the cumulative incidence when competing
+events are common, so compare slope and ICI between models rather than with their ideal values).
 Rows of one patient at several landmarks are pooled, as in van Houwelingen & Putter (2012, ch. 7).
 
 Result columns: ``metric, horizon_days, threshold, value`` (``threshold`` only for net benefit, else NaN).
@@ -118,8 +125,7 @@ def evaluate_risks(
     time : numpy.ndarray
         Days from the landmark to event or censoring.
     status : numpy.ndarray
-        0 censored, 1 outcome, 2 competing event. Calibration uses all three (observed risk by
-        Aalen–Johansen); the other measures count competing events as censored.
+        0 censored, 1 outcome, 2 competing event (see the module notes for how each measure treats 2).
     risks : mapping float -> numpy.ndarray
         Horizon (days) -> predicted risk by that horizon per row.
     thresholds : sequence of float
@@ -141,11 +147,12 @@ def evaluate_risks(
     for horizon, risk in risks.items():
         h = float(horizon)
         t_eval = evaluation_time(h, time)
-        within = event.astype(bool) & (time <= t_eval)
-        harrell = metrics.concordance_harrell(np.minimum(time, t_eval), within.astype(int), risk, with_se=False)
+        # Outcome and competing event as known by the horizon: either after it is censored there.
+        by_horizon = np.where(time <= t_eval, status, 0)
+        harrell = metrics.concordance_harrell(np.minimum(time, t_eval), by_horizon, risk, with_se=False)
         uno = metrics.concordance_uno(time, event, risk, t_eval, with_se=False)
-        auc = metrics.auc_cumulative_dynamic(time, event, risk, [t_eval])
-        brier = metrics.brier_score(time, event, risk, [t_eval])
+        auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval])
+        brier = metrics.brier_score(time, status, risk, [t_eval])
         # No confidence band (the resampling gives intervals) and no direction check: a poor model in
         # an unlucky replicate is a result to report, not an input error.
         smooth = metrics.calibration_at_horizon(time, event, risk, t_eval, n_boot=0, check_direction=False)

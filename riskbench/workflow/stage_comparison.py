@@ -5,8 +5,8 @@ Reads ``data/landmark_stack``, ``data/counting_process`` and ``data/cv_predictio
 ``tables/auc_by_horizon``, ``tables/discrimination``, ``tables/calibration_summary``,
 ``tables/decision_curve_<h>y``, ``tables/triage_operating_point``, ``tables/model_comparison``
 (CSV), ``figures/auc_curves``, ``figures/calibration_<h>y``, ``figures/decision_curve_<h>y`` (PNG, SVG) and
-``report.html``. The outcome is status 1; competing events count as censored in the measures (as in
-:mod:`riskbench.validation.performance`).
+``report.html``. The outcome is status 1 and the predictions are cumulative incidences; how each measure
+treats a competing event (2) is set out in :mod:`riskbench.validation.performance`.
 """
 
 from __future__ import annotations
@@ -52,16 +52,17 @@ def risk_matrices(cv: pd.DataFrame, n_rows: int) -> tuple[np.ndarray, dict[str, 
     return horizons, out
 
 
-def auc_table(time: np.ndarray, event: np.ndarray, horizons: np.ndarray,
+def auc_table(time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
               risks: dict[str, np.ndarray]) -> pd.DataFrame:
-    """Cumulative/dynamic AUC of each model at each horizon (days)."""
+    """Cumulative/dynamic AUC of each model at each horizon (days); a competing event (status 2) before the
+    horizon makes a control."""
     from riskbench.metrics import auc_cumulative_dynamic
 
     frames = []
-    usable = [i for i, h in enumerate(horizons) if ((time <= h) & (event == 1)).any()]
+    usable = [i for i, h in enumerate(horizons) if ((time <= h) & (status == 1)).any()]
     at = [evaluation_time(float(horizons[i]), time) for i in usable]
     for model, risk in risks.items():
-        result = auc_cumulative_dynamic(time, event, risk[:, usable], at)
+        result = auc_cumulative_dynamic(time, status, risk[:, usable], at)
         frames.append(pd.DataFrame({"model": model, "horizon": horizons[usable],
                                     "auc": np.asarray(result.table["auc"], float)}))
     return pd.concat(frames, ignore_index=True)
@@ -127,11 +128,11 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     cp = load_data(run_dir, "counting_process")
     cv = load_data(run_dir, "cv_predictions")
     time, status = stack_outcome(stack)
-    event = (status == 1).astype(int)  # discrimination scores the outcome; competing events count as censored
+    event = (status == 1).astype(int)  # the one-cause smoothed calibration counts competing events as censored
     horizons, risks = risk_matrices(cv, len(stack))
     result = StageResult(stage="comparison", run_dir=run_dir)
 
-    auc = auc_table(time, event, horizons, risks)
+    auc = auc_table(time, status, horizons, risks)
     result.tables["auc_by_horizon"] = auc.assign(horizon_years=auc["horizon"] / DAYS_PER_YEAR)
     result.figures["auc_curves"] = save_figure(auc_curve_figure(auc), run_dir, "auc_curves")
     result.tables["discrimination"] = discrimination_table(time, status, horizons, risks,

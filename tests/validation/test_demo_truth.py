@@ -48,8 +48,9 @@ def _harrell_at(model, stack, horizon):
     time, status = stack_outcome(stack)
     risk = predict_horizons(model, stack, [horizon])[horizon]
     t_eval = evaluation_time(horizon, time)
-    event = ((status == 1) & (time <= t_eval)).astype(int)
-    return concordance_harrell(np.minimum(time, t_eval), event, risk)
+    # outcome and competing event as known by the horizon (a competing event keeps the patient comparable)
+    by_horizon = np.where(time <= t_eval, status, 0)
+    return concordance_harrell(np.minimum(time, t_eval), by_horizon, risk)
 
 
 def test_optimism_corrected_c_is_close_to_c_in_a_large_fresh_cohort(development):
