@@ -98,8 +98,41 @@ def _time_keys(time: np.ndarray, is_event: np.ndarray) -> tuple[np.ndarray, np.n
     return 2 * t_rank + is_event.astype(np.int64), t_rank
 
 
-def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool) -> Concordance:
-    """C = sum_i w_i (#{j later, r_j < r_i} + ½ #{ties}) / sum_i w_i #{j later}; i over outcomes."""
+@dataclass(frozen=True)
+class _EarlierCompeting:
+    """Pairs of an outcome i and a competing event j strictly before it (Wolbers et al. 2014): pair weight
+    ``outcome_weight[i] * competing_weight[j]``; both arrays are zero outside the pairs' members."""
+
+    outcome_weight: np.ndarray
+    competing_weight: np.ndarray
+
+
+def _earlier_competing_sums(time, rank, pairs: _EarlierCompeting, *, with_se: bool):
+    """Per subject: numerator and denominator contributions as the outcome i of a pair, and as its
+    competing event j too when ``with_se``; and per used outcome the unweighted below / tied / total counts."""
+    t_rank = _dense_rank(time)  # ascending: a strictly smaller key is a strictly earlier time
+    weighted = dominance_sums(t_rank, rank, pairs.competing_weight)
+    counts = dominance_sums(t_rank, rank, (pairs.competing_weight > 0).astype(float))
+    w = pairs.outcome_weight
+    num_i = w * (weighted.below + 0.5 * weighted.tied)
+    den_i = w * weighted.total
+    num_j = den_j = np.zeros_like(w)
+    if with_se:
+        # role 2: competing event j asks for the later outcomes i with a higher risk, weighted by w_i
+        flip = dominance_sums(int(t_rank.max()) - t_rank, int(rank.max()) - rank, w)
+        num_j = pairs.competing_weight * (flip.below + 0.5 * flip.tied)
+        den_j = pairs.competing_weight * flip.total
+    used = w > 0
+    return num_i, den_i, num_j, den_j, (counts.below[used], counts.tied[used], counts.total[used])
+
+
+def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool,
+                          earlier_competing: _EarlierCompeting | None = None) -> Concordance:
+    """C = sum_i w_i (#{j later, r_j < r_i} + ½ #{ties}) / sum_i w_i #{j later}; i over outcomes.
+
+    With ``earlier_competing``, the pairs of an outcome and an earlier competing event are added with their
+    own weights (Wolbers et al. 2014).
+    """
     n = time.size
     key, t_rank = _time_keys(time, is_event)
     rank = _dense_rank(risk, TIED_TOL)
@@ -109,6 +142,13 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool) 
     below, tied, total = (np.where(ev, a, 0.0) for a in (sums.below, sums.tied, sums.total))
     num_i = event_weight * (below + 0.5 * tied)
     den_i = event_weight * total
+    used = ev & (event_weight > 0)
+    counts = [below[used], tied[used], total[used]]
+    extra = None
+    if earlier_competing is not None:
+        extra = _earlier_competing_sums(time, rank, earlier_competing, with_se=with_se)
+        num_i, den_i = num_i + extra[0], den_i + extra[1]
+        counts = [np.r_[a, b] for a, b in zip(counts, extra[4])]
     den = float(den_i.sum())
     if den == 0:
         raise MetricInputError(
@@ -116,7 +156,6 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool) 
             "concordance is undefined"
         )
     estimate = float(num_i.sum() / den)
-    used = ev & (event_weight > 0)
     tied_time = _tied_time_pairs(t_rank, is_event, used)
     se = float("nan")
     if with_se:
@@ -126,8 +165,11 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool) 
             int(key.max()) - key, int(rank.max()) - rank, np.where(ev, event_weight, 0.0), reuse_reversed=sums
         )
         num_j = flip.below + 0.5 * flip.tied
-        se = _influence_se(num_i + num_j, den_i + flip.total, estimate, den)
-    return _result(estimate, se, below[used], tied[used], total[used], tied_time)
+        den_j = flip.total
+        if extra is not None:
+            num_j, den_j = num_j + extra[2], den_j + extra[3]
+        se = _influence_se(num_i + num_j, den_i + den_j, estimate, den)
+    return _result(estimate, se, *counts, tied_time)
 
 
 def _tied_time_pairs(t_rank: np.ndarray, is_event: np.ndarray, used: np.ndarray) -> int:
@@ -188,10 +230,16 @@ def concordance_uno(
 ) -> Concordance:
     """Uno's concordance index (Uno et al. 2011): pairs weighted by 1/G(T_i)² up to the truncation time ``tau``.
 
+    With competing events (``event`` 2) this is the competing-risk form of Wolbers et al. (2014,
+    Biostatistics 15:526): besides the pairs of an outcome i and a subject j still followed after it
+    (weight 1/G(T_i)²), an outcome is compared with every competing event strictly before it (weight
+    1/(G(T_i) G(T_j))), so the index measures how well ``risk`` ranks the cumulative incidence of the
+    outcome. G is the Kaplan–Meier of the censoring (a competing event is not a censoring).
+
     Parameters
     ----------
     time, event, risk
-        Evaluation data; ``event`` 0/1, ``risk`` higher = worse.
+        Evaluation data; ``event`` 0 censored, 1 outcome, 2 competing event; ``risk`` higher = worse.
     tau
         Truncation time: only outcomes before ``tau`` start a pair (``None``: no truncation).
     train_time, train_event
@@ -199,14 +247,20 @@ def concordance_uno(
     with_se
         Infinitesimal-jackknife standard error, treating the censoring weights as fixed.
     """
-    t, status, r = _prepare(time, event, risk, allow_competing=False)
+    t, status, r = _prepare(time, event, risk, allow_competing=True)
     g_curve = _censoring_curve(t, status, train_time, train_event)
     is_event = status == 1
     use = is_event & (t < tau if tau is not None else True)
     if not use.any():
         raise MetricInputError(f"no outcome happens before tau={tau}: Uno's C is undefined; choose a later tau")
     weight = inverse_censoring_weights(g_curve, t, use, power=2)
-    return _weighted_concordance(t, is_event, r, weight, with_se=with_se)
+    earlier = None
+    if (status == 2).any():
+        # only competing events before the last outcome used can be in a pair
+        competing = (status == 2) & (t < t[use].max())
+        earlier = _EarlierCompeting(outcome_weight=inverse_censoring_weights(g_curve, t, use, power=1),
+                                    competing_weight=inverse_censoring_weights(g_curve, t, competing, power=1))
+    return _weighted_concordance(t, is_event, r, weight, with_se=with_se, earlier_competing=earlier)
 
 
 def _censoring_curve(t, status, train_time, train_event):

@@ -66,7 +66,7 @@ SECTIONS: tuple[Section, ...] = (
             "Cumulative/dynamic AUC of the cross-validated predictions against the horizon after the "
             "landmark, and the concordance and Brier scores at the report horizons. The predictions are "
             "cumulative incidences: a competing event before the horizon counts as a known non-outcome in "
-            "Harrell's C, the AUC and the Brier score; Uno's C counts it as censored.",
+            "the concordance indices, the AUC and the Brier score.",
             figures=("auc_curves",), tables=("discrimination", "brier")),
     Section("calibration", "Calibration at each horizon",
             "Predicted against observed risk of the outcome by the horizon (cross-validated predictions). The "

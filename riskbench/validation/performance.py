@@ -4,17 +4,18 @@ The evaluation set is a landmark stack: each row is a patient at a landmark s wi
 administratively censored at the stack's horizon) and ``status`` (0/1/2). The outcome is status 1, and the
 predictions are cumulative incidences, so a competing event (2) before the horizon is a known non-outcome:
 
-- Harrell's C keeps such a patient comparable with every outcome (Wolbers et al. 2009, Epidemiology);
+- Harrell's C keeps such a patient comparable with every outcome (Wolbers et al. 2009, Epidemiology), and
+  Uno's C compares it, with inverse-probability weights, with every later outcome (Wolbers et al. 2014,
+  Biostatistics);
 - the cumulative/dynamic AUC counts them among the controls, weighted by 1/G(T) (Blanche, Dartigues &
   Jacqmin-Gadda 2013, Stat Med, definition 2 of the controls);
 - the Brier score scores them as 0 with the same weight, against the Aalen–Johansen null model;
 - the observed/expected ratio and net benefit use the Aalen–Johansen cumulative incidence.
 
-Two measures count competing events as censored instead: Uno's C (its inverse-probability weights are
-for one cause; the competing-risk form of Wolbers et al. 2014 is not implemented) and the smoothed
-calibration slope and ICI of :func:`riskbench.metrics.calibration_at_horizon`, which is defined for one
-cause only (its observed risk is then 1 − Kaplan–Meier, above the cumulative incidence when competing
-events are common, so compare slope and ICI between models rather than with their ideal values).
+The smoothed calibration slope and ICI of :func:`riskbench.metrics.calibration_at_horizon` count competing
+events as censored instead: that smoother is defined for one cause only (its observed risk is then
+1 − Kaplan–Meier, above the cumulative incidence when competing events are common, so compare slope and
+ICI between models rather than with their ideal values).
 Rows of one patient at several landmarks are pooled, as in van Houwelingen & Putter (2012, ch. 7).
 
 Result columns: ``metric, horizon_days, threshold, value`` (``threshold`` only for net benefit, else NaN).
@@ -150,7 +151,7 @@ def evaluate_risks(
         # Outcome and competing event as known by the horizon: either after it is censored there.
         by_horizon = np.where(time <= t_eval, status, 0)
         harrell = metrics.concordance_harrell(np.minimum(time, t_eval), by_horizon, risk, with_se=False)
-        uno = metrics.concordance_uno(time, event, risk, t_eval, with_se=False)
+        uno = metrics.concordance_uno(time, status, risk, t_eval, with_se=False)
         auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval])
         brier = metrics.brier_score(time, status, risk, [t_eval])
         # No confidence band (the resampling gives intervals) and no direction check: a poor model in

@@ -166,8 +166,54 @@ def test_bad_input_messages():
     with pytest.raises(MetricInputError, match="`risk`.*missing"):
         concordance_harrell(t, e, np.array([0.1, np.nan, 0.2]))
     with pytest.raises(MetricInputError, match="coded 0"):
-        concordance_uno(t, np.array([1, 2, 0]), x, 2.5)
+        concordance_uno(t, np.array([1, 3, 0]), x, 2.5)
     with pytest.raises(MetricInputError, match="no outcome"):
         concordance_harrell(t, np.zeros(3), x)
     with pytest.raises(MetricInputError, match="start"):
         concordance_counting_process(np.array([1.0, 0, 0]), np.array([1.0, 2, 3]), e, x)
+
+
+def _uno_competing_by_pairs(time, status, risk, tau, case_weight):
+    """Wolbers et al. (2014, Biostatistics 15:526, section 2; weights as recalled from the paper, not
+    copied): outcome i before tau with a later subject j, weight 1/G(T_i)^2; with a competing event j
+    strictly before T_i, weight 1/(G(T_i) G(T_j)). G: censoring Kaplan-Meier from lifelines (a competing
+    event is not a censoring). Pairs also carry case weights v_i v_j, for the jackknife derivative."""
+    from lifelines import KaplanMeierFitter
+
+    km = KaplanMeierFitter().fit(time, (status == 0).astype(int))
+    g = km.survival_function_at_times(time).to_numpy()  # distinct continuous times: G(T-) = G(T)
+    num = den = 0.0
+    for i in np.flatnonzero((status == 1) & (time < tau)):
+        for j in range(time.size):
+            if time[j] > time[i]:
+                w = 1.0 / g[i] ** 2
+            elif status[j] == 2 and time[j] < time[i]:
+                w = 1.0 / (g[i] * g[j])
+            else:
+                continue
+            w *= case_weight[i] * case_weight[j]
+            den += w
+            num += w * (1.0 if risk[i] > risk[j] else 0.5 if risk[i] == risk[j] else 0.0)
+    return num / den
+
+
+def test_uno_with_competing_events_matches_the_pairwise_definition():
+    rng = np.random.default_rng(8)
+    n = 90
+    time = rng.exponential(300.0, n)
+    status = rng.choice([0, 1, 2], n, p=[0.35, 0.4, 0.25])
+    risk = np.round(0.4 * (status == 1) + rng.normal(0, 0.3, n), 1)  # rounded: some tied risks
+    tau = float(np.quantile(time, 0.8))
+    ours = concordance_uno(time, status, risk, tau)
+    ones = np.ones(n)
+    assert ours.estimate == pytest.approx(_uno_competing_by_pairs(time, status, risk, tau, ones), abs=1e-12)
+    # standard error: the infinitesimal jackknife, derivative of C in each case weight by finite differences
+    eps = 1e-6
+    grad = [(_uno_competing_by_pairs(time, status, risk, tau, ones + eps * (np.arange(n) == k))
+             - _uno_competing_by_pairs(time, status, risk, tau, ones - eps * (np.arange(n) == k))) / (2 * eps)
+            for k in range(n)]
+    assert ours.se == pytest.approx(float(np.sqrt(np.sum(np.square(grad)))), rel=1e-5)
+    # without competing events it is Uno's C (checked against scikit-survival above)
+    plain = np.where(status == 2, 0, status)
+    assert concordance_uno(time, plain, risk, tau).estimate == pytest.approx(
+        _uno_competing_by_pairs(time, plain, risk, tau, ones), abs=1e-12)
