@@ -207,10 +207,10 @@ def timestamp_expr(loaded: LoadedTable, column: str, alias: str | None = None, *
 
     ``trimmed`` is the SQL of the column already passed through :func:`trimmed_expr`, when there is one.
     """
-    col = trimmed or (f"{alias}.{quote(column)}" if alias else quote(column))
+    col = f"{alias}.{quote(column)}" if alias else quote(column)
     kind = loaded.types[column].upper()
     if kind.startswith("DATE") or kind.startswith("TIMESTAMP"):
-        return f"CAST({col} AS TIMESTAMP)"
+        return f"CAST({trimmed or col} AS TIMESTAMP)"
     text = trimmed or f"trim(CAST({col} AS VARCHAR))"
     if loaded.date_format:
         fmt = loaded.date_format.replace("'", "''")

@@ -9,6 +9,7 @@ outcome counts as later; two outcomes at the same time are not compared; equal r
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -107,9 +108,20 @@ class _EarlierCompeting:
     competing_weight: np.ndarray
 
 
-def _earlier_competing_sums(time, rank, pairs: _EarlierCompeting, *, with_se: bool):
-    """Per subject: numerator and denominator contributions as the outcome i of a pair, and as its
-    competing event j too when ``with_se``; and per used outcome the unweighted below / tied / total counts."""
+class _PairContributions(NamedTuple):
+    """Per subject: numerator and denominator contributions as the outcome i of a pair (``num_i``,
+    ``den_i``) and as its other member j (``num_j``, ``den_j``, zero unless the SE is wanted); and per used
+    outcome the unweighted below / tied / total pair counts."""
+
+    num_i: np.ndarray
+    den_i: np.ndarray
+    num_j: np.ndarray
+    den_j: np.ndarray
+    counts: tuple[np.ndarray, np.ndarray, np.ndarray]
+
+
+def _earlier_competing_sums(time, rank, pairs: _EarlierCompeting, *, with_se: bool) -> _PairContributions:
+    """The pairs of an outcome and a competing event strictly before it."""
     t_rank = _dense_rank(time)  # ascending: a strictly smaller key is a strictly earlier time
     weighted = dominance_sums(t_rank, rank, pairs.competing_weight)
     counts = dominance_sums(t_rank, rank, (pairs.competing_weight > 0).astype(float))
@@ -123,7 +135,7 @@ def _earlier_competing_sums(time, rank, pairs: _EarlierCompeting, *, with_se: bo
         num_j = pairs.competing_weight * (flip.below + 0.5 * flip.tied)
         den_j = pairs.competing_weight * flip.total
     used = w > 0
-    return num_i, den_i, num_j, den_j, (counts.below[used], counts.tied[used], counts.total[used])
+    return _PairContributions(num_i, den_i, num_j, den_j, (counts.below[used], counts.tied[used], counts.total[used]))
 
 
 def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool,
@@ -147,8 +159,8 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool,
     extra = None
     if earlier_competing is not None:
         extra = _earlier_competing_sums(time, rank, earlier_competing, with_se=with_se)
-        num_i, den_i = num_i + extra[0], den_i + extra[1]
-        counts = [np.r_[a, b] for a, b in zip(counts, extra[4])]
+        num_i, den_i = num_i + extra.num_i, den_i + extra.den_i
+        counts = [np.r_[a, b] for a, b in zip(counts, extra.counts)]
     den = float(den_i.sum())
     if den == 0:
         raise MetricInputError(
@@ -167,7 +179,7 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool,
         num_j = flip.below + 0.5 * flip.tied
         den_j = flip.total
         if extra is not None:
-            num_j, den_j = num_j + extra[2], den_j + extra[3]
+            num_j, den_j = num_j + extra.num_j, den_j + extra.den_j
         se = _influence_se(num_i + num_j, den_i + den_j, estimate, den)
     return _result(estimate, se, *counts, tied_time)
 
