@@ -8,6 +8,8 @@ and horizons written in months or years agree with each other exactly.
 
 from __future__ import annotations
 
+from riskbench.errors import RiskbenchError
+
 import math
 import re
 
@@ -26,7 +28,7 @@ UNIT_DAYS: dict[str, float] = {
 _DURATION = re.compile(r"^\s*([0-9]+(?:\.[0-9]*)?|\.[0-9]+)\s*([A-Za-z]+)\s*$")
 
 
-class DurationError(ValueError):
+class DurationError(RiskbenchError):
     """A duration text is not a non-negative number followed by a unit (days, weeks, months, years)."""
 
 

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+from riskbench.errors import RiskbenchError
 
-class CohortInputError(ValueError):
+
+class CohortInputError(RiskbenchError):
     """The source tables break the input contract (missing column, duplicate ids, ...)."""
 
 
-class SpecError(ValueError):
+class SpecError(RiskbenchError):
     """The cohort or source configuration has an unknown key or a value of the wrong kind."""

@@ -8,6 +8,8 @@ The data-generating process is described in :mod:`riskbench.demo.simulate` (step
 
 from __future__ import annotations
 
+from riskbench.errors import RiskbenchError
+
 import numbers
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -29,7 +31,7 @@ DEFAULT_RISK_PATHS = 40
 MIN_MESSY_PATIENTS = 200  # enough patients to spoil each defect on its own patients
 
 
-class DemoParameterError(ValueError):
+class DemoParameterError(RiskbenchError):
     """A generator parameter is out of range (the message names the parameter)."""
 
 

@@ -5,6 +5,8 @@ Every error is a :class:`MetricInputError` (a ``ValueError``) that names the arg
 
 from __future__ import annotations
 
+from riskbench.errors import RiskbenchError
+
 from collections.abc import Sequence
 
 import numpy as np
@@ -12,7 +14,7 @@ import numpy as np
 ArrayLike = Sequence[float] | np.ndarray
 
 
-class MetricInputError(ValueError):
+class MetricInputError(RiskbenchError):
     """Bad arrays handed to a metric (wrong length, missing values, wrong codes, horizon out of range)."""
 
 

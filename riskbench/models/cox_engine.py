@@ -41,6 +41,8 @@ Conventions
 
 from __future__ import annotations
 
+from riskbench.errors import RiskbenchError
+
 import warnings
 from dataclasses import dataclass
 from typing import Any, Sequence
@@ -61,7 +63,7 @@ __all__ = [
 _MONOTONE_STD_COEF = 10.0  # |coef| per SD beyond which a hazard ratio of e^10 per SD is implausible
 
 
-class CoxInputError(ValueError):
+class CoxInputError(RiskbenchError):
     """Bad input to the Cox engine (the message names the column, rows and the fix)."""
 
 

@@ -28,6 +28,8 @@ cumulative incidence of the outcome by the Aalen–Johansen product-integral (:f
 
 from __future__ import annotations
 
+from riskbench.errors import RiskbenchError
+
 from collections.abc import Sequence
 from typing import Protocol, runtime_checkable
 
@@ -50,7 +52,7 @@ __all__ = [
 ]
 
 
-class ModelInputError(ValueError):
+class ModelInputError(RiskbenchError):
     """A table or argument handed to a model cannot be used; the message names the column, rows and fix."""
 
 

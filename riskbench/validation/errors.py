@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from riskbench.errors import RiskbenchError
 
-class ValidationInputError(ValueError):
+
+class ValidationInputError(RiskbenchError):
     """Bad input to a validation function; the message names the column or argument and the fix."""

@@ -18,6 +18,8 @@ is allowed. Paths in ``[sources]`` are relative to the configuration file.
 
 from __future__ import annotations
 
+from riskbench.errors import RiskbenchError
+
 import hashlib
 import math
 import tomllib
@@ -34,7 +36,7 @@ TOP_LEVEL_KEYS: tuple[str, ...] = (
 )
 
 
-class ConfigError(ValueError):
+class ConfigError(RiskbenchError):
     """The analysis configuration is invalid; the message names the key, the value and the fix."""
 
 
