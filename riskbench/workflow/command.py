@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import time
-from pathlib import Path
 
 
 def _run_analysis(args: argparse.Namespace) -> int:
@@ -21,13 +20,9 @@ def _run_analysis(args: argparse.Namespace) -> int:
 
 
 def _check_config(args: argparse.Namespace) -> int:
-    from riskbench.workflow.config import load_config
+    from riskbench.workflow.config_command import check_config
 
-    config = load_config(args.config)
-    names = ", ".join(f"{m.name} ({m.family})" for m in config.models)
-    print(f"{Path(args.config)}: valid; landmarks {list(config.landmarks.landmarks_years)} years, horizon "
-          f"{config.landmarks.horizon_years:g} years; models: {names}")
-    return 0
+    return check_config(args)
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -49,4 +44,6 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
     check = subparsers.add_parser("check-config", help="check an analysis configuration without running it")
     check.add_argument("config", help="analysis configuration (TOML)")
+    check.add_argument("--no-data", action="store_true",
+                       help="check the file only, without reading the source headers and a sample of rows")
     check.set_defaults(handler=_check_config)

@@ -29,7 +29,7 @@ def test_bad_configuration_and_existing_run_folder_are_one_line_errors(tmp_path,
     bad.write_text(DEMO.read_text().replace("folds = 5", "folds = 1").replace("../demo_data/", f"{ROOT}/demo_data/"))
     assert main(["check-config", str(bad)]) == 2
     err = capsys.readouterr().err.strip()
-    assert err.count("\n") == 0 and "[validation] folds = 1 is not allowed; expected an integer >= 2" in err
+    assert err.count("\n") == 0 and "[validation] folds = 1 is not allowed: expected an integer from 2 to 100" in err
     (tmp_path / "run").mkdir()
     assert main(["run-analysis", str(DEMO), "--out", str(tmp_path / "run")]) == 2
     err = capsys.readouterr().err.strip()

@@ -40,19 +40,20 @@ def test_demo_configuration_matches_the_demo_cohort_spec():
     assert config.path == DEMO.resolve()
 
 
-def test_unknown_key_is_named_with_its_value_and_the_allowed_keys():
+def test_unknown_key_is_named_with_its_value_the_allowed_keys_and_a_near_miss():
     data = demo_dict()
-    data["validation"]["boostrap_reps"] = 9
+    data["validation"]["boostrap_resamples"] = 9
     with pytest.raises(ConfigError) as err:
         parse(data)
     message = str(err.value)
-    assert "'boostrap_reps'" in message and "9" in message and "bootstrap_reps" in message
+    assert "[validation] has unknown key 'boostrap_resamples' = 9" in message
+    assert "did you mean 'bootstrap_resamples'?" in message
 
 
 def test_wrong_type_names_key_value_and_what_is_allowed():
     data = demo_dict()
     data["validation"]["folds"] = "five"
-    with pytest.raises(ConfigError, match=r"\[validation\] folds = 'five' is not allowed; expected an integer >= 2"):
+    with pytest.raises(ConfigError, match=r"\[validation\] folds = 'five' is not allowed: expected an integer from 2"):
         parse(data)
 
 
@@ -63,34 +64,37 @@ def test_unknown_top_level_key_and_unknown_family_are_rejected():
         parse(data)
     data = demo_dict()
     data["models"][0]["family"] = "deep_net"
-    with pytest.raises(ConfigError, match="family = 'deep_net'.*'landmark_cox', 'cox', 'forest'"):
+    with pytest.raises(ConfigError, match="family = 'deep_net'.*'landmark_cox', 'time_varying_cox', 'forest'"):
         parse(data)
 
 
 def test_report_horizon_beyond_the_landmark_horizon_is_rejected():
     data = demo_dict()
-    data["report"]["horizons_years"] = [1.0, 3.0]
-    with pytest.raises(ConfigError, match="horizons_years.*no longer than"):
+    data["report"]["report_horizons"] = ["1 year", "3 years"]
+    with pytest.raises(ConfigError, match="report_horizons.*no longer than \\[landmarks\\] prediction_window"):
         parse(data)
 
 
 def test_comparison_must_name_configured_models_and_cohort_errors_carry_the_file():
     data = demo_dict()
-    data["validation"]["compare"] = ["imaging_clinical", "genomics"]
-    with pytest.raises(ConfigError, match="compare"):
+    data["validation"]["reference"] = "genomics"
+    with pytest.raises(ConfigError, match=r"\[validation\] reference = 'genomics' is not allowed: expected one of "
+                                          "the models: clinical, imaging_clinical"):
         parse(data)
     data = demo_dict()
     data["cohort"]["max_cary_days"] = 10
-    with pytest.raises(ConfigError, match="demo.toml: .*max_cary_days"):
+    with pytest.raises(ConfigError, match=r"(?s)demo.toml: .*max_cary_days.*did you mean 'max_carry'"):
         parse(data)
 
 
 def test_defaults_fill_missing_optional_sections():
     data = demo_dict()
-    del data["report"], data["validation"]
+    del data["report"], data["validation"], data["execution"]
     config = parse(data)
     assert config.report.horizons_years == (2.0,)
+    assert config.report.horizons_days == (2 * DAYS_PER_YEAR,)
     assert config.validation.seed == config.seed
+    assert config.execution.workers == 1 and config.execution.scheduler_address is None
     assert config.comparison == ("imaging_clinical", "clinical")  # last model against the first
 
 
@@ -98,11 +102,12 @@ def test_defaults_fill_missing_optional_sections():
 @given(key=st.text(alphabet="abcdefghijklmnopqrstuvwxyz_", min_size=1, max_size=12))
 def test_any_unknown_report_key_is_rejected(key):
     data = demo_dict()
-    if key in data["report"] or key in ("title", "horizons_years", "small_count_threshold", "example_patients",
-                                        "triage_target_npv", "decision_threshold_max"):
+    from riskbench.workflow.config_schema import ReportSection
+
+    if key in ReportSection.model_fields:
         return
     data["report"][key] = 1
-    with pytest.raises(ConfigError, match=f"unknown key '{key}' in \\[report\\]"):
+    with pytest.raises(ConfigError, match=f"\\[report\\] has unknown key '{key}' = 1"):
         parse(data)
 
 

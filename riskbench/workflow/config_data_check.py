@@ -1,0 +1,318 @@
+"""Check a configuration against its data before anything runs: headers, a sample, the follow-up.
+
+:func:`check_analysis` reads each source's header and its first :data:`SAMPLE_ROWS` rows (with the
+source's encoding and date format), the patient and outcome dates in full (two columns each), and reports
+every disagreement as a :class:`~riskbench.config_problems.Problem` naming the configuration key that fixes
+it: required columns and static covariates missing from the files, dates that do not parse with the
+configured format (or read both day-first and month-first), outcome kinds the cohort stage does not know,
+landmarks after which too few patients remain followed, and (as warnings) landmarks that fall just before
+a common visit day or just after the carry-forward limit of a visit's values.
+
+Messages name files, columns, line numbers and counts; they never quote patient ids or cell values.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from riskbench.config_problems import WARNING, Problem, did_you_mean, problem
+from riskbench.time_units import format_duration
+from riskbench.workflow.config_rules import carry_forward_warnings
+
+#: Rows read from the top of each source for the checks on values (header + this many rows).
+SAMPLE_ROWS = 5000
+#: Fewer patients than this still followed after a landmark is an error (common practice: about 10).
+MIN_AT_RISK = 10
+#: A landmark this many days or less before a common visit day gets a warning.
+VISIT_MARGIN_DAYS = 3.0
+#: A visit day is common when at least this share of the sampled measurements fall on it.
+COMMON_VISIT_SHARE = 0.05
+REQUIRED = {
+    "patients": ("patient_id", "entry_date"),
+    "measurements": ("patient_id", "date", "variable", "value"),
+    "outcomes": ("patient_id", "date", "kind"),
+}
+KINDS = ("outcome", "competing", "end_of_follow_up")
+_DAY_FIRST, _MONTH_FIRST = "%d/%m/%Y", "%m/%d/%Y"
+
+
+@dataclass
+class _Table:
+    name: str
+    source: Any
+    sample: pd.DataFrame | None  # our column names
+    file_columns: tuple[str, ...]
+
+    @property
+    def where(self) -> str:
+        return f"[sources.{self.name}]"
+
+    def ours(self, column: str) -> str:
+        """The file's name of our column ``column``."""
+        return dict(self.source.columns).get(column, column)
+
+
+def _read(path: Path, encoding: str, nrows: int | None, usecols: list[str] | None = None) -> pd.DataFrame:
+    if path.suffix.lower() in (".parquet", ".pq"):
+        import pyarrow.parquet as pq
+
+        if nrows is None:
+            return pq.read_table(path, columns=usecols).to_pandas()
+        batch = next(pq.ParquetFile(path).iter_batches(batch_size=nrows, columns=usecols), None)
+        return batch.to_pandas() if batch is not None else pd.DataFrame()
+    return pd.read_csv(path, nrows=nrows, dtype=str, encoding=encoding, keep_default_na=False,
+                       na_filter=False, usecols=usecols, skip_blank_lines=False, comment=None)
+
+
+def _load(name: str, source: Any, problems: list[Problem]) -> _Table:
+    where = f"[sources.{name}]"
+    encoding = getattr(source, "encoding", "utf-8")
+    try:
+        raw = _read(Path(source.path), encoding, SAMPLE_ROWS)
+    except UnicodeDecodeError:
+        problems.append(problem(where, "encoding", encoding,
+                                f"{source.path} is not {encoding} text; set encoding = \"latin-1\", "
+                                "\"cp1252\" or \"utf-16\" to match the file"))
+        return _Table(name, source, None, ())
+    except (ValueError, OSError, pd.errors.ParserError) as exc:
+        first = str(exc).splitlines()[0][:200] if str(exc) else type(exc).__name__
+        problems.append(Problem(f"{where} path", f"{where} path: {source.path} cannot be read as a table "
+                                                  f"({first})"))
+        return _Table(name, source, None, ())
+    file_columns = tuple(str(c) for c in raw.columns)
+    back = {f: o for o, f in dict(source.columns).items()}
+    return _Table(name, source, raw.rename(columns=back), file_columns)
+
+
+def _column_problems(t: _Table, cohort: Any) -> list[Problem]:
+    required = list(REQUIRED[t.name])
+    wide = t.name == "measurements" and getattr(t.source, "layout", "long") == "wide"
+    if wide:
+        required = ["patient_id", "date", *[v.name for v in cohort.variables]]
+    out = []
+    for column in required:
+        if t.ours(column) not in t.file_columns:
+            out.append(Problem(
+                f"{t.where} columns",
+                f"{t.where} {t.source.path} has no column {t.ours(column)!r} for {column!r}; the file's columns: "
+                f"{', '.join(t.file_columns)}; map it with columns = {{ {column} = \"<file column>\" }}"
+                f"{did_you_mean(t.ours(column), t.file_columns)}"))
+    return out
+
+
+def _static_problems(t: _Table, cohort: Any) -> list[Problem]:
+    have = set(t.file_columns)
+    age_ok = t.ours("birth_date") in have or t.ours("age_at_entry") in have
+    out = []
+    spec_of = getattr(cohort, "static_spec", None)
+    for name in cohort.static:
+        if name == "age_at_entry":
+            ok = age_ok
+            needs = f"a {t.ours('birth_date')!r} or {t.ours('age_at_entry')!r} column"
+        elif name in ("sex_male", "sex"):
+            ok, needs = t.ours("sex") in have, f"a {t.ours('sex')!r} column"
+        else:
+            column = (spec_of(name).column if callable(spec_of) else None) or name
+            ok, needs = t.ours(column) in have, f"a column {t.ours(column)!r}"
+        if not ok:
+            out.append(problem("[cohort]", "static", name,
+                               f"needs {needs} in {t.source.path} (the file's columns: {', '.join(t.file_columns)})"
+                               "; map it in [sources.patients] columns or remove it from static",
+                               choices=t.file_columns))
+    if cohort.current_age and not age_ok:
+        out.append(problem("[cohort]", "current_age", True,
+                           f"needs a birth_date or age_at_entry column in {t.source.path}; set current_age = false"))
+    return out
+
+
+def _parse(values: pd.Series, fmt: str | None) -> pd.Series:
+    return pd.to_datetime(values, format=fmt or "ISO8601", errors="coerce")
+
+
+def _date_problems(t: _Table, column: str) -> list[Problem]:
+    if t.sample is None or column not in t.sample.columns:
+        return []
+    values = t.sample[column].astype(str).str.strip()
+    filled = values[(values != "") & (values.str.lower() != "nan") & (values != "None")]
+    if filled.empty:
+        return []
+    fmt = t.source.date_format
+    key = f"{t.where} date_format"
+    parsed = _parse(filled, fmt)
+    bad = parsed.isna()
+    shown = repr(fmt) if fmt else "not set (ISO dates such as 2020-03-04)"
+    if bad.any():
+        first_line = int(bad.idxmax()) + 2  # header is line 1
+        alternatives = [f for f in (_DAY_FIRST, _MONTH_FIRST, "%d.%m.%Y", "%Y/%m/%d", "%d-%m-%Y")
+                        if f != fmt and _parse(filled, f).notna().all()]
+        hint = (f"; every sampled value reads with date_format = {alternatives[0]!r}"
+                if alternatives else "; set date_format to the strftime format of the file's dates")
+        if len(alternatives) > 1 and {_DAY_FIRST, _MONTH_FIRST} <= set(alternatives):
+            hint = ("; the dates read both day-first (\"%d/%m/%Y\") and month-first (\"%m/%d/%Y\"): set "
+                    "date_format to the one the file uses")
+        share = bad.mean()
+        severity = "error" if share > 0.01 else WARNING
+        return [Problem(key, f"{key} is {shown}, but {int(bad.sum())} of {len(filled)} sampled {column!r} values "
+                             f"in {t.source.path} do not parse with it (first at line {first_line}){hint}",
+                        severity)]
+    if fmt in (_DAY_FIRST, _MONTH_FIRST):
+        other = _MONTH_FIRST if fmt == _DAY_FIRST else _DAY_FIRST
+        if _parse(filled, other).notna().all() and len(filled) >= 1:
+            return [Problem(key, f"{key} = {fmt!r}: every sampled {column!r} value in {t.source.path} also reads "
+                                 f"as {other!r} (no day above 12 in the sample); check which one the file uses",
+                            WARNING)]
+    return []
+
+
+def _kind_problems(t: _Table, cohort: Any) -> list[Problem]:
+    if t.sample is None or "kind" not in t.sample.columns:
+        return []
+    mapped = dict(cohort.kind_map)
+    known = set(KINDS) | set(mapped)
+    kinds = t.sample["kind"].astype(str).str.strip()
+    unknown = sorted({k for k in kinds.unique() if k and k not in known})
+    return [problem("[cohort]", "kind_map", dict(mapped),
+                    f"the outcome kind {k!r} in {t.source.path} is neither {', '.join(KINDS)} nor mapped; add "
+                    f"{k} = \"outcome\" | \"competing\" | \"end_of_follow_up\" to kind_map{did_you_mean(k, KINDS)}")
+            for k in unknown[:5]]
+
+
+def _variable_problems(t: _Table, cohort: Any) -> list[Problem]:
+    if t.sample is None or "variable" not in t.sample.columns or getattr(t.source, "layout", "long") != "long":
+        return []
+    seen = set(t.sample["variable"].astype(str).str.strip().unique())
+    out = []
+    for v in cohort.variables:
+        if v.name in seen:
+            continue
+        near = did_you_mean(v.name, seen - {x.name for x in cohort.variables})
+        out.append(Problem(f"[cohort.variables.{v.name}]",
+                           f"[cohort.variables.{v.name}]: no sampled row of {t.source.path} has variable = "
+                           f"{v.name!r}{near}", "error" if near else WARNING))
+    return out
+
+
+def _follow_up_days(patients: _Table, outcomes: _Table) -> pd.Series | None:
+    """Days from entry to the last outcome date, per patient with both (full files, two columns each)."""
+    try:
+        p = _read(Path(patients.source.path), getattr(patients.source, "encoding", "utf-8"), None,
+                  [patients.ours("patient_id"), patients.ours("entry_date")])
+        o = _read(Path(outcomes.source.path), getattr(outcomes.source, "encoding", "utf-8"), None,
+                  [outcomes.ours("patient_id"), outcomes.ours("date")])
+    except (ValueError, OSError, KeyError):
+        return None
+    entry = pd.Series(_parse(p.iloc[:, 1].astype(str).str.strip(), patients.source.date_format).to_numpy(),
+                      index=p.iloc[:, 0].astype(str).str.strip())
+    end = pd.Series(_parse(o.iloc[:, 1].astype(str).str.strip(), outcomes.source.date_format).to_numpy(),
+                    index=o.iloc[:, 0].astype(str).str.strip())
+    entry = entry[~entry.index.duplicated(keep=False)].dropna()
+    last = end.dropna().groupby(level=0).max()
+    both = entry.index.intersection(last.index)
+    days = (last[both] - entry[both]).dt.total_seconds() / 86400.0
+    return days[days > 0]
+
+
+def _landmark_problems(config: Any, days: pd.Series) -> list[Problem]:
+    out = []
+    longest = float(days.max()) if len(days) else 0.0
+    for s in config.landmarks.landmarks_days:
+        at_risk = int((days > s).sum())
+        if at_risk >= MIN_AT_RISK:
+            continue
+        count = "no patient is" if at_risk == 0 else f"fewer than {MIN_AT_RISK} patients are"
+        out.append(problem(
+            "[landmarks]", "landmarks", format_duration(s),
+            f"{count} still followed after this landmark ({s:g} days; the longest follow-up in the outcomes file "
+            f"is {longest:.0f} days); use landmarks that leave at least {MIN_AT_RISK} patients at risk"))
+    if len(days) < config.validation.folds:
+        out.append(problem("[validation]", "folds", config.validation.folds,
+                           f"expected at most the number of patients with follow-up ({len(days)})"))
+    return out
+
+
+def _visit_days(patients: _Table, measurements: _Table) -> tuple[tuple[float, ...], int]:
+    """Common measurement days since entry in the sample, and the number of sampled measurements used."""
+    m, p = measurements.sample, patients.sample
+    if m is None or p is None or "date" not in m.columns or "patient_id" not in m.columns:
+        return (), 0
+    full = _read(Path(patients.source.path), getattr(patients.source, "encoding", "utf-8"), None,
+                 [patients.ours("patient_id"), patients.ours("entry_date")])
+    entry = pd.Series(_parse(full.iloc[:, 1].astype(str).str.strip(), patients.source.date_format).to_numpy(),
+                      index=full.iloc[:, 0].astype(str).str.strip())
+    entry = entry[~entry.index.duplicated(keep=False)]
+    when = _parse(m["date"].astype(str).str.strip(), measurements.source.date_format)
+    start = entry.reindex(m["patient_id"].astype(str).str.strip()).to_numpy()
+    days = pd.Series((when.to_numpy() - start) / np.timedelta64(1, "D")).dropna().round()
+    days = days[days > 0]
+    if days.empty:
+        return (), 0
+    share = days.value_counts(normalize=True)
+    return tuple(float(d) for d in share[share >= COMMON_VISIT_SHARE].index), len(days)
+
+
+def _visit_warnings(config: Any, visits: tuple[float, ...]) -> list[Problem]:
+    out = []
+    for s in config.landmarks.landmarks_days:
+        for v in visits:
+            gap = v - s
+            if 0 < gap <= VISIT_MARGIN_DAYS:
+                out.append(Problem(
+                    "[landmarks] landmarks",
+                    f"[landmarks] landmarks: {format_duration(s)!r} ({s:g} days) falls {gap:g} days before day {v:g}, "
+                    f"a common visit day in the measurements sample: values of that visit are not yet known at the "
+                    f"landmark, so the landmark sees mostly stale values; write \"{v:g} days\" to include the visit",
+                    WARNING))
+    return out
+
+
+def check_analysis(config: Any) -> list[Problem]:
+    """Every problem of ``config`` that needs the data (errors and warnings), with the key that fixes it.
+
+    Parameters
+    ----------
+    config : AnalysisConfig
+        A configuration that passed the file checks (:func:`riskbench.workflow.config.load_config`).
+
+    Returns
+    -------
+    list of Problem
+        Empty when the data agree with the configuration.
+    """
+    problems: list[Problem] = []
+    tables = {name: _load(name, getattr(config.sources, name), problems)
+              for name in ("patients", "measurements", "outcomes")}
+    if any(t.sample is None for t in tables.values()):
+        return problems
+    for t in tables.values():
+        problems += _column_problems(t, config.cohort)
+    problems += _static_problems(tables["patients"], config.cohort)
+    if any(p.is_error for p in problems):
+        return problems
+    for name, columns in (("patients", ("entry_date", "birth_date")), ("measurements", ("date",)),
+                          ("outcomes", ("date",))):
+        for column in columns:
+            problems += _date_problems(tables[name], column)
+    problems += _kind_problems(tables["outcomes"], config.cohort)
+    problems += _variable_problems(tables["measurements"], config.cohort)
+    if any(p.is_error for p in problems):
+        return problems
+    days = _follow_up_days(tables["patients"], tables["outcomes"])
+    if days is not None:
+        problems += _landmark_problems(config, days)
+    visits, _ = _visit_days(tables["patients"], tables["measurements"])
+    problems += _visit_warnings(config, visits)
+    problems += carry_forward_warnings(config, visits)  # entry (day 0) is checked with the file
+    return _unique(problems)
+
+
+def _unique(problems: list[Problem]) -> list[Problem]:
+    seen: dict[str, Problem] = {}
+    for p in problems:
+        seen.setdefault(p.message, p)
+    return list(seen.values())
+
