@@ -5,7 +5,7 @@ from riskbench.cohort.errors import CohortInputError, SpecError
 from riskbench.cohort.landmark import landmark_grid
 from riskbench.cohort.reasons import RowState
 from riskbench.cohort.sources import SourceSpec, TableSource
-from riskbench.cohort.spec import CohortSpec, VariableSpec
+from riskbench.cohort.spec import CohortSpec, StaticSpec, VariableSpec
 
 __all__ = [
     "Cohort",
@@ -14,6 +14,7 @@ __all__ = [
     "RowState",
     "SourceSpec",
     "SpecError",
+    "StaticSpec",
     "TableSource",
     "VariableSpec",
     "build_cohort",

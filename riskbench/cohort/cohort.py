@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime
 import shutil
 import tempfile
 from collections.abc import Sequence
@@ -20,6 +21,7 @@ from riskbench.cohort.landmark import landmark_sql
 from riskbench.cohort.reading import Source, load_table, quote
 from riskbench.cohort.reasons import RowState
 from riskbench.cohort.spec import CohortSpec
+from riskbench.cohort.statics import source_columns as static_source_columns
 
 TABLE_ORDER = ("patients", "measurements", "outcomes")
 
@@ -49,8 +51,9 @@ class Cohort:
         ``patient_id, start, stop, status`` (days since entry; 0 censored, 1 outcome, 2 competing) and the
         covariates of ``spec.covariate_columns`` as known at ``start``.
     ledger : DataFrame
-        ``table, row_number, patient_id, state``: every input row exactly once (``row_number`` is the
-        1-based data row of the source).
+        ``table, row_number, patient_id, state``: every input row exactly once. ``row_number`` is the file's
+        line number for a CSV source (header = line 1; blank and malformed lines are rows of the ledger too,
+        with no patient id) and the 1-based row position for a Parquet file or a DataFrame.
     flow : DataFrame
         ``label, table, state, remaining, excluded, step``: per table, the rows read, then the rows removed
         (``excluded``) and left (``remaining``) at each check in check order, then the rows used.
@@ -84,7 +87,7 @@ class Cohort:
 
     @cached_property
     def patients(self) -> pd.DataFrame:
-        statics = "".join(f", {quote(c)}" for c in self.spec.static)
+        statics = "".join(f", {quote(c)}" for c in self.spec.static_columns)
         return _to_pandas(self._con.sql(
             f"SELECT patient_id, CAST(entry_ts AS DATE) AS entry_date, end_days, "
             f"CAST(end_status AS TINYINT) AS end_status, entry_age_years{statics} FROM pat ORDER BY patient_id"))
@@ -159,7 +162,8 @@ class Cohort:
 
 
 def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec: CohortSpec, *,
-                 memory_limit: str | None = None, threads: int | None = None) -> Cohort:
+                 memory_limit: str | None = None, threads: int | None = None,
+                 run_day: datetime.date | None = None) -> Cohort:
     """Check the sources, keep the ledger and build the counting-process table.
 
     Parameters
@@ -173,6 +177,9 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
         DuckDB memory limit (e.g. ``"6GB"``); larger work spills to a temporary folder.
     threads : int, optional
         DuckDB worker threads (default: all cores).
+    run_day : datetime.date, optional
+        The day of the run (default: today); a date after it is in the future (ledger state
+        ``future_date``).
 
     Returns
     -------
@@ -181,8 +188,10 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
     Raises
     ------
     CohortInputError
-        A required column is missing (the message names the file, the column and the columns present), a
-        patient id is repeated with different contents, or same-time values conflict under rule "error".
+        A file cannot be read as a table (not text, wrong encoding, no header on line 1), a required column is
+        missing (the message names the file, the column and the file's columns), a patient id is repeated
+        with different contents, or same-time values conflict under rule "error". Messages give files,
+        columns, line (CSV) or row (Parquet, DataFrame) numbers and counts, never patient ids or cell values.
     """
     spill = tempfile.TemporaryDirectory(prefix="riskbench_duckdb_")
     config: dict[str, object] = {"preserve_insertion_order": True, "temp_directory": spill.name}
@@ -191,17 +200,17 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
     if threads:
         config["threads"] = int(threads)
     con = duckdb.connect(":memory:", config=config)
-    extra = tuple(c for c in spec.static if c not in ("sex_male", "age_at_entry"))
-    loaded_p = load_table(con, "patients", patients, spec, extra)
+    run_day = run_day or datetime.date.today()
+    loaded_p = load_table(con, "patients", patients, spec, static_source_columns(spec))
     loaded_m = load_table(con, "measurements", measurements, spec)
     loaded_o = load_table(con, "outcomes", outcomes, spec)
     # The checks order every result they need explicitly (row numbers are fixed on loading), so their
     # intermediate tables may be written in any order; the counting-process table keeps patient-time order.
     con.execute("SET preserve_insertion_order = false")
-    contract.check_patients(con, loaded_p, spec)
-    contract.check_outcomes(con, loaded_o, spec)
-    contract.build_patient_table(con, loaded_p, spec)
-    contract.check_measurements(con, loaded_m, spec)
+    contract.check_patients(con, loaded_p, spec, run_day)
+    contract.check_outcomes(con, loaded_o, spec, run_day)
+    contract.build_patient_table(con, spec)
+    contract.check_measurements(con, loaded_m, spec, run_day)
     contract.build_ledger(con)
     con.execute("SET preserve_insertion_order = true")
     cp_file = Path(spill.name) / "counting_process.parquet"

@@ -11,25 +11,37 @@ The results are DuckDB tables:
 
 from __future__ import annotations
 
+from datetime import date, timedelta
+
 import duckdb
 import numpy as np
 import pyarrow as pa
 
 from riskbench.cohort.errors import CohortInputError
-from riskbench.cohort.reading import LoadedTable, blank, number_expr, quote, timestamp_expr, trimmed_expr
+from riskbench.cohort.reading import (LoadedTable, blank, days_between, number_expr, quote, sql_text,
+                                     timestamp_expr, trimmed_expr)
 from riskbench.cohort.reasons import RowState as S
-from riskbench.cohort.spec import DAYS_PER_YEAR, CohortSpec
+from riskbench.cohort.spec import CohortSpec
+from riskbench.cohort.statics import STATIC_STATES, static_table
 
-# The order in which each table's checks are applied (the flow table follows it).
+#: States of the lines of a CSV file that hold no row; they come first in every table's flow.
+LINE_STATES = (S.BLANK_LINE, S.WRONG_FIELD_COUNT)
+#: Date checks of a non-blank date, in order (see :func:`date_checks`).
+DATE_STATES = (S.DATE_WITH_TIME_ZONE, S.UNPARSEABLE_DATE, S.IMPLAUSIBLE_DATE, S.FUTURE_DATE)
+#: The order in which each table's checks are applied (the flow table follows it).
 CHECK_ORDER: dict[str, tuple[S, ...]] = {
-    "patients": (S.MISSING_REQUIRED, S.UNPARSEABLE_DATE, S.EXACT_DUPLICATE, S.OUTCOME_BEFORE_ENTRY,
-                 S.NO_FOLLOW_UP, S.USED),
-    "outcomes": (S.MISSING_REQUIRED, S.UNPARSEABLE_DATE, S.UNKNOWN_KIND, S.UNKNOWN_PATIENT, S.EXACT_DUPLICATE,
-                 S.PATIENT_EXCLUDED, S.LATER_EVENT, S.USED),
-    "measurements": (S.MISSING_REQUIRED, S.UNPARSEABLE_DATE, S.UNPARSEABLE_VALUE, S.UNKNOWN_VARIABLE,
+    "patients": (*LINE_STATES, S.MISSING_REQUIRED, *DATE_STATES, S.EXACT_DUPLICATE, *STATIC_STATES,
+                 S.OUTCOME_BEFORE_ENTRY, S.NO_FOLLOW_UP, S.USED),
+    "outcomes": (*LINE_STATES, S.MISSING_REQUIRED, *DATE_STATES, S.UNKNOWN_KIND, S.UNKNOWN_PATIENT,
+                 S.EXACT_DUPLICATE, S.PATIENT_EXCLUDED, S.LATER_EVENT, S.USED),
+    "measurements": (*LINE_STATES, S.MISSING_REQUIRED, *DATE_STATES, S.UNPARSEABLE_VALUE, S.UNKNOWN_VARIABLE,
                      S.UNKNOWN_PATIENT, S.EXACT_DUPLICATE, S.PATIENT_EXCLUDED, S.UNKNOWN_UNIT,
                      S.IMPLAUSIBLE_VALUE, S.BEFORE_LOOKBACK, S.AFTER_FOLLOW_UP, S.SAME_DAY_MERGED, S.USED),
 }
+#: Dates before this are implausible (a typo such as 0954 for 1954).
+EARLIEST_DATE = "1900-01-01"
+#: A time of day followed by a time-zone suffix: Z, UTC, GMT or an offset such as +02:00, -0500, +01.
+TIME_ZONE_PATTERN = r"\d{1,2}:\d{2}(:\d{2}(\.\d*)?)?\s*([Zz]|UTC|GMT|[+-]\d{2}(:?\d{2})?)$"
 KIND_STATUS = {"outcome": 1, "competing": 2, "end_of_follow_up": 0}
 # At one date, an outcome outranks a competing event, which outranks a plain end of follow-up.
 KIND_RANK = {"outcome": 1, "competing": 2, "end_of_follow_up": 3}
@@ -40,13 +52,33 @@ ERROR_ROWS_SHOWN = 10
 _GROUP_HASH = "hash(k.kidx, c.vidx, m.ts)"
 
 
-def _sql_str(value: str) -> str:
-    return "'" + value.replace("'", "''") + "'"
+def date_checks(loaded: LoadedTable, column: str, run_day: date, alias: str | None = None, *,
+                trimmed: str | None = None, ts: str | None = None) -> dict[S, str]:
+    """SQL conditions, one per state of :data:`DATE_STATES`, for a date column that is not blank.
+
+    A time-zone suffix is refused (the offset is neither applied nor cut off); a date that does not parse, a
+    year before 1900 and a date after ``run_day`` each get their own state. A column typed as a time-zone
+    aware timestamp (Parquet, DataFrame) is an error: it has no local dates. ``trimmed`` is the SQL of the
+    column as trimmed text and ``ts`` of its parsed timestamp, when a query computed them already.
+    """
+    kind = loaded.types[column].upper()
+    if "WITH TIME ZONE" in kind:
+        raise CohortInputError(
+            f"{loaded.label}: column {column!r} holds time-zone-aware timestamps; riskbench needs local dates "
+            "(convert them to the local date of the clinic, or to text without a zone)")
+    ts = ts or timestamp_expr(loaded, column, alias, trimmed=trimmed)
+    col = f"{alias}.{quote(column)}" if alias else quote(column)
+    text = trimmed or f"trim(CAST({col} AS VARCHAR))"
+    zone = (f"(length({text}) > 10 AND regexp_matches({text}, {sql_text(TIME_ZONE_PATTERN)}))"
+            if kind.startswith("VARCHAR") else "FALSE")
+    next_day = (run_day + timedelta(days=1)).isoformat()
+    return {S.DATE_WITH_TIME_ZONE: zone, S.UNPARSEABLE_DATE: f"{ts} IS NULL",
+            S.IMPLAUSIBLE_DATE: f"{ts} < TIMESTAMP '{EARLIEST_DATE}'", S.FUTURE_DATE: f"{ts} >= TIMESTAMP '{next_day}'"}
 
 
-def _days(ts: str, origin: str) -> str:
-    """SQL: days from ``origin`` to ``ts`` (fractional when a time of day is given)."""
-    return f"((epoch({ts}) - epoch({origin})) / 86400.0)"
+def _date_cases(*columns: dict[S, str]) -> str:
+    """SQL ``WHEN ... THEN ...`` clauses of the date checks of one or more columns, in check order."""
+    return " ".join(f"WHEN {' OR '.join('(' + c[st] + ')' for c in columns)} THEN '{st}'" for st in DATE_STATES)
 
 
 def _first_blank(loaded: LoadedTable, columns: tuple[str, ...], alias: str | None = None) -> str:
@@ -64,42 +96,47 @@ def _dedupe(con: duckdb.DuckDBPyConnection, name: str, columns: tuple[str, ...])
         WHERE {name}.row_number = d.rn""")
 
 
-def check_patients(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
-    """First pass over patients: required fields, dates, exact duplicates, then duplicate ids (an error)."""
+def check_patients(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec, run_day: date) -> None:
+    """First pass over patients: required fields, dates, exact duplicates, duplicate ids (an error), then
+    the static covariates (:func:`riskbench.cohort.statics.static_table`)."""
     cols = loaded.columns
     birth = timestamp_expr(loaded, "birth_date") if "birth_date" in cols else "NULL::TIMESTAMP"
-    birth_bad = "FALSE"
+    checks = [date_checks(loaded, "entry_date", run_day)]
     if "birth_date" in cols:
-        birth_bad = f"(NOT {blank('birth_date', None, loaded.types['birth_date'])} AND {birth} IS NULL)"
+        given = f"NOT {blank('birth_date', None, loaded.types['birth_date'])}"
+        checks.append({st: f"{given} AND {c}" for st, c in date_checks(loaded, "birth_date", run_day).items()})
     con.execute(f"""
         CREATE TEMP TABLE p1 AS SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
             {timestamp_expr(loaded, 'entry_date')} AS entry_ts, {birth} AS birth_ts, * EXCLUDE (row_number, patient_id),
             CASE WHEN {_first_blank(loaded, ('patient_id', 'entry_date'))} THEN '{S.MISSING_REQUIRED}'
-                 WHEN {timestamp_expr(loaded, 'entry_date')} IS NULL OR {birth_bad} THEN '{S.UNPARSEABLE_DATE}'
+                 {_date_cases(*checks)}
             END AS state
         FROM raw_patients""")
     _dedupe(con, "p1", tuple(c for c in cols))
     dups = con.execute(f"""
-        SELECT patient_id, list(row_number ORDER BY row_number) FROM p1 WHERE state IS NULL
+        SELECT list(row_number ORDER BY row_number), count(*) OVER () FROM p1 WHERE state IS NULL
         GROUP BY patient_id HAVING count(*) > 1 ORDER BY min(row_number) LIMIT {ERROR_ROWS_SHOWN}""").fetchall()
     if dups:
-        shown = "; ".join(f"{pid!r} at rows {rows}" for pid, rows in dups)
+        word = loaded.row_word
+        shown = "; ".join(f"{word}s {rows}" for rows, _ in dups)
         raise CohortInputError(
-            f"{loaded.label}: duplicate patient ids with different contents ({shown}). Each patient must "
-            "have exactly one row in the patients table; remove or correct the extra rows.")
+            f"{loaded.label}: {dups[0][1]} patient id(s) appear on more than one {word} with different contents "
+            f"({shown}). Each patient must have exactly one {word} in the patients table; remove or correct "
+            "the extra ones.")
+    static_table(con, loaded, spec)
 
 
-def check_outcomes(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
+def check_outcomes(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec, run_day: date) -> None:
     """Outcome rows: resolve each patient's first terminal event and the patients' follow-up states."""
     kind_map = {k: k for k in KIND_STATUS} | dict(spec.kind_map)
-    kind_case = " ".join(f"WHEN {_sql_str(k)} THEN {_sql_str(v)}" for k, v in kind_map.items())
+    kind_case = " ".join(f"WHEN {sql_text(k)} THEN {sql_text(v)}" for k, v in kind_map.items())
     ts = timestamp_expr(loaded, "date")
     con.execute(f"""
         CREATE TEMP TABLE o1 AS SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
             {ts} AS ts, CASE trim(CAST(kind AS VARCHAR)) {kind_case} END AS kind_std,
             * EXCLUDE (row_number, patient_id),
             CASE WHEN {_first_blank(loaded, ('patient_id', 'date', 'kind'))} THEN '{S.MISSING_REQUIRED}'
-                 WHEN {ts} IS NULL THEN '{S.UNPARSEABLE_DATE}'
+                 {_date_cases(date_checks(loaded, 'date', run_day))}
                  WHEN (CASE trim(CAST(kind AS VARCHAR)) {kind_case} END) IS NULL THEN '{S.UNKNOWN_KIND}'
                  WHEN trim(CAST(patient_id AS VARCHAR)) NOT IN (SELECT patient_id FROM p1
                       WHERE patient_id IS NOT NULL) THEN '{S.UNKNOWN_PATIENT}'
@@ -110,7 +147,7 @@ def check_outcomes(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Co
     rank_case = " ".join(f"WHEN '{k}' THEN {v}" for k, v in KIND_RANK.items())
     con.execute(f"""
         CREATE TEMP TABLE first_event AS SELECT * FROM (
-            SELECT o.row_number, o.patient_id, {_days('o.ts', 'p.entry_ts')} AS end_days,
+            SELECT o.row_number, o.patient_id, {days_between('o.ts', 'p.entry_ts')} AS end_days,
                 CASE o.kind_std {status_case} END AS end_status,
                 row_number() OVER (PARTITION BY o.patient_id
                     ORDER BY o.ts, CASE o.kind_std {rank_case} END, o.row_number) AS k
@@ -132,47 +169,19 @@ def check_outcomes(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Co
         WHERE o1.patient_id = p.patient_id AND o1.state IS NULL""")
 
 
-def build_patient_table(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
-    """Create ``pat``: the included patients with follow-up and static covariates."""
-    cols = loaded.columns
-    if "birth_date" in cols:
-        age = f"({_days('p.entry_ts', 'p.birth_ts')} / {DAYS_PER_YEAR})"
-    elif "age_at_entry" in cols:
-        age = number_expr(loaded, "age_at_entry", "p")
-    else:
-        age = None
-    statics = []
-    for name in spec.static:
-        if name == "sex_male":
-            if "sex" not in cols:
-                raise CohortInputError(f"{loaded.label}: static covariate 'sex_male' needs a 'sex' column "
-                                       f"(F/M); the patients table has {list(cols)}")
-            statics.append("CASE upper(trim(CAST(p.sex AS VARCHAR))) WHEN 'M' THEN 1.0 WHEN 'MALE' THEN 1.0 "
-                           "WHEN 'F' THEN 0.0 WHEN 'FEMALE' THEN 0.0 END::DOUBLE AS sex_male")
-        elif name == "age_at_entry":
-            if age is None:
-                raise CohortInputError(f"{loaded.label}: static covariate 'age_at_entry' needs a 'birth_date' "
-                                       f"or 'age_at_entry' column; the patients table has {list(cols)}")
-            statics.append(f"{age} AS age_at_entry")
-        else:
-            if name not in cols:
-                raise CohortInputError(f"{loaded.label}: static covariate {name!r} is not a column of the "
-                                       f"patients table (columns: {list(cols)}); map it or drop it from static")
-            statics.append(f"{number_expr(loaded, name, 'p')} AS {quote(name)}")
-    if spec.current_age and age is None:
-        raise CohortInputError(f"{loaded.label}: current age needs a 'birth_date' or 'age_at_entry' column; "
-                               "set current_age = false otherwise")
-    age_sql = f"{age} AS entry_age_years" if age is not None else "NULL::DOUBLE AS entry_age_years"
-    static_sql = "".join(", " + s for s in statics)
+def build_patient_table(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
+    """Create ``pat``: the included patients with follow-up, age at entry and static covariates."""
+    static_sql = "".join(f", s.{quote(c)}" for c in spec.static_columns)
     con.execute(f"""
         CREATE TEMP TABLE pat AS SELECT
             CAST(row_number() OVER (ORDER BY p.patient_id) AS INTEGER) AS pidx,
-            p.patient_id, p.entry_ts, f.end_days, f.end_status,
-            {age_sql}{static_sql}
-        FROM p1 p JOIN first_event f USING (patient_id) WHERE p.state = '{S.USED}'""")
+            p.patient_id, p.entry_ts, f.end_days, f.end_status, s.entry_age_years{static_sql}
+        FROM p1 p JOIN first_event f USING (patient_id) JOIN p_static s ON s.row_number = p.row_number
+        WHERE p.state = '{S.USED}'""")
 
 
-def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec) -> None:
+def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec,
+                       run_day: date) -> None:
     """Measurement rows: parse, convert units, check ranges and windows, merge same-time values.
 
     The row checks run in one pass; exact duplicates and same-time merges are then settled inside the few
@@ -182,9 +191,9 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
     for i, v in enumerate(spec.variables):
         lo = "NULL" if v.plausible_min is None else repr(v.plausible_min)
         hi = "NULL" if v.plausible_max is None else repr(v.plausible_max)
-        canon.append(f"({_sql_str(v.name)}, {i}::SMALLINT, {_sql_str(v.unit)}, {str(v.transform == 'log').upper()})")
+        canon.append(f"({sql_text(v.name)}, {i}::SMALLINT, {sql_text(v.unit)}, {str(v.transform == 'log').upper()})")
         for unit, factor in v.factors.items():
-            units.append(f"({i}::SMALLINT, {_sql_str(unit)}, {factor!r}, {lo}::DOUBLE, {hi}::DOUBLE)")
+            units.append(f"({i}::SMALLINT, {sql_text(unit)}, {factor!r}, {lo}::DOUBLE, {hi}::DOUBLE)")
     if not units:
         raise CohortInputError("the cohort spec has no variables; add at least one under [cohort.variables]")
     con.execute(f"CREATE TEMP TABLE var_canon(variable VARCHAR, vidx SMALLINT, unit VARCHAR, is_log BOOLEAN); "
@@ -201,14 +210,14 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
     texts = required + (("unit",) if "unit" in loaded.columns else ())
     trimmed = ", ".join(f"{trimmed_expr(loaded, c, 'm')} AS t_{c}" for c in texts)
     unit_raw = "nullif(CAST(t_unit AS VARCHAR), '')" if "unit" in loaded.columns else "NULL"
-    day = _days("m.ts", "k.entry_ts")
+    day = days_between("m.ts", "k.entry_ts")
     value = "m.raw_value * u.factor"
     # Exact duplicates are settled after this pass (they share patient, variable and time, see below).
     con.execute(f"""
         CREATE TEMP TABLE m2 AS SELECT m.row_number, CASE WHEN k.kidx IS NULL THEN m.patient_id END AS other_id,
             k.pidx, k.kidx, c.vidx, {_GROUP_HASH} AS h, {day} AS day, {value} AS value, c.is_log,
             CASE WHEN m.is_blank THEN '{S.MISSING_REQUIRED}'
-                 WHEN m.ts IS NULL THEN '{S.UNPARSEABLE_DATE}'
+                 {_date_cases(date_checks(loaded, 'date', run_day, trimmed='m.t_date', ts='m.ts'))}
                  WHEN m.raw_value IS NULL THEN '{S.UNPARSEABLE_VALUE}'
                  WHEN c.vidx IS NULL THEN '{S.UNKNOWN_VARIABLE}'
                  WHEN k.patient_id IS NULL THEN '{S.UNKNOWN_PATIENT}'
@@ -219,7 +228,7 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
                  WHEN {day} < -{spec.lookback_days!r} THEN '{S.BEFORE_LOOKBACK}'
                  WHEN {day} > k.end_days THEN '{S.AFTER_FOLLOW_UP}'
             END AS state
-        FROM (SELECT row_number, CAST(t_patient_id AS VARCHAR) AS patient_id, CAST(t_variable AS VARCHAR) AS var,
+        FROM (SELECT row_number, t_date, CAST(t_patient_id AS VARCHAR) AS patient_id, CAST(t_variable AS VARCHAR) AS var,
                      {unit_raw} AS unit_given, {timestamp_expr(loaded, 'date', trimmed='t_date')} AS ts,
                      {number_expr(loaded, 'value', trimmed='t_value')} AS raw_value,
                      {" OR ".join(blank(c, None, loaded.types[c], trimmed=f"t_{c}") for c in required)} AS is_blank
@@ -243,7 +252,7 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
                     SELECT row_number FROM m2 SEMI JOIN crowded USING (h)
                     WHERE state IS NULL OR state NOT IN ({early})))
             WHERE copy > 1)""")
-    _merge_same_time(con, spec)
+    _merge_same_time(con, spec, loaded)
     con.execute(f"""
         CREATE TEMP TABLE meas AS SELECT pidx, day, vidx, CASE WHEN is_log THEN ln(value) ELSE value END AS x
         FROM (SELECT pidx, day, vidx, is_log, value FROM m2 ANTI JOIN crowded USING (h) WHERE state IS NULL
@@ -263,7 +272,7 @@ def _find_crowded(con: duckdb.DuckDBPyConnection, candidates: str) -> None:
     con.unregister("crowded_hashes")
 
 
-def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
+def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec, loaded: LoadedTable) -> None:
     """Create ``merged`` (``row_number, pidx, vidx, day, is_log, state, value``): the rows of crowded
     same-time groups resolved; one row per (patient, variable, time) is used, the others merged into it."""
     rule = spec.same_day_rule
@@ -271,17 +280,17 @@ def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
     if rule == "error":
         # Only rows of crowded groups can clash.
         clash = con.execute(f"""
-            SELECT k.patient_id, m.vidx, m.day, list(m.row_number ORDER BY m.row_number),
-                list(m.value ORDER BY m.row_number)
-            FROM m2 m SEMI JOIN crowded USING (h) JOIN id_lookup k USING (kidx) WHERE m.state IS NULL
-            GROUP BY k.patient_id, m.vidx, m.day
+            SELECT m.vidx, list(m.row_number ORDER BY m.row_number), count(*) OVER ()
+            FROM m2 m SEMI JOIN crowded USING (h) WHERE m.state IS NULL
+            GROUP BY m.pidx, m.vidx, m.day
             HAVING min(m.value) <> max(m.value) ORDER BY min(m.row_number) LIMIT {ERROR_ROWS_SHOWN}""").fetchall()
         if clash:
-            shown = "; ".join(f"patient {p!r} {names[v]} at day {d:g}: rows {r} values {vals}"
-                              for p, v, d, r, vals in clash)
+            word = loaded.row_word
+            shown = "; ".join(f"{names[v]} on {word}s {r}" for v, r, _ in clash)
             raise CohortInputError(
-                f"measurements: conflicting values of one variable at the same date ({shown}). The cohort "
-                "spec says same_day_rule = 'error'; correct the source rows or choose 'mean' or 'last'.")
+                f"{loaded.label}: {clash[0][2]} group(s) of {word}s give one patient different values of one "
+                f"variable at the same time ({shown}). The cohort spec says same_day_rule = 'error'; correct "
+                "those rows or choose 'mean' or 'last'.")
     keep = "k_first = n" if rule == "last" else "k_first = 1"
     merged = "avg(value) OVER g" if rule == "mean" else "value"
     # Only the few crowded (patient, variable, time) groups need a window; every other row is used as it is.
@@ -295,11 +304,15 @@ def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> None:
 
 
 def build_ledger(con: duckdb.DuckDBPyConnection) -> None:
-    """Create the view ``ledger`` over the per-table states (computed when read)."""
+    """Create the view ``ledger`` over the per-table states (computed when read), including the lines of
+    CSV files that hold no row (``lines_<table>``, no patient id)."""
     con.execute("""
         CREATE TEMP VIEW ledger AS
         SELECT 'patients' AS "table", row_number, patient_id, state FROM p1
         UNION ALL SELECT 'measurements', m.row_number, coalesce(k.patient_id, m.other_id),
                 coalesce(m.state, g.state, 'used')
             FROM m2 m LEFT JOIN id_lookup k USING (kidx) LEFT JOIN merged g USING (row_number)
-        UNION ALL SELECT 'outcomes', row_number, patient_id, state FROM o1""")
+        UNION ALL SELECT 'outcomes', row_number, patient_id, state FROM o1
+        UNION ALL SELECT 'patients', row_number, NULL, state FROM lines_patients
+        UNION ALL SELECT 'measurements', row_number, NULL, state FROM lines_measurements
+        UNION ALL SELECT 'outcomes', row_number, NULL, state FROM lines_outcomes""")

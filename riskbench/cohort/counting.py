@@ -84,13 +84,13 @@ class _Patients:
 
 
 def _read_patients(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> _Patients:
-    static_sql = "".join(f", {quote(c)}" for c in spec.static)
+    static_sql = "".join(f", {quote(c)}" for c in spec.static_columns)
     table = con.sql(f"SELECT patient_id, end_days, end_status, entry_age_years{static_sql} FROM pat "
                     "ORDER BY pidx").to_arrow_table()
     col = lambda name: table.column(name).to_numpy()  # noqa: E731
     return _Patients(ids=table.column("patient_id").combine_chunks(), end_days=col("end_days"),
                      end_status=col("end_status"), entry_age=col("entry_age_years").astype(float),
-                     statics={c: col(c).astype(float) for c in spec.static})
+                     statics={c: col(c).astype(float) for c in spec.static_columns})
 
 
 def _assemble_block(values: pa.Table, first: int, last: int, patients: _Patients, spec: CohortSpec,

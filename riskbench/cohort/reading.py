@@ -1,8 +1,12 @@
 """Read a source table (CSV, Parquet or DataFrame) into DuckDB under our column names.
 
-Every table gets a ``row_number`` (1-based position of the data row in the source, header not counted) so
-the ledger can point at rows. Text stays text here: parsing dates and values is a contract check and belongs
-to :mod:`riskbench.cohort.contract`, which records failures in the ledger instead of raising.
+Every table gets a ``row_number`` so the ledger can point at rows: for a CSV file it is the file's line
+number (the header is line 1, so the first data row is line 2, and blank lines keep their numbers); for a
+Parquet file or a DataFrame it is the 1-based position of the row (there are no lines). CSV files are read
+without guessing (:mod:`riskbench.cohort.csv_lines`): lines that hold no row (blank, wrong number of fields)
+land in ``lines_<table>`` with their ledger state. Text stays text here: parsing dates and values is a
+contract check and belongs to :mod:`riskbench.cohort.contract`, which records failures in the ledger instead of
+raising.
 """
 
 from __future__ import annotations
@@ -17,6 +21,7 @@ import numpy as np
 import pandas as pd
 import pyarrow as pa
 
+from riskbench.cohort.csv_lines import read_csv_lines
 from riskbench.cohort.errors import CohortInputError
 from riskbench.cohort.sources import TableSource
 from riskbench.cohort.spec import CohortSpec
@@ -44,10 +49,11 @@ DATE_COLUMNS: dict[str, tuple[str, ...]] = {
 
 @dataclass(frozen=True)
 class LoadedTable:
-    """A source table loaded into DuckDB as ``raw_<table>``.
+    """A source table loaded into DuckDB as ``raw_<table>`` (and its row-less lines as ``lines_<table>``).
 
-    ``columns`` holds our names of the columns present, ``types`` their DuckDB types and ``label`` how
-    messages refer to the source (file path or "DataFrame").
+    ``columns`` holds our names of the columns present, ``types`` their DuckDB types, ``label`` how
+    messages refer to the source (file path or "DataFrame"), ``file_columns`` the source's own column names
+    (for messages) and ``row_word`` what a ``row_number`` counts ("line" in a CSV file, else "row").
     """
 
     table: str
@@ -55,6 +61,8 @@ class LoadedTable:
     columns: tuple[str, ...]
     types: Mapping[str, str]
     date_format: str | None
+    file_columns: tuple[str, ...] = ()
+    row_word: str = "row"
 
 
 def quote(name: str) -> str:
@@ -62,9 +70,19 @@ def quote(name: str) -> str:
     return '"' + name.replace('"', '""') + '"'
 
 
+def sql_text(value: str) -> str:
+    """A text as an SQL string literal."""
+    return "'" + value.replace("'", "''") + "'"
+
+
+def days_between(ts: str, origin: str) -> str:
+    """SQL: days from timestamp ``origin`` to ``ts`` (fractional when a time of day is given)."""
+    return f"((epoch({ts}) - epoch({origin})) / 86400.0)"
+
+
 def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec: CohortSpec,
                extra: tuple[str, ...] = ()) -> LoadedTable:
-    """Load one source table into ``raw_<table>``; check its required columns.
+    """Load one source table into ``raw_<table>`` and ``lines_<table>``; check its required columns.
 
     Parameters
     ----------
@@ -74,75 +92,94 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
     spec : CohortSpec
         Supplies the default column map, date format and measurement layout.
     extra : tuple of str
-        Further columns to keep when present (static covariates of the patients table).
+        Further columns (our names) the table must have: the source columns of the static covariates.
     """
     columns = dict(spec.columns.get(table, {}))
     date_format = spec.date_format
     layout = spec.measurement_layout
-    parquet = False
-    numbered = False  # the relation already carries row_number
+    if isinstance(source, (str, Path)):
+        path = Path(source)
+        if not path.exists():
+            raise CohortInputError(f"{table} source {path} does not exist")
+        source = TableSource(path)
+    row_word, other_lines = "row", None
     if isinstance(source, TableSource):
         columns.update(source.columns)
         date_format = source.date_format or date_format
         layout = source.layout
-        parquet = source.file_format == "parquet"
-        relation, label = _file_relation(source.path, source.file_format), str(source.path)
-    elif isinstance(source, pd.DataFrame):
-        name = f"frame_{table}"
-        frame = _numbered_arrow(source)
-        numbered = frame is not None
-        con.register(name, frame if numbered else source)
-        relation, label = quote(name), f"{table} DataFrame"
+        label = str(source.path)
+        if source.file_format == "parquet":
+            relation = f"read_parquet({_literal(source.path)}, file_row_number = true)"
+            numbered = "file_row_number + 1"
+        else:
+            read = read_csv_lines(source.path, table, getattr(source, "encoding", "utf-8"))
+            relation, numbered, row_word = _register(con, f"csv_{table}", read.rows), "row_number", "line"
+            other_lines = read.other_lines
     else:
-        path = Path(source)
-        if not path.exists():
-            raise CohortInputError(f"{table} source {path} does not exist")
-        parquet = TableSource(path).file_format == "parquet"
-        relation, label = _file_relation(path, TableSource(path).file_format), str(path)
+        label = f"{table} DataFrame"
+        frame = _numbered_arrow(source)
+        if frame is None:  # mixed types Arrow cannot hold: let DuckDB read the DataFrame and number it
+            con.register(f"frame_{table}", source)
+            con.execute(f"CREATE TEMP TABLE framed_{table} AS SELECT * FROM frame_{table}")
+            relation, numbered = f"framed_{table}", "rowid + 1"
+        else:
+            relation, numbered = _register(con, f"frame_{table}", frame), ROW_NUMBER
+    _create_other_lines(con, table, other_lines)
 
     described = con.execute(f"DESCRIBE SELECT * FROM {relation}").fetchall()
-    present = {row[0]: row[1] for row in described}
+    hidden = {"file_row_number", ROW_NUMBER} | ({"row_number"} if row_word == "line" else set())
+    present = {row[0]: row[1] for row in described if row[0] not in hidden}
+    file_columns = tuple(present)
     wide = table == "measurements" and layout == "wide"
     required = ("patient_id", "date") if wide else REQUIRED[table]
-    for ours in required:
+    for ours in required + tuple(extra):
         theirs = columns.get(ours, ours)
         if theirs not in present:
             mapped = f" (mapped to source column {theirs!r})" if theirs != ours else ""
+            what = "required column" if ours in required else "column (read by a static covariate)"
             raise CohortInputError(
-                f"{label}: required column {ours!r}{mapped} is missing; the {table} table has columns "
+                f"{label}: {what} {ours!r}{mapped} is missing; the file's columns are "
                 f"{sorted(present)}. Rename the column or map it in [sources.{table}] columns = "
                 f"{{ {ours} = \"<source column>\" }}.")
-    wanted = list(required) + [c for c in OPTIONAL[table] + extra if columns.get(c, c) in present]
+    optional = [c for c in OPTIONAL[table] if c not in extra]
+    wanted = list(dict.fromkeys(list(required) + list(extra) + [c for c in optional if columns.get(c, c) in present]))
+    selects = [f"{numbered} AS row_number"] + [f"{quote(columns.get(c, c))} AS {quote(c)}" for c in wanted]
+    types = {c: present[columns.get(c, c)] for c in wanted}
     if wide:
         variables = [v.name for v in spec.variables if columns.get(v.name, v.name) in present]
         if not variables:
             raise CohortInputError(
                 f"{label}: wide measurement table has none of the variable columns "
                 f"{[v.name for v in spec.variables]}; its columns are {sorted(present)}")
-        selects = [f"{quote(columns.get(c, c))} AS {quote(c)}" for c in wanted]
-        selects += [f"CAST({quote(columns.get(v, v))} AS VARCHAR) AS {quote(v)}" for v in variables]
-        con.execute(f"CREATE TEMP TABLE wide_src AS SELECT {', '.join(selects)} FROM {relation}")
-        con.execute("CREATE TEMP TABLE wide_numbered AS SELECT rowid + 1 AS row_number, * FROM wide_src")
+        # A blank cell of a wide table is no measurement (UNPIVOT leaves out NULLs).
+        selects += [f"nullif(trim(CAST({quote(columns.get(v, v))} AS VARCHAR)), '') AS {quote(v)}"
+                    for v in variables]
+        con.execute(f"CREATE TEMP VIEW wide_numbered AS SELECT {', '.join(selects)} FROM {relation}")
         con.execute(
             "CREATE TEMP TABLE raw_measurements AS SELECT * FROM (UNPIVOT wide_numbered ON "
             f"{', '.join(quote(v) for v in variables)} INTO NAME variable VALUE value) "
             "ORDER BY row_number, variable")
-        types = {c: present[columns.get(c, c)] for c in wanted}
         types.update(variable="VARCHAR", value="VARCHAR")
-        return LoadedTable(table, label, tuple(wanted) + ("variable", "value"), types, date_format)
-    selects = ", ".join(f"{quote(columns.get(c, c))} AS {quote(c)}" for c in wanted)
-    if numbered:  # read in place: the Arrow copy of the DataFrame carries the row positions
-        con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT {ROW_NUMBER} AS row_number, {selects} FROM {relation}")
-    elif parquet:  # read in place: Parquet knows each row's position
-        path = source.path if isinstance(source, TableSource) else Path(source)
-        numbered = f"read_parquet({_literal(path)}, file_row_number = true)"
-        con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT file_row_number + 1 AS row_number, {selects} "
-                    f"FROM {numbered}")
-    else:  # insertion order is preserved, so rowid is the position of the row in the source
-        con.execute(f"CREATE TEMP TABLE src_{table} AS SELECT {selects} FROM {relation}")
-        con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT rowid + 1 AS row_number, * FROM src_{table}")
-    types = {c: present[columns.get(c, c)] for c in wanted}
-    return LoadedTable(table, label, tuple(wanted), types, date_format)
+        return LoadedTable(table, label, tuple(wanted) + ("variable", "value"), types, date_format,
+                           file_columns, row_word)
+    # Read in place: the relation carries each row's number.
+    con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT {', '.join(selects)} FROM {relation}")
+    return LoadedTable(table, label, tuple(wanted), types, date_format, file_columns, row_word)
+
+
+def _register(con: duckdb.DuckDBPyConnection, name: str, table: pa.Table) -> str:
+    """Register an Arrow table with DuckDB (scanned in place); return its quoted name."""
+    con.register(name, table)
+    return quote(name)
+
+
+def _create_other_lines(con: duckdb.DuckDBPyConnection, table: str, other: pa.Table | None) -> None:
+    """``lines_<table>`` (``row_number, state``): the lines of a CSV file that hold no row."""
+    con.execute(f"CREATE TEMP TABLE lines_{table} (row_number BIGINT, state VARCHAR)")
+    if other is not None and other.num_rows:
+        con.register("other_lines_in", other)
+        con.execute(f"INSERT INTO lines_{table} SELECT row_number, state FROM other_lines_in")
+        con.unregister("other_lines_in")
 
 
 def _numbered_arrow(frame: pd.DataFrame) -> pa.Table | None:
@@ -163,14 +200,6 @@ def _numbered_arrow(frame: pd.DataFrame) -> pa.Table | None:
 
 def _literal(path: Path) -> str:
     return "'" + str(path).replace("'", "''") + "'"
-
-
-def _file_relation(path: Path, file_format: str) -> str:
-    literal = _literal(path)
-    if file_format == "parquet":
-        return f"read_parquet({literal})"
-    # Everything as text: bad dates and values must reach the ledger, not stop the reader.
-    return f"read_csv({literal}, all_varchar = true, header = true)"
 
 
 def blank(column: str, alias: str | None = None, column_type: str = "VARCHAR", *, trimmed: str | None = None) -> str:

@@ -55,6 +55,17 @@ def _last_index(mask: np.ndarray, positions: np.ndarray, start_of_patient: np.nd
     return idx, valid
 
 
+def _previous_value(mask: np.ndarray, positions: np.ndarray, start_of_patient: np.ndarray, x: np.ndarray,
+                    idx: np.ndarray, valid: np.ndarray) -> np.ndarray:
+    """For rows whose last ``mask`` row is ``idx`` (where ``valid``), the value of the ``mask`` row before it
+    (same patient); NaN when there is none. Sorted rows hold one value per variable and time."""
+    before = np.where(mask, positions, -1)
+    np.maximum.accumulate(before, out=before)
+    before = np.r_[-1, before[:-1]]  # last mask row strictly before each row
+    has = valid & (before[idx] >= start_of_patient[idx])
+    return np.where(has, x[np.where(has, before[idx], 0)], np.nan)
+
+
 def assemble_rows(block: ValueBlock, end_days: np.ndarray, spec: CohortSpec) -> dict[str, np.ndarray]:
     """Counting-process rows of one block.
 
@@ -71,6 +82,7 @@ def assemble_rows(block: ValueBlock, end_days: np.ndarray, spec: CohortSpec) -> 
     dict of ndarray
         ``patient, start, stop, last_row`` and, per variable i, ``x{i}, d{i}`` (value and its date, NaN when
         none), ``f{i}`` (first value) when the spec asks for change, ``s{i}`` (slope) when it asks for slope,
+        ``p{i}`` (the value before the last one) when it asks for the previous value,
         ``n_exams, last_exam`` when there are exam variables. Values are those known at the row's start,
         before the carry-forward rule (applied by the caller from ``d{i}``).
     """
@@ -100,6 +112,8 @@ def assemble_rows(block: ValueBlock, end_days: np.ndarray, spec: CohortSpec) -> 
             out[f"f{i}"] = np.where(valid, block.x[first], np.nan)
         if var.slope:
             out[f"s{i}"] = np.where(valid, block.slope[idx], np.nan)
+        if var.previous:
+            out[f"p{i}"] = _previous_value(is_var, positions, start_of_patient, block.x, idx, valid)
     if spec.exam_variables:
         counted = np.cumsum(block.exam_day)
         before = (counted - block.exam_day)[start_of_patient]
@@ -153,12 +167,14 @@ def covariate_columns(rows: Mapping[str, np.ndarray], spec: CohortSpec, entry_ag
             cols[f"{v.column}_change"] = np.where(fresh, rows[f"x{i}"] - rows[f"f{i}"], np.nan)
         if v.slope:
             cols[f"{v.column}_slope_per_year"] = np.where(fresh, rows[f"s{i}"], np.nan)
+        if v.previous:
+            cols[v.previous_column] = np.where(fresh, rows[f"p{i}"], np.nan)
         cols[v.staleness_column] = age_of_value
     if spec.exam_variables:
         cols["days_since_exam"] = start - rows["last_exam"]
         cols["n_exams"] = rows["n_exams"].astype(np.int32)
     if spec.current_age:
         cols["age"] = entry_age[patient] + start / DAYS_PER_YEAR
-    for name in spec.static:
+    for name in spec.static_columns:
         cols[name] = statics[name][patient]
     return cols

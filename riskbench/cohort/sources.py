@@ -19,6 +19,7 @@ Example (paths are relative to the configuration file)::
 
 from __future__ import annotations
 
+import codecs
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -45,12 +46,23 @@ class TableSource:
         strftime format of the dates in a CSV file; None reads ISO dates.
     layout : {"long", "wide"}
         Measurements only: ``wide`` has one column per variable and is melted.
+    encoding : str
+        Text encoding of a CSV file (``utf-8``, ``latin-1``, ``cp1252``, ``utf-16``, ...); a byte-order mark
+        is skipped. Parquet files ignore it.
     """
 
     path: Path
     columns: Mapping[str, str] = field(default_factory=dict)
     date_format: str | None = None
     layout: str = "long"
+    encoding: str = "utf-8"
+
+    def __post_init__(self) -> None:
+        try:
+            codecs.lookup(self.encoding)
+        except LookupError:
+            raise SpecError(f"{self.path}: encoding = {self.encoding!r} is not a text encoding Python knows; use "
+                            "e.g. \"utf-8\", \"latin-1\", \"cp1252\" or \"utf-16\"") from None
 
     @property
     def file_format(self) -> str:
@@ -96,6 +108,7 @@ def _table_source(mapping: Any, table: str, base_dir: Path, default_format: str 
         "path": "file path relative to the configuration file",
         "columns": "table our_name = file_column_name",
         "date_format": "strftime format, e.g. '%d/%m/%Y'",
+        "encoding": "text encoding of a CSV file: 'utf-8' (default), 'latin-1', 'cp1252', 'utf-16'",
     }
     if table == "measurements":
         allowed["layout"] = "'long' or 'wide'"
@@ -112,6 +125,7 @@ def _table_source(mapping: Any, table: str, base_dir: Path, default_format: str 
         columns=cc.text_map(m.get("columns", {}), "columns", where),
         date_format=cc.text(m["date_format"], "date_format", where) if "date_format" in m else default_format,
         layout=cc.text(m.get("layout", "long"), "layout", where, choices=("long", "wide")),
+        encoding=cc.text(m.get("encoding", "utf-8"), "encoding", where),
     )
     source.file_format  # noqa: B018 - raises early for an unknown file type
     return source

@@ -53,6 +53,7 @@ def _used_values(patients, meas, outcomes, spec):
     out = {}
     if meas.empty:
         return out, end
+    meas = meas.drop_duplicates()  # an exact copy of a row is excluded (the first copy is used)
     m = meas.assign(day=(pd.to_datetime(meas.date) - entry.loc[meas.patient_id].to_numpy()).dt.days)
     m = m[(m.day >= -spec.lookback_days) & (m.day <= end.loc[m.patient_id].to_numpy())]
     for (pid, var), g in m.groupby(["patient_id", "variable"]):
