@@ -1,21 +1,35 @@
-"""Baseline characteristics by how follow-up ended (outcome, competing event, censored)."""
+"""Baseline characteristics by how follow-up ended (outcome, competing event, censored).
+
+The counts of the table are linked by sums: the groups add up to ``All``, and within each group a binary
+covariate's ones, zeros and missing values add up to the group's size. A hidden small count must not follow
+from the others by subtraction, so the counts of each covariate go through
+:func:`riskbench.report.suppression.linked_suppression` (complementary suppression, common practice in
+statistical disclosure control, e.g. the Eurostat/ONS handbooks on tabular data protection). The group
+sizes are hidden with the same rule as the groups of the cohort flow, so both tables hide the same groups.
+"""
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
-from riskbench.report.suppression import complementary_hidden, format_count, is_suppressed
+from riskbench.report.suppression import complementary_hidden, linked_suppression
+from riskbench.time_units import DAYS_PER_YEAR
 
-DAYS_PER_YEAR = 365.25
 STATUS_GROUPS: tuple[tuple[int, str], ...] = ((1, "Outcome"), (2, "Competing event"), (0, "Censored"))
+ALL = "All"
+WITHHELD = "suppressed"
 
 
 def _is_binary(values: pd.Series) -> bool:
     v = pd.to_numeric(values, errors="coerce").dropna()
     return set(v.unique().tolist()) == {0, 1}
+
+
+def _hidden_text(n: int, threshold: int) -> str:
+    return f"<{threshold}" if 0 < n < threshold else WITHHELD
 
 
 def baseline_table(
@@ -24,6 +38,7 @@ def baseline_table(
     covariates: Sequence[str],
     *,
     threshold: int = 10,
+    labels: Mapping[str, str] | Callable[[str], str] | None = None,
 ) -> pd.DataFrame:
     """Summarise covariates at entry, one column per end-of-follow-up group, small counts hidden.
 
@@ -35,10 +50,14 @@ def baseline_table(
     covariates_at_entry
         One row per patient with ``patient_id`` and the covariates as known at entry.
     covariates
-        Which covariate columns to summarise. Binary 0/1 columns show n (%) of ones; others median (IQR);
-        columns that are the same for everyone are left out.
+        Which covariate columns to summarise. Binary 0/1 columns show n (%) of ones, the percentage of the
+        group's patients (missing values count in the denominator and are shown on their own row); others
+        median (IQR); columns that are the same for everyone are left out.
     threshold
-        Groups or counts below it are shown as ``"<threshold"`` and their summaries left blank.
+        Counts ``0 < n < threshold`` are shown as ``"<threshold"``; counts that would give a hidden one away
+        by subtraction as ``"suppressed"``; groups hidden so are not described at all.
+    labels
+        Readable name of a covariate column (a mapping or a function); the column name when absent.
 
     Returns
     -------
@@ -51,41 +70,87 @@ def baseline_table(
         covariates_at_entry, on="patient_id", how="left", suffixes=("", "_entry")
     )
     groups = [(label, merged[merged["end_status"] == code]) for code, label in STATUS_GROUPS]
-    groups.append(("All", merged))
-    # a group that is too small shows no summary at all: its medians would describe single people
-    shown = {label: not is_suppressed(len(g), threshold) for label, g in groups}
-    # complementary suppression: hidden groups could be recovered from "All" minus the others
-    hidden = complementary_hidden(np.array([len(g) for _, g in groups[:-1]], dtype=float), threshold)
-    for (label, _), hide in zip(groups[:-1], hidden):
-        shown[label] = not hide
+    groups.append((ALL, merged))
+    names = [label for label, _ in groups]
+    sizes = {label: len(g) for label, g in groups}
+    # group sizes: the same rule as the groups of the cohort flow (complementary within the split)
+    hidden_groups = {label for (label, _), hide in zip(groups[:-1], complementary_hidden(
+        np.array([sizes[n] for n in names[:-1]], dtype=float), threshold)) if hide}
+    if 0 < sizes[ALL] < threshold:
+        hidden_groups.add(ALL)
+    described = [n for n in names if n not in hidden_groups]
 
-    rows: list[dict[str, str]] = []
+    rows: list[dict[str, str]] = [{"characteristic": "Patients, n", **{
+        n: _hidden_text(sizes[n], threshold) if n in hidden_groups else str(sizes[n]) for n in names}}]
 
-    def add(name: str, fn) -> None:
-        row = {"characteristic": name}
-        for label, g in groups:
-            row[label] = fn(g) if shown[label] else ""
-        rows.append(row)
+    def add(name: str, fn: Callable[[pd.DataFrame], str]) -> None:
+        rows.append({"characteristic": name, **{label: fn(g) if label in described else "" for label, g in groups}})
 
-    row = {"characteristic": "Patients, n"}
-    for label, g in groups:
-        if shown[label]:
-            row[label] = format_count(len(g), threshold)
-        else:
-            row[label] = f"<{threshold}" if is_suppressed(len(g), threshold) else "suppressed"
-    rows.append(row)
     add("Follow-up, years, median (IQR)", lambda g: _median_iqr(g["end_days"] / DAYS_PER_YEAR))
     for cov in covariates:
         if cov not in merged.columns or merged[cov].nunique(dropna=True) <= 1:
             continue  # absent, or the same for everyone at entry (e.g. change from the first value)
-        if _is_binary(merged[cov]):
-            add(f"{cov} = 1, n (%)", lambda g, c=cov: _count_pct(g[c], threshold))
+        name = _label_of(cov, labels)
+        values = {label: pd.to_numeric(g[cov], errors="coerce") for label, g in groups}
+        binary = _is_binary(merged[cov])
+        cells, hide = _covariate_counts(values, sizes, hidden_groups, binary, threshold)
+
+        def counts(category: str, percent: bool) -> dict[str, str]:
+            out = {}
+            for n in names:
+                value = cells[(category, n)]
+                if n in hidden_groups:
+                    out[n] = ""
+                elif hide is None or (category, n) in hide:
+                    out[n] = _hidden_text(value, threshold)
+                else:
+                    out[n] = f"{value} ({100 * value / sizes[n]:.0f}%)" if percent and sizes[n] else str(value)
+            return out
+
+        if binary:
+            rows.append({"characteristic": f"{name} = 1, n (%)", **counts("one", True)})
         else:
-            add(f"{cov}, median (IQR)", lambda g, c=cov: _median_iqr(g[c]))
-        missing = merged[cov].isna()
-        if missing.any():
-            add(f"{cov} missing, n", lambda g, c=cov: format_count(int(g[c].isna().sum()), threshold))
+            add(f"{name}, median (IQR)", lambda g, c=cov: _median_iqr(g[c]))
+        if merged[cov].isna().any():
+            rows.append({"characteristic": f"{name} missing, n", **counts("missing", False)})
     return pd.DataFrame(rows)
+
+
+def _label_of(column: str, labels: Mapping[str, str] | Callable[[str], str] | None) -> str:
+    if labels is None:
+        return column
+    if callable(labels):
+        return str(labels(column))
+    return str(labels.get(column, column))
+
+
+def _covariate_counts(values: Mapping[str, pd.Series], sizes: Mapping[str, int], hidden_groups: set,
+                      binary: bool, threshold: int) -> tuple[dict, set | None]:
+    """The covariate's counts per ``(category, group)`` and which of them to hide.
+
+    Categories: ``one`` (binary only), ``other`` (zeros, or observed values; never shown but derivable)
+    and ``missing``. ``None`` instead of the hidden set: the counts cannot be protected, withhold them all.
+    """
+    groups = list(values)
+    cells: dict = {("size", g): sizes[g] for g in groups}
+    for g, v in values.items():
+        ones = int((v == 1).sum()) if binary else 0
+        missing = int(v.isna().sum())
+        cells[("one", g)] = ones
+        cells[("missing", g)] = missing
+        cells[("other", g)] = len(v) - ones - missing
+    categories = ("one", "other", "missing")
+    inner = groups[:-1]
+    relations = [(tuple(("size", g) for g in inner), ("size", ALL))]
+    relations += [(tuple((c, g) for g in inner), (c, ALL)) for c in categories]
+    relations += [(tuple((c, g) for c in categories), ("size", g)) for g in groups]
+    hidden = {(c, g) for c in ("size", *categories) for g in hidden_groups}
+    try:
+        hide = linked_suppression(cells, relations, threshold, unpublished=[("other", g) for g in groups],
+                                  hidden=hidden, keep=[("size", g) for g in groups])
+    except ValueError:
+        return cells, None
+    return cells, hide
 
 
 def _median_iqr(values: pd.Series) -> str:
@@ -94,11 +159,3 @@ def _median_iqr(values: pd.Series) -> str:
         return ""
     q1, q2, q3 = np.percentile(v, [25, 50, 75])
     return f"{q2:.3g} ({q1:.3g}–{q3:.3g})"
-
-
-def _count_pct(values: pd.Series, threshold: int) -> str:
-    v = pd.to_numeric(values, errors="coerce").dropna()
-    n = int((v == 1).sum())
-    if is_suppressed(n, threshold) or is_suppressed(len(v) - n, threshold):
-        return f"<{threshold}" if is_suppressed(n, threshold) else "suppressed"
-    return f"{n} ({100 * n / len(v):.0f}%)" if len(v) else ""

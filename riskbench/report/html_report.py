@@ -3,6 +3,8 @@
 Figures are embedded as base64 PNG, styles are inline, there are no scripts and no links to other sites,
 so the page opens offline and can be sent as one file. It reads only ``tables/*.csv`` and
 ``figures/*.png`` (already pseudonymised and suppressed by the stages), never the ``data/`` folder.
+Every text that comes from the run (title, facts, table headers and cells, file names, captions) is
+HTML-escaped; only the page's own fixed markup is live.
 """
 
 from __future__ import annotations
@@ -17,7 +19,7 @@ from pathlib import Path
 import pandas as pd
 
 from riskbench.report.display_format import display_table
-from riskbench.report.outputs import FIGURES, TABLES, atomic_write_text
+from riskbench.report.outputs import FIGURES, TABLES, atomic_write_text, restore_csv_cell
 
 
 @dataclass(frozen=True)
@@ -122,7 +124,9 @@ def _is_numeric_column(cells: pd.Series) -> bool:
 
 def _table_html(path: Path) -> str:
     # the page shows rounded numbers; the CSV named under the table keeps full precision
-    table = display_table(pd.read_csv(path, dtype=str, keep_default_na=False))
+    table = pd.read_csv(path, dtype=str, keep_default_na=False)
+    table.columns = [restore_csv_cell(str(c)) for c in table.columns]
+    table = display_table(table.map(restore_csv_cell))  # cells as the stage made them; escaped below
     numeric = [_is_numeric_column(table[c]) for c in table.columns]
     head = "".join(f"<th{_NUM if n else ''}>{html.escape(str(c))}</th>" for c, n in zip(table.columns, numeric))
     rows = "".join("<tr>" + "".join(f"<td{_NUM if n else ''}>{html.escape(v)}</td>" for v, n in zip(row, numeric))

@@ -4,12 +4,15 @@ A count of people below the threshold (default 10, common practice) is shown as 
 ``0`` because it discloses nobody. Percentages derived from a suppressed count are suppressed with it.
 Within one row of group counts, a single suppressed cell could be recovered from the row total, so the
 next-smallest shown cell of that row is suppressed too (complementary suppression, common practice); the
-same holds for several hidden cells that add up to less than the threshold.
+same holds for several hidden cells that add up to less than the threshold. Tables whose counts are linked
+by several sums (rows and columns with margins) use :func:`linked_suppression`, which hides complementary
+cells until no small count follows from the shown ones; counts of the same people at consecutive times use
+:func:`coarsen_sequence`, so no difference between them reveals a few people.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Hashable, Iterable, Iterator, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -103,6 +106,137 @@ def suppress_counts(
             else:
                 texts.append(str(int(round(v))))
         out[col] = texts
+    return out
+
+
+Cell = Hashable
+Relation = tuple[tuple[Cell, ...], Cell]
+
+
+def derivable_cells(relations: Sequence[Relation], known: set) -> set:
+    """Every cell a reader can work out from the ``known`` ones through the sums ``parts -> total``.
+
+    A relation with exactly one unknown cell gives it (the total minus the known parts, or a part as the total
+    minus the others); repeated until nothing changes. This is the attack complementary suppression guards
+    against (common practice in statistical disclosure control, e.g. the Eurostat/ONS handbooks on
+    tabular data protection).
+    """
+    known = set(known)
+    for _ in _derivations(relations, known):
+        pass
+    return known
+
+
+def _derivations(relations: Sequence[Relation], known: set) -> Iterator[tuple[Relation, Cell]]:
+    """Add to ``known`` every cell that a sum with a single unknown cell gives; yield each with its sum."""
+    changed = True
+    while changed:
+        changed = False
+        for parts, total in relations:
+            unknown = [c for c in (*parts, total) if c not in known]
+            if len(unknown) == 1:
+                known.add(unknown[0])
+                changed = True
+                yield (parts, total), unknown[0]
+
+
+def linked_suppression(
+    values: Mapping[Cell, float],
+    relations: Sequence[Relation],
+    threshold: int,
+    *,
+    unpublished: Iterable[Cell] = (),
+    hidden: Iterable[Cell] = (),
+    keep: Iterable[Cell] = (),
+) -> set:
+    """Which cells of a table linked by sums to hide so that no small count can be worked out.
+
+    Parameters
+    ----------
+    values
+        Every cell's count (cells are any hashable keys).
+    relations
+        ``(parts, total)``: the counts of ``parts`` add up to the count of ``total`` (rows and columns of a
+        table with its margins, a group split, ...).
+    threshold
+        Counts ``0 < n < threshold`` are small: they are hidden, and must not be derivable from the rest.
+    unpublished
+        Cells that are not shown at all but that a reader may still derive (e.g. "not missing" when
+        "missing" and the group size are shown); a small one must stay underivable too.
+    hidden
+        Cells hidden already (e.g. a whole group withheld).
+    keep
+        Cells never chosen as complementary cells (e.g. group sizes settled in another table).
+
+    Returns
+    -------
+    set
+        The shown-table cells to hide (small ones and complementary ones).
+
+    Notes
+    -----
+    Rules (common practice in statistical disclosure control): a small count is hidden; while some
+    relation lets a reader derive a small count (:func:`derivable_cells`), or lets a reader derive that
+    hidden parts add up to a small positive number, the smallest shown non-zero part of that relation is
+    hidden too (its total, when no part is left). If nothing can be hidden, :class:`ValueError` is raised
+    (the caller withholds the whole block).
+    """
+    keep, unpublished = set(keep), set(unpublished)
+    small = {c for c, v in values.items() if 0 < round(float(v)) < threshold}
+    hide = (set(hidden) | small) - unpublished
+    while True:
+        known = set(values) - hide - unpublished
+        offending = _first_disclosure(values, relations, known, small, threshold)
+        if offending is None:
+            return hide
+        parts, total = offending
+        candidates = [c for c in parts if c in known and c not in keep and values[c] > 0]
+        if not candidates and total in known and total not in keep and values[total] > 0:
+            candidates = [total]
+        if not candidates:
+            raise ValueError("linked_suppression: no cell left to hide in a disclosing relation")
+        hide.add(min(candidates, key=lambda c: float(values[c])))
+
+
+def _first_disclosure(values, relations, known, small, threshold):
+    """The first relation through which a small count (or a small sum of hidden parts) can be derived."""
+    known = set(known)
+    for relation, cell in _derivations(relations, known):
+        if cell in small:
+            return relation
+    for parts, total in relations:
+        unknown = [c for c in parts if c not in known]
+        if total in known and len(unknown) > 1 and 0 < sum(float(values[c]) for c in unknown) < threshold:
+            return parts, total
+    return None
+
+
+def round_to_base(n: float, base: int) -> int:
+    """``n`` rounded to the nearest multiple of ``base`` (halves upwards), at least ``base`` when ``n >= base``."""
+    return max(int(base * ((float(n) + base / 2) // base)), base if n >= base else 0)
+
+
+def coarsen_sequence(counts: Sequence[float], threshold: int) -> list[str]:
+    """Counts of the same people at consecutive times, shown so that no difference reveals a small number.
+
+    A small count is ``"<threshold"`` (a zero stays ``0``). When two consecutive counts differ by less than
+    ``threshold`` (but not by zero), the difference would reveal a small number of people leaving or
+    arriving; then every count of the sequence is rounded to a multiple of ``threshold`` (written ``"~60"``),
+    so that shown differences are 0 or at least ``threshold`` (rounding is common practice in statistical
+    disclosure control).
+    """
+    values = [float(v) for v in counts]
+    small_step = any(0 < abs(a - b) < threshold for a, b in zip(values, values[1:]))
+    out = []
+    for v in values:
+        if np.isnan(v):
+            out.append("")
+        elif 0 < round(v) < threshold:
+            out.append(f"<{threshold}")
+        elif small_step and v > 0:
+            out.append(f"~{round_to_base(v, threshold)}")
+        else:
+            out.append(str(int(round(v))))
     return out
 
 

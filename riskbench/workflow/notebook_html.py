@@ -2,7 +2,9 @@
 
 nbconvert's template loads require.js, MathJax and mermaid from the internet; the stage notebooks need none
 of them (plain tables and PNG figures), so those scripts are removed: opening the page makes no network
-request.
+request. The export also sanitises the HTML of Markdown cells and cell outputs (nbconvert's
+``sanitize_html``: scripts, event handlers and other active markup removed), a second guard behind the
+stages, which already show every user string as escaped text.
 """
 
 from __future__ import annotations
@@ -28,6 +30,6 @@ def export_html(notebook: str | Path, target: str | Path) -> Path:
     from nbconvert import HTMLExporter
 
     nb = nbformat.read(str(notebook), as_version=4)
-    exporter = HTMLExporter(embed_images=True)
+    exporter = HTMLExporter(embed_images=True, sanitize_html=True)
     body, _ = exporter.from_notebook_node(nb)
     return atomic_write_text(target, strip_remote_scripts(body))

@@ -8,19 +8,22 @@ no dates), ``tables/cohort_flow``, ``tables/ledger_summary``, ``tables/landmark_
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
 
 import pandas as pd
+from matplotlib.figure import Figure
 
 from riskbench.cohort import Cohort, build_cohort
 from riskbench.report.baseline_table import baseline_table
 from riskbench.report.flow_diagram import flow_figure
 from riskbench.report.flow_suppression import suppress_flow
 from riskbench.report.outputs import save_data, save_figure, save_table
-from riskbench.report.suppression import suppress_counts
+from riskbench.report.suppression import coarsen_sequence
 from riskbench.report.timelines import choose_example_patients, timeline_figure
 from riskbench.workflow.config import AnalysisConfig
-from riskbench.workflow.pseudonyms import pseudonym_map, replace_ids
+from riskbench.time_units import DAYS_PER_YEAR
+from riskbench.workflow.pseudonyms import config_key, pseudonym_map, replace_ids
 from riskbench.workflow.stage_result import StageResult
 
 PATIENT_COLUMNS = ("patient_id", "end_days", "end_status")
@@ -85,24 +88,64 @@ def time_varying_columns(config: AnalysisConfig) -> list[str]:
     return [v.column for v in config.cohort.variables]
 
 
-def landmark_summary(stack: pd.DataFrame, threshold: int) -> pd.DataFrame:
-    """Patients at risk and events within the horizon at each landmark (years), small counts hidden."""
+LANDMARK_COUNTS = ("at_risk", "outcomes", "competing_events")
+
+
+def landmark_counts(stack: pd.DataFrame) -> pd.DataFrame:
+    """Patients at risk and events within the horizon at each landmark (years), as numbers."""
     rows = []
     for s, g in stack.groupby("landmark", sort=True):
-        rows.append({"landmark_years": round(float(s) / 365.25, 4), "at_risk": int(g["patient_id"].nunique()),
+        rows.append({"landmark_years": round(float(s) / DAYS_PER_YEAR, 4), "at_risk": int(g["patient_id"].nunique()),
                      "outcomes": int((g["status"] == 1).sum()), "competing_events": int((g["status"] == 2).sum())})
-    table = pd.DataFrame(rows, columns=["landmark_years", "at_risk", "outcomes", "competing_events"])
-    return suppress_counts(table, ["at_risk", "outcomes", "competing_events"], threshold)
+    return pd.DataFrame(rows, columns=["landmark_years", *LANDMARK_COUNTS])
+
+
+def landmark_summary(stack: pd.DataFrame, threshold: int) -> pd.DataFrame:
+    """:func:`landmark_counts` with small counts hidden and no small difference between landmarks.
+
+    Consecutive landmarks count the same patients, so a difference of a few between two shown counts would
+    reveal a few patients leaving; each count column is shown with
+    :func:`~riskbench.report.suppression.coarsen_sequence` (rounded to multiples of the threshold when
+    such a difference occurs).
+    """
+    table = landmark_counts(stack)
+    for column in LANDMARK_COUNTS:
+        table[column] = coarsen_sequence(table[column].to_numpy(float), threshold)
+    return table
+
+
+def covariate_labels(config: AnalysisConfig) -> Callable[[str], str]:
+    """Readable label of a covariate column: ``config.cohort.label`` when the cohort has it, else the name."""
+    label = getattr(config.cohort, "label", None)
+    if not callable(label):
+        return str
+
+    def safe(column: str) -> str:
+        try:
+            return str(label(column))
+        except (KeyError, ValueError):
+            return column
+    return safe
+
+
+def label_timeline_panels(fig: Figure, columns: list[str], labels: Callable[[str], str]) -> Figure:
+    """Replace the column names in the timeline panel titles by their labels (drawn as plain text)."""
+    for ax in fig.axes:
+        title = ax.get_title()
+        if title in columns:
+            ax.set_title(labels(title), fontsize=9, parse_math=False)
+    return fig
 
 
 def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
     """Run stage 1 (see the module docstring); return what it wrote."""
     run_dir = Path(run_dir)
     threshold = config.report.small_count_threshold
+    key = config_key(config, run_dir)  # before the long work: a bad key file stops the run at once
     cohort = build_stage_cohort(config)
 
     ids = pd.concat([cohort.ledger["patient_id"], cohort.counting_process["patient_id"]], ignore_index=True)
-    mapping = pseudonym_map(ids, config.seed)
+    mapping = pseudonym_map(ids, key)
     cp = replace_ids(cohort.counting_process, mapping)
     stack = replace_ids(
         cohort.landmark_stack(list(config.landmarks.landmarks_days), config.landmarks.horizon_days), mapping)
@@ -126,13 +169,15 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     covariates = list(dict.fromkeys(c for m in config.models for c in m.covariates))
     at_entry = cp.sort_values(["patient_id", "start"]).groupby("patient_id", sort=True).head(1)
     at_entry = at_entry.drop(columns=[c for c in ("start", "stop", "status") if c in at_entry.columns])
+    labels = covariate_labels(config)
     result.tables["baseline_characteristics"] = baseline_table(
-        patients, at_entry, covariates, threshold=threshold)
+        patients, at_entry, covariates, threshold=threshold, labels=labels)
 
     if config.report.example_patients > 0:
         chosen = choose_example_patients(cp, config.report.example_patients, config.seed)
-        result.figures["example_timelines"] = save_figure(
-            timeline_figure(cp, chosen, time_varying_columns(config)), run_dir, "example_timelines")
+        columns = time_varying_columns(config)
+        figure = label_timeline_panels(timeline_figure(cp, chosen, columns), columns, labels)
+        result.figures["example_timelines"] = save_figure(figure, run_dir, "example_timelines")
     else:
         result.notes.append("Example timelines are switched off ([report] example_patients = 0).")
 
