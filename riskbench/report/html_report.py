@@ -113,7 +113,7 @@ def _figure_html(path: Path) -> str:
 
 
 _NUM = ' class="num"'
-_NUMERIC_CELL = re.compile(r"^[-<>]?\d")
+_NUMERIC_CELL = re.compile(r"^[-<>~]?\d")
 
 
 def _is_numeric_column(cells: pd.Series) -> bool:

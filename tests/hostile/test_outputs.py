@@ -224,3 +224,63 @@ def test_show_names_the_derived_file(name, tmp_path, monkeypatch):
     show(StageResult(stage="x", run_dir=tmp_path, tables={name: pd.DataFrame({"a": [1]})}))
     html = shown[0]._repr_html_()
     assert f"tables/{safe_file_stem(name)}.csv" in html and "<img" not in html and "<script" not in html
+
+
+# ---------------------------------------------------------------------------------------------------------
+# Through the stages: models named with markup and with a path, a title with a script (library API, which
+# bypasses the configuration's name check)
+
+
+@pytest.fixture(scope="module")
+def hostile_stage_run(tmp_path_factory):
+    import dataclasses
+
+    from riskbench.demo.generator import generate_cohort
+    from riskbench.demo.storage import write_cohort
+    from riskbench.workflow.config import load_config
+    from riskbench.workflow.stage_cohort import run_cohort_stage
+    from riskbench.workflow.stage_models import run_models_stage
+
+    root = Path(__file__).resolve().parents[2]
+    base = tmp_path_factory.mktemp("hostile")
+    data = write_cohort(generate_cohort(400, seed=3), base / "data")
+    text = (root / "configs" / "demo.toml").read_text().replace("../demo_data/clean/", f"{data}/")
+    (base / "study.toml").write_text(text)
+    config = load_config(base / "study.toml")
+    models = tuple(dataclasses.replace(m, name=name) for m, name in zip(config.models, (IMG, ESCAPE)))
+    report = dataclasses.replace(config.report, title=f"Study {SCRIPT}")
+    config = dataclasses.replace(config, models=models, report=report)
+    run = base / "deep" / "er" / "run"
+    results = [run_cohort_stage(config, run), run_models_stage(config, run)]
+    page = build_report(run, title=config.report.title, threshold=10).read_text()
+    return {"base": base, "run": run, "results": results, "page": page}
+
+
+def test_stage_outputs_stay_in_the_run_folder_with_derived_names(hostile_stage_run):
+    base, run = hostile_stage_run["base"], hostile_stage_run["run"]
+    written = [p for p in base.rglob("*") if p.is_file()]
+    outside = [p for p in written if run not in p.parents and p.parent.name != "data" and p.suffix != ".key"
+               and p.name != "study.toml"]
+    assert outside == []
+    for path in run.rglob("*"):
+        if path.is_file():
+            assert re.fullmatch(r"[A-Za-z0-9_]+\.(csv|png|svg|parquet|html|json)", path.name), path
+    assert any(p.name.startswith("coefficients_x_escaped_outside_") for p in (run / "tables").iterdir())
+
+
+def test_stage_outputs_show_hostile_names_as_text(hostile_stage_run, monkeypatch):
+    import IPython.display
+
+    page = hostile_stage_run["page"]
+    assert live_user_markup(page) == [] and "<script" not in page
+    assert "&lt;script&gt;" in page
+    for table in (hostile_stage_run["run"] / "tables").glob("*.csv"):
+        for cell in _cells(table.read_text()):
+            assert not cell.startswith(("=", "+", "-", "@", "\t", "\r")) or _is_float(cell), (table.name, cell)
+    shown = []
+    monkeypatch.setattr(IPython.display, "display", lambda obj: shown.append(obj))
+    for result in hostile_stage_run["results"]:
+        show(result)
+    html = "".join(getattr(obj, "_repr_html_", lambda: "")() or "" for obj in shown)
+    assert "&lt;img src=x onerror=alert(1)&gt;" in html
+    assert live_user_markup(html) == []
