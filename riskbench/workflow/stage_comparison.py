@@ -35,8 +35,8 @@ COMPARISON_METRICS: tuple[str, ...] = ("harrell_c", "uno_c", "auc", "brier", "sc
 
 
 def years_label(days: float) -> str:
-    """``"2y"`` / ``"0.5y"``: a horizon in days as a short file-name label in years."""
-    return f"{days / DAYS_PER_YEAR:g}y"
+    """``"2y"`` / ``"0_5y"``: a horizon in days as a short file-name label in years (letters, digits, ``_``)."""
+    return f"{days / DAYS_PER_YEAR:g}y".replace(".", "_")
 
 
 def risk_matrices(cv: pd.DataFrame, n_rows: int) -> tuple[np.ndarray, dict[str, np.ndarray]]:
