@@ -40,7 +40,11 @@ from numpy.typing import ArrayLike
 __all__ = [
     "ModelInputError",
     "RiskModel",
+    "MISSING_DATA_KEYS",
     "check_covariates",
+    "covariate_values",
+    "describe_rows",
+    "source_variable",
     "check_stack_outcome",
     "check_horizon",
     "cumulative_incidence",
@@ -84,32 +88,104 @@ def prediction_origin(table: pd.DataFrame) -> np.ndarray:
     return np.zeros(len(table))
 
 
-def check_covariates(table: pd.DataFrame, covariates: Sequence[str], *, what: str = "table") -> np.ndarray:
-    """Return the covariate matrix (float, ``(n_rows, p)``), refusing missing columns or missing values.
+#: Configuration keys that decide what happens to a missing covariate value (named in every message about one).
+MISSING_DATA_KEYS = "[missing_data] method (or [[models]] missing_data for one model)"
+
+_DERIVED_PREFIXES = ("log_",)
+_DERIVED_SUFFIXES = ("_slope_per_year", "_staleness_days", "_previous", "_change")
+
+
+def source_variable(column: str) -> str:
+    """The configured variable behind a covariate column (``log_x_change`` -> ``x``), for messages."""
+    name = column
+    for suffix in _DERIVED_SUFFIXES:
+        if name.endswith(suffix) and len(name) > len(suffix):
+            name = name[: -len(suffix)]
+            break
+    for prefix in _DERIVED_PREFIXES:
+        if name.startswith(prefix) and len(name) > len(prefix):
+            name = name[len(prefix):]
+    return name
+
+
+def describe_rows(table: pd.DataFrame, rows: np.ndarray) -> str:
+    """``"41 rows of 38 patients at landmarks 0, 0.5 years"``: the rows of a mask in the user's terms."""
+    from riskbench.time_units import DAYS_PER_YEAR
+
+    rows = np.asarray(rows, dtype=bool)
+    text = f"{int(rows.sum())} row(s)"
+    if "patient_id" in table.columns:
+        text += f" of {int(pd.Series(table['patient_id'].to_numpy()[rows]).nunique())} patient(s)"
+    for column, label in (("landmark", "landmarks"), ("start", "interval starts")):
+        if column in table.columns:
+            times = np.unique(pd.to_numeric(table[column], errors="coerce").to_numpy(dtype=float)[rows])
+            times = times[np.isfinite(times)]
+            shown = ", ".join(f"{t / DAYS_PER_YEAR:.4g}" for t in times[:8]) + (", ..." if len(times) > 8 else "")
+            text += f" at {label} {shown} years"
+            break
+    return text
+
+
+def covariate_values(
+    table: pd.DataFrame, covariates: Sequence[str], *, what: str = "table", allow_missing: bool = False
+) -> np.ndarray:
+    """Return the covariate matrix (float, ``(n_rows, p)``), NaN where a value is missing.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+    covariates : sequence of str
+    what : str
+        How the table is named in messages ("landmark stack", "prediction table", ...).
+    allow_missing : bool
+        Keep missing values as NaN (a missing-data method handles them) instead of refusing them.
 
     Raises
     ------
     ModelInputError
-        If a column is absent, not numeric, or holds NaN/inf; the message names column and first rows.
+        If a column is absent; if a value is non-numeric or infinite (a data problem: the message names the
+        variable's ``range`` and ``transform`` keys); or, unless ``allow_missing``, if a value is missing (the
+        message names the variable, the rows, patients and landmarks affected and the missing-data keys).
     """
-    missing = [c for c in covariates if c not in table.columns]
-    if missing:
+    absent = [c for c in covariates if c not in table.columns]
+    if absent:
         raise ModelInputError(
-            f"{what} lacks covariate column(s) {missing}; it has {list(table.columns)[:20]}. "
-            "Predict from the same covariates the model was fitted on."
+            f"{what} lacks covariate column(s) {absent}; it has {list(table.columns)[:20]}. Check the model's "
+            "covariates ([[models]] covariates) against the columns the cohort stage creates."
         )
     matrix = np.empty((len(table), len(covariates)))
     for j, name in enumerate(covariates):
-        values = pd.to_numeric(table[name], errors="coerce").to_numpy(dtype=float)
-        bad = ~np.isfinite(values)
-        if bad.any():
-            rows = table.index[bad][:5].tolist()
+        raw = table[name]
+        values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+        blank = raw.isna().to_numpy()
+        invalid = ~np.isfinite(values) & ~blank
+        variable = source_variable(name)
+        if invalid.any():
             raise ModelInputError(
-                f"{what} column '{name}' has {int(bad.sum())} missing or non-numeric values (rows {rows}); "
-                "impute them or drop those rows before fitting/predicting"
+                f"{what}: covariate '{name}' holds non-numeric or infinite values in "
+                f"{describe_rows(table, invalid)}; check the source values of '{variable}' and its plausible "
+                f"range and transform ([cohort.variables.{variable}] range, transform)"
+            )
+        if blank.any() and not allow_missing:
+            raise ModelInputError(
+                f"{what}: covariate '{name}' (variable '{variable}') is missing in "
+                f"{describe_rows(table, blank)}; choose how missing values are handled with "
+                f"{MISSING_DATA_KEYS}: 'multiple_imputation', 'complete_cases' or 'missing_indicator' "
+                f"(a longer carry-forward limit, [cohort] max_carry, also leaves fewer values missing)"
             )
         matrix[:, j] = values
     return matrix
+
+
+def check_covariates(table: pd.DataFrame, covariates: Sequence[str], *, what: str = "table") -> np.ndarray:
+    """Return the covariate matrix (float, ``(n_rows, p)``), refusing absent columns or missing values.
+
+    Raises
+    ------
+    ModelInputError
+        See :func:`covariate_values` (with ``allow_missing=False``).
+    """
+    return covariate_values(table, covariates, what=what, allow_missing=False)
 
 
 def check_stack_outcome(stack: pd.DataFrame, required: Sequence[str] = ()) -> tuple[np.ndarray, np.ndarray]:

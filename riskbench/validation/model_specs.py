@@ -6,10 +6,12 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
+from riskbench.models.family_registry import canonical_family
+from riskbench.models.missing_data import MissingDataPlan
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.sources import ValidationTables
 
-FAMILIES: tuple[str, ...] = ("landmark_cox", "cox", "forest")
+FAMILIES: tuple[str, ...] = ("landmark_cox", "time_varying_cox", "forest")  # "cox": old name, accepted
 
 
 @dataclass(frozen=True)
@@ -22,19 +24,26 @@ class ModelSpec:
         Label used in every result table (e.g. ``"clinical"``, ``"imaging + clinical"``).
     covariates : tuple of str
         Covariate column names (cohort-stage names, e.g. ``log_nodule_volume``).
-    family : {"landmark_cox", "cox", "forest"}
+    family : {"landmark_cox", "time_varying_cox", "forest"}  (the old name "cox" is read as "time_varying_cox")
         ``landmark_cox``: :class:`riskbench.models.LandmarkSupermodel` on the landmark stack;
         ``cox``: :class:`riskbench.models.CoxModel` on the counting-process table;
         ``forest``: :class:`riskbench.models.SurvivalForest` on the landmark stack.
     params : mapping
         Extra keyword arguments of the model's constructor. For ``forest``, ``random_state`` is set
         per replicate from the replicate's seed unless given here.
+    missing : MissingDataPlan, str or None
+        How missing covariate values are handled (:mod:`riskbench.models.missing_data`): a plan, a method
+        name (``"multiple_imputation"``, ``"complete_cases"``, ``"missing_indicator"``; default settings), or
+        None for none (a missing value is then an error naming the configuration keys that choose a method).
+        The workflow always passes the configured plan (default multiple imputation). Every fit -- per
+        fold, per bootstrap replicate -- fits its own imputation models on its own training rows.
     """
 
     name: str
     covariates: tuple[str, ...]
     family: str = "landmark_cox"
     params: Mapping[str, Any] = field(default_factory=dict)
+    missing: MissingDataPlan | str | None = None
 
     def __post_init__(self) -> None:
         if not isinstance(self.name, str) or not self.name:
@@ -44,10 +53,15 @@ class ModelSpec:
             raise ValidationInputError(f"ModelSpec '{self.name}': covariates must be non-empty column names; got {self.covariates!r}.")
         if len(set(covs)) != len(covs):
             raise ValidationInputError(f"ModelSpec '{self.name}': covariates repeat a name: {list(covs)}.")
+        object.__setattr__(self, "family", canonical_family(self.family))
         if self.family not in FAMILIES:
             raise ValidationInputError(f"ModelSpec '{self.name}': family must be one of {FAMILIES}; got {self.family!r}.")
         object.__setattr__(self, "covariates", covs)
         object.__setattr__(self, "params", dict(self.params))
+        try:
+            object.__setattr__(self, "missing", MissingDataPlan.coerce(self.missing))
+        except ValueError as exc:
+            raise ValidationInputError(f"ModelSpec '{self.name}': {exc}") from None
 
     def without(self, group: Sequence[str], *, name: str | None = None) -> ModelSpec:
         """This spec with the covariates of ``group`` removed (for leave-one-group-out refits)."""
@@ -57,21 +71,32 @@ class ModelSpec:
         kept = tuple(c for c in self.covariates if c not in set(group))
         if not kept:
             raise ValidationInputError(f"removing {list(group)} leaves ModelSpec '{self.name}' without covariates.")
-        return ModelSpec(name or f"{self.name} without {', '.join(group)}", kept, self.family, self.params)
+        return ModelSpec(name or f"{self.name} without {', '.join(group)}", kept, self.family, self.params,
+                         self.missing)
 
 
 def build_estimator(spec: ModelSpec, *, seed: int | None = None) -> Any:
-    """An unfitted estimator for ``spec`` (``seed`` feeds the forest's ``random_state``)."""
+    """An unfitted estimator for ``spec`` (``seed`` feeds the forest's ``random_state`` and the imputations).
+
+    With a missing-data plan the model is wrapped in :class:`riskbench.models.missing_data.MissingDataModel`.
+    """
     from riskbench import models
+    from riskbench.models.missing_data import MissingDataModel
 
     params = dict(spec.params)
     if spec.family == "landmark_cox":
-        return models.LandmarkSupermodel(spec.covariates, **params)
-    if spec.family == "cox":
-        return models.CoxModel(spec.covariates, **params)
-    if seed is not None:
-        params.setdefault("random_state", seed)
-    return models.SurvivalForest(spec.covariates, **params)
+        estimator = models.LandmarkSupermodel(spec.covariates, **params)
+    elif spec.family == "time_varying_cox":
+        estimator = models.CoxModel(spec.covariates, **params)
+    else:
+        if seed is not None:
+            params.setdefault("random_state", seed)
+        estimator = models.SurvivalForest(spec.covariates, **params)
+    if spec.missing is None:
+        return estimator
+    plan = spec.missing
+    return MissingDataModel(estimator, method=plan.method, imputations=plan.imputations,
+                            max_iterations=plan.max_iterations, random_state=0 if seed is None else int(seed))
 
 
 def fit_spec(spec: ModelSpec, tables: ValidationTables, *, seed: int | None = None) -> Any:
@@ -91,10 +116,10 @@ def fit_spec(spec: ModelSpec, tables: ValidationTables, *, seed: int | None = No
         The fitted model (has ``predict_risk(table, horizon)``).
     """
     estimator = build_estimator(spec, seed=seed)
-    if spec.family == "cox":
+    if spec.family == "time_varying_cox":
         if tables.counting_process is None:
             raise ValidationInputError(
-                f"ModelSpec '{spec.name}' (family 'cox') fits on the counting-process table, but the table "
+                f"ModelSpec '{spec.name}' (family 'time_varying_cox') fits on the counting-process table, but the table "
                 "source has none; build the source with the counting-process table."
             )
         return estimator.fit(tables.counting_process)

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from riskbench.models.missing_data import predicted_rows
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec, fit_spec, prediction_columns
 from riskbench.validation.performance import (
@@ -173,6 +174,12 @@ def evaluate_fitted(
     event = (status == 1).astype(int)
     if risks is None:
         risks = [predict_horizons(model, stack, horizons) for model in models]
+    usable = predicted_rows(risks)  # complete-case models give no risk for incomplete rows: all use the rest
+    if not usable.all():
+        if not usable.any():
+            raise ValidationInputError("no evaluation row has a prediction from every model (complete cases).")
+        time, status, event = time[usable], status[usable], event[usable]
+        risks = [{h: r[usable] for h, r in risk.items()} for risk in risks]
     per_spec = []
     for spec, risk in zip(specs, risks):
         frame = evaluate_risks(time, status, risk, thresholds=thresholds)

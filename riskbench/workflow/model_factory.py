@@ -6,18 +6,40 @@ from typing import Any
 
 import pandas as pd
 
+from riskbench.models.missing_data import MissingDataPlan
 from riskbench.validation.model_specs import ModelSpec, fit_spec
 from riskbench.validation.sources import ValidationTables
 from riskbench.workflow.config import ConfigError, ModelConfig
 
 
-def model_spec(model: ModelConfig) -> ModelSpec:
-    """The :class:`~riskbench.validation.model_specs.ModelSpec` of one ``[[models]]`` entry."""
-    return ModelSpec(model.name, tuple(model.covariates), model.family, dict(model.params))
+def missing_data_plan(model: ModelConfig, analysis_plan: object | None = None) -> MissingDataPlan:
+    """The missing-data plan of one model: ``[[models]] missing_data`` (a method name) overrides the method
+    of ``[missing_data]`` (``analysis_plan``, the configuration's section; default multiple imputation).
+
+    Raises
+    ------
+    ConfigError
+        If a method name or a setting is not accepted (the message names the key).
+    """
+    try:
+        base = MissingDataPlan.coerce(analysis_plan) or MissingDataPlan()
+        override = getattr(model, "missing_data", None)  # read with getattr until the new configuration lands
+        return MissingDataPlan.coerce(override, default=base) if override is not None else base
+    except ValueError as exc:
+        raise ConfigError(f"[[models]] {model.name!r}: {exc}") from None
+
+
+def model_spec(model: ModelConfig, analysis_plan: object | None = None) -> ModelSpec:
+    """The :class:`~riskbench.validation.model_specs.ModelSpec` of one ``[[models]]`` entry.
+
+    ``analysis_plan`` is the configuration's ``[missing_data]`` section (``config.missing_data``).
+    """
+    return ModelSpec(model.name, tuple(model.covariates), model.family, dict(model.params),
+                     missing_data_plan(model, analysis_plan))
 
 
 def fit_model(model: ModelConfig, landmark_stack: pd.DataFrame, counting_process: pd.DataFrame | None,
-              *, seed: int) -> Any:
+              *, seed: int, missing_data: object | None = None) -> Any:
     """Fit one configured model (Cox family on the counting-process rows, others on the landmark stack).
 
     Raises
@@ -25,7 +47,7 @@ def fit_model(model: ModelConfig, landmark_stack: pd.DataFrame, counting_process
     ConfigError
         If the model's covariates are not columns of the tables or its ``params`` are not accepted.
     """
-    table = counting_process if model.family == "cox" else landmark_stack
+    table = counting_process if model.family in ("cox", "time_varying_cox") else landmark_stack
     if table is not None:
         missing = [c for c in model.covariates if c not in table.columns]
         if missing:
@@ -34,6 +56,31 @@ def fit_model(model: ModelConfig, landmark_stack: pd.DataFrame, counting_process
                 f"available: {', '.join(c for c in table.columns if c not in ('patient_id', 'status'))}"
             )
     try:
-        return fit_spec(model_spec(model), ValidationTables(landmark_stack, counting_process), seed=seed)
+        return fit_spec(model_spec(model, missing_data), ValidationTables(landmark_stack, counting_process),
+                        seed=seed)
     except TypeError as exc:
         raise ConfigError(f"[[models]] {model.name!r}: params {dict(model.params)} not accepted: {exc}") from None
+
+
+def missing_data_tables(config: Any, stack: pd.DataFrame) -> dict[str, pd.DataFrame]:
+    """The report's missing-data tables for a configuration, small counts hidden.
+
+    ``missing_data``: per covariate of the configured models and landmark, the share missing and the median
+    staleness of the observed values (:func:`riskbench.report.missing_table.missing_data_table`);
+    ``complete_cases`` (only when a model uses complete cases): the rows each such model drops per landmark.
+    """
+    from riskbench.report.missing_table import complete_case_table, missing_data_table
+
+    threshold = config.report.small_count_threshold
+    covariates = list(dict.fromkeys(c for m in config.models for c in m.covariates))
+    staleness = {}  # a variable's column and its derived columns share the variable's staleness
+    for v in config.cohort.variables:
+        for suffix in ("", "_change", "_slope_per_year", "_previous"):
+            staleness[f"{v.column}{suffix}"] = v.staleness_column
+    tables = {"missing_data": missing_data_table(stack, covariates, staleness, threshold=threshold)}
+    plan = getattr(config, "missing_data", None)  # read with getattr until the new configuration lands
+    complete = {m.name: m.covariates for m in config.models
+                if missing_data_plan(m, plan).method == "complete_cases"}
+    if complete:
+        tables["complete_cases"] = complete_case_table(stack, complete, threshold=threshold)
+    return tables

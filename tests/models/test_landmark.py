@@ -98,7 +98,7 @@ def test_clear_errors(make_stack) -> None:
         LandmarkSupermodel(["x1"]).fit(stack.drop(columns="status"))
     with pytest.raises(ModelInputError, match="needs at least 3 distinct landmarks"):
         LandmarkSupermodel(["x1"]).fit(stack[stack["landmark"] > 0])
-    with pytest.raises(ModelInputError, match="'x2' has 1 missing"):
+    with pytest.raises(ModelInputError, match=r"'x2' .*missing in 1 row.*\[missing_data\] method"):
         LandmarkSupermodel(["x1", "x2"]).fit(stack.assign(x2=stack["x2"].mask(stack.index == 7)))
     stratified = LandmarkSupermodel(["x1"], landmark_effects="none", baseline="stratified").fit(stack)
     with pytest.raises(ModelInputError, match="only at the fitted landmarks"):

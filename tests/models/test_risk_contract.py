@@ -98,7 +98,7 @@ def test_prediction_origin_and_input_errors() -> None:
         prediction_origin(pd.DataFrame({"landmark": [np.nan]}))
     with pytest.raises(ModelInputError, match=r"lacks covariate column\(s\) \['b'\]"):
         check_covariates(pd.DataFrame({"a": [1.0]}), ["a", "b"])
-    with pytest.raises(ModelInputError, match="'a' has 1 missing"):
+    with pytest.raises(ModelInputError, match=r"'a' .* missing in 1 row.*\[missing_data\] method"):
         check_covariates(pd.DataFrame({"a": [1.0, None]}), ["a"])
     with pytest.raises(ModelInputError, match="beyond"):
         check_horizon(800, 730.5)
