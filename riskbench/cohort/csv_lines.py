@@ -106,7 +106,7 @@ def _decode(path: Path, table: str, encoding: str, codec: str) -> tuple[str, byt
         raise CohortInputError(f"{path}: the file is empty; line 1 must be the header with the column names")
     if raw.startswith(b"PAR1"):
         raise CohortInputError(f"{path}: this is a Parquet file, not CSV; give it a .parquet name")
-    wide = codec in _WIDE_ENCODINGS
+    wide = codec.replace("-", "_") in _WIDE_ENCODINGS
     if not wide and _looks_binary(raw[:_SNIFF_BYTES]):
         raise CohortInputError(f"{path}: this is not a text (CSV) file; the {table} source must be a CSV file "
                                "with a header line, or a Parquet file named .parquet")
