@@ -43,7 +43,9 @@ CAUTION = (
     "in the population where they would be used. Any use of real patient data must follow local ethics "
     "approval, data-protection rules and clinical governance; those bodies, not this report, decide what "
     "may be done with it. Patients are shown only under pseudonyms and counts below {threshold} are shown "
-    "as &ldquo;&lt;{threshold}&rdquo;."
+    "as &ldquo;&lt;{threshold}&rdquo;; a count that would give a hidden one away by subtraction is shown as "
+    "&ldquo;suppressed&rdquo;, and counts of the same patients at consecutive landmarks may be rounded to a "
+    "multiple of {threshold} (&ldquo;~60&rdquo;)."
 )
 
 SECTIONS: tuple[Section, ...] = (
