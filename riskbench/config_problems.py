@@ -163,8 +163,8 @@ def schema_problems(error: ValidationError, root: type[BaseModel], data: Any,
                                   f"{', '.join(allowed)}{did_you_mean(key, allowed)}")
         elif err["type"] == "missing":
             if key is None and table:  # a whole table is missing
-                table, key = table[:-1], table[-1]
-                place, model = where(table), None
+                table, model, _ = _split(root, loc[:-1])
+                key, place = loc[-1], where(table)
             field = model.model_fields.get(key) if model is not None else None
             hint = f" ({field.description})" if field is not None and field.description else ""
             found = Problem(f"{place} {key}", f"{place} needs {key!r}{hint}")

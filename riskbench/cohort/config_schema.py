@@ -11,6 +11,7 @@ in ``deprecations`` with the new key to use.
 
 from __future__ import annotations
 
+import codecs
 import dataclasses
 from collections.abc import Mapping
 from pathlib import Path
@@ -19,7 +20,16 @@ from typing import Any, Literal
 from pydantic import Field, ValidationError, field_validator, model_validator
 
 from riskbench.config_problems import Problem, default_where, did_you_mean, problem, schema_problems, show
-from riskbench.config_types import ConfigTable, Duration, Name, PositiveDuration, Text, readable_duration
+from riskbench.config_types import (
+    NAME_RULE,
+    ConfigTable,
+    Duration,
+    Name,
+    PositiveDuration,
+    Text,
+    is_name,
+    readable_duration,
+)
 from riskbench.cohort.errors import SpecError
 from riskbench.time_units import DAYS_PER_YEAR
 
@@ -45,7 +55,18 @@ class TableSection(ConfigTable):
     columns: dict[str, str] = Field(default_factory=dict,
                                     description="a table our_name = \"file's column name\"")
     date_format: str | None = Field(None, description="a strftime format such as \"%d/%m/%Y\"")
-    encoding: Literal[ENCODINGS] | None = None  # type: ignore[valid-type]
+    encoding: str | None = Field(None, description="a text encoding: " + ", ".join(ENCODINGS))
+
+    @field_validator("encoding")
+    @classmethod
+    def _known_encoding(cls, value: str | None) -> str | None:
+        if value is not None:
+            try:
+                codecs.lookup(value)
+            except LookupError:
+                raise ValueError("expected a text encoding such as " + ", ".join(ENCODINGS)
+                                 + did_you_mean(value, ENCODINGS)) from None
+        return value
 
 
 class MeasurementsSection(TableSection):
@@ -83,7 +104,7 @@ class VariableSection(ConfigTable):
 
     unit: str = Field("1", description="the canonical unit, a string such as \"mm3\"")
     conversions: dict[str, float] = Field(default_factory=dict,
-                                          description="a table unit = factor (> 0) to the canonical unit")
+                                          description="a table unit = factor, each a finite number > 0")
     range: Range | None = Field(None, description="[min, max]: two finite numbers, min <= max")
     transform: Literal["none", "log"] = "none"
     change: bool = Field(False, description="true or false")
@@ -107,6 +128,7 @@ class StaticSection(ConfigTable):
     """``[cohort.statics.<name>]``: a declared static covariate (numeric with a range, or categorical)."""
 
     column: str | None = Field(None, description="the patients table's column (default: the static's name)")
+    kind: Literal["numeric", "count", "categorical"] | None = None
     range: Range | None = Field(None, description="[min, max]: two finite numbers, min <= max")
     codes: dict[str, Name] = Field(default_factory=dict,
                                    description="a table source_code = \"level\" (level: a safe name)")
@@ -118,6 +140,9 @@ class StaticSection(ConfigTable):
 
     @model_validator(mode="after")
     def _categorical(self) -> StaticSection:
+        if (self.kind == "categorical") != bool(self.codes) and self.kind is not None:
+            raise ValueError("kind = 'categorical' goes with codes = { source_code = \"level\", ... } and codes with "
+                             "kind = 'categorical'")
         if self.codes and self.range is not None:
             raise ValueError("give either codes (a categorical static) or range (a numeric one), not both")
         levels = sorted(set(self.codes.values()))
@@ -145,14 +170,12 @@ class CohortSection(ConfigTable):
 
 def _cohort_rules(section: CohortSection) -> list[Problem]:
     """Rules across the keys of [cohort]: safe names, known exam variables, no repeated statics."""
-    from riskbench.config_types import NAME_RULE, is_name
 
-    out = [problem("[cohort.variables]", None, n, f"a variable name must be {NAME_RULE}")
-           for n in section.variables if not is_name(n)]
-    out += [problem("[cohort.statics]", None, n, f"a static name must be {NAME_RULE}")
-            for n in section.statics if not is_name(n)]
-    out += [problem("[cohort]", "static", n, f"each static must be {NAME_RULE}")
-            for n in section.static if not is_name(n)]
+    out = [Problem(f"[cohort.variables.{n}]", f"[cohort.variables] the variable name {show(n)} is not allowed: "
+                                              f"expected {NAME_RULE}") for n in section.variables if not is_name(n)]
+    out += [Problem(f"[cohort.statics.{n}]", f"[cohort.statics] the static name {show(n)} is not allowed: "
+                                            f"expected {NAME_RULE}") for n in section.statics if not is_name(n)]
+    out += [problem("[cohort]", "static", n, f"expected {NAME_RULE}") for n in section.static if not is_name(n)]
     if len(set(section.static)) != len(section.static):
         out.append(problem("[cohort]", "static", section.static, "expected distinct names"))
     unknown = [v for v in section.exam_variables if v not in section.variables]
@@ -222,7 +245,7 @@ def _static_spec(name: str, s: StaticSection) -> Any:
     lo, hi = s.range if s.range is not None else (None, None)
     return construct(
         cohort_spec.StaticSpec, name=name, column=s.column,
-        kind="categorical" if s.codes else "numeric", plausible_min=lo, plausible_max=hi,
+        kind=s.kind or ("categorical" if s.codes else "numeric"), plausible_min=lo, plausible_max=hi,
         codes=dict(s.codes), reference=s.reference, label=s.label, unit=s.unit)
 
 

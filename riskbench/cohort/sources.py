@@ -25,9 +25,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from riskbench.cohort import config_checks as cc
 from riskbench.cohort.errors import SpecError
-from riskbench.cohort.spec import TABLES
 
 FILE_FORMATS = ("csv", "parquet")
 
@@ -90,42 +88,6 @@ class SourceSpec:
         Unknown keys and wrong types raise :class:`~riskbench.cohort.errors.SpecError` naming the key,
         the value and what is allowed. A missing file is reported with its resolved path.
         """
-        m = cc.check_keys(mapping, {
-            "date_format": "strftime format shared by the three tables",
-            **{t: f"table describing the {t} source" for t in TABLES},
-        }, "sources")
-        default_format = cc.text(m["date_format"], "date_format", "sources") if "date_format" in m else None
-        missing = [t for t in TABLES if t not in m]
-        if missing:
-            raise SpecError(f"[sources] needs a [sources.{missing[0]}] table with at least path = \"...\"")
-        parsed = {t: _table_source(m[t], t, Path(base_dir), default_format) for t in TABLES}
-        return cls(**parsed)
+        from riskbench.cohort.config_schema import read_sources
 
-
-def _table_source(mapping: Any, table: str, base_dir: Path, default_format: str | None) -> TableSource:
-    where = f"sources.{table}"
-    allowed = {
-        "path": "file path relative to the configuration file",
-        "columns": "table our_name = file_column_name",
-        "date_format": "strftime format, e.g. '%d/%m/%Y'",
-        "encoding": "text encoding of a CSV file: 'utf-8' (default), 'latin-1', 'cp1252', 'utf-16'",
-    }
-    if table == "measurements":
-        allowed["layout"] = "'long' or 'wide'"
-    m = cc.check_keys(mapping, allowed, where)
-    if "path" not in m:
-        raise SpecError(f"[{where}] needs path = \"...\" (CSV or Parquet file)")
-    path = Path(cc.text(m["path"], "path", where))
-    if not path.is_absolute():
-        path = base_dir / path
-    if not path.exists():
-        raise SpecError(f"[{where}] path = {m['path']!r}: file {path} does not exist")
-    source = TableSource(
-        path=path,
-        columns=cc.text_map(m.get("columns", {}), "columns", where),
-        date_format=cc.text(m["date_format"], "date_format", where) if "date_format" in m else default_format,
-        layout=cc.text(m.get("layout", "long"), "layout", where, choices=("long", "wide")),
-        encoding=cc.text(m.get("encoding", "utf-8"), "encoding", where),
-    )
-    source.file_format  # noqa: B018 - raises early for an unknown file type
-    return source
+        return read_sources(mapping, base_dir)

@@ -1,8 +1,8 @@
 """What the cohort stage should build: variables, units, plausible ranges, carry-forward and look-back rules.
 
 A :class:`CohortSpec` is the ``[cohort]`` section of the analysis configuration; ``CohortSpec.from_dict``
-parses it (rejecting unknown keys and wrong types). Durations are days inside the library; the
-configuration may give them in months (1 month = 365.25 / 12 days) as ``<name>_months``.
+parses it with the schema of :mod:`riskbench.cohort.config_schema`. Durations are days inside the library;
+the configuration writes them as texts with a unit (``max_carry = "3 years"``).
 """
 
 from __future__ import annotations
@@ -13,7 +13,6 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from riskbench.cohort import config_checks as cc
 from riskbench.cohort.errors import SpecError
 from riskbench.time_units import DAYS_PER_YEAR
 
@@ -101,43 +100,6 @@ class VariableSpec:
     def factors(self) -> dict[str, float]:
         """Every accepted unit with its factor to the canonical unit (the canonical unit included)."""
         return {self.unit: 1.0, **{u: float(f) for u, f in self.conversions.items()}}
-
-    @classmethod
-    def from_dict(cls, name: str, mapping: Mapping[str, Any]) -> VariableSpec:
-        """Parse one ``[cohort.variables.<name>]`` table."""
-        where = f"cohort.variables.{name}"
-        m = cc.check_keys(mapping, {
-            "unit": "canonical unit, string",
-            "conversions": "table unit = factor to the canonical unit",
-            "range": "[min, max] plausible range in the canonical unit",
-            "transform": "'none' or 'log'",
-            "change": "true/false: add change from the first value",
-            "slope": "true/false: add slope per year over a trailing window",
-            "slope_window_days": "days", "slope_window_months": "months",
-        }, where)
-        conversions = m.get("conversions", {})
-        if not isinstance(conversions, Mapping):
-            raise SpecError(f"[{where}] conversions = {conversions!r} is not allowed: expected a table unit = factor")
-        conv = {str(u): cc.number(f, f"conversions.{u}", where, minimum=0) for u, f in conversions.items()}
-        lo = hi = None
-        if "range" in m:
-            rng = m["range"]
-            if not isinstance(rng, (list, tuple)) or len(rng) != 2:
-                raise SpecError(f"[{where}] range = {rng!r} is not allowed: expected [min, max]")
-            lo, hi = (cc.number(v, "range", where) for v in rng)
-            if lo > hi:
-                raise SpecError(f"[{where}] range = {rng!r} is not allowed: min is above max")
-        return cls(
-            name=name,
-            unit=cc.text(m.get("unit", "1"), "unit", where),
-            conversions=conv,
-            plausible_min=lo,
-            plausible_max=hi,
-            transform=cc.text(m.get("transform", "none"), "transform", where, choices=TRANSFORMS),
-            change=cc.boolean(m.get("change", False), "change", where),
-            slope=cc.boolean(m.get("slope", False), "slope", where),
-            slope_window_days=cc.duration_days(m, "slope_window", where, DAYS_PER_YEAR) or DAYS_PER_YEAR,
-        )
 
 
 @dataclass(frozen=True)
@@ -426,35 +388,14 @@ class CohortSpec:
 
     @classmethod
     def from_dict(cls, mapping: Mapping[str, Any]) -> CohortSpec:
-        """Parse the ``[cohort]`` section of an analysis configuration.
+        """Parse the ``[cohort]`` section of an analysis configuration (schema: :mod:`riskbench.cohort.config_schema`).
 
-        Unknown keys and wrong types raise :class:`~riskbench.cohort.errors.SpecError` naming the key, the
-        value and what is allowed.
+        Every problem (unknown keys, wrong types, values out of range) is reported at once in one
+        :class:`~riskbench.cohort.errors.SpecError`, each naming the key, the value and what is allowed.
         """
-        where = "cohort"
-        m = cc.check_keys(mapping, {
-            "variables": "table of variable tables",
-            "max_carry_days": "days", "max_carry_months": "months",
-            "lookback_days": "days", "lookback_months": "months",
-            "same_day_rule": "'mean', 'last' or 'error'",
-            "static": "list of static covariate names",
-            "exam_variables": "list of variable names whose dates are exams",
-            "current_age": "true/false",
-            "kind_map": "table source kind = outcome|competing|end_of_follow_up",
-        }, where)
-        variables = m.get("variables", {})
-        if not isinstance(variables, Mapping):
-            raise SpecError(f"[cohort] variables = {variables!r} is not allowed: expected a table of tables")
-        return cls(
-            variables=tuple(VariableSpec.from_dict(str(n), v) for n, v in variables.items()),
-            max_carry_days=cc.duration_days(m, "max_carry", where, None),
-            lookback_days=cc.duration_days(m, "lookback", where, 0.0) or 0.0,
-            same_day_rule=cc.text(m.get("same_day_rule", "mean"), "same_day_rule", where, choices=SAME_DAY_RULES),
-            static=cc.text_list(m.get("static", list(cls.static)), "static", where),
-            exam_variables=cc.text_list(m.get("exam_variables", []), "exam_variables", where),
-            current_age=cc.boolean(m.get("current_age", True), "current_age", where),
-            kind_map=cc.text_map(m.get("kind_map", {}), "kind_map", where),
-        )
+        from riskbench.cohort.config_schema import read_cohort
+
+        return read_cohort(mapping)
 
 
 def _with_unit(text: str, unit: str) -> str:

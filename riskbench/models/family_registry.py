@@ -74,6 +74,8 @@ class Param:
 
     def check(self, value: Any) -> str | None:
         """None when ``value`` is allowed, otherwise what is allowed."""
+        if value is None:
+            return None if "none" in self.kinds else self.allowed()
         if isinstance(value, bool):
             ok = "bool" in self.kinds
         elif isinstance(value, int):

@@ -31,12 +31,8 @@ from pathlib import Path
 from typing import Any
 
 from riskbench.config_problems import Problem
+from riskbench.errors import RiskbenchError
 from riskbench.time_units import DAYS_PER_YEAR  # noqa: F401 - re-exported for the stage modules
-
-try:  # the common base of user-facing errors (riskbench.errors) where it exists
-    from riskbench.errors import RiskbenchError
-except ImportError:  # pragma: no cover - before the error hierarchy lands
-    RiskbenchError = ValueError  # type: ignore[misc,assignment]
 
 MODEL_FAMILIES: tuple[str, ...] = ("landmark_cox", "time_varying_cox", "forest")
 

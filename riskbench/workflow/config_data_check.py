@@ -99,7 +99,8 @@ def _column_problems(t: _Table, cohort: Any) -> list[Problem]:
         if t.ours(column) not in t.file_columns:
             out.append(Problem(
                 f"{t.where} columns",
-                f"{t.where} {t.source.path} has no column {t.ours(column)!r} for {column!r}; the file's columns: "
+                f"{t.where} {t.source.path} has no column {t.ours(column)!r}"
+                f"{'' if t.ours(column) == column else f' (mapped to {column!r})'}; the file's columns: "
                 f"{', '.join(t.file_columns)}; map it with columns = {{ {column} = \"<file column>\" }}"
                 f"{did_you_mean(t.ours(column), t.file_columns)}"))
     return out
@@ -190,7 +191,7 @@ def _variable_problems(t: _Table, cohort: Any) -> list[Problem]:
     for v in cohort.variables:
         if v.name in seen:
             continue
-        near = did_you_mean(v.name, seen - {x.name for x in cohort.variables})
+        near = did_you_mean(v.name, seen - {v.name})
         out.append(Problem(f"[cohort.variables.{v.name}]",
                            f"[cohort.variables.{v.name}]: no sampled row of {t.source.path} has variable = "
                            f"{v.name!r}{near}", "error" if near else WARNING))

@@ -30,13 +30,15 @@ def _model_where(config: Any, index: int) -> str:
 def covariate_problems(config: Any) -> list[Problem]:
     """Every model covariate must be a column the cohort stage creates."""
     available = list(config.cohort.covariate_columns)
+    statics = ("[cohort] static lists none: list the static covariates, e.g. static = [\"age_at_entry\"]"
+               if not config.cohort.static else "a patients-table column must be listed in [cohort] static")
     out = []
     for i, m in enumerate(config.models):
         for c in m.covariates:
             if c in available:
                 continue
             hint = ("not a column the cohort stage creates; list them with `riskbench list-covariates "
-                    "CONFIG` (a patients-table column must be listed in [cohort] static)")
+                    f"CONFIG` ({statics})")
             out.append(problem(_model_where(config, i), "covariates", c, hint, choices=available))
     return out
 

@@ -14,8 +14,8 @@ from riskbench.workflow.cli import main
 
 COHORT_TOML = """
 [cohort]
-max_carry_months = 24
-lookback_days = 30
+max_carry = "24 months"
+lookback = "30 days"
 same_day_rule = "last"
 static = ["sex_male", "age_at_entry"]
 exam_variables = ["vol"]
@@ -27,7 +27,7 @@ range = [1, 100000]
 transform = "log"
 change = true
 slope = true
-slope_window_months = 6
+slope_window = "6 months"
 
 [cohort.variables.marker]
 unit = "ng/mL"
@@ -46,15 +46,18 @@ def test_cohort_section_round_trip() -> None:
 
 
 @pytest.mark.parametrize("section, message", [
-    ({"max_carry": 3}, r"unknown key 'max_carry' = 3; allowed keys: variables"),
+    ({"max_carry": 3}, r"\[cohort\] max_carry = 3 is not allowed: expected a duration with a unit in quotes"),
+    ({"max_cary": "3 years"}, r"\[cohort\] has unknown key 'max_cary' = '3 years'; allowed keys: variables.*"
+                              r"\(did you mean 'max_carry'\?\)"),
     ({"same_day_rule": "median"}, r"same_day_rule = 'median' is not allowed: expected one of 'mean', 'last', 'error'"),
-    ({"lookback_days": "90"}, r"lookback_days = '90' is not allowed: expected a number"),
+    ({"lookback": "90"}, r"lookback = '90' is not allowed: expected a duration with a unit"),
     ({"current_age": 1}, r"current_age = 1 is not allowed: expected true or false"),
     ({"variables": {"v": {"transform": "sqrt"}}}, r"\[cohort.variables.v\] transform = 'sqrt' is not allowed"),
-    ({"variables": {"v": {"range": [5, 1]}}}, r"range = \[5, 1\] is not allowed: min is above max"),
-    ({"variables": {"v": {"units": "mm"}}}, r"\[cohort.variables.v\] has unknown key 'units'"),
-    ({"lookback_days": 1, "lookback_months": 1}, r"either lookback_days or lookback_months"),
-    ({"exam_variables": ["ct"]}, r"exam_variables \['ct'\] are not among the variables"),
+    ({"variables": {"v": {"range": [5, 1]}}}, r"range = \[5, 1\] is not allowed: expected \[min, max\] with min <= max"),
+    ({"variables": {"v": {"units": "mm"}}}, r"\[cohort.variables.v\] has unknown key 'units'.*did you mean 'unit'"),
+    ({"lookback_days": 1, "lookback": "1 day"}, r"\[cohort\] has unknown key 'lookback_days'"),
+    ({"exam_variables": ["ct"]}, r"\[cohort\] exam_variables = 'ct' is not allowed: expected names of "
+                                 r"\[cohort.variables.\*\] tables"),
 ])
 def test_cohort_section_errors_name_key_value_and_choices(section, message) -> None:
     with pytest.raises(SpecError, match=message):
@@ -102,15 +105,17 @@ def test_sources_section_wide_layout_column_maps_and_date_format(tmp_path) -> No
 
 
 def test_sources_section_errors(tmp_path) -> None:
-    with pytest.raises(SpecError, match=r"\[sources\] needs a \[sources.patients\] table"):
+    with pytest.raises(SpecError, match=r"\[sources\] needs 'patients' \(a \[sources.patients\] table"):
         SourceSpec.from_dict({}, tmp_path)
-    with pytest.raises(SpecError, match=r"\[sources.patients\] path = 'nope.csv': file .*nope.csv does not exist"):
+    with pytest.raises(SpecError, match=r"\[sources.measurements\] needs 'path' \(a file path"):
         SourceSpec.from_dict({"patients": {"path": "nope.csv"}, "measurements": {}, "outcomes": {}}, tmp_path)
+    with pytest.raises(SpecError, match=r"\[sources.patients\] path = 'nope.csv': file .*nope.csv does not exist"):
+        SourceSpec.from_dict({t: {"path": "nope.csv"} for t in ("patients", "measurements", "outcomes")}, tmp_path)
     (tmp_path / "p.csv").write_text("patient_id\n")
-    with pytest.raises(SpecError, match=r"\[sources.patients\] has unknown key 'layout'"):
+    with pytest.raises(SpecError, match=r"\[sources.patients\] has unknown key 'layout' = 'wide'; allowed keys: path"):
         SourceSpec.from_dict({"patients": {"path": "p.csv", "layout": "wide"}, "measurements": {}, "outcomes": {}},
                              tmp_path)
-    with pytest.raises(SpecError, match=r"\[sources.patients\] columns = 3 is not allowed"):
+    with pytest.raises(SpecError, match=r"\[sources.patients\] columns = 3 is not allowed: expected a table"):
         SourceSpec.from_dict({"patients": {"path": "p.csv", "columns": 3}, "measurements": {}, "outcomes": {}},
                              tmp_path)
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import tomllib
 from pathlib import Path
 
@@ -33,7 +34,11 @@ def _demo_files_exist():
 def test_demo_configuration_matches_the_demo_cohort_spec():
     """The [cohort] table of configs/demo.toml spells out riskbench.demo.cohort_spec.demo_cohort_spec()."""
     config = load_config(DEMO)
-    assert config.cohort == demo_cohort_spec()
+    assert dataclasses.replace(config.cohort, statics=()) == demo_cohort_spec()
+    declared = {s.name: s for s in config.cohort.statics}
+    assert (declared["pack_years"].plausible_min, declared["pack_years"].plausible_max) == (0.0, 300.0)
+    assert declared["sex"].codes == {"M": "male", "F": "female"} and declared["sex"].reference == "female"
+    assert config.cohort.covariate_columns == demo_cohort_spec().covariate_columns
     assert config.landmarks.horizon_days == pytest.approx(2 * DAYS_PER_YEAR)
     assert config.comparison == ("imaging_clinical", "clinical")
     assert config.report.small_count_threshold == 10  # common practice

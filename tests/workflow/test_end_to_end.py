@@ -44,12 +44,12 @@ def demo_slice(folder: Path) -> Path:
 def small_config(folder: Path, data: Path, *, horizon_years: float = 2.0) -> Path:
     """configs/demo.toml reading ``data``, with 3 folds, 2 bootstrap resamples, one process."""
     text = DEMO.read_text().replace("../demo_data/clean/", f"{data}/")
-    text = re.sub(r"(?m)^bootstrap_reps = \d+", "bootstrap_reps = 2", text)
+    text = re.sub(r"(?m)^bootstrap_resamples = \d+", "bootstrap_resamples = 2", text)
     text = re.sub(r"(?m)^folds = \d+", "folds = 3", text)
-    text = re.sub(r"(?m)^n_jobs = \d+", "n_jobs = 1", text)  # worker start-up would cost more than it saves
+    text = re.sub(r"(?m)^workers = \d+", "workers = 1", text)  # worker start-up would cost more than it saves
     if horizon_years != 2.0:
-        text = re.sub(r"(?m)^horizon_years = [\d.]+", f"horizon_years = {horizon_years}", text)
-        text = re.sub(r"(?m)^horizons_years = \[.*\]", f"horizons_years = [1.0, {horizon_years}]", text)
+        text = re.sub(r"(?m)^prediction_window = .*", f'prediction_window = "{horizon_years} years"', text)
+        text = re.sub(r"(?m)^report_horizons = \[.*\]", f'report_horizons = ["1 year", "{horizon_years} years"]', text)
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / "analysis.toml"
     path.write_text(text)
