@@ -249,7 +249,10 @@ def hostile_stage_run(tmp_path_factory):
     config = load_config(base / "study.toml")
     models = tuple(dataclasses.replace(m, name=name) for m, name in zip(config.models, (IMG, ESCAPE)))
     report = dataclasses.replace(config.report, title=f"Study {SCRIPT}")
-    config = dataclasses.replace(config, models=models, report=report)
+    hostile_labels = {"serum_marker": f"=HYPERLINK(\"http://x\") {IMG}", "suspicion_score": "@SUM(A1) $\\frac{1}{0$"}
+    variables = tuple(dataclasses.replace(v, label=hostile_labels.get(v.name, v.label)) for v in config.cohort.variables)
+    cohort = dataclasses.replace(config.cohort, variables=variables)
+    config = dataclasses.replace(config, models=models, report=report, cohort=cohort)
     run = base / "deep" / "er" / "run"
     results = [run_cohort_stage(config, run), run_models_stage(config, run)]
     page = build_report(run, title=config.report.title, threshold=10).read_text()
@@ -274,6 +277,9 @@ def test_stage_outputs_show_hostile_names_as_text(hostile_stage_run, monkeypatch
     page = hostile_stage_run["page"]
     assert live_user_markup(page) == [] and "<script" not in page
     assert "&lt;script&gt;" in page
+    baseline = _cells((hostile_stage_run["run"] / "tables" / "baseline_characteristics.csv").read_text())
+    assert any(c.startswith("'=HYPERLINK") for c in baseline) and any(c.startswith("'@SUM") for c in baseline)
+    assert "=HYPERLINK(&quot;http://x&quot;) &lt;img src=x onerror=alert(1)&gt;" in page  # the label, as text
     for table in (hostile_stage_run["run"] / "tables").glob("*.csv"):
         for cell in _cells(table.read_text()):
             assert not cell.startswith(("=", "+", "-", "@", "\t", "\r")) or _is_float(cell), (table.name, cell)
