@@ -137,7 +137,8 @@ def load_or_create_key(path: str | Path, *, run_dir: str | Path | None = None) -
         raise PseudonymKeyError(
             f"{path}: the pseudonym key file is accessible to others (mode {mode:04o}); "
             f"make it owner-only with: chmod 600 {path}")
-    text = path.read_text(encoding="ascii", errors="replace").strip()
+    with open(path, "rb") as fh:
+        text = fh.read(4096).decode("ascii", errors="replace").strip()  # a key is one short line
     try:
         key = bytes.fromhex(text)
     except ValueError:
