@@ -67,8 +67,8 @@ def problem(where: str, key: str | None, value: Any, allowed: str, *, choices: I
             severity: str = ERROR) -> Problem:
     """A problem ``<where> <key> = <value> is not allowed: <allowed>`` (+ did you mean)."""
     full = f"{where} {key}" if key else where
-    return Problem(full, f"{full} = {show(value)} is not allowed: {allowed}{did_you_mean(value, choices)}",
-                   severity)
+    verdict = "is not allowed" if severity == ERROR else "is doubtful"
+    return Problem(full, f"{full} = {show(value)} {verdict}: {allowed}{did_you_mean(value, choices)}", severity)
 
 
 # --------------------------------------------------------------------------------------------------

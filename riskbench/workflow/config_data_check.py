@@ -38,6 +38,8 @@ REQUIRED = {
     "outcomes": ("patient_id", "date", "kind"),
 }
 KINDS = ("outcome", "competing", "end_of_follow_up")
+#: An unmapped outcome kind on more than this share of the sampled outcome rows is an error, not a warning.
+UNKNOWN_KIND_SHARE = 0.05
 _DAY_FIRST, _MONTH_FIRST = "%d/%m/%Y", "%m/%d/%Y"
 
 
@@ -131,6 +133,72 @@ def _static_problems(t: _Table, cohort: Any) -> list[Problem]:
     return out
 
 
+def _filled(values: pd.Series) -> pd.Series:
+    text = values.astype(str).str.strip()
+    return text[(text != "") & (text.str.lower() != "nan") & (text != "None")]
+
+
+def _share_problem(key: str, text: str, bad: int, total: int) -> list[Problem]:
+    """An error when most sampled values are affected (a wrong setting), a warning when a few are."""
+    if bad == 0:
+        return []
+    return [Problem(key, f"{text}: {bad} of {total} sampled values", "error" if bad > total / 2 else WARNING)]
+
+
+def _static_value_problems(t: _Table, cohort: Any) -> list[Problem]:
+    """Sampled static values against declared codes and plausible ranges (each failure excludes a patient)."""
+    spec_of = getattr(cohort, "static_spec", None)
+    if t.sample is None or not callable(spec_of):
+        return []
+    out = []
+    for name in cohort.static:
+        spec = spec_of(name)
+        column = spec.column or ("sex" if spec.name == "sex" else spec.name)
+        if column not in t.sample.columns or (spec.name == "age_at_entry" and spec.column is None):
+            continue
+        values = _filled(t.sample[column])
+        if values.empty:
+            continue
+        key = f"[cohort.statics.{spec.name}]"
+        if spec.kind == "categorical":
+            declared = {str(c).strip().upper() for c in spec.codes}
+            bad = int((~values.str.upper().isin(declared)).sum())
+            out += _share_problem(f"{key} codes", f"{key} codes = {sorted(spec.codes)}: column {t.ours(column)!r} of "
+                                  f"{t.source.path} has codes outside them (those patients are excluded); declare "
+                                  "every code the file uses", bad, len(values))
+            continue
+        numbers = pd.to_numeric(values, errors="coerce")
+        lo, hi = getattr(spec, "lower_bound", spec.plausible_min), spec.plausible_max
+        outside = numbers.isna() | ((numbers < lo) if lo is not None else False) | (
+            (numbers > hi) if hi is not None else False)
+        bounds = (f"[{lo:g}, {hi:g}]" if lo is not None and hi is not None else f"at least {lo:g}" if lo is not None
+                  else f"at most {hi:g}" if hi is not None else "any number")
+        out += _share_problem(f"{key} range", f"{key} range ({bounds}): column {t.ours(column)!r} of "
+                              f"{t.source.path} has values that are not numbers in this range (those patients are "
+                              "excluded)", int(outside.sum()), len(values))
+    return out
+
+
+def _unit_problems(t: _Table, cohort: Any) -> list[Problem]:
+    """Sampled measurement units against each variable's unit and conversions."""
+    if t.sample is None or "unit" not in t.sample.columns or "variable" not in t.sample.columns:
+        return []
+    out = []
+    names = t.sample["variable"].astype(str).str.strip()
+    units = t.sample["unit"].astype(str).str.strip()
+    for v in cohort.variables:
+        rows = units[(names == v.name) & (units != "") & (units.str.lower() != "nan")]
+        unknown = sorted(set(rows) - set(v.factors))
+        if not unknown:
+            continue
+        key = f"[cohort.variables.{v.name}] conversions"
+        bad = int(rows.isin(unknown).sum())
+        out += _share_problem(key, f"{key}: {len(unknown)} unit(s) of {v.name!r} in {t.source.path} are neither "
+                              f"{v.unit!r} nor converted (those rows are excluded); add unit = factor to conversions"
+                              f"{did_you_mean(unknown[0], v.factors)}", bad, len(rows))
+    return out
+
+
 def _parse(values: pd.Series, fmt: str | None) -> pd.Series:
     return pd.to_datetime(values, format=fmt or "ISO8601", errors="coerce")
 
@@ -138,8 +206,7 @@ def _parse(values: pd.Series, fmt: str | None) -> pd.Series:
 def _date_problems(t: _Table, column: str) -> list[Problem]:
     if t.sample is None or column not in t.sample.columns:
         return []
-    values = t.sample[column].astype(str).str.strip()
-    filled = values[(values != "") & (values.str.lower() != "nan") & (values != "None")]
+    filled = _filled(t.sample[column])
     if filled.empty:
         return []
     fmt = t.source.date_format
@@ -158,6 +225,8 @@ def _date_problems(t: _Table, column: str) -> list[Problem]:
                     "date_format to the one the file uses")
         share = bad.mean()
         severity = "error" if share > 0.01 else WARNING
+        if severity == WARNING:
+            hint = "; those rows are excluded as unparseable dates (the ledger counts them)"
         return [Problem(key, f"{key} is {shown}, but {int(bad.sum())} of {len(filled)} sampled {column!r} values "
                              f"in {t.source.path} do not parse with it (first at line {first_line}){hint}",
                         severity)]
@@ -171,16 +240,21 @@ def _date_problems(t: _Table, column: str) -> list[Problem]:
 
 
 def _kind_problems(t: _Table, cohort: Any) -> list[Problem]:
+    """Outcome kinds neither known nor mapped: an error when they are common (a missing kind_map entry)."""
     if t.sample is None or "kind" not in t.sample.columns:
         return []
     mapped = dict(cohort.kind_map)
-    known = set(KINDS) | set(mapped)
-    kinds = t.sample["kind"].astype(str).str.strip()
-    unknown = sorted({k for k in kinds.unique() if k and k not in known})
-    return [problem("[cohort]", "kind_map", dict(mapped),
-                    f"the outcome kind {k!r} in {t.source.path} is neither {', '.join(KINDS)} nor mapped; add "
-                    f"{k} = \"outcome\" | \"competing\" | \"end_of_follow_up\" to kind_map{did_you_mean(k, KINDS)}")
-            for k in unknown[:5]]
+    kinds = _filled(t.sample["kind"])
+    unknown = kinds[~kinds.isin(set(KINDS) | set(mapped))]
+    out = []
+    for k, n in unknown.value_counts().head(5).items():
+        share = n / max(len(kinds), 1)
+        out.append(problem("[cohort]", "kind_map", mapped,
+                           f"the outcome kind {k!r} ({share:.1%} of the sampled rows of {t.source.path}) is neither "
+                           f"{', '.join(KINDS)} nor mapped, so those rows are excluded; add {k} = \"outcome\" | "
+                           f"\"competing\" | \"end_of_follow_up\" to kind_map{did_you_mean(k, KINDS)}",
+                           severity="error" if share > UNKNOWN_KIND_SHARE else WARNING))
+    return out
 
 
 def _variable_problems(t: _Table, cohort: Any) -> list[Problem]:
@@ -300,6 +374,8 @@ def check_analysis(config: Any) -> list[Problem]:
             problems += _date_problems(tables[name], column)
     problems += _kind_problems(tables["outcomes"], config.cohort)
     problems += _variable_problems(tables["measurements"], config.cohort)
+    problems += _static_value_problems(tables["patients"], config.cohort)
+    problems += _unit_problems(tables["measurements"], config.cohort)
     if any(p.is_error for p in problems):
         return problems
     days = _follow_up_days(tables["patients"], tables["outcomes"])

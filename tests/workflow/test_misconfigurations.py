@@ -226,6 +226,14 @@ def _died(d: dict, folder: Path) -> None:
     d["sources"]["outcomes"]["path"] = "died/outcomes.csv"
 
 
+def _sex_zero_one(d: dict, folder: Path) -> None:
+    (folder / "zero_one").mkdir(exist_ok=True)
+    lines = (folder / "data" / "patients.csv").read_text().splitlines()
+    lines = [lines[0]] + [line.replace(",M,", ",1,").replace(",F,", ",0,") for line in lines[1:]]
+    (folder / "zero_one" / "patients.csv").write_text("\n".join(lines) + "\n")
+    d["sources"]["patients"]["path"] = "zero_one/patients.csv"
+
+
 def _run_folder(d: dict, folder: Path) -> None:
     (folder / "old_run").mkdir(exist_ok=True)
     (folder / "old_run" / "manifest.json").write_text("{}")
@@ -274,6 +282,8 @@ CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
     ("required column missing", _renamed_entry,
      ("[sources.patients]", "no column 'entry_date'", "columns = { entry_date", "did you mean")),
     ("file in another encoding", _latin1, ("[sources.patients] encoding = 'utf-8'", "latin-1")),
+    ("sex coded 0/1 without declared codes", _sex_zero_one,
+     ("[cohort.statics.sex] codes", "column 'sex'", "codes outside them", "40 of 40 sampled values")),
     ("unknown outcome kind", _died, ("[cohort] kind_map", "'died'", "\"competing\"")),
     ("unsafe model name", _model(0, name="x/../../escaped"),
      ("[[models]] #1 (x/../../escaped) name = 'x/../../escaped'", "letters, digits and underscores")),
@@ -394,6 +404,28 @@ def test_landmark_just_before_a_common_visit_day_warns(study):
     assert "'2 months' (60.875 days) falls 0.125 days before day 61" in text
     assert "(182.625 days) falls 0.375 days before day 183" in text
     assert 'write "183 days"' in text
+
+
+def test_rare_data_defects_are_warnings_with_counts(study, tmp_path):
+    """A few unmapped outcome kinds, implausible statics or unknown units: the ledger will exclude them."""
+    data_dir = tmp_path / "rare"
+    write_data(data_dir)
+    outcomes = (data_dir / "outcomes.csv").read_text().splitlines()
+    outcomes[5] = outcomes[5].rsplit(",", 1)[0] + ",transferred"  # 1 of 40 rows (2.5%)
+    (data_dir / "outcomes.csv").write_text("\n".join(outcomes) + "\n")
+    patients = (data_dir / "patients.csv").read_text().splitlines()
+    patients[3] = patients[3].rsplit(",", 1)[0] + ",-4"  # a negative pack-years value
+    (data_dir / "patients.csv").write_text("\n".join(patients) + "\n")
+    with (data_dir / "measurements.csv").open("a") as fh:
+        fh.write(f"Q001,{_entry(1).isoformat()},nodule_volume,0.2,cm³\n")
+    data = base()
+    for table in ("patients", "measurements", "outcomes"):
+        data["sources"][table]["path"] = str(data_dir / f"{table}.csv")
+    config = load_config(write_config(tmp_path, data), check_data=True)
+    text = "\n".join(config.warnings)
+    assert "[cohort] kind_map = {} is doubtful: the outcome kind 'transferred' (2.5% of the sampled rows" in text
+    assert "[cohort.statics.pack_years] range (at least 0): column 'pack_years'" in text and "1 of 40 sampled values" in text
+    assert "[cohort.variables.nodule_volume] conversions: 1 unit(s)" in text and "1 of 201 sampled values" in text
 
 
 def test_the_demo_carry_forward_limit_is_clear_of_its_landmarks():
