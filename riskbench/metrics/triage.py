@@ -17,6 +17,12 @@ from riskbench.metrics.horizon_inputs import single_horizon_inputs
 from riskbench.metrics.inputs import ArrayLike, MetricInputError
 from riskbench.metrics.threshold_groups import split_by_thresholds
 
+
+
+class TargetUnreachable(MetricInputError):
+    """No candidate risk threshold meets the triage target on these data (a result, not a broken input)."""
+
+
 QUANTITIES = ("threshold", "sensitivity", "specificity", "ppv", "npv", "fraction_below")
 _MAX_CANDIDATES = 200
 
@@ -106,7 +112,10 @@ def triage_operating_point(
     chosen = _choose(acc, target_npv, target_sensitivity)
     if chosen < 0:
         what = f"NPV {target_npv}" if target_npv is not None else f"sensitivity {target_sensitivity}"
-        raise MetricInputError(f"no risk threshold reaches {what} at horizon {h:g}; lower the target")
+        reached = np.asarray(acc["npv"] if target_npv is not None else acc["sensitivity"], dtype=float)
+        best = float(reached[np.isfinite(reached)].max()) if np.isfinite(reached).any() else np.nan
+        reach = f"the best candidate reaches {best:.3f}" if np.isfinite(best) else "no candidate spares anyone"
+        raise TargetUnreachable(f"no risk threshold reaches {what} at horizon {h:g} days ({reach}); lower the target")
     estimate = {"threshold": candidates[chosen], **{k: v[chosen] for k, v in acc.items()}}
 
     rng = np.random.default_rng(seed)

@@ -53,8 +53,11 @@ from scipy import linalg, sparse, stats
 
 __all__ = [
     "CoxFit",
+    "CoxCollinearityError",
+    "CoxConstantCovariateError",
     "CoxInputError",
     "CoxConvergenceWarning",
+    "CoxNumericalError",
     "LikelihoodTest",
     "MonotoneLikelihoodWarning",
     "fit_cox",
@@ -64,7 +67,32 @@ _MONOTONE_STD_COEF = 10.0  # |coef| per SD beyond which a hazard ratio of e^10 p
 
 
 class CoxInputError(RiskbenchError):
-    """Bad input to the Cox engine (the message names the column, rows and the fix)."""
+    """Bad input to the Cox engine (the message names the column, rows and the fix).
+
+    ``terms`` names the design columns concerned, when the error is about particular columns, so that a
+    caller can restate the problem in its own terms (a model name, a configuration key).
+    """
+
+    def __init__(self, message: str = "", terms: Sequence[str] = ()) -> None:
+        super().__init__(message)
+        self.terms: tuple[str, ...] = tuple(terms)
+
+
+class CoxConstantCovariateError(CoxInputError):
+    """Some covariates take a single value in the rows fitted (``terms``: those covariates)."""
+
+
+class CoxCollinearityError(CoxInputError):
+    """Some covariates are linear combinations of others (``terms``: the columns of each collinear set)."""
+
+
+class CoxNumericalError(CoxInputError):
+    """The Newton–Raphson iterations broke down (a non-finite information matrix or score).
+
+    This happens when coefficients run off to infinity faster than the step halving can follow (monotone
+    likelihood: a covariate separates the events from the rest of a risk set), typically with few events for
+    the number of coefficients. ``terms``: the coefficients largest at the break-down.
+    """
 
 
 class CoxConvergenceWarning(UserWarning):
@@ -72,7 +100,11 @@ class CoxConvergenceWarning(UserWarning):
 
 
 class MonotoneLikelihoodWarning(UserWarning):
-    """A coefficient runs off to infinity (the likelihood keeps rising along it)."""
+    """A coefficient runs off to infinity (the likelihood keeps rising along it); ``terms`` names them."""
+
+    def __init__(self, message: str = "", terms: Sequence[str] = ()) -> None:
+        super().__init__(message)
+        self.terms: tuple[str, ...] = tuple(terms)
 
 
 @dataclass(frozen=True)
@@ -190,7 +222,8 @@ def _check_collinear(Xs: np.ndarray, names: tuple[str, ...]) -> None:
         return
     gram = (Xs.T @ Xs) / max(Xs.shape[0] - 1, 1)  # correlation matrix of the standardised columns
     keep: list[int] = [0]
-    parts = []
+    parts: list[str] = []
+    redundant: list[str] = []
     for j in range(1, p):
         sol = linalg.lstsq(gram[np.ix_(keep, keep)], gram[keep, j])[0]
         residual = gram[j, j] - gram[keep, j] @ sol  # variance of column j not explained by the kept ones
@@ -199,8 +232,12 @@ def _check_collinear(Xs: np.ndarray, names: tuple[str, ...]) -> None:
             continue
         partners = [names[keep[i]] for i in np.flatnonzero(np.abs(sol) > 1e-6)]
         parts.append(f"'{names[j]}' = linear combination of {partners}")
+        redundant += [names[j], *partners]
     if parts:
-        raise CoxInputError("collinear covariates: " + "; ".join(parts) + ". Drop one column of each collinear set.")
+        raise CoxCollinearityError(
+            "collinear covariates: " + "; ".join(parts) + ". Drop one column of each collinear set.",
+            list(dict.fromkeys(redundant)),
+        )
 
 
 # --------------------------------------------------------------------------- risk-set layout
@@ -514,9 +551,9 @@ def fit_cox(
     scale = inp.x.std(axis=0, ddof=1) if n > 1 else np.zeros(p)
     const = ~(scale > 0)
     if const.any():
-        raise CoxInputError(
-            f"covariates {[inp.names[j] for j in np.flatnonzero(const)]} are constant; drop them "
-            "(they are absorbed by the baseline hazard)."
+        constant = [inp.names[j] for j in np.flatnonzero(const)]
+        raise CoxConstantCovariateError(
+            f"covariates {constant} are constant; drop them (they are absorbed by the baseline hazard).", constant
         )
     Xs = inp.x - center
     Xs /= scale
@@ -525,7 +562,18 @@ def fit_cox(
     L = _layout(inp.start, inp.stop, inp.event, inp.strata_codes, ties)
     Xa, wa = (Xs, inp.weights) if L.active.size == n else (Xs[L.active], inp.weights[L.active])
     pen = float(penalty) * n
-    nr = _newton_raphson(Xa, wa, L, pen, max_iter, tol)
+    try:
+        nr = _newton_raphson(Xa, wa, L, pen, max_iter, tol)
+    except _BreakDown as stop:
+        largest = [inp.names[j] for j in np.argsort(-np.abs(stop.beta))[: min(p, 5)] if abs(stop.beta[j]) > 1.0]
+        raise CoxNumericalError(
+            f"the fit broke down numerically after {stop.n_iter} Newton–Raphson iterations (the information "
+            f"matrix became non-finite): the coefficients of {largest or list(inp.names)} were running off to "
+            f"infinity (monotone likelihood: usually a covariate that separates the events from the rest of their "
+            f"risk sets, with few events for the {p} coefficients). Use fewer covariates, more events, or a ridge "
+            "penalty.",
+            largest or inp.names,
+        ) from None
     _warn_convergence(nr, inp.names, tol)
 
     V_std = _inverse_pd(nr.state.info + pen * np.eye(p))
@@ -644,6 +692,14 @@ class _Newton:
     history: tuple[np.ndarray, ...]
 
 
+class _BreakDown(Exception):
+    """Raised inside the iterations when the information matrix is no longer finite."""
+
+    def __init__(self, beta: np.ndarray, n_iter: int) -> None:
+        super().__init__("non-finite information matrix")
+        self.beta, self.n_iter = beta, n_iter
+
+
 def _newton_raphson(Xa: np.ndarray, wa: np.ndarray, L: _Layout, pen: float, max_iter: int, tol: float) -> _Newton:
     """Maximise ``loglik - pen/2 ‖β‖²`` from β = 0 with step halving.
 
@@ -659,6 +715,8 @@ def _newton_raphson(Xa: np.ndarray, wa: np.ndarray, L: _Layout, pen: float, max_
     converged, n_iter, flat_runs = False, 0, 0
     history = [beta.copy()]
     for n_iter in range(1, max_iter + 1):
+        if not (np.isfinite(state.info).all() and np.isfinite(state.score).all()):
+            raise _BreakDown(beta, n_iter - 1)
         step = _solve_pd(state.info + pen * np.eye(p), state.score - pen * beta)
         for _ in range(40):  # step halving until the objective does not fall
             trial = beta + step
@@ -685,11 +743,11 @@ def _newton_raphson(Xa: np.ndarray, wa: np.ndarray, L: _Layout, pen: float, max_
 def _warn_convergence(nr: _Newton, names: tuple[str, ...], tol: float) -> None:
     running = _running_off(list(nr.history), nr.converged)
     if running:
-        warnings.warn(
-            f"monotone likelihood: coefficient(s) {[names[j] for j in running]} run off to infinity "
+        terms = [names[j] for j in running]
+        warnings.warn(MonotoneLikelihoodWarning(
+            f"monotone likelihood: coefficient(s) {terms} run off to infinity "
             "(an event pattern is perfectly separated by them); their estimates and standard errors are "
-            "meaningless — drop or coarsen them, or use a ridge penalty.",
-            MonotoneLikelihoodWarning,
+            "meaningless — drop or coarsen them, or use a ridge penalty.", terms),
             stacklevel=3,
         )
     elif not nr.converged:

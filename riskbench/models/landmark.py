@@ -38,7 +38,7 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from sklearn.base import BaseEstimator
 
-from riskbench.models.cox_engine import fit_cox
+from riskbench.models.cox_engine import CoxInputError, fit_cox
 from riskbench.models.risk_contract import (
     ModelInputError,
     check_covariates,
@@ -158,6 +158,12 @@ class LandmarkSupermodel(BaseEstimator):
         self.ties = ties
 
     # ------------------------------------------------------------------ design
+    def n_coefficients(self, n_landmarks: int) -> int:
+        """Coefficients per cause-specific model for a stack with ``n_landmarks`` distinct landmarks."""
+        power = min(_EFFECT_POWERS.get(self.landmark_effects, 0), max(n_landmarks - 1, 0))
+        baseline_terms = 0 if self.baseline == "stratified" else min(2, max(n_landmarks - 1, 0))
+        return len(list(self.covariates)) * (1 + power) + baseline_terms
+
     def _check_params(self, n_landmarks: int) -> int:
         if self.landmark_effects not in _EFFECT_POWERS:
             raise ModelInputError(
@@ -231,9 +237,15 @@ class LandmarkSupermodel(BaseEstimator):
     ) -> CauseSpecificFit:
         if event.sum() == 0:
             raise ModelInputError(f"the landmark stack has no {label} (status) rows; nothing to fit")
-        coef, var, robust_var = _fit_cox_arrays(
-            design, time, event, strata=strata, cluster=cluster, ties=self.ties, names=self.design_columns_
-        )
+        try:
+            coef, var, robust_var = _fit_cox_arrays(
+                design, time, event, strata=strata, cluster=cluster, ties=self.ties, names=self.design_columns_
+            )
+        except CoxInputError as exc:
+            # say which cause-specific model failed; callers restate it with the model's name
+            exc.cause = label
+            exc.args = (f"{label} model: {exc.args[0] if exc.args else exc}",)
+            raise
         means = design.mean(axis=0)
         risk_score = np.exp((design - means) @ coef)
         return CauseSpecificFit(

@@ -17,15 +17,17 @@ Intervals are percentile bootstrap intervals (Efron & Tibshirani 1993, ch. 13).
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
 from riskbench.validation.errors import ValidationInputError
-from riskbench.validation.model_specs import ModelSpec
+from riskbench.validation.model_specs import ModelSpec, fit_spec
 from riskbench.validation.paired import Evaluation, check_specs, fit_all, percentile_summary
+from riskbench.validation.sources import ValidationTables
 from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
 from riskbench.validation.performance import METRIC_DIRECTION, check_horizons
 from riskbench.validation.plans import bootstrap_patient_draw
@@ -51,12 +53,47 @@ class Comparison:
         Raw per-replicate values (``replicate`` column), for further summaries or plots.
     n_failed : int
         Replicates dropped because a fit or measure failed on that resample.
+    failures : tuple of (str, str)
+        Why each dropped replicate failed: ``(spec whose fit failed, or "" if the measures failed, error)``.
+    fit_log : tuple of (str, list of FitWarning)
+        Every refit of every replicate: the spec name and the warnings it raised.
     """
 
     performance: pd.DataFrame
     differences: pd.DataFrame
     replicates: pd.DataFrame
     n_failed: int
+    failures: tuple[tuple[str, str], ...] = ()
+    fit_log: tuple[tuple[str, list[FitWarning]], ...] = ()
+
+    @property
+    def fit_warnings(self) -> pd.DataFrame:
+        """Warnings of the refits counted per spec and kind (:func:`~riskbench.models.fit_warnings.count_warnings`)."""
+        return count_warnings(self.fit_log)
+
+
+@dataclass
+class ReplicateLog:
+    """What one replicate's fits reported: each fit's warnings and the spec whose fit failed (if any)."""
+
+    fits: list[tuple[str, list[FitWarning]]] = field(default_factory=list)
+    failed_spec: str | None = None
+
+
+def fit_all_recorded(specs: Sequence[ModelSpec], tables: ValidationTables, seed: int | None,
+                     log: ReplicateLog) -> list[Any]:
+    """:func:`~riskbench.validation.paired.fit_all`, recording each fit's warnings (and a failing spec) in ``log``."""
+    models = []
+    for spec in specs:
+        try:
+            with recorded_warnings() as warned:
+                models.append(fit_spec(spec, tables, seed=seed))
+        except BaseException:
+            log.failed_spec = spec.name
+            raise
+        finally:
+            log.fits.append((spec.name, warned))
+    return models
 
 
 @dataclass(frozen=True)
@@ -70,30 +107,45 @@ def _comparison_replicate(job: _ComparisonJob, index: int, seed: np.random.SeedS
     rng = np.random.default_rng(seed)
     ids = job.source.patient_ids()
     drawn = bootstrap_patient_draw(ids, rng)
+    log = ReplicateLog()
     try:
         fit_tables = draw_tables(job.source, drawn)
-        models = fit_all(job.evaluation.specs, fit_tables, seed_to_int(seed))
+        models = fit_all_recorded(job.evaluation.specs, fit_tables, seed_to_int(seed), log)
         if job.out_of_bag:
             stack = subset_tables(job.source.full_tables(), np.setdiff1d(ids, drawn)).landmark_stack
         else:
             stack = fit_tables.landmark_stack
-        frames = job.evaluation.run(models, stack)
+        with recorded_warnings():  # a poor model on an unlucky resample may warn while being measured
+            frames = job.evaluation.run(models, stack)
     except REPLICATE_ERRORS as exc:
-        return failed_replicate(index, exc)
-    return tagged_replicate(index, *frames)
+        return failed_replicate(index, exc, log)
+    return tagged_replicate(index, *frames, log=log)
 
 
-def failed_replicate(index: int, exc: BaseException) -> tuple:
+def failed_replicate(index: int, exc: BaseException, log: ReplicateLog | None = None) -> tuple:
     """The result of a replicate whose resample could not be fitted or evaluated."""
-    return index, None, None, f"{type(exc).__name__}: {exc}"
+    spec = f"{log.failed_spec}: " if log is not None and log.failed_spec else ""
+    return index, None, None, f"{spec}{type(exc).__name__}: {exc}", log
 
 
-def tagged_replicate(index: int, per_spec: pd.DataFrame, per_pair: pd.DataFrame | None = None) -> tuple:
+def tagged_replicate(index: int, per_spec: pd.DataFrame, per_pair: pd.DataFrame | None = None, *,
+                     log: ReplicateLog | None = None) -> tuple:
     """The result of a successful replicate, its frames tagged with the replicate index."""
     for frame in (per_spec, per_pair):
         if frame is not None:
             frame.insert(0, "replicate", index)
-    return index, per_spec, per_pair, None
+    return index, per_spec, per_pair, None, log
+
+
+def replicate_problems(results: list) -> tuple[tuple[tuple[str, str], ...], tuple]:
+    """Why replicates failed (``(spec or "", error)``) and every refit's ``(spec, warnings)``."""
+    failures = []
+    for r in results:
+        if r[1] is None and r[3]:
+            spec = (r[4].failed_spec or "") if len(r) > 4 and r[4] is not None else ""
+            failures.append((spec, r[3][len(spec) + 2:] if spec else r[3]))
+    fits = tuple(fit for r in results if len(r) > 4 and r[4] is not None for fit in r[4].fits)
+    return tuple(failures), fits
 
 
 def summarise_comparison(
@@ -115,7 +167,9 @@ def summarise_comparison(
         differences = pd.DataFrame(columns=[*pair_keys, "estimate", "ci_low", "ci_high", "n_boot", "better_if"])
         pair_reps = pd.DataFrame()
     replicates = pd.concat([spec_reps, pair_reps], ignore_index=True)
-    return Comparison(performance=performance, differences=differences, replicates=replicates, n_failed=n_failed)
+    failures, fit_log = replicate_problems(results)
+    return Comparison(performance=performance, differences=differences, replicates=replicates, n_failed=n_failed,
+                      failures=failures, fit_log=fit_log)
 
 
 def collect_replicates(results: list) -> tuple[pd.DataFrame, pd.DataFrame, int]:

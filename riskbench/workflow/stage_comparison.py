@@ -4,9 +4,15 @@ the two model sets, and the HTML report.
 Reads ``data/landmark_stack``, ``data/counting_process`` and ``data/cv_predictions``. Writes
 ``tables/auc_by_horizon``, ``tables/discrimination``, ``tables/calibration_summary``,
 ``tables/decision_curve_<h>y``, ``tables/triage_operating_point``, ``tables/model_comparison``
-(CSV), ``figures/auc_curves``, ``figures/calibration_<h>y``, ``figures/decision_curve_<h>y`` (PNG, SVG) and
-``report.html``. The outcome is status 1 and the predictions are cumulative incidences; how each measure
-treats a competing event (2) is set out in :mod:`riskbench.validation.performance`.
+(CSV), ``figures/auc_curves``, ``figures/calibration_<h>y``, ``figures/decision_curve_<h>y`` (PNG, SVG),
+``notes/comparison.json`` and ``report.html``. The outcome is status 1 and the predictions are cumulative
+incidences; how each measure treats a competing event (2) is set out in :mod:`riskbench.validation.performance`.
+
+Every part is optional and none is fatal. Decision curves and triage can be switched off (``[report]
+decision_curves``, ``triage``); a horizon with fewer outcomes before it than the small-count threshold gets
+no AUC, concordance, Brier score or calibration; a part that fails for one model (a triage target no
+threshold reaches, a measure that cannot be computed) becomes a note for that model, and the other models
+and parts are reported. The notes of every stage are shown in the report's "Notes" section.
 """
 
 from __future__ import annotations
@@ -17,17 +23,26 @@ import numpy as np
 import pandas as pd
 
 from riskbench import __version__
+from riskbench.models.missing_data import predicted_rows
 from riskbench.report.auc_plot import auc_curve_figure
 from riskbench.report.html_report import build_report
 from riskbench.report.outputs import load_data, save_figure, save_table
 from riskbench.report.suppression import count_columns, suppress_counts
+from riskbench.metrics.triage import TargetUnreachable
+from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
+from riskbench.report.notes import Note, failed_models, save_notes, switched_off
+from riskbench.time_units import DAYS_PER_YEAR, format_duration
 from riskbench.validation.comparison import Comparison, compare_specs
+from riskbench.validation.errors import ValidationInputError
+from riskbench.validation.parallel import execution_statement
 from riskbench.validation.performance import evaluate_risks, evaluation_time, stack_outcome
 from riskbench.validation.sources import PrecomputedTables
-from riskbench.workflow.config import DAYS_PER_YEAR, AnalysisConfig
+from riskbench.workflow.config import AnalysisConfig
+from riskbench.workflow.fit_diagnosis import count_text
 from riskbench.workflow.model_factory import model_spec
+from riskbench.workflow.stage_models import FIT_ERRORS
 from riskbench.workflow.stage_result import StageResult
-from riskbench.workflow.stage_validation import execution
+from riskbench.workflow.stage_validation import bootstrap_resamples, execution, failure_notes, warning_notes
 
 #: Measures shown in the comparison table (the validation stage computes a few more).
 COMPARISON_METRICS: tuple[str, ...] = ("harrell_c", "uno_c", "auc", "brier", "scaled_brier",
@@ -41,12 +56,12 @@ def years_label(days: float) -> str:
 
 def risk_matrices(cv: pd.DataFrame, n_rows: int) -> tuple[np.ndarray, dict[str, np.ndarray]]:
     """Horizons (days) and, per model, the ``(n_rows, n_horizons)`` out-of-fold risk matrix."""
-    horizons = np.sort(cv["horizon"].unique())
+    horizons = np.sort(cv["horizon"].unique().astype(float))
     out: dict[str, np.ndarray] = {}
     for model, rows in cv.groupby("model", sort=False):
         wide = rows.pivot(index="row", columns="horizon", values="risk").reindex(index=range(n_rows),
                                                                                   columns=horizons)
-        if wide.isna().any().any():
+        if len(set(range(n_rows)) - set(rows["row"])):  # a NaN risk is a complete-case row left unpredicted
             raise ValueError(f"cv_predictions: model {model!r} lacks predictions for some rows; rerun stage 3")
         out[str(model)] = wide.to_numpy(float)
     return horizons, out
@@ -58,7 +73,7 @@ def auc_table(time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
     horizon makes a control."""
     from riskbench.metrics import auc_cumulative_dynamic
 
-    frames = []
+    frames = [pd.DataFrame(columns=["model", "horizon", "auc"])]
     usable = [i for i, h in enumerate(horizons) if ((time <= h) & (status == 1)).any()]
     at = [evaluation_time(float(horizons[i]), time) for i in usable]
     for model, risk in risks.items():
@@ -116,77 +131,67 @@ def comparison_table(comparison: Comparison, reference: str, candidate: str) -> 
     return pd.DataFrame(rows)
 
 
+def outcomes_before(time: np.ndarray, status: np.ndarray, horizon: float) -> int:
+    """Landmark rows with the outcome by ``horizon`` (days), as the horizon's measures see them."""
+    return int(((time <= evaluation_time(horizon, time)) & (status == 1)).sum())
+
+
+class _Notes:
+    """The comparison stage's notes, and a way to attempt one part for one model without stopping the run."""
+
+    def __init__(self) -> None:
+        self.notes: list[Note] = []
+
+    def add(self, part: str, text: str, model: str = "", kind: str = "not computed") -> None:
+        self.notes.append(Note("comparison", part, text, model=model, kind=kind))
+
+    def attempt(self, part: str, model: str, compute, *args, **kwargs):
+        """``compute(*args, **kwargs)``, or None with a note when it fails with a data or numerical error."""
+        try:
+            return compute(*args, **kwargs)
+        except TargetUnreachable as exc:
+            self.add(part, f"not computed: {exc} ([report] triage_target_npv), or switch the part off "
+                     "([report] triage = false).", model)
+        except FIT_ERRORS as exc:
+            self.add(part, f"not computed: {type(exc).__name__}: {exc}", model)
+        return None
+
+
+def _switch(config: AnalysisConfig, name: str) -> bool:
+    """A ``[report]`` switch (on unless the configuration says false)."""
+    return bool(getattr(config.report, name, True))
+
+
 def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
     """Run stage 4 (see the module docstring) and write the report; return what it wrote."""
-    from riskbench import metrics
-    from riskbench.report.calibration_plot import calibration_figure
-    from riskbench.report.decision_curve_plot import decision_curve_figure
-
     run_dir = Path(run_dir)
     threshold = config.report.small_count_threshold
     stack = load_data(run_dir, "landmark_stack")
     cp = load_data(run_dir, "counting_process")
     cv = load_data(run_dir, "cv_predictions")
     time, status = stack_outcome(stack)
-    event = (status == 1).astype(int)  # the one-cause smoothed calibration counts competing events as censored
-    horizons, risks = risk_matrices(cv, len(stack))
     result = StageResult(stage="comparison", run_dir=run_dir)
-
-    auc = auc_table(time, status, horizons, risks)
-    result.tables["auc_by_horizon"] = auc.assign(horizon_years=auc["horizon"] / DAYS_PER_YEAR)
-    result.figures["auc_curves"] = save_figure(auc_curve_figure(auc), run_dir, "auc_curves")
-    result.tables["discrimination"] = discrimination_table(time, status, horizons, risks,
-                                                           config.report.horizons_days)
-
-    # Observed/expected uses status 0/1/2 (observed risk by Aalen-Johansen, comparable with a predicted
-    # cumulative incidence); the smoothed curve, slope and ICI are cause-specific (competing events
-    # censored), as in riskbench.validation.performance. Net benefit and triage use 0/1/2.
-    summaries = []
-    for h in config.report.horizons_days:
-        t_eval = evaluation_time(h, time)
-        for model, risk in risks.items():
-            r = risk[:, _column(horizons, h)]
-            whole = metrics.calibration_at_horizon(time, status, r, t_eval, n_boot=0)
-            cause = metrics.calibration_at_horizon(time, event, r, t_eval, seed=config.validation.seed)
-            name = f"calibration_{model}_{years_label(h)}"
-            result.figures[name] = save_figure(
-                calibration_figure(cause, r, model_name=model, min_group_size=threshold), run_dir, name)
-            summaries.append({"model": model, "horizon_years": h / DAYS_PER_YEAR,
-                              "observed_expected": whole.oe_ratio, "oe_lower": whole.oe_lower,
-                              "oe_upper": whole.oe_upper, "slope": cause.slope, "slope_se": cause.slope_se,
-                              "ici": cause.ici, "e50": cause.e50, "e90": cause.e90})
-    result.tables["calibration_summary"] = pd.DataFrame(summaries)
-
-    main = max(config.report.horizons_days)
-    t_main = evaluation_time(main, time)
-    thresholds = np.round(np.linspace(0.01, config.report.decision_threshold_max, 50), 4)
-    curves = pd.concat([metrics.net_benefit(time, status, r[:, _column(horizons, main)], t_main, thresholds)
-                        .assign(model_name=m) for m, r in risks.items()], ignore_index=True)
-    name = f"decision_curve_{years_label(main)}"
-    result.tables[name] = curves
-    result.figures[name] = save_figure(decision_curve_figure(curves, horizon_days=main), run_dir, name)
-
-    triage = []
-    for m, r in risks.items():
-        op = metrics.triage_operating_point(time, status, r[:, _column(horizons, main)], t_main,
-                                            target_npv=config.report.triage_target_npv,
-                                            n_boot=max(config.validation.bootstrap_reps, 20),
-                                            seed=config.validation.seed)
-        op.insert(0, "model", m)
-        op.insert(1, "horizon_years", main / DAYS_PER_YEAR)
-        triage.append(op)
-    triage_table = pd.concat(triage, ignore_index=True)
-    result.tables["triage_operating_point"] = suppress_counts(triage_table, count_columns(triage_table), threshold)
-
-    candidate, reference = config.comparison
-    specs = [model_spec(config.model(reference)), model_spec(config.model(candidate))]
-    comparison = compare_specs(specs, PrecomputedTables(stack, cp), list(config.report.horizons_days),
-                               n_boot=config.validation.bootstrap_reps, seed=config.validation.seed,
-                               pairs=[(0, 1)], config=execution(config))
-    result.tables["model_comparison"] = comparison_table(comparison, reference, candidate)
-    if comparison.n_failed:
-        result.notes.append(f"{comparison.n_failed} bootstrap resamples failed to fit and were dropped.")
-
+    notes = _Notes()
+    fits: list[tuple[str, list[FitWarning]]] = []
+    with recorded_warnings() as stray:
+        if not _switch(config, "example_timelines"):
+            notes.add("example timelines", "switched off by [report] example_timelines = false.",
+                      kind="switched off")
+        if len(cv):
+            horizons, risks = risk_matrices(cv, len(stack))
+            keep = predicted_rows([risks])  # the rows every model predicts (complete cases leave some out)
+            time, status, risks = time[keep], status[keep], {m: r[keep] for m, r in risks.items()}
+            report_days = _horizons_with_outcomes(config, time, status, threshold, notes)
+            _performance(config, time, status, horizons, risks, report_days, result, notes)
+            _decisions(config, time, status, horizons, risks, report_days, result, notes)
+        else:
+            notes.add("performance", "not computed: no model has cross-validated predictions (see the notes of "
+                      "the models and validation stages).")
+        _comparison(config, stack, cp, cv, result, notes, fits)
+    if stray:
+        fits.append(("(outside the fits)", list(stray)))
+    save_notes(run_dir, "comparison", notes.notes, count_warnings(fits))
+    result.notes.extend(n.sentence() for n in notes.notes)
     for table_name, table in result.tables.items():
         save_table(table, run_dir, table_name)
     build_report(
@@ -194,7 +199,161 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
         facts=[("riskbench", __version__), ("configuration", config.path.name if config.path else "(in memory)"),
                ("seed", str(config.seed)), ("validation seed", str(config.validation.seed)),
                ("landmarks (years)", ", ".join(f"{s:g}" for s in config.landmarks.landmarks_years)),
-               ("horizon (years)", f"{config.landmarks.horizon_years:g}")],
+               ("horizon (years)", f"{config.landmarks.horizon_years:g}"),
+               ("data sent off this machine", execution_statement(config.execution))],
     )
     result.notes.append(f"Report written to {run_dir / 'report.html'}.")
     return result
+
+
+def _horizons_with_outcomes(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, threshold: int,
+                            notes: _Notes) -> tuple[float, ...]:
+    """Report horizons with at least ``threshold`` outcomes before them (a note for the others)."""
+    kept = []
+    for h in config.report.horizons_days:
+        n = outcomes_before(time, status, h)
+        if n >= max(threshold, 1):
+            kept.append(h)
+        else:
+            notes.add(f"measures at {format_duration(h)}",
+                      f"AUC, concordance, Brier score and calibration not computed: {count_text(n, threshold)} "
+                      f"outcomes before {format_duration(h)} after the landmark (at least {threshold}, the "
+                      "small-count threshold, are needed); choose shorter or longer [report] report_horizons.")
+    return tuple(kept)
+
+
+def _performance(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
+                 risks: dict[str, np.ndarray], report_days: tuple[float, ...], result: StageResult,
+                 notes: _Notes) -> None:
+    """AUC curves, discrimination table and calibration (figures and summary) of every model."""
+    from riskbench import metrics
+    from riskbench.report.calibration_plot import calibration_figure
+
+    threshold = config.report.small_count_threshold
+    event = (status == 1).astype(int)  # the one-cause smoothed calibration counts competing events as censored
+    enough = np.array([outcomes_before(time, status, h) >= max(threshold, 1) for h in horizons])
+    if not enough.all() and enough.any():
+        shown = ", ".join(format_duration(h) for h in horizons[~enough])
+        notes.add("time-dependent AUC", f"not shown at {shown}: fewer than {threshold} outcomes before them.")
+    aucs = [notes.attempt("time-dependent AUC", m, auc_table, time, status, horizons[enough], {m: r[:, enough]})
+            for m, r in risks.items()] if enough.any() else []
+    aucs = [a for a in aucs if a is not None and len(a)]
+    if aucs:
+        auc = pd.concat(aucs, ignore_index=True)
+        result.tables["auc_by_horizon"] = auc.assign(horizon_years=auc["horizon"] / DAYS_PER_YEAR)
+        result.figures["auc_curves"] = save_figure(auc_curve_figure(auc), result.run_dir, "auc_curves")
+    if report_days:
+        parts = [notes.attempt("discrimination", m, discrimination_table, time, status, horizons, {m: r},
+                               report_days) for m, r in risks.items()]
+        parts = [p for p in parts if p is not None]
+        if parts:
+            table = parts[0]
+            for other in parts[1:]:
+                table = table.merge(other, on=["horizon_years", "metric"], how="outer", sort=False)
+            result.tables["discrimination"] = table
+
+    # Observed/expected uses status 0/1/2 (observed risk by Aalen-Johansen, comparable with a predicted
+    # cumulative incidence); the smoothed curve, slope and ICI are cause-specific (competing events
+    # censored), as in riskbench.validation.performance. Net benefit and triage use 0/1/2.
+    summaries = []
+    for h in report_days:
+        t_eval = evaluation_time(h, time)
+        for model, risk in risks.items():
+            r = risk[:, _column(horizons, h)]
+            whole = notes.attempt(f"calibration at {format_duration(h)}", model, metrics.calibration_at_horizon,
+                                  time, status, r, t_eval, n_boot=0)
+            cause = notes.attempt(f"calibration at {format_duration(h)}", model, metrics.calibration_at_horizon,
+                                  time, event, r, t_eval, seed=config.validation.seed)
+            if whole is None or cause is None:
+                continue
+            name = f"calibration_{model}_{years_label(h)}"
+            result.figures[name] = save_figure(
+                calibration_figure(cause, r, model_name=model, min_group_size=threshold), result.run_dir,
+                name)
+            summaries.append({"model": model, "horizon_years": h / DAYS_PER_YEAR,
+                              "observed_expected": whole.oe_ratio, "oe_lower": whole.oe_lower,
+                              "oe_upper": whole.oe_upper, "slope": cause.slope, "slope_se": cause.slope_se,
+                              "ici": cause.ici, "e50": cause.e50, "e90": cause.e90})
+    if summaries:
+        result.tables["calibration_summary"] = pd.DataFrame(summaries)
+
+
+def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
+               risks: dict[str, np.ndarray], report_days: tuple[float, ...], result: StageResult,
+               notes: _Notes) -> None:
+    """Decision curves and the triage operating point at the longest report horizon with enough outcomes."""
+    from riskbench import metrics
+    from riskbench.report.decision_curve_plot import decision_curve_figure
+
+    threshold = config.report.small_count_threshold
+    wanted = {"decision curves": _switch(config, "decision_curves"), "triage operating point": _switch(config, "triage")}
+    keys = {"decision curves": "[report] decision_curves", "triage operating point": "[report] triage"}
+    for part, on in wanted.items():
+        if not on:
+            notes.notes.append(switched_off("comparison", part, keys[part]))
+        elif not report_days:
+            notes.add(part, "not computed: no report horizon has enough outcomes before it (see the notes above).")
+    if not report_days:
+        return
+    main = max(report_days)
+    t_main = evaluation_time(main, time)
+    column = _column(horizons, main)
+    if wanted["decision curves"]:
+        thresholds = np.round(np.linspace(0.01, config.report.decision_threshold_max, 50), 4)
+        curves = [notes.attempt("decision curves", m, metrics.net_benefit, time, status, r[:, column], t_main,
+                                thresholds) for m, r in risks.items()]
+        curves = [c.assign(model_name=m) for c, m in zip(curves, risks) if c is not None]
+        if curves:
+            table = pd.concat(curves, ignore_index=True)
+            name = f"decision_curve_{years_label(main)}"
+            result.tables[name] = table
+            result.figures[name] = save_figure(decision_curve_figure(table, horizon_days=main), result.run_dir, name)
+    if wanted["triage operating point"]:
+        triage = []
+        for m, r in risks.items():
+            op = notes.attempt("triage operating point", m, metrics.triage_operating_point, time, status,
+                               r[:, column], t_main, target_npv=config.report.triage_target_npv,
+                               n_boot=max(bootstrap_resamples(config), 20), seed=config.validation.seed)
+            if op is not None:
+                op.insert(0, "model", m)
+                op.insert(1, "horizon_years", main / DAYS_PER_YEAR)
+                triage.append(op)
+        if triage:
+            table = pd.concat(triage, ignore_index=True)
+            result.tables["triage_operating_point"] = suppress_counts(table, count_columns(table), threshold)
+
+
+def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, cv: pd.DataFrame,
+                result: StageResult, notes: _Notes, fits: list) -> None:
+    """The paired bootstrap comparison of the candidate against the reference (or a note why not)."""
+    part = "comparison of the model sets"
+    pair = getattr(config, "comparison", None)
+    if not pair or None in tuple(pair):
+        notes.add(part, "not computed: no candidate and reference models are configured "
+                  "([validation] candidate, reference).", kind="switched off")
+        return
+    candidate, reference = pair
+    n_boot = bootstrap_resamples(config)
+    if n_boot < 2:
+        notes.add(part, f"not computed: it needs at least 2 bootstrap resamples ([validation] bootstrap_resamples "
+                  f"= {n_boot}).", kind="switched off")
+        return
+    failed = failed_models(result.run_dir)
+    absent = [m for m in (reference, candidate) if m in failed or m not in set(cv["model"])]
+    if absent:
+        notes.add(part, f"not computed: model(s) {', '.join(repr(m) for m in absent)} could not be fitted "
+                  "(see the notes above).")
+        return
+    specs = [model_spec(config.model(reference), config.missing_data),
+             model_spec(config.model(candidate), config.missing_data)]
+    try:
+        comparison = compare_specs(specs, PrecomputedTables(stack, cp), list(config.report.horizons_days),
+                                   n_boot=n_boot, seed=config.validation.seed, pairs=[(0, 1)],
+                                   config=execution(config))
+    except ValidationInputError as exc:  # every resample failed; the message gives the first reasons
+        notes.add(part, f"not computed: {exc}")
+        return
+    result.tables["model_comparison"] = comparison_table(comparison, reference, candidate)
+    fits += comparison.fit_log
+    notes.notes.extend(failure_notes(comparison.failures, n_boot, "comparison", part))
+    notes.notes.extend(warning_notes(comparison.fit_warnings, "comparison", part, n_boot))

@@ -4,10 +4,16 @@ Writes ``tables/coefficients_<model>.csv`` (terms with hazard ratios and 95% int
 have coefficients), ``figures/hazard_ratios`` (forest plot of the outcome hazard ratios), and
 ``data/apparent_predictions.parquet`` (``row, model, horizon, risk``: each landmark-stack row's predicted
 risk at every evaluation horizon, horizons in days).
+
+A model that cannot be fitted on the whole cohort (too few outcomes for its coefficients, separation,
+collinear covariates) does not stop the run: it is left out of this and the later stages, and
+``notes/models.json`` says why in the user's terms (:mod:`riskbench.workflow.fit_diagnosis`); the other
+models carry on. Warnings raised while fitting are recorded and counted per model (not printed).
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -15,13 +21,19 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
+from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
+from riskbench.models.missing_data import rows_without_prediction
 from riskbench.models.risk_contract import risk_curve
+from riskbench.report.notes import Note, save_notes
 from riskbench.report.outputs import load_data, save_data, save_figure, save_table
-from riskbench.workflow.config import AnalysisConfig
+from riskbench.workflow.config import AnalysisConfig, ConfigError
+from riskbench.workflow.fit_diagnosis import describe_fit_failure, describe_warnings
 from riskbench.workflow.model_factory import fit_model
 from riskbench.workflow.stage_result import StageResult
 
-DAYS_PER_YEAR = 365.25
+#: Errors that make one model's fit (or prediction) fail without stopping the run. A ConfigError is not
+#: among them: a configuration mistake stops the run with its own message.
+FIT_ERRORS: tuple[type[BaseException], ...] = (ValueError, ArithmeticError)
 
 
 def evaluation_horizons(config: AnalysisConfig, n_grid: int = 8) -> np.ndarray:
@@ -33,8 +45,19 @@ def evaluation_horizons(config: AnalysisConfig, n_grid: int = 8) -> np.ndarray:
 
 def predictions_long(model: Any, stack: pd.DataFrame, name: str, horizons: np.ndarray,
                      rows: np.ndarray | None = None) -> pd.DataFrame:
-    """Risks of ``model`` for the stack rows at each horizon, as ``row, model, horizon, risk``."""
+    """Risks of ``model`` for the stack rows at each horizon, as ``row, model, horizon, risk``.
+
+    Raises
+    ------
+    FloatingPointError
+        When a predicted risk is not a finite number (a fit whose coefficients ran off to infinity).
+    """
     curve = np.asarray(risk_curve(model, stack, horizons), dtype=float)
+    bad = ~np.isfinite(curve) & ~rows_without_prediction(model, stack)[:, None]  # complete cases: NaN by design
+    if bad.any():
+        raise FloatingPointError(
+            f"{int(bad.any(axis=1).sum())} of {len(stack)} predicted risks are not finite numbers "
+            "(overflow: some coefficients are extreme)")
     rows = np.arange(len(stack)) if rows is None else rows
     return pd.DataFrame({
         "row": np.repeat(rows, len(horizons)),
@@ -42,6 +65,40 @@ def predictions_long(model: Any, stack: pd.DataFrame, name: str, horizons: np.nd
         "horizon": np.tile(horizons, len(stack)),
         "risk": curve.reshape(-1),
     })
+
+
+@dataclass
+class RecordedFit:
+    """One model's fit (and predictions) with its warnings, or the reason it failed in the user's terms."""
+
+    model: Any = None
+    predictions: pd.DataFrame | None = None
+    warnings: list[FitWarning] = field(default_factory=list)
+    failure: str | None = None
+
+
+def fit_recorded(spec: Any, fit_stack: pd.DataFrame, fit_cp: pd.DataFrame | None, *, seed: int,
+                 threshold: int, horizons: np.ndarray, predict_stack: pd.DataFrame,
+                 predict_rows: np.ndarray | None = None, where: str = "on the whole cohort",
+                 missing_data: Any = None) -> RecordedFit:
+    """Fit one configured model and predict ``predict_stack``, recording warnings and catching failures.
+
+    A fit or prediction that fails with a numerical or data error gives ``failure`` (a sentence naming the
+    likely cause with the counts, see :func:`riskbench.workflow.fit_diagnosis.describe_fit_failure`);
+    a :class:`~riskbench.workflow.config.ConfigError` propagates.
+    """
+    out = RecordedFit()
+    with recorded_warnings() as log:
+        try:
+            out.model = fit_model(spec, fit_stack, fit_cp, seed=seed, missing_data=missing_data)
+            out.predictions = predictions_long(out.model, predict_stack, spec.name, horizons, predict_rows)
+        except ConfigError:
+            raise
+        except FIT_ERRORS as exc:
+            out.model, out.predictions = None, None
+            out.failure = describe_fit_failure(spec, exc, fit_stack, fit_cp, threshold=threshold, where=where)
+    out.warnings = log
+    return out
 
 
 def outcome_hazard_ratios(summary: pd.DataFrame) -> pd.DataFrame:
@@ -66,30 +123,65 @@ def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, t
     return forest(main, title="Outcome hazard ratios (landmark models: at entry)")
 
 
+def _finite_ratios(table: pd.DataFrame) -> bool:
+    columns = [c for c in ("hazard_ratio", "hr_lower_95", "hr_upper_95") if c in table.columns]
+    values = table[columns].to_numpy(float)
+    return bool(np.isfinite(values).all() and (values > 0).all())
+
+
 def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
     """Run stage 2 (see the module docstring); return what it wrote."""
     run_dir = Path(run_dir)
     tables = {"counting_process": load_data(run_dir, "counting_process"),
               "landmark_stack": load_data(run_dir, "landmark_stack")}
-    stack = tables["landmark_stack"]
+    stack, cp = tables["landmark_stack"], tables["counting_process"]
+    threshold = config.report.small_count_threshold
     horizons = evaluation_horizons(config)
     result = StageResult(stage="models", run_dir=run_dir)
+    notes: list[Note] = []
     predictions = []
+    per_fit: list[tuple[str, list[FitWarning]]] = []
     hazard_ratios: dict[str, pd.DataFrame] = {}
-    for spec in config.models:
-        model = fit_model(spec, stack, tables["counting_process"], seed=config.seed)
-        predictions.append(predictions_long(model, stack, spec.name, horizons))
-        if hasattr(model, "summary"):
-            coefficients = outcome_hazard_ratios(model.summary())
-            result.tables[f"coefficients_{spec.name}"] = coefficients
-            hazard_ratios[spec.name] = coefficients
-        else:
-            result.notes.append(f"Model {spec.name!r} ({spec.family}) has no coefficients to show.")
-    save_data(pd.concat(predictions, ignore_index=True), run_dir, "apparent_predictions")
-    if hazard_ratios:
-        covariates = {m.name: m.covariates for m in config.models}
-        result.figures["hazard_ratios"] = save_figure(hazard_ratio_figure(hazard_ratios, covariates), run_dir,
-                                                      "hazard_ratios")
+    with recorded_warnings() as stray:
+        for spec in config.models:
+            fit = fit_recorded(spec, stack, cp, seed=config.seed, missing_data=config.missing_data,
+                               threshold=threshold, horizons=horizons,
+                               predict_stack=stack)
+            if fit.failure is not None:
+                notes.append(Note("models", "fit", fit.failure + " The model is left out "
+                                  "of the rest of the report.", model=spec.name, kind="fit failed"))
+                per_fit.append((spec.name, fit.warnings))
+                continue
+            predictions.append(fit.predictions)
+            if hasattr(fit.model, "summary"):
+                with recorded_warnings() as summary_log:
+                    coefficients = outcome_hazard_ratios(fit.model.summary())
+                fit.warnings.extend(summary_log)
+                result.tables[f"coefficients_{spec.name}"] = coefficients
+                if _finite_ratios(coefficients):
+                    hazard_ratios[spec.name] = coefficients
+                else:
+                    notes.append(Note("models", "hazard-ratio figure", "left out of the figure: some hazard "
+                                      "ratios or intervals are not finite (see its coefficient table).",
+                                      model=spec.name))
+            else:
+                result.notes.append(f"Model {spec.name!r} ({spec.family}) has no coefficients to show.")
+            said = describe_warnings(spec, fit.warnings, stack, cp, threshold=threshold)
+            if said:
+                notes.append(Note("models", "fit on the whole cohort", said, model=spec.name,
+                                  kind="fitting warnings"))
+            per_fit.append((spec.name, fit.warnings))
+        columns = ["row", "model", "horizon", "risk"]
+        save_data(pd.concat(predictions, ignore_index=True) if predictions else pd.DataFrame(columns=columns),
+                  run_dir, "apparent_predictions")
+        if hazard_ratios:
+            covariates = {m.name: m.covariates for m in config.models}
+            result.figures["hazard_ratios"] = save_figure(hazard_ratio_figure(hazard_ratios, covariates), run_dir,
+                                                          "hazard_ratios")
+    if stray:
+        per_fit.append(("(outside the fits)", list(stray)))
+    save_notes(run_dir, "models", notes, count_warnings(per_fit))
+    result.notes.extend(n.sentence() for n in notes)
     for name, table in result.tables.items():
         save_table(table, run_dir, name)
     return result

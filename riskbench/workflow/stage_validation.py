@@ -2,59 +2,138 @@
 
 Writes ``data/cv_predictions.parquet`` (``row, model, horizon, risk, fold``: every landmark-stack row
 predicted by the models fitted without its patient) and the bootstrap-optimism table
-``tables/bootstrap_optimism.csv`` when the plan asks for bootstrap replicates.
+``tables/bootstrap_optimism.csv`` when the plan asks for it (``[validation] optimism`` and
+``bootstrap_resamples`` > 0).
+
+Nothing here stops the run for a model that cannot be fitted: a model whose whole-cohort fit failed in
+stage 2 is skipped; a model whose fit fails in a cross-validation fold gets no cross-validated predictions
+(so no performance in the report); a bootstrap resample whose refit fails is dropped and counted. Each
+case, and the fitting warnings of every fold and resample per model, is saved in ``notes/validation.json``.
 """
 
 from __future__ import annotations
 
+from collections import Counter
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
+from riskbench.report.notes import Note, failed_models, save_notes, switched_off
 from riskbench.report.outputs import load_data, save_data, save_table
-from riskbench.validation.optimism import bootstrap_optimism
+from riskbench.time_units import DAYS_PER_YEAR
+from riskbench.validation.errors import ValidationInputError
+from riskbench.validation.optimism import bootstrap_optimism_result
 from riskbench.validation.parallel import ExecutionConfig, run_replicates
 from riskbench.validation.plans import patient_folds
-from riskbench.workflow.config import AnalysisConfig
 from riskbench.validation.sources import PrecomputedTables
-from riskbench.workflow.model_factory import fit_model, model_spec
-from riskbench.workflow.stage_models import evaluation_horizons, predictions_long
+from riskbench.workflow.config import AnalysisConfig
+from riskbench.workflow.model_factory import model_spec
+from riskbench.workflow.stage_models import evaluation_horizons, fit_recorded
 from riskbench.workflow.stage_result import StageResult
+
+CV_COLUMNS = ["row", "model", "horizon", "risk", "fold"]
 
 
 def execution(config: AnalysisConfig) -> ExecutionConfig:
     """Where resampling replicates run (local processes or the configured Dask scheduler)."""
-    return ExecutionConfig(n_jobs=config.validation.n_jobs, scheduler_address=config.validation.dask_address,
-                           progress=False)
+    return ExecutionConfig.from_plan(config.execution, progress=False)  # [execution]: workers, scheduler, TLS
 
 
-def _fold_predictions(shared: dict[str, Any], i: int, _seed: np.random.SeedSequence) -> pd.DataFrame:
-    """Fit every model without fold ``i``'s patients and predict that fold's landmark rows."""
+def bootstrap_resamples(config: AnalysisConfig) -> int:
+    """``[validation] bootstrap_resamples`` (read through the old name until the new schema is in)."""
+    plan = config.validation
+    return int(getattr(plan, "bootstrap_resamples", getattr(plan, "bootstrap_reps", 0)))
+
+
+def fitted_models(config: AnalysisConfig, run_dir: Path) -> list[Any]:
+    """The ``[[models]]`` entries whose whole-cohort fit succeeded in stage 2."""
+    failed = failed_models(run_dir)
+    return [m for m in config.models if m.name not in failed]
+
+
+def _fold_predictions(shared: dict[str, Any], i: int, _seed: np.random.SeedSequence) -> dict[str, Any]:
+    """Fit every model without fold ``i``'s patients and predict that fold's landmark rows.
+
+    Returns ``{"frame": predictions, "failures": {model: reason}, "fits": [(model, warnings)]}``.
+    """
     split = shared["splits"][i]
     stack: pd.DataFrame = shared["tables"]["landmark_stack"]
     held_out = np.flatnonzero(stack["patient_id"].isin(split.eval_ids).to_numpy())
     cp: pd.DataFrame = shared["tables"]["counting_process"]
     fit_stack = stack[stack["patient_id"].isin(split.fit_ids)]
     fit_cp = cp[cp["patient_id"].isin(split.fit_ids)]
-    frames = []
+    frames, failures, fits = [], {}, []
     for spec in shared["models"]:
-        model = fit_model(spec, fit_stack, fit_cp, seed=shared["seed"])
-        frames.append(predictions_long(model, stack.iloc[held_out], spec.name, shared["horizons"], held_out))
-    return pd.concat(frames, ignore_index=True).assign(fold=i + 1)
+        fit = fit_recorded(spec, fit_stack, fit_cp, seed=shared["seed"], threshold=shared["threshold"],
+                           missing_data=shared["missing_data"],
+                           horizons=shared["horizons"], predict_stack=stack.iloc[held_out], predict_rows=held_out,
+                           where=f"in cross-validation fold {i + 1} (without that fold's patients)")
+        fits.append((spec.name, fit.warnings))
+        if fit.failure is not None:
+            failures[spec.name] = fit.failure
+        else:
+            frames.append(fit.predictions)
+    frame = pd.concat(frames, ignore_index=True).assign(fold=i + 1) if frames else pd.DataFrame(columns=CV_COLUMNS)
+    return {"frame": frame, "failures": failures, "fits": fits}
 
 
-def cross_validated_predictions(config: AnalysisConfig, tables: dict[str, pd.DataFrame]) -> pd.DataFrame:
-    """Out-of-fold risks of every model for every landmark-stack row at the evaluation horizons."""
+def cross_validated_predictions(config: AnalysisConfig, tables: dict[str, pd.DataFrame],
+                                models: list[Any] | None = None) -> tuple[pd.DataFrame, list[Note], list]:
+    """Out-of-fold risks at the evaluation horizons, notes on models that failed in a fold, and fold fits.
+
+    A model whose fit fails in any fold is left out of the predictions (a performance estimate from some
+    folds only would not describe the model fitted on every patient).
+
+    Returns
+    -------
+    (DataFrame, list of Note, list of (model, warnings))
+    """
+    models = list(config.models) if models is None else models
     stack = tables["landmark_stack"]
     splits = patient_folds(stack["patient_id"].to_numpy(), stack["status"].to_numpy(),
                            config.validation.folds, config.validation.seed)
-    shared = {"splits": splits, "tables": tables, "models": config.models, "seed": config.seed,
-              "horizons": evaluation_horizons(config)}
+    shared = {"splits": splits, "tables": tables, "models": models, "seed": config.seed,
+              "horizons": evaluation_horizons(config), "threshold": config.report.small_count_threshold,
+              "missing_data": config.missing_data}
     parts = run_replicates(_fold_predictions, shared, config.validation.seed, len(splits), execution(config),
                            description="cross-validation folds")
-    return pd.concat(parts, ignore_index=True).sort_values(["model", "row", "horizon"], ignore_index=True)
+    failed: dict[str, list[str]] = {}
+    for part in parts:
+        for name, reason in part["failures"].items():
+            failed.setdefault(name, []).append(reason)
+    notes = [Note("validation", "cross-validation",
+                  f"the fit failed in {len(reasons)} of {len(splits)} folds, so the model has no cross-validated "
+                  f"predictions and no performance in the report. First failure: {reasons[0]}",
+                  model=name, kind="fit failed")
+             for name, reasons in failed.items()]
+    frames = [p["frame"] for p in parts if len(p["frame"])]
+    cv = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=CV_COLUMNS)
+    cv = cv[~cv["model"].isin(failed)]
+    cv = cv.sort_values(["model", "row", "horizon"], ignore_index=True)
+    return cv, notes, [fit for p in parts for fit in p["fits"]]
+
+
+def failure_notes(failures: tuple[tuple[str, str], ...], n_total: int, stage: str, part: str) -> list[Note]:
+    """One note per model: how many of ``n_total`` resamples its refit made fail (by error), and the first reason.
+
+    ``failures`` as in :attr:`riskbench.validation.comparison.Comparison.failures` (model "" = the measures
+    failed after every refit succeeded).
+    """
+    by_model: dict[str, list[str]] = {}
+    for model, reason in failures:
+        by_model.setdefault(model, []).append(reason)
+    notes = []
+    for model, reasons in by_model.items():
+        kinds = Counter(r.split(":")[0] for r in reasons)
+        listed = ", ".join(f"{k} ×{n}" for k, n in kinds.most_common())
+        what = "could not be refitted" if model else "could not be measured"
+        notes.append(Note(stage, part, f"{len(reasons)} of {n_total} bootstrap resamples {what} and were dropped "
+                          f"({listed}); the estimates and intervals use the others. First reason: {reasons[0][:400]}",
+                          model=model, kind="resamples dropped"))
+    return notes
 
 
 def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
@@ -63,26 +142,66 @@ def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     tables = {"counting_process": load_data(run_dir, "counting_process"),
               "landmark_stack": load_data(run_dir, "landmark_stack")}
     result = StageResult(stage="validation", run_dir=run_dir)
-    cv = cross_validated_predictions(config, tables)
-    save_data(cv, run_dir, "cv_predictions")
-    result.notes.append(
-        f"{config.validation.folds}-fold cross-validation grouped by patient (seed {config.validation.seed}): "
-        f"{cv['row'].nunique()} landmark rows predicted by models fitted without their patient."
-    )
-    if config.validation.bootstrap_reps > 0:
-        optimism = bootstrap_optimism(
-            [model_spec(m) for m in config.models],
-            PrecomputedTables(tables["landmark_stack"], tables["counting_process"]),
-            list(config.report.horizons_days), n_boot=config.validation.bootstrap_reps,
-            seed=config.validation.seed, config=execution(config))
-        optimism = optimism.rename(columns={"spec": "model"})
-        optimism.insert(2, "horizon_years", optimism.pop("horizon_days") / 365.25)
-        result.tables["bootstrap_optimism"] = optimism.dropna(axis="columns", how="all")
+    models = fitted_models(config, run_dir)
+    notes: list[Note] = []
+    fits: list[tuple[str, list[FitWarning]]] = []
+    with recorded_warnings() as stray:
+        cv, cv_notes, cv_fits = cross_validated_predictions(config, tables, models)
+        notes += cv_notes
+        fits += cv_fits
+        save_data(cv, run_dir, "cv_predictions")
         result.notes.append(
-            f"Bootstrap optimism from {config.validation.bootstrap_reps} resamples of patients "
-            "(Harrell, Lee & Mark 1996): corrected = apparent - mean optimism.")
-    else:
-        result.notes.append("Bootstrap optimism skipped ([validation] bootstrap_reps = 0).")
+            f"{config.validation.folds}-fold cross-validation grouped by patient (seed {config.validation.seed}): "
+            f"{cv['row'].nunique()} landmark rows predicted by models fitted without their patient.")
+        cv_failed = {n.model for n in cv_notes}
+        notes += _optimism(config, tables, [m for m in models if m.name not in cv_failed], result, fits)
+    if stray:
+        fits.append(("(outside the fits)", list(stray)))
+    save_notes(run_dir, "validation", notes, count_warnings(fits))
+    result.notes.extend(n.sentence() for n in notes)
     for name, table in result.tables.items():
         save_table(table, run_dir, name)
     return result
+
+
+def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: list[Any], result: StageResult,
+              fits: list) -> list[Note]:
+    """Bootstrap optimism of ``models`` into ``result.tables``; the notes it leads to."""
+    n_boot = bootstrap_resamples(config)
+    if not getattr(config.validation, "optimism", True):
+        return [switched_off("validation", "bootstrap optimism", "[validation] optimism")]
+    if n_boot <= 0:
+        return [Note("validation", "bootstrap optimism", "skipped: [validation] bootstrap_resamples = 0.",
+                     kind="switched off")]
+    if not models:
+        return [Note("validation", "bootstrap optimism", "not computed: no model could be fitted in every "
+                     "cross-validation fold.")]
+    try:
+        outcome = bootstrap_optimism_result(
+            [model_spec(m, config.missing_data) for m in models],
+            PrecomputedTables(tables["landmark_stack"], tables["counting_process"]),
+            list(config.report.horizons_days), n_boot=n_boot, seed=config.validation.seed,
+            config=execution(config))
+    except ValidationInputError as exc:  # every resample failed (the message gives the first reasons)
+        return [Note("validation", "bootstrap optimism", f"not computed: {exc}")]
+    fits += outcome.fit_log
+    optimism = outcome.table.rename(columns={"spec": "model"})
+    optimism.insert(2, "horizon_years", optimism.pop("horizon_days") / DAYS_PER_YEAR)
+    result.tables["bootstrap_optimism"] = optimism.dropna(axis="columns", how="all")
+    result.notes.append(
+        f"Bootstrap optimism from {n_boot} resamples of patients "
+        "(Harrell, Lee & Mark 1996): corrected = apparent - mean optimism.")
+    notes = failure_notes(outcome.failures, n_boot, "validation", "bootstrap optimism")
+    notes += warning_notes(outcome.fit_warnings, "validation", "bootstrap optimism", n_boot)
+    return notes
+
+
+def warning_notes(counts: pd.DataFrame, stage: str, part: str, n_resamples: int) -> list[Note]:
+    """One note per model summarising the fitting warnings of its resample refits (``count_warnings`` table)."""
+    notes = []
+    for model, rows in counts.groupby("model", sort=False):
+        said = "; ".join(f"{int(r.fits_warned)} of {int(r.fits)} refits warned of {r.kind}"
+                         + (f" ({r.terms})" if r.terms else "") for r in rows.itertuples(index=False))
+        notes.append(Note(stage, part, f"over {n_resamples} bootstrap resamples: {said}.", model=str(model),
+                          kind="fitting warnings"))
+    return notes
