@@ -66,7 +66,7 @@ def show(value: Any, limit: int = 80) -> str:
 def problem(where: str, key: str | None, value: Any, allowed: str, *, choices: Iterable[str] = (),
             severity: str = ERROR) -> Problem:
     """A problem ``<where> <key> = <value> is not allowed: <allowed>`` (+ did you mean)."""
-    full = f"{where} {key}" if key else where
+    full = f"{where} {key}".strip() if key else where
     verdict = "is not allowed" if severity == ERROR else "is doubtful"
     return Problem(full, f"{full} = {show(value)} {verdict}: {allowed}{did_you_mean(value, choices)}", severity)
 
@@ -145,7 +145,10 @@ def _allowed_text(model: type[BaseModel] | None, key: Any, err: Mapping[str, Any
     field = model.model_fields.get(key) if model is not None and isinstance(key, str) else None
     if field is not None and field.description:
         return f"expected {field.description}", []
-    return "expected " + err["msg"][0].lower() + err["msg"][1:].replace("Input should be ", ""), []
+    if kind in ("model_type", "dict_type"):
+        return "expected a table (key = value lines)", []
+    text = err["msg"].replace("Input should be ", "")
+    return "expected " + text[0].lower() + text[1:], []
 
 
 def schema_problems(error: ValidationError, root: type[BaseModel], data: Any,
@@ -170,7 +173,9 @@ def schema_problems(error: ValidationError, root: type[BaseModel], data: Any,
             found = Problem(f"{place} {key}", f"{place} needs {key!r}{hint}")
         else:
             allowed, choices = _allowed_text(model, key, err)
-            if key is None:  # a rule across the keys of one table
+            if key is None:  # a rule across the keys of one table, or the table itself
+                if err["type"] in ("model_type", "dict_type"):
+                    allowed += f", got {show(_value_at(data, table))}"
                 out.setdefault(place + allowed, Problem(place, f"{place}: {allowed}"))
                 continue
             value = _value_at(data, [*table, key])

@@ -9,11 +9,14 @@ import tomllib
 from pathlib import Path
 
 import pytest
+from hypothesis import assume, given, settings
+from hypothesis import strategies as st
 
 from riskbench.models.family_registry import FAMILIES, family, param_problems
 from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.workflow.cli import main
 from riskbench.workflow.config import AnalysisConfig, ConfigError, load_config
+from riskbench.workflow.config_schema import SECTIONS
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO = ROOT / "configs" / "demo.toml"
@@ -148,3 +151,24 @@ def test_scheduler_and_tls_paths_resolve_against_the_configuration(tmp_path):
     config = AnalysisConfig.from_dict(data, base_dir=tmp_path)
     assert config.execution.tls_ca_file == tmp_path.resolve() / "ca.pem"
     assert config.validation.dask_address == "tls://10.1.2.3:8786"
+
+
+@settings(max_examples=60, deadline=None)
+@given(data=st.data())
+def test_a_key_missing_one_letter_is_refused_with_a_suggestion_from_its_table(data):
+    """Property: in every workflow table, a key with one letter dropped is named, with a key of that table
+    suggested (difflib ratio of a one-letter drop is at least 2(n-1)/(2n-1) >= 0.6 for n >= 2)."""
+    section = data.draw(st.sampled_from(sorted(SECTIONS)))
+    fields = sorted(SECTIONS[section].model_fields)
+    key = data.draw(st.sampled_from(fields))
+    i = data.draw(st.integers(0, len(key) - 1))
+    typo = key[:i] + key[i + 1:]
+    assume(typo not in fields and typo not in ("n_jobs", "dask_address", "compare", "bootstrap_reps"))
+    doc = tomllib.loads(DEMO.read_text())
+    doc.setdefault(section, {})[typo] = 1
+    with pytest.raises(ConfigError) as err:
+        AnalysisConfig.from_dict(doc, base_dir=DEMO.parent)
+    (problem,) = [p for p in err.value.problems if typo in p.message]
+    assert problem.message.startswith(f"[{section}] has unknown key {typo!r} = 1; allowed keys: ")
+    suggested = problem.message.rsplit("did you mean ", 1)[1].strip("'?)")
+    assert suggested in fields
