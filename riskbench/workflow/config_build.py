@@ -93,7 +93,7 @@ def build_config(data: Mapping[str, Any], *, base_dir: Path,
     models = _models(data, problems)
 
     if problems or None in (sources, cohort, landmarks, models) or None in sections.values():
-        return None, problems
+        return None, problems + _partial_rules(cohort, models, landmarks)
     config = _assemble(original, seed, sources, cohort, landmarks, models, sections, base_dir, config_path,
                        problems)
     if config is None:
@@ -105,6 +105,21 @@ def build_config(data: Mapping[str, Any], *, base_dir: Path,
     object.__setattr__(config, "deprecations", tuple(deprecations))
     object.__setattr__(config, "warnings", warnings)
     return (None if any(p.is_error for p in problems) else config), problems
+
+
+def _partial_rules(cohort: Any, models: list[ModelSection] | None, landmarks: Any) -> list[Problem]:
+    """The cross-section rules whose sections were read, when another section failed (all problems at once)."""
+    from types import SimpleNamespace
+
+    from riskbench.workflow.config_rules import covariate_problems, family_problems
+
+    if cohort is None or models is None:
+        return []
+    config = SimpleNamespace(cohort=cohort, models=models)
+    if landmarks is None:
+        return covariate_problems(config)
+    config.landmarks = SimpleNamespace(landmarks_days=tuple(landmarks.landmarks))
+    return covariate_problems(config) + family_problems(config)
 
 
 def _assemble(data: Mapping[str, Any], seed: int, sources: Any, cohort: Any, lm: Any,

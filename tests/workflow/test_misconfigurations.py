@@ -375,6 +375,18 @@ def test_every_problem_is_reported_at_once(study):
     assert str(err.value).count("\n") == len(err.value.problems)  # a header line, then one line each
 
 
+def test_covariates_and_parameters_are_checked_even_when_another_section_fails(study):
+    data = base()
+    data["validation"]["folds"] = 1
+    data["models"][1]["covariates"].append("log_nodule_volum")
+    data["models"][0]["params"] = {"landmark_effects": "spline"}
+    with pytest.raises(ConfigError) as err:
+        load_config(write_config(study, data, "partial.toml"))
+    keys = {p.key for p in err.value.problems}
+    assert keys == {"[validation] folds", "[[models]] #2 (imaging_clinical) covariates",
+                    "[[models]] #1 (clinical) params.landmark_effects"}
+
+
 # --------------------------------------------------------------------------------------------------
 # Warnings: the run goes ahead, check-config says what is doubtful
 
