@@ -69,6 +69,7 @@ __all__ = [
     "dropped_rows_by_landmark",
     "pooled_summary",
     "predicted_rows",
+    "rows_without_prediction",
 ]
 
 METHODS: tuple[str, ...] = ("multiple_imputation", "complete_cases", "missing_indicator")
@@ -123,18 +124,30 @@ class MissingDataPlan:
         )
 
 
-def predicted_rows(risks: Sequence[Mapping[float, np.ndarray]]) -> np.ndarray:
+def predicted_rows(risks: Sequence[Mapping[Any, np.ndarray]]) -> np.ndarray:
     """Rows for which every model has a finite risk at every horizon (complete-case models give NaN).
 
     Parameters
     ----------
     risks : sequence of mapping
-        One ``{horizon: risk per row}`` per model, all over the same rows.
+        Per model, ``{horizon: risk per row}`` (or any key to an ``(n_rows, k)`` risk matrix), all over the
+        same rows.
     """
     arrays = [np.asarray(r, dtype=float) for risk in risks for r in risk.values()]
     if not arrays:
         return np.ones(0, dtype=bool)
-    return np.logical_and.reduce([np.isfinite(a) for a in arrays])
+    return np.logical_and.reduce([np.isfinite(a).reshape(len(a), -1).all(axis=1) for a in arrays])
+
+
+def rows_without_prediction(model: Any, table: pd.DataFrame) -> np.ndarray:
+    """Rows of ``table`` the model leaves without a risk on purpose (complete cases: a covariate is missing).
+
+    Any other model, or any other method, predicts every row (all False).
+    """
+    if isinstance(model, MissingDataModel) and model.method == "complete_cases":
+        values = covariate_values(table, model.covariates, what="prediction table", allow_missing=True)
+        return np.isnan(values).any(axis=1)
+    return np.zeros(len(table), dtype=bool)
 
 
 def dropped_rows_by_landmark(table: pd.DataFrame, dropped: np.ndarray) -> pd.DataFrame:

@@ -23,7 +23,7 @@ def missing_data_plan(model: ModelConfig, analysis_plan: object | None = None) -
     """
     try:
         base = MissingDataPlan.coerce(analysis_plan) or MissingDataPlan()
-        override = getattr(model, "missing_data", None)  # read with getattr until the new configuration lands
+        override = model.missing_data
         return MissingDataPlan.coerce(override, default=base) if override is not None else base
     except ValueError as exc:
         raise ConfigError(f"[[models]] {model.name!r}: {exc}") from None
@@ -41,6 +41,9 @@ def model_spec(model: ModelConfig, analysis_plan: object | None = None) -> Model
 def fit_model(model: ModelConfig, landmark_stack: pd.DataFrame, counting_process: pd.DataFrame | None,
               *, seed: int, missing_data: object | None = None) -> Any:
     """Fit one configured model (Cox family on the counting-process rows, others on the landmark stack).
+
+    ``missing_data`` is the configuration's ``[missing_data]`` section (``config.missing_data``); with the
+    model's own ``missing_data`` it decides the missing-data method (:func:`missing_data_plan`).
 
     Raises
     ------
@@ -78,7 +81,7 @@ def missing_data_tables(config: Any, stack: pd.DataFrame) -> dict[str, pd.DataFr
         for suffix in ("", "_change", "_slope_per_year", "_previous"):
             staleness[f"{v.column}{suffix}"] = v.staleness_column
     tables = {"missing_data": missing_data_table(stack, covariates, staleness, threshold=threshold)}
-    plan = getattr(config, "missing_data", None)  # read with getattr until the new configuration lands
+    plan = config.missing_data
     complete = {m.name: m.covariates for m in config.models
                 if missing_data_plan(m, plan).method == "complete_cases"}
     if complete:
