@@ -200,12 +200,17 @@ def _unit_problems(t: _Table, cohort: Any) -> list[Problem]:
 
 
 def _parse(values: pd.Series, fmt: str | None) -> pd.Series:
-    return pd.to_datetime(values, format=fmt or "ISO8601", errors="coerce")
+    """Dates of a text column read with ``fmt`` (ISO when None); a typed date column is taken as it is."""
+    if pd.api.types.is_datetime64_any_dtype(values):
+        return values.dt.tz_localize(None) if getattr(values.dt, "tz", None) is not None else values
+    return pd.to_datetime(values.astype(str).str.strip(), format=fmt or "ISO8601", errors="coerce")
 
 
 def _date_problems(t: _Table, column: str) -> list[Problem]:
     if t.sample is None or column not in t.sample.columns:
         return []
+    if pd.api.types.is_datetime64_any_dtype(t.sample[column]):
+        return []  # a typed date column (Parquet) needs no format
     filled = _filled(t.sample[column])
     if filled.empty:
         return []
@@ -281,9 +286,9 @@ def _follow_up_days(patients: _Table, outcomes: _Table) -> pd.Series | None:
                   [outcomes.ours("patient_id"), outcomes.ours("date")])
     except (ValueError, OSError, KeyError):
         return None
-    entry = pd.Series(_parse(p.iloc[:, 1].astype(str).str.strip(), patients.source.date_format).to_numpy(),
+    entry = pd.Series(_parse(p.iloc[:, 1], patients.source.date_format).to_numpy(),
                       index=p.iloc[:, 0].astype(str).str.strip())
-    end = pd.Series(_parse(o.iloc[:, 1].astype(str).str.strip(), outcomes.source.date_format).to_numpy(),
+    end = pd.Series(_parse(o.iloc[:, 1], outcomes.source.date_format).to_numpy(),
                     index=o.iloc[:, 0].astype(str).str.strip())
     entry = entry[~entry.index.duplicated(keep=False)].dropna()
     last = end.dropna().groupby(level=0).max()
@@ -317,10 +322,10 @@ def _visit_days(patients: _Table, measurements: _Table) -> tuple[tuple[float, ..
         return (), 0
     full = _read(Path(patients.source.path), getattr(patients.source, "encoding", "utf-8"), None,
                  [patients.ours("patient_id"), patients.ours("entry_date")])
-    entry = pd.Series(_parse(full.iloc[:, 1].astype(str).str.strip(), patients.source.date_format).to_numpy(),
+    entry = pd.Series(_parse(full.iloc[:, 1], patients.source.date_format).to_numpy(),
                       index=full.iloc[:, 0].astype(str).str.strip())
     entry = entry[~entry.index.duplicated(keep=False)]
-    when = _parse(m["date"].astype(str).str.strip(), measurements.source.date_format)
+    when = _parse(m["date"], measurements.source.date_format)
     start = entry.reindex(m["patient_id"].astype(str).str.strip()).to_numpy()
     days = pd.Series((when.to_numpy() - start) / np.timedelta64(1, "D")).dropna().round()
     days = days[days > 0]

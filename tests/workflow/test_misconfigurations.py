@@ -448,3 +448,28 @@ def test_the_demo_carry_forward_limit_is_clear_of_its_landmarks():
     config = load_config(demo, check_data=True)
     assert config.cohort.max_carry_days == 1095.0
     assert config.warnings == () and config.deprecations == ()
+
+
+def test_parquet_sources_with_typed_dates_and_wide_measurements(study, tmp_path):
+    """Typed (Parquet) date columns need no date_format; a wide table needs a column per variable."""
+    import pandas as pd
+
+    folder = tmp_path / "typed"
+    folder.mkdir()
+    patients = pd.read_csv(study / "data" / "patients.csv", parse_dates=["entry_date", "birth_date"])
+    outcomes = pd.read_csv(study / "data" / "outcomes.csv", parse_dates=["date"])
+    long = pd.read_csv(study / "data" / "measurements.csv")
+    wide = long.pivot_table(index=["patient_id", "date"], columns="variable", values="value").reset_index()
+    patients.to_parquet(folder / "patients.parquet")
+    outcomes.to_parquet(folder / "outcomes.parquet")
+    wide.to_csv(folder / "wide.csv", index=False)
+    data = base()
+    data["sources"] = {"date_format": "%d/%m/%Y",  # for text columns only; the Parquet dates are typed
+                       "patients": {"path": str(folder / "patients.parquet")},
+                       "measurements": {"path": str(folder / "wide.csv"), "layout": "wide", "date_format": "%Y-%m-%d"},
+                       "outcomes": {"path": str(folder / "outcomes.parquet")}}
+    config = load_config(write_config(tmp_path, data), check_data=True)
+    assert config.sources.measurements.layout == "wide"
+    wide.drop(columns="serum_marker").to_csv(folder / "wide.csv", index=False)
+    with pytest.raises(ConfigError, match=r"\[sources.measurements\] .*wide.csv has no column 'serum_marker'"):
+        load_config(write_config(tmp_path, data), check_data=True)
