@@ -11,6 +11,7 @@ raising.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -29,6 +30,10 @@ from riskbench.cohort.spec import CohortSpec
 Source = Union[str, Path, pd.DataFrame, TableSource]
 #: Name of the row-position column added to a DataFrame's Arrow copy (unlikely to clash with a source column).
 ROW_NUMBER = "__riskbench_row_number"
+
+#: A column name shown in messages: a short word-like name (a headerless file's first row is not shown).
+_NAME_LIKE = re.compile(r"^[A-Za-z_][A-Za-z0-9_ ./()%-]{0,63}$")
+_DIGIT_RUN = re.compile(r"[0-9]{3}")
 
 REQUIRED: dict[str, tuple[str, ...]] = {
     "patients": ("patient_id", "entry_date"),
@@ -138,9 +143,8 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
             mapped = f" (mapped to source column {theirs!r})" if theirs != ours else ""
             what = "required column" if ours in required else "column (read by a static covariate)"
             raise CohortInputError(
-                f"{label}: {what} {ours!r}{mapped} is missing; the file's columns are "
-                f"{sorted(present)}. Rename the column or map it in [sources.{table}] columns = "
-                f"{{ {ours} = \"<source column>\" }}.")
+                f"{label}: {what} {ours!r}{mapped} is missing; {_describe_columns(present)}. Rename the "
+                f"column or map it in [sources.{table}] columns = {{ {ours} = \"<source column>\" }}.")
     optional = [c for c in OPTIONAL[table] if c not in extra]
     wanted = list(dict.fromkeys(list(required) + list(extra) + [c for c in optional if columns.get(c, c) in present]))
     selects = [f"{numbered} AS row_number"] + [f"{quote(columns.get(c, c))} AS {quote(c)}" for c in wanted]
@@ -150,7 +154,7 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         if not variables:
             raise CohortInputError(
                 f"{label}: wide measurement table has none of the variable columns "
-                f"{[v.name for v in spec.variables]}; its columns are {sorted(present)}")
+                f"{[v.name for v in spec.variables]}; {_describe_columns(present)}")
         # A blank cell of a wide table is no measurement (UNPIVOT leaves out NULLs).
         selects += [f"nullif(trim(CAST({quote(columns.get(v, v))} AS VARCHAR)), '') AS {quote(v)}"
                     for v in variables]
@@ -165,6 +169,18 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
     # Read in place: the relation carries each row's number.
     con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT {', '.join(selects)} FROM {relation}")
     return LoadedTable(table, label, tuple(wanted), types, date_format, file_columns, row_word)
+
+
+def _describe_columns(present: Mapping[str, str]) -> str:
+    """The file's column names for a message; names that look like data (a headerless file's first row:
+    ids, dates, numbers, sentences) are counted, not shown."""
+    shown = sorted(n for n in present if _NAME_LIKE.match(n) and not _DIGIT_RUN.search(n))
+    hidden = len(present) - len(shown)
+    text = f"the file's columns are {shown}"
+    if hidden:
+        text += (f" and {hidden} name(s) that look like data, not shown (is line 1 a data row? line 1 must "
+                 "name the columns)")
+    return text
 
 
 def _register(con: duckdb.DuckDBPyConnection, name: str, table: pa.Table) -> str:

@@ -174,9 +174,20 @@ def test_empty_and_non_tabular_files(tmp_path) -> None:
         _build(paths)
     paths[2].write_text("Dear colleague, here are the data you asked for.\nBest wishes\n")
     with pytest.raises(CohortInputError, match=r"outcomes\.csv: required column 'patient_id' is missing; the "
-                                               r"file's columns are \[' here are the data you asked for\.', "
-                                               r"'Dear colleague'\]"):
+                                               r"file's columns are \['Dear colleague'\] and 1 name\(s\) that look "
+                                               r"like data, not shown"):
         _build(paths)
+
+
+def test_headerless_file_does_not_show_its_first_row(tmp_path) -> None:
+    """Probe: a headerless patients file's error quoted its first row (an id and dates)."""
+    paths = _write(_tables(3), tmp_path)
+    paths[0].write_text("\n".join(paths[0].read_text().splitlines()[1:]) + "\n")
+    with pytest.raises(CohortInputError, match=r"patients\.csv: required column 'patient_id' is missing; the "
+                                               r"file's columns are \['F'\] and 4 name\(s\) that look like data, "
+                                               r"not shown \(is line 1 a data row") as info:
+        _build(paths)
+    assert "P0000" not in str(info.value) and "2020" not in str(info.value)
 
 
 def test_dates_with_time_zone_before_1900_and_future(tmp_path) -> None:
