@@ -28,6 +28,8 @@ from riskbench.workflow.config_rules import carry_forward_warnings
 SAMPLE_ROWS = 5000
 #: Fewer patients than this still followed after a landmark is an error (common practice: about 10).
 MIN_AT_RISK = 10
+#: Outcome events per covariate below which a warning is given (common practice: about 10).
+EVENTS_PER_COVARIATE = 10
 #: A landmark this many days or less before a common visit day gets a warning.
 VISIT_MARGIN_DAYS = 3.0
 #: A visit day is common when at least this share of the sampled measurements fall on it.
@@ -277,28 +279,32 @@ def _variable_problems(t: _Table, cohort: Any) -> list[Problem]:
     return out
 
 
-def _follow_up_days(patients: _Table, outcomes: _Table) -> pd.Series | None:
-    """Days from entry to the last outcome date, per patient with both (full files, two columns each)."""
+def _follow_up(patients: _Table, outcomes: _Table, kind_map: dict) -> pd.DataFrame | None:
+    """Per patient with an entry and an outcome row: ``days`` from entry to the last outcome date and
+    ``event`` (an outcome row of kind outcome, after kind_map). Full files, a few columns each."""
     try:
         p = _read(Path(patients.source.path), getattr(patients.source, "encoding", "utf-8"), None,
                   [patients.ours("patient_id"), patients.ours("entry_date")])
         o = _read(Path(outcomes.source.path), getattr(outcomes.source, "encoding", "utf-8"), None,
-                  [outcomes.ours("patient_id"), outcomes.ours("date")])
+                  [outcomes.ours("patient_id"), outcomes.ours("date"), outcomes.ours("kind")])
     except (ValueError, OSError, KeyError):
         return None
     entry = pd.Series(_parse(p.iloc[:, 1], patients.source.date_format).to_numpy(),
                       index=p.iloc[:, 0].astype(str).str.strip())
-    end = pd.Series(_parse(o.iloc[:, 1], outcomes.source.date_format).to_numpy(),
-                    index=o.iloc[:, 0].astype(str).str.strip())
     entry = entry[~entry.index.duplicated(keep=False)].dropna()
-    last = end.dropna().groupby(level=0).max()
-    both = entry.index.intersection(last.index)
-    days = (last[both] - entry[both]).dt.total_seconds() / 86400.0
-    return days[days > 0]
+    rows = pd.DataFrame({"patient_id": o.iloc[:, 0].astype(str).str.strip().to_numpy(),
+                         "end": _parse(o.iloc[:, 1], outcomes.source.date_format).to_numpy(),
+                         "kind": o.iloc[:, 2].astype(str).str.strip().map(lambda k: kind_map.get(k, k)).to_numpy()})
+    rows = rows.dropna(subset=["end"])
+    per = rows.groupby("patient_id").agg(end=("end", "max"), event=("kind", lambda k: bool((k == "outcome").any())))
+    per = per[per.index.isin(entry.index)]
+    per["days"] = (per["end"] - entry.reindex(per.index)).dt.total_seconds() / 86400.0
+    return per[per["days"] > 0]
 
 
-def _landmark_problems(config: Any, days: pd.Series) -> list[Problem]:
+def _landmark_problems(config: Any, follow_up: pd.DataFrame) -> list[Problem]:
     out = []
+    days = follow_up["days"]
     longest = float(days.max()) if len(days) else 0.0
     for s in config.landmarks.landmarks_days:
         at_risk = int((days > s).sum())
@@ -312,6 +318,28 @@ def _landmark_problems(config: Any, days: pd.Series) -> list[Problem]:
     if len(days) < config.validation.folds:
         out.append(problem("[validation]", "folds", config.validation.folds,
                            f"expected at most the number of patients with follow-up ({len(days)})"))
+    return out
+
+
+def _event_problems(config: Any, follow_up: pd.DataFrame, path: Path) -> list[Problem]:
+    """Enough outcome events: at least one per fold, and (a warning) about 10 per covariate."""
+    events = int(follow_up["event"].sum())
+    if events == 0:
+        return [problem("[cohort]", "kind_map", dict(config.cohort.kind_map),
+                        f"no patient of {path} has an outcome row of kind 'outcome' (after kind_map): there is "
+                        "nothing to predict; map the file's outcome kind to \"outcome\"")]
+    out = []
+    if events < config.validation.folds:
+        out.append(problem("[validation]", "folds", config.validation.folds,
+                           "expected at most the number of patients with an outcome event, so that every fold "
+                           "has one; use fewer folds"))
+    for i, m in enumerate(config.models):
+        if events < EVENTS_PER_COVARIATE * len(m.covariates):
+            out.append(problem(
+                f"[[models]] #{i + 1} ({m.name})", "covariates", f"{len(m.covariates)} covariates",
+                f"about {EVENTS_PER_COVARIATE} outcome events per covariate are common practice and the outcomes "
+                f"file has fewer than {EVENTS_PER_COVARIATE * len(m.covariates)}; estimates may be unstable",
+                severity=WARNING))
     return out
 
 
@@ -383,9 +411,10 @@ def check_analysis(config: Any) -> list[Problem]:
     problems += _unit_problems(tables["measurements"], config.cohort)
     if any(p.is_error for p in problems):
         return problems
-    days = _follow_up_days(tables["patients"], tables["outcomes"])
-    if days is not None:
-        problems += _landmark_problems(config, days)
+    follow_up = _follow_up(tables["patients"], tables["outcomes"], dict(config.cohort.kind_map))
+    if follow_up is not None:
+        problems += _landmark_problems(config, follow_up)
+        problems += _event_problems(config, follow_up, config.sources.outcomes.path)
     visits, _ = _visit_days(tables["patients"], tables["measurements"])
     problems += _visit_warnings(config, visits)
     problems += carry_forward_warnings(config, visits)  # entry (day 0) is checked with the file

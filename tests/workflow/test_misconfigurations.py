@@ -3,7 +3,8 @@
 Every case is checked twice: through the Python API (``load_config(path, check_data=True)`` raises a
 ConfigError whose message names the key) and through the command line (``riskbench check-config`` exits
 with status 2 and prints the same key words). The data are a small invented cohort written by the test:
-40 patients seen at entry and on days 61, 183, 365 and 548, followed for 900 to 1485 days.
+140 patients seen at entry and on days 61, 183, 365 and 548, followed for 900 to 2985 days; every
+other patient has the outcome (70 events, enough for 10 per covariate).
 """
 
 from __future__ import annotations
@@ -21,7 +22,7 @@ import pytest
 from riskbench.workflow.cli import main
 from riskbench.workflow.config import ConfigError, load_config
 
-N_PATIENTS = 40
+N_PATIENTS = 140
 VISIT_DAYS = (0, 61, 183, 365, 548)
 ENTRY = date(2019, 1, 14)
 
@@ -261,8 +262,8 @@ CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
                                          _add(["validation", "optimism"], True)),
      ("[validation] optimism = True", "bootstrap_resamples >= 2")),
     ("one fold", _add(["validation", "folds"], 1), ("[validation] folds = 1", "an integer from 2")),
-    ("more folds than patients", _add(["validation", "folds"], 50),
-     ("[validation] folds = 50", "at most the number of patients")),
+    ("more folds than outcome events", _add(["validation", "folds"], 80),
+     ("[validation] folds = 80", "at most the number of patients with an outcome event")),
     ("range with nan", _add(["cohort", "variables", "suspicion_score", "range"], [float("nan"), 1.0]),
      ("[cohort.variables.suspicion_score] range = [nan, 1.0]", "finite numbers")),
     ("range upside down", _add(["cohort", "variables", "suspicion_score", "range"], [1.0, 0.0]),
@@ -271,8 +272,8 @@ CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
      ("[cohort.variables.nodule_volume] conversions", "finite")),
     ("landmark beyond all follow-up", _add(["landmarks", "landmarks"], ["0 years", "4 months", "10 years"]),
      ("[landmarks] landmarks = '10 years'", "no patient is still followed")),
-    ("landmark with too few at risk", _add(["landmarks", "landmarks"], ["0 years", "4 months", "1450 days"]),
-     ("[landmarks] landmarks = '1450 days'", "fewer than 10 patients are still followed")),
+    ("landmark with too few at risk", _add(["landmarks", "landmarks"], ["0 years", "4 months", "2900 days"]),
+     ("[landmarks] landmarks = '2900 days'", "fewer than 10 patients are still followed")),
     ("day-first dates without date_format", _day_first,
      ("[sources.patients] date_format", "do not parse", "'%d/%m/%Y'")),
     ("dates ambiguous day-first or month-first", _ambiguous,
@@ -283,7 +284,7 @@ CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
      ("[sources.patients]", "no column 'entry_date'", "columns = { entry_date", "did you mean")),
     ("file in another encoding", _latin1, ("[sources.patients] encoding = 'utf-8'", "latin-1")),
     ("sex coded 0/1 without declared codes", _sex_zero_one,
-     ("[cohort.statics.sex] codes", "column 'sex'", "codes outside them", "40 of 40 sampled values")),
+     ("[cohort.statics.sex] codes", "column 'sex'", "codes outside them", "140 of 140 sampled values")),
     ("unknown outcome kind", _died, ("[cohort] kind_map", "'died'", "\"competing\"")),
     ("unsafe model name", _model(0, name="x/../../escaped"),
      ("[[models]] #1 (x/../../escaped) name = 'x/../../escaped'", "letters, digits and underscores")),
@@ -418,12 +419,30 @@ def test_landmark_just_before_a_common_visit_day_warns(study):
     assert 'write "183 days"' in text
 
 
+def test_too_few_events_per_covariate_warns_and_no_event_is_an_error(study, tmp_path):
+    """About 10 outcome events per covariate is common practice (for Cox models: Peduzzi et al. 1995, J Clin
+    Epidemiol 48:1503-1510, from memory); a cohort without any outcome event has nothing to predict."""
+    write_data(tmp_path / "few", kinds=("end_of_follow_up",) * 6 + ("outcome",))  # 20 events
+    data = base()
+    for table in ("patients", "measurements", "outcomes"):
+        data["sources"][table]["path"] = str(tmp_path / "few" / f"{table}.csv")
+    config = load_config(write_config(tmp_path, data), check_data=True)
+    assert any(w.startswith("[[models]] #2 (imaging_clinical) covariates = '6 covariates' is doubtful: about 10 "
+                            "outcome events per covariate") for w in config.warnings)
+    write_data(tmp_path / "none", kinds=("end_of_follow_up",))
+    for table in ("patients", "measurements", "outcomes"):
+        data["sources"][table]["path"] = str(tmp_path / "none" / f"{table}.csv")
+    with pytest.raises(ConfigError, match=r"\[cohort\] kind_map = \{\} is not allowed: no patient of .* has an "
+                                          "outcome row of kind 'outcome'"):
+        load_config(write_config(tmp_path, data), check_data=True)
+
+
 def test_rare_data_defects_are_warnings_with_counts(study, tmp_path):
     """A few unmapped outcome kinds, implausible statics or unknown units: the ledger will exclude them."""
     data_dir = tmp_path / "rare"
     write_data(data_dir)
     outcomes = (data_dir / "outcomes.csv").read_text().splitlines()
-    outcomes[5] = outcomes[5].rsplit(",", 1)[0] + ",transferred"  # 1 of 40 rows (2.5%)
+    outcomes[5] = outcomes[5].rsplit(",", 1)[0] + ",transferred"  # 1 of 140 rows (0.7%)
     (data_dir / "outcomes.csv").write_text("\n".join(outcomes) + "\n")
     patients = (data_dir / "patients.csv").read_text().splitlines()
     patients[3] = patients[3].rsplit(",", 1)[0] + ",-4"  # a negative pack-years value
@@ -435,9 +454,9 @@ def test_rare_data_defects_are_warnings_with_counts(study, tmp_path):
         data["sources"][table]["path"] = str(data_dir / f"{table}.csv")
     config = load_config(write_config(tmp_path, data), check_data=True)
     text = "\n".join(config.warnings)
-    assert "[cohort] kind_map = {} is doubtful: the outcome kind 'transferred' (2.5% of the sampled rows" in text
-    assert "[cohort.statics.pack_years] range (at least 0): column 'pack_years'" in text and "1 of 40 sampled values" in text
-    assert "[cohort.variables.nodule_volume] conversions: 1 unit(s)" in text and "1 of 201 sampled values" in text
+    assert "[cohort] kind_map = {} is doubtful: the outcome kind 'transferred' (0.7% of the sampled rows" in text
+    assert "[cohort.statics.pack_years] range (at least 0): column 'pack_years'" in text and "1 of 140 sampled values" in text
+    assert "[cohort.variables.nodule_volume] conversions: 1 unit(s)" in text and "1 of 701 sampled values" in text
 
 
 def test_the_demo_carry_forward_limit_is_clear_of_its_landmarks():
