@@ -172,3 +172,11 @@ def test_a_key_missing_one_letter_is_refused_with_a_suggestion_from_its_table(da
     assert problem.message.startswith(f"[{section}] has unknown key {typo!r} = 1; allowed keys: ")
     suggested = problem.message.rsplit("did you mean ", 1)[1].strip("'?)")
     assert suggested in fields
+
+
+def test_model_specs_accept_the_old_family_name():
+    from riskbench.validation.model_specs import ModelSpec, build_estimator
+
+    spec = ModelSpec("m", ["x"], family="cox")
+    assert spec.family == "time_varying_cox"
+    assert type(build_estimator(spec)).__name__ == "CoxModel"
