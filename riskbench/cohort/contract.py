@@ -62,7 +62,7 @@ def date_checks(loaded: LoadedTable, column: str, run_day: date, alias: str | No
     column as trimmed text and ``ts`` of its parsed timestamp, when a query computed them already.
     """
     kind = loaded.types[column].upper()
-    if "WITH TIME ZONE" in kind:
+    if "WITH TIME ZONE" in kind or kind.startswith("TIMESTAMPTZ"):
         raise CohortInputError(
             f"{loaded.label}: column {column!r} holds time-zone-aware timestamps; riskbench needs local dates "
             "(convert them to the local date of the clinic, or to text without a zone)")

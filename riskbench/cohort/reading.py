@@ -106,7 +106,7 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         path = Path(source)
         if not path.exists():
             raise CohortInputError(f"{table} source {path} does not exist")
-        source = TableSource(path)
+        source = TableSource(path, layout=layout)
     row_word, other_lines = "row", None
     if isinstance(source, TableSource):
         columns.update(source.columns)

@@ -297,3 +297,25 @@ def test_every_line_is_accounted_for(tmp_path_factory, mutations, encoding, acce
         assert rows.row_number.is_unique and rows.row_number.min() >= 2
         flow = cohort.flow.query("table == @table").set_index("state")
         assert flow.loc["read", "remaining"] == flow.excluded.sum() + flow.loc["used", "remaining"] == n
+
+
+def test_wide_layout_keeps_line_numbers(tmp_path) -> None:
+    """A wide measurement file: one ledger row per filled cell, numbered by its line; blank cells are no
+    measurement; blank and ragged lines are ledger rows."""
+    paths = _write(_tables(2), tmp_path)
+    paths[1].write_text("patient_id,date,vol,note\nP00000,2020-01-01,100,\n\nP00001,2020-01-01,,a\n"
+                        "P00001,2020-01-02,90,b,surplus\nP00001,2020-01-03,95,c\n")
+    spec = CohortSpec(variables=SPEC.variables, static=("age_at_entry",), measurement_layout="wide")
+    ledger = _build(paths, spec).ledger.query("table == 'measurements'")
+    assert ledger[["row_number", "state"]].values.tolist() == [
+        [2, S.USED], [3, S.BLANK_LINE], [5, S.WRONG_FIELD_COUNT], [6, S.USED]]
+
+
+def test_typed_dates_time_zone_aware_is_one_line_and_old_dates_are_implausible() -> None:
+    patients, meas, outcomes = _tables(2)
+    meas["date"] = pd.to_datetime(meas["date"]).dt.tz_localize("Europe/Paris")
+    with pytest.raises(CohortInputError, match=r"measurements DataFrame: column 'date' holds time-zone-aware"):
+        build_cohort(patients, meas, outcomes, SPEC, run_day=RUN_DAY)
+    meas["date"] = pd.to_datetime(["2020-01-01", "1850-01-01"])
+    cohort = build_cohort(patients, meas, outcomes, SPEC, run_day=RUN_DAY)
+    assert _states(cohort, "measurements") == [S.USED, S.IMPLAUSIBLE_DATE]
