@@ -69,8 +69,10 @@ def _read(path: Path, encoding: str, nrows: int | None, usecols: list[str] | Non
             return pq.read_table(path, columns=usecols).to_pandas()
         batch = next(pq.ParquetFile(path).iter_batches(batch_size=nrows, columns=usecols), None)
         return batch.to_pandas() if batch is not None else pd.DataFrame()
+    # ragged lines are skipped here: the cohort stage gives each one a reason in the ledger
     return pd.read_csv(path, nrows=nrows, dtype=str, encoding=encoding, keep_default_na=False,
-                       na_filter=False, usecols=usecols, skip_blank_lines=False, comment=None)
+                       na_filter=False, usecols=usecols, skip_blank_lines=False, comment=None,
+                       on_bad_lines="skip")
 
 
 def _load(name: str, source: Any, problems: list[Problem]) -> _Table:

@@ -492,3 +492,17 @@ def test_parquet_sources_with_typed_dates_and_wide_measurements(study, tmp_path)
     wide.drop(columns="serum_marker").to_csv(folder / "wide.csv", index=False)
     with pytest.raises(ConfigError, match=r"\[sources.measurements\] .*wide.csv has no column 'serum_marker'"):
         load_config(write_config(tmp_path, data), check_data=True)
+
+
+def test_ragged_lines_and_blank_lines_do_not_stop_the_check(study, tmp_path):
+    """The cohort stage gives such lines a ledger reason; the check must not refuse the file for them."""
+    folder = tmp_path / "ragged"
+    write_data(folder)
+    lines = (folder / "measurements.csv").read_text().splitlines()
+    lines[10] += ",surplus"
+    lines.insert(20, "")
+    (folder / "measurements.csv").write_text("\n".join(lines) + "\n")
+    data = base()
+    for table in ("patients", "measurements", "outcomes"):
+        data["sources"][table]["path"] = str(folder / f"{table}.csv")
+    assert load_config(write_config(tmp_path, data), check_data=True).warnings == ()
