@@ -23,9 +23,18 @@ rows it predicts:
   row gets the same imputations whatever other rows are predicted with it and however often it is
   predicted (the prediction contract is row-wise).
 
-Every imputation model is linear-normal (:class:`LinearPredictiveModel`); a 0/1 covariate then receives
-continuous imputed values, which are not rounded (rounding biases estimates; von Hippel 2009, Sociol
-Methodol; **from memory**).
+Every imputation model is linear-normal (:class:`LinearPredictiveModel`), with draws truncated to the range
+of the observed training values (a score in [0, 1] stays there). A 0/1 covariate receives continuous imputed
+values, which are not rounded (rounding biases estimates; von Hippel 2009, Sociol Methodol; **from memory**).
+
+Known limits (measured on the demo cohort, tests/models/test_missing_demo_truth.py and the notes of the
+missing-data work): for a normally distributed covariate (log nodule volume, 30% missing at random) the
+pooled coefficients cover the truth with narrower intervals than complete cases; for a bounded, skewed
+covariate with a strong effect (the suspicion score, log hazard ratio 3.5 per unit) the linear-normal
+imputation model attenuates its coefficient (about 2.5 against 3.2 with complete cases), because the
+outcome-tilted distribution of such a covariate is not normal (White & Royston 2009 show the approximation
+holds for moderate effects). Derived columns (change, slope, previous value) are imputed as covariates of
+their own, not recomputed from an imputed value.
 """
 
 from __future__ import annotations
@@ -34,7 +43,7 @@ from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
-from scipy.special import ndtri
+from scipy.special import ndtr, ndtri
 from sklearn.base import BaseEstimator, RegressorMixin
 
 from riskbench.models.risk_contract import ModelInputError
@@ -196,6 +205,13 @@ def _iterative_imputer(seed: int, max_iterations: int, *, skip_complete: bool):
     )
 
 
+def observed_range(design: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per column, the smallest and largest observed value (a constant column gets a hair-wide range, since
+    scikit-learn's imputer needs ``min < max``)."""
+    low, high = np.nanmin(design, axis=0), np.nanmax(design, axis=0)
+    return low, np.where(high > low, high, low + 1e-9 * np.maximum(np.abs(low), 1.0))
+
+
 def impute_training_rows(
     covariates: np.ndarray, origin: np.ndarray, outcome: np.ndarray, *, seed: int, max_iterations: int
 ) -> np.ndarray:
@@ -222,6 +238,8 @@ def impute_training_rows(
 
     design = np.column_stack([covariates, origin, outcome])
     imputer = _iterative_imputer(seed, max_iterations, skip_complete=True)
+    low, high = observed_range(design)
+    imputer.set_params(min_value=low, max_value=high)
     with warnings.catch_warnings():
         # with posterior sampling the chain never "converges" in sklearn's sense; that warning is expected
         warnings.simplefilter("ignore", ConvergenceWarning)
@@ -242,19 +260,32 @@ def _splitmix64(values: np.ndarray) -> np.ndarray:
     return z ^ (z >> np.uint64(31))
 
 
-def row_normals(rows: np.ndarray, seed: int, steps: int) -> np.ndarray:
-    """Standard-normal deviates ``(n, steps)`` that depend only on each row's values, ``seed`` and the step.
+def row_uniforms(rows: np.ndarray, seed: int, steps: int) -> np.ndarray:
+    """Uniform (0, 1) deviates ``(n, steps)`` that depend only on each row's values, ``seed`` and the step.
 
-    Rows are hashed with :func:`pandas.util.hash_pandas_object` (NaN hashes alike), mixed with the seed and
-    the step by SplitMix64, and turned into normals by the inverse normal distribution function.
+    Rows are hashed with :func:`pandas.util.hash_pandas_object` (NaN hashes alike) and mixed with the seed
+    and the step by SplitMix64; the top 53 bits give the uniform.
     """
     frame = pd.DataFrame(np.asarray(rows, dtype=float))
     row_hash = pd.util.hash_pandas_object(frame, index=False).to_numpy().astype(np.uint64)
     keyed = _splitmix64(row_hash ^ _splitmix64(np.array([seed], dtype=np.uint64)))
     step_keys = _splitmix64(np.arange(1, steps + 1, dtype=np.uint64) * np.uint64(0x632BE59BD9B4E019))
     bits = _splitmix64(keyed[:, None] ^ step_keys[None, :])
-    uniform = ((bits >> np.uint64(11)).astype(float) + 0.5) / 2.0**53
-    return ndtri(uniform)
+    return ((bits >> np.uint64(11)).astype(float) + 0.5) / 2.0**53
+
+
+def row_normals(rows: np.ndarray, seed: int, steps: int) -> np.ndarray:
+    """Standard-normal deviates keyed like :func:`row_uniforms` (inverse normal distribution function)."""
+    return ndtri(row_uniforms(rows, seed, steps))
+
+
+def truncated_normal(mean: np.ndarray, sd: np.ndarray, low: float, high: float, uniform: np.ndarray) -> np.ndarray:
+    """The ``uniform`` quantile of N(mean, sd²) truncated to [low, high] (inverse distribution function)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a = ndtr(np.where(sd > 0, (low - mean) / sd, -np.inf))
+        b = ndtr(np.where(sd > 0, (high - mean) / sd, np.inf))
+        draw = mean + sd * ndtri(a + uniform * (b - a))
+    return np.clip(np.where((sd > 0) & np.isfinite(draw), draw, mean), low, high)
 
 
 class PredictionImputer:
@@ -272,7 +303,8 @@ class PredictionImputer:
     Fitted with ``IterativeImputer(sample_posterior=True, skip_complete=False)`` on ``[covariates, s]``, so
     every covariate has a conditional model -- also those complete in the training rows but missing in a
     row to predict. :meth:`transform` replays the fitted chain (``imputation_sequence_``) and draws each
-    missing value as ``mean + sd * z`` with the row-keyed deviate ``z`` of :func:`row_normals`.
+    missing value from its predictive normal truncated to the training range, at the row-keyed quantile of
+    :func:`row_uniforms`.
     """
 
     def __init__(self, seed: int, max_iterations: int) -> None:
@@ -287,7 +319,9 @@ class PredictionImputer:
 
         design = np.column_stack([covariates, origin]).astype(float)
         self.n_columns_ = design.shape[1]
+        self.low_, self.high_ = observed_range(design)
         self.imputer_ = _iterative_imputer(self.seed, self.max_iterations, skip_complete=False)
+        self.imputer_.set_params(min_value=self.low_, max_value=self.high_)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
             self.imputer_.fit(design)
@@ -301,15 +335,14 @@ class PredictionImputer:
             return np.array(covariates, dtype=float, copy=True)
         sequence = list(getattr(self.imputer_, "imputation_sequence_", []))
         filled = self.imputer_.initial_imputer_.transform(design)
-        z = row_normals(design, self.seed, max(len(sequence), 1))
+        u = row_uniforms(design, self.seed, max(len(sequence), 1))
         for step, triplet in enumerate(sequence):
-            rows = missing[:, triplet.feat_idx]
+            j = triplet.feat_idx
+            rows = missing[:, j]
             if not rows.any():
                 continue
             mean, sd = triplet.estimator.predict(filled[rows][:, triplet.neighbor_feat_idx], return_std=True)
-            filled[rows, triplet.feat_idx] = mean + np.where(sd > 0, sd, 0.0) * z[rows, step]
-        if not sequence:  # too few columns for a chain: a draw around the initial (mean) imputation is all
-            return np.where(np.isnan(covariates), filled[:, : covariates.shape[1]], covariates)
+            filled[rows, j] = truncated_normal(mean, sd, self.low_[j], self.high_[j], u[rows, step])
         out = np.array(covariates, dtype=float, copy=True)
         out[missing[:, : out.shape[1]]] = filled[:, : out.shape[1]][missing[:, : out.shape[1]]]
         return out

@@ -104,6 +104,11 @@ def test_prediction_imputer_keeps_observed_values_and_draws_around_the_condition
     np.testing.assert_array_equal(filled[1000:], truth[1000:])
     error = filled[:1000, 1] - 0.8 * x1[:1000]
     assert abs(error.mean()) < 0.06 and 0.5 < error.std() < 0.7
+    # draws stay inside the range of the training values (a [0, 1] score stays a [0, 1] score)
+    bounded = np.clip(x, -0.5, 0.5)
+    imputer = PredictionImputer(seed=1, max_iterations=5).fit(bounded[1000:], np.zeros(2000))
+    drawn = imputer.transform(bounded, np.zeros(3000))[:1000, 1]
+    assert drawn.min() >= -0.5 and drawn.max() <= 0.5 and drawn.std() > 0.1
 
 
 # ----------------------------------------------------------------------------------- plans and messages
