@@ -26,6 +26,7 @@ from riskbench.models.risk_contract import (
     ModelInputError,
     check_covariates,
     check_horizon,
+    describe_rows,
     prediction_origin,
     risk_from_cumulative_hazard,
     step_function_at,
@@ -139,8 +140,8 @@ class CoxModel(BaseEstimator):
         bad = ~np.isfinite(values)
         if bad.any():
             raise ModelInputError(
-                f"column '{column}' has {int(bad.sum())} missing or non-numeric values "
-                f"(rows {table.index[bad][:5].tolist()}); fix or drop those rows."
+                f"column '{column}' is missing or not a number in {describe_rows(table, bad)}; the cohort "
+                "stage's counting-process rows always have it -- fit on the table it writes."
             )
         return values
 
@@ -194,9 +195,9 @@ class CoxModel(BaseEstimator):
         unknown = ~pd.Series(values).isin(list(self._curves)).to_numpy()
         if unknown.any():
             raise ModelInputError(
-                f"strata column '{self.strata}' has values not seen in fitting "
-                f"({pd.unique(values[unknown])[:5].tolist()}, rows {table.index[unknown][:5].tolist()}); "
-                "a stratified model can only predict for its own strata."
+                f"strata column '{self.strata}' has values not seen in fitting in "
+                f"{describe_rows(table, unknown)}; a stratified model can only predict for its own strata "
+                "(params strata of the model)."
             )
         return values
 

@@ -79,10 +79,9 @@ def prediction_origin(table: pd.DataFrame) -> np.ndarray:
             values = pd.to_numeric(table[column], errors="coerce").to_numpy(dtype=float)
             bad = ~np.isfinite(values)
             if bad.any():
-                rows = np.flatnonzero(bad)[:5].tolist()
                 raise ModelInputError(
-                    f"column '{column}' has {int(bad.sum())} missing or non-numeric values (rows {rows}); "
-                    "give every prediction row its time s in days since entry"
+                    f"column '{column}' is missing or not a number in {describe_rows(table, bad)}; give every "
+                    "prediction row its time s in days since entry (the cohort stage's landmark stack has it)"
                 )
             return values
     return np.zeros(len(table))
@@ -206,8 +205,9 @@ def check_stack_outcome(stack: pd.DataFrame, required: Sequence[str] = ()) -> tu
     bad = ~np.isfinite(time) | (time <= 0) | ~np.isin(status, (0, 1, 2))
     if bad.any():
         raise ModelInputError(
-            f"landmark stack has {int(bad.sum())} rows with time <= 0 days or status not in 0/1/2 "
-            f"(rows {stack.index[bad][:5].tolist()}); fix or drop them"
+            f"landmark stack: {describe_rows(stack, bad)} have a time <= 0 days or a status other than 0 "
+            "(censored), 1 (outcome) or 2 (competing event); the cohort stage never makes such rows -- build the "
+            "stack with Cohort.landmark_stack(...) and map the outcome kinds with [cohort] kind_map"
         )
     return time, status.astype(int)
 
