@@ -70,8 +70,11 @@ def check_encoding(encoding: str, where: str) -> str:
             "\"latin-1\", \"cp1252\" or \"utf-16\"") from None
 
 
-def read_csv_lines(path: Path, table: str, encoding: str = "utf-8") -> CsvLines:
+def read_csv_lines(path: Path, table: str, encoding: str = "utf-8", max_lines: int | None = None) -> CsvLines:
     """Read ``path`` (CSV, or gzip-compressed CSV when the name ends in ``.gz``) for source ``table``.
+
+    ``max_lines`` reads only the header and that many further lines (a sample, e.g. for checking a
+    configuration before a run); None reads the whole file.
 
     Raises
     ------
@@ -81,7 +84,7 @@ def read_csv_lines(path: Path, table: str, encoding: str = "utf-8") -> CsvLines:
         names the file and the line, never a cell's contents.
     """
     codec = check_encoding(encoding, f"[sources.{table}]")
-    text, data = _decode(path, table, encoding, codec)
+    text, data = _decode(path, table, encoding, codec, max_lines)
     header = _header(text, path)
     rows = _read_fast(data, header)
     if rows is None:
@@ -90,10 +93,12 @@ def read_csv_lines(path: Path, table: str, encoding: str = "utf-8") -> CsvLines:
     return CsvLines(header, rows, empty)
 
 
-def _decode(path: Path, table: str, encoding: str, codec: str) -> tuple[str, bytes]:
-    """The file's text and its UTF-8 bytes (without a byte-order mark)."""
+def _decode(path: Path, table: str, encoding: str, codec: str, max_lines: int | None) -> tuple[str, bytes]:
+    """The file's text and its UTF-8 bytes (without a byte-order mark); its first ``1 + max_lines`` lines
+    when ``max_lines`` is given."""
     try:
-        raw = path.read_bytes()
+        raw = _head(path, max_lines) if max_lines is not None and codec.replace("-", "_") not in _WIDE_ENCODINGS \
+            else path.read_bytes()
     except OSError as exc:
         raise CohortInputError(f"{path}: cannot be read ({exc.strerror or exc})") from None
     if path.suffix.lower() == ".gz":
@@ -102,6 +107,8 @@ def _decode(path: Path, table: str, encoding: str, codec: str) -> tuple[str, byt
         except (OSError, EOFError):
             raise CohortInputError(f"{path}: the name ends in .gz but the file is not gzip-compressed; "
                                    "rename it or compress it with gzip") from None
+        if max_lines is not None and codec.replace("-", "_") not in _WIDE_ENCODINGS:
+            raw = _first_lines(raw, max_lines)
     if not raw.strip():
         raise CohortInputError(f"{path}: the file is empty; line 1 must be the header with the column names")
     if raw.startswith(b"PAR1"):
@@ -129,6 +136,31 @@ def _decode(path: Path, table: str, encoding: str, codec: str) -> tuple[str, byt
     if codec != "utf-8":
         data = text.encode("utf-8")
     return text, data
+
+
+def _head(path: Path, max_lines: int) -> bytes:
+    """The first ``1 + max_lines`` lines of a file in a one-byte-newline encoding (gzip files whole)."""
+    if path.suffix.lower() == ".gz":
+        return path.read_bytes()  # cut after decompressing
+    chunks, newlines = [], 0
+    with path.open("rb") as handle:
+        while newlines <= max_lines:
+            chunk = handle.read(1 << 20)
+            if not chunk:
+                return b"".join(chunks)
+            chunks.append(chunk)
+            newlines += chunk.count(b"\n")
+    return _first_lines(b"".join(chunks), max_lines)
+
+
+def _first_lines(data: bytes, max_lines: int) -> bytes:
+    """The first ``1 + max_lines`` lines of ``data`` (all of it when shorter)."""
+    cut = -1
+    for _ in range(max_lines + 1):
+        cut = data.find(b"\n", cut + 1)
+        if cut < 0:
+            return data
+    return data[:cut + 1]
 
 
 def _looks_binary(head: bytes) -> bool:

@@ -12,7 +12,7 @@ raising.
 from __future__ import annotations
 
 import re
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Union
@@ -143,7 +143,7 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
             mapped = f" (mapped to source column {theirs!r})" if theirs != ours else ""
             what = "required column" if ours in required else "column (read by a static covariate)"
             raise CohortInputError(
-                f"{label}: {what} {ours!r}{mapped} is missing; {_describe_columns(present)}. Rename the "
+                f"{label}: {what} {ours!r}{mapped} is missing; {describe_columns(present)}. Rename the "
                 f"column or map it in [sources.{table}] columns = {{ {ours} = \"<source column>\" }}.")
     optional = [c for c in OPTIONAL[table] if c not in extra]
     wanted = list(dict.fromkeys(list(required) + list(extra) + [c for c in optional if columns.get(c, c) in present]))
@@ -154,7 +154,7 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         if not variables:
             raise CohortInputError(
                 f"{label}: wide measurement table has none of the variable columns "
-                f"{[v.name for v in spec.variables]}; {_describe_columns(present)}")
+                f"{[v.name for v in spec.variables]}; {describe_columns(present)}")
         # A blank cell of a wide table is no measurement (UNPIVOT leaves out NULLs).
         selects += [f"nullif(trim(CAST({quote(columns.get(v, v))} AS VARCHAR)), '') AS {quote(v)}"
                     for v in variables]
@@ -171,11 +171,12 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
     return LoadedTable(table, label, tuple(wanted), types, date_format, file_columns, row_word)
 
 
-def _describe_columns(present: Mapping[str, str]) -> str:
+def describe_columns(present: Iterable[str]) -> str:
     """The file's column names for a message; names that look like data (a headerless file's first row:
     ids, dates, numbers, sentences) are counted, not shown."""
-    shown = sorted(n for n in present if _NAME_LIKE.match(n) and not _DIGIT_RUN.search(n))
-    hidden = len(present) - len(shown)
+    names = list(present)
+    shown = sorted(n for n in names if _NAME_LIKE.match(n) and not _DIGIT_RUN.search(n))
+    hidden = len(names) - len(shown)
     text = f"the file's columns are {shown}"
     if hidden:
         text += (f" and {hidden} name(s) that look like data, not shown (is line 1 a data row? line 1 must "

@@ -319,3 +319,22 @@ def test_typed_dates_time_zone_aware_is_one_line_and_old_dates_are_implausible()
     meas["date"] = pd.to_datetime(["2020-01-01", "1850-01-01"])
     cohort = build_cohort(patients, meas, outcomes, SPEC, run_day=RUN_DAY)
     assert _states(cohort, "measurements") == [S.USED, S.IMPLAUSIBLE_DATE]
+
+
+def test_sample_of_the_first_lines(tmp_path) -> None:
+    """``max_lines`` reads the header and that many lines (plain and gzip files), numbered as in the file."""
+    import gzip
+
+    from riskbench.cohort.csv_lines import read_csv_lines
+
+    path = _write(_tables(50), tmp_path)[1]
+    lines = path.read_text().splitlines()
+    lines.insert(3, "")
+    path.write_text("\n".join(lines) + "\n")
+    packed = tmp_path / "measurements.csv.gz"
+    packed.write_bytes(gzip.compress(path.read_bytes()))
+    for source in (path, packed):
+        sample = read_csv_lines(source, "measurements", max_lines=10)
+        assert sample.rows.column("row_number").to_pylist() == [2, 3, *range(5, 12)]
+        assert sample.other_lines.to_pylist() == [{"row_number": 4, "state": "blank_line"}]
+    assert read_csv_lines(path, "measurements", max_lines=1000).rows.num_rows == 50
