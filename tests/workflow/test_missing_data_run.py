@@ -85,3 +85,6 @@ def test_every_stage_runs_and_reports(cohort: Path, imaging_method: str) -> None
         cv = pd.read_parquet(run_dir / "data" / "cv_predictions.parquet")
         unpredicted = cv[cv["model"] == "imaging_clinical"]["risk"].isna().groupby(cv["row"]).all()
         assert 0.2 < unpredicted.mean() < 0.4  # the rows without a suspicion score
+        notes = B.notes_of(run_dir)
+        left_out = notes[notes["text"].str.contains("without a prediction from a complete-case model")]
+        assert len(left_out) == 1 and "complete_cases" in left_out["text"].iloc[0]
