@@ -42,7 +42,13 @@ from riskbench.workflow.fit_diagnosis import count_text
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_models import FIT_ERRORS
 from riskbench.workflow.stage_result import StageResult
-from riskbench.workflow.stage_validation import bootstrap_resamples, execution, failure_notes, warning_notes
+from riskbench.workflow.stage_validation import (
+    bootstrap_resamples,
+    execution,
+    failure_notes,
+    outcomes_before,
+    warning_notes,
+)
 
 #: Measures shown in the comparison table (the validation stage computes a few more).
 COMPARISON_METRICS: tuple[str, ...] = ("harrell_c", "uno_c", "auc", "brier", "scaled_brier",
@@ -131,11 +137,6 @@ def comparison_table(comparison: Comparison, reference: str, candidate: str) -> 
     return pd.DataFrame(rows)
 
 
-def outcomes_before(time: np.ndarray, status: np.ndarray, horizon: float) -> int:
-    """Landmark rows with the outcome by ``horizon`` (days), as the horizon's measures see them."""
-    return int(((time <= evaluation_time(horizon, time)) & (status == 1)).sum())
-
-
 class _Notes:
     """The comparison stage's notes, and a way to attempt one part for one model without stopping the run."""
 
@@ -173,6 +174,7 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     result = StageResult(stage="comparison", run_dir=run_dir)
     notes = _Notes()
     fits: list[tuple[str, list[FitWarning]]] = []
+    report_days: tuple[float, ...] = ()
     with recorded_warnings() as stray:
         if not _switch(config, "example_timelines"):
             notes.add("example timelines", "switched off by [report] example_timelines = false.",
@@ -180,6 +182,10 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
         if len(cv):
             horizons, risks = risk_matrices(cv, len(stack))
             keep = predicted_rows([risks])  # the rows every model predicts (complete cases leave some out)
+            if not keep.all():
+                notes.add("performance", f"{int((~keep).sum())} landmark rows without a prediction from a "
+                          "complete-case model are left out of every model's performance (table complete_cases).",
+                          kind="not computed")
             time, status, risks = time[keep], status[keep], {m: r[keep] for m, r in risks.items()}
             report_days = _horizons_with_outcomes(config, time, status, threshold, notes)
             _performance(config, time, status, horizons, risks, report_days, result, notes)
@@ -187,7 +193,7 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
         else:
             notes.add("performance", "not computed: no model has cross-validated predictions (see the notes of "
                       "the models and validation stages).")
-        _comparison(config, stack, cp, cv, result, notes, fits)
+        _comparison(config, stack, cp, cv, report_days, result, notes, fits)
     if stray:
         fits.append(("(outside the fits)", list(stray)))
     save_notes(run_dir, "comparison", notes.notes, count_warnings(fits))
@@ -324,8 +330,9 @@ def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, hor
 
 
 def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, cv: pd.DataFrame,
-                result: StageResult, notes: _Notes, fits: list) -> None:
-    """The paired bootstrap comparison of the candidate against the reference (or a note why not)."""
+                report_days: tuple[float, ...], result: StageResult, notes: _Notes, fits: list) -> None:
+    """The paired bootstrap comparison of the candidate against the reference at the report horizons with
+    enough outcomes (or a note why not)."""
     part = "comparison of the model sets"
     pair = getattr(config, "comparison", None)
     if not pair or None in tuple(pair):
@@ -344,10 +351,13 @@ def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, c
         notes.add(part, f"not computed: model(s) {', '.join(repr(m) for m in absent)} could not be fitted "
                   "(see the notes above).")
         return
+    if not report_days:
+        notes.add(part, "not computed: no report horizon has enough outcomes before it (see the notes above).")
+        return
     specs = [model_spec(config.model(reference), config.missing_data),
              model_spec(config.model(candidate), config.missing_data)]
     try:
-        comparison = compare_specs(specs, PrecomputedTables(stack, cp), list(config.report.horizons_days),
+        comparison = compare_specs(specs, PrecomputedTables(stack, cp), list(report_days),
                                    n_boot=n_boot, seed=config.validation.seed, pairs=[(0, 1)],
                                    config=execution(config))
     except ValidationInputError as exc:  # every resample failed; the message gives the first reasons

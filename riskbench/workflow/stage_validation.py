@@ -27,6 +27,7 @@ from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.optimism import bootstrap_optimism_result
 from riskbench.validation.parallel import ExecutionConfig, run_replicates
+from riskbench.validation.performance import evaluation_time, stack_outcome
 from riskbench.validation.plans import patient_folds
 from riskbench.validation.sources import PrecomputedTables
 from riskbench.workflow.config import AnalysisConfig
@@ -46,6 +47,20 @@ def bootstrap_resamples(config: AnalysisConfig) -> int:
     """``[validation] bootstrap_resamples`` (read through the old name until the new schema is in)."""
     plan = config.validation
     return int(getattr(plan, "bootstrap_resamples", getattr(plan, "bootstrap_reps", 0)))
+
+
+def outcomes_before(time: np.ndarray, status: np.ndarray, horizon: float) -> int:
+    """Landmark rows with the outcome by ``horizon`` (days), as the horizon's measures see them."""
+    return int(((time <= evaluation_time(horizon, time)) & (status == 1)).sum())
+
+
+def measurable_horizons(config: AnalysisConfig, stack: pd.DataFrame) -> tuple[float, ...]:
+    """Report horizons (days) with at least the small-count threshold of outcomes before them in ``stack``;
+    at the others AUC, Brier score and calibration would rest on a handful of patients (the comparison stage
+    notes them)."""
+    time, status = stack_outcome(stack)
+    least = max(config.report.small_count_threshold, 1)
+    return tuple(h for h in config.report.horizons_days if outcomes_before(time, status, h) >= least)
 
 
 def fitted_models(config: AnalysisConfig, run_dir: Path) -> list[Any]:
@@ -176,11 +191,15 @@ def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: l
     if not models:
         return [Note("validation", "bootstrap optimism", "not computed: no model could be fitted in every "
                      "cross-validation fold.")]
+    horizons = measurable_horizons(config, tables["landmark_stack"])
+    if not horizons:
+        return [Note("validation", "bootstrap optimism", "not computed: no report horizon has enough outcomes "
+                     "before it ([report] report_horizons, small_count_threshold).")]
     try:
         outcome = bootstrap_optimism_result(
             [model_spec(m, config.missing_data) for m in models],
             PrecomputedTables(tables["landmark_stack"], tables["counting_process"]),
-            list(config.report.horizons_days), n_boot=n_boot, seed=config.validation.seed,
+            list(horizons), n_boot=n_boot, seed=config.validation.seed,
             config=execution(config))
     except ValidationInputError as exc:  # every resample failed (the message gives the first reasons)
         return [Note("validation", "bootstrap optimism", f"not computed: {exc}")]

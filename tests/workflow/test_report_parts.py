@@ -177,3 +177,19 @@ def test_no_competing_events_runs_without_empty_competing_columns(tmp_path):
         assert not empty, f"{csv.name}: empty columns {empty}"
     assert (run_dir / "tables" / "triage_operating_point.csv").exists()
     assert (run_dir / "report.html").is_file()
+
+
+def test_a_horizon_with_too_few_outcomes_gets_a_note_instead_of_measures(cohort):
+    """Fewer outcomes before a report horizon than the small-count threshold: no AUC, concordance, Brier
+    score or calibration there (they would rest on a handful of patients), a note, and the other horizon reports."""
+    stack = pd.read_parquet(cohort / "cohort_run" / "data" / "landmark_stack.parquet")
+    assert ((stack["time"] <= 91.3125) & (stack["status"] == 1)).sum() < 10  # the premise
+    run_dir = _run_later(cohort, "short", report={"report_horizons": ["3 months", "2 years"]})
+    notes = B.notes_of(run_dir).set_index("part")["text"]
+    text = notes["measures at 0.25 years"]
+    assert "fewer than 10 outcomes before 0.25 years" in text and "[report] report_horizons" in text
+    assert "resamples dropped" not in set(B.notes_of(run_dir)["kind"])  # the comparison skips that horizon too
+    assert set(pd.read_csv(run_dir / "tables" / "discrimination.csv")["horizon_years"]) == {2.0}
+    assert set(pd.read_csv(run_dir / "tables" / "calibration_summary.csv")["horizon_years"]) == {2.0}
+    assert not list((run_dir / "figures").glob("calibration_*_0_25y.png"))
+    assert set(pd.read_csv(run_dir / "tables" / "auc_by_horizon.csv")["horizon"]) >= {730.5}
