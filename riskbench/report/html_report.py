@@ -19,6 +19,7 @@ from pathlib import Path
 import pandas as pd
 
 from riskbench.report.display_format import display_table
+from riskbench.report.notes import notes_html
 from riskbench.report.outputs import FIGURES, TABLES, atomic_write_text, restore_csv_cell
 
 
@@ -202,6 +203,7 @@ def build_report(
         parts.extend(_figure_html(p) for p in figures)
         parts.extend(_table_html(p) for p in tables)
         parts.append("</section>")
+    parts.append(notes_html(run_dir))  # what was left out or could not be computed, and fitting warnings
     parts.append('<p class="meta">Every number above comes from the files in <code>tables/</code> and '
                  "<code>figures/</code> of this run; <code>manifest.json</code> records the configuration, "
                  "the input files' SHA-256, the software versions and the seeds.</p></body></html>")
