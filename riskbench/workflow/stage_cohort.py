@@ -173,7 +173,7 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     result.tables["baseline_characteristics"] = baseline_table(
         patients, at_entry, covariates, threshold=threshold, labels=labels)
 
-    if config.report.example_patients > 0:
+    if getattr(config.report, "example_timelines", True) and config.report.example_patients > 0:
         chosen = choose_example_patients(cp, config.report.example_patients, config.seed)
         columns = time_varying_columns(config)
         figure = label_timeline_panels(timeline_figure(cp, chosen, columns), columns, labels)
