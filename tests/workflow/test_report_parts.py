@@ -193,3 +193,21 @@ def test_a_horizon_with_too_few_outcomes_gets_a_note_instead_of_measures(cohort)
     assert set(pd.read_csv(run_dir / "tables" / "calibration_summary.csv")["horizon_years"]) == {2.0}
     assert not list((run_dir / "figures").glob("calibration_*_0_25y.png"))
     assert set(pd.read_csv(run_dir / "tables" / "auc_by_horizon.csv")["horizon"]) >= {730.5}
+
+
+def test_a_model_that_cannot_be_fitted_on_the_whole_cohort_is_a_note_and_the_others_report(cohort):
+    """``age`` at a landmark is ``age_at_entry`` plus the landmark time, so with the smooth baseline's landmark
+    term the design is collinear: that model fails, the two others go through every stage."""
+    ages = {"name": "ages", "covariates": ["age", "age_at_entry"],
+            "params": {"landmark_effects": "none", "baseline": "smooth"}}
+    run_dir = _run_later(cohort, "ages", models=[*B.DEFAULT_MODELS, ages])
+    notes = B.notes_of(run_dir)
+    failed = notes[notes["kind"] == "fit failed"]
+    assert failed[["stage", "model"]].values.tolist() == [["models", "ages"]]  # not tried again later
+    text = failed["text"].iloc[0]
+    assert "covariates 'age', 'age_at_entry' together with the landmark terms of the smooth baseline" in text
+    assert "[[models]] covariates of 'ages'" in text and "left out of the rest of the report" in text
+    assert not (run_dir / "tables" / "coefficients_ages.csv").exists()
+    assert set(pd.read_parquet(run_dir / "data" / "cv_predictions.parquet")["model"]) == {"clinical", "imaging_clinical"}
+    assert (run_dir / "tables" / "model_comparison.csv").exists()
+    assert html.escape(text) in (run_dir / "report.html").read_text()
