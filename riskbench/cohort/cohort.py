@@ -163,7 +163,7 @@ class Cohort:
 
 def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec: CohortSpec, *,
                  memory_limit: str | None = None, threads: int | None = None,
-                 run_day: datetime.date | None = None) -> Cohort:
+                 run_day: datetime.date | None = None, temp_folder: str | Path | None = None) -> Cohort:
     """Check the sources, keep the ledger and build the counting-process table.
 
     Parameters
@@ -180,6 +180,10 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
     run_day : datetime.date, optional
         The day of the run (default: today); a date after it is in the future (ledger state
         ``future_date``).
+    temp_folder : path, optional
+        Where the DuckDB spill files and the counting-process Parquet file live while the cohort exists
+        (they hold source ids; default: the system temporary folder). The notebook runner passes a folder
+        inside the run's staging folder, removed however the run ends.
 
     Returns
     -------
@@ -193,7 +197,9 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
         with different contents, or same-time values conflict under rule "error". Messages give files,
         columns, line (CSV) or row (Parquet, DataFrame) numbers and counts, never patient ids or cell values.
     """
-    spill = tempfile.TemporaryDirectory(prefix="riskbench_duckdb_")
+    if temp_folder is not None:
+        Path(temp_folder).mkdir(mode=0o700, parents=True, exist_ok=True)
+    spill = tempfile.TemporaryDirectory(prefix="riskbench_duckdb_", dir=temp_folder)
     config: dict[str, object] = {"preserve_insertion_order": True, "temp_directory": spill.name}
     if memory_limit:
         config["memory_limit"] = memory_limit

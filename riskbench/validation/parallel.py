@@ -2,17 +2,31 @@
 
 Each replicate receives its own :class:`numpy.random.SeedSequence`, spawned from one seed, and
 results come back in replicate order, so serial, local-parallel and Dask runs give identical numbers.
+
+Where the data goes
+-------------------
+Serial and joblib runs stay on this machine: joblib's loky workers are local processes fed through pipes,
+and the arrays they share are memory-mapped in joblib's temporary folder (``JOBLIB_TEMP_FOLDER``; the
+notebook runner points it inside the run's staging folder). Dask is contacted only when a scheduler
+address is configured. A scheduler that is not on this machine (not a loopback address) is refused
+unless ``allow_remote_scheduler`` is true *and* the three TLS files are given; the connection then uses
+``tls://`` with Dask's ``Security(require_encryption=True)``. A loopback scheduler whose workers run on
+other machines is refused the same way before any data is sent (:func:`check_scheduler`,
+:func:`check_workers`).
 """
 
 from __future__ import annotations
 
+import ipaddress
 import sys
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any, TypeVar
+from urllib.parse import urlsplit
 
 import numpy as np
-from tqdm.auto import tqdm
+from tqdm.std import tqdm  # plain bars: tqdm.auto warns in a notebook kernel without ipywidgets
 
 from riskbench.validation.errors import ValidationInputError
 
@@ -31,22 +45,141 @@ class ExecutionConfig:
         Local worker processes (joblib, loky backend); 1 runs in this process, -1 uses every core.
         Ignored when ``scheduler_address`` is set.
     scheduler_address : str, optional
-        Address of a running Dask distributed scheduler, e.g. ``"tcp://10.0.0.5:8786"``; when set,
-        replicates run on that cluster.
+        Address of a running Dask distributed scheduler, e.g. ``"tcp://127.0.0.1:8786"`` or
+        ``"tls://10.0.0.5:8786"``; when set, replicates run on that cluster (see :func:`check_scheduler`).
     progress : bool, optional
         Show a progress bar; by default only when standard error is an interactive terminal.
     connect_timeout_s : float, default 20
         Seconds to wait for the Dask scheduler before giving up.
+    allow_remote_scheduler : bool, default False
+        Allow a scheduler or workers that are not on this machine (then TLS is required).
+    tls_ca_file, tls_client_cert_file, tls_client_key_file : str, optional
+        PEM files for Dask's TLS: the certificate authority, this client's certificate and its key.
     """
 
     n_jobs: int = 1
     scheduler_address: str | None = None
     progress: bool | None = None
     connect_timeout_s: float = 20.0
+    allow_remote_scheduler: bool = False
+    tls_ca_file: str | None = None
+    tls_client_cert_file: str | None = None
+    tls_client_key_file: str | None = None
 
     def __post_init__(self) -> None:
         if not isinstance(self.n_jobs, (int, np.integer)) or self.n_jobs == 0 or self.n_jobs < -1:
             raise ValidationInputError(f"n_jobs must be a positive integer or -1 (all cores); got {self.n_jobs!r}.")
+
+    @classmethod
+    def from_plan(cls, plan: Any, *, progress: bool | None = None) -> ExecutionConfig:
+        """The execution settings of an ``[execution]`` plan (``workers``, ``scheduler_address``,
+        ``allow_remote_scheduler``, ``tls_ca_file``, ``tls_client_cert_file``, ``tls_client_key_file``)."""
+        files = {k: (str(getattr(plan, k)) if getattr(plan, k, None) else None) for k in TLS_KEYS}
+        return cls(n_jobs=int(getattr(plan, "workers", 1)), scheduler_address=getattr(plan, "scheduler_address", None)
+                   or None, progress=progress,
+                   allow_remote_scheduler=bool(getattr(plan, "allow_remote_scheduler", False)), **files)
+
+
+TLS_KEYS: tuple[str, ...] = ("tls_ca_file", "tls_client_cert_file", "tls_client_key_file")
+SCHEMES: tuple[str, ...] = ("tcp", "tls")
+
+
+def scheduler_host(address: str) -> tuple[str, str]:
+    """``(scheme, host)`` of a Dask address such as ``tls://10.0.0.5:8786`` or ``127.0.0.1:8786``
+    (scheme ``tcp`` when none is written); raises ValueError for an address that cannot be parsed."""
+    text = address.strip()
+    parts = urlsplit(text if "://" in text else f"tcp://{text}")
+    if not parts.hostname:
+        raise ValueError(address)
+    parts.port  # noqa: B018 - raises ValueError for a port that is not a number
+    return parts.scheme.lower(), parts.hostname
+
+
+def is_loopback(host: str) -> bool:
+    """True for ``localhost`` and loopback IP addresses (127.0.0.0/8, ::1): traffic stays on this machine."""
+    if host.lower() == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
+
+
+def check_scheduler(plan: Any) -> list[str]:
+    """Problems with the Dask settings of an ``[execution]`` plan; empty when they may be used.
+
+    Rules: no address means local processes (Dask is not contacted). The address must be ``tcp://`` or
+    ``tls://`` host:port. An address that is not loopback needs ``allow_remote_scheduler = true``, the
+    ``tls://`` scheme and the three TLS files (existing files), because patient-level tables would leave
+    this machine. Each problem names the ``[execution]`` key and the fix.
+    """
+    address = (getattr(plan, "scheduler_address", None) or "").strip()
+    if not address:
+        return []
+    try:
+        scheme, host = scheduler_host(address)
+    except ValueError:
+        return [f"[execution] scheduler_address = {address!r} is not a Dask address; write tcp://HOST:PORT for a "
+                "scheduler on this machine or tls://HOST:PORT, or leave it empty to run on local processes"]
+    if scheme not in SCHEMES:
+        return [f"[execution] scheduler_address = {address!r} uses {scheme}://, which riskbench does not use; "
+                "write tcp://HOST:PORT (this machine) or tls://HOST:PORT"]
+    problems: list[str] = []
+    files = {k: getattr(plan, k, None) for k in TLS_KEYS}
+    if not is_loopback(host):
+        if not getattr(plan, "allow_remote_scheduler", False):
+            problems.append(
+                f"[execution] scheduler_address = {address!r} is not on this machine: patient-level tables would "
+                "be sent to it; set allow_remote_scheduler = true and give tls_ca_file, tls_client_cert_file and "
+                "tls_client_key_file, or leave scheduler_address empty to run on local processes")
+        if scheme != "tls":
+            problems.append(f"[execution] scheduler_address = {address!r}: a scheduler on another machine must be "
+                            f"reached over TLS; write tls://{address.split('://')[-1]}")
+        missing = [k for k, v in files.items() if not v]
+        if missing:
+            problems.append(f"[execution] {', '.join(missing)} not set: a scheduler on another machine needs all "
+                            "three TLS files (certificate authority, client certificate, client key)")
+    problems += [f"[execution] {k} = {str(v)!r} is not a readable file; give the path of the PEM file"
+                 for k, v in files.items() if v and not Path(v).is_file()]
+    if scheme == "tls" and is_loopback(host) and not all(files.values()):
+        problems.append(f"[execution] scheduler_address = {address!r} uses TLS: give tls_ca_file, "
+                        "tls_client_cert_file and tls_client_key_file")
+    return problems
+
+
+def check_workers(worker_addresses: Iterable[str], allow_remote: bool) -> list[str]:
+    """Problems with the workers a scheduler reports: a worker off this machine needs the remote opt-in."""
+    if allow_remote:
+        return []
+    remote = sorted({host for a in worker_addresses for _, host in [scheduler_host(a)] if not is_loopback(host)})
+    if not remote:
+        return []
+    return [f"the Dask scheduler has workers on other machines ({', '.join(remote)}): patient-level tables would be "
+            "sent to them; set [execution] allow_remote_scheduler = true with the TLS files, or use a scheduler "
+            "whose workers run on this machine"]
+
+
+def data_leaves_machine(plan: Any) -> bool:
+    """True when the plan sends replicate data to a Dask scheduler that is not on this machine."""
+    address = (getattr(plan, "scheduler_address", None) or "").strip()
+    if not address:
+        return False
+    try:
+        return not is_loopback(scheduler_host(address)[1])
+    except ValueError:
+        return True
+
+
+def execution_statement(plan: Any) -> str:
+    """One sentence for the report and the manifest: where the resampling replicates ran."""
+    address = (getattr(plan, "scheduler_address", None) or "").strip()
+    if not address:
+        return "no: every step ran on this machine (no network connection was opened)"
+    if data_leaves_machine(plan):
+        return (f"yes: resampling replicates (patient-level tables under run pseudonyms) were sent over TLS to the "
+                f"Dask scheduler at {address} and its workers")
+    return (f"no: resampling replicates ran on the Dask scheduler at {address} on this machine (loopback), "
+            "whose workers were checked to be on this machine")
 
 
 def replicate_seeds(seed: int, n: int) -> list[np.random.SeedSequence]:
@@ -160,14 +293,27 @@ def _run_dask(
             "a Dask scheduler address was configured but dask.distributed is not installed; "
             "install the 'cluster' extra (pip install 'riskbench[cluster]') or unset scheduler_address."
         ) from exc
+    problems = check_scheduler(config)
+    if problems:
+        raise ValidationInputError("; ".join(problems))
     address = config.scheduler_address
+    security = None
+    if scheduler_host(address)[0] == "tls":  # check_scheduler made sure the three files are given
+        from distributed.security import Security
+
+        security = Security(tls_ca_file=config.tls_ca_file, tls_client_cert=config.tls_client_cert_file,
+                            tls_client_key=config.tls_client_key_file, require_encryption=True)
     try:
-        client = Client(address, set_as_default=False, timeout=f"{config.connect_timeout_s}s")
+        client = Client(address, set_as_default=False, timeout=f"{config.connect_timeout_s}s", security=security)
     except (OSError, TimeoutError) as exc:
         raise ValidationInputError(
             f"cannot reach the Dask scheduler at {address!r} ({exc}); check the address and that the "
             "scheduler runs, or unset scheduler_address to run on local processes."
         ) from exc
+    problems = check_workers(client.scheduler_info().get("workers", {}), config.allow_remote_scheduler)
+    if problems:
+        client.close()
+        raise ValidationInputError("; ".join(problems))
     with client:
         shared_future = client.scatter(shared, broadcast=True)
         futures = [

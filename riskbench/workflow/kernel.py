@@ -10,6 +10,7 @@ from __future__ import annotations
 import os
 import sys
 import tempfile
+from pathlib import Path
 
 KERNEL_NAME = "riskbench"
 
@@ -50,14 +51,23 @@ def ensure_kernel(name: str = KERNEL_NAME) -> str:
     return name
 
 
-def local_socket_kernel_manager(folder: str) -> type:
-    """A kernel manager class that talks to the kernel over Unix-domain sockets in ``folder``, not TCP.
+LAUNCHER = "riskbench.workflow.kernel_launch"
 
-    Running the notebooks then opens no network port, not even on localhost. Keep ``folder`` short (socket
-    names are limited to about 100 characters), private, and remove it after the run.
+
+def local_socket_kernel_manager(folder: str, temp_folder: str | None = None) -> type:
+    """A kernel manager class whose kernel opens no TCP port and keeps its temporary files in ``temp_folder``.
+
+    The manager talks to the kernel over Unix-domain sockets in ``folder`` (ZeroMQ ``ipc`` transport: shell,
+    iopub, stdin, control and heartbeat), writes the connection file there, and starts the kernel through
+    :mod:`riskbench.workflow.kernel_launch`, which also moves ipykernel's subprocess-output pipe (TCP on
+    127.0.0.1 by default) to a Unix-domain socket in ``folder`` and sets the kernel's temporary folder to
+    ``temp_folder``. A run therefore opens no network port, not even on localhost. Keep ``folder`` short
+    (socket names are limited to about 100 characters), private, and remove it after the run.
     """
     from jupyter_client.manager import AsyncKernelManager
     from traitlets import default
+
+    temp = temp_folder or os.path.join(folder, "tmp")
 
     class LocalSocketKernelManager(AsyncKernelManager):
         @default("transport")
@@ -68,4 +78,28 @@ def local_socket_kernel_manager(folder: str) -> type:
         def _default_ip(self) -> str:
             return os.path.join(folder, "k")
 
+        @default("connection_file")
+        def _default_connection_file(self) -> str:
+            return os.path.join(folder, "kernel.json")
+
+        def format_kernel_cmd(self, extra_arguments: list[str] | None = None) -> list[str]:
+            cmd = super().format_kernel_cmd(extra_arguments)
+            try:
+                at = cmd.index("ipykernel_launcher")
+            except ValueError:
+                raise RuntimeError(f"the kernel spec does not start ipykernel_launcher ({cmd}); riskbench cannot "
+                                   "keep that kernel off the network") from None
+            return [*cmd[:at], LAUNCHER, folder, temp, *cmd[at + 1:]]
+
     return LocalSocketKernelManager
+
+
+def kernel_pids(folder: str) -> list[int]:
+    """Process ids of the kernels started with ``local_socket_kernel_manager(folder)``."""
+    pids = []
+    for path in Path(folder).glob("kernel-*.pid"):
+        try:
+            pids.append(int(path.read_text()))
+        except (OSError, ValueError):
+            continue
+    return pids

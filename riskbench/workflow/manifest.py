@@ -2,8 +2,9 @@
 
 ``manifest.json`` holds the configuration as read, SHA-256 of the configuration and of every input file,
 the versions of Python and of the packages that compute, the seeds, start and end times (UTC), the
-duration of each stage, the git commit of the riskbench source when it is a git checkout, and SHA-256 of
-every table and figure the run wrote.
+duration of each stage, the git commit of the riskbench source when it is a git checkout, SHA-256 of
+every table and figure the run wrote, and where the data went (``network``: whether anything was sent off
+this machine, and how the notebook kernel was reached).
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ from pathlib import Path
 from typing import Any
 
 from riskbench.report.outputs import FIGURES, TABLES, atomic_write_text
+from riskbench.validation.parallel import data_leaves_machine, execution_statement
 from riskbench.workflow.config import AnalysisConfig, file_sha256
 
 MANIFEST = "manifest.json"
@@ -58,6 +60,28 @@ def git_commit(source_dir: str | Path | None = None) -> dict[str, Any] | None:
     except (OSError, subprocess.SubprocessError):
         return None
     return {"commit": commit, "dirty": bool(status.strip())}
+
+
+def execution_plan(config: AnalysisConfig) -> Any:
+    """The ``[execution]`` plan of the configuration (built from the older ``[validation]`` keys when the
+    configuration object predates that section)."""
+    plan = getattr(config, "execution", None)
+    if plan is not None:
+        return plan
+    from types import SimpleNamespace
+
+    return SimpleNamespace(workers=getattr(config.validation, "n_jobs", 1),
+                           scheduler_address=getattr(config.validation, "dask_address", None),
+                           allow_remote_scheduler=False, tls_ca_file=None, tls_client_cert_file=None,
+                           tls_client_key_file=None)
+
+
+def network_record(config: AnalysisConfig) -> dict[str, Any]:
+    """Where the run's data went: sent off this machine or not, the Dask scheduler, the kernel transport."""
+    plan = execution_plan(config)
+    return {"data_left_machine": data_leaves_machine(plan), "statement": execution_statement(plan),
+            "scheduler_address": getattr(plan, "scheduler_address", None) or None,
+            "kernel_transport": "Unix-domain sockets (ZeroMQ ipc); no TCP or UDP port opened"}
 
 
 def input_files(config: AnalysisConfig) -> dict[str, Path]:
@@ -110,6 +134,7 @@ def build_manifest(
                      "python_executable": sys.executable},
         "git": git_commit(),
         "outputs_sha256": output_digests(run_dir),
+        "network": network_record(config),
     }
 
 

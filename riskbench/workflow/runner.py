@@ -1,44 +1,95 @@
 """Run the stage notebooks in order with papermill into a run folder, export them to HTML, write the manifest.
 
-Folder protocol
----------------
+Folder protocol (see :mod:`riskbench.workflow.run_folder`)
+---------------------------------------------------------
 The run is built in ``<parent>/.<name>.partial/`` and renamed to ``<parent>/<name>/`` only when every stage
-has finished and the manifest is written, so ``<name>/`` always holds a complete run. A leftover
-``.partial`` folder (an interrupted run) is discarded by the next run, which starts again from the first
-stage; every stage is deterministic given the configuration, so the final outputs are the same.
+has finished and the manifest is written, so ``<name>/`` always holds a complete run and nothing
+half-written ever replaces a good run. Every folder the runner creates carries the marker file
+``.riskbench-run``; ``overwrite`` replaces only a folder with that marker, and a leftover ``.partial`` or
+``.failed`` folder is removed only when it carries it. A lock file ``.<name>.lock`` beside the run folder
+refuses a second run into the same folder while the first is going (a stale lock, whose process is gone,
+is taken over with a message). A run started again after an interruption starts from the first stage;
+every stage is deterministic given the configuration, so the final outputs are the same.
+
 A failing stage stops the run: the folder, with the partial executed notebook, is kept as
-``<parent>/<name>.failed/`` and the error is reported in one line (stage, cell, error).
-An existing ``<name>/`` is replaced only when ``overwrite`` is true.
+``<parent>/<name>.failed/`` and the error is reported in one line (stage, cell, error). The terminal gets the
+full message; the manifest and the saved notebook get it scrubbed of raw values
+(:mod:`riskbench.workflow.saved_messages`).
+
+Temporary files and the network: the stages' temporary files (DuckDB spill files, joblib memory maps) are
+written in ``.tmp/`` inside the staging folder and removed on success, failure, Ctrl-C and SIGTERM. The
+kernel is reached over Unix-domain sockets only (:mod:`riskbench.workflow.kernel_launch`).
 """
 
 from __future__ import annotations
 
+import logging
 import os
 import shutil
+import signal
 import tempfile
+import threading
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import nbformat
 
-from riskbench.workflow.config import AnalysisConfig, load_config
-from riskbench.workflow.kernel import ensure_kernel, local_socket_kernel_manager
-from riskbench.workflow.manifest import build_manifest, utc_now, write_manifest
+from riskbench.cohort.reading import OPTIONAL, REQUIRED
+from riskbench.errors import RiskbenchError
+from riskbench.validation.parallel import check_scheduler
+from riskbench.workflow.config import AnalysisConfig, ConfigError, load_config
+from riskbench.workflow.kernel import LAUNCHER, ensure_kernel, kernel_pids, local_socket_kernel_manager
+from riskbench.workflow.manifest import build_manifest, execution_plan, input_files, utc_now, write_manifest
 from riskbench.workflow.notebook_builder import STAGE_NOTEBOOKS, write_notebooks
 from riskbench.workflow.notebook_html import export_html
+from riskbench.workflow.run_folder import (
+    TEMP,
+    NotARunFolder,
+    RunFolderExists,
+    RunLock,
+    RunPaths,
+    files_inside,
+    location_error,
+    pid_alive,
+    remove_owned,
+    why_not_a_run_folder,
+    write_marker,
+)
+from riskbench.workflow.saved_messages import scrub_notebook, scrub_text
 
 NOTEBOOKS = "notebooks"
 REPORT = "report.html"
+KERNEL_STOP_WAIT_S = 5.0
+USER_ERROR_MODULES: tuple[str, ...] = (
+    "riskbench.cohort.errors", "riskbench.models.risk_contract", "riskbench.models.cox_engine",
+    "riskbench.validation.errors", "riskbench.metrics.inputs", "riskbench.workflow.config", "riskbench.time_units",
+)
+
+__all__ = ["NotARunFolder", "RunFolderExists", "RunInterrupted", "RunResult", "StageFailed", "StageInputError",
+           "run_analysis"]
 
 
-class RunFolderExists(ValueError):
-    """The run folder exists and overwriting was not asked for."""
+class StageFailed(Exception):
+    """A stage notebook raised an internal error; the message is one line naming the stage, the cell and
+    the error (exit status 1 on the command line)."""
+
+    one_line_message = True
 
 
-class StageFailed(ValueError):
-    """A stage notebook raised; the message is one line naming the stage, the cell and the error."""
+class StageInputError(StageFailed, RiskbenchError):
+    """A stage rejected the configuration or the data (a :class:`~riskbench.errors.RiskbenchError` raised in
+    the notebook; exit status 2 on the command line)."""
+
+
+class RunInterrupted(KeyboardInterrupt):
+    """The run was stopped by Ctrl-C (SIGINT) or SIGTERM; its staging folder and temporary files are removed."""
+
+    def __init__(self, signum: int) -> None:
+        super().__init__(signum)
+        self.signum = signum
 
 
 @dataclass(frozen=True)
@@ -62,6 +113,33 @@ def _one_line(text: str, limit: int = 300) -> str:
     return line if len(line) <= limit else line[: limit - 3] + "..."
 
 
+def user_error_names() -> frozenset[str]:
+    """Class names of every :class:`RiskbenchError` subclass (how a notebook's error is classified)."""
+    import importlib
+
+    for module in USER_ERROR_MODULES:
+        importlib.import_module(module)
+    names, todo = set(), [RiskbenchError]
+    while todo:
+        cls = todo.pop()
+        names.add(cls.__name__)
+        todo += cls.__subclasses__()
+    return frozenset(names)
+
+
+def _socket_folder() -> str:
+    """A new private folder for the kernel's Unix-domain sockets (holds no data). Socket paths are limited
+    to about 100 characters, so a long temporary-folder path is replaced by /tmp."""
+    base = tempfile.gettempdir()
+    return tempfile.mkdtemp(prefix="rbk-", dir=base if len(base) <= 60 or not os.path.isdir("/tmp") else "/tmp")
+
+
+def _run_folder_path(out: str | Path) -> Path:
+    """``out`` made absolute without following a symbolic link at its last component."""
+    out = Path(os.path.abspath(out))
+    return out.parent.resolve() / out.name
+
+
 def run_analysis(
     config_path: str | Path,
     out: str | Path,
@@ -80,33 +158,92 @@ def run_analysis(
     out
         The run folder to create, e.g. ``results/demo``.
     overwrite
-        Replace an existing run folder (only once the new run has finished).
+        Replace an existing run folder made by riskbench (only once the new run has finished).
     notebooks_dir
         Folder with the stage notebooks; default the committed ``notebooks/`` (or freshly written ones).
     stages
         ``(stage name, notebook file)`` pairs, run in this order.
     log
-        Receives one progress line per stage; None for silence.
+        Receives one progress line per stage (and lock messages); None for silence.
 
     Raises
     ------
     RunFolderExists
         ``out`` exists and ``overwrite`` is false.
+    NotARunFolder
+        ``out`` (or a leftover beside it) is in the way and was not made by a riskbench run, or an input file
+        lies inside a folder the run would replace.
+    RunLocked
+        Another run is writing into ``out``.
+    RunLocationError
+        ``out`` cannot be created or written.
+    StageInputError
+        A stage rejected the configuration or the data (a RiskbenchError in the notebook).
     StageFailed
-        A stage notebook raised an error.
+        A stage notebook raised another error.
+    RunInterrupted
+        Ctrl-C or SIGTERM; nothing is left but what was there before.
     """
     say = log or (lambda _msg: None)
-    config: AnalysisConfig = load_config(config_path)
-    out = Path(out).resolve()
-    if out.exists() and not overwrite:
-        raise RunFolderExists(f"{out} already exists; choose another --out or pass --overwrite to replace it")
-    staging = out.parent / f".{out.name}.partial"
-    failed = out.parent / f"{out.name}.failed"
-    for leftover in (staging, failed):
-        if leftover.exists():
-            shutil.rmtree(leftover)
-    (staging / NOTEBOOKS).mkdir(parents=True)
+    config: AnalysisConfig = load_config(config_path, check_data=True)
+    problems = check_scheduler(execution_plan(config))
+    if problems:
+        raise ConfigError(f"{config.path}: " + "; ".join(problems))
+    paths = RunPaths(_run_folder_path(out))
+    inside = files_inside(input_files(config).values(), paths.owned())
+    if inside:
+        file, folder = inside[0]
+        raise NotARunFolder(f"the input file {file} lies inside {folder}, which this run would replace or remove; "
+                            "choose an --out elsewhere")
+    try:
+        paths.out.parent.mkdir(parents=True, exist_ok=True)
+        lock = RunLock(paths, say).acquire()
+    except OSError as exc:
+        raise location_error(exc, paths.out) from None
+    try:
+        with _signals_interrupt():
+            return _run_locked(config, paths, overwrite, notebooks_dir, stages, say)
+    finally:
+        lock.release()
 
+
+def _run_locked(config: AnalysisConfig, paths: RunPaths, overwrite: bool, notebooks_dir: str | Path | None,
+                stages: Sequence[tuple[str, str]], say: Callable[[str], None]) -> RunResult:
+    out, staging = paths.out, paths.staging
+    if out.exists() or out.is_symlink():
+        if not overwrite:
+            raise RunFolderExists(f"{out} already exists; choose another --out or pass --overwrite to replace it")
+        reason = why_not_a_run_folder(out)
+        if reason is not None:
+            raise NotARunFolder(f"--overwrite refused: {out} exists but {reason}; riskbench replaces only run "
+                                "folders it made. Move it away or choose another --out")
+    for leftover in (staging, paths.failed, paths.old):
+        remove_owned(leftover, "a leftover of an earlier run")
+    try:
+        staging.mkdir()
+        write_marker(staging, "partial")
+        (staging / NOTEBOOKS).mkdir()
+    except OSError as exc:
+        raise location_error(exc, out) from None
+    temp = staging / TEMP
+    sockets = _socket_folder()
+    try:
+        return _run_in_staging(config, paths, notebooks_dir, stages, temp, sockets, say)
+    except KeyboardInterrupt:
+        logging.getLogger("asyncio").setLevel(logging.CRITICAL)  # the notebook client's orphaned tasks
+        _stop_kernels(sockets)
+        shutil.rmtree(staging, ignore_errors=True)  # an interrupted run keeps nothing; the next run starts afresh
+        raise
+    finally:
+        _stop_kernels(sockets)
+        shutil.rmtree(temp, ignore_errors=True)
+        shutil.rmtree(sockets, ignore_errors=True)
+
+
+def _run_in_staging(config: AnalysisConfig, paths: RunPaths, notebooks_dir: str | Path | None,
+                    stages: Sequence[tuple[str, str]], temp: Path, sockets: str,
+                    say: Callable[[str], None]) -> RunResult:
+    staging = paths.staging
     if notebooks_dir is None:
         notebooks_dir = default_notebooks_dir()
     if notebooks_dir is None:  # an installed package without the source tree: write them afresh
@@ -115,60 +252,92 @@ def run_analysis(
     notebooks_dir = Path(notebooks_dir)
     kernel = ensure_kernel()
     started = utc_now()
-    with tempfile.TemporaryDirectory(prefix="rbk-") as sockets:
-        seconds = _run_stages(config, stages, notebooks_dir, staging, failed, kernel,
-                              local_socket_kernel_manager(sockets), started, say)
+    manager = local_socket_kernel_manager(sockets, str(temp))
+    seconds: dict[str, float] = {}
+    for name, notebook in stages:
+        say(f"stage {name}: running {notebook}")
+        t0 = time.perf_counter()
+        error = _execute(notebooks_dir / notebook, staging / NOTEBOOKS / notebook, config, staging, kernel, manager)
+        seconds[name] = time.perf_counter() - t0
+        if error is not None:
+            _stop_kernels(sockets)
+            shutil.rmtree(temp, ignore_errors=True)
+            raise _stop(config, paths, name, notebook, started, seconds, error)
+        export_html(staging / NOTEBOOKS / notebook, (staging / NOTEBOOKS / notebook).with_suffix(".html"))
+        say(f"stage {name}: done in {seconds[name]:.1f} s")
 
+    _stop_kernels(sockets)
+    shutil.rmtree(temp, ignore_errors=True)
     shutil.rmtree(staging / ".templates", ignore_errors=True)
+    write_marker(staging, "complete")
     manifest = build_manifest(config, staging, started=started, finished=utc_now(), stage_seconds=seconds)
     write_manifest(manifest, staging)
-    _move_into_place(staging, out)
+    _move_into_place(paths)
+    out = paths.out
     return RunResult(run_dir=out, report=out / REPORT, manifest=out / "manifest.json", stage_seconds=seconds)
 
 
-def _run_stages(config: AnalysisConfig, stages: Sequence[tuple[str, str]], notebooks_dir: Path, staging: Path,
-                failed: Path, kernel: str, manager: type, started: str,
-                say: Callable[[str], None]) -> dict[str, float]:
-    """Execute each stage notebook into the staging folder and export it; return seconds per stage."""
+def _execute(source: Path, executed: Path, config: AnalysisConfig, staging: Path, kernel: str,
+             manager: type) -> Exception | None:
+    """Run one notebook with papermill; return the notebook's error (None when it ran through)."""
     import papermill as pm
     from papermill.exceptions import PapermillExecutionError
 
-    seconds: dict[str, float] = {}
-    for name, notebook in stages:
-        source = notebooks_dir / notebook
-        executed = staging / NOTEBOOKS / notebook
-        say(f"stage {name}: running {notebook}")
-        t0 = time.perf_counter()
-        try:
-            pm.execute_notebook(
-                str(source), str(executed),
-                parameters={"config_path": str(config.path), "run_dir": str(staging)},
-                kernel_name=kernel, language="python", progress_bar=False, log_output=False, cwd=str(staging),
-                request_save_on_cell_execute=True, kernel_manager_class=manager,
-            )
-        except PapermillExecutionError as exc:
-            seconds[name] = time.perf_counter() - t0
-            raise _stop(config, staging, failed, name, notebook, started, seconds, exc) from None
-        seconds[name] = time.perf_counter() - t0
-        export_html(executed, executed.with_suffix(".html"))
-        say(f"stage {name}: done in {seconds[name]:.1f} s")
-    return seconds
-
-
-def _stop(config: AnalysisConfig, staging: Path, failed: Path, stage: str, notebook: str, started: str,
-          seconds: dict[str, float], exc: Exception) -> StageFailed:
-    """Keep the partial run as ``<name>.failed`` and build the one-line error."""
-    cell = _failing_cell(staging / NOTEBOOKS / notebook)
-    ename = getattr(exc, "ename", type(exc).__name__)
-    evalue = _one_line(getattr(exc, "evalue", str(exc)))
-    message = f"stage {stage} failed in cell {cell}: {ename}: {evalue}"
     try:
-        write_manifest(build_manifest(config, staging, started=started, finished=utc_now(),
-                                      stage_seconds=seconds, status="failed", failure=message), staging)
-    except OSError:  # the one-line error matters more than the manifest of a failed run
+        pm.execute_notebook(
+            str(source), str(executed),
+            parameters={"config_path": str(config.path), "run_dir": str(staging)},
+            kernel_name=kernel, language="python", progress_bar=False, log_output=False, cwd=str(staging),
+            request_save_on_cell_execute=True, kernel_manager_class=manager,
+        )
+    except PapermillExecutionError as exc:
+        return exc
+    except RuntimeError as exc:  # the kernel died (nbclient's DeadKernelError) or could not start
+        return exc
+    return None
+
+
+def _saved_names(config: AnalysisConfig) -> set[str]:
+    """Names that saved messages may show as they are: configuration names and input file names."""
+    names = {m.name for m in config.models} | {c for m in config.models for c in m.covariates}
+    cohort = config.cohort
+    names |= {str(v.name) for v in getattr(cohort, "variables", ())}
+    names |= set(getattr(cohort, "static", ())) | set(getattr(cohort, "covariate_columns", ()))
+    names |= {str(k) for k in (getattr(cohort, "columns", None) or {})}
+    for key in ("patients", "measurements", "outcomes"):
+        names.add(key)
+        source = getattr(config.sources, key, None)
+        names |= {str(k) for k in (getattr(source, "columns", None) or {})}
+    names |= {p.name for p in input_files(config).values()}
+    names |= {c for table in (REQUIRED, OPTIONAL) for columns in table.values() for c in columns}
+    return names
+
+
+def _stop(config: AnalysisConfig, paths: RunPaths, stage: str, notebook: str, started: str,
+          seconds: dict[str, float], exc: Exception) -> StageFailed:
+    """Keep the partial run as ``<name>.failed`` (messages scrubbed) and build the one-line error."""
+    staging, failed = paths.staging, paths.failed
+    executed = staging / NOTEBOOKS / notebook
+    cell = _failing_cell(executed)
+    ename = getattr(exc, "ename", type(exc).__name__)
+    evalue = getattr(exc, "evalue", str(exc))
+    user = ename in user_error_names()
+    names, files = _saved_names(config), [str(p) for p in input_files(config).values()]
+    where = f"stage {stage} failed in cell {cell}: {ename}"
+    saved = f"{where}: {scrub_text(evalue, names, files)}"
+    try:
+        if executed.is_file():
+            scrub_notebook(executed, names, files)
+        write_marker(staging, "failed")
+        write_manifest(build_manifest(config, staging, started=started, finished=utc_now(), stage_seconds=seconds,
+                                      status="failed", failure=saved), staging)
+    except (OSError, ValueError):  # the one-line error matters more than the record of a failed run
         pass
     os.replace(staging, failed)
-    return StageFailed(f"{message} (partial notebook kept: {failed / NOTEBOOKS / notebook})")
+    advice = ("fix the configuration or the data as the message says and run again" if user else
+              "this looks like a problem in riskbench or its environment; rerun with --debug and report it")
+    cls = StageInputError if user else StageFailed
+    return cls(f"{where}: {_one_line(evalue)} (partial run kept in {failed}; {advice})")
 
 
 def _failing_cell(path: Path) -> str:
@@ -185,14 +354,92 @@ def _failing_cell(path: Path) -> str:
     return "?"
 
 
-def _move_into_place(staging: Path, out: Path) -> None:
-    """Rename the finished staging folder to ``out``, replacing an old run only at the very end."""
-    if out.exists():
-        old = out.parent / f".{out.name}.old"
-        if old.exists():
+def _move_into_place(paths: RunPaths) -> None:
+    """Rename the finished staging folder to ``out``, replacing an old run (checked again) only at the very
+    end; Ctrl-C and SIGTERM wait until both renames are done."""
+    out, staging, old = paths.out, paths.staging, paths.old
+    with _signals_deferred():
+        if out.exists() or out.is_symlink():
+            reason = why_not_a_run_folder(out)
+            if reason is not None:
+                raise NotARunFolder(f"{out} appeared during the run and {reason}; the new run is left in {staging}")
+            os.replace(out, old)
+            os.replace(staging, out)
             shutil.rmtree(old)
-        os.replace(out, old)
-        os.replace(staging, out)
-        shutil.rmtree(old)
-    else:
-        os.replace(staging, out)
+        else:
+            os.replace(staging, out)
+
+
+# --------------------------------------------------------------------------------------------------
+# Signals and kernels
+
+
+def _in_main_thread() -> bool:
+    return threading.current_thread() is threading.main_thread()
+
+
+@contextmanager
+def _signals_interrupt() -> Iterator[None]:
+    """Turn SIGTERM into :class:`RunInterrupted` (Ctrl-C already raises KeyboardInterrupt) while running."""
+    if not _in_main_thread():
+        yield
+        return
+
+    def interrupt(signum: int, _frame: object) -> None:
+        raise RunInterrupted(signum)
+
+    previous = signal.signal(signal.SIGTERM, interrupt)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+@contextmanager
+def _signals_deferred() -> Iterator[None]:
+    """Hold SIGINT and SIGTERM back until the block is done (they are delivered afterwards)."""
+    if not _in_main_thread():
+        yield
+        return
+    blocked = {signal.SIGINT, signal.SIGTERM}
+    signal.pthread_sigmask(signal.SIG_BLOCK, blocked)
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, blocked)
+
+
+def _is_our_kernel(pid: int, sockets: str) -> bool:
+    try:
+        with open(f"/proc/{pid}/cmdline", "rb") as handle:
+            cmdline = handle.read().decode(errors="replace").split("\0")
+    except OSError:
+        return False
+    return LAUNCHER in cmdline and sockets in cmdline
+
+
+def _stop_kernels(sockets: str) -> None:
+    """End every kernel (and its process group: joblib workers) started for this run that still runs."""
+    pids = [p for p in kernel_pids(sockets) if pid_alive(p) and _is_our_kernel(p, sockets)]
+    for sig in (signal.SIGTERM, signal.SIGKILL):
+        for pid in pids:
+            try:
+                os.killpg(pid, sig)  # the kernel leads its own session and process group
+            except (ProcessLookupError, PermissionError):
+                pass
+        deadline = time.monotonic() + KERNEL_STOP_WAIT_S
+        while time.monotonic() < deadline and any(pid_alive(p) for p in pids):
+            _reap(pids)
+            time.sleep(0.05)
+        _reap(pids)
+        pids = [p for p in pids if pid_alive(p)]
+        if not pids:
+            return
+
+
+def _reap(pids: Sequence[int]) -> None:
+    for pid in pids:
+        try:
+            os.waitpid(pid, os.WNOHANG)
+        except ChildProcessError:
+            pass

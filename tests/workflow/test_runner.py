@@ -14,28 +14,24 @@ import nbformat
 import pytest
 from nbformat.v4 import new_code_cell, new_notebook
 
+from riskbench.demo.subset import write_subset
 from riskbench.workflow.config import file_sha256
+from riskbench.workflow.run_folder import write_marker
 from riskbench.workflow.runner import RunFolderExists, StageFailed, run_analysis
 
-CONFIG = """
-seed = 3
-[sources.patients]
-path = "patients.csv"
-[sources.measurements]
-path = "measurements.csv"
-[sources.outcomes]
-path = "outcomes.csv"
-[cohort]
-[landmarks]
-landmarks_years = [0.0, 1.0]
-horizon_years = 1.0
-[[models]]
-name = "a"
-covariates = ["x"]
-[[models]]
-name = "b"
-covariates = ["x", "y"]
-"""
+ROOT = Path(__file__).resolve().parents[2]
+DEMO_DATA = ROOT / "demo_data" / "clean"
+
+
+def demo_project(folder: Path, n_patients: int = 120) -> Path:
+    """The first ``n_patients`` demo patients as CSV files in ``folder`` and configs/demo.toml reading them;
+    returns the configuration path."""
+    if not (DEMO_DATA / "patients.csv").is_file():
+        pytest.skip("the committed demo cohort (demo_data/clean) is not in this checkout")
+    write_subset(DEMO_DATA, folder, n_patients)
+    config = folder / "analysis.toml"
+    config.write_text((ROOT / "configs" / "demo.toml").read_text().replace("../demo_data/clean/", ""))
+    return config
 
 
 def _notebook(code: str) -> nbformat.NotebookNode:
@@ -53,15 +49,13 @@ WRITE = ("from pathlib import Path\n"
 
 @pytest.fixture()
 def project(tmp_path: Path) -> dict:
-    for name in ("patients", "measurements", "outcomes"):
-        (tmp_path / f"{name}.csv").write_text("patient_id\nP1\n")
-    (tmp_path / "analysis.toml").write_text(CONFIG)
+    config = demo_project(tmp_path)
     books = tmp_path / "books"
     books.mkdir()
     nbformat.write(_notebook(WRITE.format(name="one")), str(books / "one.ipynb"))
     nbformat.write(_notebook(WRITE.format(name="two")), str(books / "two.ipynb"))
     nbformat.write(_notebook("x = 1\nraise KeyError('no such column: volume')"), str(books / "bad.ipynb"))
-    return {"config": tmp_path / "analysis.toml", "books": books, "out": tmp_path / "results" / "run"}
+    return {"config": config, "books": books, "out": tmp_path / "results" / "run"}
 
 
 def _run(project: dict, stages, **kw):
@@ -73,7 +67,7 @@ def test_run_writes_outputs_html_and_manifest_then_refuses_to_overwrite(project)
     result = _run(project, [("first", "one.ipynb"), ("second", "two.ipynb")])
     out = project["out"]
     assert result.run_dir == out.resolve()
-    assert (out / "tables" / "one.csv").read_text() == "seed,3\n"
+    assert (out / "tables" / "one.csv").read_text() == "seed,20240611\n"
     assert (out / "notebooks" / "two.html").is_file()
     html = (out / "notebooks" / "two.html").read_text()
     assert "cdnjs" not in html and 'src="http' not in html  # the exported page loads nothing from the web
@@ -82,7 +76,7 @@ def test_run_writes_outputs_html_and_manifest_then_refuses_to_overwrite(project)
     assert set(manifest["stage_seconds"]) == {"first", "second"}
     assert manifest["input_sha256"]["patients"] == file_sha256(project["config"].parent / "patients.csv")
     assert manifest["input_sha256"]["configuration"] == file_sha256(project["config"])
-    assert manifest["configuration"]["seed"] == 3 and manifest["seeds"]["analysis"] == 3
+    assert manifest["configuration"]["seed"] == 20240611 and manifest["seeds"]["analysis"] == 20240611
     assert manifest["versions"]["numpy"] != "not installed"
     assert manifest["outputs_sha256"]["tables/one.csv"] == file_sha256(out / "tables" / "one.csv")
     assert not list(out.parent.glob(".*partial"))
@@ -113,6 +107,7 @@ def test_restart_after_an_interruption_gives_the_same_outputs(project):
     # an interrupted run leaves only its hidden staging folder, with stale or half-written files
     staging = project["out"].parent / ".run.partial"
     (staging / "tables").mkdir(parents=True)
+    write_marker(staging, "partial")  # what the runner writes first into every folder it creates
     (staging / "tables" / "one.csv").write_text("half a fi")
     (staging / "tables" / "stale.csv").write_text("left over\n")
     _run(project, stages)
