@@ -113,6 +113,14 @@ def covariates_of(terms: Sequence[str], model: Any) -> list[str]:
     return [n for n in names if n in known] or names
 
 
+def terms_text(terms: Sequence[str]) -> str:
+    """Design terms as covariates: ``["x", "x:s", "y:s2", "landmark_s"]`` -> ``"'x', 'y' (and their landmark
+    effects)"``."""
+    names = list(dict.fromkeys(t.split(":")[0] for t in terms if t and t.split(":")[0] not in _LANDMARK_TERMS))
+    effects = any(":" in t for t in terms)
+    return _quoted(names) + (" (and their landmark effects)" if effects else "")
+
+
 def _quoted(names: Sequence[str]) -> str:
     return ", ".join(repr(n) for n in names)
 

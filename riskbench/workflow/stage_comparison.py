@@ -366,4 +366,4 @@ def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, c
     result.tables["model_comparison"] = comparison_table(comparison, reference, candidate)
     fits += comparison.fit_log
     notes.notes.extend(failure_notes(comparison.failures, n_boot, "comparison", part))
-    notes.notes.extend(warning_notes(comparison.fit_warnings, "comparison", part, n_boot))
+    notes.notes.extend(warning_notes(comparison.fit_warnings, "comparison", part, f"{n_boot} bootstrap resamples"))

@@ -31,6 +31,7 @@ from riskbench.validation.performance import evaluation_time, stack_outcome
 from riskbench.validation.plans import patient_folds
 from riskbench.validation.sources import PrecomputedTables
 from riskbench.workflow.config import AnalysisConfig
+from riskbench.workflow.fit_diagnosis import terms_text
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_models import evaluation_horizons, fit_recorded
 from riskbench.workflow.stage_result import StageResult
@@ -163,6 +164,8 @@ def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     with recorded_warnings() as stray:
         cv, cv_notes, cv_fits = cross_validated_predictions(config, tables, models)
         notes += cv_notes
+        notes += warning_notes(count_warnings(cv_fits), "validation", "cross-validation",
+                               f"{config.validation.folds} folds")
         fits += cv_fits
         save_data(cv, run_dir, "cv_predictions")
         result.notes.append(
@@ -211,16 +214,17 @@ def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: l
         f"Bootstrap optimism from {n_boot} resamples of patients "
         "(Harrell, Lee & Mark 1996): corrected = apparent - mean optimism.")
     notes = failure_notes(outcome.failures, n_boot, "validation", "bootstrap optimism")
-    notes += warning_notes(outcome.fit_warnings, "validation", "bootstrap optimism", n_boot)
+    notes += warning_notes(outcome.fit_warnings, "validation", "bootstrap optimism", f"{n_boot} bootstrap resamples")
     return notes
 
 
-def warning_notes(counts: pd.DataFrame, stage: str, part: str, n_resamples: int) -> list[Note]:
-    """One note per model summarising the fitting warnings of its resample refits (``count_warnings`` table)."""
+def warning_notes(counts: pd.DataFrame, stage: str, part: str, over: str) -> list[Note]:
+    """One note per model summarising the fitting warnings of its refits (a ``count_warnings`` table);
+    ``over`` says over what, e.g. ``"20 bootstrap resamples"``."""
     notes = []
     for model, rows in counts.groupby("model", sort=False):
         said = "; ".join(f"{int(r.fits_warned)} of {int(r.fits)} refits warned of {r.kind}"
-                         + (f" ({r.terms})" if r.terms else "") for r in rows.itertuples(index=False))
-        notes.append(Note(stage, part, f"over {n_resamples} bootstrap resamples: {said}.", model=str(model),
-                          kind="fitting warnings"))
+                         + (f" ({terms_text(str(r.terms).split(', '))})" if r.terms else "")
+                         for r in rows.itertuples(index=False))
+        notes.append(Note(stage, part, f"over {over}: {said}.", model=str(model), kind="fitting warnings"))
     return notes
