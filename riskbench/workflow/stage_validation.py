@@ -218,12 +218,15 @@ def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: l
     return notes
 
 
+_WARNED_OF = {"numerical": "floating-point trouble", "other": "something else"}
+
+
 def warning_notes(counts: pd.DataFrame, stage: str, part: str, over: str) -> list[Note]:
     """One note per model summarising the fitting warnings of its refits (a ``count_warnings`` table);
     ``over`` says over what, e.g. ``"20 bootstrap resamples"``."""
     notes = []
     for model, rows in counts.groupby("model", sort=False):
-        said = "; ".join(f"{int(r.fits_warned)} of {int(r.fits)} refits warned of {r.kind}"
+        said = "; ".join(f"{int(r.fits_warned)} of {int(r.fits)} refits warned of {_WARNED_OF.get(r.kind, r.kind)}"
                          + (f" ({terms_text(str(r.terms).split(', '))})" if r.terms else "")
                          for r in rows.itertuples(index=False))
         notes.append(Note(stage, part, f"over {over}: {said}.", model=str(model), kind="fitting warnings"))
