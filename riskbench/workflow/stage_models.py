@@ -142,6 +142,10 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     predictions = []
     per_fit: list[tuple[str, list[FitWarning]]] = []
     hazard_ratios: dict[str, pd.DataFrame] = {}
+    if not (stack["status"] == 2).any():
+        notes.append(Note("models", "competing-event model", "not fitted: the cohort has no competing events, so "
+                          "each model's risk is one minus its outcome-free survival and no competing-event "
+                          "column or measure is shown.", kind="not computed"))
     with recorded_warnings() as stray:
         for spec in config.models:
             fit = fit_recorded(spec, stack, cp, seed=config.seed, missing_data=config.missing_data,

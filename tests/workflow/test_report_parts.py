@@ -168,6 +168,8 @@ def test_no_competing_events_runs_without_empty_competing_columns(tmp_path):
     B.run_stages(path, run_dir)
     stack = pd.read_parquet(run_dir / "data" / "landmark_stack.parquet")
     assert not (stack["status"] == 2).any()
+    notes = B.notes_of(run_dir).set_index("part")["text"]
+    assert notes["competing-event model"].startswith("not fitted: the cohort has no competing events")
     for name in ("coefficients_clinical", "coefficients_imaging_clinical"):
         table = pd.read_csv(run_dir / "tables" / f"{name}.csv")
         assert set(table["cause"]) == {"outcome"}
