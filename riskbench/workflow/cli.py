@@ -3,9 +3,10 @@
 Each stage owns its subcommands in a module named ``command`` inside its package, which exposes
 ``register(subparsers)``. This module only collects them, so stages never edit each other's files.
 
-Exit status and messages: 0 success; 2 a configuration or data problem (:class:`~riskbench.errors.RiskbenchError`)
-or a file that cannot be read or written (``OSError``); 1 an internal error; 130 Ctrl-C, 143 SIGTERM. Each
-failure is one line on standard error; ``--debug`` (before or after the subcommand) adds the traceback.
+Exit status and messages: 0 success; 2 a configuration or data problem
+(:class:`~riskbench.errors.RiskbenchError`) or a file that cannot be read or written (``OSError``); 1 an
+internal error; 130 Ctrl-C, 143 SIGTERM. Each failure is one line on standard error (a configuration with
+several problems: one line per problem); ``--debug`` (before or after the subcommand) adds the traceback.
 """
 
 from __future__ import annotations
@@ -80,8 +81,8 @@ def describe_failure(exc: BaseException, command: str, debug: bool = False) -> t
         if command == "run-analysis":
             line += "; its temporary files and unfinished folder were removed, an earlier run folder is unchanged"
         return 128 + signum, line
-    if isinstance(exc, RiskbenchError):
-        return 2, f"{prefix}: error: {_one_line(exc)}"
+    if isinstance(exc, RiskbenchError):  # a list of configuration problems keeps its one line per problem
+        return 2, f"{prefix}: error: " + "\n".join(line.rstrip() for line in str(exc).strip().splitlines())
     if isinstance(exc, OSError):
         return 2, f"{prefix}: error: {_os_error_line(exc)}"
     if getattr(exc, "one_line_message", False):  # e.g. a stage that failed: the message says what to do

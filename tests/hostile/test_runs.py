@@ -304,6 +304,9 @@ def test_exit_status_2_for_data_problems_1_for_internal_errors_and_debug_shows_t
     # a plain ValueError from deep inside a library is an internal error, not a user error
     assert describe_failure(ValueError("array must not contain infs or NaNs"), "run-analysis")[0] == 1
     assert describe_failure(ConfigError("[validation] folds = 1"), "check-config")[0] == 2
+    several = ConfigError("a.toml: 2 problems:\n  [validation] folds = 1 ...\n  [report] title = 3 ...")
+    assert describe_failure(several, "run-analysis") == (
+        2, "riskbench run-analysis: error: a.toml: 2 problems:\n  [validation] folds = 1 ...\n  [report] title = 3 ...")
     assert describe_failure(KeyboardInterrupt(), "run-analysis") == (
         130, "riskbench run-analysis: stopped by Ctrl-C; its temporary files and unfinished folder were removed, "
              "an earlier run folder is unchanged")
