@@ -57,6 +57,7 @@ __all__ = [
     "CoxConstantCovariateError",
     "CoxInputError",
     "CoxConvergenceWarning",
+    "CoxIllConditionedWarning",
     "CoxNumericalError",
     "LikelihoodTest",
     "MonotoneLikelihoodWarning",
@@ -97,6 +98,10 @@ class CoxNumericalError(CoxInputError):
 
 class CoxConvergenceWarning(UserWarning):
     """Newton–Raphson did not meet the convergence rule."""
+
+
+class CoxIllConditionedWarning(RuntimeWarning):
+    """The information matrix was not positive definite, so a least-squares solve or pseudo-inverse was used."""
 
 
 class MonotoneLikelihoodWarning(UserWarning):
@@ -477,6 +482,9 @@ def _solve_pd(H: np.ndarray, g: np.ndarray) -> np.ndarray:
     try:
         return linalg.cho_solve(linalg.cho_factor(H), g)
     except linalg.LinAlgError:
+        warnings.warn(CoxIllConditionedWarning(
+            "the information matrix is not positive definite (ill-conditioned: nearly collinear covariates or "
+            "coefficients running off); a least-squares Newton step was taken instead"), stacklevel=4)
         return linalg.lstsq(H, g)[0]
 
 
@@ -484,6 +492,9 @@ def _inverse_pd(H: np.ndarray) -> np.ndarray:
     try:
         return linalg.cho_solve(linalg.cho_factor(H), np.eye(H.shape[0]))
     except linalg.LinAlgError:
+        warnings.warn(CoxIllConditionedWarning(
+            "the information matrix is not positive definite (ill-conditioned); the covariance is a "
+            "pseudo-inverse and the standard errors are unreliable"), stacklevel=4)
         return linalg.pinvh(H)
 
 

@@ -145,3 +145,17 @@ def test_recorded_warnings_sort_by_kind():
         warnings.warn("something else", UserWarning)
     assert [(w.kind, w.terms) for w in log] == [("numerical", ()), ("separation", ("x:s",)), ("other", ())]
     assert np.array_equal(count_warnings([("m", log)])["kind"].to_numpy(), ["separation", "numerical", "other"])
+
+
+def test_an_ill_conditioned_information_matrix_warns_and_counts_as_numerical():
+    """A singular 2x2 matrix has no Cholesky factor (**common practice**: positive definiteness is what a
+    Cholesky factorisation needs); the engine falls back to least squares and now says so."""
+    from riskbench.models.cox_engine import CoxIllConditionedWarning, _inverse_pd, _solve_pd
+
+    singular = np.array([[1.0, 1.0], [1.0, 1.0]])
+    with recorded_warnings() as log:
+        _solve_pd(singular, np.array([1.0, 1.0]))
+        _inverse_pd(singular)
+    assert [w.kind for w in log] == ["numerical", "numerical"]
+    with pytest.warns(CoxIllConditionedWarning, match="not positive definite"):
+        _inverse_pd(singular)
