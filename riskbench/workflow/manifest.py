@@ -62,23 +62,9 @@ def git_commit(source_dir: str | Path | None = None) -> dict[str, Any] | None:
     return {"commit": commit, "dirty": bool(status.strip())}
 
 
-def execution_plan(config: AnalysisConfig) -> Any:
-    """The ``[execution]`` plan of the configuration (built from the older ``[validation]`` keys when the
-    configuration object predates that section)."""
-    plan = getattr(config, "execution", None)
-    if plan is not None:
-        return plan
-    from types import SimpleNamespace
-
-    return SimpleNamespace(workers=getattr(config.validation, "n_jobs", 1),
-                           scheduler_address=getattr(config.validation, "dask_address", None),
-                           allow_remote_scheduler=False, tls_ca_file=None, tls_client_cert_file=None,
-                           tls_client_key_file=None)
-
-
 def network_record(config: AnalysisConfig) -> dict[str, Any]:
     """Where the run's data went: sent off this machine or not, the Dask scheduler, the kernel transport."""
-    plan = execution_plan(config)
+    plan = config.execution
     return {"data_left_machine": data_leaves_machine(plan), "statement": execution_statement(plan),
             "scheduler_address": getattr(plan, "scheduler_address", None) or None,
             "kernel_transport": "Unix-domain sockets (ZeroMQ ipc); no TCP or UDP port opened"}
@@ -94,10 +80,10 @@ def input_files(config: AnalysisConfig) -> dict[str, Path]:
 
 
 def output_digests(run_dir: str | Path) -> dict[str, str]:
-    """SHA-256 of every table and figure of a run, keyed by path relative to the run folder."""
+    """SHA-256 of every table, figure and notes file of a run, keyed by path relative to the run folder."""
     run_dir = Path(run_dir)
     out: dict[str, str] = {}
-    for sub in (TABLES, FIGURES):
+    for sub in (TABLES, FIGURES, "notes"):  # notes: parts left out and fitting warnings (report/notes.py)
         for path in sorted((run_dir / sub).glob("*")):
             if path.is_file() and not path.name.startswith("."):
                 out[f"{sub}/{path.name}"] = file_sha256(path)

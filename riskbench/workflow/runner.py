@@ -42,7 +42,7 @@ from riskbench.errors import RiskbenchError
 from riskbench.validation.parallel import check_scheduler
 from riskbench.workflow.config import AnalysisConfig, ConfigError, load_config
 from riskbench.workflow.kernel import LAUNCHER, ensure_kernel, kernel_pids, local_socket_kernel_manager
-from riskbench.workflow.manifest import build_manifest, execution_plan, input_files, utc_now, write_manifest
+from riskbench.workflow.manifest import build_manifest, input_files, utc_now, write_manifest
 from riskbench.workflow.notebook_builder import STAGE_NOTEBOOKS, write_notebooks
 from riskbench.workflow.notebook_html import export_html
 from riskbench.workflow.run_folder import (
@@ -186,7 +186,7 @@ def run_analysis(
     """
     say = log or (lambda _msg: None)
     config: AnalysisConfig = load_config(config_path, check_data=True)
-    problems = check_scheduler(execution_plan(config))
+    problems = check_scheduler(config.execution)  # also part of the configuration check; kept as a guard
     if problems:
         raise ConfigError(f"{config.path}: " + "; ".join(problems))
     paths = RunPaths(_run_folder_path(out))
