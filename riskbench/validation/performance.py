@@ -155,11 +155,10 @@ def evaluate_risks(
         auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval])
         brier = metrics.brier_score(time, status, risk, [t_eval])
         # No confidence band (the resampling gives intervals) and no direction check: a poor model in
-        # an unlucky replicate is a result to report, not an input error.
-        smooth = metrics.calibration_at_horizon(time, event, risk, t_eval, n_boot=0, check_direction=False)
-        calib = smooth if competing_absent else metrics.calibration_at_horizon(
-            time, status, risk, t_eval, n_boot=0, check_direction=False
-        )
+        # an unlucky replicate is a result to report, not an input error. A model whose risks take too few
+        # distinct values for the smoother has no smoothed calibration (NaN; the other measures stand).
+        smooth = _smoothed_calibration(time, event, risk, t_eval)
+        calib = smooth if competing_absent else _smoothed_calibration(time, status, risk, t_eval)
         rows += [
             ("harrell_c", h, np.nan, float(harrell.estimate)),
             ("uno_c", h, np.nan, float(uno.estimate)),
@@ -174,6 +173,21 @@ def evaluate_risks(
             nb = metrics.net_benefit(time, status, risk, t_eval, list(thresholds), check_direction=False)
             rows += [("net_benefit", h, float(th), float(v)) for th, v in zip(nb["threshold"], nb["model"])]
     return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+
+
+def _smoothed_calibration(time: np.ndarray, status: np.ndarray, risk: np.ndarray, t_eval: float) -> Any:
+    """:func:`riskbench.metrics.calibration_at_horizon`, or NaN measures when the risks cannot be smoothed."""
+    from types import SimpleNamespace
+
+    from riskbench import metrics
+    from riskbench.metrics.inputs import MetricInputError
+
+    try:
+        return metrics.calibration_at_horizon(time, status, risk, t_eval, n_boot=0, check_direction=False)
+    except MetricInputError as exc:
+        if "distinct values" not in str(exc):
+            raise
+        return SimpleNamespace(slope=np.nan, ici=np.nan, oe_ratio=np.nan)
 
 
 def evaluate_model(

@@ -159,3 +159,18 @@ def test_an_ill_conditioned_information_matrix_warns_and_counts_as_numerical():
     assert [w.kind for w in log] == ["numerical", "numerical"]
     with pytest.warns(CoxIllConditionedWarning, match="not positive definite"):
         _inverse_pd(singular)
+
+
+def test_risks_too_coarse_for_the_smoother_leave_only_the_calibration_measures_missing():
+    """Three distinct risks: the 10th, 50th and 90th percentiles coincide, so the restricted cubic spline of
+    the smoothed calibration has no knots to place; concordance, AUC and Brier score are still computed."""
+    from riskbench.validation.performance import evaluate_risks
+
+    rng = np.random.default_rng(1)
+    time = rng.uniform(10, 900, 300)
+    status = (rng.uniform(size=300) < 0.3).astype(int)
+    risk = np.where(np.arange(300) < 5, 0.1, 0.2)
+    risk[-3:] = 0.5
+    table = evaluate_risks(time, status, {365.25: risk}).set_index("metric")["value"]
+    assert np.isnan(table[["calibration_slope", "ici", "oe_ratio"]]).all()
+    assert np.isfinite(table[["harrell_c", "uno_c", "auc", "brier"]]).all()
