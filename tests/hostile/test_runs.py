@@ -414,6 +414,26 @@ def test_sigint_in_a_later_stage_removes_temporary_files_and_keeps_the_earlier_r
         assert [p for p in tmp_path.rglob("*") if "spill" in p.name] == []
 
 
+def test_after_sigkill_of_the_runner_the_kernel_removes_its_temporary_files_and_the_next_run_cleans_up(
+        project, tmp_path):
+    """SIGKILL cannot be caught: the kernel's watchdog notices its runner is gone, removes the temporary
+    folder (raw rows) and ends; the next run into the same folder removes the marked leftover."""
+    out = tmp_path / "run"
+    paths = RunPaths(out)
+    proc = _driver(project, out, [("slow", "slow.ipynb")], tmp_path / "t")
+    status, _ = _kill_when(proc, lambda: any((paths.staging / ".tmp").glob("spill*")), signal.SIGKILL, "the spill")
+    assert status == -signal.SIGKILL
+    _wait_for(lambda: _no_kernel_left(str(paths.staging)), timeout=20, what="the orphaned kernel to end")
+    assert not (paths.staging / ".tmp").exists()
+    assert files_with_ids(tmp_path, project["ids"]) == []
+    assert paths.staging.is_dir() and paths.lock.is_file()  # what SIGKILL leaves: a marked folder, a stale lock
+    said: list[str] = []
+    run_analysis(project["config"], out, notebooks_dir=project["books"], stages=[("one", "one.ipynb")],
+                 log=said.append)
+    assert any("taking over the stale lock" in s for s in said)
+    assert not paths.staging.exists() and (out / "tables" / "one.csv").is_file()
+
+
 def test_stage_temporary_files_live_inside_the_staging_folder(project, tmp_path):
     out = tmp_path / "run"
     slow_fast = project["books"] / "slow_fast.ipynb"
