@@ -13,8 +13,9 @@ rows it predicts:
   competing event each cause gets its indicator and its cause-specific Nelson–Aalen hazard (the usual
   extension of that rule to competing risks; **from memory**). On a landmark stack the hazard is estimated
   within each landmark (each landmark is its own survival data set, time counted from it); on
-  counting-process rows it is the hazard at ``stop`` with risk sets that respect the delayed entry at
-  ``start``. Each of the m imputations runs its own chain with its own seed.
+  counting-process rows each row is read like a landmark row at its start (how the patient's follow-up
+  ended, the hazard from the row's start to the patient's exit, and the row's length), see
+  :func:`outcome_predictors` for what was measured. Each of the m imputations runs its own chain with its own seed.
 * **Rows to predict** (:class:`PredictionImputer`): a new patient's outcome is unknown, so the rows to be
   predicted are imputed without outcome information, by a chained-equations imputer fitted on the training
   rows' covariates and ``s`` only (Hoogland et al. 2020, Stat Med, discuss imputation of validation data
@@ -27,14 +28,8 @@ Every imputation model is linear-normal (:class:`LinearPredictiveModel`), with d
 of the observed training values (a score in [0, 1] stays there). A 0/1 covariate receives continuous imputed
 values, which are not rounded (rounding biases estimates; von Hippel 2009, Sociol Methodol; **from memory**).
 
-Known limits (measured on the demo cohort, tests/models/test_missing_demo_truth.py and the notes of the
-missing-data work): for a normally distributed covariate (log nodule volume, 30% missing at random) the
-pooled coefficients cover the truth with narrower intervals than complete cases; for a bounded, skewed
-covariate with a strong effect (the suspicion score, log hazard ratio 3.5 per unit) the linear-normal
-imputation model attenuates its coefficient (about 2.5 against 3.2 with complete cases), because the
-outcome-tilted distribution of such a covariate is not normal (White & Royston 2009 show the approximation
-holds for moderate effects). Derived columns (change, slope, previous value) are imputed as covariates of
-their own, not recomputed from an imputed value.
+Known limits: derived columns (change, slope, previous value) are imputed as covariates of their own, not
+recomputed from an imputed value; every conditional model is linear in the other columns (no interactions).
 """
 
 from __future__ import annotations
@@ -62,6 +57,31 @@ _MASK64 = np.uint64(0xFFFFFFFFFFFFFFFF)
 def imputation_seeds(seed: int, m: int) -> list[int]:
     """``m`` independent 32-bit seeds derived from one model seed (``numpy.random.SeedSequence.spawn``)."""
     return [int(child.generate_state(1)[0]) for child in np.random.SeedSequence(int(seed)).spawn(int(m))]
+
+
+def nelson_aalen_curve(
+    stop: np.ndarray, event: np.ndarray, start: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Nelson–Aalen cumulative hazard: its jump times (days) and its value from each jump on.
+
+    A row is at risk at t when ``start < t <= stop`` (``start`` default 0: no delayed entry).
+    """
+    stop = np.asarray(stop, dtype=float)
+    event = np.asarray(event, dtype=float)
+    start = np.zeros_like(stop) if start is None else np.asarray(start, dtype=float)
+    times = np.unique(stop[event > 0])
+    if not len(times):
+        return times, np.zeros(0)
+    deaths = np.bincount(np.searchsorted(times, stop[event > 0]), minlength=len(times)).astype(float)
+    at_risk = (len(stop) - np.searchsorted(np.sort(stop), times, side="left")) - (
+        len(start) - np.searchsorted(np.sort(start), times, side="left"))
+    return times, np.cumsum(deaths / at_risk)
+
+
+def _read_curve(curve: tuple[np.ndarray, np.ndarray], at: np.ndarray) -> np.ndarray:
+    times, cumulative = curve
+    index = np.searchsorted(times, np.asarray(at, dtype=float), side="right") - 1
+    return np.where(index >= 0, cumulative[np.maximum(index, 0)] if len(cumulative) else 0.0, 0.0)
 
 
 def nelson_aalen_at(
@@ -101,47 +121,73 @@ def nelson_aalen_at(
     out = np.zeros(len(stop))
     for level in pd.unique(strata):
         rows = np.flatnonzero(strata == level)
-        t, e, s = stop[rows], event[rows], start[rows]
-        times = np.unique(t[e > 0])
-        if not len(times):
-            continue
-        deaths = np.bincount(np.searchsorted(times, t[e > 0]), minlength=len(times)).astype(float)
-        sorted_stop, sorted_start = np.sort(t), np.sort(s)
-        at_risk = (len(t) - np.searchsorted(sorted_stop, times, side="left")) - (
-            len(s) - np.searchsorted(sorted_start, times, side="left")
-        )
-        cumulative = np.cumsum(deaths / at_risk)
-        index = np.searchsorted(times, at[rows], side="right") - 1
-        out[rows] = np.where(index >= 0, cumulative[np.maximum(index, 0)], 0.0)
+        out[rows] = _read_curve(nelson_aalen_curve(stop[rows], event[rows], start[rows]), at[rows])
     return out
+
+
+def _patient_outcome(table: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """One row per patient of counting-process rows: entry (first ``start``), exit (last ``stop``) and the
+    final ``status``; and, per row, the index of its patient."""
+    codes = pd.factorize(table["patient_id"].to_numpy())[0]
+    start = (pd.to_numeric(table["start"], errors="coerce").to_numpy(dtype=float) if "start" in table.columns
+             else np.zeros(len(table)))
+    frame = pd.DataFrame({"code": codes, "start": start,
+                          "stop": pd.to_numeric(table["stop"], errors="coerce").to_numpy(dtype=float),
+                          "status": pd.to_numeric(table["status"], errors="coerce").to_numpy(dtype=float)})
+    last = frame.sort_values(["code", "stop"]).groupby("code", sort=True).tail(1).set_index("code").sort_index()
+    entry = frame.groupby("code", sort=True)["start"].min().to_numpy()
+    return entry, last["stop"].to_numpy(), last["status"].to_numpy(), codes
 
 
 def outcome_predictors(table: pd.DataFrame) -> tuple[np.ndarray, list[str]]:
     """Outcome columns of the training imputation model (White & Royston 2009; module notes).
 
     ``table`` is a landmark stack (``time``, ``status``, optional ``landmark``) or counting-process rows
-    (``start``, ``stop``, ``status``). Returns the matrix and its column names: per cause present
-    (1 outcome, 2 competing event) the indicator and the cause-specific Nelson–Aalen hazard at the row's time.
+    (``patient_id``, ``start``, ``stop``, ``status``). Returns the matrix and its column names.
+
+    * Landmark stack: per cause present (1 outcome, 2 competing event) the row's indicator and the
+      cause-specific Nelson–Aalen hazard at its ``time``, estimated within its landmark.
+    * Counting-process rows: each row is read like a landmark row at its ``start``: per cause the indicator
+      of how the *patient's* follow-up ended and the hazard from the row's ``start`` to the patient's exit
+      (hazard estimated on one row per patient, entering at the first ``start``), plus the row's length
+      (``stop - start``, days). Measured on the demo cohort (time-varying Cox, 30% of one covariate missing
+      at random, 10 imputations; coefficients with every value known in brackets): suspicion score 3.20
+      (3.21) and log nodule volume 0.43 (0.49) with these columns; 2.52 and 0.43 with the row's own status
+      and hazard over the row; 3.22 and 0.32 without the row's length -- the rows are cut at exam dates
+      whose spacing depends on the covariates. Without ``patient_id`` each row stands for a patient.
     """
-    status = pd.to_numeric(table["status"], errors="coerce").to_numpy(dtype=float)
-    if "stop" in table.columns:
-        stop = pd.to_numeric(table["stop"], errors="coerce").to_numpy(dtype=float)
-        start = pd.to_numeric(table["start"], errors="coerce").to_numpy(dtype=float) if "start" in table else None
-        strata = None
-    else:
-        stop = pd.to_numeric(table["time"], errors="coerce").to_numpy(dtype=float)
-        start = None
+    if "stop" not in table.columns:
+        status = pd.to_numeric(table["status"], errors="coerce").to_numpy(dtype=float)
+        time = pd.to_numeric(table["time"], errors="coerce").to_numpy(dtype=float)
         strata = table["landmark"].to_numpy() if "landmark" in table.columns else None
+        columns, names = [], []
+        for cause in (1, 2):
+            event = (status == cause).astype(float)
+            if cause == 2 and not event.any():
+                continue
+            columns += [event, nelson_aalen_at(time, event, strata=strata)]
+            names += [f"event_{cause}", f"cumulative_hazard_{cause}"]
+        return np.column_stack(columns), names
+    row_start = (pd.to_numeric(table["start"], errors="coerce").to_numpy(dtype=float)
+                 if "start" in table.columns else np.zeros(len(table)))
+    row_stop = pd.to_numeric(table["stop"], errors="coerce").to_numpy(dtype=float)
+    if "patient_id" in table.columns:
+        entry, exit_, status, row_patient = _patient_outcome(table)
+    else:
+        entry, exit_ = row_start, row_stop
+        status = pd.to_numeric(table["status"], errors="coerce").to_numpy(dtype=float)
+        row_patient = np.arange(len(table))
     columns, names = [], []
     for cause in (1, 2):
         event = (status == cause).astype(float)
         if cause == 2 and not event.any():
             continue
-        hazard = nelson_aalen_at(stop, event, start=start, strata=strata)
-        if start is not None:  # the row's own exposure: H(stop) - H(start) (module notes)
-            hazard = hazard - nelson_aalen_at(stop, event, start=start, strata=strata, at=start)
-        columns += [event, hazard]
+        curve = nelson_aalen_curve(exit_, event, entry)
+        remaining = _read_curve(curve, exit_[row_patient]) - _read_curve(curve, row_start)
+        columns += [event[row_patient], remaining]
         names += [f"event_{cause}", f"cumulative_hazard_{cause}"]
+    columns.append(row_stop - row_start)
+    names.append("row_length_days")
     return np.column_stack(columns), names
 
 

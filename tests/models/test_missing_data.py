@@ -58,6 +58,19 @@ def test_nelson_aalen_equals_lifelines_with_and_without_delayed_entry(make_stack
         expected = curve.to_numpy()[index]
         ours = nelson_aalen_at(stop, event, start=entry)
         np.testing.assert_allclose(ours, expected, rtol=1e-10, atol=1e-12)
+    # counting-process rows: each row carries its patient's outcome and the hazard from its start to the exit
+    matrix, names = outcome_predictors(rows)
+    assert names[:2] == ["event_1", "cumulative_hazard_1"] and names[-1] == "row_length_days"
+    final = rows.groupby("patient_id")["status"].transform("last").to_numpy()
+    np.testing.assert_array_equal(matrix[:, 0], (final == 1).astype(float))
+    patients = rows.groupby("patient_id").agg(entry=("start", "min"), exit=("stop", "max"), status=("status", "last"))
+    fitter = NelsonAalenFitter(nelson_aalen_smoothing=False).fit(
+        patients["exit"], patients["status"] == 1, entry=patients["entry"])
+    curve = fitter.cumulative_hazard_.iloc[:, 0]
+    at = lambda t: curve.to_numpy()[np.searchsorted(curve.index.to_numpy(), t, side="right") - 1]  # noqa: E731
+    exits = rows["patient_id"].map(patients["exit"]).to_numpy()
+    np.testing.assert_allclose(matrix[:, 1], at(exits) - at(rows["start"].to_numpy()), atol=1e-12)
+    np.testing.assert_allclose(matrix[:, -1], rows["stop"] - rows["start"])
     # a landmark stack: one hazard per landmark
     stack = make_stack(n_patients=150)
     names = outcome_predictors(stack)[1]
@@ -225,7 +238,7 @@ def test_multiple_imputation_pools_by_rubins_rules_and_predicts_row_by_row(make_
 
 
 def test_time_varying_cox_on_counting_process_rows_and_the_forest(make_stack) -> None:
-    """The wrapper works on (start, stop] rows (status and exposure H(stop) - H(start) in the imputation
+    """The wrapper works on (start, stop] rows (the patient's outcome from each row's start in the imputation
     model) and predicts landmark rows; around the forest it predicts too and has no summary, like the forest."""
     rows = _with_missing(_counting_rows(300), 0.25)
     cox = MissingDataModel(CoxModel(["x1", "x2"]), imputations=3, max_iterations=3).fit(rows)
