@@ -20,7 +20,15 @@ from riskbench.metrics.threshold_groups import split_by_thresholds
 
 
 class TargetUnreachable(MetricInputError):
-    """No candidate risk threshold meets the triage target on these data (a result, not a broken input)."""
+    """No candidate risk threshold meets the triage target on these data (a result, not a broken input).
+
+    ``what`` (e.g. ``"NPV 0.98"``), ``horizon`` (days) and ``best`` (the best value any candidate reaches,
+    NaN when no candidate leaves anyone below it) let a caller restate it in its own terms.
+    """
+
+    def __init__(self, message: str, *, what: str = "", horizon: float = np.nan, best: float = np.nan) -> None:
+        super().__init__(message)
+        self.what, self.horizon, self.best = what, horizon, best
 
 
 QUANTITIES = ("threshold", "sensitivity", "specificity", "ppv", "npv", "fraction_below")
@@ -115,7 +123,8 @@ def triage_operating_point(
         reached = np.asarray(acc["npv"] if target_npv is not None else acc["sensitivity"], dtype=float)
         best = float(reached[np.isfinite(reached)].max()) if np.isfinite(reached).any() else np.nan
         reach = f"the best candidate reaches {best:.3f}" if np.isfinite(best) else "no candidate spares anyone"
-        raise TargetUnreachable(f"no risk threshold reaches {what} at horizon {h:g} days ({reach}); lower the target")
+        raise TargetUnreachable(f"no risk threshold reaches {what} at horizon {h:g} days ({reach}); lower the target",
+                                what=what, horizon=h, best=best)
     estimate = {"threshold": candidates[chosen], **{k: v[chosen] for k, v in acc.items()}}
 
     rng = np.random.default_rng(seed)

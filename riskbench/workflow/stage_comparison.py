@@ -151,8 +151,11 @@ class _Notes:
         try:
             return compute(*args, **kwargs)
         except TargetUnreachable as exc:
-            self.add(part, f"not computed: {exc} ([report] triage_target_npv), or switch the part off "
-                     "([report] triage = false).", model)
+            reach = (f"the best threshold reaches {exc.best:.3f}" if np.isfinite(exc.best)
+                     else "no threshold leaves any patient below it")
+            self.add(part, f"not computed: no risk threshold of this model reaches {exc.what} by "
+                     f"{format_duration(round(float(exc.horizon), 3))} after the landmark ({reach}); lower the target "
+                     "([report] triage_target_npv) or switch the part off ([report] triage = false).", model)
         except FIT_ERRORS as exc:
             self.add(part, f"not computed: {type(exc).__name__}: {exc}", model)
         return None
