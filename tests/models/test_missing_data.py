@@ -6,6 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from lifelines import NelsonAalenFitter
 from scipy import stats
 
@@ -252,3 +254,28 @@ def test_time_varying_cox_on_counting_process_rows_and_the_forest(make_stack) ->
     assert not hasattr(forest, "summary")
     risk = forest.predict_curve(stack, [200.0, 400.0])
     assert np.isfinite(risk).all() and (risk[:, 1] >= risk[:, 0]).all()
+
+
+_RNG = np.random.default_rng(9)
+_TRAIN = np.column_stack([_RNG.normal(size=400), _RNG.normal(size=400)])
+_TRAIN[_RNG.uniform(size=400) < 0.2, 1] = np.nan
+_IMPUTER = PredictionImputer(seed=3, max_iterations=3).fit(_TRAIN, _RNG.choice([0.0, 182.625], 400))
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.tuples(st.floats(-3, 3), st.one_of(st.none(), st.floats(-3, 3)), st.sampled_from([0.0, 182.625])),
+                min_size=1, max_size=30),
+       st.randoms(use_true_random=False))
+def test_prediction_imputation_is_row_wise(rows, shuffle) -> None:
+    """Invariant of the prediction contract: a row's imputed values depend only on that row (not on the other
+    rows, their order or how often it is imputed), observed values are kept, and draws stay in range."""
+    x = np.array([[a, np.nan if b is None else b] for a, b, _ in rows])
+    s = np.array([c for _, _, c in rows])
+    filled = _IMPUTER.transform(x, s)
+    order = list(range(len(rows)))
+    shuffle.shuffle(order)
+    np.testing.assert_array_equal(_IMPUTER.transform(x[order], s[order]), filled[order])
+    np.testing.assert_array_equal(filled[~np.isnan(x)], x[~np.isnan(x)])
+    drawn = filled[np.isnan(x)]
+    assert np.isfinite(drawn).all()
+    assert (drawn >= np.nanmin(_TRAIN[:, 1])).all() and (drawn <= np.nanmax(_TRAIN[:, 1])).all()
