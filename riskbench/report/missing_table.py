@@ -14,7 +14,7 @@ share and the median staleness are blanked with a hidden count.
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -56,6 +56,7 @@ def missing_data_table(
     staleness_columns: Mapping[str, str] | Sequence[str],
     *,
     threshold: int | None = None,
+    labels: Callable[[str], str] | None = None,
 ) -> pd.DataFrame:
     """Share missing and median staleness per covariate and landmark.
 
@@ -71,11 +72,13 @@ def missing_data_table(
         through its variable: ``log_x_change`` -> ``x_staleness_days``). Static covariates have none.
     threshold : int, optional
         Small-count threshold; counts become text with small ones hidden (None: numbers, nothing hidden).
+    labels : callable, optional
+        Readable label of a covariate column (e.g. ``CohortSpec.label``); adds a ``label`` column.
 
     Returns
     -------
     pandas.DataFrame
-        ``covariate, landmark_years, rows, rows_missing, rows_observed, share_missing (0-1),
+        ``covariate, [label,] landmark_years, rows, rows_missing, rows_observed, share_missing (0-1),
         median_staleness_days`` (NaN where the covariate has no staleness column or no observed value).
     """
     lookup = _staleness_lookup(covariates, staleness_columns)
@@ -101,6 +104,8 @@ def missing_data_table(
                 "median_staleness_days": float(np.median(carried)) if len(carried) else np.nan,
             })
     table = pd.DataFrame(rows, columns=MISSING_COLUMNS)
+    if labels is not None:
+        table.insert(1, "label", [labels(c) for c in table["covariate"]])
     if threshold is None or table.empty:
         return table
     hidden = _hide_pair(table, "rows_missing", "rows_observed", threshold)

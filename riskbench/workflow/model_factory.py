@@ -65,12 +65,13 @@ def fit_model(model: ModelConfig, landmark_stack: pd.DataFrame, counting_process
         raise ConfigError(f"[[models]] {model.name!r}: params {dict(model.params)} not accepted: {exc}") from None
 
 
-def missing_data_tables(config: Any, stack: pd.DataFrame) -> dict[str, pd.DataFrame]:
+def missing_data_tables(config: Any, stack: pd.DataFrame, labels: Any = None) -> dict[str, pd.DataFrame]:
     """The report's missing-data tables for a configuration, small counts hidden.
 
     ``missing_data``: per covariate of the configured models and landmark, the share missing and the median
     staleness of the observed values (:func:`riskbench.report.missing_table.missing_data_table`);
     ``complete_cases`` (only when a model uses complete cases): the rows each such model drops per landmark.
+    ``labels`` (a column -> readable label function) adds a ``label`` column to the first.
     """
     from riskbench.report.missing_table import complete_case_table, missing_data_table
 
@@ -80,7 +81,7 @@ def missing_data_tables(config: Any, stack: pd.DataFrame) -> dict[str, pd.DataFr
     for v in config.cohort.variables:
         for suffix in ("", "_change", "_slope_per_year", "_previous"):
             staleness[f"{v.column}{suffix}"] = v.staleness_column
-    tables = {"missing_data": missing_data_table(stack, covariates, staleness, threshold=threshold)}
+    tables = {"missing_data": missing_data_table(stack, covariates, staleness, threshold=threshold, labels=labels)}
     plan = config.missing_data
     complete = {m.name: m.covariates for m in config.models
                 if missing_data_plan(m, plan).method == "complete_cases"}

@@ -34,6 +34,8 @@ def test_share_missing_and_median_staleness_by_hand() -> None:
     # the mapping form names the staleness column of each covariate
     mapped = missing_data_table(_stack(), ["log_volume"], {"log_volume": "volume_staleness_days"})
     pd.testing.assert_frame_equal(mapped, table[table["covariate"] == "log_volume"].reset_index(drop=True))
+    labelled = missing_data_table(_stack(), ["log_volume"], ["volume_staleness_days"], labels=str.upper)
+    assert list(labelled.columns[:2]) == ["covariate", "label"] and set(labelled["label"]) == {"LOG_VOLUME"}
 
 
 def test_small_counts_are_hidden_with_the_share_and_staleness() -> None:
