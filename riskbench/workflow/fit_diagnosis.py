@@ -18,6 +18,8 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
+import re
+
 import numpy as np
 import pandas as pd
 
@@ -33,6 +35,15 @@ _LANDMARK_TERMS = ("landmark_s", "landmark_s2")
 def count_text(n: int, threshold: int) -> str:
     """A count for a note: the number, or "fewer than <threshold>" when 0 < n < threshold."""
     return f"fewer than {threshold}" if 0 < n < threshold else str(int(n))
+
+
+_WHOLE_NUMBER = re.compile(r"(?<![\w.+-])(\d+)(?![\w.]|\.\d)")
+
+
+def hide_small_numbers(text: str, threshold: int) -> str:
+    """``text`` with every whole number between 1 and ``threshold`` - 1 shown as "<threshold" (a message
+    quoted from a library may carry counts; notes leave the machine with the report)."""
+    return _WHOLE_NUMBER.sub(lambda m: f"<{threshold}" if 0 < int(m.group(1)) < threshold else m.group(1), text)
 
 
 @dataclass(frozen=True)
@@ -171,7 +182,7 @@ def describe_fit_failure(model: Any, exc: BaseException, landmark_stack: pd.Data
                 f"{events_sentence(counts, cause, threshold)}{separated}; {_fix(model, landmarks=True)}.")
     if "no " in str(exc) and ("events" in str(exc) or "status" in str(exc)):
         return f"{head}: {events_sentence(counts, cause, threshold)}; a Cox model needs events of each cause."
-    return f"{head}: {type(exc).__name__}: {exc}"
+    return f"{head}: {type(exc).__name__}: {hide_small_numbers(str(exc), threshold)}"
 
 
 def describe_warnings(model: Any, log: Sequence[FitWarning], landmark_stack: pd.DataFrame,

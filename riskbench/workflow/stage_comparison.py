@@ -27,7 +27,7 @@ from riskbench.models.missing_data import predicted_rows
 from riskbench.report.auc_plot import auc_curve_figure
 from riskbench.report.html_report import build_report
 from riskbench.report.outputs import load_data, save_figure, save_table
-from riskbench.report.suppression import count_columns, suppress_counts
+from riskbench.report.suppression import count_columns, format_count, suppress_counts
 from riskbench.metrics.triage import TargetUnreachable
 from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
 from riskbench.report.notes import Note, failed_models, save_notes, switched_off
@@ -38,7 +38,7 @@ from riskbench.validation.parallel import execution_statement
 from riskbench.validation.performance import evaluate_risks, evaluation_time, stack_outcome
 from riskbench.validation.sources import PrecomputedTables
 from riskbench.workflow.config import AnalysisConfig
-from riskbench.workflow.fit_diagnosis import count_text
+from riskbench.workflow.fit_diagnosis import count_text, hide_small_numbers
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_models import FIT_ERRORS
 from riskbench.workflow.stage_result import StageResult
@@ -140,8 +140,9 @@ def comparison_table(comparison: Comparison, reference: str, candidate: str) -> 
 class _Notes:
     """The comparison stage's notes, and a way to attempt one part for one model without stopping the run."""
 
-    def __init__(self) -> None:
+    def __init__(self, threshold: int) -> None:
         self.notes: list[Note] = []
+        self.threshold = threshold  # small numbers quoted from a library's message are hidden below it
 
     def add(self, part: str, text: str, model: str = "", kind: str = "not computed") -> None:
         self.notes.append(Note("comparison", part, text, model=model, kind=kind))
@@ -157,7 +158,8 @@ class _Notes:
                      f"{format_duration(round(float(exc.horizon), 3))} after the landmark ({reach}); lower the target "
                      "([report] triage_target_npv) or switch the part off ([report] triage = false).", model)
         except FIT_ERRORS as exc:
-            self.add(part, f"not computed: {type(exc).__name__}: {exc}", model)
+            self.add(part, f"not computed: {type(exc).__name__}: {hide_small_numbers(str(exc), self.threshold)}",
+                     model)
         return None
 
 
@@ -175,7 +177,7 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     cv = load_data(run_dir, "cv_predictions")
     time, status = stack_outcome(stack)
     result = StageResult(stage="comparison", run_dir=run_dir)
-    notes = _Notes()
+    notes = _Notes(threshold)
     fits: list[tuple[str, list[FitWarning]]] = []
     report_days: tuple[float, ...] = ()
     with recorded_warnings() as stray:
@@ -186,7 +188,8 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
             horizons, risks = risk_matrices(cv, len(stack))
             keep = predicted_rows([risks])  # the rows every model predicts (complete cases leave some out)
             if not keep.all():
-                notes.add("performance", f"{int((~keep).sum())} landmark rows without a prediction from a "
+                left_out = format_count(int((~keep).sum()), threshold)  # small counts hidden
+                notes.add("performance", f"{left_out} landmark rows without a prediction from a "
                           "complete-case model are left out of every model's performance (table complete_cases).",
                           kind="not computed")
             time, status, risks = time[keep], status[keep], {m: r[keep] for m, r in risks.items()}
@@ -368,5 +371,6 @@ def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, c
         return
     result.tables["model_comparison"] = comparison_table(comparison, reference, candidate)
     fits += comparison.fit_log
-    notes.notes.extend(failure_notes(comparison.failures, n_boot, "comparison", part))
+    notes.notes.extend(failure_notes(comparison.failures, n_boot, "comparison", part,
+                                     config.report.small_count_threshold))
     notes.notes.extend(warning_notes(comparison.fit_warnings, "comparison", part, f"{n_boot} bootstrap resamples"))

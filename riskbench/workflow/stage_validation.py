@@ -31,7 +31,7 @@ from riskbench.validation.performance import evaluation_time, stack_outcome
 from riskbench.validation.plans import patient_folds
 from riskbench.validation.sources import PrecomputedTables
 from riskbench.workflow.config import AnalysisConfig
-from riskbench.workflow.fit_diagnosis import terms_text
+from riskbench.workflow.fit_diagnosis import hide_small_numbers, terms_text
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_models import evaluation_horizons, fit_recorded
 from riskbench.workflow.stage_result import StageResult
@@ -132,8 +132,10 @@ def cross_validated_predictions(config: AnalysisConfig, tables: dict[str, pd.Dat
     return cv, notes, [fit for p in parts for fit in p["fits"]]
 
 
-def failure_notes(failures: tuple[tuple[str, str], ...], n_total: int, stage: str, part: str) -> list[Note]:
-    """One note per model: how many of ``n_total`` resamples its refit made fail (by error), and the first reason.
+def failure_notes(failures: tuple[tuple[str, str], ...], n_total: int, stage: str, part: str,
+                  threshold: int) -> list[Note]:
+    """One note per model: how many of ``n_total`` resamples its refit made fail (by error), and the first reason
+    (small numbers in it hidden below ``threshold``).
 
     ``failures`` as in :attr:`riskbench.validation.comparison.Comparison.failures` (model "" = the measures
     failed after every refit succeeded).
@@ -147,7 +149,8 @@ def failure_notes(failures: tuple[tuple[str, str], ...], n_total: int, stage: st
         listed = ", ".join(f"{k} ×{n}" for k, n in kinds.most_common())
         what = "could not be refitted" if model else "could not be measured"
         notes.append(Note(stage, part, f"{len(reasons)} of {n_total} bootstrap resamples {what} and were dropped "
-                          f"({listed}); the estimates and intervals use the others. First reason: {reasons[0][:400]}",
+                          f"({listed}); the estimates and intervals use the others. First reason: "
+                          f"{hide_small_numbers(reasons[0][:400], threshold)}",
                           model=model, kind="resamples dropped"))
     return notes
 
@@ -213,7 +216,8 @@ def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: l
     result.notes.append(
         f"Bootstrap optimism from {n_boot} resamples of patients "
         "(Harrell, Lee & Mark 1996): corrected = apparent - mean optimism.")
-    notes = failure_notes(outcome.failures, n_boot, "validation", "bootstrap optimism")
+    notes = failure_notes(outcome.failures, n_boot, "validation", "bootstrap optimism",
+                          config.report.small_count_threshold)
     notes += warning_notes(outcome.fit_warnings, "validation", "bootstrap optimism", f"{n_boot} bootstrap resamples")
     return notes
 

@@ -174,3 +174,13 @@ def test_risks_too_coarse_for_the_smoother_leave_only_the_calibration_measures_m
     table = evaluate_risks(time, status, {365.25: risk}).set_index("metric")["value"]
     assert np.isnan(table[["calibration_slope", "ici", "oe_ratio"]]).all()
     assert np.isfinite(table[["harrell_c", "uno_c", "auc", "brier"]]).all()
+
+
+def test_small_numbers_quoted_from_library_messages_are_hidden():
+    """Notes leave the machine with the report: a count below the threshold in a quoted message is hidden
+    like any small count (**common practice**, the report's suppression rule)."""
+    from riskbench.workflow.fit_diagnosis import hide_small_numbers
+
+    text = "only 3 outcomes in rows 12, 40 (x_2 at 0.98, horizon 730.5 days, 1e-9)"
+    assert hide_small_numbers(text, 10) == "only <10 outcomes in rows 12, 40 (x_2 at 0.98, horizon 730.5 days, 1e-9)"
+    assert hide_small_numbers("0 events", 10) == "0 events"

@@ -139,7 +139,7 @@ def test_failing_resamples_are_counted_dropped_and_their_warnings_recorded(cohor
     assert len(result.failures) == result.n_failed
     assert set(result.table["n_boot"]) == {8 - result.n_failed}
     assert len(result.fit_log) == 8  # every refit's warnings recorded, the failing ones too
-    notes = failure_notes(result.failures, 8, "validation", "bootstrap optimism")
+    notes = failure_notes(result.failures, 8, "validation", "bootstrap optimism", 10)
     assert [n.model for n in notes] == ["rare_model"]
     assert notes[0].text.startswith(f"{result.n_failed} of 8 bootstrap resamples could not be refitted")
 
