@@ -373,15 +373,19 @@ class PredictionImputer:
             self.imputer_.fit(design)
         return self
 
-    def transform(self, covariates: np.ndarray, origin: np.ndarray) -> np.ndarray:
-        """Completed covariates ``(n, p)`` for rows to predict; observed values are kept."""
+    def transform(self, covariates: np.ndarray, origin: np.ndarray, *, draw_seed: int | None = None) -> np.ndarray:
+        """Completed covariates ``(n, p)`` for rows to predict; observed values are kept.
+
+        ``draw_seed`` (default the fitting seed) keys the draws: one fitted chain gives the m imputations of
+        the rows to predict with m draw seeds.
+        """
         design = np.column_stack([covariates, origin]).astype(float)
         missing = np.isnan(design)
         if not missing.any():
             return np.array(covariates, dtype=float, copy=True)
         sequence = list(getattr(self.imputer_, "imputation_sequence_", []))
         filled = self.imputer_.initial_imputer_.transform(design)
-        u = row_uniforms(design, self.seed, max(len(sequence), 1))
+        u = row_uniforms(design, self.seed if draw_seed is None else int(draw_seed), max(len(sequence), 1))
         for step, triplet in enumerate(sequence):
             j = triplet.feat_idx
             rows = missing[:, j]

@@ -12,7 +12,9 @@ Methods (``[missing_data] method``, overridable per model by ``[[models]] missin
     with the outcome in the imputation model (event indicator and Nelson–Aalen cumulative hazard, White &
     Royston 2009), one model is fitted per completed data set, and coefficients and standard errors are
     combined by Rubin's rules (:mod:`riskbench.models.rubin`). Rows to predict are imputed m times without
-    their outcome and the m models' risks are averaged. Why the default: under data missing at random it
+    their outcome (m draws from one chained-equations fit on the training covariates: the risks are averaged,
+    so the imputation model's parameter uncertainty, which only Rubin's variance needs, is not redrawn) and
+    the m models' risks are averaged. Why the default: under data missing at random it
     keeps every patient and gives unbiased estimates with honest intervals, while complete cases is biased
     unless the data are missing completely at random (or missingness is unrelated to the outcome given the
     covariates) and wastes the observed values of incomplete rows, and the missing-indicator method is
@@ -301,7 +303,7 @@ class MissingDataModel(BaseEstimator):
         if plan.method == "multiple_imputation":
             self._origin_train_ = prediction_origin(table)
             self._x_train_ = x
-            self._prediction_imputers_: dict[int, PredictionImputer] = {}
+            self._prediction_imputer_: PredictionImputer | None = None  # fitted when first needed
         return self
 
     def _fit_complete_cases(self, table: pd.DataFrame, missing: np.ndarray) -> None:
@@ -353,11 +355,11 @@ class MissingDataModel(BaseEstimator):
                       f"{sum(self.training_missing_.values())} missing training values")
 
     # ----------------------------------------------------------------- predict
-    def _prediction_imputer(self, k: int, seed: int) -> PredictionImputer:
-        if k not in self._prediction_imputers_:
-            self._prediction_imputers_[k] = PredictionImputer(seed, int(self.max_iterations)).fit(
+    def _prediction_imputer(self, seed: int) -> PredictionImputer:
+        if self._prediction_imputer_ is None:
+            self._prediction_imputer_ = PredictionImputer(seed, int(self.max_iterations)).fit(
                 self._x_train_, self._origin_train_)
-        return self._prediction_imputers_[k]
+        return self._prediction_imputer_
 
     def predict_curve(self, table: pd.DataFrame, times: ArrayLike) -> np.ndarray:
         """Risk of the outcome in (s, s + t] for each row and each t in ``times`` (days).
@@ -388,7 +390,7 @@ class MissingDataModel(BaseEstimator):
         seeds = imputation_seeds(self.random_state, int(self.imputations))
         curves = []
         for k, seed in enumerate(seeds):
-            completed = self._prediction_imputer(k, seed).transform(x, origin)
+            completed = self._prediction_imputer(seeds[0]).transform(x, origin, draw_seed=seed)
             model = self.models_[0 if self.fitted_once_ else k]
             curves.append(risk_curve(model, self._with_values(table, names, completed), times))
         return np.mean(curves, axis=0)
