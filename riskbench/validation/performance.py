@@ -197,9 +197,15 @@ def evaluate_model(
     *,
     thresholds: Sequence[float] = (),
 ) -> pd.DataFrame:
-    """Every measure of one fitted model on one evaluation stack (see :func:`evaluate_risks`)."""
+    """Every measure of one fitted model on one evaluation stack (see :func:`evaluate_risks`); rows a
+    complete-case model leaves without a risk are left out."""
+    from riskbench.models.missing_data import predicted_rows
+
     time, status = stack_outcome(stack)
-    return evaluate_risks(time, status, predict_horizons(model, stack, horizons), thresholds=thresholds)
+    risks = predict_horizons(model, stack, horizons)
+    keep = predicted_rows([risks])
+    risks = {h: r[keep] for h, r in risks.items()}
+    return evaluate_risks(time[keep], status[keep], risks, thresholds=thresholds)
 
 
 def check_horizons(horizons: Sequence[float], stack: pd.DataFrame) -> tuple[float, ...]:

@@ -87,3 +87,14 @@ def test_complete_case_evaluation_uses_the_rows_every_model_predicts(source) -> 
     with pytest.raises(ValidationInputError, match=r"\[\[models\]\] missing_data = 'drop'"):
         ModelSpec("x", ["clinical"], missing="drop")
     assert ModelSpec("x", ["clinical", "imaging"], missing="complete_cases").without(["imaging"]).missing.method == "complete_cases"
+
+
+def test_importance_runs_with_a_complete_case_model(source) -> None:
+    """Permutation importance evaluates one model at a time (``evaluate_model``): a complete-case model is
+    scored on the rows it predicts."""
+    from riskbench.validation import permutation_importance
+
+    spec = ModelSpec("cc", ["clinical", "imaging"], params=NO_EFFECTS, missing="complete_cases")
+    table = permutation_importance(spec, {"imaging": ["imaging"]}, source, [365.0], n_boot=2, seed=1)
+    drop = table[table["metric"] == "harrell_c"]["drop"]
+    assert np.isfinite(drop.to_numpy(float)).all() and (drop > 0).all()
