@@ -95,11 +95,19 @@ def local_socket_kernel_manager(folder: str, temp_folder: str | None = None) -> 
 
 
 def kernel_pids(folder: str) -> list[int]:
-    """Process ids of the kernels started with ``local_socket_kernel_manager(folder)``."""
-    pids = []
+    """Process ids of the kernels started with ``local_socket_kernel_manager(folder)``: from the pid files
+    they write and, on Linux, from the command lines of running processes (a kernel still starting up)."""
+    pids = set()
     for path in Path(folder).glob("kernel-*.pid"):
         try:
-            pids.append(int(path.read_text()))
+            pids.add(int(path.read_text()))
         except (OSError, ValueError):
             continue
-    return pids
+    for cmdline in Path("/proc").glob("[0-9]*/cmdline"):
+        try:
+            args = cmdline.read_bytes().decode(errors="replace").split("\0")
+        except OSError:
+            continue
+        if LAUNCHER in args and folder in args:
+            pids.add(int(cmdline.parent.name))
+    return sorted(pids)

@@ -79,7 +79,7 @@ def quiet_process_output() -> None:
 
 def keep_temporary_files_in(folder: str) -> None:
     """Send every temporary file of this process and its children to ``folder``."""
-    Path(folder).mkdir(mode=0o700, parents=True, exist_ok=True)
+    Path(folder).mkdir(mode=0o700, exist_ok=True)  # never its parents: a run already cleaned up stays gone
     for name in ("TMPDIR", "TEMP", "TMP", "JOBLIB_TEMP_FOLDER"):
         os.environ[name] = folder
     tempfile.tempdir = folder
@@ -105,17 +105,17 @@ def main(argv: list[str]) -> None:
     if len(argv) < 2:
         raise SystemExit("usage: python -m riskbench.workflow.kernel_launch SOCKETS TEMP -f CONNECTION_FILE")
     sockets, temp, rest = argv[0], argv[1], argv[2:]
-    quiet_process_output()
-    keep_temporary_files_in(temp)
-    bind_output_pipe_to_ipc(sockets)
-    Path(sockets, f"kernel-{os.getpid()}.pid").write_text(str(os.getpid()))
+    watch_parent(temp, os.getppid())  # first: a runner gone during start-up ends this kernel too
 
     def on_term(_signum: int, _frame: object) -> None:
         remove_temporary_files(temp)
         os._exit(128 + signal.SIGTERM)
 
     signal.signal(signal.SIGTERM, on_term)
-    watch_parent(temp, os.getppid())
+    Path(sockets, f"kernel-{os.getpid()}.pid").write_text(str(os.getpid()))
+    quiet_process_output()
+    keep_temporary_files_in(temp)
+    bind_output_pipe_to_ipc(sockets)
     from ipykernel.kernelapp import IPKernelApp
 
     IPKernelApp.launch_instance(argv=[*rest, "--HistoryManager.enabled=False"])

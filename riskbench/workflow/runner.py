@@ -223,6 +223,7 @@ def _run_locked(config: AnalysisConfig, paths: RunPaths, overwrite: bool, notebo
         staging.mkdir()
         write_marker(staging, "partial")
         (staging / NOTEBOOKS).mkdir()
+        (staging / TEMP).mkdir(mode=0o700)
     except OSError as exc:
         raise location_error(exc, out) from None
     temp = staging / TEMP

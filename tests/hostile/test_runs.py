@@ -372,8 +372,16 @@ def kill_project(tmp_path_factory) -> dict:
     return {"base": base, "config": config, "ids": ids}
 
 
-def test_sigterm_during_the_cohort_stage_leaves_no_id_outside_the_inputs(kill_project, tmp_path):
-    """The real cohort stage, killed while its DuckDB spill folder (raw ids) exists."""
+def _in_stage(paths: RunPaths, stage: str):
+    """When a real stage is under way: the cohort stage while its DuckDB spill folder (raw ids) exists, a
+    later stage once papermill has started writing its executed notebook."""
+    if stage == "cohort":
+        return lambda: any((paths.staging / ".tmp").glob("riskbench_duckdb_*"))
+    return lambda: (paths.staging / "notebooks" / f"{stage}.ipynb").is_file()
+
+
+@pytest.mark.parametrize("stage", ["cohort", "02_models"])
+def test_sigterm_during_a_real_stage_leaves_no_id_outside_the_inputs(kill_project, tmp_path, stage):
     systemp = tmp_path / "t"
     systemp.mkdir()
     out = tmp_path / "run"
@@ -381,8 +389,7 @@ def test_sigterm_during_the_cohort_stage_leaves_no_id_outside_the_inputs(kill_pr
     proc = subprocess.Popen([PYTHON, "-m", "riskbench", "run-analysis", str(kill_project["config"]), "--out",
                              str(out)], env={**os.environ, "TMPDIR": str(systemp)}, stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True)
-    status, err = _kill_when(proc, lambda: any((paths.staging / ".tmp").glob("riskbench_duckdb_*")),
-                             signal.SIGTERM, "the cohort stage's spill folder")
+    status, err = _kill_when(proc, _in_stage(paths, stage), signal.SIGTERM, f"stage {stage}")
     assert status == 128 + signal.SIGTERM
     assert err.strip().splitlines()[-1].startswith("riskbench run-analysis: stopped by SIGTERM")
     assert "Traceback" not in err
