@@ -8,19 +8,22 @@ rows it predicts:
   missing value drawn from its predictive distribution; van Buuren 2018, *Flexible Imputation of Missing
   Data*, ch. 4) on the covariates, the time ``s`` at which they are known (``landmark`` of a landmark stack,
   ``start`` of a counting-process row) and the outcome: the event indicator and the Nelson–Aalen cumulative
-  hazard at the row's own time (White & Royston 2009, Stat Med 28:1982-1998, who show that these two,
+  hazard at the observed time (White & Royston 2009, Stat Med 28:1982-1998, who show that these two,
   rather than the raw time, make the imputation model approximately compatible with a Cox model). With a
   competing event each cause gets its indicator and its cause-specific Nelson–Aalen hazard (the usual
   extension of that rule to competing risks; **from memory**). On a landmark stack the hazard is estimated
   within each landmark (each landmark is its own survival data set, time counted from it); on
   counting-process rows each row is read like a landmark row at its start (how the patient's follow-up
   ended, the hazard from the row's start to the patient's exit, and the row's length), see
-  :func:`outcome_predictors` for what was measured. Each of the m imputations runs its own chain with its own seed.
+  :func:`outcome_predictors` for what was measured. Each of the m imputations runs its own chain with its
+  own seed. The conditional model of each covariate is :class:`LinearPredictiveModel` (in place of
+  scikit-learn's default ``BayesianRidge``, for speed).
 * **Rows to predict** (:class:`PredictionImputer`): a new patient's outcome is unknown, so the rows to be
   predicted are imputed without outcome information, by a chained-equations imputer fitted on the training
   rows' covariates and ``s`` only (Hoogland et al. 2020, Stat Med, discuss imputation of validation data
-  without the outcome; cited **from memory**). Its draws are deterministic per row: the standard-normal
-  deviate of each draw comes from a hash of the row's own values, the imputation's seed and the step, so a
+  without the outcome; cited **from memory**). One fit gives the m imputations through m draw seeds. The
+  draws are deterministic per row: the quantile of each draw comes from a hash of the row's own values, the
+  imputation's draw seed and the step, so a
   row gets the same imputations whatever other rows are predicted with it and however often it is
   predicted (the prediction contract is row-wise).
 
@@ -44,11 +47,16 @@ from sklearn.base import BaseEstimator, RegressorMixin
 from riskbench.models.risk_contract import ModelInputError
 
 __all__ = [
+    "LinearPredictiveModel",
     "PredictionImputer",
+    "check_imputable",
     "imputation_seeds",
     "impute_training_rows",
     "nelson_aalen_at",
+    "nelson_aalen_curve",
     "outcome_predictors",
+    "row_normals",
+    "row_uniforms",
 ]
 
 _MASK64 = np.uint64(0xFFFFFFFFFFFFFFFF)
