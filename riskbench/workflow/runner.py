@@ -63,10 +63,8 @@ from riskbench.workflow.saved_messages import scrub_notebook, scrub_text
 NOTEBOOKS = "notebooks"
 REPORT = "report.html"
 KERNEL_STOP_WAIT_S = 5.0
-USER_ERROR_MODULES: tuple[str, ...] = (
-    "riskbench.cohort.errors", "riskbench.models.risk_contract", "riskbench.models.cox_engine",
-    "riskbench.validation.errors", "riskbench.metrics.inputs", "riskbench.workflow.config", "riskbench.time_units",
-)
+# Importing the stage functions registers every RiskbenchError subclass the stages can raise.
+USER_ERROR_MODULES: tuple[str, ...] = ("riskbench.workflow.stages", "riskbench.workflow.pseudonyms")
 
 __all__ = ["NotARunFolder", "RunFolderExists", "RunInterrupted", "RunResult", "StageFailed", "StageInputError",
            "run_analysis"]
@@ -190,11 +188,13 @@ def run_analysis(
     if problems:
         raise ConfigError(f"{config.path}: " + "; ".join(problems))
     paths = RunPaths(_run_folder_path(out))
-    inside = files_inside(input_files(config).values(), paths.owned())
+    key_file = getattr(getattr(config, "privacy", None), "key_file", None)
+    kept = [*input_files(config).values(), *([Path(key_file)] if key_file else [])]
+    inside = files_inside(kept, paths.owned())
     if inside:
         file, folder = inside[0]
-        raise NotARunFolder(f"the input file {file} lies inside {folder}, which this run would replace or remove; "
-                            "choose an --out elsewhere")
+        raise NotARunFolder(f"the file {file}, which this run reads, lies inside {folder}, which this run would "
+                            "replace or remove; choose an --out elsewhere")
     try:
         paths.out.parent.mkdir(parents=True, exist_ok=True)
         lock = RunLock(paths, say).acquire()
@@ -399,7 +399,7 @@ def _signals_interrupt() -> Iterator[None]:
 @contextmanager
 def _signals_deferred() -> Iterator[None]:
     """Hold SIGINT and SIGTERM back until the block is done (they are delivered afterwards)."""
-    if not _in_main_thread():
+    if not _in_main_thread() or not hasattr(signal, "pthread_sigmask"):
         yield
         return
     blocked = {signal.SIGINT, signal.SIGTERM}
