@@ -29,10 +29,10 @@ from riskbench.workflow.stage_result import StageResult
 PATIENT_COLUMNS = ("patient_id", "end_days", "end_status")
 
 
-def build_stage_cohort(config: AnalysisConfig) -> Cohort:
+def build_stage_cohort(config: AnalysisConfig, temp_folder: str | Path | None = None) -> Cohort:
     """Build the cohort of the configuration with the cohort stage (its ``Cohort`` object)."""
     src = config.sources
-    return build_cohort(src.patients, src.measurements, src.outcomes, config.cohort)
+    return build_cohort(src.patients, src.measurements, src.outcomes, config.cohort, temp_folder=temp_folder)
 
 
 STATE_LABELS = {
@@ -142,7 +142,7 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     run_dir = Path(run_dir)
     threshold = config.report.small_count_threshold
     key = config_key(config, run_dir)  # before the long work: a bad key file stops the run at once
-    cohort = build_stage_cohort(config)
+    cohort = build_stage_cohort(config, temp_folder=run_dir / ".tmp")  # spill files stay inside the run
 
     ids = pd.concat([cohort.ledger["patient_id"], cohort.counting_process["patient_id"]], ignore_index=True)
     mapping = pseudonym_map(ids, key)
