@@ -105,5 +105,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         status, line = describe_failure(exc, args.command, debug)
         if debug:
             traceback.print_exception(exc, file=sys.stderr)
+            if getattr(exc, "details", ""):  # a stage's own traceback, from inside its notebook
+                print(f"--- traceback inside the stage notebook ---\n{exc.details}", file=sys.stderr)
         print(line, file=sys.stderr)
         return status

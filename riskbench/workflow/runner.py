@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import logging
 import os
+import re
 import shutil
 import signal
 import tempfile
@@ -62,6 +63,7 @@ from riskbench.workflow.saved_messages import scrub_notebook, scrub_text
 
 NOTEBOOKS = "notebooks"
 REPORT = "report.html"
+_ANSI = re.compile(r"\x1b\[[0-9;]*m")
 KERNEL_STOP_WAIT_S = 5.0
 # Importing the stage functions registers every RiskbenchError subclass the stages can raise.
 USER_ERROR_MODULES: tuple[str, ...] = ("riskbench.workflow.stages", "riskbench.workflow.pseudonyms")
@@ -75,6 +77,7 @@ class StageFailed(Exception):
     the error (exit status 1 on the command line)."""
 
     one_line_message = True
+    details = ""  # the notebook's traceback, shown by the command line with --debug (never saved)
 
 
 class StageInputError(StageFailed, RiskbenchError):
@@ -338,7 +341,9 @@ def _stop(config: AnalysisConfig, paths: RunPaths, stage: str, notebook: str, st
     advice = ("fix the configuration or the data as the message says and run again" if user else
               "this looks like a problem in riskbench or its environment; rerun with --debug and report it")
     cls = StageInputError if user else StageFailed
-    return cls(f"{where}: {_one_line(evalue)} (partial run kept in {failed}; {advice})")
+    error = cls(f"{where}: {_one_line(evalue)} (partial run kept in {failed}; {advice})")
+    error.details = _ANSI.sub("", "\n".join(getattr(exc, "traceback", None) or [f"{ename}: {evalue}"]))
+    return error
 
 
 def _failing_cell(path: Path) -> str:

@@ -289,6 +289,7 @@ def test_exit_status_2_for_data_problems_1_for_internal_errors_and_debug_shows_t
     assert not isinstance(bug.value, RiskbenchError)
     status, line = describe_failure(bug.value, "run-analysis")
     assert status == 1 and "\n" not in line and "rerun with --debug" in line and "stage models failed" in line
+    assert "KeyError" in bug.value.details and "\x1b[" not in bug.value.details  # shown with --debug only
 
     def boom(*_a, **_k):
         raise ZeroDivisionError("float division by zero")
