@@ -71,6 +71,8 @@ def hazard_ratio_figure(
     ax.set_xscale("log")
     ax.set_yticks(np.arange(len(covariates)))
     ax.set_yticklabels([labels.get(c, c) for c in covariates])
+    for tick in ax.get_yticklabels():  # labels are user text: a '$' is a dollar, not mathematics
+        tick.set_parse_math(False)
     ax.invert_yaxis()
     ax.set_xlabel(f"hazard ratio ({level}% interval, log scale)")
     ax.grid(axis="x", alpha=0.3, which="both")

@@ -57,7 +57,7 @@ SECTIONS: tuple[Section, ...] = (
     Section("baseline", "Baseline characteristics by outcome status",
             "Covariates as known at entry, by how follow-up ended. Medians with interquartile ranges; "
             "groups smaller than the threshold are not described.",
-            tables=("baseline_characteristics",)),
+            tables=("baseline_characteristics", "missing_data", "complete_cases")),
     Section("timelines", "Example patient timelines",
             "A few patients drawn at random (with the run's seed), shown under pseudonyms with time since "
             "entry instead of dates: each covariate as it was known over follow-up and how follow-up ended.",

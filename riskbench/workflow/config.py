@@ -32,6 +32,7 @@ from typing import Any
 
 from riskbench.config_problems import Problem
 from riskbench.errors import RiskbenchError
+from riskbench.models.missing_data import MissingDataPlan  # noqa: F401 - one definition, re-exported
 from riskbench.time_units import DAYS_PER_YEAR  # noqa: F401 - re-exported for the stage modules
 
 MODEL_FAMILIES: tuple[str, ...] = ("landmark_cox", "time_varying_cox", "forest")
@@ -82,15 +83,6 @@ class ModelConfig:
     family: str = "landmark_cox"
     params: Mapping[str, Any] = field(default_factory=dict)
     missing_data: str | None = None  # per-model override of [missing_data] method
-
-
-@dataclass(frozen=True)
-class MissingDataPlan:
-    """How missing covariate values are handled: complete cases, missing indicators or multiple imputation."""
-
-    method: str = "multiple_imputation"
-    imputations: int = 10
-    max_iterations: int = 10
 
 
 @dataclass(frozen=True)

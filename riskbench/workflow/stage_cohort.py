@@ -22,6 +22,7 @@ from riskbench.report.outputs import save_data, save_figure, save_table
 from riskbench.report.suppression import coarsen_sequence
 from riskbench.report.timelines import choose_example_patients, timeline_figure
 from riskbench.workflow.config import AnalysisConfig
+from riskbench.workflow.model_factory import missing_data_tables
 from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.workflow.pseudonyms import config_key, pseudonym_map, replace_ids
 from riskbench.workflow.stage_result import StageResult
@@ -149,7 +150,7 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     cp = replace_ids(cohort.counting_process, mapping)
     stack = replace_ids(
         cohort.landmark_stack(list(config.landmarks.landmarks_days), config.landmarks.horizon_days), mapping)
-    static = [c for c in config.cohort.static if c in cohort.patients.columns]
+    static = [c for c in config.cohort.static_columns if c in cohort.patients.columns]
     patients = replace_ids(cohort.patients[[*PATIENT_COLUMNS, *static]], mapping)  # no dates leave the stage
     save_data(cp, run_dir, "counting_process")
     save_data(stack, run_dir, "landmark_stack")
@@ -181,6 +182,7 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     else:
         result.notes.append("Example timelines are switched off ([report] example_patients = 0).")
 
+    result.tables.update(missing_data_tables(config, stack, labels))  # tables/missing_data (+ complete_cases)
     for name, table in result.tables.items():
         save_table(table, run_dir, name)
     return result

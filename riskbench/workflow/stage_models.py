@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
+from collections.abc import Callable, Mapping
 from typing import Any
 
 import numpy as np
@@ -29,6 +30,7 @@ from riskbench.report.outputs import load_data, save_data, save_figure, save_tab
 from riskbench.workflow.config import AnalysisConfig, ConfigError
 from riskbench.workflow.fit_diagnosis import describe_fit_failure, describe_warnings
 from riskbench.workflow.model_factory import fit_model
+from riskbench.workflow.stage_cohort import covariate_labels
 from riskbench.workflow.stage_result import StageResult
 
 #: Errors that make one model's fit (or prediction) fail without stopping the run. A ConfigError is not
@@ -108,11 +110,24 @@ def outcome_hazard_ratios(summary: pd.DataFrame) -> pd.DataFrame:
     return summary.reset_index(drop=True)
 
 
-def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, tuple[str, ...]]) -> Figure:
+def term_label(term: str, label_of: Callable[[str], str] | None) -> str:
+    """A coefficient term in words: the covariate's label (with unit), and for a landmark interaction
+    ``<covariate>:s`` / ``:s2`` what it multiplies (s = landmark scaled to the last landmark)."""
+    base, _, power = str(term).partition(":")
+    text = label_of(base) if label_of is not None else base
+    if power == "s":
+        return f"{text} × landmark (s)"
+    if power == "s2":
+        return f"{text} × landmark squared (s²)"
+    return text
+
+
+def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, tuple[str, ...]],
+                        labels: Mapping[str, str] | None = None) -> Figure:
     """Forest plot of each model's outcome hazard ratios for its covariates (main terms).
 
     For a landmark super-model the main term of a covariate is its effect at landmark 0 (entry); the
-    landmark interactions are in the coefficient tables.
+    landmark interactions are in the coefficient tables. ``labels`` gives readable covariate names.
     """
     from riskbench.report.hazard_ratio_plot import hazard_ratio_figure as forest
 
@@ -120,7 +135,7 @@ def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, t
     for name, table in tables.items():
         rows = table.set_index("term") if "term" in table.columns else table
         main[name] = rows.loc[[c for c in covariates[name] if c in rows.index]]
-    return forest(main, title="Outcome hazard ratios (landmark models: at entry)")
+    return forest(main, labels=labels, title="Outcome hazard ratios (landmark models: at entry)")
 
 
 def _finite_ratios(table: pd.DataFrame) -> bool:
@@ -142,6 +157,7 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     predictions = []
     per_fit: list[tuple[str, list[FitWarning]]] = []
     hazard_ratios: dict[str, pd.DataFrame] = {}
+    label_of = covariate_labels(config)
     if not (stack["status"] == 2).any():
         notes.append(Note("models", "competing-event model", "not fitted: the cohort has no competing events, so "
                           "each model's risk is one minus its outcome-free survival and no competing-event "
@@ -161,6 +177,9 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
                 with recorded_warnings() as summary_log:
                     coefficients = outcome_hazard_ratios(fit.model.summary())
                 fit.warnings.extend(summary_log)
+                if "term" in coefficients.columns:  # readable names beside the column names
+                    coefficients.insert(coefficients.columns.get_loc("term") + 1, "label",
+                                        [term_label(t, label_of) for t in coefficients["term"]])
                 result.tables[f"coefficients_{spec.name}"] = coefficients
                 if _finite_ratios(coefficients):
                     hazard_ratios[spec.name] = coefficients
@@ -180,8 +199,9 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
                   run_dir, "apparent_predictions")
         if hazard_ratios:
             covariates = {m.name: m.covariates for m in config.models}
-            result.figures["hazard_ratios"] = save_figure(hazard_ratio_figure(hazard_ratios, covariates), run_dir,
-                                                          "hazard_ratios")
+            labels = {c: term_label(c, label_of) for cs in covariates.values() for c in cs}
+            result.figures["hazard_ratios"] = save_figure(hazard_ratio_figure(hazard_ratios, covariates, labels),
+                                                          run_dir, "hazard_ratios")
     if stray:
         per_fit.append(("(outside the fits)", list(stray)))
     save_notes(run_dir, "models", notes, count_warnings(per_fit))
