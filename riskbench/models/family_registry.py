@@ -131,7 +131,7 @@ FAMILIES: dict[str, Family] = {
         Family(
             "landmark_cox", "riskbench.models.landmark.LandmarkSupermodel", LANDMARK_STACK,
             (
-                Param("landmark_effects", ("str",), "quadratic",
+                Param("landmark_effects", ("str",), "linear",
                       "how each coefficient varies with the landmark: constant, linear or quadratic in s "
                       "(needs 1, 2 or 3 distinct landmarks)", choices=("none", "linear", "quadratic")),
                 Param("baseline", ("str",), "smooth",

@@ -14,7 +14,12 @@ on the whole stack:
   any s in the fitted range (interpolation between landmarks is the point of the super-model).
 * ``landmark_effects``: coefficients that vary smoothly with the landmark,
   β(s) = β₀ + β₁·(s/S) + β₂·(s/S)², through interaction columns ``<covariate>:s`` and ``<covariate>:s2``
-  (``"none"``, ``"linear"`` or ``"quadratic"``).
+  (``"none"``, ``"linear"`` or ``"quadratic"``). The default is ``"linear"``: one extra coefficient per
+  covariate instead of two, which keeps the events per parameter higher; test the quadratic form against it
+  with :func:`riskbench.validation.landmark_form.landmark_form_test` (a likelihood-ratio test).
+* :meth:`LandmarkSupermodel.landmark_effect_bands` gives β(s) with pointwise Wald intervals from the delta
+  method: Var β̂(s) = gᵀ V g with g = (1, s/S, (s/S)²) over the covariate's coefficients and V the
+  cluster-robust covariance.
 * Variance: the stack repeats patients, so the reported variance is the cluster-robust (sandwich) variance
   by ``patient_id`` (Lin & Wei 1989); the model-based one is kept as ``var_``.
 * Competing event (status 2) with ``competing=True``: a second cause-specific model of the same form for the
@@ -69,6 +74,9 @@ class CauseSpecificFit:
     baseline : dict
         stratum -> (event times in days from the landmark, Breslow hazard increments at those times).
     n_events : int
+    loglik, loglik_null : float
+        Maximised log partial likelihood and its value at zero coefficients (NaN for a fit read from a file
+        written before they were saved).
     """
 
     coef: np.ndarray
@@ -77,6 +85,8 @@ class CauseSpecificFit:
     means: np.ndarray
     baseline: dict[float, tuple[np.ndarray, np.ndarray]]
     n_events: int
+    loglik: float = float("nan")
+    loglik_null: float = float("nan")
 
 
 def _fit_cox_arrays(
@@ -88,14 +98,16 @@ def _fit_cox_arrays(
     cluster: np.ndarray,
     ties: str,
     names: Sequence[str],
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Cox fit of one cause on the stack (entry 0, exit ``time``): coef, model-based and robust covariance.
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, float, float]:
+    """Cox fit of one cause on the stack (entry 0, exit ``time``): coef, model-based and robust covariance,
+    log partial likelihood at the fit and at zero.
 
     The coefficients come from :func:`riskbench.models.cox_engine.fit_cox` (Newton–Raphson, cluster-robust
     sandwich variance by ``cluster``).
     """
     fit = fit_cox(design, time, event, strata=strata, cluster=cluster, ties=ties, names=names)
-    return np.asarray(fit.coef), np.asarray(fit.var), np.asarray(fit.robust_var)
+    return (np.asarray(fit.coef), np.asarray(fit.var), np.asarray(fit.robust_var), float(fit.loglik),
+            float(fit.loglik_null))
 
 
 def _breslow_increments(
@@ -146,7 +158,7 @@ class LandmarkSupermodel(BaseEstimator):
         self,
         covariates: Sequence[str],
         *,
-        landmark_effects: str = "quadratic",
+        landmark_effects: str = "linear",
         baseline: str = "smooth",
         competing: bool = True,
         ties: str = "efron",
@@ -238,7 +250,7 @@ class LandmarkSupermodel(BaseEstimator):
         if event.sum() == 0:
             raise ModelInputError(f"the landmark stack has no {label} (status) rows; nothing to fit")
         try:
-            coef, var, robust_var = _fit_cox_arrays(
+            coef, var, robust_var, loglik, loglik_null = _fit_cox_arrays(
                 design, time, event, strata=strata, cluster=cluster, ties=self.ties, names=self.design_columns_
             )
         except CoxInputError as exc:
@@ -255,6 +267,8 @@ class LandmarkSupermodel(BaseEstimator):
             means=means,
             baseline=_breslow_increments(time, event, risk_score, strata),
             n_events=int(event.sum()),
+            loglik=loglik,
+            loglik_null=loglik_null,
         )
 
     # ----------------------------------------------------------------- predict
@@ -381,3 +395,44 @@ class LandmarkSupermodel(BaseEstimator):
         frame = pd.DataFrame(values, columns=list(self.covariates))
         frame.insert(0, "landmark", np.atleast_1d(np.asarray(landmarks, dtype=float)))
         return frame
+
+    def landmark_effect_bands(self, landmarks: ArrayLike, level: float = 0.95,
+                              cause: str = "outcome") -> pd.DataFrame:
+        """β(s) of each covariate with a pointwise interval, by the delta method on the robust covariance.
+
+        Parameters
+        ----------
+        landmarks : array-like
+            Landmarks s (days since entry) at which to evaluate β(s).
+        level : float
+            Coverage of the pointwise Wald interval (0.95: β̂(s) ± 1.96 SE).
+        cause : {"outcome", "competing"}
+
+        Returns
+        -------
+        DataFrame
+            ``covariate, landmark_days, coef, se, lower, upper``: β̂(s) = Σₖ β̂ₖ (s/S)ᵏ (log hazard ratio per
+            unit of the covariate), SE = sqrt(gᵀ V g) with g = ((s/S)⁰, …, (s/S)ᵏ) over the covariate's
+            coefficients and V their cluster-robust covariance.
+        """
+        from scipy.stats import norm
+
+        self._check_fitted()
+        if not 0 < level < 1:
+            raise ModelInputError(f"level must be between 0 and 1, got {level!r}")
+        fit = self.outcome_ if cause == "outcome" else self.competing_
+        if fit is None:
+            raise ModelInputError(f"no fitted model for cause {cause!r}; use 'outcome' or 'competing'")
+        days = np.atleast_1d(np.asarray(landmarks, dtype=float))
+        powers = (days / self.landmark_scale_)[:, None] ** np.arange(self._effect_power_ + 1)[None, :]
+        p = len(self.covariates)
+        z = float(norm.ppf(0.5 + level / 2))
+        frames = []
+        for j, name in enumerate(self.covariates):
+            index = [j + k * p for k in range(self._effect_power_ + 1)]
+            coef = powers @ fit.coef[index]
+            cov = fit.robust_var[np.ix_(index, index)]
+            se = np.sqrt(np.maximum(np.einsum("ik,kl,il->i", powers, cov, powers), 0.0))
+            frames.append(pd.DataFrame({"covariate": name, "landmark_days": days, "coef": coef, "se": se,
+                                        "lower": coef - z * se, "upper": coef + z * se}))
+        return pd.concat(frames, ignore_index=True)

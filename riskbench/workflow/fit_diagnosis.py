@@ -139,7 +139,7 @@ def _quoted(names: Sequence[str]) -> str:
 def _fix(model: Any, *, landmarks: bool) -> str:
     fixes = [f"remove covariates ([[models]] covariates of {model.name!r})"]
     if model.family == "landmark_cox":
-        effects = dict(model.params).get("landmark_effects", "quadratic")
+        effects = dict(model.params).get("landmark_effects", "linear")
         if effects != "none":
             fixes.append('use fewer landmark effects (params landmark_effects = "linear" or "none")')
         if landmarks:

@@ -79,7 +79,7 @@ def test_smooth_baseline_and_landmark_dependent_effects_recover_a_drifting_coeff
 def test_quadratic_model_predicts_between_landmarks_for_unseen_patients(make_stack) -> None:
     """The contract: rows of patients not seen in fitting, with only covariates and a landmark, get risks in
     [0, 1] that do not depend on the other rows, curves non-decreasing in the horizon."""
-    model = LandmarkSupermodel(["x1", "x2"]).fit(make_stack(n_patients=200, seed=5))
+    model = LandmarkSupermodel(["x1", "x2"], landmark_effects="quadratic").fit(make_stack(n_patients=200, seed=5))
     assert isinstance(model, RiskModel)
     new = pd.DataFrame({"landmark": [0.0, 100.0, 300.0], "x1": [1.5, 0.0, -1.0], "x2": [0.0, 0.5, 1.0]})
     risk = model.predict_risk(new, 365.25)
@@ -97,7 +97,9 @@ def test_clear_errors(make_stack) -> None:
     with pytest.raises(ModelInputError, match="lacks column 'status'"):
         LandmarkSupermodel(["x1"]).fit(stack.drop(columns="status"))
     with pytest.raises(ModelInputError, match="needs at least 3 distinct landmarks"):
-        LandmarkSupermodel(["x1"]).fit(stack[stack["landmark"] > 0])
+        LandmarkSupermodel(["x1"], landmark_effects="quadratic").fit(stack[stack["landmark"] > 0])
+    with pytest.raises(ModelInputError, match="needs at least 2 distinct landmarks"):
+        LandmarkSupermodel(["x1"]).fit(stack[stack["landmark"] == 0])
     with pytest.raises(ModelInputError, match=r"'x2' .*missing in 1 row.*\[missing_data\] method"):
         LandmarkSupermodel(["x1", "x2"]).fit(stack.assign(x2=stack["x2"].mask(stack.index == 7)))
     stratified = LandmarkSupermodel(["x1"], landmark_effects="none", baseline="stratified").fit(stack)
