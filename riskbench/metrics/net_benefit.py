@@ -3,7 +3,10 @@ survival version: the observed risk among those above a threshold is estimated b
 Aalen–Johansen when competing events are present).
 
 NB(p) = P(risk >= p)·[O⁺ − (1 − O⁺)·p/(1 − p)], O⁺ = observed risk by the horizon among risk >= p;
-treat-all uses the whole cohort's observed risk; treat-none is 0.
+treat-none is 0. Treat-all is NB_all(p) = F(h) − (1 − F(h))·p/(1 − p) with F(h) the whole cohort's
+Aalen–Johansen cumulative incidence of the outcome by the horizon: a patient who dies of another cause first
+never has the outcome, so 1 − Kaplan–Meier with competing events censored (which treats them as if they could
+still have it) would overstate the benefit of treating everyone. At p = 0 every measure is the incidence itself.
 """
 
 from __future__ import annotations
@@ -11,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from riskbench.metrics.censoring import observed_risk
 from riskbench.metrics.horizon_inputs import single_horizon_inputs
 from riskbench.metrics.inputs import ArrayLike, MetricInputError
 from riskbench.metrics.threshold_groups import split_by_thresholds
@@ -38,7 +42,7 @@ def net_benefit(
     horizon
         Days; within [min(time), max(time)).
     thresholds
-        Threshold probabilities in (0, 1) at which one would act.
+        Threshold probabilities in [0, 1) at which one would act (0: treat everyone the model gives any risk).
     check_direction
         Refuse a ``risk`` that is clearly anti-concordant (a survival probability passed by mistake).
 
@@ -51,12 +55,12 @@ def net_benefit(
         time, event, risk, horizon, metric="net benefit", check_direction=check_direction
     )
     p = np.atleast_1d(np.asarray(thresholds, dtype=float))
-    if p.size == 0 or (p <= 0).any() or (p >= 1).any() or not np.isfinite(p).all():
-        raise MetricInputError("`thresholds` must be probabilities strictly between 0 and 1 (e.g. 0.01 … 0.5)")
+    if p.size == 0 or (p < 0).any() or (p >= 1).any() or not np.isfinite(p).all():
+        raise MetricInputError("`thresholds` must be probabilities from 0 up to (not including) 1 (e.g. 0 … 0.5)")
     order = np.argsort(p)
     split = split_by_thresholds(t, status, r, h, np.r_[p[order], 1.0 + 1e-9])  # last: nobody above = whole cohort below
     n = t.size
-    overall = split.risk_below[-1]
+    overall = observed_risk(t, status, h)[0]  # Aalen–Johansen with competing events (see the module notes)
     odds = p[order] / (1 - p[order])
     frac = split.n_above[:-1] / n
     model = frac * (split.risk_above[:-1] - (1 - split.risk_above[:-1]) * odds)

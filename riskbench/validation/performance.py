@@ -143,36 +143,60 @@ def evaluate_risks(
     from riskbench import metrics
 
     event = (status == 1).astype(int)
-    competing_absent = not (status == 2).any()
     rows: list[tuple[str, float, float, float]] = []
     for horizon, risk in risks.items():
         h = float(horizon)
         t_eval = evaluation_time(h, time)
-        # Outcome and competing event as known by the horizon: either after it is censored there.
-        by_horizon = np.where(time <= t_eval, status, 0)
-        harrell = metrics.concordance_harrell(np.minimum(time, t_eval), by_horizon, risk, with_se=False)
-        uno = metrics.concordance_uno(time, status, risk, t_eval, with_se=False)
-        auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval])
-        brier = metrics.brier_score(time, status, risk, [t_eval])
+        core = horizon_measures(time, status, risk, h)
         # No confidence band (the resampling gives intervals) and no direction check: a poor model in
         # an unlucky replicate is a result to report, not an input error. A model whose risks take too few
         # distinct values for the smoother has no smoothed calibration (NaN; the other measures stand).
         smooth = _smoothed_calibration(time, event, risk, t_eval)
-        calib = smooth if competing_absent else _smoothed_calibration(time, status, risk, t_eval)
+        rows += [(name, h, np.nan, value) for name, value in core.items() if name != "oe_ratio"]
         rows += [
-            ("harrell_c", h, np.nan, float(harrell.estimate)),
-            ("uno_c", h, np.nan, float(uno.estimate)),
-            ("auc", h, np.nan, float(np.asarray(auc.table["auc"])[0])),
-            ("brier", h, np.nan, float(np.asarray(brier["brier"])[0])),
-            ("scaled_brier", h, np.nan, float(np.asarray(brier["scaled_brier"])[0])),
             ("calibration_slope", h, np.nan, float(smooth.slope)),
-            ("oe_ratio", h, np.nan, float(calib.oe_ratio)),
+            ("oe_ratio", h, np.nan, core["oe_ratio"]),
             ("ici", h, np.nan, float(smooth.ici)),
         ]
         if len(thresholds):
             nb = metrics.net_benefit(time, status, risk, t_eval, list(thresholds), check_direction=False)
             rows += [("net_benefit", h, float(th), float(v)) for th, v in zip(nb["threshold"], nb["model"])]
     return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+
+
+#: The measures of :func:`horizon_measures`, in its order.
+HORIZON_MEASURES: tuple[str, ...] = ("harrell_c", "uno_c", "auc", "brier", "scaled_brier", "oe_ratio")
+
+
+def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, horizon: float) -> dict[str, float]:
+    """Concordance (Harrell, Uno), cumulative/dynamic AUC, Brier score, scaled Brier (IPA) and
+    calibration-in-the-large at one horizon (days), each treating a competing event as the module notes say.
+
+    The calibration-in-the-large is the observed/expected ratio: the Aalen–Johansen cumulative incidence by the
+    horizon (1 − Kaplan–Meier without competing events) over the mean predicted risk, the same O/E as
+    :func:`riskbench.metrics.calibration_at_horizon`. Raises :class:`riskbench.metrics.inputs.MetricInputError`
+    when a measure is undefined (no outcome before the horizon, no control after it).
+    """
+    from riskbench import metrics
+    from riskbench.metrics.censoring import observed_risk
+
+    t_eval = evaluation_time(float(horizon), time)
+    # Outcome and competing event as known by the horizon: either after it is censored there.
+    by_horizon = np.where(time <= t_eval, status, 0)
+    harrell = metrics.concordance_harrell(np.minimum(time, t_eval), by_horizon, risk, with_se=False)
+    uno = metrics.concordance_uno(time, status, risk, t_eval, with_se=False)
+    auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval])
+    brier = metrics.brier_score(time, status, risk, [t_eval], check_direction=False)
+    observed, _ = observed_risk(time, status, t_eval)
+    expected = float(np.mean(risk))
+    return {
+        "harrell_c": float(harrell.estimate),
+        "uno_c": float(uno.estimate),
+        "auc": float(np.asarray(auc.table["auc"])[0]),
+        "brier": float(np.asarray(brier["brier"])[0]),
+        "scaled_brier": float(np.asarray(brier["scaled_brier"])[0]),
+        "oe_ratio": observed / expected if expected > 0 else np.nan,
+    }
 
 
 def _smoothed_calibration(time: np.ndarray, status: np.ndarray, risk: np.ndarray, t_eval: float) -> Any:

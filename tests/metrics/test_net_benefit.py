@@ -51,8 +51,19 @@ def test_useful_model_beats_both_defaults_at_moderate_thresholds(cohort):
 
 def test_net_benefit_rejects_thresholds_outside_zero_one(cohort):
     t, e, risk = cohort
-    with pytest.raises(MetricInputError, match="strictly between 0 and 1"):
-        net_benefit(t, e, risk, HORIZON, [0.0, 0.5])
+    for bad in ([-0.01, 0.5], [0.2, 1.0], [np.nan]):
+        with pytest.raises(MetricInputError, match="from 0 up to"):
+            net_benefit(t, e, risk, HORIZON, bad)
+
+
+def test_threshold_zero_treats_everyone(cohort):
+    """At p = 0 the odds are 0, so model and treat-all both equal the observed risk (Vickers & Elkin 2006:
+    the decision curve of treat-all meets the prevalence at threshold 0)."""
+    t, e, risk = cohort
+    row = net_benefit(t, e, risk, HORIZON, [0.0]).iloc[0]
+    assert row.fraction_treated == 1.0
+    assert row.model == pytest.approx(_km_risk(t, e), abs=1e-12)
+    assert row.treat_all == pytest.approx(_km_risk(t, e), abs=1e-12)
 
 
 def test_triage_reaches_target_npv_and_matches_kaplan_meier(cohort):
