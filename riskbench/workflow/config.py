@@ -144,7 +144,11 @@ class ReportOptions:
     triage_target_npv: float = 0.98
     decision_curves: bool = True
     decision_threshold_max: float = 0.5
+    decision_threshold_min: float = 0.0  # decision curves start here (0: treat everyone with any risk)
     example_timelines: bool = True
+    #: covariate column -> step of its hazard ratio: a number in the covariate's unit, "iqr" or "sd"
+    #: (:mod:`riskbench.report.effects`; covariates not listed: per interquartile range, binary per 1).
+    effect_units: Mapping[str, float | str] = field(default_factory=dict)
 
     @property
     def horizons_years(self) -> tuple[float, ...]:

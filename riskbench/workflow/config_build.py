@@ -157,7 +157,18 @@ def _assemble(data: Mapping[str, Any], seed: int, sources: Any, cohort: Any, lm:
         title=rep.title, horizons_days=horizons, small_count_threshold=rep.small_count_threshold,
         example_patients=rep.example_patients, triage=rep.triage, triage_target_npv=rep.triage_target_npv,
         decision_curves=rep.decision_curves, decision_threshold_max=rep.decision_threshold_max,
-        example_timelines=rep.example_timelines)
+        decision_threshold_min=rep.decision_threshold_min,
+        example_timelines=rep.example_timelines, effect_units=dict(rep.effect_units))
+    if rep.decision_threshold_min >= rep.decision_threshold_max:
+        problems.append(Problem("[report] decision_threshold_min",
+                                f"[report] decision_threshold_min = {rep.decision_threshold_min:g} must be below "
+                                f"decision_threshold_max = {rep.decision_threshold_max:g} (the decision curves run "
+                                "from the one to the other)"))
+    used = {c for m in models for c in m.covariates}
+    for name in sorted(set(rep.effect_units) - used):
+        problems.append(Problem(f"[report] effect_units.{name}",
+                                f"[report] effect_units names {show(name)}, which no [[models]] table uses as a "
+                                f"covariate{did_you_mean(name, sorted(used))}"))
     default_key = f"{config_path.stem}.key" if config_path is not None else "riskbench.key"
     privacy = cfg.PrivacyOptions(key_file=_path(priv.key_file or default_key, base_dir).resolve())
     model_configs = tuple(

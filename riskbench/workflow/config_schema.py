@@ -104,7 +104,19 @@ class ReportSection(ConfigTable):
     triage_target_npv: float = Field(0.98, ge=0.5, le=1.0, description="a number from 0.5 to 1")
     decision_curves: bool = Field(True, description="true or false")
     decision_threshold_max: float = Field(0.5, gt=0.0, le=1.0, description="a number > 0 and <= 1")
+    decision_threshold_min: float = Field(0.0, ge=0.0, lt=1.0, description="a number from 0 up to (not including) 1")
     example_timelines: bool = Field(True, description="true or false")
+    effect_units: dict[Name, float | Literal["iqr", "sd"]] = Field(
+        default_factory=dict, description='a table covariate = step: a number > 0 in the covariate\'s unit, "iqr" '
+        'or "sd" (hazard ratios are shown per that step; default per interquartile range, binary per 1)')
+
+    @field_validator("effect_units")
+    @classmethod
+    def _positive_steps(cls, value: dict[str, Any]) -> dict[str, Any]:
+        bad = {k: v for k, v in value.items() if isinstance(v, float) and not (0 < v < float("inf"))}
+        if bad:
+            raise ValueError(f"expected steps > 0 (finite numbers), 'iqr' or 'sd'; {show(bad)} is not")
+        return value
 
     @field_validator("report_horizons")
     @classmethod

@@ -1,7 +1,10 @@
 """Stage 2, models: fit every configured model on the whole cohort.
 
-Writes ``tables/coefficients_<model>.csv`` (terms with hazard ratios and 95% intervals, for models that
-have coefficients), ``figures/hazard_ratios`` (forest plot of the outcome hazard ratios), and
+Writes ``tables/coefficients_<model>.csv`` (terms with coefficients, and hazard ratios with 95% intervals for
+the main terms, for models that have coefficients), ``tables/hazard_ratios_<model>.csv`` (hazard ratios per a
+step of each covariate, stated in ``per``: :mod:`riskbench.report.effects`), ``figures/hazard_ratios`` (forest
+plot of those), ``figures/landmark_effects`` (β(s) of landmark-varying effects with pointwise 95% bands),
+``tables/landmark_effect_forms.csv`` (likelihood-ratio test of the richer landmark form), and
 ``data/apparent_predictions.parquet`` (``row, model, horizon, risk``: each landmark-stack row's predicted
 risk at every evaluation horizon, horizons in days).
 
@@ -29,6 +32,7 @@ from riskbench.report.notes import Note, save_notes
 from riskbench.report.outputs import load_data, save_data, save_figure, save_table
 from riskbench.workflow.config import AnalysisConfig, ConfigError
 from riskbench.workflow.fit_diagnosis import describe_fit_failure, describe_warnings
+from riskbench.workflow.model_effects import PART_ERRORS, coefficient_table, effect_bands, form_tests, model_effects
 from riskbench.workflow.model_factory import fit_model
 from riskbench.workflow.stage_cohort import covariate_labels
 from riskbench.workflow.stage_result import StageResult
@@ -124,10 +128,11 @@ def term_label(term: str, label_of: Callable[[str], str] | None) -> str:
 
 def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, tuple[str, ...]],
                         labels: Mapping[str, str] | None = None) -> Figure:
-    """Forest plot of each model's outcome hazard ratios for its covariates (main terms).
+    """Forest plot of each model's outcome hazard ratios for its covariates (main terms), per the step of
+    each covariate (``tables``: :func:`riskbench.report.effects.scaled_hazard_ratios`).
 
-    For a landmark super-model the main term of a covariate is its effect at landmark 0 (entry); the
-    landmark interactions are in the coefficient tables. ``labels`` gives readable covariate names.
+    For a landmark super-model with landmark-varying effects the main term of a covariate is its effect at
+    landmark 0 (entry); the β(s) figure shows how it changes. ``labels`` gives readable covariate names.
     """
     from riskbench.report.hazard_ratio_plot import hazard_ratio_figure as forest
 
@@ -135,7 +140,7 @@ def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, t
     for name, table in tables.items():
         rows = table.set_index("term") if "term" in table.columns else table
         main[name] = rows.loc[[c for c in covariates[name] if c in rows.index]]
-    return forest(main, labels=labels, title="Outcome hazard ratios (landmark models: at entry)")
+    return forest(main, labels=labels, title="Outcome hazard ratios per step (landmark-varying effects: at entry)")
 
 
 def _finite_ratios(table: pd.DataFrame) -> bool:
@@ -157,6 +162,7 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     predictions = []
     per_fit: list[tuple[str, list[FitWarning]]] = []
     hazard_ratios: dict[str, pd.DataFrame] = {}
+    effects = EffectParts()
     label_of = covariate_labels(config)
     if not (stack["status"] == 2).any():
         notes.append(Note("models", "competing-event model", "not fitted: the cohort has no competing events, so "
@@ -177,16 +183,12 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
                 with recorded_warnings() as summary_log:
                     coefficients = outcome_hazard_ratios(fit.model.summary())
                 fit.warnings.extend(summary_log)
+                notes += _effects(config, spec, fit.model, coefficients, stack, label_of, result, hazard_ratios,
+                                  effects)
                 if "term" in coefficients.columns:  # readable names beside the column names
                     coefficients.insert(coefficients.columns.get_loc("term") + 1, "label",
                                         [term_label(t, label_of) for t in coefficients["term"]])
-                result.tables[f"coefficients_{spec.name}"] = coefficients
-                if _finite_ratios(coefficients):
-                    hazard_ratios[spec.name] = coefficients
-                else:
-                    notes.append(Note("models", "hazard-ratio figure", "left out of the figure: some hazard "
-                                      "ratios or intervals are not finite (see its coefficient table).",
-                                      model=spec.name))
+                result.tables[f"coefficients_{spec.name}"] = coefficient_table(coefficients)
             else:
                 result.notes.append(f"Model {spec.name!r} ({spec.family}) has no coefficients to show.")
             said = describe_warnings(spec, fit.warnings, stack, cp, threshold=threshold)
@@ -199,9 +201,17 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
                   run_dir, "apparent_predictions")
         if hazard_ratios:
             covariates = {m.name: m.covariates for m in config.models}
-            labels = {c: term_label(c, label_of) for cs in covariates.values() for c in cs}
+            labels = {c: f"{term_label(c, label_of)}, per {effects.per.get(c, '1')}"
+                      for cs in covariates.values() for c in cs}
             result.figures["hazard_ratios"] = save_figure(hazard_ratio_figure(hazard_ratios, covariates, labels),
                                                           run_dir, "hazard_ratios")
+        notes += _landmark_effect_outputs(effects, label_of, result, run_dir)
+        from riskbench.workflow.review_items import cox_checks  # PH tests and the nested LR test
+
+        checks, check_notes = cox_checks(config, stack, cp, label_of,
+                                         frozenset(n.model for n in notes if n.kind == "fit failed"))
+        result.tables.update(checks)
+        notes += check_notes
     if stray:
         per_fit.append(("(outside the fits)", list(stray)))
     save_notes(run_dir, "models", notes, count_warnings(per_fit))
@@ -209,3 +219,65 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     for name, table in result.tables.items():
         save_table(table, run_dir, name)
     return result
+
+
+@dataclass
+class EffectParts:
+    """What the models stage gathers for the effect outputs: the β(s) bands per model, the landmark-form
+    tests, and the steps (``per`` texts and sizes) of the covariates."""
+
+    bands: dict[str, pd.DataFrame] = field(default_factory=dict)
+    form_tests: list[dict[str, Any]] = field(default_factory=list)
+    per: dict[str, str] = field(default_factory=dict)
+    steps: dict[str, float] = field(default_factory=dict)
+
+
+def _effects(config: AnalysisConfig, spec: Any, model: Any, coefficients: pd.DataFrame, stack: pd.DataFrame,
+             label_of: Callable[[str], str], result: StageResult, hazard_ratios: dict[str, pd.DataFrame],
+             effects: EffectParts) -> list[Note]:
+    """Hazard ratios per step (table and figure entry), β(s) bands and landmark-form tests of one model."""
+    notes: list[Note] = []
+    try:
+        table, steps = model_effects(model, coefficients, stack, list(spec.covariates),
+                                     getattr(config.report, "effect_units", {}), label_of)
+    except PART_ERRORS as exc:
+        return [Note("models", "hazard ratios per step", f"not computed: {exc}", model=spec.name)]
+    result.tables[f"hazard_ratios_{spec.name}"] = table
+    effects.per.update(dict(zip(table["term"], table["per"])))
+    effects.steps.update({c: s.size for c, s in steps.items()})
+    if _finite_ratios(table):
+        hazard_ratios[spec.name] = table
+    else:
+        notes.append(Note("models", "hazard-ratio figure", "left out of the figure: some hazard ratios or "
+                          "intervals are not finite (see its hazard-ratio table).", model=spec.name))
+    for part, compute in (("β(s) figure", lambda: effect_bands(model)),
+                          ("landmark-effect likelihood-ratio test", lambda: form_tests(model, spec, stack))):
+        try:
+            with recorded_warnings():
+                value = compute()
+        except PART_ERRORS as exc:
+            notes.append(Note("models", part, f"not computed: {exc}", model=spec.name))
+            continue
+        if isinstance(value, pd.DataFrame):
+            effects.bands[spec.name] = value
+        elif value:
+            effects.form_tests.extend(value)
+    return notes
+
+
+def _landmark_effect_outputs(effects: EffectParts, label_of: Callable[[str], str], result: StageResult,
+                             run_dir: Path) -> list[Note]:
+    """The β(s) figure and the landmark-form test table."""
+    from riskbench.report.landmark_effect_plot import landmark_effect_figure
+
+    if effects.form_tests:
+        result.tables["landmark_effect_forms"] = pd.DataFrame(effects.form_tests)
+    if not effects.bands:
+        return []
+    labels = {c: label_of(c) for table in effects.bands.values() for c in table["covariate"].unique()}
+    try:
+        figure = landmark_effect_figure(effects.bands, effects.steps, labels, effects.per)
+    except PART_ERRORS as exc:
+        return [Note("models", "β(s) figure", f"not drawn: {exc}")]
+    result.figures["landmark_effects"] = save_figure(figure, run_dir, "landmark_effects")
+    return []
