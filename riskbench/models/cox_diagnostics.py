@@ -21,6 +21,10 @@ times consecutively, so it differs when times are tied).
 
 from __future__ import annotations
 
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
 import numpy as np
 import pandas as pd
 from scipy import stats
@@ -29,7 +33,7 @@ from riskbench.models.cox_engine import _evaluate, _layout
 from riskbench.models.cox_model import CoxModel
 from riskbench.models.risk_contract import ModelInputError
 
-__all__ = ["TIME_TRANSFORMS", "proportional_hazards_test", "schoenfeld_residuals"]
+__all__ = ["TIME_TRANSFORMS", "CoxRefit", "cox_refit", "proportional_hazards_test", "schoenfeld_residuals"]
 
 TIME_TRANSFORMS = ("km", "rank", "identity", "log")
 
@@ -148,3 +152,78 @@ def proportional_hazards_test(model: CoxModel, table: pd.DataFrame, transform: s
     )
     out.attrs["transform"] = transform
     return out
+
+
+@dataclass(frozen=True)
+class CoxRefit:
+    """A Cox-family model refitted as a plain :class:`CoxModel` on complete cases, for tests on its fit.
+
+    Attributes
+    ----------
+    model : fitted CoxModel of the outcome (model-based variance; no cluster).
+    table : the rows it was fitted on (design columns, ``time``/``stop``, ``status``).
+    rows_left_out : rows of the input table with a missing covariate (not used).
+    time_origin : ``"landmark"`` (time since the landmark, one stratum per landmark when the model has one
+        baseline per landmark) or ``"entry"`` (counting-process rows).
+    """
+
+    model: CoxModel
+    table: pd.DataFrame
+    rows_left_out: int
+    time_origin: str
+
+
+def cox_refit(family: str, covariates: Sequence[str], params: Mapping[str, Any], table: pd.DataFrame,
+              *, complete_on: Sequence[str] | None = None) -> CoxRefit:
+    """Refit the outcome part of a ``landmark_cox`` or ``time_varying_cox`` model as a :class:`CoxModel`.
+
+    A landmark super-model becomes a Cox model on its design (covariates and their landmark interactions,
+    plus the landmark terms of a smooth baseline) with ``time`` since the landmark, stratified by landmark
+    when it has one baseline per landmark: the same partial likelihood as the super-model's outcome model.
+    A time-varying Cox model is refitted with its ties, penalty, strata and weights.
+
+    Parameters
+    ----------
+    family : ``"landmark_cox"`` or ``"time_varying_cox"`` (``"cox"`` accepted).
+    covariates : the model's covariates.
+    params : the family's parameters from the configuration.
+    table : the landmark stack (landmark_cox) or counting-process rows (time_varying_cox).
+    complete_on : covariates whose missing values exclude a row (default ``covariates``); pass the union of
+        two models' covariates to fit both on the same rows.
+
+    Raises
+    ------
+    ModelInputError
+        For another family, or when no complete row with an outcome is left.
+    """
+    from riskbench.models.landmark import LandmarkSupermodel
+
+    covariates = list(covariates)
+    needed = list(dict.fromkeys([*(complete_on or covariates), *covariates]))
+    missing_columns = [c for c in needed if c not in table.columns]
+    if missing_columns:
+        raise ModelInputError(f"covariate(s) {missing_columns} are not columns of the table.")
+    complete = table[needed].notna().all(axis=1).to_numpy()
+    rows = table.loc[complete].reset_index(drop=True)
+    if not (rows["status"] == 1).any():
+        raise ModelInputError("no outcome among the rows with every covariate known.")
+    if family == "landmark_cox":
+        keep = {k: v for k, v in params.items() if k in ("landmark_effects", "baseline", "ties")}
+        supermodel = LandmarkSupermodel(covariates, competing=False, **keep).fit(rows)
+        s = rows["landmark"].to_numpy(float)
+        design = supermodel._design(rows[covariates].to_numpy(float), s)
+        names = list(supermodel.design_columns_)
+        fit_table = pd.DataFrame(design, columns=names)
+        fit_table["time"] = rows["time"].to_numpy(float)
+        fit_table["status"] = rows["status"].to_numpy()
+        strata = None
+        if supermodel.baseline == "stratified":
+            fit_table["landmark"] = s
+            strata = "landmark"
+        model = CoxModel(names, ties=supermodel.ties, strata=strata, cluster=None).fit(fit_table)
+        return CoxRefit(model, fit_table, int((~complete).sum()), "landmark")
+    if family in ("time_varying_cox", "cox"):
+        keep = {k: v for k, v in params.items() if k in ("ties", "penalty", "strata", "weights")}
+        model = CoxModel(covariates, cluster=None, **keep).fit(rows)
+        return CoxRefit(model, rows, int((~complete).sum()), "entry")
+    raise ModelInputError(f"family {family!r} is not a Cox model; the tests of a Cox fit do not apply.")

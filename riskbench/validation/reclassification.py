@@ -69,6 +69,26 @@ class NetReclassification:
     n_unchanged: int
     categories: tuple[float, ...] | None
 
+    @property
+    def kind(self) -> str:
+        """Which NRI this is, in words (:func:`nri_kind`)."""
+        return nri_kind(self.categories)
+
+
+def nri_kind(categories: Sequence[float] | None) -> str:
+    """The NRI's type as a reader needs it stated: category-free, or categorical with its cut points.
+
+    >>> nri_kind(None)
+    'category-free (continuous) NRI: any rise or fall of the predicted risk counts as a move'
+    >>> nri_kind([0.05, 0.2])
+    'categorical NRI with risk categories cut at 0.05 and 0.2'
+    """
+    if categories is None or len(categories) == 0:
+        return "category-free (continuous) NRI: any rise or fall of the predicted risk counts as a move"
+    cuts = [f"{float(c):g}" for c in categories]
+    shown = cuts[0] if len(cuts) == 1 else ", ".join(cuts[:-1]) + " and " + cuts[-1]
+    return f"categorical NRI with risk categories cut at {shown}"
+
 
 @dataclass(frozen=True)
 class IntegratedDiscrimination:

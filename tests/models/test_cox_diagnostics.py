@@ -77,3 +77,54 @@ def test_ph_test_errors(rossi_fit):
         proportional_hazards_test(model, table, transform="sqrt")
     with pytest.raises(ModelInputError, match="events"):
         proportional_hazards_test(model, table.iloc[:200], transform="km")
+
+
+def _stack(seed: int = 4, n: int = 400) -> pd.DataFrame:
+    """A small landmark stack (two landmarks, rows of one patient share x2) with an outcome depending on x1, x2."""
+    rng = np.random.default_rng(seed)
+    x1, x2 = rng.normal(size=n), rng.binomial(1, 0.4, n).astype(float)
+    t = rng.exponential(500 / np.exp(0.7 * x1 + 0.5 * x2))
+    cens = rng.uniform(100, 730, n)
+    return pd.DataFrame({"patient_id": np.arange(n) % 250, "landmark": np.where(np.arange(n) < 250, 0.0, 182.625),
+                         "time": np.maximum(np.round(np.minimum(t, cens)), 1.0), "status": (t <= cens).astype(int),
+                         "x1": x1, "x2": np.where(rng.uniform(size=n) < 0.05, np.nan, x2)})
+
+
+@pytest.mark.parametrize("baseline", ["stratified", "smooth"])
+def test_landmark_refit_is_the_supermodels_outcome_model(baseline):
+    """The plain Cox refit of a landmark super-model's design has the super-model's outcome coefficients."""
+    from riskbench.models import LandmarkSupermodel
+    from riskbench.models.cox_diagnostics import cox_refit
+
+    stack = _stack()
+    params = {"landmark_effects": "linear", "baseline": baseline}
+    refit = cox_refit("landmark_cox", ["x1", "x2"], params, stack)
+    direct = LandmarkSupermodel(["x1", "x2"], competing=False, **params).fit(stack.dropna())
+    np.testing.assert_allclose(refit.model.coef_.to_numpy(), direct.coef_, rtol=1e-9, atol=1e-12)
+    assert refit.rows_left_out == int(stack["x2"].isna().sum()) and refit.time_origin == "landmark"
+
+
+def test_nested_refits_give_lifelines_likelihood_ratio():
+    """Nested refits on the same complete rows: the LR statistic equals 2 x the difference of lifelines'
+    CoxPHFitter log partial likelihoods (Efron ties, strata = landmark) on the same design."""
+    from riskbench.models.cox_diagnostics import cox_refit
+    from riskbench.validation.likelihood_ratio import nested_cox_lr_test
+
+    stack = _stack(seed=9)
+    params = {"landmark_effects": "linear", "baseline": "stratified"}
+    small, large = (cox_refit("landmark_cox", c, params, stack, complete_on=["x1", "x2"])
+                    for c in (["x1"], ["x1", "x2"]))
+    ours = nested_cox_lr_test(small.model, large.model)
+    lls = []
+    for refit in (small, large):
+        peer = CoxPHFitter().fit(refit.table, "time", "status", strata=["landmark"],
+                                 fit_options={"precision": 1e-11, "r_precision": 1e-14})
+        lls.append(peer.log_likelihood_)
+    assert ours.df == 2 and ours.statistic == pytest.approx(2 * (lls[1] - lls[0]), rel=1e-6)
+
+
+def test_refit_refuses_a_forest():
+    from riskbench.models.cox_diagnostics import cox_refit
+
+    with pytest.raises(ModelInputError, match="not a Cox model"):
+        cox_refit("forest", ["x1"], {}, _stack())
