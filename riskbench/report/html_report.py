@@ -28,7 +28,8 @@ class Section:
     """One report section: its anchor, heading, explanation and the figures/tables it shows.
 
     ``figures`` and ``tables`` are file-name patterns (``glob`` style, without extension) in the run's
-    ``figures/`` and ``tables/`` folders.
+    ``figures/`` and ``tables/`` folders; ``texts`` name ``tables/<name>.txt`` files shown as paragraphs
+    (one per line).
     """
 
     anchor: str
@@ -36,6 +37,7 @@ class Section:
     text: str
     figures: tuple[str, ...] = ()
     tables: tuple[str, ...] = ()
+    texts: tuple[str, ...] = ()
 
 
 CAUTION = (
@@ -50,6 +52,14 @@ CAUTION = (
 )
 
 SECTIONS: tuple[Section, ...] = (
+    Section("methods", "Methods",
+            "Written by the software from the configuration and the data of this run.", texts=("methods",)),
+    Section("sample-size", "Sample size and follow-up",
+            "Minimum sample size for each model by the criteria of Riley et al. (BMJ 2020;368:m441) for a "
+            "time-to-event outcome, with an anticipated Cox-Snell R² of 15% of its maximum (a conservative "
+            "choice), against the cohort's patients and outcomes; and the median follow-up by the reverse "
+            "Kaplan-Meier method (Schemper & Smith 1996).",
+            tables=("sample_size", "follow_up")),
     Section("cohort-flow", "Cohort flow",
             "How many patients remained after each step of the cohort derivation, and what the input rows "
             "were used for (every row of every source table ends in exactly one state).",
@@ -67,6 +77,14 @@ SECTIONS: tuple[Section, ...] = (
             "whole cohort. A term marked × (s/S) or × (s/S)² is the change of the log hazard ratio with the "
             "landmark time s (S: the last landmark).",
             figures=("hazard_ratios",), tables=("coefficients_*",)),
+    Section("model-checks", "Proportional hazards and the nested likelihood-ratio test",
+            "Grambsch-Therneau test of proportional hazards (scaled Schoenfeld residuals against 1 - Kaplan-Meier "
+            "of time, model-based variance) for each Cox model's outcome part, refitted on the rows with every "
+            "covariate known; for landmark models time runs from the landmark. A small p-value suggests an effect "
+            "that changes over time. The likelihood-ratio test compares the candidate with the reference model "
+            "nested in it, both fitted on the same rows; it treats the landmark rows of one patient as "
+            "independent, so read it as descriptive when patients contribute several rows.",
+            tables=("proportional_hazards", "likelihood_ratio_test")),
     Section("discrimination", "Time-dependent AUC",
             "Cumulative/dynamic AUC of the cross-validated predictions against the horizon after the "
             "landmark, and the concordance and Brier scores at the report horizons. The predictions are "
@@ -90,6 +108,13 @@ SECTIONS: tuple[Section, ...] = (
             "The risk threshold below which patients could be spared a procedure, chosen for a high "
             "negative predictive value, with its consequences and bootstrap intervals.",
             tables=("triage_operating_point",)),
+    Section("limitations", "Limitations",
+            "Written by the software from the configuration and the data of this run; the authors add what it "
+            "cannot know.", texts=("limitations",)),
+    Section("reporting-items", "Reporting items",
+            "Where this report covers each item of the TRIPOD 2015 and TRIPOD+AI 2024 reporting guidelines "
+            "(item numbers of each), and which items are left to the authors.",
+            tables=("reporting_items",)),
 )
 
 
@@ -198,8 +223,11 @@ def build_report(
                      f"<p>{html.escape(section.text)}</p>")
         figures = _find(run_dir / FIGURES, section.figures, ".png")
         tables = _find(run_dir / TABLES, section.tables, ".csv")
-        if not figures and not tables:
+        texts = _find(run_dir / TABLES, section.texts, ".txt")
+        if not figures and not tables and not texts:
             parts.append('<p class="missing">Not produced in this run.</p>')
+        parts.extend(f"<p>{html.escape(line)}</p>" for p in texts
+                     for line in p.read_text(encoding="utf-8").splitlines() if line.strip())
         parts.extend(_figure_html(p) for p in figures)
         parts.extend(_table_html(p) for p in tables)
         parts.append("</section>")

@@ -200,12 +200,16 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
             notes.add("performance", "not computed: no model has cross-validated predictions (see the notes of "
                       "the models and validation stages).")
         _comparison(config, stack, cp, cv, report_days, result, notes, fits)
+    for table_name, table in result.tables.items():
+        save_table(table, run_dir, table_name)
+    from riskbench.workflow.review_items import write_review_items  # after every other table is written
+    from riskbench.workflow.stage_cohort import covariate_labels
+
+    notes.notes.extend(write_review_items(config, run_dir, stack, covariate_labels(config)))
     if stray:
         fits.append(("(outside the fits)", list(stray)))
     save_notes(run_dir, "comparison", notes.notes, count_warnings(fits))
     result.notes.extend(n.sentence() for n in notes.notes)
-    for table_name, table in result.tables.items():
-        save_table(table, run_dir, table_name)
     build_report(
         run_dir, title=config.report.title, threshold=threshold,
         facts=[("riskbench", __version__), ("configuration", config.path.name if config.path else "(in memory)"),
