@@ -12,7 +12,6 @@ from collections.abc import Callable
 from pathlib import Path
 
 import pandas as pd
-from matplotlib.figure import Figure
 
 from riskbench.cohort import Cohort, build_cohort
 from riskbench.report.baseline_table import baseline_table
@@ -59,7 +58,9 @@ def patient_flow(flow: pd.DataFrame, patients: pd.DataFrame) -> pd.DataFrame:
                          int(r[excluded]), 0))
     rows[-1] = (STATE_LABELS["used"], len(patients), 0, 0)
     for code, label in END_LABELS.items():
-        rows.append((label, int((patients["end_status"] == code).sum()), 0, 1))
+        n_end = int((patients["end_status"] == code).sum())
+        if n_end or code != 2:  # no empty competing-event box when the cohort has none
+            rows.append((label, n_end, 0, 1))
     return pd.DataFrame(rows, columns=["step", "n_patients", "n_excluded", "level"])
 
 
@@ -110,7 +111,9 @@ def landmark_summary(stack: pd.DataFrame, threshold: int) -> pd.DataFrame:
     such a difference occurs).
     """
     table = landmark_counts(stack)
-    for column in LANDMARK_COUNTS:
+    if not table["competing_events"].any():  # no empty competing-event column when the cohort has none
+        table = table.drop(columns="competing_events")
+    for column in [c for c in LANDMARK_COUNTS if c in table.columns]:
         table[column] = coarsen_sequence(table[column].to_numpy(float), threshold)
     return table
 
@@ -127,15 +130,6 @@ def covariate_labels(config: AnalysisConfig) -> Callable[[str], str]:
         except (KeyError, ValueError):
             return column
     return safe
-
-
-def label_timeline_panels(fig: Figure, columns: list[str], labels: Callable[[str], str]) -> Figure:
-    """Replace the column names in the timeline panel titles by their labels (drawn as plain text)."""
-    for ax in fig.axes:
-        title = ax.get_title()
-        if title in columns:
-            ax.set_title(labels(title), fontsize=9, parse_math=False)
-    return fig
 
 
 def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
@@ -177,7 +171,7 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     if getattr(config.report, "example_timelines", True) and config.report.example_patients > 0:
         chosen = choose_example_patients(cp, config.report.example_patients, config.seed)
         columns = time_varying_columns(config)
-        figure = label_timeline_panels(timeline_figure(cp, chosen, columns), columns, labels)
+        figure = timeline_figure(cp, chosen, columns, labels)  # panel titles: labels with units
         result.figures["example_timelines"] = save_figure(figure, run_dir, "example_timelines")
     else:
         result.notes.append("Example timelines are switched off ([report] example_patients = 0).")

@@ -153,7 +153,7 @@ def test_no_small_difference_between_consecutive_landmark_counts(case):
     if stack.empty:
         return
     table = landmark_summary(stack, threshold)
-    for column in ("at_risk", "outcomes", "competing_events"):
+    for column in [c for c in ("at_risk", "outcomes", "competing_events") if c in table.columns]:
         values = [int(v.lstrip("~")) if re.fullmatch(r"~?\d+", v) else None for v in table[column]]
         for v in values:
             assert v is None or not 0 < v < threshold

@@ -89,3 +89,9 @@ def test_three_families_without_competing_events(three_family_run):
     lr_note = notes[notes["part"] == "likelihood-ratio test"]["text"].iloc[0]
     assert "two Cox models of one family" in lr_note
     assert set(pd.read_csv(tables / "sample_size.csv")["model"]) == {"clinical", "imaging_tv"}
+
+
+def test_no_competing_columns_or_boxes_without_competing_events(three_family_run):
+    tables = three_family_run / "tables"
+    assert "competing_events" not in pd.read_csv(tables / "landmark_summary.csv").columns
+    assert "Competing event" not in set(pd.read_csv(tables / "cohort_flow.csv")["step"])
