@@ -12,6 +12,8 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 
+from riskbench.report.log_axis import readable_log_ticks  # noqa: E402
+
 __all__ = ["hazard_ratio_figure"]
 
 
@@ -75,9 +77,10 @@ def hazard_ratio_figure(
         tick.set_parse_math(False)
     ax.invert_yaxis()
     ax.set_xlabel(f"hazard ratio ({level}% interval, log scale)")
+    readable_log_ticks(ax.xaxis)  # plain 0.5, 1, 2 instead of overlapping powers of ten
     ax.grid(axis="x", alpha=0.3, which="both")
-    if n_models > 1:
-        ax.legend(frameon=False, fontsize=8)
+    if n_models > 1:  # beside the plot, never on the intervals
+        ax.legend(frameon=False, fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     if title:
         ax.set_title(title)
     fig.tight_layout()

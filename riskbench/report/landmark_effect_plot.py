@@ -12,20 +12,11 @@ matplotlib.use("Agg", force=False)
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
-from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
 
+from riskbench.report.log_axis import readable_log_ticks  # noqa: E402
 from riskbench.time_units import DAYS_PER_YEAR  # noqa: E402
 
 __all__ = ["landmark_effect_figure"]
-
-
-def _readable_log_ticks(ax: plt.Axes) -> None:
-    """Plain numbers (0.5, 1, 2) on the log axis: 1-2-5 steps over a wide range, finer steps over a narrow one."""
-    low, high = ax.get_ylim()
-    subs = (1.0, 2.0, 5.0) if np.log10(high / low) > 1 else (1.0, 1.2, 1.5, 2.0, 3.0, 5.0, 7.0)
-    ax.yaxis.set_major_locator(LogLocator(base=10, subs=subs))
-    ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
-    ax.yaxis.set_minor_formatter(NullFormatter())
 
 
 def landmark_effect_figure(bands: Mapping[str, pd.DataFrame], steps: Mapping[str, float],
@@ -68,7 +59,7 @@ def landmark_effect_figure(bands: Mapping[str, pd.DataFrame], steps: Mapping[str
             ax.plot(years, np.exp(u * rows["coef"].to_numpy(float)), color=colour, linewidth=1.5, label=name)
         ax.axhline(1.0, color="grey", linestyle=":", linewidth=1)
         ax.set_yscale("log")
-        _readable_log_ticks(ax)
+        readable_log_ticks(ax.yaxis)
         title = labels.get(covariate, covariate) + (f"\nper {per[covariate]}" if covariate in per else "")
         ax.set_title(title, fontsize=8, parse_math=False)
         ax.set_xlabel("landmark (years since entry)", fontsize=8)
