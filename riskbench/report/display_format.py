@@ -205,6 +205,10 @@ COLUMNS: dict[str, tuple[str, Formatter | None]] = {
     "landmark_years": ("Landmark (years)", format_years),
     "apparent": ("Apparent", None),  # None: formatted by the row's measure
     "corrected": ("Optimism-corrected", None),
+    "validated": ("Validated", None),
+    "out_of_bag": ("Out-of-bag", None),
+    "dot632_plus": (".632+", None),
+    "obtained_by": ("Obtained by", str),
     "n_boot": ("Bootstrap resamples", format_count),
     "bootstrap_resamples": ("Bootstrap resamples", format_count),
     "better_if": ("Better if", str),

@@ -8,18 +8,33 @@
    (test performance). The optimism of replicate b is bootstrap minus test.
 3. Corrected = apparent − mean optimism.
 
+The same replicates also score each refit on the patients the resample did not draw (about 36.8% of them):
+the mean over replicates is the *out-of-bag* (leave-one-out bootstrap) performance Err⁽¹⁾ of Efron &
+Tibshirani (1997). For the concordance indices and the AUC, whose no-information value is 0.5, the table also
+gives the **.632+ estimate** (Efron & Tibshirani 1997, eq. 32), written for a loss err = 1 − C:
+
+    Err1' = min(Err1, γ), γ = 0.5;  R = (Err1' − err) / (γ − err) if Err1' > err and γ > err, else 0;
+    w = 0.632 / (1 − 0.368 R);  Err.632+ = (1 − w) err + w Err1';  C.632+ = 1 − Err.632+.
+
+Apparent-minus-optimism fails for a model that fits its training patients almost perfectly (a survival forest):
+the optimism measured on a bootstrap resample understates the real one, so the corrected value stays far above
+the cross-validated one. The .632+ weight w tends to 1 as the overfit R grows, so the estimate then follows the
+out-of-bag performance. :func:`validated_performance` chooses, per family, which estimate the report calls
+"validated" and says how it was obtained.
+
 References: Harrell FE, Lee KL, Mark DB (1996) Stat Med 15:361-387; Steyerberg EW, Harrell FE et al.
-(2001) J Clin Epidemiol 54:774-781.
+(2001) J Clin Epidemiol 54:774-781; Efron B, Tibshirani R (1997) J Am Stat Assoc 92:548-560.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from numpy.typing import ArrayLike
 
 from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
 from riskbench.validation.comparison import (
@@ -40,6 +55,12 @@ from riskbench.validation.plans import bootstrap_patient_draw
 from riskbench.validation.sources import TableSource, draw_tables
 
 OPTIMISM_KEYS = ["spec", "metric", "horizon_days", "threshold"]
+
+#: Measures with a no-information value (a random ranking), for which the .632+ estimate is defined.
+NO_INFORMATION: dict[str, float] = {"harrell_c": 0.5, "uno_c": 0.5, "auc": 0.5}
+
+#: Families whose apparent performance is near perfect by construction: validated by .632+ / out-of-bag.
+OVERFITTING_FAMILIES = ("forest",)
 
 
 @dataclass(frozen=True)
@@ -67,7 +88,39 @@ def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSeque
     frame = on_boot.rename(columns={"value": "bootstrap"})
     frame["test"] = on_orig["value"].to_numpy()
     frame["value"] = frame["bootstrap"] - frame["test"]
+    oob = _out_of_bag(plan, models, orig_stack, risk_orig, drawn)
+    frame = frame.merge(oob, on=OPTIMISM_KEYS, how="left") if oob is not None else frame.assign(out_of_bag=np.nan)
     return tagged_replicate(index, frame, log=log)
+
+
+def _out_of_bag(plan: Evaluation, models: list[Any], stack: pd.DataFrame, risks: list[dict[float, np.ndarray]],
+                drawn: np.ndarray) -> pd.DataFrame | None:
+    """Measures of the refits on the rows of the patients the resample did not draw (None if they cannot be
+    measured there, e.g. no outcome among them: the replicate then counts for the other estimates only)."""
+    held = ~stack["patient_id"].isin(pd.unique(drawn)).to_numpy()
+    if not held.any():
+        return None
+    rows = stack.loc[held]
+    held_risks = [{h: np.asarray(r)[held] for h, r in per_model.items()} for per_model in risks]
+    try:
+        with recorded_warnings():
+            measured, _ = plan.run(models, rows, held_risks)
+    except REPLICATE_ERRORS:
+        return None
+    return measured.rename(columns={"value": "out_of_bag"})[OPTIMISM_KEYS + ["out_of_bag"]]
+
+
+def dot632_plus(apparent: ArrayLike, out_of_bag: ArrayLike, no_information: ArrayLike = 0.5) -> np.ndarray:
+    """The .632+ estimate of a higher-is-better measure from its apparent and out-of-bag values, given its
+    no-information value (module notes; Efron & Tibshirani 1997, eqs. 27-32, for the loss ``1 - C``)."""
+    err = 1.0 - np.asarray(apparent, dtype=float)
+    gamma = 1.0 - np.asarray(no_information, dtype=float)
+    err1 = np.minimum(1.0 - np.asarray(out_of_bag, dtype=float), gamma)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rate = np.where((err1 > err) & (gamma > err), (err1 - err) / (gamma - err), 0.0)
+    weight = 0.632 / (1.0 - 0.368 * rate)
+    out = 1.0 - ((1.0 - weight) * err + weight * err1)
+    return np.where(np.isfinite(err) & np.isfinite(err1), out, np.nan)
 
 
 @dataclass(frozen=True)
@@ -131,7 +184,8 @@ def bootstrap_optimism_result(
     -------
     OptimismResult
         ``table``: ``spec, metric, horizon_days, threshold, apparent, optimism, corrected, optimism_low,
-        optimism_high, n_boot`` for Harrell's C, Uno's C, AUC, Brier, scaled Brier, calibration slope and
+        optimism_high, out_of_bag, dot632_plus, n_boot`` (``dot632_plus`` for the measures of
+        :data:`NO_INFORMATION` only) for Harrell's C, Uno's C, AUC, Brier, scaled Brier, calibration slope and
         ICI at each horizon (and net benefit per threshold); ``n_boot`` counts replicates that succeeded.
 
     Raises
@@ -154,7 +208,13 @@ def bootstrap_optimism_result(
     )
     out = apparent.rename(columns={"value": "apparent"}).merge(summary, on=OPTIMISM_KEYS, how="left")
     out["corrected"] = out["apparent"] - out["optimism"]
-    table = out[OPTIMISM_KEYS + ["apparent", "optimism", "corrected", "optimism_low", "optimism_high", "n_boot"]]
+    oob = reps.groupby(OPTIMISM_KEYS, dropna=False)["out_of_bag"].mean().rename("out_of_bag").reset_index()
+    out = out.merge(oob, on=OPTIMISM_KEYS, how="left")
+    gamma = out["metric"].map(NO_INFORMATION)
+    out["dot632_plus"] = np.where(gamma.notna(), dot632_plus(out["apparent"], out["out_of_bag"],
+                                                             gamma.fillna(0.5).to_numpy()), np.nan)
+    table = out[OPTIMISM_KEYS + ["apparent", "optimism", "corrected", "optimism_low", "optimism_high",
+                                 "out_of_bag", "dot632_plus", "n_boot"]]
     failures, fit_log = replicate_problems(results)
     return OptimismResult(table, n_failed, failures, fit_log)
 
@@ -163,3 +223,20 @@ def bootstrap_optimism(specs: ModelSpec | Sequence[ModelSpec], source: TableSour
                        **options: Any) -> pd.DataFrame:
     """The table of :func:`bootstrap_optimism_result` (same parameters, given by keyword)."""
     return bootstrap_optimism_result(specs, source, horizons, **options).table
+
+
+def validated_performance(table: pd.DataFrame, families: Mapping[str, str]) -> pd.DataFrame:
+    """The optimism table with the estimate the report calls validated: ``validated`` and ``obtained_by``.
+
+    A spec of a family in :data:`OVERFITTING_FAMILIES` (``families``: spec name -> family) gets the .632+
+    estimate where it is defined and the out-of-bag estimate for the other measures; every other spec gets
+    the optimism-corrected value (Harrell, Lee & Mark 1996).
+    """
+    out = table.copy()
+    overfit = out["spec"].map(lambda name: families.get(name) in OVERFITTING_FAMILIES).to_numpy(bool)
+    has_632 = out["dot632_plus"].notna().to_numpy()
+    out["validated"] = np.where(overfit & has_632, out["dot632_plus"],
+                                np.where(overfit, out["out_of_bag"], out["corrected"]))
+    out["obtained_by"] = np.where(overfit & has_632, ".632+ bootstrap",
+                                  np.where(overfit, "out-of-bag bootstrap", "optimism-corrected bootstrap"))
+    return out

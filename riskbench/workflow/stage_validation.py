@@ -1,9 +1,12 @@
 """Stage 3, validation: patient-grouped cross-validation and bootstrap optimism.
 
 Writes ``data/cv_predictions.parquet`` (``row, model, horizon, risk, fold``: every landmark-stack row
-predicted by the models fitted without its patient) and the bootstrap-optimism table
+predicted by the models fitted without its patient) and the bootstrap-validation table
 ``tables/bootstrap_optimism.csv`` when the plan asks for it (``[validation] optimism`` and
-``bootstrap_resamples`` > 0).
+``bootstrap_resamples`` > 0): per model, measure and horizon the apparent value, the ``validated`` one and how
+it was obtained (``obtained_by``: optimism-corrected for regression models, .632+ or out-of-bag for forests;
+:func:`riskbench.validation.optimism.validated_performance`), the optimism with its interval, the out-of-bag
+and .632+ values. Fewer than 200 resamples (common practice) leave a caution note.
 
 Nothing here stops the run for a model that cannot be fitted: a model whose whole-cohort fit failed in
 stage 2 is skipped; a model whose fit fails in a cross-validation fold gets no cross-validated predictions
@@ -25,7 +28,7 @@ from riskbench.report.notes import Note, failed_models, save_notes, switched_off
 from riskbench.report.outputs import load_data, save_data, save_table
 from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.validation.errors import ValidationInputError
-from riskbench.validation.optimism import bootstrap_optimism_result
+from riskbench.validation.optimism import bootstrap_optimism_result, validated_performance
 from riskbench.validation.parallel import ExecutionConfig, run_replicates
 from riskbench.validation.performance import evaluation_time, stack_outcome
 from riskbench.validation.plans import patient_folds
@@ -185,6 +188,22 @@ def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     return result
 
 
+#: Bootstrap resamples below which the report warns (common practice; Steyerberg et al. 2001 used 100-200).
+RECOMMENDED_RESAMPLES = 200
+
+#: Column order of the report's bootstrap-validation table.
+_VALIDATED_COLUMNS = ["model", "metric", "horizon_years", "threshold", "apparent", "validated", "obtained_by",
+                      "optimism", "optimism_low", "optimism_high", "out_of_bag", "dot632_plus", "n_boot"]
+
+
+def validated_table(table: pd.DataFrame, families: dict[str, str]) -> pd.DataFrame:
+    """The bootstrap-optimism table as the report shows it: per model the validated estimate and how it was
+    obtained (:func:`riskbench.validation.optimism.validated_performance`), horizons in years."""
+    out = validated_performance(table, families).rename(columns={"spec": "model"})
+    out["horizon_years"] = out.pop("horizon_days") / DAYS_PER_YEAR
+    return out[_VALIDATED_COLUMNS]
+
+
 def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: list[Any], result: StageResult,
               fits: list) -> list[Note]:
     """Bootstrap optimism of ``models`` into ``result.tables``; the notes it leads to."""
@@ -210,14 +229,19 @@ def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: l
     except ValidationInputError as exc:  # every resample failed (the message gives the first reasons)
         return [Note("validation", "bootstrap optimism", f"not computed: {exc}")]
     fits += outcome.fit_log
-    optimism = outcome.table.rename(columns={"spec": "model"})
-    optimism.insert(2, "horizon_years", optimism.pop("horizon_days") / DAYS_PER_YEAR)
+    optimism = validated_table(outcome.table, {m.name: m.family for m in models})
     result.tables["bootstrap_optimism"] = optimism.dropna(axis="columns", how="all")
     result.notes.append(
-        f"Bootstrap optimism from {n_boot} resamples of patients "
-        "(Harrell, Lee & Mark 1996): corrected = apparent - mean optimism.")
+        f"Bootstrap validation from {n_boot} resamples of patients: optimism-corrected = apparent - mean optimism "
+        "(Harrell, Lee & Mark 1996) for regression models; .632+ (Efron & Tibshirani 1997) or out-of-bag for "
+        "forests, whose apparent performance is near perfect by construction.")
     notes = failure_notes(outcome.failures, n_boot, "validation", "bootstrap optimism",
                           config.report.small_count_threshold)
+    if n_boot < RECOMMENDED_RESAMPLES:
+        notes.append(Note("validation", "bootstrap optimism", f"only {n_boot} bootstrap resamples: fewer than "
+                          f"{RECOMMENDED_RESAMPLES} (common practice) make the percentile intervals and the validated "
+                          "estimates vary from run to run; set [validation] bootstrap_resamples = "
+                          f"{RECOMMENDED_RESAMPLES} for a report others will read.", kind="caution"))
     notes += warning_notes(outcome.fit_warnings, "validation", "bootstrap optimism", f"{n_boot} bootstrap resamples")
     return notes
 
