@@ -304,6 +304,58 @@ def _follow_up(patients: _Table, outcomes: _Table, kind_map: dict) -> pd.DataFra
     return per[per["days"] > 0]
 
 
+def _patient_ids(patients: _Table) -> set[str] | None:
+    """Every patient id of the patients file (trimmed text), or None when the column cannot be read."""
+    try:
+        full = _read(Path(patients.source.path), getattr(patients.source, "encoding", "utf-8"), None,
+                     [patients.ours("patient_id")])
+    except (ValueError, OSError, KeyError):
+        return None
+    return set(full.iloc[:, 0].astype(str).str.strip())
+
+
+def _id_hint(unknown: pd.Series, known: set[str]) -> str:
+    """Why sampled ids miss the patients file, when a common spelling difference explains it (no id quoted)."""
+    spellings = (
+        (lambda v: v.str.replace(r"\.0+$", "", regex=True), "they are written as decimals ('.0' at the end) "
+         "in one file and as whole numbers in the other"),
+        (lambda v: v.str.lstrip("0"), "they differ in leading zeros"),
+        (lambda v: v.str.lower(), "they differ in upper and lower case"),
+    )
+    folded = {k.lower() for k in known} | {k.lstrip("0") for k in known} | set(known)
+    for fold, why in spellings:
+        if fold(unknown).isin(folded).mean() > 0.5:
+            return f"; most would match if written the same way: {why}"
+    return ""
+
+
+def _id_problems(patients: _Table, others: tuple[_Table, ...]) -> list[Problem]:
+    """Patient ids of the measurements and outcomes samples that the patients file does not know: most of
+    them (a wrong column or a different spelling of the ids) is an error, a few a warning (the ledger
+    excludes those rows as unknown patients)."""
+    known = _patient_ids(patients)
+    if not known:
+        return []
+    out = []
+    for t in others:
+        if t.sample is None or "patient_id" not in t.sample.columns:
+            continue
+        ids = _filled(t.sample["patient_id"])
+        unknown = ids[~ids.isin(known)]
+        if unknown.empty:
+            continue
+        key = f"{t.where} columns"
+        text = (f"{key}: {len(unknown)} of {len(ids)} sampled rows of {t.source.path} name a patient id "
+                f"(column {t.ours('patient_id')!r}) that is not in the patients file{_id_hint(unknown, known)}")
+        if len(unknown) > len(ids) / 2:
+            out.append(Problem(key, text + "; map the right column with columns = { patient_id = \"...\" } or "
+                               "write the ids the same way in every file"))
+        else:
+            out.append(Problem(key, text + "; the cohort stage excludes those rows (ledger: unknown_patient)",
+                               WARNING))
+    return out
+
+
 def _landmark_problems(config: Any, follow_up: pd.DataFrame) -> list[Problem]:
     out = []
     days = follow_up["days"]
@@ -411,6 +463,7 @@ def check_analysis(config: Any) -> list[Problem]:
     problems += _variable_problems(tables["measurements"], config.cohort)
     problems += _static_value_problems(tables["patients"], config.cohort)
     problems += _unit_problems(tables["measurements"], config.cohort)
+    problems += _id_problems(tables["patients"], (tables["measurements"], tables["outcomes"]))
     if any(p.is_error for p in problems):
         return problems
     follow_up = _follow_up(tables["patients"], tables["outcomes"], dict(config.cohort.kind_map))

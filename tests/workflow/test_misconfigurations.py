@@ -235,6 +235,20 @@ def _sex_zero_one(d: dict, folder: Path) -> None:
     d["sources"]["patients"]["path"] = "zero_one/patients.csv"
 
 
+def _decimal_ids(d: dict, folder: Path) -> None:
+    """Measurement ids written as decimals ('Q001' stays, but numeric ids 1.0 vs 1): here every id of the
+    measurements file gets a '.0', as a spreadsheet or a float column writes it."""
+    (folder / "decimal").mkdir(exist_ok=True)
+    for name in ("patients", "outcomes"):
+        text = (folder / "data" / f"{name}.csv").read_text().replace("Q", "")
+        (folder / "decimal" / f"{name}.csv").write_text(text)
+    lines = (folder / "data" / "measurements.csv").read_text().replace("Q", "").splitlines()
+    lines = [lines[0]] + [line.replace(",", ".0,", 1) for line in lines[1:]]
+    (folder / "decimal" / "measurements.csv").write_text("\n".join(lines) + "\n")
+    for name in ("patients", "measurements", "outcomes"):
+        d["sources"][name]["path"] = f"decimal/{name}.csv"
+
+
 def _run_folder(d: dict, folder: Path) -> None:
     (folder / "old_run").mkdir(exist_ok=True)
     (folder / "old_run" / "manifest.json").write_text("{}")
@@ -249,7 +263,7 @@ CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
      ("[[models]] #1 (clinical) params.n_trees = 100", "not a parameter of family 'forest'",
       "n_estimators (default 200)")),
     ("landmark_effects spline", _model(0, params={"landmark_effects": "spline"}),
-     ("params.landmark_effects = 'spline'", "'none', 'linear', 'quadratic'", "default 'quadratic'")),
+     ("params.landmark_effects = 'spline'", "'none', 'linear', 'quadratic'", "default 'linear'")),
     ("forest parameter of the wrong type", _model(0, family="forest", params={"min_samples_leaf": 2.5}),
      ("params.min_samples_leaf = 2.5", "an integer >= 1", "default 15")),
     ("parameter the run sets itself", _model(0, family="forest", params={"random_state": 3}),
@@ -293,7 +307,8 @@ CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
     ("unsafe level name", _add(["cohort", "statics"], {"sex": {"codes": {"M": "male!", "F": "female"},
                                                                "reference": "female"}}),
      ("[cohort.statics.sex] codes", "letters, digits and underscores")),
-    ("landmark effects need more landmarks", _add(["landmarks", "landmarks"], ["0 years", "1 year"]),
+    ("landmark effects need more landmarks", _both(_add(["landmarks", "landmarks"], ["0 years", "1 year"]),
+                                                   _model(0, params={"landmark_effects": "quadratic"})),
      ("params.landmark_effects = 'quadratic'", "at least 3 distinct landmarks")),
     ("remote scheduler without opt-in", _add(["execution"], {"scheduler_address": "tls://10.1.2.3:8786"}),
      ("[execution] scheduler_address", "allow_remote_scheduler = true")),
@@ -326,6 +341,11 @@ CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
      ("missing_data = 'mean_imputation'", "'multiple_imputation'")),
     ("triage target above 1", _add(["report", "triage_target_npv"], 1.5),
      ("[report] triage_target_npv = 1.5", "a number from 0.5 to 1")),
+    ("negative lowest decision threshold", _add(["report", "decision_threshold_min"], -0.01),
+     ("[report] decision_threshold_min = -0.01", "a number from 0 up to")),
+    ("decision curves from above where they stop", _both(_add(["report", "decision_threshold_min"], 0.3),
+                                                         _add(["report", "decision_threshold_max"], 0.2)),
+     ("[report] decision_threshold_min = 0.3", "below decision_threshold_max = 0.2")),
     ("stratifying on a column that does not exist", _model(0, family="time_varying_cox", params={"strata": "site"}),
      ("params.strata = 'site'", "a column of the counting-process table")),
     ("two models with one name", _model(1, name="clinical"),
@@ -336,6 +356,15 @@ CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
      ("[cohort.variables.serum_markr]", "did you mean 'serum_marker'?")),
     ("integer written as text", _add(["validation", "folds"], "5"),
      ("[validation] folds = '5'", "an integer from 2")),
+    ("hazard-ratio step of zero", _add(["report", "effect_units"], {"age_at_entry": 0}),
+     ("[report] effect_units", "expected steps > 0", "'iqr' or 'sd'")),
+    ("hazard-ratio step for no covariate", _add(["report", "effect_units"], {"age_at_entr": 10}),
+     ("[report] effect_units names 'age_at_entr'", "did you mean 'age_at_entry'?")),
+    ("patient ids written as decimals in the measurements file", _decimal_ids,
+     ("[sources.measurements] columns", "not in the patients file", "written as decimals")),
+    ("outcomes keyed by the wrong column", _add(["sources", "outcomes", "columns"], {"patient_id": "kind",
+                                                                                     "kind": "patient_id"}),
+     ("[sources.outcomes] columns", "not in the patients file")),
 ]
 
 
@@ -457,6 +486,21 @@ def test_rare_data_defects_are_warnings_with_counts(study, tmp_path):
     assert "[cohort] kind_map = {} is doubtful: the outcome kind 'transferred' (0.7% of the sampled rows" in text
     assert "[cohort.statics.pack_years] range (at least 0): column 'pack_years'" in text and "1 of 140 sampled values" in text
     assert "[cohort.variables.nodule_volume] conversions: 1 unit(s)" in text and "1 of 701 sampled values" in text
+
+
+def test_a_few_unknown_patient_ids_are_a_warning(study, tmp_path):
+    """The ledger excludes rows of unknown patients; a few of them should not stop the run."""
+    data_dir = tmp_path / "unknown"
+    write_data(data_dir)
+    with (data_dir / "measurements.csv").open("a") as fh:
+        fh.write(f"Z999,{_entry(1).isoformat()},serum_marker,12,ng/mL\n")
+    data = base()
+    for table in ("patients", "measurements", "outcomes"):
+        data["sources"][table]["path"] = str(data_dir / f"{table}.csv")
+    config = load_config(write_config(tmp_path, data), check_data=True)
+    text = "\n".join(config.warnings)
+    assert "[sources.measurements] columns: 1 of 2101 sampled rows" in text
+    assert "ledger: unknown_patient" in text and "Z999" not in text
 
 
 def test_the_demo_carry_forward_limit_is_clear_of_its_landmarks():
