@@ -165,8 +165,10 @@ def methods_paragraphs(f: StudyFacts) -> list[str]:
             f"improvement: {f.nri}." if f.candidate and f.reference else "")
     validation = (f"Performance is estimated from out-of-fold predictions of {f.folds}-fold cross-validation with "
                   "all rows of a patient in the same fold (internal validation); concordance, time-dependent AUC, "
-                  "Brier score, calibration and net benefit treat a competing event before the horizon as a known "
-                  f"non-outcome.{optimism}{pair}")
+                  "Brier score and net benefit treat a competing event before the horizon as a known non-outcome, "
+                  "and calibration compares each model's risk with the observed risk of the same kind (the "
+                  "Aalen–Johansen cumulative incidence, or 1 − Kaplan–Meier with competing events censored for a "
+                  f"cause-specific model).{optimism}{pair}")
     return [participants, predictors, question, models, validation]
 
 
