@@ -466,6 +466,14 @@ def test_too_few_events_per_covariate_warns_and_no_event_is_an_error(study, tmp_
         load_config(write_config(tmp_path, data), check_data=True)
 
 
+def _warnings_on(data_dir: Path, tmp_path: Path) -> tuple[str, ...]:
+    """The warnings of the base configuration pointed at the three files of ``data_dir``."""
+    data = base()
+    for table in ("patients", "measurements", "outcomes"):
+        data["sources"][table]["path"] = str(data_dir / f"{table}.csv")
+    return load_config(write_config(tmp_path, data), check_data=True).warnings
+
+
 def test_rare_data_defects_are_warnings_with_counts(study, tmp_path):
     """A few unmapped outcome kinds, implausible statics or unknown units: the ledger will exclude them."""
     data_dir = tmp_path / "rare"
@@ -478,11 +486,7 @@ def test_rare_data_defects_are_warnings_with_counts(study, tmp_path):
     (data_dir / "patients.csv").write_text("\n".join(patients) + "\n")
     with (data_dir / "measurements.csv").open("a") as fh:
         fh.write(f"Q001,{_entry(1).isoformat()},nodule_volume,0.2,cm³\n")
-    data = base()
-    for table in ("patients", "measurements", "outcomes"):
-        data["sources"][table]["path"] = str(data_dir / f"{table}.csv")
-    config = load_config(write_config(tmp_path, data), check_data=True)
-    text = "\n".join(config.warnings)
+    text = "\n".join(_warnings_on(data_dir, tmp_path))
     assert "[cohort] kind_map = {} is doubtful: the outcome kind 'transferred' (0.7% of the sampled rows" in text
     assert "[cohort.statics.pack_years] range (at least 0): column 'pack_years'" in text and "1 of 140 sampled values" in text
     assert "[cohort.variables.nodule_volume] conversions: 1 unit(s)" in text and "1 of 701 sampled values" in text
@@ -494,11 +498,7 @@ def test_a_few_unknown_patient_ids_are_a_warning(study, tmp_path):
     write_data(data_dir)
     with (data_dir / "measurements.csv").open("a") as fh:
         fh.write(f"Z999,{_entry(1).isoformat()},serum_marker,12,ng/mL\n")
-    data = base()
-    for table in ("patients", "measurements", "outcomes"):
-        data["sources"][table]["path"] = str(data_dir / f"{table}.csv")
-    config = load_config(write_config(tmp_path, data), check_data=True)
-    text = "\n".join(config.warnings)
+    text = "\n".join(_warnings_on(data_dir, tmp_path))
     assert "[sources.measurements] columns: 1 of 2101 sampled rows" in text
     assert "ledger: unknown_patient" in text and "Z999" not in text
 
