@@ -172,7 +172,8 @@ MEASURES: dict[str, tuple[str, Formatter]] = {
     "calibration_slope": ("Calibration slope", _fixed3),
     "oe_ratio": ("Observed/expected", format_ratio),
     "ici": ("ICI (risk)", _fixed4),
-    "nri": ("NRI", _fixed3),
+    "nri": ("NRI (category-free)", _fixed3),  # riskbench.validation.reclassification.nri_kind
+    "nri_cat": ("NRI (categorical)", _fixed3),
     "idi": ("IDI", _fixed3),
     "threshold": ("Risk threshold", _fixed4),
     "sensitivity": ("Sensitivity", _fixed3),

@@ -103,3 +103,12 @@ def test_text_files_become_escaped_paragraphs(tmp_path):
                         sections=(Section("methods", "Methods", "intro", texts=("methods",)),)).read_text()
     assert "<script>" not in page and html.escape("'<script>x</script>'") in page
     assert "<p>Second.</p>" in page and "Not produced in this run" not in page
+
+
+def test_comparison_tables_name_the_nri_type():
+    """The comparison's ``nri`` rows are the category-free NRI (riskbench.validation.paired); ``nri_cat`` the
+    categorical one: the report's tables say which."""
+    from riskbench.report.display_format import display_table
+
+    shown = display_table(pd.DataFrame({"metric": ["nri", "nri_cat"], "estimate": ["0.1", "0.2"]}))
+    assert list(shown["Metric"]) == ["NRI (category-free)", "NRI (categorical)"]
