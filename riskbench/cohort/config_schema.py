@@ -171,7 +171,13 @@ class CohortSection(ConfigTable):
 def _cohort_rules(section: CohortSection) -> list[Problem]:
     """Rules across the keys of [cohort]: safe names, known exam variables, no repeated statics."""
 
-    out = [Problem(f"[cohort.variables.{n}]", f"[cohort.variables] the variable name {show(n)} is not allowed: "
+    out = []
+    if not section.variables:
+        out.append(Problem("[cohort.variables]", "[cohort.variables] is empty: riskbench builds its tables from "
+                           "repeated measurements, so describe at least one variable of the measurements file as "
+                           "a [cohort.variables.<name>] table (unit, range); a cohort with static covariates only "
+                           "is outside what riskbench is built for"))
+    out += [Problem(f"[cohort.variables.{n}]", f"[cohort.variables] the variable name {show(n)} is not allowed: "
                                               f"expected {NAME_RULE}") for n in section.variables if not is_name(n)]
     out += [Problem(f"[cohort.statics.{n}]", f"[cohort.statics] the static name {show(n)} is not allowed: "
                                             f"expected {NAME_RULE}") for n in section.statics if not is_name(n)]
