@@ -111,6 +111,8 @@ def outcome_hazard_ratios(summary: pd.DataFrame) -> pd.DataFrame:
     """The outcome terms of a model summary (the competing-event model is not reported; see ``summary()``)."""
     if "cause" in summary.columns:
         summary = summary[summary["cause"] == "outcome"]
+    if "term" not in summary.columns:  # a Cox model's summary names its terms in the index
+        summary = summary.rename_axis("term").reset_index()
     return summary.reset_index(drop=True)
 
 
