@@ -1,12 +1,32 @@
-"""Calibration of predicted risks at a horizon.
+"""Calibration of predicted risks at a horizon, with competing events where the prediction has them.
 
-* grouped: quantile groups of predicted risk against the observed risk (1 − Kaplan–Meier, or the
-  Aalen–Johansen cumulative incidence when competing events, code 2, are present) with 95% intervals;
-* smoothed: ICI, E50, E90 (Austin, Harrell & van Klaveren 2020, Stat Med): a Cox model of the outcome on a
-  restricted cubic spline (3 knots) of cloglog(predicted risk) gives the observed risk for every subject;
-* calibration slope: the coefficient of cloglog(predicted risk) = log cumulative hazard in a Cox model
-  (1 = ideal, < 1 = predictions too extreme); observed/expected ratio at the horizon;
-* D-calibration (Haider et al. 2020, JMLR): are predicted survival probabilities at the observed times uniform?
+The observed risk a prediction is judged against follows what it estimates (``target``):
+
+* ``"cumulative_incidence"``: the probability of the outcome by the horizon with the competing event (code 2)
+  as a competing event: the Aalen–Johansen cumulative incidence (1 − Kaplan–Meier when no competing event
+  occurs);
+* ``"cause_specific"``: 1 − S of a cause-specific model: competing events are censored and the observed risk
+  is 1 − Kaplan–Meier of the outcome.
+
+Measures (Austin, Putter, Giardiello & van Klaveren 2022, Diagn Progn Res 6:2, for competing risks; Austin,
+Harrell & van Klaveren 2020, Stat Med, without):
+
+* every row gets a jackknife pseudo-observation of the observed risk by the horizon
+  (:mod:`riskbench.metrics.pseudo_observations`; Gerds, Andersen & Kattan 2014, Stat Med);
+* smoothed curve: the pseudo-observations regressed on a restricted cubic spline (3 knots) of
+  cloglog(predicted risk) with the cloglog link (:mod:`riskbench.metrics.cloglog_regression`) give the
+  observed risk at every predicted risk; ICI, E50 and E90 are the mean, median and 90th percentile of
+  |smoothed observed − predicted| over the rows;
+* calibration slope b and intercept: cloglog(observed) = a + b·cloglog(predicted) (slope; 1 = ideal, < 1 =
+  predictions too extreme) and cloglog(observed) = a + cloglog(predicted) (calibration-in-the-large on the
+  log cumulative-hazard scale; 0 = ideal), with sandwich standard errors clustered on ``cluster``;
+* observed/expected: the observed risk by the horizon (Aalen–Johansen or Kaplan–Meier, as ``target`` says)
+  over the mean predicted risk: the one O/E of the table, the figure and the comparison;
+* grouped: quantile groups of predicted risk against their observed risk with 95% intervals.
+
+The pseudo-observations assume censoring independent of the predictors (Graw, Gerds & Schumacher 2009).
+D-calibration (Haider et al. 2020, JMLR) asks whether predicted survival probabilities at the observed times
+are uniform.
 """
 
 from __future__ import annotations
@@ -18,12 +38,19 @@ import pandas as pd
 from scipy import stats
 
 from riskbench.metrics.censoring import observed_risk
-from riskbench.metrics.hazard_fit import fit_hazard
+from riskbench.metrics.cloglog_regression import CloglogFit, fit_cloglog
 from riskbench.metrics.horizon_inputs import single_horizon_inputs
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, check_lengths
+from riskbench.metrics.pseudo_observations import pseudo_observations
 
 Z95 = float(stats.norm.ppf(0.975))
 _CLIP = 1e-10
+
+#: What a prediction estimates, and what it is calibrated against.
+TARGETS: dict[str, str] = {
+    "cumulative_incidence": "cumulative incidence with the competing event (observed: Aalen–Johansen)",
+    "cause_specific": "1 − S of a cause-specific model (observed: 1 − Kaplan–Meier, competing events censored)",
+}
 
 
 @dataclass(frozen=True)
@@ -34,34 +61,49 @@ class Calibration:
     ----------
     horizon
         Horizon (same unit as ``time``).
+    target
+        ``"cumulative_incidence"`` or ``"cause_specific"`` (see :data:`TARGETS`).
     ici, e50, e90
-        Mean, median and 90th percentile of |smoothed observed − predicted| (NaN with competing events).
+        Mean, median and 90th percentile of |smoothed observed − predicted| over the rows (probabilities).
     slope, slope_se
-        Calibration slope (Cox coefficient of cloglog(predicted risk)) and its standard error.
+        Calibration slope (coefficient of cloglog(predicted risk)) and its standard error.
+    intercept, intercept_se
+        Calibration-in-the-large on the cloglog scale (0 = ideal) and its standard error.
     oe_ratio, oe_lower, oe_upper
-        Observed / expected risk at the horizon and its 95% interval (observed from Kaplan–Meier or
-        Aalen–Johansen; expected = mean predicted risk).
+        Observed / expected risk at the horizon and its 95% interval.
+    observed, expected
+        Observed risk by the horizon (Aalen–Johansen or 1 − Kaplan–Meier) and mean predicted risk.
     groups
         One row per quantile group: ``group, n, predicted, observed, observed_lower, observed_upper``.
     curve
-        Smoothed curve on a grid of predicted risks: ``predicted, observed, observed_lower, observed_upper``
-        (seeded bootstrap percentile band).
+        Smoothed curve on a grid of predicted risks (1st to 99th percentile): ``predicted, observed,
+        observed_lower, observed_upper`` (band: bootstrap of the smoother over clusters; NaN without).
     subject_observed
-        Smoothed observed risk for every subject (input order).
+        Smoothed observed risk for every row (input order).
     """
 
     horizon: float
+    target: str
     ici: float
     e50: float
     e90: float
     slope: float
     slope_se: float
+    intercept: float
+    intercept_se: float
     oe_ratio: float
     oe_lower: float
     oe_upper: float
+    observed: float
+    expected: float
     groups: pd.DataFrame
     curve: pd.DataFrame
     subject_observed: np.ndarray
+
+    @property
+    def target_text(self) -> str:
+        """What the predictions estimate and what they were calibrated against, in words."""
+        return TARGETS[self.target]
 
 
 def cloglog(risk: np.ndarray) -> np.ndarray:
@@ -114,8 +156,55 @@ def _grouped(t, status, risk, horizon, n_groups) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["group", "n", "predicted", "observed", "observed_lower", "observed_upper"])
 
 
-def _smoothed_fit(t, status, z, knots):
-    return fit_hazard(rcs_basis(z, knots), t, status)
+def target_status(status: np.ndarray, target: str) -> np.ndarray:
+    """Status codes as the calibration of ``target`` reads them (competing events censored for
+    ``"cause_specific"``)."""
+    if target not in TARGETS:
+        raise MetricInputError(f"`target` must be one of {sorted(TARGETS)}; got {target!r}")
+    return np.where(status == 2, 0, status) if target == "cause_specific" else status
+
+
+def observed_expected(time: np.ndarray, status: np.ndarray, risk: np.ndarray, horizon: float, *,
+                      target: str = "cumulative_incidence") -> tuple[float, float, float]:
+    """Observed/expected ratio at ``horizon`` and its 95% interval: the observed risk (Aalen–Johansen, or
+    1 − Kaplan–Meier for ``target="cause_specific"``) over the mean predicted risk.
+
+    The interval treats the mean prediction as fixed and takes the observed risk's variance (delta method
+    on the log scale). This is the one O/E of the calibration table, its figure and the model comparison.
+    """
+    observed, var_observed = observed_risk(time, target_status(np.asarray(status), target), horizon)
+    expected = float(np.mean(risk))
+    oe = observed / expected if expected > 0 else np.nan
+    se_log = np.sqrt(var_observed) / observed if observed > 0 else np.nan
+    return float(oe), float(oe * np.exp(-Z95 * se_log)), float(oe * np.exp(Z95 * se_log))
+
+
+def _smoother_design(z: np.ndarray, knots: np.ndarray) -> np.ndarray:
+    return np.column_stack([np.ones(z.size), rcs_basis(z, knots)])
+
+
+def _smoother_start(knots: np.ndarray) -> np.ndarray:
+    """Coefficients of the identity (observed = predicted): intercept 0, linear term 1, spline terms 0."""
+    return np.r_[0.0, 1.0, np.zeros(knots.size - 2)]
+
+
+def _band(pseudo, design, grid_design, cluster, start, n_boot, seed) -> np.ndarray:
+    """Pointwise 95% percentile band of the smoothed curve: the smoother refitted on bootstrap samples of
+    clusters (patients when given, else rows), the pseudo-observations held fixed."""
+    nan_band = np.full((2, grid_design.shape[0]), np.nan)
+    if n_boot <= 0:
+        return nan_band
+    labels = np.arange(pseudo.size) if cluster is None else np.asarray(cluster)
+    _, code = np.unique(labels, return_inverse=True)
+    n_clusters = int(code.max()) + 1
+    rng = np.random.default_rng(seed)
+    draws = []
+    for _ in range(n_boot):
+        # a bootstrap sample of clusters as weights: how often each row's cluster was drawn
+        drawn = np.bincount(rng.integers(0, n_clusters, n_clusters), minlength=n_clusters)
+        fit = fit_cloglog(design, pseudo, start=start, weights=drawn[code].astype(float))
+        draws.append(fit.mean(grid_design))
+    return np.quantile(np.array(draws), [0.025, 0.975], axis=0) if draws else nan_band
 
 
 def calibration_at_horizon(
@@ -124,12 +213,14 @@ def calibration_at_horizon(
     risk: ArrayLike,
     horizon: float,
     *,
+    target: str = "cumulative_incidence",
+    cluster: ArrayLike | None = None,
     n_groups: int = 10,
     n_boot: int = 100,
     seed: int = 0,
     check_direction: bool = True,
 ) -> Calibration:
-    """Grouped and smoothed calibration, slope and O/E ratio of predicted risks at one horizon.
+    """Smoothed and grouped calibration, slope, intercept and O/E of predicted risks at one horizon.
 
     Parameters
     ----------
@@ -140,7 +231,13 @@ def calibration_at_horizon(
     risk
         Predicted probability of the outcome by ``horizon`` (not a survival probability).
     horizon
-        Days; within [min(time), max(time)).
+        Days; within [min(time), max(time)].
+    target
+        What ``risk`` estimates: ``"cumulative_incidence"`` (competing events kept as competing) or
+        ``"cause_specific"`` (1 − S of a cause-specific model: competing events censored).
+    cluster
+        Labels of rows that belong together (the patient of each landmark row): standard errors and the
+        band resample and sum over them. None treats rows as independent.
     n_groups
         Number of quantile groups of predicted risk.
     n_boot
@@ -152,72 +249,61 @@ def calibration_at_horizon(
 
     Notes
     -----
-    Subjects are followed to their own time; the Cox calibration models use the follow-up up to the
-    horizon (later follow-up administratively censored at the horizon). With competing events the
-    smoothed measures and the slope are NaN: a Cox model of the cause-specific hazard does not estimate
-    the cumulative incidence; the grouped table and O/E use Aalen–Johansen.
+    Follow-up after the horizon does not enter: the pseudo-observations are of the observed risk by the
+    horizon. See the module notes for the methods and their sources.
     """
     t, status, r, h = single_horizon_inputs(
         time, event, risk, horizon, metric="calibration", check_direction=check_direction
     )
+    status = target_status(status, target)
     if n_groups < 1 or n_groups > t.size:
         raise MetricInputError(f"`n_groups` must be between 1 and the number of subjects ({t.size}); got {n_groups}")
+    groups_of_rows = None
+    if cluster is not None:
+        groups_of_rows = np.asarray(cluster)
+        check_lengths(time=t, cluster=groups_of_rows)
 
     groups = _grouped(t, status, r, h, n_groups)
-    obs_all, var_all = observed_risk(t, status, h)
-    expected = float(r.mean())
-    oe = obs_all / expected if expected > 0 else np.nan
-    se_log = np.sqrt(var_all) / obs_all if obs_all > 0 else np.nan
-    oe_lo, oe_hi = oe * np.exp(-Z95 * se_log), oe * np.exp(Z95 * se_log)
+    oe, oe_lo, oe_hi = observed_expected(t, status, r, h)
+    observed, expected = observed_risk(t, status, h)[0], float(r.mean())
 
-    nan_curve = pd.DataFrame(columns=["predicted", "observed", "observed_lower", "observed_upper"], dtype=float)
-    if (status == 2).any():
-        return Calibration(h, np.nan, np.nan, np.nan, np.nan, np.nan, oe, oe_lo, oe_hi, groups, nan_curve,
-                           np.full(t.size, np.nan))
-
-    # follow-up beyond the horizon carries no information about risk by the horizon
-    t_h = np.minimum(t, h)
-    s_h = np.where(t > h, 0, status)
     z = cloglog(r)
-    slope_fit = fit_hazard(z[:, None], t_h, s_h)
     knots = np.quantile(z, [0.1, 0.5, 0.9])
     if np.unique(knots).size < 3:
         raise MetricInputError(
             "`risk` takes too few distinct values for a 3-knot spline (10th, 50th, 90th percentiles coincide); "
             "use the grouped calibration table"
         )
-    fit = _smoothed_fit(t_h, s_h, z, knots)
-    subject_obs = fit.risk_at(rcs_basis(z, knots), h)
+    pseudo = pseudo_observations(t, status, h, cause=1)
+    ones = np.ones((t.size, 1))
+    slope_fit = fit_cloglog(np.column_stack([ones, z]), pseudo, start=np.array([0.0, 1.0]), cluster=groups_of_rows)
+    intercept_fit = fit_cloglog(ones, pseudo, offset=z, cluster=groups_of_rows)
+    design = _smoother_design(z, knots)
+    start = _smoother_start(knots)
+    smooth: CloglogFit = fit_cloglog(design, pseudo, start=start, cluster=groups_of_rows)
+    subject_obs = smooth.mean(design)
     diff = np.abs(subject_obs - r)
 
     grid_risk = np.quantile(r, np.linspace(0.01, 0.99, 60))
-    grid_basis = rcs_basis(cloglog(grid_risk), knots)
-    curve = pd.DataFrame({"predicted": grid_risk, "observed": fit.risk_at(grid_basis, h)})
-    if n_boot > 0:
-        rng = np.random.default_rng(seed)
-        draws = []
-        for _ in range(n_boot):
-            i = rng.integers(0, t.size, t.size)
-            if not (s_h[i] == 1).any():
-                continue
-            try:
-                draws.append(_smoothed_fit(t_h[i], s_h[i], z[i], knots).risk_at(grid_basis, h))
-            except MetricInputError:
-                continue
-        band = np.quantile(np.array(draws), [0.025, 0.975], axis=0) if draws else np.full((2, grid_risk.size), np.nan)
-        curve["observed_lower"], curve["observed_upper"] = band[0], band[1]
-    else:
-        curve["observed_lower"] = curve["observed_upper"] = np.nan
+    grid_design = _smoother_design(cloglog(grid_risk), knots)
+    band = _band(pseudo, design, grid_design, groups_of_rows, start, n_boot, seed)
+    curve = pd.DataFrame({"predicted": grid_risk, "observed": smooth.mean(grid_design),
+                          "observed_lower": band[0], "observed_upper": band[1]})
     return Calibration(
         horizon=h,
+        target=target,
         ici=float(diff.mean()),
         e50=float(np.median(diff)),
         e90=float(np.quantile(diff, 0.9)),
-        slope=float(slope_fit.coef[0]),
-        slope_se=float(np.sqrt(slope_fit.var[0, 0])),
+        slope=float(slope_fit.coef[1]),
+        slope_se=float(np.sqrt(slope_fit.cov[1, 1])),
+        intercept=float(intercept_fit.coef[0]),
+        intercept_se=float(np.sqrt(intercept_fit.cov[0, 0])),
         oe_ratio=float(oe),
         oe_lower=float(oe_lo),
         oe_upper=float(oe_hi),
+        observed=float(observed),
+        expected=expected,
         groups=groups,
         curve=curve,
         subject_observed=subject_obs,

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from riskbench.models.missing_data import predicted_rows
+from riskbench.models.prediction_target import fitted_target
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.model_specs import ModelSpec, fit_spec, prediction_columns
 from riskbench.validation.performance import (
@@ -181,8 +182,8 @@ def evaluate_fitted(
         time, status, event = time[usable], status[usable], event[usable]
         risks = [{h: r[usable] for h, r in risk.items()} for risk in risks]
     per_spec = []
-    for spec, risk in zip(specs, risks):
-        frame = evaluate_risks(time, status, risk, thresholds=thresholds)
+    for spec, model, risk in zip(specs, models, risks):
+        frame = evaluate_risks(time, status, risk, thresholds=thresholds, target=fitted_target(model))
         frame.insert(0, "spec", spec.name)
         per_spec.append(frame)
     spec_frame = pd.concat(per_spec, ignore_index=True)

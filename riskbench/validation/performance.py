@@ -12,10 +12,10 @@ predictions are cumulative incidences, so a competing event (2) before the horiz
 - the Brier score scores them as 0 with the same weight, against the Aalen–Johansen null model;
 - the observed/expected ratio and net benefit use the Aalen–Johansen cumulative incidence.
 
-The smoothed calibration slope and ICI of :func:`riskbench.metrics.calibration_at_horizon` count competing
-events as censored instead: that smoother is defined for one cause only (its observed risk is then
-1 − Kaplan–Meier, above the cumulative incidence when competing events are common, so compare slope and
-ICI between models rather than with their ideal values).
+The calibration slope, ICI and observed/expected ratio of :func:`riskbench.metrics.calibration_at_horizon`
+judge a prediction against its own estimand (``target``): a cumulative incidence against Aalen–Johansen
+pseudo-observations, a cause-specific 1 − S (forest, time-varying Cox, landmark model without a competing
+model) against 1 − Kaplan–Meier with competing events censored; so their ideal values (1, 0, 1) hold.
 Rows of one patient at several landmarks are pooled, as in van Houwelingen & Putter (2012, ch. 7).
 
 Result columns: ``metric, horizon_days, threshold, value`` (``threshold`` only for net benefit, else NaN).
@@ -29,6 +29,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from riskbench.metrics.calibration import observed_expected
+from riskbench.models.prediction_target import fitted_target
 from riskbench.validation.errors import ValidationInputError
 
 #: Which direction of each measure is better (for reading differences).
@@ -38,9 +40,9 @@ METRIC_DIRECTION: dict[str, str] = {
     "auc": "higher",
     "brier": "lower",
     "scaled_brier": "higher",
-    "calibration_slope": "closer to 1",
+    "calibration_slope": "each model's value closer to 1 (the difference has no better side)",
     "ici": "lower",
-    "oe_ratio": "closer to 1",
+    "oe_ratio": "each model's value closer to 1 (the difference has no better side)",
     "net_benefit": "higher",
 }
 
@@ -118,6 +120,7 @@ def evaluate_risks(
     risks: Mapping[float, np.ndarray],
     *,
     thresholds: Sequence[float] = (),
+    target: str = "cumulative_incidence",
 ) -> pd.DataFrame:
     """Every measure at every horizon for one set of predicted risks.
 
@@ -131,6 +134,9 @@ def evaluate_risks(
         Horizon (days) -> predicted risk by that horizon per row.
     thresholds : sequence of float
         Risk thresholds for net benefit (empty: net benefit skipped).
+    target : {"cumulative_incidence", "cause_specific"}
+        What the risks estimate (:func:`riskbench.models.prediction_target.prediction_target`): the
+        calibration slope, ICI and observed/expected ratio compare them with that estimand.
 
     Returns
     -------
@@ -142,7 +148,6 @@ def evaluate_risks(
     """
     from riskbench import metrics
 
-    event = (status == 1).astype(int)
     rows: list[tuple[str, float, float, float]] = []
     for horizon, risk in risks.items():
         h = float(horizon)
@@ -151,11 +156,11 @@ def evaluate_risks(
         # No confidence band (the resampling gives intervals) and no direction check: a poor model in
         # an unlucky replicate is a result to report, not an input error. A model whose risks take too few
         # distinct values for the smoother has no smoothed calibration (NaN; the other measures stand).
-        smooth = _smoothed_calibration(time, event, risk, t_eval)
+        smooth = _smoothed_calibration(time, status, risk, t_eval, target)
         rows += [(name, h, np.nan, value) for name, value in core.items() if name != "oe_ratio"]
         rows += [
             ("calibration_slope", h, np.nan, float(smooth.slope)),
-            ("oe_ratio", h, np.nan, core["oe_ratio"]),
+            ("oe_ratio", h, np.nan, observed_expected(time, status, risk, t_eval, target=target)[0]),
             ("ici", h, np.nan, float(smooth.ici)),
         ]
         if len(thresholds):
@@ -199,7 +204,8 @@ def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, hor
     }
 
 
-def _smoothed_calibration(time: np.ndarray, status: np.ndarray, risk: np.ndarray, t_eval: float) -> Any:
+def _smoothed_calibration(time: np.ndarray, status: np.ndarray, risk: np.ndarray, t_eval: float,
+                          target: str = "cumulative_incidence") -> Any:
     """:func:`riskbench.metrics.calibration_at_horizon`, or NaN measures when the risks cannot be smoothed."""
     from types import SimpleNamespace
 
@@ -207,7 +213,8 @@ def _smoothed_calibration(time: np.ndarray, status: np.ndarray, risk: np.ndarray
     from riskbench.metrics.inputs import MetricInputError
 
     try:
-        return metrics.calibration_at_horizon(time, status, risk, t_eval, n_boot=0, check_direction=False)
+        return metrics.calibration_at_horizon(time, status, risk, t_eval, target=target, n_boot=0,
+                                              check_direction=False)
     except MetricInputError as exc:
         if "distinct values" not in str(exc):
             raise
@@ -229,7 +236,7 @@ def evaluate_model(
     risks = predict_horizons(model, stack, horizons)
     keep = predicted_rows([risks])
     risks = {h: r[keep] for h, r in risks.items()}
-    return evaluate_risks(time[keep], status[keep], risks, thresholds=thresholds)
+    return evaluate_risks(time[keep], status[keep], risks, thresholds=thresholds, target=fitted_target(model))
 
 
 def check_horizons(horizons: Sequence[float], stack: pd.DataFrame) -> tuple[float, ...]:
