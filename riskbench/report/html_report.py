@@ -89,16 +89,35 @@ SECTIONS: tuple[Section, ...] = (
             "Cumulative/dynamic AUC of the cross-validated predictions against the horizon after the "
             "landmark, and the concordance and Brier scores at the report horizons. The predictions are "
             "cumulative incidences: a competing event before the horizon counts as a known non-outcome in "
-            "the concordance indices, the AUC and the Brier score.",
+            "the concordance indices, the AUC and the Brier score. The shaded band around each AUC curve is a "
+            "pointwise 95% percentile interval from resampling patients (see the next section).",
             figures=("auc_curves",), tables=("discrimination", "brier")),
+    Section("landmark-performance", "Performance at each landmark and pooled",
+            "Each measure of the cross-validated predictions among the patients at risk at one landmark, and "
+            "pooled over all landmark rows, with a 95% percentile interval. A patient still at risk at several "
+            "landmarks contributes one row to each, so the pooled rows are not independent patients: every "
+            "interval comes from bootstrap resamples that draw patients with replacement and keep all of a "
+            "drawn patient's landmark rows together, and re-evaluate the fixed cross-validated predictions. "
+            "The intervals therefore cover the variation between samples of patients for these predictions, "
+            "not the variation from refitting the models. For the same reason the outcome counts per landmark "
+            "add up to more than the number of patients with the outcome: a patient whose outcome falls within "
+            "the horizon of several landmarks is counted once at each of them (the pooled row gives both "
+            "numbers). The observed/expected ratio is the calibration-in-the-large: the Aalen–Johansen "
+            "cumulative incidence by the horizon over the mean predicted risk. A landmark with fewer outcomes "
+            "than the small-count threshold is not measured.",
+            tables=("performance_by_landmark", "landmark_outcome_counts")),
     Section("calibration", "Calibration at each horizon",
             "Predicted against observed risk of the outcome by the horizon (cross-validated predictions). The "
             "curves, slopes and ICI count competing events as censored; the observed/expected ratio in the table "
             "compares the predicted cumulative incidence with the Aalen–Johansen estimate.",
             figures=("calibration_*",), tables=("calibration_summary",)),
     Section("decision-curves", "Decision curves",
-            "Net benefit of acting on the model's risk over a range of risk thresholds, against treating "
-            "everyone and no one.",
+            "Net benefit of acting on the model's risk over a range of risk thresholds (from [report] "
+            "decision_threshold_min, default 0, to decision_threshold_max), against treating everyone and no "
+            "one, over all landmark rows at the longest report horizon. Treating everyone is scored with the "
+            "Aalen–Johansen cumulative incidence, so a patient who first has the competing event counts as "
+            "never having the outcome. Shaded bands: pointwise 95% percentile intervals from resampling "
+            "patients.",
             figures=("decision_curve*",)),
     Section("comparison", "Comparison of the model sets",
             "Paired comparison of the candidate model against the reference on the same patients, with "

@@ -24,7 +24,8 @@ from riskbench.report.outputs import atomic_write_text
 NOTES = "notes"
 STAGE_ORDER: tuple[str, ...] = ("cohort", "models", "validation", "comparison")
 #: Kinds of note, in the order the report explains them.
-NOTE_KINDS: tuple[str, ...] = ("switched off", "fit failed", "not computed", "resamples dropped", "fitting warnings")
+NOTE_KINDS: tuple[str, ...] = ("switched off", "fit failed", "not computed", "resamples dropped", "fitting warnings",
+                               "caution")
 
 
 @dataclass(frozen=True)
@@ -114,7 +115,8 @@ def failed_models(run_dir: str | Path) -> dict[str, str]:
 
 
 _INTRO = ("Parts of the report that were switched off or could not be computed, per stage and model, and how "
-          "often model fits warned. A part listed here is missing above; the rest of the report stands.")
+          "often model fits warned. A part listed here is missing above; the rest of the report stands. A "
+          "caution is shown above but says how far to trust it.")
 
 
 def _rows(cells: Sequence[Sequence[str]], header: Sequence[str], numeric: Sequence[bool]) -> str:

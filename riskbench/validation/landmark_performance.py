@@ -112,12 +112,15 @@ class LandmarkPerformance:
         treat_all_upper, treat_none, fraction_treated`` at ``decision_days`` (pooled rows).
     n_boot
         Bootstrap replicates drawn.
+    decision_days
+        Horizon (days) of the decision curves (None when there are none).
     """
 
     measures: pd.DataFrame
     auc_curve: pd.DataFrame
     decision_curve: pd.DataFrame
     n_boot: int
+    decision_days: float | None = None
 
 
 def landmark_cells(rows: EvaluationRows, report_days: Sequence[float], min_outcomes: int) -> tuple[tuple[float, float], ...]:
@@ -283,7 +286,7 @@ def landmark_performance(
     replicates = run_replicates(_replicate, {"rows": rows, "plan": plan}, seed, n_boot, config,
                                 description="bootstrap of the evaluation")
     table = _with_intervals(point, np.array(replicates, float).reshape(n_boot, len(point)))
-    return LandmarkPerformance(_measures(table), _curve(table), _decisions(table), n_boot)
+    return LandmarkPerformance(_measures(table), _curve(table), _decisions(table), n_boot, plan.decision_days)
 
 
 def _with_intervals(point: pd.DataFrame, draws: np.ndarray) -> pd.DataFrame:

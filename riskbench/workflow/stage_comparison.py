@@ -24,7 +24,6 @@ import pandas as pd
 
 from riskbench import __version__
 from riskbench.models.missing_data import predicted_rows
-from riskbench.report.auc_plot import auc_curve_figure
 from riskbench.report.html_report import build_report
 from riskbench.report.outputs import load_data, save_figure, save_table
 from riskbench.report.suppression import count_columns, format_count, suppress_counts
@@ -39,6 +38,7 @@ from riskbench.validation.performance import evaluate_risks, evaluation_time, st
 from riskbench.validation.sources import PrecomputedTables
 from riskbench.workflow.config import AnalysisConfig
 from riskbench.workflow.fit_diagnosis import count_text, hide_small_numbers
+from riskbench.workflow.landmark_report import report_landmark_performance
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_models import FIT_ERRORS
 from riskbench.workflow.stage_result import StageResult
@@ -71,22 +71,6 @@ def risk_matrices(cv: pd.DataFrame, n_rows: int) -> tuple[np.ndarray, dict[str, 
             raise ValueError(f"cv_predictions: model {model!r} lacks predictions for some rows; rerun stage 3")
         out[str(model)] = wide.to_numpy(float)
     return horizons, out
-
-
-def auc_table(time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
-              risks: dict[str, np.ndarray]) -> pd.DataFrame:
-    """Cumulative/dynamic AUC of each model at each horizon (days); a competing event (status 2) before the
-    horizon makes a control."""
-    from riskbench.metrics import auc_cumulative_dynamic
-
-    frames = [pd.DataFrame(columns=["model", "horizon", "auc"])]
-    usable = [i for i, h in enumerate(horizons) if ((time <= h) & (status == 1)).any()]
-    at = [evaluation_time(float(horizons[i]), time) for i in usable]
-    for model, risk in risks.items():
-        result = auc_cumulative_dynamic(time, status, risk[:, usable], at)
-        frames.append(pd.DataFrame({"model": model, "horizon": horizons[usable],
-                                    "auc": np.asarray(result.table["auc"], float)}))
-    return pd.concat(frames, ignore_index=True)
 
 
 def discrimination_table(time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
@@ -195,6 +179,8 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
             time, status, risks = time[keep], status[keep], {m: r[keep] for m, r in risks.items()}
             report_days = _horizons_with_outcomes(config, time, status, threshold, notes)
             _performance(config, time, status, horizons, risks, report_days, result, notes)
+            report_landmark_performance(config, stack[keep].reset_index(drop=True), horizons, risks, report_days,
+                                        result, notes.add)
             _decisions(config, time, status, horizons, risks, report_days, result, notes)
         else:
             notes.add("performance", "not computed: no model has cross-validated predictions (see the notes of "
@@ -241,23 +227,13 @@ def _horizons_with_outcomes(config: AnalysisConfig, time: np.ndarray, status: np
 def _performance(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
                  risks: dict[str, np.ndarray], report_days: tuple[float, ...], result: StageResult,
                  notes: _Notes) -> None:
-    """AUC curves, discrimination table and calibration (figures and summary) of every model."""
+    """Discrimination table and calibration (figures and summary) of every model (AUC curve and performance per
+    landmark: ``landmark_report``)."""
     from riskbench import metrics
     from riskbench.report.calibration_plot import calibration_figure
 
     threshold = config.report.small_count_threshold
     event = (status == 1).astype(int)  # the one-cause smoothed calibration counts competing events as censored
-    enough = np.array([outcomes_before(time, status, h) >= max(threshold, 1) for h in horizons])
-    if not enough.all() and enough.any():
-        shown = ", ".join(format_duration(h) for h in horizons[~enough])
-        notes.add("time-dependent AUC", f"not shown at {shown}: fewer than {threshold} outcomes before them.")
-    aucs = [notes.attempt("time-dependent AUC", m, auc_table, time, status, horizons[enough], {m: r[:, enough]})
-            for m, r in risks.items()] if enough.any() else []
-    aucs = [a for a in aucs if a is not None and len(a)]
-    if aucs:
-        auc = pd.concat(aucs, ignore_index=True)
-        result.tables["auc_by_horizon"] = auc.assign(horizon_years=auc["horizon"] / DAYS_PER_YEAR)
-        result.figures["auc_curves"] = save_figure(auc_curve_figure(auc), result.run_dir, "auc_curves")
     if report_days:
         parts = [notes.attempt("discrimination", m, discrimination_table, time, status, horizons, {m: r},
                                report_days) for m, r in risks.items()]
@@ -299,7 +275,6 @@ def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, hor
                notes: _Notes) -> None:
     """Decision curves and the triage operating point at the longest report horizon with enough outcomes."""
     from riskbench import metrics
-    from riskbench.report.decision_curve_plot import decision_curve_figure
 
     threshold = config.report.small_count_threshold
     wanted = {"decision curves": _switch(config, "decision_curves"), "triage operating point": _switch(config, "triage")}
@@ -314,16 +289,7 @@ def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, hor
     main = max(report_days)
     t_main = evaluation_time(main, time)
     column = _column(horizons, main)
-    if wanted["decision curves"]:
-        thresholds = np.round(np.linspace(0.01, config.report.decision_threshold_max, 50), 4)
-        curves = [notes.attempt("decision curves", m, metrics.net_benefit, time, status, r[:, column], t_main,
-                                thresholds) for m, r in risks.items()]
-        curves = [c.assign(model_name=m) for c, m in zip(curves, risks) if c is not None]
-        if curves:
-            table = pd.concat(curves, ignore_index=True)
-            name = f"decision_curve_{years_label(main)}"
-            result.tables[name] = table
-            result.figures[name] = save_figure(decision_curve_figure(table, horizon_days=main), result.run_dir, name)
+    # The decision curves (with bands) are drawn by landmark_report.report_landmark_performance.
     if wanted["triage operating point"]:
         triage = []
         for m, r in risks.items():
