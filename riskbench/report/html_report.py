@@ -102,8 +102,9 @@ SECTIONS: tuple[Section, ...] = (
             "not the variation from refitting the models. For the same reason the outcome counts per landmark "
             "add up to more than the number of patients with the outcome: a patient whose outcome falls within "
             "the horizon of several landmarks is counted once at each of them (the pooled row gives both "
-            "numbers). The observed/expected ratio is the calibration-in-the-large: the Aalen–Johansen "
-            "cumulative incidence by the horizon over the mean predicted risk. A landmark with fewer outcomes "
+            "numbers). The observed/expected ratio is the calibration-in-the-large: the observed risk by the "
+            "horizon (Aalen–Johansen cumulative incidence, or 1 − Kaplan–Meier for a model that predicts a "
+            "cause-specific 1 − S) over the mean predicted risk. A landmark with fewer outcomes "
             "than the small-count threshold is not measured.",
             tables=("performance_by_landmark", "landmark_outcome_counts")),
     Section("calibration", "Calibration at each horizon",

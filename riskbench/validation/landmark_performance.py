@@ -14,7 +14,8 @@ models refitted in every replicate, as the paired comparison of the model sets d
 
 Measures at each landmark s and horizon w (:func:`riskbench.validation.performance.horizon_measures`):
 Harrell's and Uno's C, the cumulative/dynamic AUC, the Brier score and its scaled version (IPA) and the
-calibration-in-the-large (observed/expected ratio, observed by Aalen–Johansen). The pooled rows evaluate all
+calibration-in-the-large (observed/expected ratio against each model's own estimand: the Aalen–Johansen
+cumulative incidence, or 1 − Kaplan–Meier for a cause-specific prediction). The pooled rows evaluate all
 landmark rows together (van Houwelingen & Putter 2012, ch. 7); a measure at a landmark with fewer outcomes
 before the horizon than ``min_outcomes`` is not computed (NaN).
 """
@@ -87,6 +88,7 @@ class EvaluationPlan:
     decision_days: float | None = None
     thresholds: tuple[float, ...] = ()
     cells: tuple[tuple[float, float], ...] = field(default=())  # (landmark or NaN, horizon) with enough outcomes
+    targets: Mapping[str, str] = field(default_factory=dict)  # model -> estimand (default cumulative incidence)
 
     def column(self, days: float) -> int:
         """Column of ``days`` in the risk matrices."""
@@ -150,7 +152,8 @@ def evaluate_plan(rows: EvaluationRows, plan: EvaluationPlan, index: np.ndarray 
         risk = matrix[idx]
         for lm, h in plan.cells:
             at = np.ones(idx.size, bool) if np.isnan(lm) else landmark == lm
-            values = _measures_or_nan(time[at], status[at], risk[at, plan.column(h)], h)
+            values = _measures_or_nan(time[at], status[at], risk[at, plan.column(h)], h,
+                                      plan.targets.get(model, "cumulative_incidence"))
             out += [("measure", model, lm, h, name, np.nan, values[name]) for name in HORIZON_MEASURES]
         out += [("auc_curve", model, np.nan, h, "auc", np.nan, v)
                 for h, v in zip(plan.curve_days, _auc_curve(time, status, risk, plan))]
@@ -165,9 +168,10 @@ def evaluate_plan(rows: EvaluationRows, plan: EvaluationPlan, index: np.ndarray 
     return pd.DataFrame(out, columns=[*KEY_COLUMNS, "value"])
 
 
-def _measures_or_nan(time: np.ndarray, status: np.ndarray, risk: np.ndarray, h: float) -> dict[str, float]:
+def _measures_or_nan(time: np.ndarray, status: np.ndarray, risk: np.ndarray, h: float,
+                     target: str) -> dict[str, float]:
     try:
-        return horizon_measures(time, status, risk, h)
+        return horizon_measures(time, status, risk, h, target=target)
     except MetricInputError:  # no outcome before the horizon or no control after it in these rows
         return dict.fromkeys(HORIZON_MEASURES, np.nan)
 
@@ -236,6 +240,7 @@ def landmark_performance(
     curve_days: Sequence[float] = (),
     decision_days: float | None = None,
     thresholds: Sequence[float] = (),
+    targets: Mapping[str, str] | None = None,
     min_outcomes: int = 1,
     n_boot: int = 200,
     seed: int = 0,
@@ -259,6 +264,9 @@ def landmark_performance(
         Horizon (days) of the decision curves (None: none).
     thresholds
         Risk thresholds in [0, 1) of the decision curves.
+    targets
+        Model -> what its risks estimate, ``"cumulative_incidence"`` (default) or ``"cause_specific"``; the
+        observed/expected ratio compares each model with its own estimand.
     min_outcomes
         A landmark (or the pooled rows) needs this many outcomes before a horizon to be measured there.
     n_boot
@@ -281,7 +289,8 @@ def landmark_performance(
                                        f"({rows.time.size}, {len(horizons)}) (rows × horizons).")
     plan = EvaluationPlan(np.asarray(horizons, float), dict(risks), tuple(float(h) for h in report_days),
                           tuple(float(h) for h in curve_days), None if decision_days is None else float(decision_days),
-                          tuple(float(p) for p in thresholds), landmark_cells(rows, report_days, min_outcomes))
+                          tuple(float(p) for p in thresholds), landmark_cells(rows, report_days, min_outcomes),
+                          dict(targets or {}))
     point = evaluate_plan(rows, plan)
     replicates = run_replicates(_replicate, {"rows": rows, "plan": plan}, seed, n_boot, config,
                                 description="bootstrap of the evaluation")

@@ -152,7 +152,7 @@ def evaluate_risks(
     for horizon, risk in risks.items():
         h = float(horizon)
         t_eval = evaluation_time(h, time)
-        core = horizon_measures(time, status, risk, h)
+        core = horizon_measures(time, status, risk, h, target=target)
         # No confidence band (the resampling gives intervals) and no direction check: a poor model in
         # an unlucky replicate is a result to report, not an input error. A model whose risks take too few
         # distinct values for the smoother has no smoothed calibration (NaN; the other measures stand).
@@ -160,7 +160,7 @@ def evaluate_risks(
         rows += [(name, h, np.nan, value) for name, value in core.items() if name != "oe_ratio"]
         rows += [
             ("calibration_slope", h, np.nan, float(smooth.slope)),
-            ("oe_ratio", h, np.nan, observed_expected(time, status, risk, t_eval, target=target)[0]),
+            ("oe_ratio", h, np.nan, core["oe_ratio"]),
             ("ici", h, np.nan, float(smooth.ici)),
         ]
         if len(thresholds):
@@ -173,17 +173,19 @@ def evaluate_risks(
 HORIZON_MEASURES: tuple[str, ...] = ("harrell_c", "uno_c", "auc", "brier", "scaled_brier", "oe_ratio")
 
 
-def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, horizon: float) -> dict[str, float]:
+def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, horizon: float, *,
+                     target: str = "cumulative_incidence") -> dict[str, float]:
     """Concordance (Harrell, Uno), cumulative/dynamic AUC, Brier score, scaled Brier (IPA) and
     calibration-in-the-large at one horizon (days), each treating a competing event as the module notes say.
 
-    The calibration-in-the-large is the observed/expected ratio: the Aalen–Johansen cumulative incidence by the
-    horizon (1 − Kaplan–Meier without competing events) over the mean predicted risk, the same O/E as
-    :func:`riskbench.metrics.calibration_at_horizon`. Raises :class:`riskbench.metrics.inputs.MetricInputError`
-    when a measure is undefined (no outcome before the horizon, no control after it).
+    The calibration-in-the-large is the observed/expected ratio of
+    :func:`riskbench.metrics.calibration.observed_expected` (the one O/E of the report): the observed risk of
+    the model's own estimand ``target`` (Aalen–Johansen cumulative incidence; 1 − Kaplan–Meier with competing
+    events censored for ``"cause_specific"``) over the mean predicted risk. Raises
+    :class:`riskbench.metrics.inputs.MetricInputError` when a measure is undefined (no outcome before the
+    horizon, no control after it).
     """
     from riskbench import metrics
-    from riskbench.metrics.censoring import observed_risk
 
     t_eval = evaluation_time(float(horizon), time)
     # Outcome and competing event as known by the horizon: either after it is censored there.
@@ -192,15 +194,13 @@ def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, hor
     uno = metrics.concordance_uno(time, status, risk, t_eval, with_se=False)
     auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval])
     brier = metrics.brier_score(time, status, risk, [t_eval], check_direction=False)
-    observed, _ = observed_risk(time, status, t_eval)
-    expected = float(np.mean(risk))
     return {
         "harrell_c": float(harrell.estimate),
         "uno_c": float(uno.estimate),
         "auc": float(np.asarray(auc.table["auc"])[0]),
         "brier": float(np.asarray(brier["brier"])[0]),
         "scaled_brier": float(np.asarray(brier["scaled_brier"])[0]),
-        "oe_ratio": observed / expected if expected > 0 else np.nan,
+        "oe_ratio": observed_expected(time, status, risk, t_eval, target=target)[0],
     }
 
 

@@ -31,6 +31,7 @@ from riskbench.validation.landmark_performance import (
 )
 from riskbench.validation.performance import evaluation_time
 from riskbench.workflow.config import AnalysisConfig
+from riskbench.workflow.stage_calibration import model_target
 from riskbench.workflow.stage_result import StageResult
 from riskbench.workflow.stage_validation import bootstrap_resamples, execution, outcomes_before
 
@@ -77,6 +78,7 @@ def report_landmark_performance(config: AnalysisConfig, stack: pd.DataFrame, hor
             rows, horizons, risks, report_days=report_days, curve_days=enough,
             decision_days=max(report_days) if decisions else None,
             thresholds=decision_thresholds(config) if decisions else (), min_outcomes=threshold,
+            targets={m: model_target(config, m) for m in risks},
             n_boot=max(n_boot, 0), seed=config.validation.seed, config=execution(config))
     except (ValidationInputError, MetricInputError) as exc:
         add("performance per landmark", f"not computed: {exc}")

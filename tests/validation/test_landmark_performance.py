@@ -143,3 +143,21 @@ def test_a_resample_takes_whole_patients(patients: list[int], seed: int) -> None
         assert n % counts[p] == 0
         assert sorted(index[patient[index] == p]) == sorted(np.repeat(np.flatnonzero(patient == p), n // counts[p]))
     assert sum(n // counts[p] for p, n in drawn.items()) == counts.size
+
+
+def test_a_cause_specific_model_is_judged_against_one_minus_kaplan_meier(evaluated) -> None:
+    """One O/E everywhere: a model predicting a cause-specific 1 − S is compared with 1 − Kaplan–Meier with
+    competing events censored (lifelines' KaplanMeierFitter, a reference library)."""
+    from lifelines import KaplanMeierFitter
+
+    stack, _ = evaluated
+    rows = EvaluationRows.from_stack(stack)
+    risk = _risks(stack)["both"]
+    result = landmark_performance(rows, HORIZONS, {"both": risk}, report_days=[YEAR], n_boot=0,
+                                  targets={"both": "cause_specific"})
+    oe = result.measures.set_index(["landmark_days", "metric"])["estimate"]
+    at_zero = (stack["landmark"] == 0.0).to_numpy()
+    time, status = stack["time"].to_numpy(float)[at_zero], stack["status"].to_numpy(int)[at_zero]
+    km = KaplanMeierFitter().fit(time, (status == 1).astype(int))
+    observed = 1 - float(km.survival_function_at_times([evaluation_time(YEAR, time)]).iloc[0])
+    assert oe[(0.0, "oe_ratio")] == pytest.approx(observed / risk[at_zero, 1].mean(), rel=1e-10)
