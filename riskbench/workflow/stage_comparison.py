@@ -3,10 +3,13 @@ the two model sets, and the HTML report.
 
 Reads ``data/landmark_stack``, ``data/counting_process`` and ``data/cv_predictions``. Writes
 ``tables/auc_by_horizon``, ``tables/discrimination``, ``tables/calibration_summary``,
-``tables/decision_curve_<h>y``, ``tables/triage_operating_point``, ``tables/model_comparison``
+``tables/decision_curve_<h>y``, ``tables/triage_operating_point``, ``tables/model_comparison``,
+``tables/performance_by_landmark`` (+ ``_values``), ``tables/landmark_outcome_counts``
 (CSV), ``figures/auc_curves``, ``figures/calibration_<h>y``, ``figures/decision_curve_<h>y`` (PNG, SVG),
 ``notes/comparison.json`` and ``report.html``. The outcome is status 1 and the predictions are cumulative
 incidences; how each measure treats a competing event (2) is set out in :mod:`riskbench.validation.performance`.
+The AUC curve, the decision curves and the performance per landmark and pooled, with their patient-level
+bootstrap intervals, come from :mod:`riskbench.workflow.landmark_report`.
 
 Every part is optional and none is fatal. Decision curves and triage can be switched off (``[report]
 decision_curves``, ``triage``); a horizon with fewer outcomes before it than the small-count threshold gets
