@@ -8,9 +8,12 @@ the configuration: they are plain text here and escaped where the report shows t
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
+from riskbench.models.prediction_target import CUMULATIVE_INCIDENCE as TARGET_CUMULATIVE
+from riskbench.models.prediction_target import prediction_target
 from riskbench.report.suppression import format_count
 from riskbench.time_units import DAYS_PER_YEAR, format_duration
 
@@ -24,19 +27,18 @@ CUMULATIVE_INCIDENCE = "cumulative incidence of the outcome, with the competing 
 CAUSE_SPECIFIC = "one minus the outcome-free survival of a cause-specific model (competing events censored)"
 
 
-def prediction_kind(family: str, competing_param: bool, cohort_has_competing: bool) -> str:
-    """What a model's predicted risk estimates.
+def prediction_kind(family: str, params: Mapping[str, Any] | None, cohort_has_competing: bool) -> str:
+    """What a model's predicted risk estimates, in words.
 
-    Only a landmark super-model with its competing-event part (``competing = true`` and competing events in
-    the cohort) predicts a cumulative incidence; a time-varying Cox model and the forest are cause-specific,
-    and their 1 − S is the outcome's risk in a world where the competing event were removed (it overstates
-    the cumulative incidence when competing events are common). Without competing events both are the same.
+    The estimand comes from :func:`riskbench.models.prediction_target.prediction_target`: only a landmark
+    super-model with its competing-event part predicts a cumulative incidence; a time-varying Cox model and the
+    forest are cause-specific, and their 1 − S is the outcome's risk in a world where the competing event were
+    removed (it overstates the cumulative incidence when competing events are common). Without competing events
+    in the cohort both are the same.
     """
     if not cohort_has_competing:
         return "one minus the outcome-free survival (no competing events in the cohort)"
-    if family == "landmark_cox" and competing_param:
-        return CUMULATIVE_INCIDENCE
-    return CAUSE_SPECIFIC
+    return CUMULATIVE_INCIDENCE if prediction_target(family, params) == TARGET_CUMULATIVE else CAUSE_SPECIFIC
 
 
 @dataclass(frozen=True)

@@ -202,10 +202,9 @@ def study_facts(config: AnalysisConfig, patients: pd.DataFrame, stack: pd.DataFr
     models = []
     for m in config.models:
         plan = missing_data_plan(m, config.missing_data)
-        competing = bool(dict(m.params).get("competing", True))
         models.append(ModelFacts(m.name, m.family, tuple(label_of(c) for c in m.covariates),
                                  model_parameters(m, n_landmarks), plan.method, plan.imputations,
-                                 prediction_kind(m.family, competing, has_competing)))
+                                 prediction_kind(m.family, m.params, has_competing)))
     unmet = () if sample_size.empty else tuple(dict.fromkeys(sample_size.loc[sample_size["met"] == "no", "model"]))
     pair = config.validation.compare
     return StudyFacts(

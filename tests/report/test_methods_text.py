@@ -24,11 +24,11 @@ from riskbench.validation.reclassification import nri_kind
 def _facts(**change) -> StudyFacts:
     models = (
         ModelFacts("clinical", "landmark_cox", ("Age at entry (years)",), 2, "complete_cases", 10,
-                   prediction_kind("landmark_cox", True, True)),
+                   prediction_kind("landmark_cox", {}, True)),
         ModelFacts("imaging", "time_varying_cox", ("Age at entry (years)", "log nodule volume (log mm3)"), 2,
-                   "multiple_imputation", 7, prediction_kind("time_varying_cox", True, True)),
+                   "multiple_imputation", 7, prediction_kind("time_varying_cox", {}, True)),
         ModelFacts("trees", "forest", ("suspicion score",), 0, "missing_indicator", 10,
-                   prediction_kind("forest", True, True)),
+                   prediction_kind("forest", {}, True)),
     )
     facts = StudyFacts(
         n_patients=800, n_outcomes=90, n_competing=4, n_censored=706,
@@ -42,11 +42,12 @@ def _facts(**change) -> StudyFacts:
 
 
 def test_prediction_kind_follows_family_and_competing_events():
-    assert prediction_kind("landmark_cox", True, True) == CUMULATIVE_INCIDENCE
-    assert prediction_kind("landmark_cox", False, True) == CAUSE_SPECIFIC
-    assert prediction_kind("time_varying_cox", True, True) == CAUSE_SPECIFIC
-    assert prediction_kind("forest", True, True) == CAUSE_SPECIFIC
-    assert "no competing events" in prediction_kind("forest", True, False)
+    assert prediction_kind("landmark_cox", {}, True) == CUMULATIVE_INCIDENCE
+    assert prediction_kind("landmark_cox", {"competing": False}, True) == CAUSE_SPECIFIC
+    assert prediction_kind("time_varying_cox", {}, True) == CAUSE_SPECIFIC
+    assert prediction_kind("cox", None, True) == CAUSE_SPECIFIC
+    assert prediction_kind("forest", {}, True) == CAUSE_SPECIFIC
+    assert "no competing events" in prediction_kind("forest", {}, False)
 
 
 def test_methods_state_timing_carry_forward_outcome_models_and_validation():
