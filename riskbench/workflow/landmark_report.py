@@ -43,7 +43,8 @@ MEASURE_HEADINGS: dict[str, str] = {
     "scaled_brier": "scaled Brier (IPA)", "oe_ratio": "observed/expected",
 }
 
-POOLED_LABEL = "all landmarks pooled (a patient counts at every landmark where at risk)"
+POOLED_LABEL = ("all landmarks pooled (a patient counts at every landmark where at risk; the interval resamples "
+                "patients with all their landmark rows)")
 
 #: Number of thresholds on a decision curve.
 DECISION_POINTS = 50
