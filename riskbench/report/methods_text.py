@@ -159,7 +159,9 @@ def methods_paragraphs(f: StudyFacts) -> list[str]:
                 "landmark rows in all, so most patients contribute several). Measures are reported at "
                 + _list([format_duration(h) for h in f.report_horizons_days]) + " after the landmark.")
     models = " ".join(_model_sentence(m) for m in f.models)
-    optimism = (f" Bootstrap optimism uses {f.bootstrap_resamples} resamples of patients."
+    optimism = (f" Bootstrap validation uses {f.bootstrap_resamples} resamples of patients: apparent minus the mean "
+                "optimism for regression models, the .632+ estimate (Efron & Tibshirani 1997) for forests, whose "
+                "apparent performance is near perfect by construction."
                 if f.optimism and f.bootstrap_resamples > 0 else "")
     pair = (f" The candidate model '{f.candidate}' is compared with the reference '{f.reference}' on the same "
             f"patients by {f.bootstrap_resamples} paired bootstrap resamples of patients, and by a likelihood-ratio "

@@ -62,3 +62,26 @@ def test_landmark_effect_figure_and_form_tests(run_dir):
     notes = B.notes_of(run_dir)
     assert not notes["part"].isin(["β(s) figure", "hazard ratios per step",
                                    "landmark-effect likelihood-ratio test"]).any()
+
+
+def test_beta_bands_of_multiple_imputation_fits_are_pooled_by_rubins_rules(run_dir):
+    """Rubin (1987), **from memory**: the pooled estimate is the mean over imputations and the total variance
+    the mean within-imputation variance plus (1 + 1/m) times the between-imputation variance."""
+    from types import SimpleNamespace
+
+    from riskbench.models.landmark import LandmarkSupermodel
+    from riskbench.workflow.model_effects import effect_bands
+
+    stack = pd.read_parquet(run_dir / "data" / "landmark_stack.parquet")
+    stack = stack.dropna(subset=["age_at_entry", "pack_years"])
+    fits = [LandmarkSupermodel(["age_at_entry", "pack_years"], competing=False).fit(
+        stack.sample(frac=0.9, random_state=k)) for k in range(3)]
+    fits = [f for f in fits if np.array_equal(f.landmarks_, fits[0].landmarks_)]
+    pooled = effect_bands(SimpleNamespace(models_=fits))
+    single = [f.landmark_effect_bands(pooled["landmark_days"].unique()) for f in fits]
+    coef = np.stack([b["coef"].to_numpy() for b in single])
+    var = np.stack([b["se"].to_numpy() ** 2 for b in single])
+    m = len(fits)
+    np.testing.assert_allclose(pooled["coef"], coef.mean(axis=0), rtol=1e-12)
+    np.testing.assert_allclose(pooled["se"] ** 2, var.mean(axis=0) + (1 + 1 / m) * coef.var(axis=0, ddof=1), rtol=1e-10)
+    assert (pooled["lower"] < pooled["coef"]).all() and (pooled["coef"] < pooled["upper"]).all()
