@@ -89,3 +89,39 @@ def test_figures_draw_the_bands() -> None:
     fig = decision_curve_figure(curve, horizon_days=730.5)
     assert len(fig.axes[0].collections) == 2 and "2 years" in fig.axes[0].get_title()
     assert fig.axes[0].get_xlim()[0] == 0.0
+
+
+def test_the_stage_part_writes_tables_figures_and_the_caution(tmp_path) -> None:
+    """The demo configuration (20 resamples) on a simulated stack with competing events: every table and figure
+    of the part, bands on the AUC curve, decision curves from threshold 0, and the caution below 200."""
+    from pathlib import Path
+
+    from riskbench.workflow.config import load_config
+    from riskbench.workflow.landmark_report import report_landmark_performance
+    from riskbench.workflow.stage_result import StageResult
+
+    from ..validation.conftest import simulate_stack
+
+    config = load_config(Path(__file__).parents[2] / "configs" / "demo.toml")
+    stack = simulate_stack(300, 5, landmarks=(0.0, 182.625, 365.25))[0]
+    rng = np.random.default_rng(5)
+    stack.loc[(stack["status"] == 0) & (stack["time"] < 600) & (rng.random(len(stack)) < 0.3), "status"] = 2
+    horizons = np.array([182.625, 365.25, 730.0])
+    rate = (1 / 1500) * np.exp(0.6 * stack["clinical"] + 0.8 * stack["imaging"]).to_numpy()
+    risks = {"clinical": 1 - np.exp(-(1 / 1500) * np.exp(0.6 * stack["clinical"].to_numpy())[:, None] * horizons),
+             "imaging_clinical": 1 - np.exp(-rate[:, None] * horizons)}
+    said = []
+    result = StageResult(stage="comparison", run_dir=tmp_path)
+    perf = report_landmark_performance(config, stack, horizons, risks, (365.25, 730.0), result,
+                                       lambda part, text, model="", kind="not computed": said.append((part, kind)))
+    assert perf is not None and perf.n_boot == 20
+    curve = [n for n in result.tables if n.startswith("decision_curve_")]
+    assert len(curve) == 1 and {"auc_curves", curve[0]} <= set(result.figures)
+    assert {"performance_by_landmark", "performance_by_landmark_values", "landmark_outcome_counts",
+            "auc_by_horizon"} <= set(result.tables)
+    assert (tmp_path / "figures" / "auc_curves.png").is_file()
+    assert result.tables[curve[0]]["threshold"].min() == 0.0
+    assert result.tables["auc_by_horizon"][["auc_lower", "auc_upper"]].notna().all().all()
+    assert ("bootstrap intervals", "caution") in said
+    counts = result.tables["landmark_outcome_counts"]
+    assert any(c.startswith("competing_events_within") for c in counts.columns)
