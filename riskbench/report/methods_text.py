@@ -12,13 +12,15 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
+
 from riskbench.models.prediction_target import CUMULATIVE_INCIDENCE as TARGET_CUMULATIVE
 from riskbench.models.prediction_target import prediction_target
-from riskbench.report.suppression import format_count
+from riskbench.report.suppression import complementary_hidden, format_count, is_suppressed
 from riskbench.time_units import DAYS_PER_YEAR, format_duration
 
-__all__ = ["ModelFacts", "StudyFacts", "limitations_paragraph", "methods_paragraphs", "prediction_kind",
-           "FEW_RESAMPLES"]
+__all__ = ["FEW_RESAMPLES", "ModelFacts", "StudyFacts", "limitations_paragraph", "methods_paragraphs",
+           "prediction_kind", "shown_parts"]
 
 #: Bootstrap resamples below which percentile intervals are unstable (common practice: at least 200).
 FEW_RESAMPLES = 200
@@ -131,6 +133,15 @@ def _model_sentence(m: ModelFacts) -> str:
             f"{m.prediction}; missing values: {missing}.")
 
 
+def shown_parts(counts: Sequence[int], threshold: int) -> list[str]:
+    """Counts that add up to a shown total, as text: small ones as ``<threshold``, and one that would give a
+    hidden one away by subtraction as "a suppressed number" (see
+    :func:`riskbench.report.suppression.complementary_hidden`)."""
+    hide = complementary_hidden(np.asarray(counts, dtype=float), threshold)
+    return ["a suppressed number" if h and not is_suppressed(c, threshold) else format_count(c, threshold)
+            for c, h in zip(counts, hide)]
+
+
 def methods_paragraphs(f: StudyFacts) -> list[str]:
     """The methods paragraphs (participants and outcome, predictors and their timing, the prediction question,
     the models, the validation design), in that order."""
@@ -140,11 +151,12 @@ def methods_paragraphs(f: StudyFacts) -> list[str]:
               f"(interquartile range {_years(low)} to {_years(high)})." if median < float("inf") else
               "Median follow-up by the reverse Kaplan–Meier method could not be estimated: fewer than half "
               "of the patients reached the end of follow-up without an event.")
-    competing = (f"{n(f.n_competing)} had the competing event first (it ends follow-up and precludes the outcome)"
+    outcomes, competing, censored = shown_parts([f.n_outcomes, f.n_competing, f.n_censored], f.threshold)
+    competing = (f"{competing} had the competing event first (it ends follow-up and precludes the outcome)"
                  if f.n_competing else "none had a competing event")
     participants = (f"Each of the {n(f.n_patients)} included patients was followed from entry (the time origin) "
                     f"until the outcome, a competing event or the end of follow-up, whichever came first: "
-                    f"{n(f.n_outcomes)} had the outcome, {competing}, and {n(f.n_censored)} were censored. {follow}")
+                    f"{outcomes} had the outcome, {competing}, and {censored} were censored. {follow}")
     carry = (f"carried forward for at most {format_duration(f.max_carry_days)} (older values count as missing)"
              if f.max_carry_days is not None else "carried forward without a time limit")
     lookback = (f"; values dated up to {format_duration(f.lookback_days)} before entry count as known at entry"

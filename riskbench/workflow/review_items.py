@@ -24,7 +24,7 @@ from riskbench.metrics.sample_size import DEFAULT_R2_FRACTION, max_cox_snell_r2,
 from riskbench.models.cox_diagnostics import cox_refit, proportional_hazards_test
 from riskbench.models.family_registry import family as family_of
 from riskbench.report.methods_text import (ModelFacts, StudyFacts, limitations_paragraph, methods_paragraphs,
-                                           prediction_kind)
+                                           prediction_kind, shown_parts)
 from riskbench.report.notes import Note
 from riskbench.report.outputs import TABLES, atomic_write_text, load_data, save_table
 from riskbench.report.reporting_items import reporting_items_table
@@ -120,9 +120,9 @@ def _nested_test(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, 
         "reference": reference.name, "candidate": candidate.name,
         "added_terms": "; ".join(term_label(t, label_of) for t in added),
         "df": test.df, "statistic": test.statistic, "p_value": test.p_value,
-        "rows_used": format_count(len(fits[1].table), threshold),
+        # rows used + left out = the landmark rows stated in the methods: hide one that gives the other away
+        "rows_used": shown_parts([len(fits[1].table), fits[1].rows_left_out], threshold)[0],
         "outcomes": format_count(int((fits[1].table["status"] == 1).sum()), threshold),
-        "rows_left_out": format_count(fits[1].rows_left_out, threshold),
     }])
 
 
@@ -159,13 +159,17 @@ def sample_size_table(config: AnalysisConfig, patients: pd.DataFrame, n_landmark
 
     The anticipated Cox–Snell R² is 15% of its maximum (conservative; Riley et al.). The cohort's rate is
     outcomes per person-year of follow-up from entry; the criterion (iii) time point is the prediction window.
+    Empty when the number of outcomes is hidden (fewer than the small-count threshold, or hidden so that a
+    small number of competing events cannot be worked out; rate × follow-up × patients would show it) or no
+    model has coefficients.
     """
     threshold = config.report.small_count_threshold
     n = len(patients)
     outcomes = int((patients["end_status"] == 1).sum())
     years = patients["end_days"].to_numpy(float) / DAYS_PER_YEAR
-    if outcomes == 0 or years.sum() <= 0:
-        return pd.DataFrame()
+    ends = [outcomes, int((patients["end_status"] == 2).sum()), int((patients["end_status"] == 0).sum())]
+    if shown_parts(ends, threshold)[0] != str(outcomes) or years.sum() <= 0:
+        return pd.DataFrame()  # the rate would give a hidden count of outcomes away
     rate, mean_fu = outcomes / years.sum(), float(years.mean())
     r2 = DEFAULT_R2_FRACTION * max_cox_snell_r2(rate, mean_fu)
     rows = []
@@ -251,7 +255,8 @@ def write_review_items(config: AnalysisConfig, run_dir: str | Path, stack: pd.Da
         if len(sample_size):
             save_table(sample_size, run_dir, "sample_size")
         elif not notes:
-            notes.append(Note("comparison", "sample size", "not computed: no Cox-family model, or no outcome."))
+            notes.append(Note("comparison", "sample size", "not shown: no Cox-family model, or the number of "
+                              f"outcomes is hidden by the small-count rule (threshold {threshold})."))
         try:
             facts = study_facts(config, patients, stack, sample_size, run_dir, label_of)
         except (*CHECK_ERRORS, KeyError) as exc:

@@ -95,3 +95,17 @@ def test_no_competing_columns_or_boxes_without_competing_events(three_family_run
     tables = three_family_run / "tables"
     assert "competing_events" not in pd.read_csv(tables / "landmark_summary.csv").columns
     assert "Competing event" not in set(pd.read_csv(tables / "cohort_flow.csv")["step"])
+
+
+def test_sample_size_is_not_shown_with_fewer_outcomes_than_the_threshold(nested_run):
+    """Rate, mean follow-up and patients would give the hidden number of outcomes away: no table then."""
+    from riskbench.workflow.config import load_config
+    from riskbench.workflow.review_items import sample_size_table
+
+    config = load_config(nested_run.parent / "analysis.toml")
+    patients = pd.DataFrame({"end_days": [400.0] * 50, "end_status": [1] * 9 + [0] * 41})
+    assert sample_size_table(config, patients, n_landmarks=5).empty
+    patients["end_status"] = [1] * 10 + [0] * 40
+    assert len(sample_size_table(config, patients, n_landmarks=5)) == 6  # two models, three criteria
+    patients["end_status"] = [1] * 12 + [2] * 3 + [0] * 35  # outcomes hidden so the 3 cannot be worked out
+    assert sample_size_table(config, patients, n_landmarks=5).empty

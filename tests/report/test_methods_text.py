@@ -52,8 +52,13 @@ def test_prediction_kind_follows_family_and_competing_events():
 
 def test_methods_state_timing_carry_forward_outcome_models_and_validation():
     text = " ".join(methods_paragraphs(_facts()))
-    assert "800 included patients" in text and "90 had the outcome" in text and "706 were censored" in text
-    assert "<10 had the competing event" in text  # small count hidden
+    assert "800 included patients" in text and "<10 had the competing event" in text  # small count hidden
+    # 800 - 90 - 706 would give the 4 competing events away: the smaller shown count is hidden too
+    # (complementary suppression, riskbench.report.suppression.complementary_hidden)
+    assert "a suppressed number had the outcome" in text and "706 were censored" in text
+    assert "90" not in text.split("Median follow-up")[0]
+    shown = " ".join(methods_paragraphs(_facts(n_competing=40, n_censored=670)))
+    assert "90 had the outcome" in shown and "40 had the competing event" in shown and "670 were censored" in shown
     assert "3.0 years (interquartile range 2.0 years to 4.0 years)" in text and "reverse Kaplan–Meier" in text
     assert "carried forward for at most 1 year" in text and "180 days before entry" in text
     assert "within 2 years after each landmark time (0, 0.5 years" in text and "1500 landmark rows" in text
