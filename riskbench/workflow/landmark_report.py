@@ -85,6 +85,7 @@ def report_landmark_performance(config: AnalysisConfig, stack: pd.DataFrame, hor
         add("performance per landmark", f"not computed: {exc}")
         return None
     _resample_caution(n_boot, add)
+    _unmeasured_notes(perf, rows, report_days, threshold, add)
     _write_tables(perf, rows, report_days, threshold, result)
     _write_figures(perf, result, n_boot)
     return perf
@@ -102,6 +103,24 @@ def _resample_caution(n_boot: int, add: AddNote) -> None:
             f"than {MIN_STABLE_RESAMPLES} resamples are unstable (common practice): their limits move from one seed "
             f"to the next. Raise [validation] bootstrap_resamples to {MIN_STABLE_RESAMPLES} or more for results to "
             "report.", kind="caution")
+
+
+def _unmeasured_notes(perf: LandmarkPerformance, rows: EvaluationRows, report_days: tuple[float, ...],
+                      threshold: int, add: AddNote) -> None:
+    """Notes for the landmarks and horizons left out for too few outcomes, and for measures that are undefined."""
+    part = "performance per landmark"
+    m = perf.measures
+    measured = {(landmark_label(s), float(h)) for s, h in zip(m["landmark_days"], m["horizon_days"])}
+    skipped = [f"{landmark_label(s)} within {format_duration(h)}" for s in [*np.unique(rows.landmark), np.nan]
+               for h in report_days if (landmark_label(s), float(h)) not in measured]
+    if skipped:
+        add(part, f"not computed for {'; '.join(skipped)}: fewer than {threshold} outcomes (the small-count "
+            "threshold) among that landmark's rows before the horizon.")
+    for model, rows_of in m[m["estimate"].isna()].groupby("model", sort=False):
+        cells = sorted({f"{landmark_label(s)} within {format_duration(h)} ({metric})"
+                        for s, h, metric in zip(rows_of["landmark_days"], rows_of["horizon_days"], rows_of["metric"])})
+        add(part, f"undefined for {'; '.join(cells)}: no patient of that landmark was followed event-free beyond "
+            "the horizon, or no pair of patients could be compared.", model)
 
 
 def landmark_label(days: float) -> str:

@@ -125,3 +125,17 @@ def test_the_stage_part_writes_tables_figures_and_the_caution(tmp_path) -> None:
     assert ("bootstrap intervals", "caution") in said
     counts = result.tables["landmark_outcome_counts"]
     assert any(c.startswith("competing_events_within") for c in counts.columns)
+
+
+def test_landmarks_left_out_for_few_outcomes_get_a_note() -> None:
+    from riskbench.validation.landmark_performance import LandmarkPerformance
+    from riskbench.workflow.landmark_report import _unmeasured_notes
+
+    measures = pd.DataFrame({"model": "m", "landmark_days": [0.0, np.nan], "horizon_days": 365.25,
+                             "metric": "auc", "estimate": [0.7, np.nan], "ci_low": np.nan, "ci_high": np.nan,
+                             "resamples": 0})
+    said = []
+    _unmeasured_notes(LandmarkPerformance(measures, pd.DataFrame(), pd.DataFrame(), 0), _rows(), (365.25,), 10,
+                      lambda part, text, model="", kind="not computed": said.append((text, model)))
+    assert "not computed for 180 days after entry within 1 year: fewer than 10" in said[0][0]
+    assert said[1][1] == "m" and POOLED_LABEL in said[1][0] and "(auc)" in said[1][0]
