@@ -148,7 +148,7 @@ def _follow_up(patients: pd.DataFrame) -> tuple[float, float, float]:
 def follow_up_table(patients: pd.DataFrame, threshold: int) -> pd.DataFrame:
     """Median follow-up and quartiles by reverse Kaplan–Meier (years), with the number of patients."""
     median, low, high = _follow_up(patients)
-    return pd.DataFrame([{"patients": format_count(len(patients), threshold),
+    return pd.DataFrame([{"n_patients": format_count(len(patients), threshold),
                           "median_follow_up_years": median / DAYS_PER_YEAR,
                           "lower_quartile_years": low / DAYS_PER_YEAR, "upper_quartile_years": high / DAYS_PER_YEAR,
                           "method": "reverse Kaplan-Meier (Schemper & Smith 1996)"}])
