@@ -165,14 +165,25 @@ def target_status(status: np.ndarray, target: str) -> np.ndarray:
 
 
 def observed_expected(time: np.ndarray, status: np.ndarray, risk: np.ndarray, horizon: float, *,
-                      target: str = "cumulative_incidence") -> tuple[float, float, float]:
+                      target: str = "cumulative_incidence",
+                      cluster: ArrayLike | None = None) -> tuple[float, float, float]:
     """Observed/expected ratio at ``horizon`` and its 95% interval: the observed risk (Aalen–Johansen, or
     1 − Kaplan–Meier for ``target="cause_specific"``) over the mean predicted risk.
 
-    The interval treats the mean prediction as fixed and takes the observed risk's variance (delta method
-    on the log scale). This is the one O/E of the calibration table, its figure and the model comparison.
+    The interval treats the mean prediction as fixed and takes the variance of the observed risk on the log
+    scale: the delta-method (Greenwood-type) variance, or with ``cluster`` (the patient of each landmark row)
+    the cluster-robust variance of the mean of the jackknife pseudo-observations,
+    G/(G − 1) · Σ_clusters (Σ_rows (θ_i − θ̄))² / n², since a patient's rows are not independent. This is the
+    one O/E of the calibration table, its figure and the model comparison.
     """
-    observed, var_observed = observed_risk(time, target_status(np.asarray(status), target), horizon)
+    status = target_status(np.asarray(status), target)
+    observed, var_observed = observed_risk(time, status, horizon)
+    if cluster is not None:
+        centred = pseudo_observations(time, status, horizon) - observed
+        _, code = np.unique(np.asarray(cluster), return_inverse=True)
+        per_cluster = np.bincount(code, weights=centred)
+        g = per_cluster.size
+        var_observed = float(np.sum(per_cluster**2)) / centred.size**2 * (g / (g - 1) if g > 1 else np.nan)
     expected = float(np.mean(risk))
     oe = observed / expected if expected > 0 else np.nan
     se_log = np.sqrt(var_observed) / observed if observed > 0 else np.nan
@@ -264,7 +275,7 @@ def calibration_at_horizon(
         check_lengths(time=t, cluster=groups_of_rows)
 
     groups = _grouped(t, status, r, h, n_groups)
-    oe, oe_lo, oe_hi = observed_expected(t, status, r, h)
+    oe, oe_lo, oe_hi = observed_expected(t, status, r, h, cluster=groups_of_rows)
     observed, expected = observed_risk(t, status, h)[0], float(r.mean())
 
     z = cloglog(r)

@@ -108,9 +108,13 @@ SECTIONS: tuple[Section, ...] = (
             "than the small-count threshold is not measured.",
             tables=("performance_by_landmark", "landmark_outcome_counts")),
     Section("calibration", "Calibration at each horizon",
-            "Predicted against observed risk of the outcome by the horizon (cross-validated predictions). The "
-            "curves, slopes and ICI count competing events as censored; the observed/expected ratio in the table "
-            "compares the predicted cumulative incidence with the Aalen–Johansen estimate.",
+            "Predicted against observed risk of the outcome by the horizon (cross-validated predictions), each "
+            "model against what it predicts: a cumulative incidence against the Aalen–Johansen estimate with "
+            "the competing event, a cause-specific 1 − S (forest, time-varying Cox, landmark model without a "
+            "competing model) against 1 − Kaplan–Meier with competing events censored (column 'prediction'). "
+            "Curves, slope, intercept, ICI, E50 and E90 come from pseudo-observations of that estimate "
+            "(Austin, Putter, Giardiello & van Klaveren 2022); standard errors and bands treat a patient's "
+            "landmark rows as one cluster. Figure and table show the same observed/expected ratio.",
             figures=("calibration_*",), tables=("calibration_summary",)),
     Section("decision-curves", "Decision curves",
             "Net benefit of acting on the model's risk over a range of risk thresholds (from [report] "

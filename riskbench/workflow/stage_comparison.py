@@ -28,7 +28,7 @@ import pandas as pd
 from riskbench import __version__
 from riskbench.models.missing_data import predicted_rows
 from riskbench.report.html_report import build_report
-from riskbench.report.outputs import load_data, save_figure, save_table
+from riskbench.report.outputs import load_data, save_table
 from riskbench.report.suppression import count_columns, format_count, suppress_counts
 from riskbench.metrics.triage import TargetUnreachable
 from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
@@ -44,6 +44,7 @@ from riskbench.workflow.fit_diagnosis import count_text, hide_small_numbers
 from riskbench.workflow.landmark_report import report_landmark_performance
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_models import FIT_ERRORS
+from riskbench.workflow.stage_calibration import calibration_part, model_target
 from riskbench.workflow.stage_result import StageResult
 from riskbench.workflow.stage_validation import (
     bootstrap_resamples,
@@ -77,12 +78,14 @@ def risk_matrices(cv: pd.DataFrame, n_rows: int) -> tuple[np.ndarray, dict[str, 
 
 
 def discrimination_table(time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
-                         risks: dict[str, np.ndarray], report_days: tuple[float, ...]) -> pd.DataFrame:
-    """Every measure of :func:`riskbench.validation.performance.evaluate_risks` at the report horizons."""
+                         risks: dict[str, np.ndarray], report_days: tuple[float, ...],
+                         targets: dict[str, str] | None = None) -> pd.DataFrame:
+    """Every measure of :func:`riskbench.validation.performance.evaluate_risks` at the report horizons
+    (``targets``: model -> what its risk estimates, default cumulative incidence)."""
     frames = []
     for model, risk in risks.items():
         by_h = {h: risk[:, _column(horizons, h)] for h in report_days}
-        frame = evaluate_risks(time, status, by_h)
+        frame = evaluate_risks(time, status, by_h, target=(targets or {}).get(model, "cumulative_incidence"))
         frame.insert(0, "model", model)
         frames.append(frame)
     table = pd.concat(frames, ignore_index=True)
@@ -184,6 +187,9 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
             _performance(config, time, status, horizons, risks, report_days, result, notes)
             report_landmark_performance(config, stack[keep].reset_index(drop=True), horizons, risks, report_days,
                                         result, notes.add)
+            calibration_part(config, time, status, stack["patient_id"].to_numpy()[keep],
+                             {h: {m: r[:, _column(horizons, h)] for m, r in risks.items()} for h in report_days},
+                             result, notes, years_label)
             _decisions(config, time, status, horizons, risks, report_days, result, notes)
         else:
             notes.add("performance", "not computed: no model has cross-validated predictions (see the notes of "
@@ -230,47 +236,17 @@ def _horizons_with_outcomes(config: AnalysisConfig, time: np.ndarray, status: np
 def _performance(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
                  risks: dict[str, np.ndarray], report_days: tuple[float, ...], result: StageResult,
                  notes: _Notes) -> None:
-    """Discrimination table and calibration (figures and summary) of every model (AUC curve and performance per
-    landmark: ``landmark_report``)."""
-    from riskbench import metrics
-    from riskbench.report.calibration_plot import calibration_figure
-
-    threshold = config.report.small_count_threshold
-    event = (status == 1).astype(int)  # the one-cause smoothed calibration counts competing events as censored
+    """Discrimination table of every model (AUC curve and performance per landmark: ``landmark_report``;
+    calibration: ``stage_calibration``)."""
     if report_days:
         parts = [notes.attempt("discrimination", m, discrimination_table, time, status, horizons, {m: r},
-                               report_days) for m, r in risks.items()]
+                               report_days, {m: model_target(config, m)}) for m, r in risks.items()]
         parts = [p for p in parts if p is not None]
         if parts:
             table = parts[0]
             for other in parts[1:]:
                 table = table.merge(other, on=["horizon_years", "metric"], how="outer", sort=False)
             result.tables["discrimination"] = table
-
-    # Observed/expected uses status 0/1/2 (observed risk by Aalen-Johansen, comparable with a predicted
-    # cumulative incidence); the smoothed curve, slope and ICI are cause-specific (competing events
-    # censored), as in riskbench.validation.performance. Net benefit and triage use 0/1/2.
-    summaries = []
-    for h in report_days:
-        t_eval = evaluation_time(h, time)
-        for model, risk in risks.items():
-            r = risk[:, _column(horizons, h)]
-            whole = notes.attempt(f"calibration at {format_duration(h)}", model, metrics.calibration_at_horizon,
-                                  time, status, r, t_eval, n_boot=0)
-            cause = notes.attempt(f"calibration at {format_duration(h)}", model, metrics.calibration_at_horizon,
-                                  time, event, r, t_eval, seed=config.validation.seed)
-            if whole is None or cause is None:
-                continue
-            name = f"calibration_{model}_{years_label(h)}"
-            result.figures[name] = save_figure(
-                calibration_figure(cause, r, model_name=model, min_group_size=threshold), result.run_dir,
-                name)
-            summaries.append({"model": model, "horizon_years": h / DAYS_PER_YEAR,
-                              "observed_expected": whole.oe_ratio, "oe_lower": whole.oe_lower,
-                              "oe_upper": whole.oe_upper, "slope": cause.slope, "slope_se": cause.slope_se,
-                              "ici": cause.ici, "e50": cause.e50, "e90": cause.e90})
-    if summaries:
-        result.tables["calibration_summary"] = pd.DataFrame(summaries)
 
 
 def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
