@@ -113,7 +113,9 @@ def baseline_table(
             add(f"{name}, median (IQR)", lambda g, c=cov: _median_iqr(g[c]))
         if merged[cov].isna().any():
             rows.append({"characteristic": f"{name} missing, n", **counts("missing", False)})
-    return pd.DataFrame(rows)
+    table = pd.DataFrame(rows)
+    empty = [label for code, label in STATUS_GROUPS if code == 2 and sizes[label] == 0]
+    return table.drop(columns=empty)  # no empty competing-event column when the cohort has none
 
 
 def _label_of(column: str, labels: Mapping[str, str] | Callable[[str], str] | None) -> str:

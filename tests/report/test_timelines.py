@@ -1,5 +1,6 @@
 """Example timelines and the cohort flow read at a glance: labelled panels with units, one legend off the data
-naming only the endings shown, no empty competing-event box (the report's own conventions; no external source)."""
+naming only the endings shown, no empty competing-event box or column (the report's own conventions; no external
+source)."""
 
 from __future__ import annotations
 
@@ -45,3 +46,14 @@ def test_flow_without_competing_events_has_no_competing_box():
     assert "Competing event" not in set(table["step"]) and "Outcome" in set(table["step"])
     texts = [t.get_text() for t in flow_figure(table).axes[0].texts]
     assert not any("Competing" in t for t in texts)
+
+
+def test_baseline_table_has_no_competing_column_without_competing_events():
+    from riskbench.report.baseline_table import baseline_table
+
+    patients = pd.DataFrame({"patient_id": range(40), "end_days": [300.0] * 40, "end_status": [1] * 15 + [0] * 25})
+    covs = pd.DataFrame({"patient_id": range(40), "age_at_entry": [50.0 + i for i in range(40)]})
+    table = baseline_table(patients, covs, ["age_at_entry"], threshold=10)
+    assert list(table.columns) == ["characteristic", "Outcome", "Censored", "All"]
+    patients.loc[:11, "end_status"] = 2
+    assert "Competing event" in baseline_table(patients, covs, ["age_at_entry"], threshold=10).columns
