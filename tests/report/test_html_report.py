@@ -9,7 +9,7 @@ import matplotlib.pyplot as plt
 import pandas as pd
 
 from riskbench.report.html_report import SECTIONS, build_report
-from riskbench.report.outputs import save_figure, save_table
+from riskbench.report.outputs import atomic_write_text, save_figure, save_table
 from riskbench.report.render_check import check_report_renders
 
 
@@ -23,6 +23,8 @@ def _fake_run(run: Path, *, broken_png: bool = False) -> None:
                 files.png.write_bytes(b"not a png")
         for pattern in section.tables:
             save_table(pd.DataFrame({"what": ["a", "b"], "n": ["<10", "25"]}), run, pattern.replace("*", "_x"))
+        for name in section.texts:
+            atomic_write_text(run / "tables" / f"{name}.txt", "A paragraph.\n")
 
 
 def test_report_has_every_section_caution_and_embedded_figures(tmp_path):
