@@ -91,9 +91,10 @@ def _nested_test(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, 
 
     part = "likelihood-ratio test"
     pair = config.validation.compare
-    if pair is None:
-        return None
-    candidate, reference = (config.model(n) for n in pair)
+    models = {m.name: m for m in config.models}
+    if pair is None or not set(pair) <= set(models):  # no pair, or names that are not models (the
+        return None  # comparison stage says so)
+    candidate, reference = (models[n] for n in pair)
     why = None
     if {candidate.name, reference.name} & skip:
         why = "a model of the pair could not be fitted"
@@ -211,6 +212,8 @@ def study_facts(config: AnalysisConfig, patients: pd.DataFrame, stack: pd.DataFr
                                  prediction_kind(m.family, m.params, has_competing)))
     unmet = () if sample_size.empty else tuple(dict.fromkeys(sample_size.loc[sample_size["met"] == "no", "model"]))
     pair = config.validation.compare
+    if pair is not None and not set(pair) <= {m.name for m in config.models}:
+        pair = None  # the comparison names a model that is not configured: no comparison to describe
     return StudyFacts(
         n_patients=len(patients), n_outcomes=int((patients["end_status"] == 1).sum()),
         n_competing=int((patients["end_status"] == 2).sum()), n_censored=int((patients["end_status"] == 0).sum()),
