@@ -172,7 +172,7 @@ def methods_paragraphs(f: StudyFacts) -> list[str]:
                 + _list([format_duration(h) for h in f.report_horizons_days]) + " after the landmark.")
     models = " ".join(_model_sentence(m) for m in f.models)
     optimism = (f" Bootstrap validation uses {f.bootstrap_resamples} resamples of patients: apparent minus the mean "
-                "optimism for regression models, the .632+ estimate (Efron & Tibshirani 1997) for forests, whose "
+                "optimism for regression models, the out-of-bag estimate (Efron & Tibshirani 1997) for forests, whose "
                 "apparent performance is near perfect by construction."
                 if f.optimism and f.bootstrap_resamples > 0 else "")
     pair = (f" The candidate model '{f.candidate}' is compared with the reference '{f.reference}' on the same "

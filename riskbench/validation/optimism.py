@@ -18,9 +18,13 @@ gives the **.632+ estimate** (Efron & Tibshirani 1997, eq. 32), written for a lo
 
 Apparent-minus-optimism fails for a model that fits its training patients almost perfectly (a survival forest):
 the optimism measured on a bootstrap resample understates the real one, so the corrected value stays far above
-the cross-validated one. The .632+ weight w tends to 1 as the overfit R grows, so the estimate then follows the
-out-of-bag performance. :func:`validated_performance` chooses, per family, which estimate the report calls
-"validated" and says how it was obtained.
+the cross-validated one. :func:`validated_performance` chooses, per family, which estimate the report calls
+"validated" and says how it was obtained: for a forest the out-of-bag value. Measured on the demo generator
+(tests/validation/test_optimism_forest.py; 200 trees, 1500 and 3000 development patients, fresh cohorts of
+3000 and 4000): out-of-bag C 0.799 and 0.775, cross-validated 0.789 and 0.779, fresh cohort 0.832 and 0.780, .632+ 0.844 and
+0.824, apparent − optimism 0.899 and 0.896. The .632+ value keeps about a quarter of its weight on the
+near-perfect apparent C (R is only about 0.35 when the out-of-bag C is 0.8), so it sat 0.01 and 0.04 above the
+fresh C; the out-of-bag value agreed with cross-validation both times, and the fresh C lay between the two.
 
 References: Harrell FE, Lee KL, Mark DB (1996) Stat Med 15:361-387; Steyerberg EW, Harrell FE et al.
 (2001) J Clin Epidemiol 54:774-781; Efron B, Tibshirani R (1997) J Am Stat Assoc 92:548-560.
@@ -59,7 +63,7 @@ OPTIMISM_KEYS = ["spec", "metric", "horizon_days", "threshold"]
 #: Measures with a no-information value (a random ranking), for which the .632+ estimate is defined.
 NO_INFORMATION: dict[str, float] = {"harrell_c": 0.5, "uno_c": 0.5, "auc": 0.5}
 
-#: Families whose apparent performance is near perfect by construction: validated by .632+ / out-of-bag.
+#: Families whose apparent performance is near perfect by construction: validated out-of-bag.
 OVERFITTING_FAMILIES = ("forest",)
 
 
@@ -228,15 +232,12 @@ def bootstrap_optimism(specs: ModelSpec | Sequence[ModelSpec], source: TableSour
 def validated_performance(table: pd.DataFrame, families: Mapping[str, str]) -> pd.DataFrame:
     """The optimism table with the estimate the report calls validated: ``validated`` and ``obtained_by``.
 
-    A spec of a family in :data:`OVERFITTING_FAMILIES` (``families``: spec name -> family) gets the .632+
-    estimate where it is defined and the out-of-bag estimate for the other measures; every other spec gets
-    the optimism-corrected value (Harrell, Lee & Mark 1996).
+    A spec of a family in :data:`OVERFITTING_FAMILIES` (``families``: spec name -> family) gets the out-of-bag
+    estimate (module notes: why not .632+); every other spec gets the optimism-corrected value (Harrell, Lee &
+    Mark 1996).
     """
     out = table.copy()
     overfit = out["spec"].map(lambda name: families.get(name) in OVERFITTING_FAMILIES).to_numpy(bool)
-    has_632 = out["dot632_plus"].notna().to_numpy()
-    out["validated"] = np.where(overfit & has_632, out["dot632_plus"],
-                                np.where(overfit, out["out_of_bag"], out["corrected"]))
-    out["obtained_by"] = np.where(overfit & has_632, ".632+ bootstrap",
-                                  np.where(overfit, "out-of-bag bootstrap", "optimism-corrected bootstrap"))
+    out["validated"] = np.where(overfit, out["out_of_bag"], out["corrected"])
+    out["obtained_by"] = np.where(overfit, "out-of-bag bootstrap", "optimism-corrected bootstrap")
     return out

@@ -4,7 +4,7 @@ Writes ``data/cv_predictions.parquet`` (``row, model, horizon, risk, fold``: eve
 predicted by the models fitted without its patient) and the bootstrap-validation table
 ``tables/bootstrap_optimism.csv`` when the plan asks for it (``[validation] optimism`` and
 ``bootstrap_resamples`` > 0): per model, measure and horizon the apparent value, the ``validated`` one and how
-it was obtained (``obtained_by``: optimism-corrected for regression models, .632+ or out-of-bag for forests;
+it was obtained (``obtained_by``: optimism-corrected for regression models, out-of-bag for forests;
 :func:`riskbench.validation.optimism.validated_performance`), the optimism with its interval, the out-of-bag
 and .632+ values. Fewer than 200 resamples (common practice) leave a caution note.
 
@@ -233,8 +233,8 @@ def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: l
     result.tables["bootstrap_optimism"] = optimism.dropna(axis="columns", how="all")
     result.notes.append(
         f"Bootstrap validation from {n_boot} resamples of patients: optimism-corrected = apparent - mean optimism "
-        "(Harrell, Lee & Mark 1996) for regression models; .632+ (Efron & Tibshirani 1997) or out-of-bag for "
-        "forests, whose apparent performance is near perfect by construction.")
+        "(Harrell, Lee & Mark 1996) for regression models; out-of-bag (refits scored on the patients their "
+        "resample left out) for forests, whose apparent performance is near perfect by construction.")
     notes = failure_notes(outcome.failures, n_boot, "validation", "bootstrap optimism",
                           config.report.small_count_threshold)
     if n_boot < RECOMMENDED_RESAMPLES:
