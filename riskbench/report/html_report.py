@@ -74,9 +74,17 @@ SECTIONS: tuple[Section, ...] = (
             figures=("example_timelines",)),
     Section("hazard-ratios", "Hazard ratios",
             "Outcome hazard ratios with 95% intervals (cluster-robust by patient) of the models fitted on the "
-            "whole cohort. A term marked × (s/S) or × (s/S)² is the change of the log hazard ratio with the "
-            "landmark time s (S: the last landmark).",
-            figures=("hazard_ratios",), tables=("coefficients_*",)),
+            "whole cohort, per a step of each covariate stated in the column 'per': by default its interquartile "
+            "range over the landmark rows, 1 for a yes/no covariate, or the step set in [report] effect_units. "
+            "Where an effect changes with the landmark s, the table gives it at entry and the figure of β(s) "
+            "shows the hazard ratio per step against the landmark with its pointwise 95% band (delta method). "
+            "The coefficient tables list every term on the log scale; a term marked × landmark (s) or × landmark "
+            "squared (s²) is the change of the log hazard ratio with s/S (S: the last landmark) and has no hazard "
+            "ratio of its own. The likelihood-ratio test compares the fitted landmark form with the richer one "
+            "(or the richest with the simpler one), both refitted on the rows with every covariate known; it "
+            "treats a patient's landmark rows as independent, so read it as a guide to parsimony.",
+            figures=("hazard_ratios", "landmark_effects"),
+            tables=("hazard_ratios_*", "landmark_effect_forms", "coefficients_*")),
     Section("model-checks", "Proportional hazards and the nested likelihood-ratio test",
             "Grambsch-Therneau test of proportional hazards (scaled Schoenfeld residuals against 1 - Kaplan-Meier "
             "of time, model-based variance) for each Cox model's outcome part, refitted on the rows with every "
@@ -126,7 +134,16 @@ SECTIONS: tuple[Section, ...] = (
             figures=("decision_curve*",)),
     Section("comparison", "Comparison of the model sets",
             "Paired comparison of the candidate model against the reference on the same patients, with "
-            "intervals from resampling patients, and the optimism-corrected performance.",
+            "intervals from resampling patients, and the bootstrap-validated performance. Every performance "
+            "value says how it was obtained (column 'obtained_by'): apparent (the model scored on the patients it "
+            "was fitted on: optimistic), cross-validated (scored on the patients of each fold by a model fitted "
+            "without them, as in the discrimination table), optimism-corrected (apparent minus the mean optimism "
+            "over bootstrap resamples; used for regression models) or out-of-bag (refits scored on the patients "
+            "their resample left out; used for forests, which fit their training patients almost perfectly, so "
+            "that apparent minus optimism would stay far too high). The column .632+ (Efron & Tibshirani 1997) "
+            "weighs apparent and out-of-bag values; for a forest it still leans on the near-perfect apparent "
+            "value, so it is shown but not used. Cross-validated and out-of-bag values come from models fitted on "
+            "part of the patients and can be a little lower than those of the model fitted on all of them.",
             tables=("model_comparison", "bootstrap_optimism")),
     Section("triage", "Triage operating point",
             "The risk threshold below which patients could be spared a procedure, chosen for a high "

@@ -246,6 +246,7 @@ def _performance(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, h
             table = parts[0]
             for other in parts[1:]:
                 table = table.merge(other, on=["horizon_years", "metric"], how="outer", sort=False)
+            table.insert(2, "obtained_by", f"cross-validated ({config.validation.folds} folds grouped by patient)")
             result.tables["discrimination"] = table
 
 
