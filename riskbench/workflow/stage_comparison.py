@@ -115,7 +115,8 @@ def comparison_table(comparison: Comparison, reference: str, candidate: str) -> 
     for r in diff.itertuples(index=False):
         if r.metric not in COMPARISON_METRICS or not np.isnan(r.threshold):
             continue
-        row = {"metric": r.metric, "horizon_years": round(r.horizon_days / DAYS_PER_YEAR, 4)}
+        row = {"metric": r.metric, "horizon_years": round(r.horizon_days / DAYS_PER_YEAR, 4),
+               "obtained_by": "out-of-bag bootstrap (mean over resamples)"}
         for name in (reference, candidate):
             p = perf[(perf["spec"] == name) & (perf["metric"] == r.metric) & (perf["horizon_days"] == r.horizon_days)
                      & perf["threshold"].isna()]
