@@ -143,7 +143,8 @@ def performance_table(measures: pd.DataFrame) -> pd.DataFrame:
     rows = []
     for (model, landmark, horizon), group in measures.groupby(["model", "landmark_days", "horizon_days"],
                                                               sort=False, dropna=False):
-        row = {"model": model, "landmark": landmark_label(landmark), "horizon_years": horizon / DAYS_PER_YEAR}
+        row = {"model": model, "landmark": landmark_label(landmark), "horizon_years": horizon / DAYS_PER_YEAR,
+               "obtained_by": "cross-validated"}
         by = group.set_index("metric")
         for metric, heading in MEASURE_HEADINGS.items():
             row[heading] = (_interval_text(*by.loc[metric, ["estimate", "ci_low", "ci_high"]])
