@@ -37,7 +37,9 @@ def tiny(tmp_path_factory) -> tuple[Path, Path]:
     A [[models]] entry is stood in for by a namespace with its fields (name, covariates, family, params)."""
     folder = tmp_path_factory.mktemp("tiny")
     B.write_data(folder, 60)
-    config = B.write_config(folder)
+    # quadratic landmark effects (not the default): 21 coefficients for 7 covariates, so the fits break down
+    models = [dict(m, params={**m["params"], "landmark_effects": "quadratic"}) for m in B.DEFAULT_MODELS]
+    config = B.write_config(folder, models=models)
     run_dir = folder / "run"
     B.run_stages(config, run_dir, ("cohort",))
     with warnings.catch_warnings(record=True) as caught:
@@ -82,7 +84,7 @@ def test_the_engine_names_the_break_down_and_the_cause_specific_model(tiny):
     _, run_dir = tiny
     stack = pd.read_parquet(run_dir / "data" / "landmark_stack.parquet")
     with recorded_warnings(), pytest.raises(CoxNumericalError, match="broke down numerically") as info:
-        LandmarkSupermodel(B.IMAGING, baseline="stratified").fit(stack)
+        LandmarkSupermodel(B.IMAGING, baseline="stratified", landmark_effects="quadratic").fit(stack)
     assert info.value.cause == "competing event"
     assert str(info.value).startswith("competing event model: ")
     assert info.value.terms  # the coefficients that were running off
