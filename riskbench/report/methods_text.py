@@ -171,6 +171,11 @@ def methods_paragraphs(f: StudyFacts) -> list[str]:
                 "landmark rows in all, so most patients contribute several). Measures are reported at "
                 + _list([format_duration(h) for h in f.report_horizons_days]) + " after the landmark.")
     models = " ".join(_model_sentence(m) for m in f.models)
+    if any(m.parameters for m in f.models):
+        models += (" Hazard ratios are given per interquartile range of a predictor over the landmark rows (per 1 for "
+                   "a yes/no predictor) unless [report] effect_units sets another step; an effect that changes with "
+                   "the landmark is shown as a curve over the landmarks with pointwise 95% bands (delta method), and "
+                   "a likelihood-ratio test compares the chosen form of that change with the richer one.")
     optimism = (f" Bootstrap validation uses {f.bootstrap_resamples} resamples of patients: apparent minus the mean "
                 "optimism for regression models, the out-of-bag estimate (Efron & Tibshirani 1997) for forests, whose "
                 "apparent performance is near perfect by construction."
