@@ -14,7 +14,7 @@ from pydantic import AfterValidator, BaseModel, BeforeValidator, ConfigDict
 from riskbench.time_units import DurationError, format_duration, parse_duration
 
 #: Names of variables, statics, levels and models: file names and columns derive from them.
-NAME_PATTERN = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,39}$")
+NAME_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,39}")  # use fullmatch: "$" lets a final newline through
 NAME_RULE = ("a name of letters, digits and underscores that starts with a letter, at most 40 characters "
              "(^[A-Za-z][A-Za-z0-9_]{0,39}$)")
 #: Free text (labels, titles) is shown escaped; this only bounds its length.
@@ -29,7 +29,7 @@ class ConfigTable(BaseModel):
 
 def is_name(value: object) -> bool:
     """True when ``value`` is a safe name (:data:`NAME_PATTERN`)."""
-    return isinstance(value, str) and NAME_PATTERN.match(value) is not None
+    return isinstance(value, str) and NAME_PATTERN.fullmatch(value) is not None
 
 
 def _check_name(value: str) -> str:

@@ -25,7 +25,7 @@ TABLES = ("patients", "measurements", "outcomes")
 BUILTIN_STATIC = ("sex_male", "age_at_entry")
 STATIC_KINDS = ("numeric", "count", "categorical")
 #: Names of variables, statics and levels become column names: letters, digits and underscores.
-NAME_PATTERN = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,39}$")
+NAME_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,39}")  # use fullmatch: "$" lets a final newline through
 
 
 @dataclass(frozen=True)
@@ -141,7 +141,7 @@ class StaticSpec:
 
     def __post_init__(self) -> None:
         where = f"static {self.name!r}"
-        if not NAME_PATTERN.match(self.name):
+        if not NAME_PATTERN.fullmatch(self.name):
             raise SpecError(f"{where}: a name must be letters, digits and underscores (a letter first, at most "
                             "40 characters)")
         if self.kind not in STATIC_KINDS:
@@ -163,7 +163,7 @@ class StaticSpec:
             raise SpecError(f"{where}: a categorical static needs codes = {{ <source code> = \"<level>\", ... }}")
         upper: dict[str, str] = {}
         for code, level in self.codes.items():
-            if not NAME_PATTERN.match(str(level)):
+            if not NAME_PATTERN.fullmatch(str(level)):
                 raise SpecError(f"{where}: level {level!r} must be letters, digits and underscores (it names "
                                 "a column)")
             key = str(code).strip().upper()

@@ -89,7 +89,7 @@ def safe_file_stem(name: str, max_length: int = MAX_STEM) -> str:
     differ). ``"x/../../escaped"`` gives ``"x_escaped_<hash>"``.
     """
     name = str(name)
-    if _SAFE_STEM.match(name) and len(name) <= max_length:
+    if _SAFE_STEM.fullmatch(name) and len(name) <= max_length:  # fullmatch: "$" would let a final newline through
         return name
     digest = hashlib.sha256(name.encode("utf-8", "surrogatepass")).hexdigest()[:8]
     cleaned = _UNSAFE.sub("_", name).strip("_")[: max(max_length - 9, 1)].rstrip("_")

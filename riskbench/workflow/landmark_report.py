@@ -43,8 +43,9 @@ MEASURE_HEADINGS: dict[str, str] = {
     "scaled_brier": "scaled Brier (IPA)", "oe_ratio": "observed/expected",
 }
 
-POOLED_LABEL = ("all landmarks pooled (a patient counts at every landmark where at risk; the interval resamples "
-                "patients with all their landmark rows)")
+#: The pooled rows' landmark cell; the section text says that a patient counts at every landmark where at risk
+#: and that the intervals resample patients with all their landmark rows.
+POOLED_LABEL = "all landmarks pooled"
 
 #: Number of thresholds on a decision curve.
 DECISION_POINTS = 50

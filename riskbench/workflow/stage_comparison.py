@@ -210,8 +210,8 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
         run_dir, title=config.report.title, threshold=threshold,
         facts=[("riskbench", __version__), ("configuration", config.path.name if config.path else "(in memory)"),
                ("seed", str(config.seed)), ("validation seed", str(config.validation.seed)),
-               ("landmarks (years)", ", ".join(f"{s:g}" for s in config.landmarks.landmarks_years)),
-               ("horizon (years)", f"{config.landmarks.horizon_years:g}"),
+               ("landmarks", ", ".join(format_duration(s) for s in config.landmarks.landmarks_days)),
+               ("prediction window", format_duration(config.landmarks.horizon_days)),
                ("data sent off this machine", execution_statement(config.execution))],
     )
     result.notes.append(f"Report written to {run_dir / 'report.html'}.")

@@ -360,6 +360,8 @@ CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
      ("[report] effect_units", "expected steps > 0", "'iqr' or 'sd'")),
     ("hazard-ratio step for no covariate", _add(["report", "effect_units"], {"age_at_entr": 10}),
      ("[report] effect_units names 'age_at_entr'", "did you mean 'age_at_entry'?")),
+    ("model name with a final line break", _model(0, name="clinical\n"),
+     ("[[models]] #1", "name", "letters, digits")),
     ("no time-varying variable", lambda d, f: (d["cohort"].pop("variables"), d["cohort"].pop("exam_variables"),
                                                d["models"][1].update(covariates=["age_at_entry"])),
      ("[cohort.variables] is empty", "at least one variable")),
