@@ -6,15 +6,14 @@ coerced (``"5"`` is not an integer, ``1`` is not ``true``) and ``nan``/``inf`` a
 
 from __future__ import annotations
 
-import re
 from typing import Annotated, Any
 
 from pydantic import AfterValidator, BaseModel, BeforeValidator, ConfigDict
 
+from riskbench.cohort.spec import NAME_PATTERN  # the one definition of a safe name
 from riskbench.time_units import DurationError, format_duration, parse_duration
 
 #: Names of variables, statics, levels and models: file names and columns derive from them.
-NAME_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,39}")  # use fullmatch: "$" lets a final newline through
 NAME_RULE = ("a name of letters, digits and underscores that starts with a letter, at most 40 characters "
              "(^[A-Za-z][A-Za-z0-9_]{0,39}$)")
 #: Free text (labels, titles) is shown escaped; this only bounds its length.

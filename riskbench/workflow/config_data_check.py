@@ -281,19 +281,30 @@ def _variable_problems(t: _Table, cohort: Any) -> list[Problem]:
     return out
 
 
-def _follow_up(patients: _Table, outcomes: _Table, kind_map: dict) -> pd.DataFrame | None:
-    """Per patient with an entry and an outcome row: ``days`` from entry to the last outcome date and
-    ``event`` (an outcome row of kind outcome, after kind_map). Full files, a few columns each."""
+def _entry_dates(patients: _Table) -> pd.Series | None:
+    """Every row of the patients file: its parsed entry date, indexed by the trimmed patient id (repeated ids
+    kept). The full file is read once, two columns only; None when it cannot be read."""
     try:
         p = _read(Path(patients.source.path), getattr(patients.source, "encoding", "utf-8"), None,
                   [patients.ours("patient_id"), patients.ours("entry_date")])
+    except (ValueError, OSError, KeyError):
+        return None
+    return pd.Series(_parse(p.iloc[:, 1], patients.source.date_format).to_numpy(),
+                     index=p.iloc[:, 0].astype(str).str.strip())
+
+
+def _follow_up(entries: pd.Series | None, outcomes: _Table, kind_map: dict) -> pd.DataFrame | None:
+    """Per patient with an entry and an outcome row: ``days`` from entry to the last outcome date and
+    ``event`` (an outcome row of kind outcome, after kind_map). ``entries`` from :func:`_entry_dates`; the
+    outcomes file is read in full, three columns."""
+    if entries is None:
+        return None
+    try:
         o = _read(Path(outcomes.source.path), getattr(outcomes.source, "encoding", "utf-8"), None,
                   [outcomes.ours("patient_id"), outcomes.ours("date"), outcomes.ours("kind")])
     except (ValueError, OSError, KeyError):
         return None
-    entry = pd.Series(_parse(p.iloc[:, 1], patients.source.date_format).to_numpy(),
-                      index=p.iloc[:, 0].astype(str).str.strip())
-    entry = entry[~entry.index.duplicated(keep=False)].dropna()
+    entry = entries[~entries.index.duplicated(keep=False)].dropna()
     rows = pd.DataFrame({"patient_id": o.iloc[:, 0].astype(str).str.strip().to_numpy(),
                          "end": _parse(o.iloc[:, 1], outcomes.source.date_format).to_numpy(),
                          "kind": o.iloc[:, 2].astype(str).str.strip().map(lambda k: kind_map.get(k, k)).to_numpy()})
@@ -302,16 +313,6 @@ def _follow_up(patients: _Table, outcomes: _Table, kind_map: dict) -> pd.DataFra
     per = per[per.index.isin(entry.index)]
     per["days"] = (per["end"] - entry.reindex(per.index)).dt.total_seconds() / 86400.0
     return per[per["days"] > 0]
-
-
-def _patient_ids(patients: _Table) -> set[str] | None:
-    """Every patient id of the patients file (trimmed text), or None when the column cannot be read."""
-    try:
-        full = _read(Path(patients.source.path), getattr(patients.source, "encoding", "utf-8"), None,
-                     [patients.ours("patient_id")])
-    except (ValueError, OSError, KeyError):
-        return None
-    return set(full.iloc[:, 0].astype(str).str.strip())
 
 
 def _id_hint(unknown: pd.Series, known: set[str]) -> str:
@@ -329,13 +330,13 @@ def _id_hint(unknown: pd.Series, known: set[str]) -> str:
     return ""
 
 
-def _id_problems(patients: _Table, others: tuple[_Table, ...]) -> list[Problem]:
+def _id_problems(entries: pd.Series | None, others: tuple[_Table, ...]) -> list[Problem]:
     """Patient ids of the measurements and outcomes samples that the patients file does not know: most of
     them (a wrong column or a different spelling of the ids) is an error, a few a warning (the ledger
     excludes those rows as unknown patients)."""
-    known = _patient_ids(patients)
-    if not known:
+    if entries is None or entries.empty:
         return []
+    known = set(entries.index)
     out = []
     for t in others:
         if t.sample is None or "patient_id" not in t.sample.columns:
@@ -397,16 +398,12 @@ def _event_problems(config: Any, follow_up: pd.DataFrame, path: Path) -> list[Pr
     return out
 
 
-def _visit_days(patients: _Table, measurements: _Table) -> tuple[tuple[float, ...], int]:
+def _visit_days(entries: pd.Series | None, measurements: _Table) -> tuple[tuple[float, ...], int]:
     """Common measurement days since entry in the sample, and the number of sampled measurements used."""
-    m, p = measurements.sample, patients.sample
-    if m is None or p is None or "date" not in m.columns or "patient_id" not in m.columns:
+    m = measurements.sample
+    if entries is None or m is None or "date" not in m.columns or "patient_id" not in m.columns:
         return (), 0
-    full = _read(Path(patients.source.path), getattr(patients.source, "encoding", "utf-8"), None,
-                 [patients.ours("patient_id"), patients.ours("entry_date")])
-    entry = pd.Series(_parse(full.iloc[:, 1], patients.source.date_format).to_numpy(),
-                      index=full.iloc[:, 0].astype(str).str.strip())
-    entry = entry[~entry.index.duplicated(keep=False)]
+    entry = entries[~entries.index.duplicated(keep=False)]
     when = _parse(m["date"], measurements.source.date_format)
     start = entry.reindex(m["patient_id"].astype(str).str.strip()).to_numpy()
     days = pd.Series((when.to_numpy() - start) / np.timedelta64(1, "D")).dropna().round()
@@ -463,14 +460,15 @@ def check_analysis(config: Any) -> list[Problem]:
     problems += _variable_problems(tables["measurements"], config.cohort)
     problems += _static_value_problems(tables["patients"], config.cohort)
     problems += _unit_problems(tables["measurements"], config.cohort)
-    problems += _id_problems(tables["patients"], (tables["measurements"], tables["outcomes"]))
+    entries = _entry_dates(tables["patients"])  # the patients file read once for the checks below
+    problems += _id_problems(entries, (tables["measurements"], tables["outcomes"]))
     if any(p.is_error for p in problems):
         return problems
-    follow_up = _follow_up(tables["patients"], tables["outcomes"], dict(config.cohort.kind_map))
+    follow_up = _follow_up(entries, tables["outcomes"], dict(config.cohort.kind_map))
     if follow_up is not None:
         problems += _landmark_problems(config, follow_up)
         problems += _event_problems(config, follow_up, config.sources.outcomes.path)
-    visits, _ = _visit_days(tables["patients"], tables["measurements"])
+    visits, _ = _visit_days(entries, tables["measurements"])
     problems += _visit_warnings(config, visits)
     problems += carry_forward_warnings(config, visits)  # entry (day 0) is checked with the file
     return _unique(problems)
