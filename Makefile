@@ -1,11 +1,11 @@
-# Two commands a new user needs: `make demo` and `make test`.
+# Two commands a new user needs: `make demo` and `make test` (`make check` runs the linter and type checker).
 # Each creates .venv with python3 when missing and installs the project from its own files.
 PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test lab setup clean benchmarks
+.PHONY: demo test check lab setup clean benchmarks
 
 $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
@@ -17,6 +17,12 @@ setup: $(STAMP)
 
 test: $(STAMP)
 	$(BIN)/python -m pytest
+
+# Lint, format check and type check (configuration in pyproject.toml); about 10 s, run by .ci/run before the tests.
+check: $(STAMP)
+	$(BIN)/ruff check riskbench tests
+	$(BIN)/ruff format --check riskbench tests
+	$(BIN)/mypy riskbench
 
 # The whole analysis of configs/demo.toml on the committed demo cohort; the last line printed is the report.
 demo: $(STAMP)
