@@ -10,7 +10,7 @@ from riskbench.demo.generator import (
     SyntheticCohort,
     generate_cohort,
 )
-from riskbench.demo.parameters import COVARIATES, TRUE_COEFFICIENTS, GeneratorParameters
+from riskbench.demo.parameters import COVARIATES, TRUE_COEFFICIENTS, CohortShift, GeneratorParameters
 from riskbench.demo.storage import read_tables, write_cohort
 
 __all__ = [
@@ -20,6 +20,7 @@ __all__ = [
     "GENERATOR_VERSION",
     "TRUE_COEFFICIENTS",
     "VARIANTS",
+    "CohortShift",
     "CohortTruth",
     "DemoParameterError",
     "GeneratorParameters",

@@ -6,14 +6,22 @@ import argparse
 from pathlib import Path
 
 from riskbench.demo.generator import DEFAULT_RISK_PATHS, VARIANTS, generate_cohort
+from riskbench.demo.parameters import CohortShift
 from riskbench.demo.storage import read_tables, write_cohort
 
 
 def _simulate(args: argparse.Namespace) -> int:
-    cohort = generate_cohort(args.patients, args.seed, args.variant, n_risk_paths=args.risk_paths)
+    shift = CohortShift(
+        outcome_hazard_multiplier=args.hazard_multiplier,
+        age_shift_years=args.age_shift,
+        pack_years_multiplier=args.pack_years_multiplier,
+        log_volume_shift=args.volume_shift,
+    )
+    cohort = generate_cohort(args.patients, args.seed, args.variant, n_risk_paths=args.risk_paths, shift=shift)
     folder = write_cohort(cohort, args.out)
+    shifted = "" if shift.is_identity else " (shifted population)"
     print(
-        f"wrote {args.variant} cohort of {len(cohort.patients)} patient rows, {len(cohort.measurements)} "
+        f"wrote {args.variant}{shifted} cohort of {len(cohort.patients)} patient rows, {len(cohort.measurements)} "
         f"measurement rows, {len(cohort.outcomes)} outcome rows to {folder}"
     )
     return 0
@@ -50,6 +58,16 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help=f"Monte Carlo futures per patient and landmark for the true risk; 0 skips it "
         f"(default {DEFAULT_RISK_PATHS})",
     )
+    shift = sim.add_argument_group(
+        "population shift", "simulate another site or a later period (defaults: the demo population unchanged)"
+    )
+    shift.add_argument("--hazard-multiplier", type=float, default=1.0,
+                       help="factor on the outcome's baseline hazard (default 1)")
+    shift.add_argument("--age-shift", type=float, default=0.0, help="years added to the mean age at entry (default 0)")
+    shift.add_argument("--pack-years-multiplier", type=float, default=1.0,
+                       help="factor on smokers' pack-years (default 1)")
+    shift.add_argument("--volume-shift", type=float, default=0.0,
+                       help="added to the mean ln nodule volume at entry, ln mm3 (default 0)")
     sim.set_defaults(handler=_simulate)
 
     summ = subparsers.add_parser(

@@ -8,8 +8,6 @@ The data-generating process is described in :mod:`riskbench.demo.simulate` (step
 
 from __future__ import annotations
 
-from riskbench.errors import RiskbenchError
-
 import numbers
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -19,9 +17,10 @@ import numpy as np
 import pandas as pd
 
 from riskbench.demo.oracle import oracle_risk
-from riskbench.demo.parameters import COVARIATES, DAYS_PER_YEAR, GeneratorParameters
+from riskbench.demo.parameters import COVARIATES, DAYS_PER_YEAR, CohortShift, GeneratorParameters
 from riskbench.demo.simulate import simulate_process
 from riskbench.demo.tables import build_tables, patient_ids
+from riskbench.errors import RiskbenchError
 
 GENERATOR_VERSION = "1.0"
 VARIANTS: tuple[str, ...] = ("clean", "messy")
@@ -55,6 +54,8 @@ class CohortTruth:
         in (landmark, landmark + horizon] with death competing, Monte Carlo standard error).
     landmarks_days, horizon_days, n_risk_paths
         Settings of the oracle risk.
+    shift : CohortShift or None
+        The population shift applied to the default process (None: none); ``parameters`` already include it.
     """
 
     parameters: GeneratorParameters
@@ -65,6 +66,7 @@ class CohortTruth:
     landmarks_days: tuple[float, ...]
     horizon_days: float
     n_risk_paths: int
+    shift: CohortShift | None = None
 
     @property
     def coefficients(self) -> dict[str, float]:
@@ -73,7 +75,7 @@ class CohortTruth:
     def to_json_dict(self) -> dict[str, Any]:
         """Contents of ``truth.json``."""
         p = self.parameters
-        return {
+        out: dict[str, Any] = {
             "generator_version": self.generator_version,
             "seed": self.seed,
             "coefficients": self.coefficients,
@@ -108,6 +110,9 @@ class CohortTruth:
             },
             "parameters": p.to_dict(),
         }
+        if self.shift is not None:
+            out["population_shift"] = self.shift.to_dict()
+        return out
 
 
 @dataclass(frozen=True)
@@ -168,6 +173,7 @@ def generate_cohort(
     horizon_days: float = DEFAULT_HORIZON_DAYS,
     n_risk_paths: int = DEFAULT_RISK_PATHS,
     parameters: GeneratorParameters | None = None,
+    shift: CohortShift | None = None,
 ) -> SyntheticCohort:
     """Simulate a lung-nodule surveillance cohort with a known truth.
 
@@ -188,6 +194,9 @@ def generate_cohort(
         Monte Carlo futures per patient and landmark for the true risk; 0 skips it.
     parameters : GeneratorParameters, optional
         Constants of the data-generating process (default: the documented demo values).
+    shift : CohortShift, optional
+        Another population: baseline outcome hazard scaled and case mix moved (applied to ``parameters``).
+        None or a shift that changes nothing gives exactly the cohort without it.
 
     Returns
     -------
@@ -197,6 +206,10 @@ def generate_cohort(
         n_patients, seed, variant, landmarks_days, horizon_days, n_risk_paths
     )
     p = parameters if parameters is not None else GeneratorParameters()
+    if shift is not None and shift.is_identity:
+        shift = None
+    if shift is not None:
+        p = shift.apply(p)
     process_seed, oracle_seed, defect_seed = np.random.SeedSequence(seed).spawn(3)
     sim = simulate_process(n, p, np.random.default_rng(process_seed))
     ids = patient_ids(n)
@@ -227,5 +240,5 @@ def generate_cohort(
             [pd.DataFrame({"patient_id": ids[risk["patient_index"].to_numpy()]}), risk.drop(columns="patient_index")],
             axis=1,
         )
-    truth = CohortTruth(p, seed, GENERATOR_VERSION, intervals, true_risk, marks, horizon, paths)
+    truth = CohortTruth(p, seed, GENERATOR_VERSION, intervals, true_risk, marks, horizon, paths, shift)
     return SyntheticCohort(patients, measurements, outcomes, variant, seed, {}, truth)

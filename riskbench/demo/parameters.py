@@ -147,3 +147,64 @@ class GeneratorParameters:
         out = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
         out["coefficients"] = dict(self.coefficients)
         return out
+
+
+@dataclass(frozen=True)
+class CohortShift:
+    """A second population: the outcome's baseline hazard scaled and the case mix moved.
+
+    Used to simulate another site or a later period for external validation and model updating. The defaults
+    change nothing (:meth:`apply` then returns the parameters unchanged, so the cohort is bit-identical).
+
+    Attributes
+    ----------
+    outcome_hazard_multiplier : float
+        Factor on the outcome's baseline hazard (``weibull_rho``); > 0. Covariate effects are unchanged, so a
+        model developed without the shift under-predicts by about this factor where risks are small.
+    age_shift_years : float
+        Years added to the mean age at entry (ages stay within ``age_min`` .. ``age_max``).
+    pack_years_multiplier : float
+        Factor on the scale of smokers' pack-years (> 0).
+    log_volume_shift : float
+        Added to the mean ln nodule volume at entry (ln mm3; 0.35 is about 40% larger volumes). The suspicion
+        score is drawn relative to the shifted mean, so it does not move with the volume.
+    """
+
+    outcome_hazard_multiplier: float = 1.0
+    age_shift_years: float = 0.0
+    pack_years_multiplier: float = 1.0
+    log_volume_shift: float = 0.0
+
+    def __post_init__(self) -> None:
+        import math
+
+        from riskbench.errors import RiskbenchError
+
+        for name in ("outcome_hazard_multiplier", "pack_years_multiplier"):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+                raise RiskbenchError(f"{name} must be a finite number > 0, got {value!r}")
+        for name in ("age_shift_years", "log_volume_shift"):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and math.isfinite(value)):
+                raise RiskbenchError(f"{name} must be a finite number, got {value!r}")
+
+    @property
+    def is_identity(self) -> bool:
+        """True when the shift changes nothing."""
+        return self == CohortShift()
+
+    def apply(self, parameters: GeneratorParameters) -> GeneratorParameters:
+        """The generator parameters of the shifted population (the same object when nothing is shifted)."""
+        if self.is_identity:
+            return parameters
+        return parameters.replace(
+            weibull_rho=parameters.weibull_rho * self.outcome_hazard_multiplier,
+            age_mean=parameters.age_mean + self.age_shift_years,
+            pack_years_scale=parameters.pack_years_scale * self.pack_years_multiplier,
+            log_volume_mean=parameters.log_volume_mean + self.log_volume_shift,
+        )
+
+    def to_dict(self) -> dict[str, float]:
+        """Plain-JSON form (for ``truth.json``)."""
+        return {f.name: float(getattr(self, f.name)) for f in dataclasses.fields(self)}
