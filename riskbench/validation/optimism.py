@@ -21,8 +21,8 @@ the optimism measured on a bootstrap resample understates the real one, so the c
 the cross-validated one. :func:`validated_performance` chooses, per family, which estimate the report calls
 "validated" and says how it was obtained: for a forest the out-of-bag value. Measured on the demo generator
 (tests/validation/test_optimism_forest.py; 200 trees, 1500 and 3000 development patients, fresh cohorts of
-3000 and 4000): out-of-bag C 0.799 and 0.775, cross-validated 0.789 and 0.779, fresh cohort 0.832 and 0.780, .632+ 0.844 and
-0.824, apparent − optimism 0.899 and 0.896. The .632+ value keeps about a quarter of its weight on the
+3000 and 4000): out-of-bag C 0.799 and 0.775, cross-validated 0.789 and 0.779, fresh cohort 0.832 and 0.780,
+.632+ 0.844 and 0.824, apparent − optimism 0.899 and 0.896. The .632+ value keeps about a quarter of its weight on the
 near-perfect apparent C (R is only about 0.35 when the out-of-bag C is 0.8), so it sat 0.01 and 0.04 above the
 fresh C; the out-of-bag value agreed with cross-validation both times, and the fresh C lay between the two.
 
@@ -48,6 +48,7 @@ from riskbench.validation.comparison import (
     failed_replicate,
     fit_all_recorded,
     replicate_problems,
+    resampling_source,
     tagged_replicate,
 )
 from riskbench.validation.errors import ValidationInputError
@@ -204,7 +205,7 @@ def bootstrap_optimism_result(
     hs = check_horizons(horizons, full.landmark_stack)
     plan = Evaluation.build(specs, hs, pairs=(), thresholds=thresholds)
     apparent, _ = plan.run(fit_all(specs, full, seed), full.landmark_stack)
-    job = _OptimismJob(evaluation=plan, source=source)
+    job = _OptimismJob(evaluation=plan, source=resampling_source(source, specs))
     results = run_replicates(_optimism_replicate, job, seed, n_boot, config, description="bootstrap optimism")
     reps, _, n_failed = collect_replicates(results)
     summary = percentile_summary(reps, OPTIMISM_KEYS, level=level).rename(
