@@ -7,6 +7,7 @@ import tomllib
 from pathlib import Path
 
 from riskbench.cohort.cohort import build_cohort
+from riskbench.cohort.config_schema import read_cohort, read_sources
 from riskbench.cohort.errors import SpecError
 from riskbench.cohort.landmark import landmark_grid
 from riskbench.cohort.sources import SourceSpec
@@ -44,7 +45,7 @@ def read_config_sections(path: Path) -> tuple[SourceSpec, CohortSpec]:
     for section in ("sources", "cohort"):
         if section not in data:
             raise SpecError(f"{path}: the configuration has no [{section}] section")
-    return SourceSpec.from_dict(data["sources"], path.resolve().parent), CohortSpec.from_dict(data["cohort"])
+    return read_sources(data["sources"], path.resolve().parent), read_cohort(data["cohort"])
 
 
 def run(args: argparse.Namespace) -> int:
@@ -61,7 +62,7 @@ def run(args: argparse.Namespace) -> int:
     print("Cohort flow (rows per source table)")
     print(shown[["label", "excluded", "remaining"]].to_string(index=False))
     top = cohort.top_exclusions(args.top)
-    print(f"\nTop exclusion reasons")
+    print("\nTop exclusion reasons")
     print("none" if top.empty else top.to_string(index=False))
     print("\nWrote " + ", ".join(str(p) for p in paths.values()))
     return 0

@@ -19,6 +19,9 @@ from typing import Any, Literal
 
 from pydantic import Field, ValidationError, field_validator, model_validator
 
+from riskbench.cohort.errors import SpecError
+from riskbench.cohort.sources import SourceSpec, TableSource
+from riskbench.cohort.spec import CohortSpec, StaticSpec, VariableSpec
 from riskbench.config_problems import Problem, default_where, did_you_mean, problem, schema_problems, show
 from riskbench.config_types import (
     NAME_RULE,
@@ -30,7 +33,6 @@ from riskbench.config_types import (
     is_name,
     readable_duration,
 )
-from riskbench.cohort.errors import SpecError
 from riskbench.time_units import DAYS_PER_YEAR
 
 ENCODINGS = ("utf-8", "utf-8-sig", "latin-1", "cp1252", "utf-16")
@@ -246,19 +248,15 @@ def construct(cls: type, **kwargs: Any) -> Any:
 
 
 def _static_spec(name: str, s: StaticSection) -> Any:
-    from riskbench.cohort import spec as cohort_spec
-
     lo, hi = s.range if s.range is not None else (None, None)
     return construct(
-        cohort_spec.StaticSpec, name=name, column=s.column,
+        StaticSpec, name=name, column=s.column,
         kind=s.kind or ("categorical" if s.codes else "numeric"), plausible_min=lo, plausible_max=hi,
         codes=dict(s.codes), reference=s.reference, label=s.label, unit=s.unit)
 
 
-def build_cohort_spec(section: CohortSection) -> Any:
+def build_cohort_spec(section: CohortSection) -> CohortSpec:
     """The :class:`~riskbench.cohort.spec.CohortSpec` of a checked [cohort] section."""
-    from riskbench.cohort.spec import CohortSpec, VariableSpec
-
     variables = tuple(
         construct(VariableSpec, name=name, unit=v.unit, conversions=dict(v.conversions),
                   plausible_min=v.range[0] if v.range else None, plausible_max=v.range[1] if v.range else None,
@@ -298,10 +296,8 @@ def _resolve(path: str, base_dir: Path) -> Path:
     return p if p.is_absolute() else Path(base_dir) / p
 
 
-def build_source_spec(section: SourcesSection, base_dir: Path) -> Any:
+def build_source_spec(section: SourcesSection, base_dir: Path) -> SourceSpec:
     """The :class:`~riskbench.cohort.sources.SourceSpec` of a checked [sources] section."""
-    from riskbench.cohort.sources import SourceSpec, TableSource
-
     def table(name: str) -> Any:
         src: TableSection = getattr(section, name)
         return construct(TableSource, path=_resolve(src.path, base_dir), columns=dict(src.columns),
@@ -351,14 +347,14 @@ def _raise(problems: list[Problem]) -> None:
         raise SpecError("; ".join(p.message for p in problems))
 
 
-def read_sources(data: Any, base_dir: str | Path) -> Any:
+def read_sources(data: Any, base_dir: str | Path) -> SourceSpec:
     """A :class:`~riskbench.cohort.sources.SourceSpec` from ``[sources]``, or SpecError naming every problem."""
     spec, problems = check_sources(data, Path(base_dir))
     _raise(problems)
     return spec
 
 
-def read_cohort(data: Any) -> Any:
+def read_cohort(data: Any) -> CohortSpec:
     """A :class:`~riskbench.cohort.spec.CohortSpec` from ``[cohort]``, or SpecError naming every problem."""
     spec, problems = check_cohort(data, [])
     _raise(problems)

@@ -18,8 +18,16 @@ import numpy as np
 import pyarrow as pa
 
 from riskbench.cohort.errors import CohortInputError
-from riskbench.cohort.reading import (LoadedTable, blank, days_between, number_expr, quote, sql_text,
-                                     timestamp_expr, trimmed_expr)
+from riskbench.cohort.reading import (
+    LoadedTable,
+    blank,
+    days_between,
+    number_expr,
+    quote,
+    sql_text,
+    timestamp_expr,
+    trimmed_expr,
+)
 from riskbench.cohort.reasons import RowState as S
 from riskbench.cohort.spec import CohortSpec
 from riskbench.cohort.statics import STATIC_STATES, static_table

@@ -23,7 +23,6 @@ import codecs
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
 from riskbench.cohort.errors import SpecError
 
@@ -80,14 +79,3 @@ class SourceSpec:
     patients: TableSource
     measurements: TableSource
     outcomes: TableSource
-
-    @classmethod
-    def from_dict(cls, mapping: Mapping[str, Any], base_dir: str | Path) -> SourceSpec:
-        """Parse the ``[sources]`` section; relative paths are resolved against ``base_dir``.
-
-        Unknown keys and wrong types raise :class:`~riskbench.cohort.errors.SpecError` naming the key,
-        the value and what is allowed. A missing file is reported with its resolved path.
-        """
-        from riskbench.cohort.config_schema import read_sources
-
-        return read_sources(mapping, base_dir)

@@ -1,7 +1,8 @@
 """What the cohort stage should build: variables, units, plausible ranges, carry-forward and look-back rules.
 
-A :class:`CohortSpec` is the ``[cohort]`` section of the analysis configuration; ``CohortSpec.from_dict``
-parses it with the schema of :mod:`riskbench.cohort.config_schema`. Durations are days inside the library;
+A :class:`CohortSpec` is the ``[cohort]`` section of the analysis configuration;
+:func:`riskbench.cohort.config_schema.read_cohort` parses it (the schema depends on this module, not the
+reverse). Durations are days inside the library;
 the configuration writes them as texts with a unit (``max_carry = "3 years"``).
 """
 
@@ -11,7 +12,6 @@ import math
 import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any
 
 from riskbench.cohort.errors import SpecError
 from riskbench.time_units import DAYS_PER_YEAR
@@ -385,17 +385,6 @@ class CohortSpec:
                     return f"{words}: {level.replace('_', ' ')} (vs {s.reference.replace('_', ' ')})"
         raise KeyError(f"{column!r} is not a covariate column of this cohort; its columns are "
                        f"{list(self.covariate_columns)}")
-
-    @classmethod
-    def from_dict(cls, mapping: Mapping[str, Any]) -> CohortSpec:
-        """Parse the ``[cohort]`` section of an analysis configuration (schema: :mod:`riskbench.cohort.config_schema`).
-
-        Every problem (unknown keys, wrong types, values out of range) is reported at once in one
-        :class:`~riskbench.cohort.errors.SpecError`, each naming the key, the value and what is allowed.
-        """
-        from riskbench.cohort.config_schema import read_cohort
-
-        return read_cohort(mapping)
 
 
 def _with_unit(text: str, unit: str) -> str:

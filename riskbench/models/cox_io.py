@@ -1,15 +1,18 @@
-"""Save and load a fitted :class:`~riskbench.models.cox_model.CoxModel` as JSON.
+"""The JSON file of a fitted :class:`~riskbench.models.cox_model.CoxModel` (written by its ``to_json``).
 
 The file holds everything prediction needs and everything a reader needs to judge the model:
 constructor parameters (covariate spec), coefficients, model-based and robust covariance, the
 centring and scaling used inside the fit, the baseline cumulative hazard per stratum (days), the
 likelihood tests, and the package versions that produced it.  Floats are written with ``repr``
 precision, so a round trip reproduces predictions exactly.
+
+This module knows the fit (:class:`~riskbench.models.cox_engine.CoxFit`) and the file, not the model class:
+``CoxModel.to_json`` / ``CoxModel.from_json`` call it, so the dependency runs one way.
 """
 
 from __future__ import annotations
 
-from dataclasses import fields
+from dataclasses import dataclass, fields
 from pathlib import Path
 from typing import Any
 
@@ -20,7 +23,7 @@ from riskbench.models.cox_engine import CoxFit, LikelihoodTest
 from riskbench.models.model_file import read_model_file, write_model_file
 from riskbench.models.risk_contract import ModelInputError
 
-__all__ = ["FORMAT", "load_cox_model", "save_cox_model"]
+__all__ = ["FORMAT", "SavedCox", "read_cox_file", "save_cox_model"]
 
 FORMAT = "riskbench.cox_model"
 FORMAT_VERSION = 1
@@ -54,16 +57,25 @@ def _test(d: dict[str, Any] | None) -> LikelihoodTest | None:
     return None if d is None else LikelihoodTest(float(d["statistic"]), int(d["df"]), float(d["p_value"]))
 
 
-def load_cox_model(path: str | Path) -> Any:
-    """Read a ``CoxModel`` written by :func:`save_cox_model`.
+@dataclass(frozen=True)
+class SavedCox:
+    """What a Cox model file holds: constructor ``params``, the ``fit``, its ``time_scale`` and the ``versions``
+    of the packages that wrote it."""
+
+    params: dict[str, Any]
+    fit: CoxFit
+    time_scale: str
+    versions: dict[str, str]
+
+
+def read_cox_file(path: str | Path) -> SavedCox:
+    """Read a file written by :func:`save_cox_model` (``CoxModel.from_json`` builds the model from it).
 
     Raises
     ------
     ModelInputError
         If the file is not a riskbench Cox model or has a newer format version.
     """
-    from riskbench.models.cox_model import CoxModel
-
     doc = read_model_file(path, FORMAT, FORMAT_VERSION, "Cox model")
     raw = doc["fit"]
     arrays = {"coef", "var", "robust_var", "center", "scale"}
@@ -80,7 +92,5 @@ def load_cox_model(path: str | Path) -> Any:
         elif f.name in ("names", "strata_levels"):
             v = tuple(v)
         values[f.name] = v
-    model = CoxModel(**doc["params"])
-    model._set_fitted(CoxFit(**values), doc.get("time_scale", "since_entry"))
-    model.saved_versions_ = doc.get("versions", {})
-    return model
+    return SavedCox(params=doc["params"], fit=CoxFit(**values), time_scale=doc.get("time_scale", "since_entry"),
+                    versions=doc.get("versions", {}))

@@ -22,6 +22,7 @@ from scipy import stats
 from sklearn.base import BaseEstimator
 
 from riskbench.models.cox_engine import CoxFit, fit_cox
+from riskbench.models.cox_io import read_cox_file, save_cox_model
 from riskbench.models.risk_contract import (
     ModelInputError,
     check_covariates,
@@ -245,13 +246,13 @@ class CoxModel(BaseEstimator):
 
     def to_json(self, path: str | Path) -> Path:
         """Write the fitted model (coefficients, variances, baseline, scaling, spec, versions) as JSON."""
-        from riskbench.models.cox_io import save_cox_model
-
         return save_cox_model(self, path)
 
     @classmethod
     def from_json(cls, path: str | Path) -> CoxModel:
         """Read a model written by :meth:`to_json`."""
-        from riskbench.models.cox_io import load_cox_model
-
-        return load_cox_model(path)
+        saved = read_cox_file(path)
+        model = cls(**saved.params)
+        model._set_fitted(saved.fit, saved.time_scale)
+        model.saved_versions_ = saved.versions
+        return model

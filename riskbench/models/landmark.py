@@ -44,6 +44,7 @@ from numpy.typing import ArrayLike
 from sklearn.base import BaseEstimator
 
 from riskbench.models.cox_engine import CoxInputError, fit_cox
+from riskbench.models.landmark_io import read_landmark_file, save_landmark_model
 from riskbench.models.risk_contract import (
     ModelInputError,
     check_covariates,
@@ -53,7 +54,7 @@ from riskbench.models.risk_contract import (
     prediction_origin,
 )
 
-__all__ = ["LandmarkSupermodel", "CauseSpecificFit"]
+__all__ = ["CauseSpecificFit", "LandmarkSupermodel"]
 
 _EFFECT_POWERS = {"none": 0, "linear": 1, "quadratic": 2}
 _CHUNK_CELLS = 4_000_000  # rows x grid cells per block when combining hazards (~32 MB of float64)
@@ -344,16 +345,21 @@ class LandmarkSupermodel(BaseEstimator):
     # ------------------------------------------------------------------ saving
     def to_json(self, path: str | Path) -> Path:
         """Write the fitted model (design, both cause-specific fits, baselines, spec, versions) as JSON."""
-        from riskbench.models.landmark_io import save_landmark_model
-
         return save_landmark_model(self, path)
 
     @classmethod
     def from_json(cls, path: str | Path) -> LandmarkSupermodel:
         """Read a model written by :meth:`to_json`."""
-        from riskbench.models.landmark_io import load_landmark_model
-
-        return load_landmark_model(path)
+        saved = read_landmark_file(path)
+        model = cls(**saved.params)
+        model.landmarks_, model.landmark_scale_, model.max_time_ = saved.landmarks, saved.landmark_scale, saved.max_time
+        model._effect_power_, model._baseline_power_ = saved.effect_power, saved.baseline_power
+        model.design_columns_ = saved.design_columns
+        model.outcome_ = CauseSpecificFit(**saved.outcome)
+        model.competing_ = None if saved.competing is None else CauseSpecificFit(**saved.competing)
+        model.coef_, model.var_, model.robust_var_ = model.outcome_.coef, model.outcome_.var, model.outcome_.robust_var
+        model.saved_versions_ = saved.versions
+        return model
 
     # ----------------------------------------------------------------- report
     def summary(self) -> pd.DataFrame:

@@ -34,6 +34,7 @@ from riskbench.validation.likelihood_ratio import nested_cox_lr_test
 from riskbench.validation.reclassification import nri_kind
 from riskbench.workflow.config import AnalysisConfig, ModelConfig
 from riskbench.workflow.model_factory import missing_data_plan
+from riskbench.workflow.term_labels import term_label
 
 COX_FAMILIES = ("landmark_cox", "time_varying_cox", "cox")
 #: Errors of one check that become a note (numerical trouble, a model that cannot be refitted).
@@ -56,8 +57,6 @@ def cox_checks(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, la
     Each model is refitted as a plain Cox model of its outcome (:func:`riskbench.models.cox_diagnostics.cox_refit`)
     on the rows with every covariate known; ``skip`` names models that could not be fitted.
     """
-    from riskbench.workflow.stage_models import term_label
-
     tables: dict[str, pd.DataFrame] = {}
     notes: list[Note] = []
     ph = []
@@ -87,8 +86,6 @@ def cox_checks(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, la
 
 def _nested_test(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, label_of: Callable[[str], str],
                  skip: frozenset[str], notes: list[Note]) -> pd.DataFrame | None:
-    from riskbench.workflow.stage_models import term_label
-
     part = "likelihood-ratio test"
     pair = config.validation.compare
     models = {m.name: m for m in config.models}

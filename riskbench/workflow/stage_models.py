@@ -36,6 +36,7 @@ from riskbench.workflow.model_effects import PART_ERRORS, coefficient_table, eff
 from riskbench.workflow.model_factory import fit_model
 from riskbench.workflow.stage_cohort import covariate_labels
 from riskbench.workflow.stage_result import StageResult
+from riskbench.workflow.term_labels import term_label
 
 #: Errors that make one model's fit (or prediction) fail without stopping the run. A ConfigError is not
 #: among them: a configuration mistake stops the run with its own message.
@@ -114,18 +115,6 @@ def outcome_hazard_ratios(summary: pd.DataFrame) -> pd.DataFrame:
     if "term" not in summary.columns:  # a Cox model's summary names its terms in the index
         summary = summary.rename_axis("term").reset_index()
     return summary.reset_index(drop=True)
-
-
-def term_label(term: str, label_of: Callable[[str], str] | None) -> str:
-    """A coefficient term in words: the covariate's label (with unit), and for a landmark interaction
-    ``<covariate>:s`` / ``:s2`` what it multiplies (s = landmark scaled to the last landmark)."""
-    base, _, power = str(term).partition(":")
-    text = label_of(base) if label_of is not None else base
-    if power == "s":
-        return f"{text} × landmark (s)"
-    if power == "s2":
-        return f"{text} × landmark squared (s²)"
-    return text
 
 
 def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, tuple[str, ...]],

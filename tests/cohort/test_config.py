@@ -8,7 +8,8 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from riskbench.cohort import CohortSpec, SourceSpec, SpecError, build_cohort
+from riskbench.cohort import SpecError, build_cohort
+from riskbench.cohort.config_schema import read_cohort, read_sources
 from riskbench.cohort.spec import DAYS_PER_YEAR
 from riskbench.workflow.cli import main
 
@@ -35,7 +36,7 @@ unit = "ng/mL"
 
 
 def test_cohort_section_round_trip() -> None:
-    spec = CohortSpec.from_dict(tomllib.loads(COHORT_TOML)["cohort"])
+    spec = read_cohort(tomllib.loads(COHORT_TOML)["cohort"])
     assert spec.max_carry_days == pytest.approx(2 * DAYS_PER_YEAR)
     assert spec.lookback_days == 30 and spec.same_day_rule == "last"
     vol = spec.variable("vol")
@@ -61,7 +62,7 @@ def test_cohort_section_round_trip() -> None:
 ])
 def test_cohort_section_errors_name_key_value_and_choices(section, message) -> None:
     with pytest.raises(SpecError, match=message):
-        CohortSpec.from_dict(section)
+        read_cohort(section)
 
 
 def _write_sources(folder: Path) -> None:
@@ -92,8 +93,8 @@ columns = { patient_id = "id" }
 def test_sources_section_wide_layout_column_maps_and_date_format(tmp_path) -> None:
     (tmp_path / "data").mkdir()
     _write_sources(tmp_path / "data")
-    sources = SourceSpec.from_dict(tomllib.loads(SOURCES_TOML)["sources"], tmp_path)
-    spec = CohortSpec.from_dict({**tomllib.loads(COHORT_TOML)["cohort"], "kind_map": {"death": "competing"}})
+    sources = read_sources(tomllib.loads(SOURCES_TOML)["sources"], tmp_path)
+    spec = read_cohort({**tomllib.loads(COHORT_TOML)["cohort"], "kind_map": {"death": "competing"}})
     cohort = build_cohort(sources.patients, sources.measurements, sources.outcomes, spec)
     cp = cohort.counting_process
     a = cp[cp.patient_id == "A"]
@@ -106,17 +107,17 @@ def test_sources_section_wide_layout_column_maps_and_date_format(tmp_path) -> No
 
 def test_sources_section_errors(tmp_path) -> None:
     with pytest.raises(SpecError, match=r"\[sources\] needs 'patients' \(a \[sources.patients\] table"):
-        SourceSpec.from_dict({}, tmp_path)
+        read_sources({}, tmp_path)
     with pytest.raises(SpecError, match=r"\[sources.measurements\] needs 'path' \(a file path"):
-        SourceSpec.from_dict({"patients": {"path": "nope.csv"}, "measurements": {}, "outcomes": {}}, tmp_path)
+        read_sources({"patients": {"path": "nope.csv"}, "measurements": {}, "outcomes": {}}, tmp_path)
     with pytest.raises(SpecError, match=r"\[sources.patients\] path = 'nope.csv': file .*nope.csv does not exist"):
-        SourceSpec.from_dict({t: {"path": "nope.csv"} for t in ("patients", "measurements", "outcomes")}, tmp_path)
+        read_sources({t: {"path": "nope.csv"} for t in ("patients", "measurements", "outcomes")}, tmp_path)
     (tmp_path / "p.csv").write_text("patient_id\n")
     with pytest.raises(SpecError, match=r"\[sources.patients\] has unknown key 'layout' = 'wide'; allowed keys: path"):
-        SourceSpec.from_dict({"patients": {"path": "p.csv", "layout": "wide"}, "measurements": {}, "outcomes": {}},
+        read_sources({"patients": {"path": "p.csv", "layout": "wide"}, "measurements": {}, "outcomes": {}},
                              tmp_path)
     with pytest.raises(SpecError, match=r"\[sources.patients\] columns = 3 is not allowed: expected a table"):
-        SourceSpec.from_dict({"patients": {"path": "p.csv", "columns": 3}, "measurements": {}, "outcomes": {}},
+        read_sources({"patients": {"path": "p.csv", "columns": 3}, "measurements": {}, "outcomes": {}},
                              tmp_path)
 
 

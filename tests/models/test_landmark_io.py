@@ -20,11 +20,26 @@ def test_round_trip_reproduces_predictions(tmp_path, make_stack, effects, baseli
     loaded = LandmarkSupermodel.from_json(path)
     assert loaded.get_params() == {**model.get_params(), "covariates": ["x1", "x2"]}
     assert (loaded.competing_ is None) == (model.competing_ is None)
-    np.testing.assert_array_equal(loaded.predict_curve(stack, [100.0, 365.0]), model.predict_curve(stack, [100.0, 365.0]))
+    assert _same_fit(loaded.outcome_, model.outcome_)
+    assert np.isfinite(loaded.outcome_.loglik) and loaded.outcome_.loglik == model.outcome_.loglik
+    if model.competing_ is not None:
+        assert _same_fit(loaded.competing_, model.competing_)
+    horizons = [100.0, 365.0]
+    np.testing.assert_array_equal(loaded.predict_curve(stack, horizons), model.predict_curve(stack, horizons))
     pd.testing.assert_frame_equal(loaded.summary(), model.summary())
     pd.testing.assert_frame_equal(loaded.landmark_coefficients([0, 365]), model.landmark_coefficients([0, 365]))
     doc = json.loads(path.read_text())
     assert {"numpy", "python"} <= set(doc["versions"]) and doc["design"]["design_columns"] == model.design_columns_
+
+
+def _same_fit(a, b) -> bool:
+    """Every field of two cause-specific fits equal (arrays element by element, baselines per stratum)."""
+    if a.baseline.keys() != b.baseline.keys():
+        return False
+    same_baseline = all(np.array_equal(a.baseline[k][i], b.baseline[k][i]) for k in a.baseline for i in (0, 1))
+    arrays = all(np.array_equal(getattr(a, f), getattr(b, f)) for f in ("coef", "var", "robust_var", "means"))
+    scalars = (a.n_events, a.loglik, a.loglik_null) == (b.n_events, b.loglik, b.loglik_null)
+    return same_baseline and arrays and scalars
 
 
 def test_refuses_foreign_or_unfitted(tmp_path) -> None:
