@@ -253,6 +253,22 @@ INTERVALS: tuple[IntervalColumns, ...] = (
 _ROW_KEYS = ("metric", "quantity")
 
 
+def _named_intervals(table: pd.DataFrame, taken: set[str]) -> dict[str, IntervalColumns]:
+    """Interval triples named by the estimate's column: ``<name>``, ``<name>_low``, ``<name>_high``.
+
+    The header is the estimate's own (a model name, say) with "(95% interval)"; a column named
+    ``"<a> minus <b>"`` holds a difference (see :attr:`IntervalColumns.difference`).
+    """
+    columns = set(table.columns)
+    found = {}
+    for column in table.columns:
+        name = str(column)
+        if name not in taken and {f"{name}_low", f"{name}_high"} <= columns:
+            found[name] = IntervalColumns(name, f"{name}_low", f"{name}_high",
+                                          f"{_column_role(name)[0]} (95% interval)", difference=" minus " in name)
+    return found
+
+
 def human_name(name: str) -> str:
     """A column or term name for reading: ``"age_at_entry:s2"`` → ``"Age at entry × (s/S)²"``.
 
@@ -329,9 +345,10 @@ def display_table(table: pd.DataFrame) -> pd.DataFrame:
     for group in INTERVALS:
         if {group.estimate, group.low, group.high} <= set(table.columns):
             merged[group.estimate] = group
-    skip = {c for g in merged.values() for c in (g.low, g.high)}
     label_columns = {"model", "term", "cause", "metric", "quantity", "table", "state", "model_name",
                      "characteristic"}
+    merged.update(_named_intervals(table, set(merged) | label_columns))
+    skip = {c for g in merged.values() for c in (g.low, g.high)}
 
     out: dict[str, list[str]] = {}
     for column in table.columns:
@@ -356,8 +373,8 @@ def display_table(table: pd.DataFrame) -> pd.DataFrame:
                 if values[0] is None:
                     rows.append(_cell(table[column].iloc[i], row_fmt))
                 else:
-                    rows.append(format_interval(*(math.nan if v is None else v for v in values),
-                                                fmt=row_fmt or _sig3))
+                    estimate, low, high = (math.nan if v is None else v for v in values)
+                    rows.append(format_interval(estimate, low, high, fmt=row_fmt or _sig3))
             else:
                 rows.append(_cell(table[column].iloc[i], row_fmt))
         out[merged[column].header if column in merged else header] = rows

@@ -46,6 +46,7 @@ from riskbench.workflow.kernel import LAUNCHER, ensure_kernel, kernel_pids, loca
 from riskbench.workflow.manifest import build_manifest, input_files, utc_now, write_manifest
 from riskbench.workflow.notebook_builder import STAGE_NOTEBOOKS, write_notebooks
 from riskbench.workflow.notebook_html import export_html
+from riskbench.workflow.notebook_paths import relocate_notebook
 from riskbench.workflow.run_folder import (
     TEMP,
     NotARunFolder,
@@ -267,6 +268,7 @@ def _run_in_staging(config: AnalysisConfig, paths: RunPaths, notebooks_dir: str 
             _stop_kernels(sockets)
             shutil.rmtree(temp, ignore_errors=True)
             raise _stop(config, paths, name, notebook, started, seconds, error)
+        relocate_notebook(staging / NOTEBOOKS / notebook, staging, paths.out)  # no staging path is kept
         export_html(staging / NOTEBOOKS / notebook, (staging / NOTEBOOKS / notebook).with_suffix(".html"))
         say(f"stage {name}: done in {seconds[name]:.1f} s")
 
@@ -332,6 +334,7 @@ def _stop(config: AnalysisConfig, paths: RunPaths, stage: str, notebook: str, st
     try:
         if executed.is_file():
             scrub_notebook(executed, names, files)
+            relocate_notebook(executed, staging, failed)
         write_marker(staging, "failed")
         write_manifest(build_manifest(config, staging, started=started, finished=utc_now(), stage_seconds=seconds,
                                       status="failed", failure=saved), staging)

@@ -25,25 +25,28 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from riskbench import __version__
+from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
 from riskbench.models.missing_data import predicted_rows
-from riskbench.report.html_report import build_report
+from riskbench.report.notes import failed_models, save_notes, switched_off
 from riskbench.report.outputs import load_data, save_table
 from riskbench.report.suppression import count_columns, format_count, suppress_counts
-from riskbench.metrics.triage import TargetUnreachable
-from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
-from riskbench.report.notes import Note, failed_models, save_notes, switched_off
 from riskbench.time_units import DAYS_PER_YEAR, format_duration
-from riskbench.validation.comparison import Comparison, compare_specs
+from riskbench.validation.comparison import compare_specs
+from riskbench.validation.comparison_statistics import (
+    COMPARISON_METRICS,
+    comparison_table,
+    discrimination_table,
+    prediction_column,
+    risk_matrices,
+)
 from riskbench.validation.errors import ValidationInputError
-from riskbench.validation.parallel import execution_statement
-from riskbench.validation.performance import evaluate_risks, evaluation_time, stack_outcome
+from riskbench.validation.performance import evaluation_time, stack_outcome
 from riskbench.validation.sources import PrecomputedTables
+from riskbench.workflow.comparison_presentation import StageNotes, write_report, years_label
 from riskbench.workflow.config import AnalysisConfig
-from riskbench.workflow.fit_diagnosis import count_text, hide_small_numbers
+from riskbench.workflow.fit_diagnosis import count_text
 from riskbench.workflow.landmark_report import report_landmark_performance
 from riskbench.workflow.model_factory import model_spec
-from riskbench.workflow.stage_models import FIT_ERRORS
 from riskbench.workflow.stage_calibration import calibration_part, model_target
 from riskbench.workflow.stage_result import StageResult
 from riskbench.workflow.stage_validation import (
@@ -54,104 +57,9 @@ from riskbench.workflow.stage_validation import (
     warning_notes,
 )
 
-#: Measures shown in the comparison table (the validation stage computes a few more).
-COMPARISON_METRICS: tuple[str, ...] = ("harrell_c", "uno_c", "auc", "brier", "scaled_brier",
-                                       "calibration_slope", "ici", "nri", "idi")
-
-
-def years_label(days: float) -> str:
-    """``"2y"`` / ``"0_5y"``: a horizon in days as a short file-name label in years (letters, digits, ``_``)."""
-    return f"{days / DAYS_PER_YEAR:g}y".replace(".", "_")
-
-
-def risk_matrices(cv: pd.DataFrame, n_rows: int) -> tuple[np.ndarray, dict[str, np.ndarray]]:
-    """Horizons (days) and, per model, the ``(n_rows, n_horizons)`` out-of-fold risk matrix."""
-    horizons = np.sort(cv["horizon"].unique().astype(float))
-    out: dict[str, np.ndarray] = {}
-    for model, rows in cv.groupby("model", sort=False):
-        wide = rows.pivot(index="row", columns="horizon", values="risk").reindex(index=range(n_rows),
-                                                                                  columns=horizons)
-        if len(set(range(n_rows)) - set(rows["row"])):  # a NaN risk is a complete-case row left unpredicted
-            raise ValueError(f"cv_predictions: model {model!r} lacks predictions for some rows; rerun stage 3")
-        out[str(model)] = wide.to_numpy(float)
-    return horizons, out
-
-
-def discrimination_table(time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
-                         risks: dict[str, np.ndarray], report_days: tuple[float, ...],
-                         targets: dict[str, str] | None = None) -> pd.DataFrame:
-    """Every measure of :func:`riskbench.validation.performance.evaluate_risks` at the report horizons
-    (``targets``: model -> what its risk estimates, default cumulative incidence)."""
-    frames = []
-    for model, risk in risks.items():
-        by_h = {h: risk[:, _column(horizons, h)] for h in report_days}
-        frame = evaluate_risks(time, status, by_h, target=(targets or {}).get(model, "cumulative_incidence"))
-        frame.insert(0, "model", model)
-        frames.append(frame)
-    table = pd.concat(frames, ignore_index=True)
-    table["horizon_years"] = table.pop("horizon_days") / DAYS_PER_YEAR
-    table = table.drop(columns=["threshold"])
-    return table.pivot_table(index=["horizon_years", "metric"], columns="model", values="value",
-                             sort=False, dropna=False).reset_index()
-
-
-def _column(horizons: np.ndarray, h: float) -> int:
-    i = int(np.argmin(np.abs(horizons - h)))
-    if abs(horizons[i] - h) > 1e-3:
-        raise ValueError(f"no predictions at horizon {h} days; rerun stages 2 and 3 with this configuration")
-    return i
-
-
-def _interval(estimate: float, low: float, high: float) -> str:
-    return f"{estimate:.3f} ({low:.3f} to {high:.3f})"
-
-
-def comparison_table(comparison: Comparison, reference: str, candidate: str) -> pd.DataFrame:
-    """One row per measure and horizon: each model's estimate and the difference, with 95% intervals."""
-    perf = comparison.performance
-    diff = comparison.differences
-    diff = diff[(diff["reference"] == reference) & (diff["candidate"] == candidate)]
-    rows = []
-    for r in diff.itertuples(index=False):
-        if r.metric not in COMPARISON_METRICS or not np.isnan(r.threshold):
-            continue
-        row = {"metric": r.metric, "horizon_years": round(r.horizon_days / DAYS_PER_YEAR, 4),
-               "obtained_by": "out-of-bag bootstrap (mean over resamples)"}
-        for name in (reference, candidate):
-            p = perf[(perf["spec"] == name) & (perf["metric"] == r.metric) & (perf["horizon_days"] == r.horizon_days)
-                     & perf["threshold"].isna()]
-            row[name] = _interval(*p[["estimate", "ci_low", "ci_high"]].iloc[0]) if len(p) else ""
-        row[f"{candidate} minus {reference}"] = _interval(r.estimate, r.ci_low, r.ci_high)
-        row["better_if"] = r.better_if
-        row["bootstrap_resamples"] = int(r.n_boot)
-        rows.append(row)
-    return pd.DataFrame(rows)
-
-
-class _Notes:
-    """The comparison stage's notes, and a way to attempt one part for one model without stopping the run."""
-
-    def __init__(self, threshold: int) -> None:
-        self.notes: list[Note] = []
-        self.threshold = threshold  # small numbers quoted from a library's message are hidden below it
-
-    def add(self, part: str, text: str, model: str = "", kind: str = "not computed") -> None:
-        self.notes.append(Note("comparison", part, text, model=model, kind=kind))
-
-    def attempt(self, part: str, model: str, compute, *args, **kwargs):
-        """``compute(*args, **kwargs)``, or None with a note when it fails with a data or numerical error."""
-        try:
-            return compute(*args, **kwargs)
-        except TargetUnreachable as exc:
-            reach = (f"the best threshold reaches {exc.best:.3f}" if np.isfinite(exc.best)
-                     else "no threshold leaves any patient below it")
-            self.add(part, f"not computed: no risk threshold of this model reaches {exc.what} by "
-                     f"{format_duration(round(float(exc.horizon), 3))} after the landmark ({reach}); lower the target "
-                     "([report] triage_target_npv) or switch the part off ([report] triage = false).", model)
-        except FIT_ERRORS as exc:
-            self.add(part, f"not computed: {type(exc).__name__}: {hide_small_numbers(str(exc), self.threshold)}",
-                     model)
-        return None
+#: Names other modules import from here (the statistics and words now live in their own modules).
+__all__ = ["COMPARISON_METRICS", "comparison_table", "discrimination_table", "risk_matrices",
+           "run_comparison_stage", "years_label"]
 
 
 def _switch(config: AnalysisConfig, name: str) -> bool:
@@ -168,7 +76,7 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     cv = load_data(run_dir, "cv_predictions")
     time, status = stack_outcome(stack)
     result = StageResult(stage="comparison", run_dir=run_dir)
-    notes = _Notes(threshold)
+    notes = StageNotes(threshold)
     fits: list[tuple[str, list[FitWarning]]] = []
     report_days: tuple[float, ...] = ()
     with recorded_warnings() as stray:
@@ -189,7 +97,8 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
             report_landmark_performance(config, stack[keep].reset_index(drop=True), horizons, risks, report_days,
                                         result, notes.add)
             calibration_part(config, time, status, stack["patient_id"].to_numpy()[keep],
-                             {h: {m: r[:, _column(horizons, h)] for m, r in risks.items()} for h in report_days},
+                             {h: {m: r[:, prediction_column(horizons, h)] for m, r in risks.items()}
+                              for h in report_days},
                              result, notes, years_label)
             _decisions(config, time, status, horizons, risks, report_days, result, notes)
         else:
@@ -206,20 +115,13 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
         fits.append(("(outside the fits)", list(stray)))
     save_notes(run_dir, "comparison", notes.notes, count_warnings(fits))
     result.notes.extend(n.sentence() for n in notes.notes)
-    build_report(
-        run_dir, title=config.report.title, threshold=threshold,
-        facts=[("riskbench", __version__), ("configuration", config.path.name if config.path else "(in memory)"),
-               ("seed", str(config.seed)), ("validation seed", str(config.validation.seed)),
-               ("landmarks", ", ".join(format_duration(s) for s in config.landmarks.landmarks_days)),
-               ("prediction window", format_duration(config.landmarks.horizon_days)),
-               ("data sent off this machine", execution_statement(config.execution))],
-    )
+    write_report(config, run_dir)
     result.notes.append(f"Report written to {run_dir / 'report.html'}.")
     return result
 
 
 def _horizons_with_outcomes(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, threshold: int,
-                            notes: _Notes) -> tuple[float, ...]:
+                            notes: StageNotes) -> tuple[float, ...]:
     """Report horizons with at least ``threshold`` outcomes before them (a note for the others)."""
     kept = []
     for h in config.report.horizons_days:
@@ -236,7 +138,7 @@ def _horizons_with_outcomes(config: AnalysisConfig, time: np.ndarray, status: np
 
 def _performance(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
                  risks: dict[str, np.ndarray], report_days: tuple[float, ...], result: StageResult,
-                 notes: _Notes) -> None:
+                 notes: StageNotes) -> None:
     """Discrimination table of every model (AUC curve and performance per landmark: ``landmark_report``;
     calibration: ``stage_calibration``)."""
     if report_days:
@@ -253,12 +155,13 @@ def _performance(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, h
 
 def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
                risks: dict[str, np.ndarray], report_days: tuple[float, ...], result: StageResult,
-               notes: _Notes) -> None:
+               notes: StageNotes) -> None:
     """Decision curves and the triage operating point at the longest report horizon with enough outcomes."""
     from riskbench import metrics
 
     threshold = config.report.small_count_threshold
-    wanted = {"decision curves": _switch(config, "decision_curves"), "triage operating point": _switch(config, "triage")}
+    wanted = {"decision curves": _switch(config, "decision_curves"),
+              "triage operating point": _switch(config, "triage")}
     keys = {"decision curves": "[report] decision_curves", "triage operating point": "[report] triage"}
     for part, on in wanted.items():
         if not on:
@@ -269,7 +172,7 @@ def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, hor
         return
     main = max(report_days)
     t_main = evaluation_time(main, time)
-    column = _column(horizons, main)
+    column = prediction_column(horizons, main)
     # The decision curves (with bands) are drawn by landmark_report.report_landmark_performance.
     if wanted["triage operating point"]:
         triage = []
@@ -287,7 +190,7 @@ def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, hor
 
 
 def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, cv: pd.DataFrame,
-                report_days: tuple[float, ...], result: StageResult, notes: _Notes, fits: list) -> None:
+                report_days: tuple[float, ...], result: StageResult, notes: StageNotes, fits: list) -> None:
     """The paired bootstrap comparison of the candidate against the reference at the report horizons with
     enough outcomes (or a note why not)."""
     part = "comparison of the model sets"

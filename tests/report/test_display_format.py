@@ -176,3 +176,20 @@ def test_report_cells_show_at_most_four_significant_digits_and_the_csv_keeps_ful
     for bad in ("se_robust", "hr_lower_95", "p_value", "oe_lower"):
         assert bad not in cells
     assert {p.name: p.read_bytes() for p in (tmp_path / "tables").glob("*.csv")} == csv_before
+
+
+def test_intervals_named_by_their_estimate_column_are_merged_and_differences_keep_three_decimals():
+    """The comparison table stores each interval as ``<name>, <name>_low, <name>_high`` (numbers); the page
+    shows one ``"estimate (low–high)"`` cell per model, formatted by the row's measure."""
+    table = pd.DataFrame({
+        "metric": ["harrell_c", "ici"], "horizon_years": ["2", "2"],
+        "clinical": ["0.725288", "0.0024797"], "clinical_low": ["0.674", "0.00101"],
+        "clinical_high": ["0.776", "0.0049"],
+        "imaging minus clinical": ["0.0412", "-0.0003"], "imaging minus clinical_low": ["0.011", "-0.0011"],
+        "imaging minus clinical_high": ["0.07", "0.0004"],
+    })
+    shown = display_table(table)
+    assert list(shown.columns) == ["Metric", "Horizon (years)", "Clinical (95% interval)",
+                                   "Imaging minus clinical (95% interval)"]
+    assert list(shown.iloc[:, 2]) == ["0.725 (0.674–0.776)", "0.0025 (0.0010–0.0049)"]
+    assert list(shown.iloc[:, 3]) == ["0.041 (0.011–0.070)", "-0.0003 (-0.0011 to 0.0004)"]

@@ -115,3 +115,25 @@ def test_restart_after_an_interruption_gives_the_same_outputs(project):
     clean = project["out"].parent / "clean"
     run_analysis(project["config"], clean, notebooks_dir=project["books"], stages=stages, log=None)
     assert restarted == {p.name: p.read_bytes() for p in (clean / "tables").iterdir()}
+
+
+def test_executed_notebooks_name_the_run_folder_never_the_staging_folder(project):
+    """papermill records the folder a notebook ran in, its paths and parameters, and cells print paths: after
+    the run is moved into place none of them names the staging folder (which no longer exists)."""
+    books = project["books"]
+    nbformat.write(_notebook(WRITE.format(name="three") + "print(Path(run_dir) / 'tables')\n"),
+                   str(books / "three.ipynb"))
+    _run(project, [("third", "three.ipynb")])
+    out = project["out"].resolve()
+    staging_name = f".{out.name}.partial"
+    executed = out / "notebooks" / "three.ipynb"
+    for path in (executed, executed.with_suffix(".html")):
+        assert staging_name not in path.read_text(), path.name
+    nb = nbformat.read(str(executed), as_version=4)
+    assert nb.metadata["papermill"]["output_path"] == str(executed)
+    assert nb.metadata["papermill"]["parameters"]["run_dir"] == str(out)
+    assert str(out / "tables") in "".join(o.get("text", "") for c in nb.cells for o in c.get("outputs", []))
+    with pytest.raises(StageFailed):
+        _run(project, [("broken", "bad.ipynb")], overwrite=True)
+    kept = (out.parent / f"{out.name}.failed" / "notebooks" / "bad.ipynb").read_text()
+    assert staging_name not in kept and str(out.parent / f"{out.name}.failed") in kept
