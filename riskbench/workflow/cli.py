@@ -30,10 +30,6 @@ COMMAND_MODULES: tuple[str, ...] = (
 )
 
 
-class UserFacingError(RiskbenchError):
-    """An error whose message is meant for the user as it stands (no traceback)."""
-
-
 DEBUG_HELP = "show the full traceback of an error"
 
 
