@@ -29,8 +29,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from riskbench.models.cox_engine import _evaluate, _layout
-from riskbench.models.cox_model import CoxModel
+from riskbench.models.cox_engine import event_risk_set_means
+from riskbench.models.cox_model import CoxModel, FittingArrays
 from riskbench.models.risk_contract import ModelInputError
 
 __all__ = ["TIME_TRANSFORMS", "CoxRefit", "cox_refit", "proportional_hazards_test", "schoenfeld_residuals"]
@@ -58,29 +58,28 @@ def schoenfeld_residuals(model: CoxModel, table: pd.DataFrame, *, scaled: bool =
     DataFrame with one row per event: ``row`` (position in ``table``), ``time`` (days), then one
     column per covariate (original units; log hazard ratio if ``scaled``).
     """
-    model._check_fitted()
+    if not hasattr(model, "fit_"):
+        raise ModelInputError("this CoxModel is not fitted yet; call fit(table) first.")
     fit = model.fit_
     arr = model.fitting_arrays(table)
-    X, event = arr["X"], arr["event"]
+    X, event = arr.X, arr.event
     n = X.shape[0]
-    start = np.zeros(n) if arr["start"] is None else arr["start"]
-    weights = np.ones(n) if arr["weights"] is None else np.asarray(arr["weights"], float)
-    L = _layout(start, arr["stop"], event, _strata_codes(arr["strata"], n), fit.ties)
+    start = np.zeros(n) if arr.start is None else arr.start
+    weights = np.ones(n) if arr.weights is None else np.asarray(arr.weights, float)
     if int(event.sum()) != fit.n_events:
         raise ModelInputError(
             f"table has {int(event.sum())} events but the model was fitted on {fit.n_events}; "
             "pass the table the model was fitted on."
         )
-    Xs = (X[L.active] - fit.center) / fit.scale
-    state = _evaluate(fit.coef * fit.scale, Xs, weights[L.active], L)
-    k = L.death_key
-    xbar = (state.S1 * state.inv_d[:, None] - state.E1 * state.inv_d_f[:, None]) / L.ties_per_key[:, None]
-    resid = (Xs[L.death] - xbar[k]) * fit.scale
+    Xs = (X - fit.center) / fit.scale
+    parts = event_risk_set_means(Xs, start, arr.stop, event, _strata_codes(arr.strata, n), weights,
+                                 fit.coef * fit.scale, fit.ties)
+    resid = (Xs[parts.row] - parts.mean) * fit.scale
     if scaled:
         resid = fit.n_events * resid @ fit.var + fit.coef
     out = pd.DataFrame(resid, columns=list(fit.names))
-    out.insert(0, "time", L.key_time[k])
-    out.insert(0, "row", L.active[L.death])
+    out.insert(0, "time", parts.time)
+    out.insert(0, "row", parts.row)
     return out.sort_values(["time", "row"], kind="stable").reset_index(drop=True)
 
 
@@ -98,7 +97,7 @@ def _km_at_event_times(start: np.ndarray, stop: np.ndarray, event: np.ndarray, w
     return surv[np.searchsorted(times, at)]
 
 
-def _transform(kind: str, times: np.ndarray, arr: dict) -> np.ndarray:
+def _transform(kind: str, times: np.ndarray, arr: FittingArrays) -> np.ndarray:
     if kind == "identity":
         return times
     if kind == "log":
@@ -107,10 +106,10 @@ def _transform(kind: str, times: np.ndarray, arr: dict) -> np.ndarray:
         return np.log(times)
     if kind == "rank":
         return stats.rankdata(times)
-    n = arr["X"].shape[0]
-    start = np.zeros(n) if arr["start"] is None else arr["start"]
-    weights = np.ones(n) if arr["weights"] is None else np.asarray(arr["weights"], float)
-    return 1.0 - _km_at_event_times(start, arr["stop"], arr["event"], weights, times)
+    n = arr.X.shape[0]
+    start = np.zeros(n) if arr.start is None else arr.start
+    weights = np.ones(n) if arr.weights is None else np.asarray(arr.weights, float)
+    return 1.0 - _km_at_event_times(start, arr.stop, arr.event, weights, times)
 
 
 def proportional_hazards_test(model: CoxModel, table: pd.DataFrame, transform: str = "km") -> pd.DataFrame:
@@ -129,8 +128,8 @@ def proportional_hazards_test(model: CoxModel, table: pd.DataFrame, transform: s
     """
     if transform not in TIME_TRANSFORMS:
         raise ModelInputError(f"transform={transform!r}; use one of {TIME_TRANSFORMS}.")
-    fit = model.fit_ if hasattr(model, "fit_") else None
     resid = schoenfeld_residuals(model, table)
+    fit = model.fit_
     names = list(fit.names)
     R = resid[names].to_numpy()
     g = _transform(transform, resid["time"].to_numpy(), model.fitting_arrays(table))

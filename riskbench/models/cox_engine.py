@@ -59,8 +59,10 @@ __all__ = [
     "CoxConvergenceWarning",
     "CoxIllConditionedWarning",
     "CoxNumericalError",
+    "EventRiskSetMeans",
     "LikelihoodTest",
     "MonotoneLikelihoodWarning",
+    "event_risk_set_means",
     "fit_cox",
 ]
 
@@ -788,3 +790,35 @@ def _running_off(history: list[np.ndarray], converged: bool) -> list[int]:
         growing = np.all(np.diff(tail, axis=0) > 1e-3, axis=0) & (tail[-1] > 3.0)
         huge |= set(np.flatnonzero(growing).tolist())
     return sorted(huge)
+
+
+@dataclass(frozen=True)
+class EventRiskSetMeans:
+    """Each event row with the risk-weighted covariate mean of its risk set (the parts of a Schoenfeld residual).
+
+    Attributes
+    ----------
+    row : position of each event row in the input.
+    time : its event time (days).
+    mean : (n_events, p) risk-set mean of the standardised covariates at that time (for Efron ties the average
+        over the m Efron terms, as in R's survival package and lifelines), in event-key order.
+    """
+
+    row: np.ndarray
+    time: np.ndarray
+    mean: np.ndarray
+
+
+def event_risk_set_means(x_std: np.ndarray, start: np.ndarray, stop: np.ndarray, event: np.ndarray,
+                         strata_codes: np.ndarray, weights: np.ndarray, beta_std: np.ndarray,
+                         ties: str) -> EventRiskSetMeans:
+    """Risk-set covariate means at each event of ``(start, stop]`` rows for standardised coefficients ``beta_std``.
+
+    ``x_std`` are the covariates centred and scaled as in :class:`CoxFit` (``(x - center) / scale``);
+    ``strata_codes`` are integer codes from 0.
+    """
+    L = _layout(start, stop, event, strata_codes, ties)
+    state = _evaluate(beta_std, x_std[L.active], weights[L.active], L)
+    k = L.death_key
+    xbar = (state.S1 * state.inv_d[:, None] - state.E1 * state.inv_d_f[:, None]) / L.ties_per_key[:, None]
+    return EventRiskSetMeans(row=L.active[L.death], time=L.key_time[k], mean=xbar[k])

@@ -9,11 +9,16 @@ present, else ``start``, else 0):
 
 with ``H0`` the baseline cumulative hazard of the row's stratum.  Treating every status other than
 ``event_code`` as censoring makes this the cause-specific risk (it ignores competing events).
+
+The columns are chosen by name (``stop_column``, ``start_column``, ``status_column``, ``cluster``), so a
+published dataset can be fitted as it comes. Standard errors are model-based unless ``variance="robust"`` asks
+for the cluster-robust sandwich by ``cluster``; :meth:`CoxModel.fit_summary` says which one it shows.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -23,6 +28,7 @@ from sklearn.base import BaseEstimator
 
 from riskbench.models.cox_engine import CoxFit, fit_cox
 from riskbench.models.cox_io import read_cox_file, save_cox_model
+from riskbench.models.cox_summary import VARIANCES, CoxSummary, stratified_concordance
 from riskbench.models.risk_contract import (
     ModelInputError,
     check_covariates,
@@ -33,9 +39,25 @@ from riskbench.models.risk_contract import (
     step_function_at,
 )
 
-__all__ = ["CoxModel"]
+__all__ = ["CoxModel", "FittingArrays"]
 
 _DEFAULT_CLUSTER = "patient_id"
+
+
+@dataclass(frozen=True)
+class FittingArrays:
+    """The arrays :func:`fit_cox` receives for a table (``start``, ``strata``, ``weights``, ``cluster`` may be absent).
+
+    ``stop``/``start`` in days, ``event`` 1.0 for the event and 0.0 otherwise, ``cluster`` the id column's values.
+    """
+
+    X: np.ndarray
+    stop: np.ndarray
+    event: np.ndarray
+    start: np.ndarray | None
+    strata: np.ndarray | None
+    weights: np.ndarray | None
+    cluster: np.ndarray | None
 
 
 class CoxModel(BaseEstimator):
@@ -49,9 +71,18 @@ class CoxModel(BaseEstimator):
         see :func:`riskbench.models.cox_engine.fit_cox`).
     strata : column whose values get separate baseline hazards, or ``None``.
     weights : column of positive case weights, or ``None``.
-    cluster : column of cluster labels for the robust (sandwich) variance. The default
-        ``"patient_id"`` is used when the table has it and skipped otherwise; ``None`` disables it.
-    event_code : value of ``status`` that counts as the event; every other value is censoring.
+    cluster : the id column (patient of each row): the clusters of the robust variance and the patient count
+        of :meth:`fit_summary`. Default ``"patient_id"``; a table without it has no patient count.
+    variance : ``"model"`` (default: the inverse information, as common statistical software reports without
+        a cluster term) or ``"robust"`` (the cluster-robust sandwich of Lin & Wei 1989 by ``cluster``, which the
+        table must then have). The coefficient table and the Wald test use the chosen one.
+    event_code : value of the status column that counts as the event; every other value is censoring.
+    stop_column : column of interval ends (days). ``None`` (default) takes ``"stop"`` when the table has it,
+        else ``"time"``. A stop column named ``"time"`` is a landmark stack's time since the landmark: the start
+        column is then ignored and predictions start at 0 on that clock.
+    start_column : column of interval starts (days; rows are ``(start, stop]``), used when the table has it;
+        without it every row starts at 0. ``None`` never reads one.
+    status_column : column of status codes (default ``"status"``).
 
     Fitted attributes
     -----------------
@@ -73,7 +104,11 @@ class CoxModel(BaseEstimator):
         strata: str | None = None,
         weights: str | None = None,
         cluster: str | None = _DEFAULT_CLUSTER,
+        variance: str = "model",
         event_code: int = 1,
+        stop_column: str | None = None,
+        start_column: str | None = "start",
+        status_column: str = "status",
     ) -> None:
         self.covariates = covariates
         self.ties = ties
@@ -81,44 +116,60 @@ class CoxModel(BaseEstimator):
         self.strata = strata
         self.weights = weights
         self.cluster = cluster
+        self.variance = variance
         self.event_code = event_code
+        self.stop_column = stop_column
+        self.start_column = start_column
+        self.status_column = status_column
 
     # ------------------------------------------------------------------ fitting
 
     def fit(self, table: pd.DataFrame) -> CoxModel:
-        """Fit on counting-process rows: ``stop`` (or ``time``), ``status``, optional ``start`` (default 0)."""
+        """Fit on rows with a stop column (``stop``/``time``), a status column and optionally a start column."""
         arrays = self.fitting_arrays(table)
         fit = fit_cox(
-            arrays["X"], arrays["stop"], arrays["event"], arrays["start"],
-            strata=arrays["strata"], weights=arrays["weights"], cluster=arrays["cluster"],
+            arrays.X, arrays.stop, arrays.event, arrays.start, strata=arrays.strata, weights=arrays.weights,
+            cluster=arrays.cluster if self.variance == "robust" else None,
             ties=self.ties, penalty=self.penalty, names=list(self.covariates),
         )
-        self._set_fitted(fit, "since_entry" if "stop" in table.columns else "since_landmark")
+        self._set_fitted(fit, "since_landmark" if self._stop_column(table) == "time" else "since_entry")
         return self
 
-    def fitting_arrays(self, table: pd.DataFrame) -> dict[str, np.ndarray | None]:
+    def _stop_column(self, table: pd.DataFrame) -> str:
+        if self.stop_column is not None:
+            return self.stop_column
+        return "stop" if "stop" in table.columns else "time"
+
+    def fitting_arrays(self, table: pd.DataFrame) -> FittingArrays:
         """The arrays :func:`fit_cox` receives for ``table``: X, stop, event, start, strata, weights, cluster."""
         if not isinstance(table, pd.DataFrame):
             raise ModelInputError(f"CoxModel needs a DataFrame, got {type(table).__name__}.")
+        if self.variance not in VARIANCES:
+            raise ModelInputError(f"variance={self.variance!r}; use one of {sorted(VARIANCES)}.")
         X = check_covariates(table, list(self.covariates), what="fitting table")
-        stop_col = "stop" if "stop" in table.columns else "time" if "time" in table.columns else None
-        if stop_col is None or "status" not in table.columns:
+        stop_col = self._stop_column(table)
+        missing = [c for c in (stop_col, self.status_column) if c not in table.columns]
+        if missing:
             raise ModelInputError(
-                "fitting table needs 'stop' (or 'time') and 'status' columns (counting-process rows: "
-                f"patient_id, start, stop, status); it has {list(table.columns)[:20]}."
+                f"fitting table has no column(s) {missing}: name the interval end with stop_column= and the status "
+                f"codes with status_column= (the cohort stage writes 'start', 'stop', 'status'); it has "
+                f"{list(table.columns)[:20]}."
             )
-        cluster = None
-        if self.cluster is not None and (self.cluster in table.columns or self.cluster != _DEFAULT_CLUSTER):
-            cluster = self._column(table, self.cluster, "cluster")
-        return {
-            "X": X,
-            "stop": self._numeric(table, stop_col),
-            "event": (self._numeric(table, "status") == self.event_code).astype(float),
-            "start": self._numeric(table, "start") if "start" in table.columns and stop_col == "stop" else None,
-            "strata": self._column(table, self.strata, "strata"),
-            "weights": self._column(table, self.weights, "weights"),
-            "cluster": cluster,
-        }
+        if self.variance == "robust" and (self.cluster is None or self.cluster not in table.columns):
+            raise ModelInputError(
+                f"variance='robust' clusters by the id column cluster={self.cluster!r}, which the table does not "
+                "have; name the patient id column with cluster= or use variance='model'."
+            )
+        use_start = self.start_column is not None and self.start_column in table.columns and stop_col != "time"
+        return FittingArrays(
+            X=X,
+            stop=self._numeric(table, stop_col),
+            event=(self._numeric(table, self.status_column) == self.event_code).astype(float),
+            start=self._numeric(table, self.start_column) if use_start and self.start_column else None,
+            strata=self._column(table, self.strata, "strata"),
+            weights=self._column(table, self.weights, "weights"),
+            cluster=table[self.cluster].to_numpy() if self.cluster in table.columns else None,
+        )
 
     def _set_fitted(self, fit: CoxFit, time_scale: str) -> None:
         index = pd.Index(fit.names, name="covariate")
@@ -163,11 +214,12 @@ class CoxModel(BaseEstimator):
     def summary(self, alpha: float = 0.05) -> pd.DataFrame:
         """Coefficients with hazard ratios, (1 - alpha) intervals and Wald p-values.
 
-        Intervals and p-values use the robust standard error when clusters were given, else the
-        model-based one (column ``se_used`` says which).
+        Intervals and p-values use the standard errors chosen by ``variance`` (model-based by default;
+        column ``se_used`` says which). :meth:`fit_summary` adds sizes, likelihoods, global tests and
+        concordance.
         """
         self._check_fitted()
-        use_robust = self.robust_se_ is not None
+        use_robust = self.variance == "robust" and self.robust_se_ is not None
         se = self.robust_se_ if use_robust else self.se_
         z_crit = stats.norm.ppf(1 - alpha / 2)
         z = self.coef_ / se
@@ -187,12 +239,53 @@ class CoxModel(BaseEstimator):
         out["se_used"] = "robust" if use_robust else "model"
         return out
 
+    def fit_summary(self, table: pd.DataFrame, alpha: float = 0.05) -> CoxSummary:
+        """Sizes, −2 log L, the global likelihood-ratio, score and Wald tests, Harrell's C and the coefficients.
+
+        Parameters
+        ----------
+        table : the rows the model was fitted on (for the patient count and the concordance).
+        alpha : 1 − confidence level of the hazard-ratio intervals.
+        """
+        self._check_fitted()
+        fit = self.fit_
+        arrays = self.fitting_arrays(table)
+        event = arrays.event
+        if int(event.sum()) != fit.n_events or len(table) != fit.n_rows:
+            raise ModelInputError(
+                f"table has {len(table)} rows and {int(event.sum())} events but the model was fitted on "
+                f"{fit.n_rows} rows and {fit.n_events} events; pass the table the model was fitted on."
+            )
+        start = np.zeros_like(arrays.stop) if arrays.start is None else arrays.start
+        cluster = arrays.cluster
+        lp = fit.linear_predictor(arrays.X)
+        c_index, c_se = stratified_concordance(start, arrays.stop, event.astype(int), lp, arrays.strata, cluster)
+        robust = self.variance == "robust" and fit.robust_wald_test is not None
+        return CoxSummary(
+            coefficients=self.summary(alpha),
+            n_rows=fit.n_rows,
+            n_patients=None if cluster is None else int(pd.Series(cluster).nunique()),
+            n_events=fit.n_events,
+            minus2_loglik_null=-2.0 * fit.loglik_null,
+            minus2_loglik=-2.0 * fit.loglik,
+            likelihood_ratio=fit.lr_test,
+            score=fit.score_test,
+            wald=fit.robust_wald_test if robust and fit.robust_wald_test is not None else fit.wald_test,
+            concordance=float(c_index),
+            concordance_se=float(c_se),
+            variance="robust" if robust else "model",
+            ties=fit.ties,
+            penalty=fit.penalty,
+            alpha=float(alpha),
+        )
+
     # ------------------------------------------------------------------ prediction
 
     def _strata_of(self, table: pd.DataFrame) -> np.ndarray:
         if self.strata is None:
             return np.zeros(len(table), dtype=object)
         values = self._column(table, self.strata, "strata")
+        assert values is not None  # strata is set here, and _column raises for a missing column
         unknown = ~pd.Series(values).isin(list(self._curves)).to_numpy()
         if unknown.any():
             raise ModelInputError(
@@ -214,20 +307,20 @@ class CoxModel(BaseEstimator):
         -------
         ndarray, shape (n_rows, len(times)).
         """
-        times = np.atleast_1d(np.asarray(times, dtype=float))
-        if (~np.isfinite(times)).any() or (times < 0).any():
-            raise ModelInputError(f"times must be finite days >= 0, got {times[:5].tolist()}.")
+        days = np.atleast_1d(np.asarray(times, dtype=float))
+        if (~np.isfinite(days)).any() or (days < 0).any():
+            raise ModelInputError(f"times must be finite days >= 0, got {days[:5].tolist()}.")
         lp = self.predict_log_relative_hazard(table)
         # a model fitted on a landmark stack ('time' from the landmark) predicts from its own origin 0
         origin = prediction_origin(table) if self.time_scale_ == "since_entry" else np.zeros(len(table))
         strata = self._strata_of(table)
-        out = np.empty((len(table), times.size))
+        out = np.empty((len(table), days.size))
         for level in pd.unique(strata):
             rows = np.flatnonzero(strata == level)
             jump_times, cumhaz = self._curves[level]
             at_origin = step_function_at(jump_times, cumhaz, origin[rows])
-            later = step_function_at(jump_times, cumhaz, (origin[rows, None] + times[None, :]).ravel())
-            out[rows] = later.reshape(rows.size, times.size) - at_origin[:, None]
+            later = step_function_at(jump_times, cumhaz, (origin[rows, None] + days[None, :]).ravel())
+            out[rows] = later.reshape(rows.size, days.size) - at_origin[:, None]
         return out * np.exp(lp)[:, None]
 
     def predict_curve(self, table: pd.DataFrame, times: Sequence[float]) -> np.ndarray:

@@ -151,9 +151,12 @@ FAMILIES: dict[str, Family] = {
                 Param("strata", ("str", "none"), None, "a column whose values get separate baseline hazards"),
                 Param("weights", ("str", "none"), None, "a column of positive case weights"),
                 Param("cluster", ("str", "none"), "patient_id", "a column of cluster labels (robust variance)"),
+                Param("variance", ("str",), "model",
+                      "standard errors: 'model' (inverse information) or 'robust' (sandwich by cluster); the "
+                      "workflow uses 'robust' when cluster is set", choices=("model", "robust")),
             ),
             "Cox model on the counting-process rows: the whole follow-up with time-varying covariates",
-            reserved=("event_code",),
+            reserved=("event_code", "stop_column", "start_column", "status_column"),
         ),
         Family(
             "forest", "riskbench.models.forest.SurvivalForest", LANDMARK_STACK,

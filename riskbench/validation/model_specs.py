@@ -87,6 +87,8 @@ def build_estimator(spec: ModelSpec, *, seed: int | None = None) -> Any:
     if spec.family == "landmark_cox":
         estimator = models.LandmarkSupermodel(spec.covariates, **params)
     elif spec.family == "time_varying_cox":
+        # a patient's rows are not independent: robust standard errors unless configured otherwise
+        params.setdefault("variance", "model" if params.get("cluster", "patient_id") is None else "robust")
         estimator = models.CoxModel(spec.covariates, **params)
     else:
         if seed is not None:
