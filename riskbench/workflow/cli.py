@@ -27,6 +27,7 @@ COMMAND_MODULES: tuple[str, ...] = (
     "riskbench.cohort.command",
     "riskbench.workflow.command",
     "riskbench.workflow.config_command",
+    "riskbench.workflow.external_command",
 )
 
 

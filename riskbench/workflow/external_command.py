@@ -1,0 +1,208 @@
+"""``riskbench validate-model``: validate a saved model on another cohort, fit its updates and choose one.
+
+The new cohort is described by an analysis configuration (the same form as for ``run-analysis``): its
+``[sources]`` say where the raw tables are and how they are read, ``seed``, ``[validation]
+bootstrap_resamples`` and ``[report]`` (small-count threshold, decision curves, triage target) are used; its
+``[cohort]`` modelling rules and ``[[models]]`` are not -- the rows are built with the saved model's own cohort
+rules, at the model's landmarks and prediction window, so the model sees its covariates exactly as defined in
+development. The output folder gets ``tables/``, ``figures/``, ``report.html`` and ``manifest.json``; no
+patient identifier and no date leaves the cohort stage.
+"""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import json
+import tempfile
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from riskbench.errors import RiskbenchError
+from riskbench.time_units import DAYS_PER_YEAR
+
+__all__ = ["ExternalRunError", "register", "validate_saved_model"]
+
+
+class ExternalRunError(RiskbenchError):
+    """The saved model and the new cohort cannot be brought together (the message says why and what to do)."""
+
+
+def _prepare_out(out: Path, overwrite: bool) -> None:
+    from riskbench.workflow.run_folder import remove_owned, write_marker
+
+    if out.exists() or out.is_symlink():
+        if not overwrite:
+            raise ExternalRunError(f"{out} exists; choose another --out or add --overwrite to replace it")
+        remove_owned(out, "the output of validate-model")
+    out.mkdir(parents=True)
+    write_marker(out, "partial")
+
+
+def _sha256(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def _reading(config: Any) -> dict[str, Any]:
+    """How the new cohort's sources are read (never the modelling rules)."""
+    cohort = config.cohort
+    return {"columns": dict(cohort.columns), "date_format": cohort.date_format,
+            "measurement_layout": cohort.measurement_layout, "kind_map": dict(cohort.kind_map)}
+
+
+def _rows(saved: Any, config: Any, temp: Path) -> tuple[pd.DataFrame, int]:
+    """The new cohort's landmark stack built with the model's rules; rows the model cannot predict are counted
+    and left out (a model without a missing-data method needs every covariate)."""
+    from riskbench.cohort import build_cohort
+
+    src = config.sources
+    spec = saved.cohort_spec(**_reading(config))
+    cohort = build_cohort(src.patients, src.measurements, src.outcomes, spec, temp_folder=temp)
+    stack = cohort.landmark_stack(list(saved.landmarks_days), saved.prediction_window_days)
+    absent = [c for c in saved.covariates if c not in stack.columns]
+    if absent:
+        raise ExternalRunError(f"the new cohort's rows lack the model's covariate(s) {absent}; check that the "
+                               "sources hold the model's variables (see the model sheet's cohort rules)")
+    dropped = 0
+    if saved.missing_data is None:
+        complete = stack[list(saved.covariates)].notna().all(axis=1)
+        dropped = int((~complete).sum())
+        stack = stack[complete]
+    # pseudonymous row labels: the source ids are not needed past this point
+    stack = stack.assign(patient_id=pd.factorize(stack["patient_id"])[0]).reset_index(drop=True)
+    return stack, dropped
+
+
+def validate_saved_model(model_path: str | Path, config_path: str | Path, out: str | Path, *,
+                         overwrite: bool = False, resamples: int | None = None, alpha: float = 0.05,
+                         shrink_revision: bool = False) -> tuple[Path, Any]:
+    """Validate a saved model on the cohort of a configuration, fit and choose its updates, write the report.
+
+    Parameters
+    ----------
+    model_path
+        The model's ``.bundle.json`` (or the model file beside it) in a run folder's ``models/``.
+    config_path
+        Analysis configuration of the new cohort (sources, seed, ``[validation]``, ``[report]``).
+    out
+        Output folder (created; replaced only with ``overwrite`` and when a riskbench run made it).
+    resamples
+        Bootstrap resamples of patients (default ``[validation] bootstrap_resamples``).
+    alpha
+        Significance level of the closed test.
+    shrink_revision
+        Shrink the model revision towards the original model.
+
+    Returns
+    -------
+    (Path, ExternalValidation)
+        The report page and the result.
+    """
+    from riskbench.report.external_report import write_external_report
+    from riskbench.validation.external import validate_externally
+    from riskbench.workflow.config import load_config
+    from riskbench.workflow.manifest import package_versions, utc_now
+    from riskbench.workflow.model_bundle import load_model
+    from riskbench.workflow.run_folder import write_marker
+
+    started = utc_now()
+    if not 0 < alpha < 1:
+        raise ExternalRunError(f"--alpha must be between 0 and 1; got {alpha!r}")
+    if resamples is not None and resamples < 0:
+        raise ExternalRunError(f"--resamples must be 0 or more; got {resamples}")
+    config = load_config(config_path, check_data=True)
+    saved = load_model(model_path)
+    out = Path(out)
+    horizons = [h for h in saved.horizons_days if h <= saved.prediction_window_days + 1e-9] or \
+        [saved.prediction_window_days]
+    threshold = int(config.report.small_count_threshold)
+    n_boot = int(config.validation.bootstrap_resamples if resamples is None else resamples)
+    report = config.report
+    thresholds = tuple(float(t) for t in np.linspace(report.decision_threshold_min, report.decision_threshold_max,
+                                                     21)) if report.decision_curves else ()
+    with tempfile.TemporaryDirectory(prefix="riskbench-external-") as temp:
+        stack, dropped = _rows(saved, config, Path(temp))
+    _prepare_out(out, overwrite)
+    ev = validate_externally(saved.model, stack, horizons, shrink_revision=shrink_revision, alpha=alpha,
+                             thresholds=thresholds, triage_target_npv=report.triage_target_npv if report.triage
+                             else None, min_outcomes=threshold, n_boot=n_boot, seed=int(config.seed))
+    if dropped:
+        ev.skipped.append(("landmark rows without every covariate",
+                           f"{dropped if dropped >= threshold else f'<{threshold}'} row(s) left out: the model has "
+                           "no missing-data method"))
+    facts = [("model", saved.name), ("family", saved.family),
+             ("landmarks", ", ".join(f"{s / DAYS_PER_YEAR:g}" for s in saved.landmarks_days) + " years"),
+             ("horizons", ", ".join(f"{h / DAYS_PER_YEAR:g}" for h in ev.horizons) + " years"),
+             ("bootstrap resamples", str(n_boot)), ("seed", str(config.seed)), ("closed-test level", f"{alpha:g}")]
+    page = write_external_report(ev, out, title=f"External validation of {saved.name}", threshold=threshold,
+                                 facts=facts)
+    bundle = Path(saved.bundle_path) if saved.bundle_path is not None else Path(model_path)
+    manifest = {
+        "riskbench_external_validation": 1, "started_utc": started, "finished_utc": utc_now(),
+        "model": {"name": saved.name, "family": saved.family, "bundle": bundle.name, "sha256": _sha256(bundle)},
+        "configuration": {"file": Path(config_path).name, "sha256": _sha256(Path(config_path))},
+        "seed": int(config.seed), "bootstrap_resamples": n_boot, "alpha": alpha, "shrink_revision": shrink_revision,
+        "chosen_update": {f"{h:g}": ev.chosen(h) for h in ev.horizons},
+        "versions": package_versions(),
+    }
+    (out / "manifest.json").write_text(json.dumps(manifest, indent=2) + "\n", encoding="utf-8")
+    write_marker(out, "complete")
+    return page, ev
+
+
+def summary_lines(ev: Any) -> list[str]:
+    """One line per horizon: O/E of the original model, the chosen update and its O/E (pooled rows)."""
+    from riskbench.validation.updating import METHOD_WORDS
+
+    table = ev.comparison()
+    lines = []
+    for h in ev.horizons:
+        oe = table[(table["horizon_days"] == h) & (table["metric"] == "oe_ratio")].set_index("model")
+        chosen = ev.chosen(h)
+
+        def text(model: str, frame: pd.DataFrame = oe) -> str:
+            r = frame.loc[model]
+            return f"{r['estimate']:.2f} ({r['ci_low']:.2f} to {r['ci_high']:.2f})"
+
+        line = f"at {h / DAYS_PER_YEAR:g} years: O/E of the original model {text('original')}; chosen: " \
+               f"{METHOD_WORDS[chosen]}"
+        if chosen != "original" and chosen in oe.index:
+            line += f", O/E after updating {text(chosen)}"
+        lines.append(line)
+    return lines
+
+
+def _validate(args: argparse.Namespace) -> int:
+    page, ev = validate_saved_model(args.model, args.config, args.out, overwrite=args.overwrite,
+                                    resamples=args.resamples, alpha=args.alpha,
+                                    shrink_revision=args.shrink_revision)
+    for line in summary_lines(ev):
+        print(line)
+    print(page)
+    return 0
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    """Add ``validate-model`` to the ``riskbench`` command line."""
+    cmd = subparsers.add_parser(
+        "validate-model",
+        help="validate a saved model on another cohort, fit its updates and choose one",
+        description="Build the new cohort's rows with the saved model's own cohort rules, measure the model's "
+        "performance and calibration there, fit recalibration in the large, of intercept and slope, per-landmark "
+        "baselines and a revision, choose among them by a closed test, and write tables, figures and report.html "
+        "into OUT. Research software, not a medical device.",
+    )
+    cmd.add_argument("model", help="the saved model: models/<name>.bundle.json of a run folder")
+    cmd.add_argument("--config", required=True, help="analysis configuration of the new cohort (TOML)")
+    cmd.add_argument("--out", required=True, help="output folder to create")
+    cmd.add_argument("--overwrite", action="store_true", help="replace an output folder an earlier run made")
+    cmd.add_argument("--resamples", type=int, default=None,
+                     help="bootstrap resamples of patients (default: [validation] bootstrap_resamples)")
+    cmd.add_argument("--alpha", type=float, default=0.05, help="significance level of the closed test (0.05)")
+    cmd.add_argument("--shrink-revision", action="store_true",
+                     help="shrink the revised coefficients towards the original model")
+    cmd.set_defaults(handler=_validate)
+
