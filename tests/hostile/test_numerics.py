@@ -151,7 +151,10 @@ def test_recorded_warnings_sort_by_kind():
 
 def test_an_ill_conditioned_information_matrix_warns_and_counts_as_numerical():
     """A singular 2x2 matrix has no Cholesky factor (**common practice**: positive definiteness is what a
-    Cholesky factorisation needs); the engine falls back to least squares and now says so."""
+    Cholesky factorisation needs); the engine falls back to least squares and now says so.
+
+    The solver is private on purpose: no public fit reaches a singular information matrix reliably (the engine
+    refuses collinear and constant columns before it gets there), so the fallback is tested directly."""
     from riskbench.models.cox_engine import CoxIllConditionedWarning, _inverse_pd, _solve_pd
 
     singular = np.array([[1.0, 1.0], [1.0, 1.0]])

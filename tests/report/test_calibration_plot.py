@@ -82,5 +82,5 @@ def test_hostile_model_name_is_plain_text(cohort):
     name = "$\\frac{1}{0}$ <script>\nalert(1)"
     fig = calibration_figure(cal, risk, model_name=name)
     fig.canvas.draw()  # mathtext would fail or render a formula
-    assert plain_text(name) in fig._suptitle.get_text() and "\n" not in fig._suptitle.get_text()
+    assert plain_text(name) in fig.get_suptitle() and "\n" not in fig.get_suptitle()
     assert plain_text("a$b") == "a\\$b"

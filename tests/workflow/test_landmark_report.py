@@ -13,6 +13,8 @@ import pytest
 from riskbench.report.auc_plot import auc_curve_figure
 from riskbench.report.decision_curve_plot import decision_curve_figure
 from riskbench.validation.landmark_performance import EvaluationRows
+# _resample_caution and _unmeasured_notes are private on purpose: they decide the wording and kind of a note,
+# which the public report_landmark_performance only shows after a full bootstrap run.
 from riskbench.workflow.landmark_report import (
     POOLED_LABEL,
     _resample_caution,
