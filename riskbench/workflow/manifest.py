@@ -80,10 +80,12 @@ def input_files(config: AnalysisConfig) -> dict[str, Path]:
 
 
 def output_digests(run_dir: str | Path) -> dict[str, str]:
-    """SHA-256 of every table, figure and notes file of a run, keyed by path relative to the run folder."""
+    """SHA-256 of every table, figure, notes file and saved model file of a run, keyed by path relative to the
+    run folder."""
     run_dir = Path(run_dir)
     out: dict[str, str] = {}
-    for sub in (TABLES, FIGURES, "notes"):  # notes: parts left out and fitting warnings (report/notes.py)
+    # notes: parts left out and fitting warnings (report/notes.py); models: saved models (workflow/model_bundle.py)
+    for sub in (TABLES, FIGURES, "notes", "models"):
         for path in sorted((run_dir / sub).glob("*")):
             if path.is_file() and not path.name.startswith("."):
                 out[f"{sub}/{path.name}"] = file_sha256(path)

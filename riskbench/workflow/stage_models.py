@@ -6,7 +6,8 @@ step of each covariate, stated in ``per``: :mod:`riskbench.report.effects`), ``f
 plot of those), ``figures/landmark_effects`` (β(s) of landmark-varying effects with pointwise 95% bands),
 ``tables/landmark_effect_forms.csv`` (likelihood-ratio test of the richer landmark form), and
 ``data/apparent_predictions.parquet`` (``row, model, horizon, risk``: each landmark-stack row's predicted
-risk at every evaluation horizon, horizons in days).
+risk at every evaluation horizon, horizons in days), and every fitted model under ``models/`` (model file,
+``<model>.bundle.json`` and the model sheet ``<model>.md``: :mod:`riskbench.workflow.model_bundle`).
 
 A model that cannot be fitted on the whole cohort (too few outcomes for its coefficients, separation,
 collinear covariates) does not stop the run: it is left out of this and the later stages, and
@@ -16,9 +17,9 @@ models carry on. Warnings raised while fitting are recorded and counted per mode
 
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from collections.abc import Callable, Mapping
 from typing import Any
 
 import numpy as np
@@ -32,6 +33,7 @@ from riskbench.report.notes import Note, save_notes
 from riskbench.report.outputs import load_data, save_data, save_figure, save_table
 from riskbench.workflow.config import AnalysisConfig, ConfigError
 from riskbench.workflow.fit_diagnosis import describe_fit_failure, describe_warnings
+from riskbench.workflow.model_bundle import save_run_model
 from riskbench.workflow.model_effects import PART_ERRORS, coefficient_table, effect_bands, form_tests, model_effects
 from riskbench.workflow.model_factory import fit_model
 from riskbench.workflow.stage_cohort import covariate_labels
@@ -170,6 +172,7 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
                 per_fit.append((spec.name, fit.warnings))
                 continue
             predictions.append(fit.predictions)
+            notes += _save_model(config, spec, fit.model, stack, cp, horizons, label_of, run_dir)
             if hasattr(fit.model, "summary"):
                 with recorded_warnings() as summary_log:
                     coefficients = outcome_hazard_ratios(fit.model.summary())
@@ -210,6 +213,22 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     for name, table in result.tables.items():
         save_table(table, run_dir, name)
     return result
+
+
+def _save_model(config: AnalysisConfig, spec: Any, model: Any, stack: pd.DataFrame, cp: pd.DataFrame | None,
+                horizons: np.ndarray, label_of: Callable[[str], str], run_dir: Path) -> list[Note]:
+    """Save one fitted model under ``models/`` with its bundle and model sheet
+    (:func:`riskbench.workflow.model_bundle.save_run_model`); a model that cannot be saved becomes a note."""
+    development = cp if spec.family in ("cox", "time_varying_cox") and cp is not None else stack
+    try:
+        with recorded_warnings():
+            save_run_model(run_dir, spec.name, spec.family, model, cohort_rules=config.cohort,
+                           development=development, landmarks_days=config.landmarks.landmarks_days,
+                           prediction_window_days=config.landmarks.horizon_days, horizons_days=horizons,
+                           labels={c: label_of(c) for c in spec.covariates})
+    except FIT_ERRORS + (OSError,) as exc:
+        return [Note("models", "saved model", f"not saved: {exc}", model=spec.name, kind="not computed")]
+    return []
 
 
 @dataclass
