@@ -15,6 +15,7 @@ import argparse
 import hashlib
 import json
 import tempfile
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -46,21 +47,66 @@ def _sha256(path: Path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
 
-def _reading(config: Any) -> dict[str, Any]:
-    """How the new cohort's sources are read (never the modelling rules)."""
-    cohort = config.cohort
-    return {"columns": dict(cohort.columns), "date_format": cohort.date_format,
-            "measurement_layout": cohort.measurement_layout, "kind_map": dict(cohort.kind_map)}
+@dataclass(frozen=True)
+class NewCohort:
+    """Where the new cohort's tables are, how they are read, and the settings of its validation."""
+
+    sources: tuple[Any, Any, Any]
+    reading: dict[str, Any]
+    seed: int = 0
+    threshold: int = 10
+    resamples: int = 200
+    report: Any = None
+    config_file: Path | None = None
+
+    @classmethod
+    def from_arguments(cls, config_path: str | Path | None, data: str | Path | None) -> NewCohort:
+        """From an analysis configuration, a folder of the three tables, or both (the folder's tables then
+        replace the configuration's sources)."""
+        from riskbench.workflow.config import ReportOptions, ValidationPlan, load_config
+
+        if config_path is None and data is None:
+            raise ExternalRunError("give the new cohort: --config (an analysis configuration) and/or --data (a "
+                                   "folder with patients, measurements and outcomes as .parquet or .csv)")
+        sources: tuple[Any, Any, Any] | None = None
+        if data is not None:
+            sources = _folder_tables(Path(data))
+        if config_path is None:
+            assert sources is not None
+            return cls(sources=sources, reading={}, seed=0,
+                       threshold=ReportOptions().small_count_threshold,
+                       resamples=ValidationPlan().bootstrap_resamples, report=ReportOptions())
+        config = load_config(config_path, check_data=sources is None)
+        cohort = config.cohort
+        src = config.sources
+        reading = {"columns": dict(cohort.columns), "date_format": cohort.date_format,
+                   "measurement_layout": cohort.measurement_layout, "kind_map": dict(cohort.kind_map)}
+        return cls(sources=sources or (src.patients, src.measurements, src.outcomes),
+                   reading={} if sources is not None else reading, seed=int(config.seed),
+                   threshold=int(config.report.small_count_threshold),
+                   resamples=int(config.validation.bootstrap_resamples), report=config.report,
+                   config_file=Path(config_path))
 
 
-def _rows(saved: Any, config: Any, temp: Path) -> tuple[pd.DataFrame, int]:
+def _folder_tables(folder: Path) -> tuple[Path, Path, Path]:
+    found = []
+    for name in ("patients", "measurements", "outcomes"):
+        candidates = [folder / f"{name}.{ext}" for ext in ("parquet", "csv")]
+        path = next((c for c in candidates if c.is_file()), None)
+        if path is None:
+            raise ExternalRunError(f"--data {folder}: no {name}.parquet or {name}.csv there; the folder must hold "
+                                   "the three tables of the input contract (as `riskbench simulate-cohort` writes)")
+        found.append(path)
+    return found[0], found[1], found[2]
+
+
+def _rows(saved: Any, cohort_in: NewCohort, temp: Path) -> tuple[pd.DataFrame, int]:
     """The new cohort's landmark stack built with the model's rules; rows the model cannot predict are counted
     and left out (a model without a missing-data method needs every covariate)."""
     from riskbench.cohort import build_cohort
 
-    src = config.sources
-    spec = saved.cohort_spec(**_reading(config))
-    cohort = build_cohort(src.patients, src.measurements, src.outcomes, spec, temp_folder=temp)
+    spec = saved.cohort_spec(**cohort_in.reading)
+    cohort = build_cohort(*cohort_in.sources, spec, temp_folder=temp)
     stack = cohort.landmark_stack(list(saved.landmarks_days), saved.prediction_window_days)
     absent = [c for c in saved.covariates if c not in stack.columns]
     if absent:
@@ -76,19 +122,23 @@ def _rows(saved: Any, config: Any, temp: Path) -> tuple[pd.DataFrame, int]:
     return stack, dropped
 
 
-def validate_saved_model(model_path: str | Path, config_path: str | Path, out: str | Path, *,
-                         overwrite: bool = False, resamples: int | None = None, alpha: float = 0.05,
-                         shrink_revision: bool = False) -> tuple[Path, Any]:
-    """Validate a saved model on the cohort of a configuration, fit and choose its updates, write the report.
+def validate_saved_model(model_path: str | Path, out: str | Path, *, config_path: str | Path | None = None,
+                         data: str | Path | None = None, overwrite: bool = False, resamples: int | None = None,
+                         alpha: float = 0.05, shrink_revision: bool = False) -> tuple[Path, Any]:
+    """Validate a saved model on a new cohort, fit and choose its updates, write the report.
 
     Parameters
     ----------
     model_path
         The model's ``.bundle.json`` (or the model file beside it) in a run folder's ``models/``.
-    config_path
-        Analysis configuration of the new cohort (sources, seed, ``[validation]``, ``[report]``).
     out
         Output folder (created; replaced only with ``overwrite`` and when a riskbench run made it).
+    config_path
+        Analysis configuration of the new cohort (sources, seed, ``[validation]``, ``[report]``).
+    data
+        A folder with the new cohort's ``patients``, ``measurements`` and ``outcomes`` (``.parquet`` or
+        ``.csv``, our column names); replaces the configuration's sources. Without a configuration the
+        defaults apply (seed 0, small-count threshold 10, the default resamples, decision curves and triage).
     resamples
         Bootstrap resamples of patients (default ``[validation] bootstrap_resamples``).
     alpha
@@ -103,7 +153,6 @@ def validate_saved_model(model_path: str | Path, config_path: str | Path, out: s
     """
     from riskbench.report.external_report import write_external_report
     from riskbench.validation.external import validate_externally
-    from riskbench.workflow.config import load_config
     from riskbench.workflow.manifest import package_versions, utc_now
     from riskbench.workflow.model_bundle import load_model
     from riskbench.workflow.run_folder import write_marker
@@ -113,22 +162,22 @@ def validate_saved_model(model_path: str | Path, config_path: str | Path, out: s
         raise ExternalRunError(f"--alpha must be between 0 and 1; got {alpha!r}")
     if resamples is not None and resamples < 0:
         raise ExternalRunError(f"--resamples must be 0 or more; got {resamples}")
-    config = load_config(config_path, check_data=True)
+    new = NewCohort.from_arguments(config_path, data)
     saved = load_model(model_path)
     out = Path(out)
     horizons = [h for h in saved.horizons_days if h <= saved.prediction_window_days + 1e-9] or \
         [saved.prediction_window_days]
-    threshold = int(config.report.small_count_threshold)
-    n_boot = int(config.validation.bootstrap_resamples if resamples is None else resamples)
-    report = config.report
+    threshold = new.threshold
+    n_boot = int(new.resamples if resamples is None else resamples)
+    report = new.report
     thresholds = tuple(float(t) for t in np.linspace(report.decision_threshold_min, report.decision_threshold_max,
                                                      21)) if report.decision_curves else ()
     with tempfile.TemporaryDirectory(prefix="riskbench-external-") as temp:
-        stack, dropped = _rows(saved, config, Path(temp))
+        stack, dropped = _rows(saved, new, Path(temp))
     _prepare_out(out, overwrite)
     ev = validate_externally(saved.model, stack, horizons, shrink_revision=shrink_revision, alpha=alpha,
                              thresholds=thresholds, triage_target_npv=report.triage_target_npv if report.triage
-                             else None, min_outcomes=threshold, n_boot=n_boot, seed=int(config.seed))
+                             else None, min_outcomes=threshold, n_boot=n_boot, seed=new.seed)
     if dropped:
         ev.skipped.append(("landmark rows without every covariate",
                            f"{dropped if dropped >= threshold else f'<{threshold}'} row(s) left out: the model has "
@@ -136,15 +185,18 @@ def validate_saved_model(model_path: str | Path, config_path: str | Path, out: s
     facts = [("model", saved.name), ("family", saved.family),
              ("landmarks", ", ".join(f"{s / DAYS_PER_YEAR:g}" for s in saved.landmarks_days) + " years"),
              ("horizons", ", ".join(f"{h / DAYS_PER_YEAR:g}" for h in ev.horizons) + " years"),
-             ("bootstrap resamples", str(n_boot)), ("seed", str(config.seed)), ("closed-test level", f"{alpha:g}")]
+             ("bootstrap resamples", str(n_boot)), ("seed", str(new.seed)), ("closed-test level", f"{alpha:g}")]
     page = write_external_report(ev, out, title=f"External validation of {saved.name}", threshold=threshold,
                                  facts=facts)
     bundle = Path(saved.bundle_path) if saved.bundle_path is not None else Path(model_path)
     manifest = {
         "riskbench_external_validation": 1, "started_utc": started, "finished_utc": utc_now(),
         "model": {"name": saved.name, "family": saved.family, "bundle": bundle.name, "sha256": _sha256(bundle)},
-        "configuration": {"file": Path(config_path).name, "sha256": _sha256(Path(config_path))},
-        "seed": int(config.seed), "bootstrap_resamples": n_boot, "alpha": alpha, "shrink_revision": shrink_revision,
+        "configuration": None if new.config_file is None else {"file": new.config_file.name,
+                                                                "sha256": _sha256(new.config_file)},
+        "inputs": {Path(str(p)).name: _sha256(Path(str(p))) for p in (getattr(s, "path", s) for s in new.sources)
+                   if Path(str(p)).is_file()},
+        "seed": new.seed, "bootstrap_resamples": n_boot, "alpha": alpha, "shrink_revision": shrink_revision,
         "chosen_update": {f"{h:g}": ev.chosen(h) for h in ev.horizons},
         "versions": package_versions(),
     }
@@ -176,8 +228,8 @@ def summary_lines(ev: Any) -> list[str]:
 
 
 def _validate(args: argparse.Namespace) -> int:
-    page, ev = validate_saved_model(args.model, args.config, args.out, overwrite=args.overwrite,
-                                    resamples=args.resamples, alpha=args.alpha,
+    page, ev = validate_saved_model(args.model, args.out, config_path=args.config, data=args.data,
+                                    overwrite=args.overwrite, resamples=args.resamples, alpha=args.alpha,
                                     shrink_revision=args.shrink_revision)
     for line in summary_lines(ev):
         print(line)
@@ -196,7 +248,10 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "into OUT. Research software, not a medical device.",
     )
     cmd.add_argument("model", help="the saved model: models/<name>.bundle.json of a run folder")
-    cmd.add_argument("--config", required=True, help="analysis configuration of the new cohort (TOML)")
+    cmd.add_argument("--config", help="analysis configuration of the new cohort (TOML): sources, seed, "
+                     "[validation] bootstrap_resamples, [report] settings")
+    cmd.add_argument("--data", help="folder with the new cohort's patients, measurements and outcomes "
+                     "(.parquet or .csv); replaces the configuration's sources")
     cmd.add_argument("--out", required=True, help="output folder to create")
     cmd.add_argument("--overwrite", action="store_true", help="replace an output folder an earlier run made")
     cmd.add_argument("--resamples", type=int, default=None,

@@ -57,7 +57,7 @@ def saved(tmp_path_factory):
 
 def test_shifted_cohort_gets_an_update_that_brings_oe_back_to_one(saved):
     folder, bundle, configs = saved
-    page, ev = validate_saved_model(bundle, configs["shifted"], folder / "out_shifted", resamples=10)
+    page, ev = validate_saved_model(bundle, folder / "out_shifted", config_path=configs["shifted"], resamples=10)
     table = ev.comparison()
     oe = table[(table["metric"] == "oe_ratio") & (table["horizon_days"] == WINDOW)].set_index("model")
     # the hazard doubled: the original model under-predicts, clearly
@@ -80,8 +80,8 @@ def test_shifted_cohort_gets_an_update_that_brings_oe_back_to_one(saved):
 
 
 def test_unshifted_cohort_keeps_the_original_model(saved, capsys):
-    folder, bundle, configs = saved
-    code = main(["validate-model", str(bundle), "--config", str(configs["same"]), "--out",
+    folder, bundle, _ = saved
+    code = main(["validate-model", str(bundle), "--data", str(folder / "same"), "--out",
                  str(folder / "out_same"), "--resamples", "5"])
     assert code == 0
     printed = capsys.readouterr().out
@@ -94,8 +94,12 @@ def test_an_existing_folder_is_not_replaced_without_overwrite(saved, capsys):
     (folder / "taken").mkdir()
     (folder / "taken" / "notes.txt").write_text("mine")
     with pytest.raises(ExternalRunError, match="--overwrite"):
-        validate_saved_model(bundle, configs["same"], folder / "taken", resamples=0)
+        validate_saved_model(bundle, folder / "taken", config_path=configs["same"], resamples=0)
     code = main(["validate-model", str(bundle), "--config", str(configs["same"]), "--out", str(folder / "taken"),
                  "--overwrite", "--resamples", "0"])
     assert code == 2 and "not made by a riskbench run" in capsys.readouterr().err
     assert (folder / "taken" / "notes.txt").read_text() == "mine"
+    with pytest.raises(ExternalRunError, match="--data"):
+        validate_saved_model(bundle, folder / "elsewhere", data=folder / "nothing_here")
+    with pytest.raises(ExternalRunError, match="--config"):
+        validate_saved_model(bundle, folder / "elsewhere")
