@@ -298,7 +298,7 @@ def _equation(saved: Any, horizon: float) -> list[str]:
     return lines
 
 
-def _forest(saved: Any, importance: pd.DataFrame | None) -> list[str]:
+def _forest(saved: Any) -> list[str]:
     part = saved.parts[0]
     params = part.get_params()
     lines = ["## The model", "",
@@ -308,7 +308,8 @@ def _forest(saved: Any, importance: pd.DataFrame | None) -> list[str]:
              "", "Settings:", ""]
     lines += md_table(["setting", "value"], [[md_text(k), md_text(v)] for k, v in sorted(params.items())])
     lines.append("")
-    if importance is not None and len(importance):
+    importance = pd.DataFrame(saved.variable_importance or [], columns=["covariate", "importance"])
+    if len(importance):
         lines += ["Variable importance (drop in Harrell's C at the prediction window when the covariate's values "
                   "are permuted across the development rows; larger = more important):", ""]
         lines += md_table(["covariate", "drop in C"], [[md_text(r.covariate), f"{r.importance:.4f}"]
@@ -366,13 +367,13 @@ def _example(saved: Any) -> list[str]:
     return lines
 
 
-def model_sheet(saved: Any, importance: pd.DataFrame | None = None) -> str:
+def model_sheet(saved: Any) -> str:
     """The model sheet of a :class:`~riskbench.workflow.model_bundle.SavedModel` as Markdown text."""
     lines = [f"# Model sheet: {md_text(saved.name)}", ""]
     lines += _caution(saved) + _question(saved) + _rules(saved) + _covariates(saved)
     is_forest = not isinstance(saved.parts[0], (LandmarkSupermodel, CoxModel))
     if is_forest:
-        lines += _forest(saved, importance)
+        lines += _forest(saved)
     else:
         lines += _equation(saved, example_point(saved)[1]) + _reference_risks(saved) + _example(saved)
     lines += ["## Files", "",
@@ -382,9 +383,9 @@ def model_sheet(saved: Any, importance: pd.DataFrame | None = None) -> str:
     return "\n".join(lines)
 
 
-def write_model_sheet(saved: Any, path: str | Path, importance: pd.DataFrame | None = None) -> Path:
+def write_model_sheet(saved: Any, path: str | Path) -> Path:
     """Write :func:`model_sheet` to ``path``; returns the path."""
-    return atomic_write_text(Path(path), model_sheet(saved, importance))
+    return atomic_write_text(Path(path), model_sheet(saved))
 
 
 def read_sheet_table(text: str, what: str) -> list[list[str]]:

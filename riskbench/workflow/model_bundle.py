@@ -179,9 +179,34 @@ def _missing_data_doc(model: MissingDataModel, folder: Path, stem: str) -> dict[
     return doc
 
 
+def forest_importance(model: Any, table: pd.DataFrame, covariates: Sequence[str], horizon_days: float, *,
+                      seed: int = 0) -> list[dict[str, Any]]:
+    """Permutation importance of each covariate: Harrell's C of the risk at ``horizon_days`` on ``table`` minus
+    the C after the covariate's values are shuffled across the rows (one seeded permutation each)."""
+    from riskbench.metrics.concordance import concordance_harrell
+
+    rows = table.reset_index(drop=True)
+    time, status = rows["time"].to_numpy(float), rows["status"].to_numpy(int)
+
+    def c_index(frame: pd.DataFrame) -> float:
+        risk = np.asarray(model.predict_risk(frame, horizon_days), float)
+        keep = np.isfinite(risk)
+        return float(concordance_harrell(time[keep], status[keep], risk[keep], with_se=False).estimate)
+
+    full = c_index(rows)
+    rng = np.random.default_rng(seed)
+    out = []
+    for name in covariates:
+        shuffled = rows.copy()
+        shuffled[name] = rng.permutation(shuffled[name].to_numpy())
+        out.append({"covariate": str(name), "importance": full - c_index(shuffled)})
+    return out
+
+
 def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, cohort_rules: CohortSpec,
                    development: pd.DataFrame, landmarks_days: Sequence[float], prediction_window_days: float,
-                   horizons_days: Sequence[float] | np.ndarray, labels: Mapping[str, str] | None = None) -> Path:
+                   horizons_days: Sequence[float] | np.ndarray, labels: Mapping[str, str] | None = None,
+                   seed: int = 0) -> Path:
     """Save a fitted model of a run under ``<run_dir>/models/`` with its bundle description and model sheet.
 
     Parameters
@@ -202,6 +227,8 @@ def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, c
         The landmarks s, the prediction window w and the horizons the run predicted at.
     labels : mapping, optional
         Readable covariate labels for the sheet.
+    seed : int
+        Seed of the permutations of a forest's variable importance (:func:`forest_importance`).
 
     Returns
     -------
@@ -229,6 +256,8 @@ def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, c
         "horizons_days": [float(h) for h in horizons_days],
         "development_ranges": development_ranges(development, covariates),
         "labels": {c: str(labels[c]) for c in covariates if labels and c in labels},
+        "variable_importance": (forest_importance(model, development, covariates, float(prediction_window_days),
+                                                  seed=seed) if part_docs[0]["kind"] == "forest" else None),
         "caution": CAUTION, "versions": package_versions(),
     }
     bundle = folder / f"{stem}{BUNDLE_SUFFIX}"
@@ -345,6 +374,7 @@ def load_model(path: str | Path) -> SavedModel:
         prediction_window_days=float(doc["prediction_window_days"]),
         horizons_days=tuple(float(h) for h in doc.get("horizons_days", [doc["prediction_window_days"]])),
         development_ranges=dict(doc["development_ranges"]), missing_data=md, labels=dict(doc.get("labels", {})),
+        variable_importance=doc.get("variable_importance"),
         bundle_path=bundle, versions=dict(doc.get("versions", {})))
 
 
@@ -373,6 +403,8 @@ class SavedModel:
         The missing-data method and what it needs to predict.
     labels : dict
         Readable covariate labels.
+    variable_importance : list of dict or None
+        A forest's permutation importance (``covariate``, ``importance``: drop in Harrell's C).
     bundle_path : Path
     versions : dict
         Package versions that saved it.
@@ -390,6 +422,7 @@ class SavedModel:
     development_ranges: dict[str, dict[str, Any]]
     missing_data: dict[str, Any] | None = None
     labels: dict[str, str] = field(default_factory=dict)
+    variable_importance: list[dict[str, Any]] | None = None
     bundle_path: Path | None = None
     versions: dict[str, str] = field(default_factory=dict)
 

@@ -37,7 +37,7 @@ from riskbench.workflow.model_bundle import save_run_model
 from riskbench.workflow.model_effects import PART_ERRORS, coefficient_table, effect_bands, form_tests, model_effects
 from riskbench.workflow.model_factory import fit_model
 from riskbench.workflow.stage_cohort import covariate_labels
-from riskbench.workflow.stage_result import StageResult
+from riskbench.workflow.stage_result import ModelsStageResult, StageResult
 from riskbench.workflow.term_labels import term_label
 
 #: Errors that make one model's fit (or prediction) fail without stopping the run. A ConfigError is not
@@ -142,7 +142,7 @@ def _finite_ratios(table: pd.DataFrame) -> bool:
     return bool(np.isfinite(values).all() and (values > 0).all())
 
 
-def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
+def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> ModelsStageResult:
     """Run stage 2 (see the module docstring); return what it wrote."""
     run_dir = Path(run_dir)
     tables = {"counting_process": load_data(run_dir, "counting_process"),
@@ -150,9 +150,10 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     stack, cp = tables["landmark_stack"], tables["counting_process"]
     threshold = config.report.small_count_threshold
     horizons = evaluation_horizons(config)
-    result = StageResult(stage="models", run_dir=run_dir)
+    predictions: list[pd.DataFrame] = []
+    result = ModelsStageResult(stage="models", run_dir=run_dir, landmark_stack=stack, counting_process=cp,
+                               prediction_frames=predictions)
     notes: list[Note] = []
-    predictions = []
     per_fit: list[tuple[str, list[FitWarning]]] = []
     hazard_ratios: dict[str, pd.DataFrame] = {}
     effects = EffectParts()
@@ -172,6 +173,7 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
                 per_fit.append((spec.name, fit.warnings))
                 continue
             predictions.append(fit.predictions)
+            result.models[spec.name] = fit.model
             notes += _save_model(config, spec, fit.model, stack, cp, horizons, label_of, run_dir)
             if hasattr(fit.model, "summary"):
                 with recorded_warnings() as summary_log:
@@ -225,7 +227,7 @@ def _save_model(config: AnalysisConfig, spec: Any, model: Any, stack: pd.DataFra
             save_run_model(run_dir, spec.name, spec.family, model, cohort_rules=config.cohort,
                            development=development, landmarks_days=config.landmarks.landmarks_days,
                            prediction_window_days=config.landmarks.horizon_days, horizons_days=horizons,
-                           labels={c: label_of(c) for c in spec.covariates})
+                           labels={c: label_of(c) for c in spec.covariates}, seed=config.seed)
     except FIT_ERRORS + (OSError,) as exc:
         return [Note("models", "saved model", f"not saved: {exc}", model=spec.name, kind="not computed")]
     return []
