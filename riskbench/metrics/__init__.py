@@ -17,15 +17,18 @@ from riskbench.metrics.concordance import (
 )
 from riskbench.metrics.inputs import MetricInputError
 from riskbench.metrics.net_benefit import net_benefit
+from riskbench.metrics.survival_curves import CurveEstimate, aalen_johansen_estimate, kaplan_meier_estimate
 from riskbench.metrics.triage import triage_operating_point
 
 __all__ = [
     "AUCResult",
     "Calibration",
     "Concordance",
+    "CurveEstimate",
     "DCalibration",
     "MetricInputError",
     "aalen_johansen",
+    "aalen_johansen_estimate",
     "auc_cumulative_dynamic",
     "brier_score",
     "calibration_at_horizon",
@@ -36,6 +39,7 @@ __all__ = [
     "d_calibration",
     "integrated_brier_score",
     "kaplan_meier",
+    "kaplan_meier_estimate",
     "net_benefit",
     "roc_at_horizon",
     "triage_operating_point",
