@@ -59,7 +59,9 @@ def test_optimism_corrected_c_is_close_to_c_in_a_large_fresh_cohort(development)
     Tolerance: the corrected C inherits the sampling error of the development cohort's apparent C (the
     optimism itself varies little between samples), and the fresh cohort's C has its own; we allow three
     times their combined standard error (each from the metric's own SE), about 0.05-0.07 here, which an
-    estimator off by more than that (e.g. the apparent C of an over-fitted model) would exceed.
+    estimator off by more than that (e.g. the apparent C of an over-fitted model) would exceed. This is a
+    coarse statistical check of the estimand; the computation itself is checked exactly (to 1e-10, same patient
+    draws) against an independent loop in ``test_optimism_loop.py``.
     """
     spec = ModelSpec("true covariates", list(COVARIATES), params=CONSTANT)
     table = bootstrap_optimism(spec, development, [EVAL_HORIZON], n_boot=15, seed=3)
