@@ -49,7 +49,7 @@ def _harrell(rows: pd.DataFrame, risk: np.ndarray) -> float:
     it (as riskbench's evaluation_time documents), with scikit-survival's implementation and its default tie
     tolerance (risks within 1e-8 tie; an over-fitted model has several risks within 1e-8 of 1)."""
     time = rows["time"].to_numpy()
-    t_eval = HORIZON - 1e-6 if HORIZON >= time.max() else HORIZON
+    t_eval = HORIZON - 1e-6 if time.max() <= HORIZON else HORIZON
     event = (rows["status"].to_numpy() == 1) & (time <= t_eval)
     return concordance_index_censored(event, np.minimum(time, t_eval), risk)[0]
 
