@@ -28,6 +28,7 @@ COMMAND_MODULES: tuple[str, ...] = (
     "riskbench.workflow.command",
     "riskbench.workflow.config_command",
     "riskbench.workflow.external_command",
+    "riskbench.workflow.score_command",
 )
 
 

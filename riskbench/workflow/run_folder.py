@@ -124,6 +124,20 @@ def remove_owned(folder: Path, purpose: str) -> None:
     shutil.rmtree(folder)
 
 
+def fresh_output_folder(out: Path, overwrite: bool, purpose: str) -> None:
+    """Create the output folder ``out`` of a command (with the marker, status partial).
+
+    An existing ``out`` is refused (:class:`RunFolderExists`) unless ``overwrite``, and then replaced only when
+    a riskbench command made it (:func:`remove_owned`).
+    """
+    if out.exists() or out.is_symlink():
+        if not overwrite:
+            raise RunFolderExists(f"{out} exists; choose another --out or add --overwrite to replace it")
+        remove_owned(out, purpose)
+    out.mkdir(parents=True)
+    write_marker(out, "partial")
+
+
 def files_inside(paths: Iterable[Path], folders: Iterable[Path]) -> list[tuple[Path, Path]]:
     """``(file, folder)`` pairs where a file lies inside one of the folders (resolved, symlinks followed)."""
     resolved = [f.resolve() for f in folders]

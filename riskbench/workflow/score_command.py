@@ -1,0 +1,259 @@
+"""``riskbench score-patients``: apply a saved model to new raw tables and write each patient's predicted risk.
+
+The new patients' tables follow the same input contract as a run's (patients, measurements, outcomes; the
+outcomes table says until when each patient was followed: an ``end_of_follow_up`` row on the day the data were
+extracted is enough). They come from an analysis configuration's ``[sources]`` (``--config``: paths, column
+names, date format; its ``[cohort]`` reading keys ``columns``, ``date_format``, ``measurement_layout`` and
+``kind_map``) or from a folder holding ``patients``, ``measurements`` and ``outcomes`` as ``.csv`` or
+``.parquet`` with our column names (``--data``). The rows are built with the MODEL's cohort rules
+(:meth:`riskbench.workflow.model_bundle.SavedModel.build_tables`), never with the configuration's, at the
+model's landmarks, at ``--landmarks`` or at one calendar date (``--at-date``).
+
+The output folder (made like a run folder: a marker file, replaced with ``--overwrite`` only when it carries
+the marker) holds ``risks.csv`` -- one row per patient, landmark and horizon with the risk and the per-row
+flags; text cells that a spreadsheet would run as a formula are neutralised -- and ``README.txt`` with the
+caution, the model and its SHA-256, and what each column means. Patients appear under pseudonyms (HMAC-SHA-256
+under the configuration's pseudonym key, or ``--key-file``) unless ``--keep-ids`` is given; ids stay on this
+machine either way, and no file maps pseudonyms back to ids.
+"""
+
+from __future__ import annotations
+
+import argparse
+import tempfile
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from riskbench.errors import RiskbenchError
+from riskbench.models.landmark import LandmarkSupermodel
+from riskbench.report.model_sheet import CAUTION
+from riskbench.report.outputs import atomic_write_text, neutralise_csv_table
+from riskbench.time_units import parse_duration
+from riskbench.workflow.model_bundle import SavedModel, load_model
+from riskbench.workflow.run_folder import fresh_output_folder, write_marker
+from riskbench.workflow.scoring_rows import FLAG_COLUMNS
+
+__all__ = ["ScoreInputError", "ScoredPatients", "predictable_rows", "register", "score_patients"]
+
+RISKS_FILE = "risks.csv"
+README_FILE = "README.txt"
+TABLES = ("patients", "measurements", "outcomes")
+
+
+class ScoreInputError(RiskbenchError):
+    """The model, the new tables or the output folder cannot be used as asked (the message says why and how)."""
+
+
+@dataclass(frozen=True)
+class ScoredPatients:
+    """What ``score_patients`` wrote: the folder, the risks table (as written) and counts for the terminal."""
+
+    out: Path
+    model: str
+    risks: pd.DataFrame
+    n_patients: int
+    n_flagged: int
+    n_not_predicted: int
+
+
+def _folder_tables(folder: Path) -> tuple[Path, Path, Path]:
+    found = []
+    for name in TABLES:
+        path = next((folder / f"{name}.{ext}" for ext in ("parquet", "csv") if (folder / f"{name}.{ext}").is_file()),
+                    None)
+        if path is None:
+            raise ScoreInputError(f"--data {folder}: no {name}.parquet or {name}.csv there; the folder must hold "
+                                  "the three tables of the input contract (patients, measurements, outcomes)")
+        found.append(path)
+    return found[0], found[1], found[2]
+
+
+def new_tables(config_path: str | Path | None, data: str | Path | None) -> tuple[tuple[Any, Any, Any], dict, Any]:
+    """The three sources, the reading keys and the configuration (or None) of the patients to score."""
+    if (config_path is None) == (data is None):
+        raise ScoreInputError("give the new patients' tables with --config (an analysis configuration whose "
+                              "[sources] name them) or --data (a folder with patients, measurements and outcomes)")
+    if data is not None:
+        return _folder_tables(Path(data)), {}, None
+    from riskbench.workflow.config import load_config
+
+    assert config_path is not None
+    config = load_config(config_path)
+    cohort, src = config.cohort, config.sources
+    reading = {"columns": dict(cohort.columns), "date_format": cohort.date_format,
+               "measurement_layout": cohort.measurement_layout, "kind_map": dict(cohort.kind_map)}
+    return (src.patients, src.measurements, src.outcomes), reading, config
+
+
+def predictable_rows(saved: SavedModel, landmarks: np.ndarray) -> tuple[np.ndarray, str]:
+    """Which rows' landmarks (days) the model can predict from, and why the others cannot be predicted.
+
+    A landmark super-model with one baseline per landmark predicts only at its fitted landmarks; one with a
+    smooth baseline only inside the range of its fitted landmarks (it would extrapolate outside).
+    """
+    part = saved.parts[0]
+    if not isinstance(part, LandmarkSupermodel):
+        return np.ones(len(landmarks), dtype=bool), ""
+    fitted = np.asarray(part.landmarks_, float)
+    if part.baseline == "stratified":
+        ok = np.isclose(landmarks[:, None], fitted[None, :]).any(axis=1)
+        return ok, f"the model predicts only at its fitted landmarks ({', '.join(f'{s:g}' for s in fitted)} days)"
+    ok = (landmarks >= fitted.min() - 1e-9) & (landmarks <= fitted.max() + 1e-9)
+    return ok, f"outside the model's landmark range {fitted.min():g} to {fitted.max():g} days"
+
+
+def _pseudonyms(ids: pd.Series, key_file: Path | None, config: Any, out: Path) -> pd.Series:
+    from riskbench.workflow.pseudonyms import config_key, load_or_create_key, pseudonym_map
+
+    if key_file is not None:
+        key = load_or_create_key(key_file, run_dir=out)
+    elif config is not None:
+        key = config_key(config, out)
+    else:
+        key = load_or_create_key(out.parent / f"{out.name}.key", run_dir=out)
+    mapping = pseudonym_map(ids, key)
+    return ids.map(lambda v: mapping.get(str(v)))
+
+
+def _readme(saved: SavedModel, keep_ids: bool, at_date: Any, horizons: Sequence[float], n_rows: int) -> str:
+    from riskbench.models.forest_io import file_sha256
+
+    bundle = saved.bundle_path
+    who = ("patient_id: the identifiers of your source tables. This file identifies patients: keep it on this "
+           "machine and within your data-protection rules; riskbench sent nothing elsewhere." if keep_ids else
+           "patient: run pseudonyms (keyed HMAC-SHA-256 of the source id). Nothing maps them back to ids; with the "
+           "key file the same ids give the same pseudonyms again. The source ids stayed on this machine.")
+    when = (f"prediction_date: the date of the prediction ({at_date}); landmark_days: days from entry to it."
+            if at_date is not None else "landmark_days: the landmark s, days since the patient's entry.")
+    lines = [
+        "Predicted risks from a saved riskbench model",
+        "",
+        "CAUTION: " + CAUTION,
+        "",
+        f"Model: {saved.name} (family {saved.family}); bundle {bundle.name if bundle else '?'} "
+        f"SHA-256 {file_sha256(bundle) if bundle else '?'}.",
+        "The rows were built from the new raw tables with the model's own cohort rules (see its model sheet).",
+        f"{n_rows} rows; horizons {', '.join(f'{h:g}' for h in horizons)} days.",
+        "",
+        "Columns of risks.csv:",
+        who,
+        when,
+        "horizon_days: the prediction window h, days.",
+        "risk: the predicted probability of the outcome in (s, s + h]; empty when the row could not be predicted.",
+        "outside_development_range: covariates whose value lies outside what the model saw in development "
+        "(extrapolation: read the risk with care).",
+        "older_than_carry_forward: variables whose last value is older than the carry-forward limit, so the "
+        "covariate is missing at s.",
+        "missing_covariates: covariates with no value at s (filled by the model's missing-data method, if any).",
+        "not_predicted: why the row has no risk (empty when it has one).",
+        "",
+        "Text cells that a spreadsheet could run as a formula start with a single quote.",
+    ]
+    return "\n".join(lines) + "\n"
+
+
+def score_patients(model_path: str | Path, out: str | Path, *, config: str | Path | None = None,
+                   data: str | Path | None = None, landmarks: Sequence[str] | None = None,
+                   at_date: str | None = None, horizons: Sequence[str] | None = None, keep_ids: bool = False,
+                   key_file: str | Path | None = None, overwrite: bool = False) -> ScoredPatients:
+    """Score the patients of new raw tables with a saved model into the folder ``out`` (module docstring).
+
+    ``landmarks`` and ``horizons`` are durations with units (``"1 year"``); ``at_date`` a date ``YYYY-MM-DD``.
+
+    Raises
+    ------
+    RiskbenchError
+        The model cannot be loaded, the tables cannot be read, an option is not understood, or ``out`` exists
+        and is not an output riskbench made.
+    """
+    saved = load_model(model_path)
+    if landmarks and at_date:
+        raise ScoreInputError("give either --landmarks or --at-date, not both")
+    sources, reading, cfg = new_tables(config, data)
+    out = Path(out)
+    marks = None if not landmarks else [parse_duration(t) for t in landmarks]
+    hs = [saved.prediction_window_days] if not horizons else [parse_duration(t) for t in horizons]
+    fresh_output_folder(out, overwrite, "the output of score-patients")
+    with tempfile.TemporaryDirectory(prefix=".score-", dir=out) as temp:
+        rows = saved.build_tables(*sources, landmarks_days=marks, at_date=at_date, temp_folder=temp, **reading)
+    if rows.empty:
+        raise ScoreInputError("no patient of the new tables is under follow-up at the requested landmarks or date "
+                              "(follow-up ends with the last outcomes row; add an end_of_follow_up row on the day "
+                              "the data were extracted)")
+    ok, why = predictable_rows(saved, rows["landmark"].to_numpy(float))
+    table = saved.predict(rows[ok].reset_index(drop=True), horizons_days=hs)
+    table["not_predicted"] = ""
+    if not ok.all():
+        skipped = _unpredicted(saved, rows[~ok], hs)
+        skipped["not_predicted"] = why
+        table = pd.concat([table, skipped], ignore_index=True)
+    n_patients = int(table["patient_id"].nunique())
+    if not keep_ids:
+        table["patient_id"] = _pseudonyms(table["patient_id"], None if key_file is None else Path(key_file), cfg, out)
+        table = table.rename(columns={"patient_id": "patient"})
+    table = table.sort_values([table.columns[0], "landmark", "horizon_days"], kind="stable", ignore_index=True)
+    table = table.rename(columns={"landmark": "landmark_days"})
+    text = neutralise_csv_table(table).to_csv(index=False, lineterminator="\n")
+    atomic_write_text(out / RISKS_FILE, text)
+    atomic_write_text(out / README_FILE, _readme(saved, keep_ids, at_date, hs, len(table)))
+    write_marker(out, "complete")
+    flagged = (table[list(FLAG_COLUMNS[:2])] != "").any(axis=1)
+    return ScoredPatients(out=out, model=saved.name, risks=table, n_patients=n_patients,
+                          n_flagged=int(flagged.sum()),
+                          n_not_predicted=int(table["risk"].isna().sum()))
+
+
+def _unpredicted(saved: SavedModel, rows: pd.DataFrame, horizons: Sequence[float]) -> pd.DataFrame:
+    """Rows the model cannot predict: their flags, no risk."""
+    keep = [c for c in ("patient_id", "landmark", "prediction_date") if c in rows.columns]
+    base = pd.concat([rows[keep].reset_index(drop=True), saved.flags(rows).reset_index(drop=True)], axis=1)
+    frames = []
+    for h in horizons:
+        part = base.copy()
+        part.insert(len(keep), "horizon_days", float(h))
+        part.insert(len(keep) + 1, "risk", np.nan)
+        frames.append(part)
+    return pd.concat(frames, ignore_index=True)
+
+
+def _score(args: argparse.Namespace) -> int:
+    result = score_patients(args.model, args.out, config=args.config, data=args.data, landmarks=args.landmarks,
+                            at_date=args.at_date, horizons=args.horizons, keep_ids=args.keep_ids,
+                            key_file=args.key_file, overwrite=args.overwrite)
+    print(f"scored {result.n_patients} patients ({len(result.risks)} rows) with model {result.model!r}; rows "
+          f"flagged: {result.n_flagged}; rows without a risk: {result.n_not_predicted}")
+    print("research software, not a medical device: read README.txt before using the risks")
+    print(result.out / RISKS_FILE)
+    return 0
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    """Add ``score-patients`` to the ``riskbench`` parser."""
+    sub = subparsers.add_parser(
+        "score-patients",
+        help="apply a saved model to new patients' raw tables and write each patient's predicted risk",
+        description=(
+            "Build the new patients' rows with the saved model's own cohort rules and write risks.csv (risk per "
+            "patient, landmark or prediction date, and horizon, with flags for values outside the development "
+            "range or older than the carry-forward limit) and README.txt into OUT. Patients appear under "
+            "pseudonyms unless --keep-ids; ids never leave this machine."),
+    )
+    sub.add_argument("model", help="a saved model: models/<name>.bundle.json of a run (or the model file beside it)")
+    sub.add_argument("--out", required=True, help="output folder to create")
+    sub.add_argument("--config", help="analysis configuration whose [sources] name the new patients' tables")
+    sub.add_argument("--data", help="folder with patients, measurements and outcomes (.csv or .parquet)")
+    sub.add_argument("--landmarks", nargs="+", metavar="DURATION",
+                     help='landmarks since entry, e.g. "0 years" "1 year" (default: the model\'s landmarks)')
+    sub.add_argument("--at-date", metavar="YYYY-MM-DD", help="predict at this calendar date instead of landmarks")
+    sub.add_argument("--horizons", nargs="+", metavar="DURATION",
+                     help='prediction horizons, e.g. "1 year" "2 years" (default: the model\'s window)')
+    sub.add_argument("--keep-ids", action="store_true",
+                     help="write the source patient ids instead of pseudonyms (the file then stays on this machine)")
+    sub.add_argument("--key-file", help="pseudonym key file (default: the configuration's, or OUT.key beside OUT)")
+    sub.add_argument("--overwrite", action="store_true", help="replace OUT if an earlier score-patients made it")
+    sub.set_defaults(handler=_score)

@@ -1,0 +1,144 @@
+"""``riskbench score-patients``: a saved model applied to raw tables through the command line.
+
+The reference is the run itself: scoring the development cohort's own raw tables with its configuration (same
+pseudonym key) must give the run's apparent predictions (``data/apparent_predictions``) for the same
+pseudonymised patients and landmarks, exactly. Stage functions run in-process on a small demo-generator cohort
+(tests/workflow/analysis_builder.py).
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import json
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from riskbench.report.model_sheet import CAUTION
+from riskbench.workflow.cli import main
+
+_SPEC = importlib.util.spec_from_file_location("analysis_builder", Path(__file__).with_name("analysis_builder.py"))
+B = importlib.util.module_from_spec(_SPEC)
+_SPEC.loader.exec_module(B)
+
+MODELS = (
+    {"name": "imaging_clinical", "covariates": B.IMAGING, "params": {"baseline": "stratified"}},
+    {"name": "clinical", "covariates": B.CLINICAL},
+)
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory) -> Path:
+    folder = tmp_path_factory.mktemp("score")
+    B.write_data(folder, 250, seed=3)
+    config = B.write_config(folder, models=MODELS)
+    config.write_text(config.read_text() + '\n[missing_data]\nmethod = "multiple_imputation"\nimputations = 2\n'
+                      "max_iterations = 2\n")
+    B.run_stages(config, folder / "run", ("cohort", "models"))
+    return folder
+
+
+def _score(run: Path, out: Path, *args: str, model: str = "imaging_clinical") -> int:
+    return main(["score-patients", str(run / "run" / "models" / f"{model}.bundle.json"), "--out", str(out), *args])
+
+
+def _risks(out: Path) -> pd.DataFrame:
+    return pd.read_csv(out / "risks.csv", float_precision="round_trip", keep_default_na=False,
+                       na_values={"risk": [""]})
+
+
+def test_scoring_the_development_tables_reproduces_the_runs_predictions(run: Path, tmp_path: Path) -> None:
+    out = tmp_path / "scored"
+    assert _score(run, out, "--config", str(run / "analysis.toml"), "--horizons", "1 year", "2 years") == 0
+    risks = _risks(out)
+    stack = pd.read_parquet(run / "run" / "data" / "landmark_stack.parquet").reset_index(drop=True)
+    predictions = pd.read_parquet(run / "run" / "data" / "apparent_predictions.parquet")
+    for horizon in (365.25, 730.5):
+        theirs = predictions[(predictions["model"] == "imaging_clinical") & np.isclose(predictions["horizon"], horizon)]
+        expected = stack[["patient_id", "landmark"]].assign(risk=theirs.sort_values("row")["risk"].to_numpy())
+        ours = risks[risks["horizon_days"] == horizon].rename(columns={"patient": "patient_id",
+                                                                       "landmark_days": "landmark"})
+        merged = expected.merge(ours, on=["patient_id", "landmark"], how="outer", suffixes=("_run", "_scored"),
+                                indicator=True)
+        # the same pseudonymised patients at the same landmarks
+        assert len(merged) == len(stack) > 500 and (merged["_merge"] == "both").all()
+        np.testing.assert_array_equal(merged["risk_scored"].to_numpy(), merged["risk_run"].to_numpy())
+    readme = (out / "README.txt").read_text()
+    assert CAUTION in readme and "SHA-256" in readme and "stayed on this machine" in readme
+
+
+def test_ids_stay_out_of_the_output_unless_asked_for(run: Path, tmp_path: Path) -> None:
+    ids = set(pd.read_csv(run / "data" / "patients.csv")["patient_id"].astype(str))
+    pseudonymised = tmp_path / "pseudonyms"
+    assert _score(run, pseudonymised, "--data", str(run / "data"), "--key-file", str(tmp_path / "k.key")) == 0
+    for path in pseudonymised.iterdir():
+        text = path.read_text()
+        assert not any(i in text for i in ids), path.name
+    kept = tmp_path / "ids"
+    assert _score(run, kept, "--data", str(run / "data"), "--keep-ids") == 0
+    risks = _risks(kept)
+    assert set(risks["patient_id"].astype(str)) <= ids and len(set(risks["patient_id"])) > 100
+    assert "keep it on this machine" in (kept / "README.txt").read_text()
+
+
+def test_a_hostile_id_is_neutralised_in_the_csv(run: Path, tmp_path: Path) -> None:
+    data = tmp_path / "data"
+    shutil.copytree(run / "data", data)
+    tables = {name: pd.read_csv(data / f"{name}.csv", dtype={"patient_id": str}) for name in
+              ("patients", "measurements", "outcomes")}
+    first = tables["patients"]["patient_id"].iloc[0]
+    for name, table in tables.items():
+        table["patient_id"] = table["patient_id"].replace(first, "=HYPERLINK(\"http://x\")")
+        table.to_csv(data / f"{name}.csv", index=False)
+    out = tmp_path / "scored"
+    assert _score(run, out, "--data", str(data), "--keep-ids") == 0
+    text = (out / "risks.csv").read_text()
+    assert "'=HYPERLINK" in text and "\n=HYPERLINK" not in text
+
+
+def test_the_output_folder_follows_the_run_folder_rules(run: Path, tmp_path: Path, capsys) -> None:
+    study = tmp_path / "study"
+    study.mkdir()
+    (study / "notes.txt").write_text("mine")
+    assert _score(run, study, "--data", str(run / "data"), "--overwrite") == 2
+    assert (study / "notes.txt").read_text() == "mine"
+    assert "not made by a riskbench run" in capsys.readouterr().err
+    out = tmp_path / "scored"
+    assert _score(run, out, "--data", str(run / "data")) == 0
+    assert _score(run, out, "--data", str(run / "data")) == 2
+    assert "--overwrite" in capsys.readouterr().err
+    assert _score(run, out, "--data", str(run / "data"), "--overwrite") == 0
+
+
+def test_a_date_gives_risks_with_a_smooth_baseline_and_a_reason_without(run: Path, tmp_path: Path) -> None:
+    patients = pd.read_csv(run / "data" / "patients.csv")
+    date = (pd.to_datetime(patients["entry_date"]).max() + pd.Timedelta(days=100)).date().isoformat()
+    smooth = tmp_path / "smooth"
+    assert _score(run, smooth, "--data", str(run / "data"), "--at-date", date, model="clinical") == 0
+    risks = _risks(smooth)
+    assert (risks["prediction_date"] == date).all() and risks["landmark_days"].between(100, 730.5).any()
+    inside = risks["landmark_days"] <= 730.5
+    assert risks.loc[inside, "risk"].between(0, 1).all() and risks.loc[inside, "not_predicted"].eq("").all()
+    assert risks.loc[~inside, "risk"].isna().all()
+    assert risks.loc[~inside, "not_predicted"].str.contains("landmark range").all()
+    stratified = tmp_path / "stratified"
+    assert _score(run, stratified, "--data", str(run / "data"), "--at-date", date) == 0
+    other = _risks(stratified)
+    off = ~np.isclose(other["landmark_days"].to_numpy()[:, None], [0, 182.625, 365.25, 547.875, 730.5]).any(axis=1)
+    assert off.any() and other.loc[off, "risk"].isna().all()
+    assert other.loc[off, "not_predicted"].str.contains("fitted landmarks").all()
+
+
+def test_a_changed_model_is_refused_with_exit_status_2(run: Path, tmp_path: Path, capsys) -> None:
+    models = tmp_path / "models"
+    shutil.copytree(run / "run" / "models", models)
+    doc = json.loads((models / "clinical.json").read_text())
+    doc["outcome"]["coef"][0] += 0.5
+    (models / "clinical.json").write_text(json.dumps(doc))
+    status = main(["score-patients", str(models / "clinical.bundle.json"), "--out", str(tmp_path / "o"),
+                   "--data", str(run / "data")])
+    assert status == 2 and "SHA-256" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()
