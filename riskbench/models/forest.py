@@ -24,7 +24,8 @@ Choices (documented because they shape the predictions):
   up. The trees are grown in blocks of at most 25, each a small forest with its own seed spawned from
   ``random_state`` (``numpy.random.SeedSequence``); blocks run in ``n_jobs`` worker processes and are merged
   into one forest. The block layout depends only on ``n_estimators`` and ``random_state``, so the fitted
-  forest is the same for every ``n_jobs``.
+  forest is the same for every ``n_jobs``. Block ``i`` of ``k`` is scikit-survival's forest with
+  ``random_state = SeedSequence(random_state).spawn(k)[i].generate_state(1)[0]`` (:func:`tree_blocks`).
 """
 
 from __future__ import annotations
@@ -44,7 +45,7 @@ from riskbench.models.risk_contract import (
     step_function_at,
 )
 
-__all__ = ["SurvivalForest", "coarsen_times"]
+__all__ = ["SurvivalForest", "coarsen_times", "tree_blocks"]
 
 _TREES_PER_BLOCK = 25  # trees per independently seeded block (fixed, so results do not depend on n_jobs)
 
@@ -61,6 +62,21 @@ def coarsen_times(time: ArrayLike, grid_days: float | None) -> np.ndarray:
         raise ModelInputError(f"grid_days must be a positive number of days or None, got {grid_days!r}")
     steps = np.maximum(np.ceil(time / grid_days - 1e-9), 1.0)
     return steps * grid_days
+
+
+def tree_blocks(n_estimators: int, random_state: int) -> list[tuple[int, int]]:
+    """The blocks a forest of ``n_estimators`` trees is grown in: ``(number of trees, seed)`` per block.
+
+    Blocks hold 25 trees (the last one the rest); block ``i`` of ``k`` is seeded with
+    ``SeedSequence(random_state).spawn(k)[i].generate_state(1)[0]``.
+    """
+    if int(n_estimators) < 1:
+        raise ModelInputError(f"n_estimators must be at least 1, got {n_estimators!r}")
+    sizes = [_TREES_PER_BLOCK] * (int(n_estimators) // _TREES_PER_BLOCK)
+    if int(n_estimators) % _TREES_PER_BLOCK:
+        sizes.append(int(n_estimators) % _TREES_PER_BLOCK)
+    spawned = np.random.SeedSequence(random_state).spawn(len(sizes))
+    return [(size, int(child.generate_state(1)[0])) for size, child in zip(sizes, spawned)]
 
 
 def _grow_block(x: np.ndarray, target: np.ndarray, n_trees: int, seed: int, params: dict):
@@ -142,16 +158,10 @@ class SurvivalForest(BaseEstimator):
         """Grow the trees in seeded blocks (in parallel processes when n_jobs > 1) and merge them."""
         from joblib import Parallel, delayed, effective_n_jobs
 
-        if int(self.n_estimators) < 1:
-            raise ModelInputError(f"n_estimators must be at least 1, got {self.n_estimators!r}")
+        blocks_plan = tree_blocks(self.n_estimators, self.random_state)
         max_samples = self.max_samples
         if isinstance(max_samples, (int, np.integer)) and max_samples > len(x):
             max_samples = None  # fewer rows than requested: use them all
-        sizes = [_TREES_PER_BLOCK] * (int(self.n_estimators) // _TREES_PER_BLOCK)
-        if int(self.n_estimators) % _TREES_PER_BLOCK:
-            sizes.append(int(self.n_estimators) % _TREES_PER_BLOCK)
-        spawned = np.random.SeedSequence(self.random_state).spawn(len(sizes))
-        seeds = [int(child.generate_state(1)[0]) for child in spawned]
         params = dict(
             max_samples=max_samples,
             min_samples_leaf=self.min_samples_leaf,
@@ -159,9 +169,9 @@ class SurvivalForest(BaseEstimator):
             max_features=self.max_features,
             max_depth=self.max_depth,
         )
-        n_workers = max(1, min(effective_n_jobs(self.n_jobs), len(sizes)))  # -1 means every core
+        n_workers = max(1, min(effective_n_jobs(self.n_jobs), len(blocks_plan)))  # -1 means every core
         blocks = Parallel(n_jobs=n_workers, backend="loky" if n_workers > 1 else "sequential")(
-            delayed(_grow_block)(x, target, size, seed, params) for size, seed in zip(sizes, seeds)
+            delayed(_grow_block)(x, target, size, seed, params) for size, seed in blocks_plan
         )
         forest = blocks[0]
         forest.estimators_ = [tree for block in blocks for tree in block.estimators_]

@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 from lifelines.utils import concordance_index
 
 from riskbench.models import RiskModel, SurvivalForest
-from riskbench.models.forest import coarsen_times
+from riskbench.models.forest import coarsen_times, tree_blocks
 from riskbench.models.risk_contract import ModelInputError
 
 MONTH = 30.4375  # days; 1 month = 365.25 / 12 (DEVELOPERS.md convention)
@@ -98,3 +98,28 @@ def test_forest_errors(make_stack) -> None:
         forest.predict_risk(stack, 1000.0)
     with pytest.raises(ModelInputError, match="lacks covariate"):
         forest.predict_risk(pd.DataFrame({"x1": [0.0]}), 100.0)
+
+
+@pytest.mark.parametrize("max_samples", [None, 120])
+def test_one_block_without_grid_is_scikit_survivals_forest(make_stack, max_samples) -> None:
+    """With at most 25 trees (one block) and continuous times, the forest is scikit-survival's
+    RandomSurvivalForest (Ishwaran et al. 2008, Ann Appl Stat 2:841-860) fitted on the outcome with the
+    competing event as censoring, seeded as the module documents: the risk at a horizon is 1 − S(w) of that
+    forest, to the last bit."""
+    from sksurv.ensemble import RandomSurvivalForest
+
+    stack = make_stack(n_patients=120, seed=21, competing_rate=1 / 900)
+    ours = SurvivalForest(["x1", "x2"], grid_days=None, n_estimators=20, min_samples_leaf=8, random_state=13,
+                          max_samples=max_samples).fit(stack)
+    seed = int(np.random.SeedSequence(13).spawn(1)[0].generate_state(1)[0])
+    target = np.empty(len(stack), dtype=[("event", bool), ("time", float)])
+    target["event"], target["time"] = stack["status"].to_numpy() == 1, stack["time"].to_numpy()
+    x = stack[["x1", "x2"]].to_numpy()
+    reference = RandomSurvivalForest(n_estimators=20, min_samples_leaf=8, min_samples_split=16, max_features="sqrt",
+                                     max_samples=max_samples, random_state=seed, n_jobs=1).fit(x, target)
+    fresh = make_stack(n_patients=60, seed=22)
+    for horizon in (200.0, 365.25, 700.0):
+        expected = 1.0 - np.array([f(horizon) for f in reference.predict_survival_function(
+            fresh[["x1", "x2"]].to_numpy())])
+        np.testing.assert_array_equal(ours.predict_risk(fresh, horizon), expected)
+    assert tree_blocks(20, 13) == [(20, seed)] and [n for n, _ in tree_blocks(60, 13)] == [25, 25, 10]
