@@ -115,6 +115,12 @@ SECTIONS: tuple[Section, ...] = (
             "cause-specific 1 − S) over the mean predicted risk. A landmark with fewer outcomes "
             "than the small-count threshold is not measured.",
             tables=("performance_by_landmark", "landmark_outcome_counts")),
+    Section("temporal-validation", "Temporal validation",
+            "With [validation] develop_before, every model is refitted on the patients who entered before that "
+            "date and evaluated on those who entered on or after it (a later period), with 95% percentile "
+            "intervals from resampling the later patients. The first table gives the patients, landmark rows and "
+            "outcomes within the prediction window of each part; counts below the threshold are hidden.",
+            tables=("temporal_split", "temporal_validation"), texts=("temporal_plan",)),
     Section("calibration", "Calibration at each horizon",
             "Predicted against observed risk of the outcome by the horizon (cross-validated predictions), each "
             "model against what it predicts: a cumulative incidence against the Aalen–Johansen estimate with "

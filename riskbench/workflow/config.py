@@ -8,7 +8,7 @@ Sections
 ``[landmarks]``       ``landmarks`` (durations) and ``prediction_window``: the prediction question.
 ``[[models]]``        ``name``, ``family``, ``covariates``, ``params``, optional ``missing_data``.
 ``[missing_data]``    ``method``, ``imputations``, ``max_iterations``.
-``[validation]``      ``folds``, ``bootstrap_resamples``, ``optimism``, ``candidate``, ``reference``.
+``[validation]``      ``folds``, ``bootstrap_resamples``, ``optimism``, ``candidate``, ``reference``, ``develop_before``.
 ``[execution]``       ``workers``, ``scheduler_address``, ``allow_remote_scheduler``, TLS files.
 ``[report]``          ``title``, ``report_horizons``, ``small_count_threshold`` and the switches of each part.
 ``[privacy]``         ``key_file`` (pseudonym key; default ``<config stem>.key`` beside the configuration).
@@ -108,6 +108,7 @@ class ValidationPlan:
     reference: str | None = None
     seed: int = 0
     execution: ExecutionPlan = field(default_factory=ExecutionPlan, repr=False, compare=False)
+    develop_before: str | None = None  # ISO date: temporal split (riskbench.workflow.temporal_validation)
 
     @property
     def bootstrap_reps(self) -> int:

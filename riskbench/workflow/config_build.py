@@ -150,7 +150,8 @@ def _assemble(data: Mapping[str, Any], seed: int, sources: Any, cohort: Any, lm:
             candidate, reference = names[-1], names[0]
     validation = cfg.ValidationPlan(
         folds=val.folds, bootstrap_resamples=val.bootstrap_resamples, optimism=optimism, candidate=candidate,
-        reference=reference, seed=val.seed if val.seed is not None else seed, execution=execution)
+        reference=reference, seed=val.seed if val.seed is not None else seed, execution=execution,
+        develop_before=val.develop_before)
     landmarks = cfg.LandmarkPlan(tuple(sorted(lm.landmarks)), lm.prediction_window)
     horizons = tuple(sorted(rep.report_horizons)) if rep.report_horizons else (landmarks.horizon_days,)
     report = cfg.ReportOptions(

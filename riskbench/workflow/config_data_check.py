@@ -357,6 +357,21 @@ def _id_problems(entries: pd.Series | None, others: tuple[_Table, ...]) -> list[
     return out
 
 
+def _temporal_split_problems(config: Any, entries: pd.Series | None) -> list[Problem]:
+    """``[validation] develop_before`` must leave patients on both sides (developing and validating)."""
+    cutoff = getattr(config.validation, "develop_before", None)
+    if not cutoff or entries is None or not entries.notna().any():
+        return []
+    dates = entries.dropna()
+    before = int((dates < pd.Timestamp(cutoff)).sum())
+    if 0 < before < len(dates):
+        return []
+    side = "before" if before == 0 else "on or after"
+    return [problem("[validation]", "develop_before", cutoff,
+                    f"no patient entered {side} this date (entries run from {dates.min():%Y-%m-%d} to "
+                    f"{dates.max():%Y-%m-%d}); choose a date between them so that both parts hold patients")]
+
+
 def _landmark_problems(config: Any, follow_up: pd.DataFrame) -> list[Problem]:
     out = []
     days = follow_up["days"]
@@ -462,6 +477,7 @@ def check_analysis(config: Any) -> list[Problem]:
     problems += _unit_problems(tables["measurements"], config.cohort)
     entries = _entry_dates(tables["patients"])  # the patients file read once for the checks below
     problems += _id_problems(entries, (tables["measurements"], tables["outcomes"]))
+    problems += _temporal_split_problems(config, entries)
     if any(p.is_error for p in problems):
         return problems
     follow_up = _follow_up(entries, tables["outcomes"], dict(config.cohort.kind_map))

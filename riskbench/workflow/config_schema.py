@@ -76,8 +76,23 @@ class ValidationSection(ConfigTable):
     candidate: Name | None = None
     reference: Name | None = None
     seed: int | None = Field(None, ge=0, description="an integer >= 0")
+    develop_before: str | None = Field(None, description='a date "YYYY-MM-DD": patients entering before it '
+                                       "develop the models, those entering on or after it validate them")
 
     _resamples = field_validator("bootstrap_resamples")(_resamples)
+
+    @field_validator("develop_before")
+    @classmethod
+    def _cutoff(cls, value: str | None) -> str | None:
+        import datetime
+
+        if value is None:
+            return value
+        try:
+            return datetime.date.fromisoformat(value.strip()).isoformat()
+        except ValueError:
+            raise ValueError('expected a calendar date written "YYYY-MM-DD", such as "2021-01-01"') from None
+
 
 
 class ExecutionSection(ConfigTable):

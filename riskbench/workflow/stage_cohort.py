@@ -25,6 +25,7 @@ from riskbench.workflow.model_factory import missing_data_tables
 from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.workflow.pseudonyms import config_key, pseudonym_map, replace_ids
 from riskbench.workflow.stage_result import StageResult
+from riskbench.workflow.temporal_parts import mark_parts
 
 PATIENT_COLUMNS = ("patient_id", "end_days", "end_status")
 
@@ -146,6 +147,7 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
         cohort.landmark_stack(list(config.landmarks.landmarks_days), config.landmarks.horizon_days), mapping)
     static = [c for c in config.cohort.static_columns if c in cohort.patients.columns]
     patients = replace_ids(cohort.patients[[*PATIENT_COLUMNS, *static]], mapping)  # no dates leave the stage
+    patients = mark_parts(patients, cohort.patients["entry_date"], config.validation.develop_before)
     save_data(cp, run_dir, "counting_process")
     save_data(stack, run_dir, "landmark_stack")
     save_data(patients, run_dir, "patients")

@@ -38,6 +38,7 @@ from riskbench.workflow.fit_diagnosis import hide_small_numbers, terms_text
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_models import evaluation_horizons, fit_recorded
 from riskbench.workflow.stage_result import StageResult
+from riskbench.workflow.temporal_validation import temporal_validation
 
 CV_COLUMNS = ["row", "model", "horizon", "risk", "fold"]
 
@@ -179,6 +180,7 @@ def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
             f"{cv['row'].nunique()} landmark rows predicted by models fitted without their patient.")
         cv_failed = {n.model for n in cv_notes}
         notes += _optimism(config, tables, [m for m in models if m.name not in cv_failed], result, fits)
+        notes += temporal_validation(config, run_dir, tables, models, result, fits)  # [validation] develop_before
     if stray:
         fits.append(("(outside the fits)", list(stray)))
     save_notes(run_dir, "validation", notes, count_warnings(fits))

@@ -1,0 +1,86 @@
+"""Temporal split inside one analysis (``[validation] develop_before``): the key is checked, the cohort stage
+marks each patient's part without writing dates, and the validation stage fits on the earlier patients and
+evaluates on the later ones."""
+
+from __future__ import annotations
+
+import importlib.util
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from riskbench.config_problems import Problem
+from riskbench.workflow.config import ConfigError, load_config
+from riskbench.workflow.model_factory import fit_model
+from riskbench.workflow.temporal_parts import DEVELOPS
+
+_SPEC = importlib.util.spec_from_file_location("analysis_builder", Path(__file__).with_name("analysis_builder.py"))
+B = importlib.util.module_from_spec(_SPEC)
+_SPEC.loader.exec_module(B)
+
+CUTOFF = "2016-01-01"  # the generator's entries are uniform over 2014-01-01 .. 2018-01-01: about half each side
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("temporal")
+    B.write_data(folder, 500)
+    config = B.write_config(folder, validation={"develop_before": CUTOFF})
+    results = B.run_stages(config, folder / "run", ("cohort", "models", "validation"))
+    return folder, config, results
+
+
+def test_key_is_read_and_bad_dates_are_refused(tmp_path):
+    B.write_data(tmp_path, 30)
+    assert load_config(B.write_config(tmp_path, validation={"develop_before": CUTOFF})).validation.develop_before \
+        == CUTOFF
+    assert load_config(B.write_config(tmp_path, name="plain")).validation.develop_before is None
+    with pytest.raises(ConfigError, match="develop_before"):
+        load_config(B.write_config(tmp_path, name="bad", validation={"develop_before": "2016-13-01"}))
+    with pytest.raises(ConfigError, match="develop_before") as caught:
+        load_config(B.write_config(tmp_path, name="late", validation={"develop_before": "2030-01-01"}),
+                    check_data=True)
+    assert any(isinstance(p, Problem) and "no patient entered on or after" in p.message
+               for p in caught.value.problems)
+
+
+def test_cohort_stage_marks_the_parts_and_writes_no_dates(run):
+    folder, _, _ = run
+    patients = pd.read_parquet(folder / "run" / "data" / "patients.parquet")
+    assert patients[DEVELOPS].dtype == bool
+    assert not any("date" in c for c in patients.columns)
+    source = pd.read_csv(folder / "data" / "patients.csv")
+    assert int(patients[DEVELOPS].sum()) == int((pd.to_datetime(source["entry_date"]) < CUTOFF).sum())
+
+
+def test_models_are_fitted_on_the_earlier_patients_and_scored_on_the_later(run):
+    folder, config_path, results = run
+    tables = results["validation"].tables
+    split = tables["temporal_split"]
+    assert list(split["part"].str.split().str[0]) == ["development", "validation"]
+    assert CUTOFF in (folder / "run" / "tables" / "temporal_plan.txt").read_text()
+    measures = tables["temporal_validation"]
+    pooled = measures[measures["landmark_years"].isna() & (measures["metric"] == "harrell_c")
+                      & (measures["horizon_years"] == 2.0)].set_index("model")
+    assert pooled.loc["imaging_clinical", "estimate"] > pooled.loc["clinical", "estimate"] > 0.5
+
+    # the same number by hand: fit on the earlier patients, predict the later ones, Harrell's C at 2 years
+    from riskbench.validation.performance import horizon_measures
+
+    config = load_config(config_path)
+    data = folder / "run" / "data"
+    stack = pd.read_parquet(data / "landmark_stack.parquet")
+    cp = pd.read_parquet(data / "counting_process.parquet")
+    patients = pd.read_parquet(data / "patients.parquet")
+    early = set(patients.loc[patients[DEVELOPS], "patient_id"])
+    in_dev = stack["patient_id"].isin(early).to_numpy()
+    spec = config.model("imaging_clinical")
+    model = fit_model(spec, stack[in_dev], cp[cp["patient_id"].isin(early)], seed=config.seed,
+                      missing_data=config.missing_data)
+    later = stack[~in_dev]
+    risk = model.predict_risk(later, 730.5)
+    by_hand = horizon_measures(later["time"].to_numpy(float), later["status"].to_numpy(int), np.asarray(risk),
+                               730.5)["harrell_c"]
+    assert pooled.loc["imaging_clinical", "estimate"] == pytest.approx(by_hand, abs=1e-12)
