@@ -137,6 +137,10 @@ class StackOnlyTables:
         self._source = source
         self._full = ValidationTables(source.full_tables().landmark_stack, None)
 
+    def __reduce__(self) -> tuple[type[StackOnlyTables], tuple[PrecomputedTables]]:
+        # Pickled as its source alone: a file-backed source then reaches workers as file references.
+        return (StackOnlyTables, (self._source,))
+
     def patient_ids(self) -> np.ndarray:
         """The wrapped source's patient ids."""
         return self._source.patient_ids()

@@ -2,6 +2,14 @@
 
 Each replicate receives its own :class:`numpy.random.SeedSequence`, spawned from one seed, and
 results come back in replicate order, so serial, local-parallel and Dask runs give identical numbers.
+Replicates are grouped into tasks of consecutive indices (``replicates_per_task``; by default about four
+tasks per worker, :func:`task_size`): enough tasks to keep every worker busy to the end, few enough that each
+outweighs its dispatch. The grouping never changes a result, because replicate i always gets seed i.
+
+Scaling out on Dask: the tables every replicate reads are handed over as Parquet files
+(:mod:`riskbench.validation.table_files`): the task payload carries only their paths and digests, each worker
+process reads them once, and before the first task every worker is asked whether it can read them. Progress
+(replicates done, elapsed, time left) is reported as tasks finish (:mod:`riskbench.progress`).
 
 Where the data goes
 -------------------
@@ -18,7 +26,7 @@ other machines is refused the same way before any data is sent (:func:`check_sch
 from __future__ import annotations
 
 import ipaddress
-import sys
+import math
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -26,9 +34,10 @@ from typing import Any, TypeVar
 from urllib.parse import urlsplit
 
 import numpy as np
-from tqdm.std import tqdm  # plain bars: tqdm.auto warns in a notebook kernel without ipywidgets
 
+from riskbench.progress import Progress, default_sinks
 from riskbench.validation.errors import ValidationInputError
+from riskbench.validation.table_files import referenced_tables, table_problems
 
 R = TypeVar("R")
 
@@ -48,7 +57,12 @@ class ExecutionConfig:
         Address of a running Dask distributed scheduler, e.g. ``"tcp://127.0.0.1:8786"`` or
         ``"tls://10.0.0.5:8786"``; when set, replicates run on that cluster (see :func:`check_scheduler`).
     progress : bool, optional
-        Show a progress bar; by default only when standard error is an interactive terminal.
+        Report progress (replicates done, elapsed, time left; :func:`riskbench.progress.default_sinks`): by
+        default in the notebook when run in one, on standard error when it is a terminal, and to the
+        runner's progress file when it set one; False for silence; True also on a standard error that is
+        not a terminal.
+    replicates_per_task : int, optional
+        Replicates grouped into one task; by default about four tasks per worker (:func:`task_size`).
     connect_timeout_s : float, default 20
         Seconds to wait for the Dask scheduler before giving up.
     allow_remote_scheduler : bool, default False
@@ -65,19 +79,30 @@ class ExecutionConfig:
     tls_ca_file: str | None = None
     tls_client_cert_file: str | None = None
     tls_client_key_file: str | None = None
+    replicates_per_task: int | None = None
 
     def __post_init__(self) -> None:
         if not isinstance(self.n_jobs, (int, np.integer)) or self.n_jobs == 0 or self.n_jobs < -1:
             raise ValidationInputError(f"n_jobs must be a positive integer or -1 (all cores); got {self.n_jobs!r}.")
+        per_task = self.replicates_per_task
+        if per_task is not None and (not isinstance(per_task, (int, np.integer)) or per_task < 1):
+            raise ValidationInputError(f"replicates_per_task must be a positive integer; got {per_task!r}.")
 
     @classmethod
     def from_plan(cls, plan: Any, *, progress: bool | None = None) -> ExecutionConfig:
         """The execution settings of an ``[execution]`` plan (``workers``, ``scheduler_address``,
-        ``allow_remote_scheduler``, ``tls_ca_file``, ``tls_client_cert_file``, ``tls_client_key_file``)."""
-        files = {k: (str(getattr(plan, k)) if getattr(plan, k, None) else None) for k in TLS_KEYS}
+        ``allow_remote_scheduler``, ``tls_ca_file``, ``tls_client_cert_file``, ``tls_client_key_file``,
+        ``replicates_per_task``)."""
+        def file(key: str) -> str | None:
+            value = getattr(plan, key, None)
+            return str(value) if value else None
+
         return cls(n_jobs=int(getattr(plan, "workers", 1)), scheduler_address=getattr(plan, "scheduler_address", None)
                    or None, progress=progress,
-                   allow_remote_scheduler=bool(getattr(plan, "allow_remote_scheduler", False)), **files)
+                   allow_remote_scheduler=bool(getattr(plan, "allow_remote_scheduler", False)),
+                   replicates_per_task=getattr(plan, "replicates_per_task", None) or None,
+                   tls_ca_file=file("tls_ca_file"), tls_client_cert_file=file("tls_client_cert_file"),
+                   tls_client_key_file=file("tls_client_key_file"))
 
 
 TLS_KEYS: tuple[str, ...] = ("tls_ca_file", "tls_client_cert_file", "tls_client_key_file")
@@ -222,10 +247,35 @@ def _single_threaded(func: ReplicateFunction, shared: Any, index: int, seed: np.
         return func(shared, index, seed)
 
 
-def _show_progress(config: ExecutionConfig) -> bool:
-    if config.progress is not None:
-        return config.progress
-    return bool(getattr(sys.stderr, "isatty", lambda: False)())
+def replicate_chunks(n: int, size: int) -> list[range]:
+    """Replicate indices 0..n-1 cut into consecutive tasks of ``size`` (the last may be shorter)."""
+    if size < 1:
+        raise ValidationInputError(f"replicates per task must be at least 1; got {size}.")
+    return [range(start, min(start + size, n)) for start in range(0, n, size)]
+
+
+def task_size(n: int, workers: int, per_task: int | None = None) -> int:
+    """Replicates per task: ``per_task`` when given, else about :data:`TASKS_PER_WORKER` tasks per worker.
+
+    Several tasks per worker keep every worker busy to the end when replicates differ in cost (a worker that
+    finishes early takes the next task) while each task still does enough work to outweigh its dispatch.
+    """
+    if per_task is not None:
+        return max(int(per_task), 1)
+    return max(math.ceil(n / (max(workers, 1) * TASKS_PER_WORKER)), 1)
+
+
+#: Tasks per worker when the configuration does not fix the replicates per task.
+TASKS_PER_WORKER = 4
+
+
+def _run_task(func: ReplicateFunction, shared: Any, task: Sequence[tuple[int, np.random.SeedSequence]]) -> list[Any]:
+    """Run the replicates of one task in order (each single-threaded, see :func:`_single_threaded`)."""
+    return [_single_threaded(func, shared, i, s) for i, s in task]
+
+
+def _tasks(seeds: Sequence[np.random.SeedSequence], size: int) -> list[list[tuple[int, np.random.SeedSequence]]]:
+    return [[(i, seeds[i]) for i in chunk] for chunk in replicate_chunks(len(seeds), size)]
 
 
 def run_replicates(
@@ -239,14 +289,21 @@ def run_replicates(
 ) -> list[Any]:
     """Call ``func(shared, i, seed_i)`` for i = 0..n-1 and return the results in order.
 
+    Replicates are grouped into tasks of consecutive indices (``config.replicates_per_task``, by default
+    about four tasks per worker); replicate i always receives seed i, so the results do not depend on the
+    grouping, the number of workers or the order in which tasks finish.
+
     Parameters
     ----------
     func : callable
         A module-level function (it must pickle for process and cluster workers) taking the shared
         payload, the replicate index and the replicate's SeedSequence.
     shared : object
-        Read-only payload used by every replicate (tables, specs); sent once per worker for Dask
-        (scattered with broadcast) and once per task batch for joblib.
+        Read-only payload used by every replicate (specs, plans and the tables). Tables held as
+        :class:`~riskbench.validation.table_files.TableFiles` or
+        :class:`~riskbench.validation.table_files.ParquetTables` travel as file references and are read
+        once per worker process; anything else is pickled once per task for joblib and sent once per worker
+        for Dask (scattered with broadcast).
     seed : int
         Seed from which the replicate seeds are spawned.
     n : int
@@ -254,7 +311,7 @@ def run_replicates(
     config : ExecutionConfig, optional
         Serial by default.
     description : str
-        Label of the progress bar.
+        What the replicates do, for the progress report (:mod:`riskbench.progress`).
 
     Returns
     -------
@@ -263,19 +320,30 @@ def run_replicates(
     """
     config = config or ExecutionConfig()
     seeds = replicate_seeds(seed, n)
-    show = _show_progress(config)
-    if config.scheduler_address is not None:
-        return _run_dask(func, shared, seeds, config, show, description)
-    if config.n_jobs == 1:
-        return [
-            _single_threaded(func, shared, i, s)
-            for i, s in tqdm(list(enumerate(seeds)), desc=description, disable=not show)
-        ]
-    from joblib import Parallel, delayed
+    with Progress(description, n, default_sinks(config.progress)) as progress:
+        if config.scheduler_address is not None:
+            return _run_dask(func, shared, seeds, config, progress)
+        if config.n_jobs == 1:
+            results = []
+            for i, s in enumerate(seeds):
+                results.append(_single_threaded(func, shared, i, s))
+                progress.advance()
+            return results
+        return _run_joblib(func, shared, seeds, config, progress)
 
+
+def _run_joblib(func: ReplicateFunction, shared: Any, seeds: Sequence[np.random.SeedSequence],
+                config: ExecutionConfig, progress: Progress) -> list[Any]:
+    from joblib import Parallel, cpu_count, delayed
+
+    workers = cpu_count() if config.n_jobs == -1 else config.n_jobs
+    tasks = _tasks(seeds, task_size(len(seeds), workers, config.replicates_per_task))
     parallel = Parallel(n_jobs=config.n_jobs, backend="loky", return_as="generator")
-    results = parallel(delayed(_single_threaded)(func, shared, i, s) for i, s in enumerate(seeds))
-    return list(tqdm(results, total=n, desc=description, disable=not show))
+    results: list[Any] = []
+    for part in parallel(delayed(_run_task)(func, shared, task) for task in tasks):
+        results += part
+        progress.advance(len(part))
+    return results
 
 
 def _run_dask(
@@ -283,11 +351,10 @@ def _run_dask(
     shared: Any,
     seeds: Sequence[np.random.SeedSequence],
     config: ExecutionConfig,
-    show: bool,
-    description: str,
+    progress: Progress,
 ) -> list[Any]:
     try:
-        from distributed import Client
+        from distributed import Client, as_completed
     except ImportError as exc:  # pragma: no cover - dask is an optional extra
         raise ValidationInputError(
             "a Dask scheduler address was configured but dask.distributed is not installed; "
@@ -296,7 +363,7 @@ def _run_dask(
     problems = check_scheduler(config)
     if problems:
         raise ValidationInputError("; ".join(problems))
-    address = config.scheduler_address
+    address = config.scheduler_address or ""
     security = None
     if scheduler_host(address)[0] == "tls":  # check_scheduler made sure the three files are given
         from distributed.security import Security
@@ -310,18 +377,28 @@ def _run_dask(
             f"cannot reach the Dask scheduler at {address!r} ({exc}); check the address and that the "
             "scheduler runs, or unset scheduler_address to run on local processes."
         ) from exc
-    problems = check_workers(client.scheduler_info().get("workers", {}), config.allow_remote_scheduler)
-    if problems:
-        client.close()
-        raise ValidationInputError("; ".join(problems))
     with client:
-        shared_future = client.scatter(shared, broadcast=True)
-        futures = [
-            client.submit(_single_threaded, func, shared_future, i, s, pure=False)
-            for i, s in enumerate(seeds)
-        ]
-        results = []
-        # Gather in replicate order; the bar advances as each finishes in that order.
-        for future in tqdm(futures, total=len(futures), desc=description, disable=not show):
-            results.append(client.gather(future))
-        return results
+        workers = client.scheduler_info().get("workers", {})
+        problems = check_workers(workers, config.allow_remote_scheduler) or _worker_table_problems(client, shared)
+        if problems:
+            raise ValidationInputError("; ".join(problems))
+        tasks = _tasks(seeds, task_size(len(seeds), len(workers), config.replicates_per_task))
+        shared_future = client.scatter(shared, broadcast=True)  # small: tables travel as file references
+        futures = {client.submit(_run_task, func, shared_future, task, pure=False): k for k, task in enumerate(tasks)}
+        parts: dict[int, list[Any]] = {}
+        with client.as_current():  # as_completed looks for the client of this context
+            for future in as_completed(futures):
+                parts[futures[future]] = part = future.result()
+                progress.advance(len(part))
+        return [result for k in range(len(tasks)) for result in parts[k]]
+
+
+def _worker_table_problems(client: Any, shared: Any) -> list[str]:
+    """Table files of ``shared`` that some worker cannot read at their path (checked before any task)."""
+    tables = referenced_tables(shared)
+    if not tables:
+        return []
+    answers = client.run(table_problems, tables)
+    return [f"Dask worker {worker}: {problem}; put the run folder on storage every worker mounts at the same "
+            "path, or run on local processes (unset [execution] scheduler_address)"
+            for worker, problems in sorted(answers.items()) for problem in problems]

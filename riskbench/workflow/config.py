@@ -9,7 +9,7 @@ Sections
 ``[[models]]``        ``name``, ``family``, ``covariates``, ``params``, optional ``missing_data``.
 ``[missing_data]``    ``method``, ``imputations``, ``max_iterations``.
 ``[validation]``      ``folds``, ``bootstrap_resamples``, ``optimism``, ``candidate``, ``reference``, ``develop_before``.
-``[execution]``       ``workers``, ``scheduler_address``, ``allow_remote_scheduler``, TLS files.
+``[execution]``       ``workers``, ``scheduler_address``, ``allow_remote_scheduler``, TLS files, ``replicates_per_task``
 ``[report]``          ``title``, ``report_horizons``, ``small_count_threshold`` and the switches of each part.
 ``[privacy]``         ``key_file`` (pseudonym key; default ``<config stem>.key`` beside the configuration).
 
@@ -95,6 +95,7 @@ class ExecutionPlan:
     tls_ca_file: Path | None = None
     tls_client_cert_file: Path | None = None
     tls_client_key_file: Path | None = None
+    replicates_per_task: int | None = None
 
 
 @dataclass(frozen=True)

@@ -130,7 +130,7 @@ def _assemble(data: Mapping[str, Any], seed: int, sources: Any, cohort: Any, lm:
         workers=ex.workers, scheduler_address=ex.scheduler_address.strip() or None,
         allow_remote_scheduler=ex.allow_remote_scheduler, tls_ca_file=_path(ex.tls_ca_file, base_dir),
         tls_client_cert_file=_path(ex.tls_client_cert_file, base_dir),
-        tls_client_key_file=_path(ex.tls_client_key_file, base_dir))
+        tls_client_key_file=_path(ex.tls_client_key_file, base_dir), replicates_per_task=ex.replicates_per_task)
     optimism = val.optimism if val.optimism is not None else val.bootstrap_resamples > 0
     if optimism and val.bootstrap_resamples == 0:
         problems.append(problem("[validation]", "optimism", True,

@@ -105,6 +105,8 @@ class ExecutionSection(ConfigTable):
     tls_ca_file: str = Field("", description="a file path")
     tls_client_cert_file: str = Field("", description="a file path")
     tls_client_key_file: str = Field("", description="a file path")
+    replicates_per_task: int | None = Field(None, ge=1, le=100_000, description="an integer from 1 to 100000; "
+                                            "leave it out for about four tasks per worker")
 
 
 class ReportSection(ConfigTable):

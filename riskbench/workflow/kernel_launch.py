@@ -28,6 +28,8 @@ import threading
 import time
 from pathlib import Path
 
+from riskbench.workflow.progress import tell_progress_to
+
 WATCH_INTERVAL_S = 0.5
 
 
@@ -115,6 +117,7 @@ def main(argv: list[str]) -> None:
     Path(sockets, f"kernel-{os.getpid()}.pid").write_text(str(os.getpid()))
     quiet_process_output()
     keep_temporary_files_in(temp)
+    tell_progress_to(temp)  # the runner relays it to its terminal
     bind_output_pipe_to_ipc(sockets)
     from ipykernel.kernelapp import IPKernelApp
 

@@ -47,6 +47,7 @@ from riskbench.workflow.manifest import build_manifest, input_files, utc_now, wr
 from riskbench.workflow.notebook_builder import STAGE_NOTEBOOKS, write_notebooks
 from riskbench.workflow.notebook_html import export_html
 from riskbench.workflow.notebook_paths import relocate_notebook
+from riskbench.workflow.progress import stage_progress
 from riskbench.workflow.run_folder import (
     TEMP,
     NotARunFolder,
@@ -142,6 +143,10 @@ def _run_folder_path(out: str | Path) -> Path:
     return out.parent.resolve() / out.name
 
 
+def _quiet(_message: str) -> None:
+    """The log of a run that should say nothing."""
+
+
 def run_analysis(
     config_path: str | Path,
     out: str | Path,
@@ -186,7 +191,7 @@ def run_analysis(
     RunInterrupted
         Ctrl-C or SIGTERM; nothing is left but what was there before.
     """
-    say = log or (lambda _msg: None)
+    say = log or _quiet
     config: AnalysisConfig = load_config(config_path, check_data=True)
     problems = check_scheduler(config.execution)  # also part of the configuration check; kept as a guard
     if problems:
@@ -262,7 +267,9 @@ def _run_in_staging(config: AnalysisConfig, paths: RunPaths, notebooks_dir: str 
     for name, notebook in stages:
         say(f"stage {name}: running {notebook}")
         t0 = time.perf_counter()
-        error = _execute(notebooks_dir / notebook, staging / NOTEBOOKS / notebook, config, staging, kernel, manager)
+        with stage_progress(temp, name, show=say is not _quiet):  # replicates done, elapsed, time left on stderr
+            error = _execute(notebooks_dir / notebook, staging / NOTEBOOKS / notebook, config, staging, kernel,
+                             manager)
         seconds[name] = time.perf_counter() - t0
         if error is not None:
             _stop_kernels(sockets)

@@ -41,13 +41,13 @@ from riskbench.validation.comparison_statistics import (
 )
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.performance import evaluation_time, stack_outcome
-from riskbench.validation.sources import PrecomputedTables
 from riskbench.workflow.comparison_presentation import StageNotes, write_report, years_label
 from riskbench.workflow.config import AnalysisConfig
 from riskbench.workflow.fit_diagnosis import count_text
 from riskbench.workflow.landmark_report import report_landmark_performance
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_calibration import calibration_part, model_target
+from riskbench.workflow.stage_data import stage_source
 from riskbench.workflow.stage_result import StageResult
 from riskbench.workflow.stage_validation import (
     bootstrap_resamples,
@@ -217,7 +217,7 @@ def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, c
     specs = [model_spec(config.model(reference), config.missing_data),
              model_spec(config.model(candidate), config.missing_data)]
     try:
-        comparison = compare_specs(specs, PrecomputedTables(stack, cp), list(report_days),
+        comparison = compare_specs(specs, stage_source(result.run_dir), list(report_days),  # workers read Parquet
                                    n_boot=n_boot, seed=config.validation.seed, pairs=[(0, 1)],
                                    config=execution(config))
     except ValidationInputError as exc:  # every resample failed; the message gives the first reasons

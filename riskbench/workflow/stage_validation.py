@@ -17,6 +17,7 @@ case, and the fitting warnings of every fold and resample per model, is saved in
 from __future__ import annotations
 
 from collections import Counter
+from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
@@ -25,17 +26,18 @@ import pandas as pd
 
 from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
 from riskbench.report.notes import Note, failed_models, save_notes, switched_off
-from riskbench.report.outputs import load_data, save_data, save_table
+from riskbench.report.outputs import save_data, save_table
 from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.optimism import bootstrap_optimism_result, validated_performance
 from riskbench.validation.parallel import ExecutionConfig, run_replicates
 from riskbench.validation.performance import evaluation_time, stack_outcome
 from riskbench.validation.plans import patient_folds
-from riskbench.validation.sources import PrecomputedTables
+from riskbench.validation.table_files import table_source
 from riskbench.workflow.config import AnalysisConfig
 from riskbench.workflow.fit_diagnosis import hide_small_numbers, terms_text
 from riskbench.workflow.model_factory import model_spec
+from riskbench.workflow.stage_data import stage_tables
 from riskbench.workflow.stage_models import evaluation_horizons, fit_recorded
 from riskbench.workflow.stage_result import StageResult
 from riskbench.workflow.temporal_validation import temporal_validation
@@ -45,7 +47,7 @@ CV_COLUMNS = ["row", "model", "horizon", "risk", "fold"]
 
 def execution(config: AnalysisConfig) -> ExecutionConfig:
     """Where resampling replicates run (local processes or the configured Dask scheduler)."""
-    return ExecutionConfig.from_plan(config.execution, progress=False)  # [execution]: workers, scheduler, TLS
+    return ExecutionConfig.from_plan(config.execution)  # [execution]: workers, scheduler, TLS; progress shown
 
 
 def bootstrap_resamples(config: AnalysisConfig) -> int:
@@ -100,7 +102,7 @@ def _fold_predictions(shared: dict[str, Any], i: int, _seed: np.random.SeedSeque
     return {"frame": frame, "failures": failures, "fits": fits}
 
 
-def cross_validated_predictions(config: AnalysisConfig, tables: dict[str, pd.DataFrame],
+def cross_validated_predictions(config: AnalysisConfig, tables: Mapping[str, pd.DataFrame],
                                 models: list[Any] | None = None) -> tuple[pd.DataFrame, list[Note], list]:
     """Out-of-fold risks at the evaluation horizons, notes on models that failed in a fold, and fold fits.
 
@@ -162,8 +164,7 @@ def failure_notes(failures: tuple[tuple[str, str], ...], n_total: int, stage: st
 def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
     """Run stage 3 (see the module docstring); return what it wrote."""
     run_dir = Path(run_dir)
-    tables = {"counting_process": load_data(run_dir, "counting_process"),
-              "landmark_stack": load_data(run_dir, "landmark_stack")}
+    tables = stage_tables(run_dir)  # read once per worker process from data/*.parquet
     result = StageResult(stage="validation", run_dir=run_dir)
     models = fitted_models(config, run_dir)
     notes: list[Note] = []
@@ -206,7 +207,7 @@ def validated_table(table: pd.DataFrame, families: dict[str, str]) -> pd.DataFra
     return out[_VALIDATED_COLUMNS]
 
 
-def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: list[Any], result: StageResult,
+def _optimism(config: AnalysisConfig, tables: Mapping[str, pd.DataFrame], models: list[Any], result: StageResult,
               fits: list) -> list[Note]:
     """Bootstrap optimism of ``models`` into ``result.tables``; the notes it leads to."""
     n_boot = bootstrap_resamples(config)
@@ -225,7 +226,7 @@ def _optimism(config: AnalysisConfig, tables: dict[str, pd.DataFrame], models: l
     try:
         outcome = bootstrap_optimism_result(
             [model_spec(m, config.missing_data) for m in models],
-            PrecomputedTables(tables["landmark_stack"], tables["counting_process"]),
+            table_source(tables),
             list(horizons), n_boot=n_boot, seed=config.validation.seed,
             config=execution(config))
     except ValidationInputError as exc:  # every resample failed (the message gives the first reasons)
