@@ -18,7 +18,8 @@ from lifelines import KaplanMeierFitter
 from riskbench.metrics import concordance_counting_process, concordance_harrell, concordance_uno
 
 
-def _ij_se(pairs: list[tuple[int, int, float, float]], n: int, cluster: np.ndarray | None = None) -> tuple[float, float]:
+def _ij_se(pairs: list[tuple[int, int, float, float]], n: int,
+           cluster: np.ndarray | None = None) -> tuple[float, float]:
     """(C, SE) from pairs ``(i, j, weight, score)``: score 1 / ½ / 0 (concordant / tied risk / discordant)."""
     num = sum(w * c for _, _, w, c in pairs)
     den = sum(w for _, _, w, _ in pairs)
