@@ -32,17 +32,6 @@ class ExternalRunError(RiskbenchError):
     """The saved model and the new cohort cannot be brought together (the message says why and what to do)."""
 
 
-def _prepare_out(out: Path, overwrite: bool) -> None:
-    from riskbench.workflow.run_folder import remove_owned, write_marker
-
-    if out.exists() or out.is_symlink():
-        if not overwrite:
-            raise ExternalRunError(f"{out} exists; choose another --out or add --overwrite to replace it")
-        remove_owned(out, "the output of validate-model")
-    out.mkdir(parents=True)
-    write_marker(out, "partial")
-
-
 def _sha256(path: Path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
@@ -155,7 +144,7 @@ def validate_saved_model(model_path: str | Path, out: str | Path, *, config_path
     from riskbench.validation.external import validate_externally
     from riskbench.workflow.manifest import package_versions, utc_now
     from riskbench.workflow.model_bundle import load_model
-    from riskbench.workflow.run_folder import write_marker
+    from riskbench.workflow.run_folder import fresh_output_folder, write_marker
 
     started = utc_now()
     if not 0 < alpha < 1:
@@ -174,7 +163,7 @@ def validate_saved_model(model_path: str | Path, out: str | Path, *, config_path
                                                      21)) if report.decision_curves else ()
     with tempfile.TemporaryDirectory(prefix="riskbench-external-") as temp:
         stack, dropped = _rows(saved, new, Path(temp))
-    _prepare_out(out, overwrite)
+    fresh_output_folder(out, overwrite, "the output of validate-model")
     ev = validate_externally(saved.model, stack, horizons, shrink_revision=shrink_revision, alpha=alpha,
                              thresholds=thresholds, triage_target_npv=report.triage_target_npv if report.triage
                              else None, min_outcomes=threshold, n_boot=n_boot, seed=new.seed)

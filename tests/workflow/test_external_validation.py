@@ -15,6 +15,7 @@ from riskbench.demo.cohort_spec import demo_cohort_spec
 from riskbench.models.landmark import LandmarkSupermodel
 from riskbench.workflow.cli import main
 from riskbench.workflow.external_command import ExternalRunError, summary_lines, validate_saved_model
+from riskbench.workflow.run_folder import RunFolderExists
 
 ROOT = Path(__file__).resolve().parents[2]
 LANDMARKS = [0.0, 182.625, 365.25, 547.875, 730.5]
@@ -93,7 +94,7 @@ def test_an_existing_folder_is_not_replaced_without_overwrite(saved, capsys):
     folder, bundle, configs = saved
     (folder / "taken").mkdir()
     (folder / "taken" / "notes.txt").write_text("mine")
-    with pytest.raises(ExternalRunError, match="--overwrite"):
+    with pytest.raises(RunFolderExists, match="--overwrite"):
         validate_saved_model(bundle, folder / "taken", config_path=configs["same"], resamples=0)
     code = main(["validate-model", str(bundle), "--config", str(configs["same"]), "--out", str(folder / "taken"),
                  "--overwrite", "--resamples", "0"])
