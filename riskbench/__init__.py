@@ -13,4 +13,16 @@ try:
 except PackageNotFoundError:  # running from a source tree that was not installed
     __version__ = "0.0.0+unknown"
 
-__all__ = ["__version__"]
+__all__ = ["SavedModel", "__version__", "load_model"]
+
+#: Names imported on first use (the model bundle pulls in the model and cohort stages).
+_LAZY = {"load_model": "riskbench.workflow.model_bundle", "SavedModel": "riskbench.workflow.model_bundle"}
+
+
+def __getattr__(name: str) -> object:
+    """``riskbench.load_model`` and ``riskbench.SavedModel`` (:mod:`riskbench.workflow.model_bundle`)."""
+    if name in _LAZY:
+        import importlib
+
+        return getattr(importlib.import_module(_LAZY[name]), name)
+    raise AttributeError(f"module 'riskbench' has no attribute {name!r}")
