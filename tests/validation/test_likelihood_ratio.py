@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 from lifelines import CoxPHFitter
 from lifelines.datasets import load_rossi
+from scipy.stats import chi2
 
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.likelihood_ratio import likelihood_ratio_test, nested_cox_lr_test
@@ -48,7 +49,12 @@ def test_nested_fits_give_positive_statistic_and_check_nesting():
             fit_=SimpleNamespace(loglik=cph.log_likelihood_, loglik_null=_null_loglik_efron(rossi["week"].to_numpy(), rossi["arrest"].to_numpy()), coef=cph.params_.to_numpy()),
         )
     res = nested_cox_lr_test(fits["small"], fits["large"])
-    assert res.df == 2 and res.statistic > 0 and 0 < res.p_value < 1
+    # The definition (Fox & Weisberg, appendix cited above, section 3): twice the gain in log partial likelihood,
+    # referred to chi-squared on the number of added terms.
+    expected = 2.0 * (fits["large"].fit_.loglik - fits["small"].fit_.loglik)
+    assert res.df == 2 and res.statistic == pytest.approx(expected, rel=1e-12)
+    assert res.p_value == pytest.approx(chi2.sf(expected, 2), rel=1e-9)
+    assert 0.001 < res.p_value < 0.5  # fin and wexp add something, not overwhelming, on these data
     with pytest.raises(ValidationInputError, match="not nested"):
         nested_cox_lr_test(fits["large"], SimpleNamespace(covariates=("age",), fit_=fits["small"].fit_))
     shifted = SimpleNamespace(covariates=tuple(large_cov), fit_=SimpleNamespace(
