@@ -25,16 +25,9 @@ from riskbench.metrics.censoring import (
     inverse_censoring_weights,
     kaplan_meier,
 )
-from riskbench.metrics.concordance import TIED_TOL, _censoring_curve, _dense_rank
-from riskbench.metrics.inputs import (
-    ArrayLike,
-    MetricInputError,
-    as_horizons,
-    as_risk,
-    as_status,
-    as_time,
-    require_events_before,
-)
+from riskbench.metrics.concordance import TIED_TOL
+from riskbench.metrics.inputs import ArrayLike, MetricInputError
+from riskbench.metrics.risk_sets import censoring_curve, dense_rank, horizon_inputs
 
 
 @dataclass(frozen=True)
@@ -76,7 +69,7 @@ class HorizonWeights:
 
 def horizon_weights(t, status, horizons, train_time, train_event) -> HorizonWeights:
     """Censoring weights from the Kaplan–Meier of censoring (training data if given)."""
-    g_curve = _censoring_curve(t, status, train_time, train_event)
+    g_curve = censoring_curve(t, status, train_time, train_event)
     at_end = inverse_censoring_weights(g_curve, t, (status != 0) & (t <= horizons[-1]))
     g_h = censoring_weights_at(g_curve, horizons, what="horizons")
     if (g_h <= 0).any():
@@ -92,22 +85,6 @@ def observed_incidence(t: np.ndarray, status: np.ndarray) -> StepCurve:
         return aalen_johansen(t, status, cause=1)
     km = kaplan_meier(t, status)
     return StepCurve(km.times, 1.0 - km.values, km.variance, 0.0, km.last_time)
-
-
-def _prepare_horizon_inputs(time, event, risk, horizons, *, probability: bool):
-    t = as_time(time)
-    status = as_status(event, t.size, allow_competing=True)
-    h = as_horizons(horizons, t)
-    order = np.argsort(h, kind="stable")
-    r = as_risk(risk, t.size, h.size, probability=probability)
-    if r.ndim == 2:
-        r = r[:, order]
-    h = h[order]
-    if np.unique(h).size != h.size:
-        raise MetricInputError(f"`horizons` repeat a value ({h.tolist()}): give each horizon once")
-    for hz in h:
-        require_events_before(t, status, hz)
-    return t, status, r, h
 
 
 def auc_cumulative_dynamic(
@@ -136,12 +113,12 @@ def auc_cumulative_dynamic(
     -------
     AUCResult
     """
-    t, status, r, h = _prepare_horizon_inputs(time, event, risk, horizons, probability=False)
+    t, status, r, h = horizon_inputs(time, event, risk, horizons, probability=False)
     weights = horizon_weights(t, status, h, train_time, train_event)
     aucs, n_cases, n_ctrl = np.empty(h.size), np.empty(h.size, dtype=int), np.empty(h.size, dtype=int)
-    rank = _dense_rank(r, TIED_TOL) if r.ndim == 1 else None
+    rank = dense_rank(r, TIED_TOL) if r.ndim == 1 else None
     for k, hz in enumerate(h):
-        rk = rank if rank is not None else _dense_rank(r[:, k], TIED_TOL)
+        rk = rank if rank is not None else dense_rank(r[:, k], TIED_TOL)
         case_w = weights.case(t, status, hz)
         ctrl_w = weights.control(t, status, k, hz)
         if not (ctrl_w > 0).any():
@@ -179,7 +156,7 @@ def roc_at_horizon(
         ``threshold`` (descending, starting at +inf: nobody positive), ``sensitivity`` (IPCW-weighted share
         of cases with risk >= threshold), ``specificity`` (share of controls with risk < threshold).
     """
-    t, status, r, h = _prepare_horizon_inputs(time, event, risk, horizon, probability=False)
+    t, status, r, h = horizon_inputs(time, event, risk, horizon, probability=False)
     weights = horizon_weights(t, status, h, train_time, train_event)
     if r.ndim == 2:
         r = r[:, 0]

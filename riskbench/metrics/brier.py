@@ -12,9 +12,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from riskbench.metrics.auc import HorizonWeights, _prepare_horizon_inputs, horizon_weights, observed_incidence
+from riskbench.metrics.auc import HorizonWeights, horizon_weights, observed_incidence
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_status, as_time
 from riskbench.metrics.risk_direction import check_risk_direction
+from riskbench.metrics.risk_sets import horizon_inputs
 
 
 def _ipcw_brier(t, status, risk_col, horizon, k, weights: HorizonWeights) -> float:
@@ -53,10 +54,10 @@ def brier_score(
     -------
     DataFrame
         ``horizon``, ``brier``, ``brier_null`` (every subject predicted the Kaplan–Meier (or
-        Aalen–Johansen) risk by the horizon), ``scaled_brier`` = 1 − brier / brier_null (index of prediction accuracy; 0 = no better
-        than the null model, 1 = perfect).
+        Aalen–Johansen) risk by the horizon), ``scaled_brier`` = 1 − brier / brier_null (index of prediction
+        accuracy; 0 = no better than the null model, 1 = perfect).
     """
-    t, status, r, h = _prepare_horizon_inputs(time, event, risk, horizons, probability=True)
+    t, status, r, h = horizon_inputs(time, event, risk, horizons, probability=True)
     if r.ndim == 1:
         if h.size != 1:
             raise MetricInputError(
@@ -67,7 +68,7 @@ def brier_score(
     if check_direction:
         check_risk_direction(t, status, r[:, -1])
     weights = horizon_weights(t, status, h, train_time, train_event)
-    if train_time is None:
+    if train_time is None or train_event is None:  # horizon_weights refused one without the other
         null_curve = observed_incidence(t, status)
     else:
         tt = as_time(train_time, "train_time")

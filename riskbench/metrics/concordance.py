@@ -13,9 +13,10 @@ from typing import NamedTuple
 
 import numpy as np
 
-from riskbench.metrics.censoring import censoring_survival, inverse_censoring_weights
+from riskbench.metrics.censoring import inverse_censoring_weights
 from riskbench.metrics.dominance import dominance_sums
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_risk, as_status, as_time, check_lengths
+from riskbench.metrics.risk_sets import OutcomeSet, censoring_curve, dense_rank
 
 
 @dataclass(frozen=True)
@@ -48,9 +49,10 @@ TIED_TOL = 1e-8
 computed score (e.g. 0.1 + 0.2 vs 0.3) does not decide a pair."""
 
 
-def _result(estimate: float, se: float, below: np.ndarray, tied: np.ndarray, total: np.ndarray, tied_time: int = 0) -> Concordance:
+def _result(estimate: float, se: float, below: np.ndarray, tied: np.ndarray, total: np.ndarray,
+            tied_time: int = 0) -> Concordance:
     """Concordance with pair counts summed from per-outcome counts."""
-    concordant, tied_risk, comparable = (int(round(float(x.sum()))) for x in (below, tied, total))
+    concordant, tied_risk, comparable = (round(float(x.sum())) for x in (below, tied, total))
     return Concordance(
         estimate=estimate,
         se=se,
@@ -60,15 +62,6 @@ def _result(estimate: float, se: float, below: np.ndarray, tied: np.ndarray, tot
         comparable=comparable,
         tied_time=tied_time,
     )
-
-
-def _dense_rank(values: np.ndarray, tol: float = 0.0) -> np.ndarray:
-    """Dense ranks; with ``tol`` > 0, sorted neighbours closer than ``tol`` share a rank."""
-    uniq, inv = np.unique(values, return_inverse=True)
-    if tol > 0 and uniq.size > 1:
-        step = np.r_[0, np.cumsum(np.diff(uniq) > tol)]
-        return step[inv.reshape(-1)]
-    return inv.reshape(-1)
 
 
 def _pair_sums(key_point, key_query, rank, weight_point):
@@ -88,14 +81,14 @@ def _influence_se(num_i, den_i, estimate, den_total, cluster=None) -> float:
     """sqrt(sum_k (dC/dv_k)^2) with case weights v (pairs weighted by v_i v_j); summed within clusters."""
     dc = (num_i - estimate * den_i) / den_total
     if cluster is not None:
-        dc = np.bincount(_dense_rank(cluster), weights=dc)
+        dc = np.bincount(dense_rank(cluster), weights=dc)
     return float(np.sqrt(np.sum(dc**2)))
 
 
 def _time_keys(time: np.ndarray, is_event: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Order key for 'later than' (a larger time first; a censoring before an outcome at an equal time)
     and the dense rank of -time."""
-    t_rank = _dense_rank(-time)
+    t_rank = dense_rank(-time)
     return 2 * t_rank + is_event.astype(np.int64), t_rank
 
 
@@ -122,7 +115,7 @@ class _PairContributions(NamedTuple):
 
 def _earlier_competing_sums(time, rank, pairs: _EarlierCompeting, *, with_se: bool) -> _PairContributions:
     """The pairs of an outcome and a competing event strictly before it."""
-    t_rank = _dense_rank(time)  # ascending: a strictly smaller key is a strictly earlier time
+    t_rank = dense_rank(time)  # ascending: a strictly smaller key is a strictly earlier time
     weighted = dominance_sums(t_rank, rank, pairs.competing_weight)
     counts = dominance_sums(t_rank, rank, (pairs.competing_weight > 0).astype(float))
     w = pairs.outcome_weight
@@ -147,7 +140,7 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool,
     """
     n = time.size
     key, t_rank = _time_keys(time, is_event)
-    rank = _dense_rank(risk, TIED_TOL)
+    rank = dense_rank(risk, TIED_TOL)
     ev = is_event.astype(bool)
     # role 1: outcome i asks for the subjects later than it (key strictly smaller)
     sums = dominance_sums(key, rank, np.ones(n))
@@ -181,14 +174,14 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool,
         if extra is not None:
             num_j, den_j = num_j + extra.num_j, den_j + extra.den_j
         se = _influence_se(num_i + num_j, den_i + den_j, estimate, den)
-    return _result(estimate, se, *counts, tied_time)
+    return _result(estimate, se, counts[0], counts[1], counts[2], tied_time)
 
 
 def _tied_time_pairs(t_rank: np.ndarray, is_event: np.ndarray, used: np.ndarray) -> int:
     """Pairs of a counted outcome and a censoring at the same time."""
     cens = np.bincount(t_rank, weights=(~is_event.astype(bool)).astype(float))
     ev = np.bincount(t_rank, weights=used.astype(float), minlength=cens.size)
-    return int(round(float(np.sum(cens * ev))))
+    return round(float(np.sum(cens * ev)))
 
 
 def _prepare(time, event, risk, *, allow_competing: bool):
@@ -260,7 +253,7 @@ def concordance_uno(
         Infinitesimal-jackknife standard error, treating the censoring weights as fixed.
     """
     t, status, r = _prepare(time, event, risk, allow_competing=True)
-    g_curve = _censoring_curve(t, status, train_time, train_event)
+    g_curve = censoring_curve(t, status, train_time, train_event)
     is_event = status == 1
     use = is_event & (t < tau if tau is not None else True)
     if not use.any():
@@ -275,14 +268,112 @@ def concordance_uno(
     return _weighted_concordance(t, is_event, r, weight, with_se=with_se, earlier_competing=earlier)
 
 
-def _censoring_curve(t, status, train_time, train_event):
-    if (train_time is None) != (train_event is None):
-        raise MetricInputError("give both `train_time` and `train_event`, or neither")
-    if train_time is None:
-        return censoring_survival(t, status)
-    tt = as_time(train_time, "train_time")
-    te = as_status(train_event, tt.size, allow_competing=True, name="train_event")
-    return censoring_survival(tt, te)
+class HorizonConcordance(NamedTuple):
+    """Harrell's and Uno's C of one score at one horizon (see :func:`concordance_at_horizon`)."""
+
+    harrell: float
+    uno: float
+
+
+def concordance_at_horizon(outcomes: OutcomeSet, risk: ArrayLike, tau: float) -> HorizonConcordance:
+    """Harrell's C with outcome and follow-up truncated at ``tau`` and Uno's C with truncation time ``tau``, in
+    one pass over the pairs; estimates equal to ``concordance_harrell(min(time, tau), status truncated at tau,
+    risk)`` and ``concordance_uno(time, status, risk, tau)`` (no standard errors, no pair counts).
+
+    Both indices count, for each outcome, the subjects later than it with a lower, equal or any score; those
+    sums are computed once. Harrell's index adds the competing events strictly before each outcome (after
+    truncation they never have the outcome, so they are later than every outcome); Uno's adds the same pairs
+    with inverse-probability weights (Wolbers et al. 2014). The unweighted sums are integers, so Harrell's value
+    is exactly that of the separate call; Uno's differs from it by rounding at most (its earlier-competing sums
+    run over the outcomes and competing events only).
+
+    Parameters
+    ----------
+    outcomes
+        The evaluation set (time in days, status 0/1/2), shared by every score and horizon measured on it.
+    risk
+        Score per subject, higher = worse.
+    tau
+        Truncation time (days).
+
+    Raises
+    ------
+    MetricInputError
+        When either index is undefined (the messages of the separate functions).
+    """
+    t, status = outcomes.time, outcomes.status
+    r = as_risk(risk, t.size)
+    if r.ndim != 1:
+        raise MetricInputError("`risk` must be one score per subject (1-D) for concordance")
+    is_event = status == 1
+    harrell_event = is_event & (t <= tau)
+    if not harrell_event.any():
+        raise MetricInputError("`event` holds no outcome (code 1): concordance is undefined")
+    key, _ = outcomes.later_key()
+    rank = dense_rank(r, TIED_TOL)
+    later = dominance_sums(key, rank, np.ones(t.size))
+    below, tied, total = (np.where(is_event, a, 0.0) for a in (later.below, later.tied, later.total))
+    competing = status == 2
+    earlier = None
+    if competing.any():
+        earlier = _earlier_competing_pairs(outcomes.time_rank(), rank, is_event, competing)
+    h_num, h_den = below + 0.5 * tied, total
+    if earlier is not None:
+        h_num = h_num + np.where(harrell_event, earlier.below + 0.5 * earlier.tied, 0.0)
+        h_den = h_den + np.where(harrell_event, earlier.total, 0.0)
+    h_num, h_den = np.where(harrell_event, h_num, 0.0), np.where(harrell_event, h_den, 0.0)
+    den = float(h_den.sum())
+    if den == 0:
+        raise MetricInputError(
+            "no comparable pair: every outcome is the last observation (or no outcome before `tau`); "
+            "concordance is undefined"
+        )
+    harrell = float(h_num.sum() / den)
+    use = is_event & (t < tau)
+    if not use.any():
+        raise MetricInputError(f"no outcome happens before tau={tau}: Uno's C is undefined; choose a later tau")
+    g_curve = outcomes.censoring
+    weight = inverse_censoring_weights(g_curve, t, use, power=2)
+    num_i = weight * (below + 0.5 * tied)
+    den_i = weight * total
+    if earlier is not None:
+        pairs = _EarlierCompeting(
+            outcome_weight=inverse_censoring_weights(g_curve, t, use, power=1),
+            competing_weight=inverse_censoring_weights(g_curve, t, competing & (t < t[use].max()), power=1))
+        extra = _earlier_competing_pairs(outcomes.time_rank(), rank, is_event, competing, pairs)
+        num_i, den_i = num_i + extra.below, den_i + extra.total
+    den = float(den_i.sum())
+    if den == 0:
+        raise MetricInputError(
+            "no comparable pair: every outcome is the last observation (or no outcome before `tau`); "
+            "concordance is undefined"
+        )
+    return HorizonConcordance(harrell, float(num_i.sum() / den))
+
+
+class _PairTotals(NamedTuple):
+    below: np.ndarray
+    tied: np.ndarray
+    total: np.ndarray
+
+
+def _earlier_competing_pairs(t_rank: np.ndarray, rank: np.ndarray, is_event: np.ndarray, competing: np.ndarray,
+                             pairs: _EarlierCompeting | None = None) -> _PairTotals:
+    """Per outcome, the competing events strictly before it with a lower, equal and any score: counted
+    (``pairs`` None) or weighted (``below`` and ``total`` then hold ``outcome_weight * (below + ½ tied)`` and
+    ``outcome_weight * total``). Only outcomes and competing events enter the sums; zero for other subjects."""
+    members = np.flatnonzero(is_event | competing)
+    point_weight = competing[members].astype(float) if pairs is None else pairs.competing_weight[members]
+    sums = dominance_sums(t_rank[members], rank[members], point_weight)
+    out = [np.zeros(t_rank.size) for _ in range(3)]
+    if pairs is None:
+        for full, part in zip(out, (sums.below, sums.tied, sums.total)):
+            full[members] = part
+    else:
+        w = pairs.outcome_weight[members]
+        out[0][members] = w * (sums.below + 0.5 * sums.tied)
+        out[2][members] = w * sums.total
+    return _PairTotals(*out)
 
 
 def concordance_counting_process(
@@ -327,7 +418,7 @@ def concordance_counting_process(
     inv_stop = grid.size - 1 - np.searchsorted(grid, stop_a)
     inv_start = grid.size - 1 - np.searchsorted(grid, start_a)
     key_stop = 2 * inv_stop + is_event  # same 'later than' order as for one row per subject
-    rank = _dense_rank(r, TIED_TOL)
+    rank = dense_rank(r, TIED_TOL)
     ones = np.ones(n)
     # rows with stop later than t (or censored at t) ...
     a = dominance_sums(key_stop, rank, ones)
@@ -338,7 +429,8 @@ def concordance_counting_process(
     total = np.where(is_event, a.total - b_total, 0.0)
     den = float(total.sum())
     if den == 0:
-        raise MetricInputError("no row is at risk at any outcome time besides the outcome row: concordance is undefined")
+        raise MetricInputError(
+            "no row is at risk at any outcome time besides the outcome row: concordance is undefined")
     num_i = below + 0.5 * tied
     estimate = float(num_i.sum() / den)
     # influence of each row as a member of other rows' risk sets (both orders flipped)

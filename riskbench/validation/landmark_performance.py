@@ -29,6 +29,7 @@ import numpy as np
 import pandas as pd
 
 from riskbench.metrics.inputs import MetricInputError
+from riskbench.metrics.risk_sets import OutcomeSet
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.parallel import ExecutionConfig, run_replicates
 from riskbench.validation.performance import HORIZON_MEASURES, evaluation_time, horizon_measures, stack_outcome
@@ -125,7 +126,8 @@ class LandmarkPerformance:
     decision_days: float | None = None
 
 
-def landmark_cells(rows: EvaluationRows, report_days: Sequence[float], min_outcomes: int) -> tuple[tuple[float, float], ...]:
+def landmark_cells(rows: EvaluationRows, report_days: Sequence[float],
+                   min_outcomes: int) -> tuple[tuple[float, float], ...]:
     """``(landmark, horizon)`` pairs (landmark NaN = pooled) with at least ``min_outcomes`` outcomes before the
     horizon among their rows."""
     cells = []
@@ -148,12 +150,15 @@ def evaluate_plan(rows: EvaluationRows, plan: EvaluationPlan, index: np.ndarray 
     idx = np.arange(rows.time.size) if index is None else np.asarray(index)
     time, status, landmark = rows.time[idx], rows.status[idx], rows.landmark[idx]
     out: list[tuple] = []
+    # the rows of each landmark (and all rows), each one evaluation set shared by every model and horizon
+    rows_at = {lm: np.ones(idx.size, bool) if np.isnan(lm) else landmark == lm for lm, _ in plan.cells}
+    sets = {lm: _outcome_set(time[at], status[at]) for lm, at in rows_at.items()}
     for model, matrix in plan.risks.items():
         risk = matrix[idx]
         for lm, h in plan.cells:
-            at = np.ones(idx.size, bool) if np.isnan(lm) else landmark == lm
+            at = rows_at[lm]
             values = _measures_or_nan(time[at], status[at], risk[at, plan.column(h)], h,
-                                      plan.targets.get(model, "cumulative_incidence"))
+                                      plan.targets.get(model, "cumulative_incidence"), sets[lm])
             out += [("measure", model, lm, h, name, np.nan, values[name]) for name in HORIZON_MEASURES]
         out += [("auc_curve", model, np.nan, h, "auc", np.nan, v)
                 for h, v in zip(plan.curve_days, _auc_curve(time, status, risk, plan))]
@@ -168,10 +173,20 @@ def evaluate_plan(rows: EvaluationRows, plan: EvaluationPlan, index: np.ndarray 
     return pd.DataFrame(out, columns=[*KEY_COLUMNS, "value"])
 
 
-def _measures_or_nan(time: np.ndarray, status: np.ndarray, risk: np.ndarray, h: float,
-                     target: str) -> dict[str, float]:
+def _outcome_set(time: np.ndarray, status: np.ndarray) -> OutcomeSet | None:
+    """The evaluation set of these rows, or None when it cannot be measured (no rows in a resample)."""
     try:
-        return horizon_measures(time, status, risk, h, target=target)
+        return OutcomeSet.from_arrays(time, status)
+    except MetricInputError:
+        return None
+
+
+def _measures_or_nan(time: np.ndarray, status: np.ndarray, risk: np.ndarray, h: float,
+                     target: str, outcomes: OutcomeSet | None) -> dict[str, float]:
+    try:
+        if outcomes is None:
+            raise MetricInputError("no rows to measure")
+        return horizon_measures(time, status, risk, h, target=target, outcomes=outcomes)
     except MetricInputError:  # no outcome before the horizon or no control after it in these rows
         return dict.fromkeys(HORIZON_MEASURES, np.nan)
 
@@ -202,8 +217,9 @@ def _net_benefit(time: np.ndarray, status: np.ndarray, risk: np.ndarray,
                  plan: EvaluationPlan) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     from riskbench.metrics import net_benefit
 
+    days = float(plan.decision_days) if plan.decision_days is not None else np.nan  # called only with decision days
     try:
-        nb = net_benefit(time, status, risk, evaluation_time(float(plan.decision_days), time), list(plan.thresholds),
+        nb = net_benefit(time, status, risk, evaluation_time(days, time), list(plan.thresholds),
                          check_direction=False)
     except MetricInputError:
         empty = np.full(len(plan.thresholds), np.nan)

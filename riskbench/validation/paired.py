@@ -8,13 +8,13 @@ differences are paired.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import Any
-
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from riskbench.metrics.risk_sets import OutcomeSet
 from riskbench.models.missing_data import predicted_rows
 from riskbench.models.prediction_target import fitted_target
 from riskbench.validation.errors import ValidationInputError
@@ -182,8 +182,10 @@ def evaluate_fitted(
         time, status, event = time[usable], status[usable], event[usable]
         risks = [{h: r[usable] for h, r in risk.items()} for risk in risks]
     per_spec = []
+    outcomes = OutcomeSet.from_arrays(time, status)  # one sort and censoring curve for every spec and horizon
     for spec, model, risk in zip(specs, models, risks):
-        frame = evaluate_risks(time, status, risk, thresholds=thresholds, target=fitted_target(model))
+        frame = evaluate_risks(time, status, risk, thresholds=thresholds, target=fitted_target(model),
+                               outcomes=outcomes)
         frame.insert(0, "spec", spec.name)
         per_spec.append(frame)
     spec_frame = pd.concat(per_spec, ignore_index=True)
@@ -224,7 +226,8 @@ def _reclassification_rows(
         ]
         if categories is not None:
             cat = net_reclassification(time, event, risk_ref[h], risk_cand[h], t_eval, categories=categories)
-            rows += [("nri_cat_events", h, cat.events), ("nri_cat_nonevents", h, cat.nonevents), ("nri_cat", h, cat.total)]
+            rows += [("nri_cat_events", h, cat.events), ("nri_cat_nonevents", h, cat.nonevents),
+                     ("nri_cat", h, cat.total)]
     frame = pd.DataFrame(rows, columns=["metric", "horizon_days", "value"])
     frame["threshold"] = np.nan
     frame.insert(0, "candidate", cand)

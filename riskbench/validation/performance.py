@@ -30,6 +30,8 @@ import numpy as np
 import pandas as pd
 
 from riskbench.metrics.calibration import observed_expected
+from riskbench.metrics.concordance import concordance_at_horizon
+from riskbench.metrics.risk_sets import OutcomeSet
 from riskbench.models.prediction_target import fitted_target
 from riskbench.validation.errors import ValidationInputError
 
@@ -56,7 +58,8 @@ def stack_outcome(stack: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
             raise ValidationInputError(f"the evaluation stack lacks column '{column}' (landmark-stack contract).")
     time = pd.to_numeric(stack["time"], errors="coerce").to_numpy(dtype=float)
     if not np.isfinite(time).all():
-        raise ValidationInputError(f"the evaluation stack's 'time' has missing values in rows {np.flatnonzero(~np.isfinite(time))[:5].tolist()}.")
+        rows = np.flatnonzero(~np.isfinite(time))[:5].tolist()
+        raise ValidationInputError(f"the evaluation stack's 'time' has missing values in rows {rows}.")
     status = pd.to_numeric(stack["status"], errors="coerce").to_numpy()
     if not np.isin(status, (0, 1, 2)).all():
         raise ValidationInputError("the evaluation stack's 'status' must be 0, 1 or 2 (landmark-stack contract).")
@@ -121,6 +124,7 @@ def evaluate_risks(
     *,
     thresholds: Sequence[float] = (),
     target: str = "cumulative_incidence",
+    outcomes: OutcomeSet | None = None,
 ) -> pd.DataFrame:
     """Every measure at every horizon for one set of predicted risks.
 
@@ -137,6 +141,9 @@ def evaluate_risks(
     target : {"cumulative_incidence", "cause_specific"}
         What the risks estimate (:func:`riskbench.models.prediction_target.prediction_target`): the
         calibration slope, ICI and observed/expected ratio compare them with that estimand.
+    outcomes : OutcomeSet, optional
+        ``time`` and ``status`` as one evaluation set (:mod:`riskbench.metrics.risk_sets`), shared by every
+        model measured on these rows; built here when not given.
 
     Returns
     -------
@@ -149,10 +156,11 @@ def evaluate_risks(
     from riskbench import metrics
 
     rows: list[tuple[str, float, float, float]] = []
+    outcomes = outcomes if outcomes is not None else OutcomeSet.from_arrays(time, status)
     for horizon, risk in risks.items():
         h = float(horizon)
         t_eval = evaluation_time(h, time)
-        core = horizon_measures(time, status, risk, h, target=target)
+        core = horizon_measures(time, status, risk, h, target=target, outcomes=outcomes)
         # No confidence band (the resampling gives intervals) and no direction check: a poor model in
         # an unlucky replicate is a result to report, not an input error. A model whose risks take too few
         # distinct values for the smoother has no smoothed calibration (NaN; the other measures stand).
@@ -174,7 +182,7 @@ HORIZON_MEASURES: tuple[str, ...] = ("harrell_c", "uno_c", "auc", "brier", "scal
 
 
 def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, horizon: float, *,
-                     target: str = "cumulative_incidence") -> dict[str, float]:
+                     target: str = "cumulative_incidence", outcomes: OutcomeSet | None = None) -> dict[str, float]:
     """Concordance (Harrell, Uno), cumulative/dynamic AUC, Brier score, scaled Brier (IPA) and
     calibration-in-the-large at one horizon (days), each treating a competing event as the module notes say.
 
@@ -183,20 +191,22 @@ def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, hor
     the model's own estimand ``target`` (Aalen–Johansen cumulative incidence; 1 − Kaplan–Meier with competing
     events censored for ``"cause_specific"``) over the mean predicted risk. Raises
     :class:`riskbench.metrics.inputs.MetricInputError` when a measure is undefined (no outcome before the
-    horizon, no control after it).
+    horizon, no control after it). ``outcomes``: ``time`` and ``status`` as a
+    :class:`riskbench.metrics.risk_sets.OutcomeSet`, to share its sort and censoring curve between models and
+    horizons measured on the same rows.
     """
     from riskbench import metrics
 
     t_eval = evaluation_time(float(horizon), time)
-    # Outcome and competing event as known by the horizon: either after it is censored there.
-    by_horizon = np.where(time <= t_eval, status, 0)
-    harrell = metrics.concordance_harrell(np.minimum(time, t_eval), by_horizon, risk, with_se=False)
-    uno = metrics.concordance_uno(time, status, risk, t_eval, with_se=False)
+    # Harrell's C with outcome and follow-up truncated at the horizon (either after it is censored there) and
+    # Uno's C share one pass over the pairs and the evaluation set's sort and censoring curve.
+    c = concordance_at_horizon(outcomes if outcomes is not None else OutcomeSet.from_arrays(time, status), risk,
+                               t_eval)
     auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval])
     brier = metrics.brier_score(time, status, risk, [t_eval], check_direction=False)
     return {
-        "harrell_c": float(harrell.estimate),
-        "uno_c": float(uno.estimate),
+        "harrell_c": c.harrell,
+        "uno_c": c.uno,
         "auc": float(np.asarray(auc.table["auc"])[0]),
         "brier": float(np.asarray(brier["brier"])[0]),
         "scaled_brier": float(np.asarray(brier["scaled_brier"])[0]),
