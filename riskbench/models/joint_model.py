@@ -140,8 +140,8 @@ class JointModel(BaseEstimator):
         legendre_points: int = 7,
         adaptive_rounds: int = 2,
         max_iter: int = 1000,
-        prediction_draws: int = 200,
-        grid_steps: int = 48,
+        prediction_draws: int = 100,
+        grid_steps: int = 24,
         random_state: int = 0,
     ) -> None:
         self.marker = marker
@@ -272,9 +272,10 @@ class JointModel(BaseEstimator):
         def gradient(th: np.ndarray) -> np.ndarray:
             return objective(th)[1]
 
+        # one information matrix serves the polishing steps and the covariance: the steps are tiny
+        # (the optimiser stops with a gradient near 0), so the matrix barely changes over them
         information = observed_information(gradient, theta)
         theta, loglik = newton_polish(objective, theta, information)
-        information = observed_information(gradient, theta)
         self.theta_ = theta
         self.loglik_ = loglik
         self.gradient_ = gradient(theta)
