@@ -155,11 +155,7 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool,
         num_i, den_i = num_i + extra.num_i, den_i + extra.den_i
         counts = [np.r_[a, b] for a, b in zip(counts, extra.counts)]
     den = float(den_i.sum())
-    if den == 0:
-        raise MetricInputError(
-            "no comparable pair: every outcome is the last observation (or no outcome before `tau`); "
-            "concordance is undefined"
-        )
+    _require_pairs(den)
     estimate = float(num_i.sum() / den)
     tied_time = _tied_time_pairs(t_rank, is_event, used)
     se = float("nan")
@@ -175,6 +171,15 @@ def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool,
             num_j, den_j = num_j + extra.num_j, den_j + extra.den_j
         se = _influence_se(num_i + num_j, den_i + den_j, estimate, den)
     return _result(estimate, se, counts[0], counts[1], counts[2], tied_time)
+
+
+def _require_pairs(den: float) -> None:
+    """Refuse a concordance without a comparable pair (``den``: their total weight)."""
+    if den == 0:
+        raise MetricInputError(
+            "no comparable pair: every outcome is the last observation (or no outcome before `tau`); "
+            "concordance is undefined"
+        )
 
 
 def _tied_time_pairs(t_rank: np.ndarray, is_event: np.ndarray, used: np.ndarray) -> int:
@@ -323,11 +328,7 @@ def concordance_at_horizon(outcomes: OutcomeSet, risk: ArrayLike, tau: float) ->
         h_den = h_den + np.where(harrell_event, earlier.total, 0.0)
     h_num, h_den = np.where(harrell_event, h_num, 0.0), np.where(harrell_event, h_den, 0.0)
     den = float(h_den.sum())
-    if den == 0:
-        raise MetricInputError(
-            "no comparable pair: every outcome is the last observation (or no outcome before `tau`); "
-            "concordance is undefined"
-        )
+    _require_pairs(den)
     harrell = float(h_num.sum() / den)
     use = is_event & (t < tau)
     if not use.any():
@@ -343,11 +344,7 @@ def concordance_at_horizon(outcomes: OutcomeSet, risk: ArrayLike, tau: float) ->
         extra = _earlier_competing_pairs(outcomes.time_rank(), rank, is_event, competing, pairs)
         num_i, den_i = num_i + extra.below, den_i + extra.total
     den = float(den_i.sum())
-    if den == 0:
-        raise MetricInputError(
-            "no comparable pair: every outcome is the last observation (or no outcome before `tau`); "
-            "concordance is undefined"
-        )
+    _require_pairs(den)
     return HorizonConcordance(harrell, float(num_i.sum() / den))
 
 
