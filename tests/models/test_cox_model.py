@@ -99,10 +99,13 @@ def test_time_varying_fit_matches_lifelines_and_predicts_per_stratum():
     np.testing.assert_allclose(model.coef_.to_numpy(), peer.params_.to_numpy(), atol=1e-6)
     probe = pd.DataFrame({"x": [0.0, 0.0], "site": ["north", "south"], "landmark": [100.0, 100.0]})
     risk = model.predict_risk(probe, 50.0)
+    lrh = model.predict_log_relative_hazard(probe)
     for i, site in enumerate(["north", "south"]):
         base = model.baseline_cumhaz_[model.baseline_cumhaz_["stratum"] == site]
-        h = np.interp(150.0, base["time"], base["cumhaz"], left=0.0)  # not a step: only for ordering
-        assert 0 < risk[i] < 1 and h > 0
+        cumhaz = np.r_[0.0, base["cumhaz"].to_numpy()]  # 0 before the stratum's first event
+        step = cumhaz[np.searchsorted(base["time"].to_numpy(), [100.0, 150.0], side="right")]
+        # Risk in (100, 150] from the row's own stratum: 1 - exp(-(H0(150) - H0(100)) exp(lp)).
+        assert risk[i] == pytest.approx(1 - np.exp(-(step[1] - step[0]) * np.exp(lrh[i])), rel=1e-12)
     assert risk[0] != risk[1]
     with pytest.raises(ModelInputError, match="not seen in fitting"):
         model.predict_risk(probe.assign(site=["east", "north"]), 50.0)
