@@ -343,9 +343,12 @@ class Progress:
         return ProgressState(self.label, self._done, self.total, self._clock() - self._start, self.unit)
 
     def advance(self, units: int = 1) -> None:
-        """Record ``units`` more finished units."""
+        """Record ``units`` more finished units (the last one tells the final state, see :meth:`close`)."""
         self._done = min(self._done + int(units), self.total)
-        self._tell()
+        if self._done >= self.total:
+            self.close()
+        else:
+            self._tell()
 
     def close(self) -> None:
         """Tell the final state once (also when the work stopped early: the count then says how far it got)."""
