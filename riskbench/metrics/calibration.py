@@ -20,6 +20,12 @@ Harrell & van Klaveren 2020, Stat Med, without):
 * calibration slope b and intercept: cloglog(observed) = a + b·cloglog(predicted) (slope; 1 = ideal, < 1 =
   predictions too extreme) and cloglog(observed) = a + cloglog(predicted) (calibration-in-the-large on the
   log cumulative-hazard scale; 0 = ideal), with sandwich standard errors clustered on ``cluster``;
+* Cox recalibration slope: a Cox model of the outcome on cloglog(predicted risk), follow-up cut at the horizon
+  (competing events censored, so it is the slope on the cause-specific hazard), fitted by the project's Cox
+  engine (:func:`riskbench.models.cox_engine.fit_cox`) with Efron's tie handling by default (the usual default of
+  statistical software; ``ties="breslow"`` on request) and a robust variance clustered on ``cluster``
+  (van Houwelingen 2000, Stat Med 19:3401–3415; Crowson, Atkinson & Therneau 2016, Stat Methods Med Res
+  25:1692–1706);
 * observed/expected: the observed risk by the horizon (Aalen–Johansen or Kaplan–Meier, as ``target`` says)
   over the mean predicted risk: the one O/E of the table, the figure and the comparison;
 * grouped: quantile groups of predicted risk against their observed risk with 95% intervals.
@@ -31,6 +37,7 @@ are uniform.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -40,8 +47,9 @@ from scipy import stats
 from riskbench.metrics.censoring import observed_risk
 from riskbench.metrics.cloglog_regression import CloglogFit, fit_cloglog
 from riskbench.metrics.horizon_inputs import single_horizon_inputs
-from riskbench.metrics.inputs import ArrayLike, MetricInputError, check_lengths
+from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_horizons, as_time, check_lengths
 from riskbench.metrics.pseudo_observations import pseudo_observations
+from riskbench.models.cox_engine import CoxNumericalError, MonotoneLikelihoodWarning, fit_cox
 
 Z95 = float(stats.norm.ppf(0.975))
 _CLIP = 1e-10
@@ -69,6 +77,11 @@ class Calibration:
         Calibration slope (coefficient of cloglog(predicted risk)) and its standard error.
     intercept, intercept_se
         Calibration-in-the-large on the cloglog scale (0 = ideal) and its standard error.
+    cox_slope, cox_slope_se
+        Cox recalibration slope (log hazard ratio per unit of cloglog(predicted risk), follow-up cut at the
+        horizon; 1 = ideal) and its standard error (robust when clustered). NaN when the fit breaks down.
+    ties
+        Tie handling of the Cox recalibration: ``"efron"`` or ``"breslow"``.
     oe_ratio, oe_lower, oe_upper
         Observed / expected risk at the horizon and its 95% interval.
     observed, expected
@@ -91,6 +104,9 @@ class Calibration:
     slope_se: float
     intercept: float
     intercept_se: float
+    cox_slope: float
+    cox_slope_se: float
+    ties: str
     oe_ratio: float
     oe_lower: float
     oe_upper: float
@@ -190,6 +206,43 @@ def observed_expected(time: np.ndarray, status: np.ndarray, risk: np.ndarray, ho
     return float(oe), float(oe * np.exp(-Z95 * se_log)), float(oe * np.exp(Z95 * se_log))
 
 
+#: Tie handling of the Cox recalibration (the first is the default).
+TIES = ("efron", "breslow")
+
+
+def cox_recalibration(time: np.ndarray, status: np.ndarray, z: np.ndarray, horizon: float, *, ties: str = "efron",
+                      cluster: np.ndarray | None = None) -> tuple[float, float]:
+    """Slope and standard error of a Cox model of the outcome (status 1) on ``z`` with follow-up cut at ``horizon``.
+
+    Fitted by :func:`riskbench.models.cox_engine.fit_cox`; the standard error is cluster-robust when ``cluster``
+    is given. A fit that breaks down numerically (outcomes perfectly separated by ``z``) gives NaN with a warning.
+    """
+    if ties not in TIES:
+        raise MetricInputError(
+            f"`ties` must be one of {list(TIES)} (the Cox recalibration's tie handling); got {ties!r}"
+        )
+    event = ((status == 1) & (time <= horizon)).astype(float)
+    # everyone enters just before the earliest time, so rows with time 0 keep their place in the risk sets
+    entry = np.full(time.size, float(time.min()) - 1.0)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            fit = fit_cox(z[:, None], np.minimum(time, horizon), event, entry, cluster=cluster, ties=ties,
+                          names=["cloglog_risk"])
+        except CoxNumericalError as exc:
+            caught.append(warnings.WarningMessage(MonotoneLikelihoodWarning(str(exc)), MonotoneLikelihoodWarning,
+                                                  __file__, 0))
+    running_off = [w for w in caught if issubclass(w.category, MonotoneLikelihoodWarning)]
+    if running_off:  # the ill-conditioning warnings that come with it say the same thing
+        warnings.warn(f"the Cox recalibration slope is not estimable (the predicted risks separate the outcomes: "
+                      f"{running_off[0].message}); it is reported as NaN", RuntimeWarning, stacklevel=3)
+        return float("nan"), float("nan")
+    for w in caught:
+        warnings.warn(w.message, w.category, stacklevel=3)
+    se = fit.se if fit.robust_se is None else fit.robust_se
+    return float(fit.coef[0]), float(se[0])
+
+
 def _smoother_design(z: np.ndarray, knots: np.ndarray) -> np.ndarray:
     return np.column_stack([np.ones(z.size), rcs_basis(z, knots)])
 
@@ -230,6 +283,7 @@ def calibration_at_horizon(
     n_boot: int = 100,
     seed: int = 0,
     check_direction: bool = True,
+    ties: str = "efron",
 ) -> Calibration:
     """Smoothed and grouped calibration, slope, intercept and O/E of predicted risks at one horizon.
 
@@ -242,7 +296,9 @@ def calibration_at_horizon(
     risk
         Predicted probability of the outcome by ``horizon`` (not a survival probability).
     horizon
-        Days; within [min(time), max(time)].
+        Days; within [min(time), max(time)): at or after the last follow-up time nobody is left under
+        observation, so the horizon is refused as by the time-dependent AUC and the Brier score (for data
+        administratively censored at the horizon, evaluate just inside it).
     target
         What ``risk`` estimates: ``"cumulative_incidence"`` (competing events kept as competing) or
         ``"cause_specific"`` (1 − S of a cause-specific model: competing events censored).
@@ -257,12 +313,16 @@ def calibration_at_horizon(
         Seed for the bootstrap.
     check_direction
         Refuse a ``risk`` that is clearly anti-concordant (a survival probability passed by mistake).
+    ties
+        Tie handling of the Cox recalibration slope: ``"efron"`` (default, as common statistical software) or
+        ``"breslow"``.
 
     Notes
     -----
     Follow-up after the horizon does not enter: the pseudo-observations are of the observed risk by the
     horizon. See the module notes for the methods and their sources.
     """
+    as_horizons(horizon, as_time(time), name="horizon")  # the rule of the AUC and the Brier score
     t, status, r, h = single_horizon_inputs(
         time, event, risk, horizon, metric="calibration", check_direction=check_direction
     )
@@ -289,6 +349,7 @@ def calibration_at_horizon(
     ones = np.ones((t.size, 1))
     slope_fit = fit_cloglog(np.column_stack([ones, z]), pseudo, start=np.array([0.0, 1.0]), cluster=groups_of_rows)
     intercept_fit = fit_cloglog(ones, pseudo, offset=z, cluster=groups_of_rows)
+    cox_slope, cox_slope_se = cox_recalibration(t, status, z, h, ties=ties, cluster=groups_of_rows)
     design = _smoother_design(z, knots)
     start = _smoother_start(knots)
     smooth: CloglogFit = fit_cloglog(design, pseudo, start=start, cluster=groups_of_rows)
@@ -310,6 +371,9 @@ def calibration_at_horizon(
         slope_se=float(np.sqrt(slope_fit.cov[1, 1])),
         intercept=float(intercept_fit.coef[0]),
         intercept_se=float(np.sqrt(intercept_fit.cov[0, 0])),
+        cox_slope=cox_slope,
+        cox_slope_se=cox_slope_se,
+        ties=ties,
         oe_ratio=float(oe),
         oe_lower=float(oe_lo),
         oe_upper=float(oe_hi),

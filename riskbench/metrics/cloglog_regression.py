@@ -2,9 +2,11 @@
 
 The model is E[θ | x] = μ = 1 − exp(−exp(x β + offset)), fitted by generalised estimating equations with
 working independence (Andersen & Pohar Perme 2010, Stat Methods Med Res, section 3) and the binomial variance
-function μ(1 − μ), i.e. by maximum quasi-likelihood (Wedderburn 1974; McCullagh & Nelder 1989, ch. 9):
-iteratively reweighted least squares with step halving on the quasi-likelihood
-Σ w [θ log μ + (1 − θ) log(1 − μ)], which is defined for pseudo-observations outside [0, 1] too.
+function μ(1 − μ) (Wedderburn 1974; McCullagh & Nelder 1989, ch. 9): Fisher scoring (iteratively reweighted
+least squares) on the estimating equation U(β) = Σ w x (θ − μ) e^η/μ = 0, halving a step until it shrinks
+U'I⁻¹U (the squared length of the Newton step in the information metric). The quasi-likelihood
+Σ w [θ log μ + (1 − θ) log(1 − μ)] is not a safe guide here: a pseudo-observation above 1 or below 0 makes it
+unbounded (it grows without limit as μ → 1 or 0), so climbing it can stop far from a root of U.
 With this variance function an intercept-only model with the offset cloglog(p) solves Σ (θ − μ)·e^η/μ = 0,
 which for small risks is Σ θ ≈ Σ μ: the calibration intercept agrees with the observed/expected ratio.
 The covariance is the sandwich estimator, summed over clusters when rows of one patient are correlated (one
@@ -48,12 +50,6 @@ def _pieces(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return mu, ratio, e * np.exp(-e) * ratio
 
 
-def _quasi_loglik(eta: np.ndarray, y: np.ndarray, w: np.ndarray) -> float:
-    """Σ w [y log μ + (1 − y) log(1 − μ)], with log(1 − μ) = −e^η exactly."""
-    e = np.exp(eta)
-    return float(np.sum(w * (y * np.log(-np.expm1(-e)) - (1.0 - y) * e)))
-
-
 def fit_cloglog(x: np.ndarray, y: np.ndarray, *, offset: np.ndarray | float = 0.0, start: np.ndarray | None = None,
                 cluster: np.ndarray | None = None, weights: np.ndarray | None = None, max_iter: int = 100,
                 tol: float = 1e-10) -> CloglogFit:
@@ -74,7 +70,7 @@ def fit_cloglog(x: np.ndarray, y: np.ndarray, *, offset: np.ndarray | float = 0.
     weights
         Non-negative row weights (e.g. how often a bootstrap sample drew the row's cluster); default 1.
     max_iter, tol
-        Iterations and the relative change of the quasi-likelihood that stops them.
+        Iterations, and the value of U'I⁻¹U (score in the information metric) below which they stop.
 
     Returns
     -------
@@ -88,32 +84,34 @@ def fit_cloglog(x: np.ndarray, y: np.ndarray, *, offset: np.ndarray | float = 0.
     def eta_of(b):
         return np.clip(x @ b + offset, *_ETA_RANGE)
 
-    eta = eta_of(beta)
-    ql = _quasi_loglik(eta, y, w)
-    converged = False
-    for _ in range(max_iter):
+    def score_info(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
         mu, ratio, irls = _pieces(eta)
         info = (x * (w * irls)[:, None]).T @ x
         score = x.T @ (w * ratio * (y - mu))
+        size = float(score @ np.linalg.lstsq(info, score, rcond=None)[0])
+        return score, info, size
+
+    eta = eta_of(beta)
+    score, info, size = score_info(eta)
+    converged = size <= tol
+    for _ in range(max_iter):
+        if converged:
+            break
         try:
             step = np.linalg.solve(info, score)
         except np.linalg.LinAlgError as exc:
             raise MetricInputError("the calibration regression is singular (predicted risks nearly constant?)") from exc
         for _half in range(40):
             new_eta = eta_of(beta + step)
-            new_ql = _quasi_loglik(new_eta, y, w)
-            if np.isfinite(new_ql) and new_ql >= ql - 1e-12 * (1.0 + abs(ql)):
+            new_score, new_info, new_size = score_info(new_eta)
+            if np.isfinite(new_size) and new_size < size:
                 break
             step = step / 2
         else:
-            converged = True  # no step raises the quasi-likelihood: at its maximum to machine precision
-            break
+            break  # no step brings the score closer to 0: as close to a root as double precision allows
         beta = beta + step
-        done = abs(new_ql - ql) <= tol * (1.0 + abs(ql))
-        eta, ql = new_eta, new_ql
-        if done:
-            converged = True
-            break
+        eta, score, info, size = new_eta, new_score, new_info, new_size
+        converged = size <= tol
     mu, ratio, irls = _pieces(eta)
     bread = np.linalg.pinv((x * (w * irls)[:, None]).T @ x)
     scores = x * (w * ratio * (y - mu))[:, None]

@@ -1,24 +1,32 @@
 """Calibration at a horizon and D-calibration.
 
 Outside checks: grouped observed risks equal lifelines' Kaplan–Meier / Aalen–Johansen within each group;
-the Cox fit of :mod:`riskbench.metrics.hazard_fit` equals scikit-survival's
-``CoxPHSurvivalAnalysis(ties="breslow")``;
+the Cox recalibration slope (fitted by the project's Cox engine, follow-up cut at the horizon) equals lifelines'
+``CoxPHFitter`` (Efron ties) and scikit-survival's ``CoxPHSurvivalAnalysis(ties="breslow")`` on the same rows,
+also on scikit-survival's whas500 data (Worcester Heart Attack Study, Hosmer, Lemeshow & May 2008, *Applied
+Survival Analysis*, 2nd ed.);
 simulated properties (tolerances from the simulation size): a correctly specified model has ICI near 0,
 slope near 1 and O/E near 1 (Austin, Harrell & van Klaveren 2020 use the same check); risks inflated by a
 known factor show O/E = 1/factor; a linear predictor stretched by a factor shows slope = 1/factor.
 """
 
 import numpy as np
+import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from lifelines import AalenJohansenFitter, KaplanMeierFitter
+from lifelines import AalenJohansenFitter, CoxPHFitter, KaplanMeierFitter
 from sksurv.linear_model import CoxPHSurvivalAnalysis
 from sksurv.util import Surv
 
-from riskbench.metrics import MetricInputError, calibration_at_horizon, d_calibration
+from riskbench.metrics import (
+    MetricInputError,
+    auc_cumulative_dynamic,
+    brier_score,
+    calibration_at_horizon,
+    d_calibration,
+)
 from riskbench.metrics.calibration import cloglog
-from riskbench.metrics.hazard_fit import fit_hazard
 
 HORIZON = 5.0
 BASE_HAZARD = 0.1
@@ -82,12 +90,64 @@ def test_stretched_linear_predictor_detected_by_slope(cohort):
     assert abs(cal.slope - 0.5) < 3 * cal.slope_se
 
 
-def test_slope_fit_agrees_with_scikit_survival_breslow(cohort):
+def _cut_at(t, e, horizon):
+    """Follow-up cut at the horizon: outcomes after it censored there."""
+    return np.minimum(t, horizon), ((e == 1) & (t <= horizon)).astype(int)
+
+
+def test_cox_slope_efron_equals_lifelines_and_breslow_equals_scikit_survival(cohort):
     t, e, x = cohort
-    z = cloglog(_true_risk(x))
-    ours = fit_hazard(z[:, None], t, e)
-    ref = CoxPHSurvivalAnalysis(ties="breslow").fit(z[:, None], Surv.from_arrays(e == 1, t))
-    assert ours.coef[0] == pytest.approx(ref.coef_[0], abs=1e-6)
+    t = np.round(t, 1)  # tied times, so that Efron and Breslow differ
+    risk = _true_risk(x, stretch=1.3)
+    efron = calibration_at_horizon(t, e, risk, HORIZON, n_boot=0)
+    breslow = calibration_at_horizon(t, e, risk, HORIZON, n_boot=0, ties="breslow")
+    tc, ec = _cut_at(t, e, HORIZON)
+    frame = pd.DataFrame({"z": cloglog(risk), "t": tc, "e": ec})
+    peer = CoxPHFitter().fit(frame, "t", "e", fit_options={"precision": 1e-11, "r_precision": 1e-14})
+    assert efron.ties == "efron" and efron.cox_slope == pytest.approx(peer.params_["z"], abs=1e-6)
+    assert efron.cox_slope_se == pytest.approx(peer.standard_errors_["z"], abs=1e-6)
+    ref = CoxPHSurvivalAnalysis(ties="breslow").fit(frame[["z"]], Surv.from_arrays(ec == 1, tc))
+    assert breslow.ties == "breslow" and breslow.cox_slope == pytest.approx(ref.coef_[0], abs=1e-6)
+    assert abs(efron.cox_slope - breslow.cox_slope) > 1e-4  # the option changes the fit
+    assert abs(efron.cox_slope - 1 / 1.3) < 3 * efron.cox_slope_se  # a stretched predictor shows slope 1/stretch
+
+
+def test_cox_slope_on_whas500_equals_scikit_survival_breslow():
+    """A risk from age, heart rate and BMI (coefficients 0.05, 0.01, -0.05 per unit, chosen for the test)."""
+    from sksurv.datasets import load_whas500
+
+    x_df, y = load_whas500()
+    t, e = y["lenfol"].astype(float), y["fstat"].astype(int)
+    lp = x_df[["age", "hr", "bmi"]].to_numpy(float) @ np.array([0.05, 0.01, -0.05])
+    risk = 1 - np.exp(-np.exp(lp - lp.mean() - 1.0))
+    cal = calibration_at_horizon(t, e, risk, 1000.0, n_boot=0, ties="breslow")
+    tc, ec = _cut_at(t, e, 1000.0)
+    ref = CoxPHSurvivalAnalysis(ties="breslow").fit(cloglog(risk)[:, None], Surv.from_arrays(ec == 1, tc))
+    assert cal.cox_slope == pytest.approx(ref.coef_[0], abs=1e-6)
+
+
+def test_cox_slope_clustered_se_and_ties_checked(cohort):
+    t, e, x = cohort
+    patients = np.arange(t.size) // 3
+    cal = calibration_at_horizon(t, e, _true_risk(x), HORIZON, n_boot=0, cluster=patients)
+    tc, ec = _cut_at(t, e, HORIZON)
+    frame = pd.DataFrame({"z": cloglog(_true_risk(x)), "t": tc, "e": ec, "p": patients})
+    peer = CoxPHFitter().fit(frame, "t", "e", cluster_col="p", fit_options={"precision": 1e-11, "r_precision": 1e-14})
+    assert cal.cox_slope_se == pytest.approx(peer.standard_errors_["z"], abs=1e-6)  # untied times: lifelines' sandwich
+    with pytest.raises(MetricInputError, match="`ties` must be one of"):
+        calibration_at_horizon(t, e, _true_risk(x), HORIZON, n_boot=0, ties="exact")
+
+
+def test_separated_outcomes_warn_and_keep_the_other_measures():
+    """Outcomes only among the highest risks: the Cox slope runs off (named warning), the rest is computed."""
+    z = np.linspace(-3, 3, 200)
+    t = np.where(z > 1, 1.0 + (3 - z), 10.0)
+    e = (z > 1).astype(int)
+    risk = 1 / (1 + np.exp(-4 * z))
+    with pytest.warns(RuntimeWarning, match="slope is not estimable.*cloglog_risk"):
+        cal = calibration_at_horizon(t, e, risk, 9.0, n_boot=0)
+    assert np.isnan(cal.cox_slope) and np.isnan(cal.cox_slope_se)
+    assert np.isfinite(cal.oe_ratio) and np.isfinite(cal.ici)
 
 
 def test_groups_match_lifelines_kaplan_meier(cohort):
@@ -126,6 +186,17 @@ def test_horizon_out_of_follow_up_says_range(cohort):
         calibration_at_horizon(t, e, _true_risk(x), 100.0)
 
 
+def test_horizon_at_last_follow_up_refused_as_by_auc_and_brier(cohort):
+    t, e, x = cohort
+    last = float(t.max())
+    messages = []
+    for metric in (calibration_at_horizon, auc_cumulative_dynamic, brier_score):
+        with pytest.raises(MetricInputError, match="allowed range") as caught:
+            metric(t, e, _true_risk(x), last)
+        messages.append(str(caught.value).replace("`horizons`", "`horizon`"))
+    assert len(set(messages)) == 1  # one rule, one message (each names its own parameter)
+
+
 def test_d_calibration_accepts_true_model_and_rejects_wrong_one(cohort):
     t, e, x = cohort
     surv_at_t = np.exp(-BASE_HAZARD * t * np.exp(x))
@@ -142,14 +213,15 @@ def test_d_calibration_splits_a_censored_subject():
 
 
 def test_horizon_at_administrative_censoring(cohort):
-    """Data censored at the horizon (a landmark stack): Kaplan–Meier metrics accept the horizon itself,
-    weighted metrics ask for a horizon just inside it."""
-    from riskbench.metrics import auc_cumulative_dynamic
-
+    """Data censored at the horizon (a landmark stack): calibration, like the AUC, asks for a horizon just inside
+    it, and there measures what the horizon itself would."""
     t, e, x = cohort
     e_h = np.where(t > HORIZON, 0, e)
     t_h = np.minimum(t, HORIZON)
-    cal = calibration_at_horizon(t_h, e_h, _true_risk(x), HORIZON, n_boot=0)
-    assert cal.oe_lower < 1 < cal.oe_upper
-    with pytest.raises(MetricInputError, match="just inside"):
-        auc_cumulative_dynamic(t_h, e_h, _true_risk(x), HORIZON)
+    for metric in (calibration_at_horizon, auc_cumulative_dynamic):
+        with pytest.raises(MetricInputError, match="just inside"):
+            metric(t_h, e_h, _true_risk(x), HORIZON)
+    inside = calibration_at_horizon(t_h, e_h, _true_risk(x), HORIZON - 1e-6, n_boot=0)
+    full = calibration_at_horizon(t, e, _true_risk(x), HORIZON, n_boot=0)
+    assert inside.oe_lower < 1 < inside.oe_upper
+    assert inside.observed == pytest.approx(full.observed, abs=1e-12)
