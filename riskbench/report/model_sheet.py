@@ -348,17 +348,30 @@ def _example(saved: Any) -> list[str]:
                       + [["landmark (days)", _num(s)], ["horizon (days)", _num(w)]])
     lines.append("")
     for k, part in enumerate(saved.parts, start=1):
+        # the part's own columns: a missing-indicator column is 0 (the example's values are all observed)
+        part_row = pd.DataFrame([{**{c: values.get(c, 0.0) for c in part.covariates}, "landmark": s}])
         if isinstance(part, LandmarkSupermodel):
-            x = np.array([[values.get(c, 0.0) for c in part.covariates]])  # indicator columns: 0 (observed)
+            x = np.array([[values.get(c, 0.0) for c in part.covariates]])
             design = part._design(x, np.array([s]))[0]
             etas = [float((design - f.means) @ f.coef) for f in (part.outcome_, part.competing_) if f is not None]
             names = ["η1 (outcome)", "η2 (competing)"][: len(etas)]
+            scores = ", ".join(f"r{i} = exp(η{i}) = {_num(np.exp(e))}" for i, e in enumerate(etas, start=1))
+            stratum = s if part.baseline == "stratified" else 0.0
+            grid, _ = _landmark_increments(part, float(part.landmarks_[np.argmin(abs(part.landmarks_ - stratum))]),
+                                           w)
             lines.append(f"Part {k}: terms z = {', '.join(_num(z) for z in design)}; "
-                         + "; ".join(f"{n} = {_num(e)}" for n, e in zip(names, etas)) + ".")
+                         + "; ".join(f"{n} = {_num(e)}" for n, e in zip(names, etas)) + f"; {scores}. The sum runs "
+                         f"over the {len(grid)} jump times tj ≤ {w:g} days of the stratum's table; risk of this "
+                         f"part: {_num(part.predict_risk(part_row, w)[0])}.")
         elif isinstance(part, CoxModel):
             x = np.array([values.get(c, 0.0) for c in part.coef_.index])
             eta = float((x - part.center_.to_numpy()) @ part.coef_.to_numpy())
-            lines.append(f"Part {k}: η = {_num(eta)}; H₀({s:g}) and H₀({s + w:g}) from the table.")
+            times, cumhaz = next(iter(part._curves.values()))
+            at_s, at_end = step_function_at(times, cumhaz, [s, s + w])
+            lines.append(f"Part {k}: η = {_num(eta)}, exp(η) = {_num(np.exp(eta))}; H₀({s:g}) = {_num(at_s)} and "
+                         f"H₀({s + w:g}) = {_num(at_end)} (the last table rows at or before those times), so the "
+                         f"risk is 1 − exp(−{_num(at_end - at_s)} × {_num(np.exp(eta))}) = "
+                         f"{_num(part.predict_risk(part_row, w)[0])}.")
     if len(saved.parts) > 1:
         lines += ["", "The risk is the mean of the parts' risks."]
     risk = float(saved.model.predict_risk(row, w)[0])
