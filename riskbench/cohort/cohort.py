@@ -169,7 +169,7 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
     Parameters
     ----------
     patients, measurements, outcomes : path, DataFrame or TableSource
-        The three source tables (CSV or Parquet files, or DataFrames) in the input contract of DESIGN.md;
+        The three source tables (CSV or Parquet files, or DataFrames) in the input contract of docs/own_cohort.md;
         column names and date formats are mapped by ``spec`` (or by a ``TableSource``).
     spec : CohortSpec
         Variables, units, plausible ranges, carry-forward, look-back and same-day rules.

@@ -14,7 +14,7 @@ The rows are written block by block, in patient and time order, to a Parquet fil
 ``cp`` reads. Reading and sorting the next block, assembling this one and writing the previous one overlap
 (DuckDB, numpy and the Parquet writer release the interpreter lock), so the cores are kept busy.
 
-So a row ``(start, stop]`` never uses a value dated after ``start``: the leakage rule of DESIGN.md.
+So a row ``(start, stop]`` never uses a value dated after ``start`` (the leakage rule).
 A value is usable at ``start`` while ``start - date < max_carry_days``; cutting at the exact expiry time
 means the hazard at any t in a row sees a value at most ``max_carry_days`` old.
 """

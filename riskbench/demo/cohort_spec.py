@@ -1,6 +1,6 @@
 """The cohort-stage rules for the synthetic lung-nodule surveillance cohort.
 
-Units and ranges follow the demo scenario of DESIGN.md: nodule volume in mm3 (cm3 accepted, x 1000), the
+Units and ranges follow the demo scenario (README.md): nodule volume in mm3 (cm3 accepted, x 1000), the
 image-analysis suspicion score on [0, 1], the serum marker in ng/mL (ug/L accepted, equal to ng/mL).
 The look-back window and the same-day rule are the ones the messy variant's ``defects.json`` assumes when
 it counts the rows the ledger must exclude.

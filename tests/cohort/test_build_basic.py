@@ -1,4 +1,4 @@
-"""build_cohort on small hand-made data: values worked out by hand (the leakage rule of DESIGN.md)."""
+"""build_cohort on small hand-made data: values worked out by hand (the leakage rule: no value dated after a row's start)."""
 
 from __future__ import annotations
 

@@ -1,8 +1,9 @@
 """Stanford heart transplant data rebuilt as raw dates and put through the cohort stage.
 
-Source of the published values: Crowley & Hu (1977), the Stanford heart transplant data as analysed with
-R's survival package (coxph, Efron ties); the printed output (coef 0.0272, -0.1463, -0.6372, -0.0103;
-SE 0.0137, 0.0705, 0.3672, 0.3138; likelihood-ratio statistic 15.1) is quoted in lifelines' test suite.
+Source of the published values: the Stanford heart transplant data of Crowley & Hu (1977, J Am Stat Assoc
+72:27-36) fitted with R's survival package (Therneau, ``coxph(Surv(start, stop, event) ~ age + year + surgery +
+transplant, data = heart)``, Efron ties); its printed output: coef 0.0272, -0.1463, -0.6372, -0.0103; SE 0.0137,
+0.0705, 0.3672, 0.3138; "Likelihood ratio test=15.1 on 4 df" (**from memory** of that R output).
 The shipped rows (lifelines ``load_stanford_heart_transplants``) follow these conventions, which the raw
 tables below undo and the cohort stage must reproduce:
 

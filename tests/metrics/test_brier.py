@@ -1,8 +1,10 @@
 """IPCW Brier score, integrated Brier score and the scaled Brier score.
 
-Outside checks: scikit-survival's test values for Nottingham-Prognostic-Index-group Kaplan–Meier predictions
-on GBSG2 at 1–5 years and their integrated score (printed to 15 digits in scikit-survival's test suite);
-``brier_score`` / ``integrated_brier_score`` on the same inputs to 1e-6; McLernon et al. (2023), GBSG2: Brier
+Outside checks: Brier scores of the Nottingham-Prognostic-Index-group Kaplan–Meier predictions on GBSG2
+(Schumacher et al. 1994, J Clin Oncol 12:2086-2093, the data; Graf et al. 1999, Stat Med 18:2529-2545, the
+IPCW Brier score) at 1–5 years and their integrated score, 15 digits as scikit-survival computes them
+(**from memory** of that library's recorded values, not a publication; the same library is also run live);
+scikit-survival's ``brier_score`` / ``integrated_brier_score`` on the same inputs to 1e-6; McLernon et al. (2023), GBSG2: Brier
 score at 5 years 0.22 (2 decimals as printed).
 """
 
@@ -24,7 +26,8 @@ def test_scikit_survival_gbsg2_nottingham_values(gbsg2_nottingham):
 
 
 def test_scikit_survival_gbsg2_integrated(gbsg2_nottingham):
-    """Integrated Brier score 0.197936392255733 over the grid 365–1825 days (scikit-survival's test)."""
+    """Integrated Brier score 0.197936392255733 over the grid 365–1825 days (scikit-survival's value,
+    **from memory**; see the module docstring)."""
     t, e, years, surv = gbsg2_nottingham
     assert integrated_brier_score(t, e, 1 - surv, years) == pytest.approx(0.197936392255733, abs=1e-9)
 

@@ -2,7 +2,7 @@
 
 Outside checks: Le, *Introductory Biostatistics* (2003), Table 11.1 (6-MP arm of the Freireich leukaemia
 trial, survival to 4 decimals) with Greenwood SE from Klein & Moeschberger Table 4.1A (**from memory**,
-reproduced; REFERENCES.md); lifelines' ``AalenJohansenFitter`` estimate and delta-method variance;
+reproduced); lifelines' ``AalenJohansenFitter`` estimate and delta-method variance;
 scikit-survival's ``CensoringDistributionEstimator`` (outcomes before censorings at tied times).
 """
 

@@ -50,9 +50,10 @@ def random_counting_process(n_patients: int, p: int, seed: int, n_strata: int = 
 
 
 def test_stanford_heart_transplant_efron():
-    """Crowley & Hu (1977) Stanford heart transplant data fitted with R's survival package (Efron);
-    printed output quoted in lifelines' test suite: coef 0.0272, -0.1463, -0.6372, -0.0103;
-    SE 0.0137, 0.0705, 0.3672, 0.3138; likelihood-ratio statistic 15.1 (4 df)."""
+    """Crowley & Hu (1977, J Am Stat Assoc 72:27-36) Stanford heart transplant data fitted with R's survival
+    package (``coxph(Surv(start, stop, event) ~ age + year + surgery + transplant, data = heart)``, Efron);
+    its printed output (**from memory**): coef 0.0272, -0.1463, -0.6372, -0.0103; SE 0.0137, 0.0705, 0.3672,
+    0.3138; "Likelihood ratio test=15.1 on 4 df"."""
     df = load_stanford_heart_transplants()
     fit = fit_cox(df[["age", "year", "surgery", "transplant"]], df["stop"], df["event"], df["start"])
     np.testing.assert_allclose(fit.coef, [0.0272, -0.1463, -0.6372, -0.0103], atol=5e-5)
@@ -62,8 +63,8 @@ def test_stanford_heart_transplant_efron():
 
 
 def test_dfcv_time_varying():
-    """R. Xu, survival-analysis course notes (UCSD Math 284), quoted in lifelines' tests:
-    coef 1.826757 (SE 1.229), 0.705963 (SE 1.206)."""
+    """R. Xu, survival-analysis course notes (UCSD Math 284), the time-varying Cox example on these data:
+    coef 1.826757 (SE 1.229), 0.705963 (SE 1.206) (**from memory**)."""
     df = load_dfcv()
     fit = fit_cox(df[["group", "z"]], df["stop"], df["event"], df["start"])
     np.testing.assert_allclose(fit.coef, [1.826757, 0.705963], atol=5e-7)
@@ -71,8 +72,10 @@ def test_dfcv_time_varying():
 
 
 def test_rossi_efron():
-    """Fox & Weisberg, 'Cox Proportional-Hazards Regression for Survival Data in R' (appendix to
-    An R Companion to Applied Regression): coefficients to 7 digits, LR 33.27 on 7 df.
+    """Fox & Weisberg, 'Cox Proportional-Hazards Regression for Survival Data in R' (appendix to An R Companion
+    to Applied Regression, section 3: ``coxph(Surv(week, arrest) ~ fin + age + race + wexp + mar + paro + prio,
+    data = Rossi)``, Efron ties): LR 33.27 on 7 df as printed there; the coefficients to 7 digits are that R fit's
+    at full print precision (**from memory**; the appendix prints them rounded).
     Wald 32.11 and score (logrank) 33.53 are printed in the same R output (**from memory**)."""
     r = load_rossi()
     fit = fit_cox(r[ROSSI_COLS], r["week"], r["arrest"])

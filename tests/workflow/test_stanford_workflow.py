@@ -1,9 +1,9 @@
 """The Stanford heart transplant data as raw CSV files through the workflow: a time-varying Cox model named
 in a configuration reproduces the published coefficients, and its coefficient table names every term.
 
-Source of the published values: Crowley & Hu (1977), the Stanford heart transplant data as analysed with R's
-survival package (coxph, Efron ties): coef 0.0272, -0.1463, -0.6372, -0.0103 (age - 48, year, surgery,
-transplant), as printed in the output quoted in lifelines' test suite. The raw tables are rebuilt as in
+Source of the published values: the Stanford heart transplant data of Crowley & Hu (1977, J Am Stat Assoc
+72:27-36) fitted with R's survival package (``coxph``, Efron ties): coef 0.0272, -0.1463, -0.6372, -0.0103
+(age - 48, year, surgery, transplant), as R prints them (**from memory** of that output). The raw tables are rebuilt as in
 tests/cohort/test_stanford_end_to_end.py (whose docstring gives the conventions of the shipped rows).
 """
 
