@@ -1,4 +1,5 @@
-"""build_cohort on small hand-made data: values worked out by hand (the leakage rule: no value dated after a row's start)."""
+"""build_cohort on small hand-made data: values worked out by hand (the leakage rule: no value dated after a
+row's start)."""
 
 from __future__ import annotations
 

@@ -1,6 +1,7 @@
 """Property tests (hypothesis) of the cohort stage on random small cohorts.
 
-Invariants (the cohort-stage rules, README.md and docs/own_cohort.md): no covariate value dated after a row's start; contiguous,
+Invariants (the cohort-stage rules, README.md and docs/own_cohort.md): no covariate value dated after a row's
+start; contiguous,
 non-overlapping intervals with start < stop; exactly one terminal status per patient; the ledger balances;
 the landmark stack agrees with the counting-process table at each landmark. The covariates are also
 recomputed by a plain-Python oracle (last value on or before start, carried at most max_carry_days).

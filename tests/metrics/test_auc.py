@@ -1,7 +1,8 @@
 """Cumulative/dynamic AUC and the ROC curve at a horizon.
 
 Outside checks: scikit-survival's ``cumulative_dynamic_auc`` (AUC per horizon and its mean AUC) on the same
-inputs to 1e-6 (a peer library run live in the test); McLernon et al. (2023), GBSG2: AUC at 5 years 0.68 (2 decimals as printed).
+inputs to 1e-6 (a peer library run live in the test); McLernon et al. (2023), GBSG2: AUC at 5 years 0.68
+(2 decimals as printed).
 """
 
 import numpy as np

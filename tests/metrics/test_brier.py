@@ -4,8 +4,8 @@ Outside checks: Brier scores of the Nottingham-Prognostic-Index-group Kaplan–M
 (Schumacher et al. 1994, J Clin Oncol 12:2086-2093, the data; Graf et al. 1999, Stat Med 18:2529-2545, the
 IPCW Brier score) at 1–5 years and their integrated score, 15 digits as scikit-survival computes them
 (**from memory** of that library's recorded values, not a publication; the same library is also run live);
-scikit-survival's ``brier_score`` / ``integrated_brier_score`` on the same inputs to 1e-6; McLernon et al. (2023), GBSG2: Brier
-score at 5 years 0.22 (2 decimals as printed).
+scikit-survival's ``brier_score`` / ``integrated_brier_score`` on the same inputs to 1e-6; McLernon et al.
+(2023), GBSG2: Brier score at 5 years 0.22 (2 decimals as printed).
 """
 
 import numpy as np

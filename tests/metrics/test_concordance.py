@@ -1,8 +1,8 @@
 """Harrell's, Uno's and the counting-process concordance.
 
 Outside checks: scikit-survival's ``concordance_index_censored`` / ``concordance_index_ipcw`` and lifelines'
-``concordance_index`` on the same inputs (agreement to 1e-6, peer libraries run live in the test); McLernon et al. (2023),
-Ann Intern Med, GBSG2 validation: Harrell's C 0.65 and Uno's C 0.64 (2 decimals as printed).
+``concordance_index`` on the same inputs (agreement to 1e-6, peer libraries run live in the test);
+McLernon et al. (2023), Ann Intern Med, GBSG2 validation: Harrell's C 0.65 and Uno's C 0.64 (2 decimals as printed).
 """
 
 import numpy as np

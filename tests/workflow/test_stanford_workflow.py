@@ -3,8 +3,8 @@ in a configuration reproduces the published coefficients, and its coefficient ta
 
 Source of the published values: the Stanford heart transplant data of Crowley & Hu (1977, J Am Stat Assoc
 72:27-36) fitted with R's survival package (``coxph``, Efron ties): coef 0.0272, -0.1463, -0.6372, -0.0103
-(age - 48, year, surgery, transplant), as R prints them (**from memory** of that output). The raw tables are rebuilt as in
-tests/cohort/test_stanford_end_to_end.py (whose docstring gives the conventions of the shipped rows).
+(age - 48, year, surgery, transplant), as R prints them (**from memory** of that output). The raw tables are
+rebuilt as in tests/cohort/test_stanford_end_to_end.py (whose docstring gives the conventions of the shipped rows).
 """
 
 from __future__ import annotations
