@@ -16,7 +16,8 @@ Trials and Observational Studies*, Wiley, section 10.2). This module adds what a
 
   Where C is 0 or 1, or its SE is 0, the band is the point itself.
 * **Quantiles** t_p, the first time the event probability reaches p (Kaplan–Meier: S(t) ≤ 1 − p; Aalen–Johansen:
-  F(t) ≥ p), with the confidence interval of Brookmeyer & Crowley (1982, Biometrics 38:29–41) read off the
+  F(t) ≥ p; to within 1e-10, so that rounding in the product-limit does not move a quantile), with the
+  confidence interval of Brookmeyer & Crowley (1982, Biometrics 38:29–41) read off the
   pointwise band: the first times at which the band's two limits reach the same level (the reading of R's
   ``survfit`` and of lifelines' ``median_survival_times`` applied to the band). A time never reached is NaN
   ("not reached").
@@ -25,7 +26,6 @@ Trials and Observational Studies*, Wiley, section 10.2). This module adds what a
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -45,6 +45,10 @@ CI_SCALES: dict[str, str] = {
 }
 
 _ALL = "all"
+
+#: A curve within this of a quantile's level has reached it (a product of ratios such as 0.8·0.75·(5/6) lands a
+#: rounding error away from 0.5; R's ``quantile.survfit`` uses a tolerance for the same reason).
+_LEVEL_TOL = 1e-10
 
 
 def confidence_band(value: np.ndarray, se: np.ndarray, scale: str, level: float) -> tuple[np.ndarray, np.ndarray]:
@@ -95,7 +99,7 @@ class CurveEstimate:
     def _rows(self, group: object) -> pd.DataFrame:
         return self.table[self.table["group"] == group]
 
-    def at(self, times: Sequence[float] | float) -> pd.DataFrame:
+    def at(self, times: ArrayLike) -> pd.DataFrame:
         """The curve at ``times`` (same unit as the input): ``group, time, estimate, se, lower, upper, at_risk``."""
         when = np.atleast_1d(np.asarray(times, dtype=float))
         start = 1.0 if self.kind == "survival" else 0.0
@@ -113,13 +117,13 @@ class CurveEstimate:
         idx = np.searchsorted(rows["time"].to_numpy(), when, side="left")
         return np.r_[rows["at_risk"].to_numpy(), 0][idx]
 
-    def at_risk(self, times: Sequence[float]) -> pd.DataFrame:
+    def at_risk(self, times: ArrayLike) -> pd.DataFrame:
         """Number at risk (follow-up ≥ t) at each of ``times``: one row per group, one column per time."""
         when = np.atleast_1d(np.asarray(times, dtype=float))
         data = [self._at_risk(self._rows(g), when) for g in self.groups]
         return pd.DataFrame(data, index=pd.Index(self.groups, name="group"), columns=pd.Index(when, name="time"))
 
-    def quantiles(self, probabilities: Sequence[float] = (0.25, 0.5, 0.75)) -> pd.DataFrame:
+    def quantiles(self, probabilities: ArrayLike = (0.25, 0.5, 0.75)) -> pd.DataFrame:
         """Time by which the event probability reaches each p, with Brookmeyer–Crowley limits.
 
         Returns ``group, probability, time, lower, upper``; NaN where the curve (or band limit) never gets there.
@@ -137,7 +141,7 @@ class CurveEstimate:
             else:
                 curves = [rows[c].to_numpy() for c in ("estimate", "upper", "lower")]
             for p in probs:
-                out.append((g, float(p), *(_first(t, c >= p) for c in curves)))
+                out.append((g, float(p), *(_first(t, c >= p - _LEVEL_TOL) for c in curves)))
         return pd.DataFrame(out, columns=["group", "probability", "time", "lower", "upper"])
 
     def median(self) -> pd.DataFrame:

@@ -15,13 +15,13 @@ from collections.abc import Sequence
 import matplotlib
 
 matplotlib.use("Agg", force=False)
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+from matplotlib.figure import Figure
 
-from riskbench.metrics.survival_curves import CurveEstimate  # noqa: E402
-from riskbench.report.calibration_plot import plain_text  # noqa: E402
-from riskbench.report.suppression import coarsen_sequence  # noqa: E402
+from riskbench.metrics.survival_curves import CurveEstimate
+from riskbench.report.calibration_plot import plain_text
+from riskbench.report.suppression import coarsen_sequence
 
 __all__ = ["CAUTION", "survival_curve_figure"]
 

@@ -10,14 +10,14 @@ practice).
 import matplotlib
 
 matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
-from lifelines.datasets import load_waltons  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import pytest
+from lifelines.datasets import load_waltons
 
-from riskbench.metrics import aalen_johansen_estimate, kaplan_meier_estimate  # noqa: E402
-from riskbench.report.suppression import coarsen_sequence  # noqa: E402
-from riskbench.report.survival_curve_plot import survival_curve_figure  # noqa: E402
+from riskbench.metrics import aalen_johansen_estimate, kaplan_meier_estimate
+from riskbench.report.suppression import coarsen_sequence
+from riskbench.report.survival_curve_plot import survival_curve_figure
 
 TIMES = [0.0, 20.0, 40.0, 60.0, 75.0]
 
