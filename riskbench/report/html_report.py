@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import base64
 import html
+import io
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -20,7 +21,7 @@ import pandas as pd
 
 from riskbench.report.display_format import display_table
 from riskbench.report.notes import notes_html
-from riskbench.report.outputs import FIGURES, TABLES, atomic_write_text, restore_csv_cell
+from riskbench.report.outputs import FIGURES, TABLES, atomic_write_text, csv_text, restore_csv_cell
 
 
 @dataclass(frozen=True)
@@ -197,18 +198,33 @@ def _is_numeric_column(cells: pd.Series) -> bool:
     return bool(shown) and all(_NUMERIC_CELL.match(c) for c in shown)
 
 
-def _table_html(path: Path) -> str:
-    # the page shows rounded numbers; the CSV named under the table keeps full precision
-    table = pd.read_csv(path, dtype=str, keep_default_na=False)
+def _csv_cells_html(csv: str | Path | io.StringIO) -> str:
+    """The ``<table>`` of a table stored as CSV: cells read as text, rounded for reading, escaped."""
+    table = pd.read_csv(csv, dtype=str, keep_default_na=False)
     table.columns = [restore_csv_cell(str(c)) for c in table.columns]
     table = display_table(table.map(restore_csv_cell))  # cells as the stage made them; escaped below
     numeric = [_is_numeric_column(table[c]) for c in table.columns]
     head = "".join(f"<th{_NUM if n else ''}>{html.escape(str(c))}</th>" for c, n in zip(table.columns, numeric))
     rows = "".join("<tr>" + "".join(f"<td{_NUM if n else ''}>{html.escape(v)}</td>" for v, n in zip(row, numeric))
                    + "</tr>" for row in table.itertuples(index=False))
-    body = f'<table class="data"><thead><tr>{head}</tr></thead><tbody>{rows}</tbody></table>'
+    return f'<table class="data"><thead><tr>{head}</tr></thead><tbody>{rows}</tbody></table>'
+
+
+def table_html(table: pd.DataFrame) -> str:
+    """``table`` as the report shows it (an escaped HTML ``<table>``, numbers rounded for reading).
+
+    The table passes through the same CSV text as ``tables/*.csv`` (:func:`~riskbench.report.outputs.csv_text`),
+    so a notebook shows exactly what the report would. Small counts must already be hidden.
+    """
+    return _csv_cells_html(io.StringIO(csv_text(table)))
+
+
+def _table_html(path: Path) -> str:
+    # the page shows rounded numbers; the CSV named under the table keeps full precision
+    body = _csv_cells_html(path)
     return (f'<h3>{html.escape(_title_of(path))}</h3><div class="wide">{body}</div>'
-            f'<p class="source">Rounded for reading; full precision in <code>tables/{html.escape(path.name)}</code>.</p>')
+            '<p class="source">Rounded for reading; full precision in '
+            f'<code>tables/{html.escape(path.name)}</code>.</p>')
 
 
 _STYLE = """
@@ -220,7 +236,8 @@ h3{font-size:1em;margin-bottom:.3em}
 .caution h2{border:none;margin:0 0 .3em 0;color:#8a4500;font-size:1.15em}
 table.data{border-collapse:collapse;font-size:.85em;margin:.4em 0}
 table.data th,table.data td{border:1px solid #ccd5de;padding:.25em .5em;text-align:left;white-space:nowrap}
-table.data th{background:#eef3f8;white-space:normal;vertical-align:bottom} table.data .num{text-align:right;font-variant-numeric:tabular-nums}
+table.data th{background:#eef3f8;white-space:normal;vertical-align:bottom}
+table.data .num{text-align:right;font-variant-numeric:tabular-nums}
 figure{margin:1em 0} figure img{max-width:100%;height:auto;border:1px solid #e3e8ee}
 figcaption,.source,.meta{font-size:.8em;color:#5a6b7b} .missing{color:#8a4500;font-style:italic}
 nav ol{columns:2;font-size:.9em} .wide{overflow-x:auto}

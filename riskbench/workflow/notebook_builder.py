@@ -59,6 +59,34 @@ _STAGES: dict[str, tuple[str, str, str]] = {
 }
 
 
+#: Per stage, a commented cell showing how to go one step further by hand with the stage's result object
+#: (:mod:`riskbench.workflow.stage_result`). Commented so that a run does not execute it.
+_FURTHER: dict[str, str] = {
+    "cohort": """# One step further by hand (remove the leading '# ' and run):
+# result.summary                  # flow, rows used, landmarks and baseline, small counts hidden
+# result.summary.plot_flow()      # the flow diagram as a matplotlib figure
+# result.landmark_stack.columns   # the pseudonymised landmark stack the models are fitted on""",
+    "models": """# One step further by hand (remove the leading '# ' and run):
+# list(result.models)                                  # the fitted models by name
+# result.model_summary("imaging_clinical")             # coefficients (or the Cox summary)
+# result.models["imaging_clinical"].predict_risk(result.landmark_stack, 730.5)  # risk by 2 years""",
+    "validation": """# One step further by hand (remove the leading '# ' and run):
+# result.cv_predictions.head()                         # row, model, horizon (days), risk, fold
+# result.risks("imaging_clinical", "2 years")          # cross-validated risks in landmark-stack row order""",
+    "comparison": """# One step further by hand (remove the leading '# ' and run):
+# result.concordance.plot()                            # Harrell's and Uno's C by horizon
+# result.calibration("imaging_clinical", "2 years").plot()
+# result.comparison                                    # candidate against reference, with intervals
+#
+# Later, from the finished run folder (README: "Looking closer at a finished run"):
+# from riskbench.workflow.run_results import open_run
+# run = open_run(run_dir)
+# run.cohort
+# refit = run.refit("imaging_clinical", drop=["serum_marker"])
+# run.calibration(refit, "2 years").plot()""",
+}
+
+
 def stage_notebook(stage: str) -> nbformat.NotebookNode:
     """The notebook of one stage (``cohort``, ``models``, ``validation`` or ``comparison``)."""
     title, what, function = _STAGES[stage]
@@ -73,6 +101,7 @@ def stage_notebook(stage: str) -> nbformat.NotebookNode:
             f"result = stages.{function}(config, run_dir)"
         ),
         new_code_cell("stages.show(result)"),
+        new_code_cell(_FURTHER[stage]),
     ]
     nb = new_notebook(cells=cells)
     nb.metadata["kernelspec"] = {"name": "riskbench", "display_name": "riskbench (this environment)",

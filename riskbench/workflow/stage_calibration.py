@@ -18,12 +18,13 @@ import pandas as pd
 from riskbench.metrics.calibration import calibration_at_horizon
 from riskbench.models.prediction_target import TARGET_WORDS, prediction_target
 from riskbench.report.calibration_plot import calibration_figure
+from riskbench.report.notebook_views import CalibrationView
 from riskbench.report.outputs import save_figure
 from riskbench.report.suppression import format_count
 from riskbench.time_units import DAYS_PER_YEAR, format_duration
 from riskbench.validation.performance import evaluation_time
 from riskbench.workflow.config import AnalysisConfig, ConfigError
-from riskbench.workflow.stage_result import StageResult
+from riskbench.workflow.stage_result import ComparisonStageResult, StageResult
 
 
 def model_target(config: AnalysisConfig, model: str) -> str:
@@ -74,7 +75,10 @@ def calibration_part(config: AnalysisConfig, time: np.ndarray, status: np.ndarra
                 calibration_figure(cal, risk, model_name=model, min_group_size=threshold, row_unit="landmark rows",
                                    horizon_days=h),
                 result.run_dir, name)
-            summaries.append(summary_row(model, h, cal, risk.size, n_patients, threshold))
+            row = summary_row(model, h, cal, risk.size, n_patients, threshold)
+            summaries.append(row)
+            if isinstance(result, ComparisonStageResult):  # the calibration object, for the notebook
+                result.calibrations[(model, h)] = CalibrationView(cal, risk, model, h, row, threshold)
     if summaries:
         result.tables["calibration_summary"] = pd.DataFrame(summaries)
 

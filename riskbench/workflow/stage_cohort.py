@@ -24,7 +24,7 @@ from riskbench.workflow.config import AnalysisConfig
 from riskbench.workflow.model_factory import missing_data_tables
 from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.workflow.pseudonyms import config_key, pseudonym_map, replace_ids
-from riskbench.workflow.stage_result import StageResult
+from riskbench.workflow.stage_result import CohortStageResult
 from riskbench.workflow.temporal_parts import mark_parts
 
 PATIENT_COLUMNS = ("patient_id", "end_days", "end_status")
@@ -133,7 +133,7 @@ def covariate_labels(config: AnalysisConfig) -> Callable[[str], str]:
     return safe
 
 
-def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
+def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> CohortStageResult:
     """Run stage 1 (see the module docstring); return what it wrote."""
     run_dir = Path(run_dir)
     threshold = config.report.small_count_threshold
@@ -152,8 +152,9 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult
     save_data(stack, run_dir, "landmark_stack")
     save_data(patients, run_dir, "patients")
 
-    result = StageResult(stage="cohort", run_dir=run_dir)
     flow = patient_flow(cohort.flow, patients)
+    result = CohortStageResult(stage="cohort", run_dir=run_dir, counting_process=cp, landmark_stack=stack,
+                               patients=patients, cohort=cohort, flow=flow, threshold=threshold)
     result.tables["cohort_flow"] = suppress_flow(flow, threshold)
     result.figures["cohort_flow"] = save_figure(flow_figure(flow, threshold=threshold), run_dir, "cohort_flow")
     # the full row ledger, summarised: every input row of every table in exactly one state

@@ -20,6 +20,7 @@ and parts are reported. The notes of every stage are shown in the report's "Note
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -27,6 +28,7 @@ import pandas as pd
 
 from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
 from riskbench.models.missing_data import predicted_rows
+from riskbench.report.notebook_views import ComparisonView, ConcordanceView
 from riskbench.report.notes import failed_models, save_notes, switched_off
 from riskbench.report.outputs import load_data, save_table
 from riskbench.report.suppression import count_columns, format_count, suppress_counts
@@ -48,7 +50,7 @@ from riskbench.workflow.landmark_report import report_landmark_performance
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_calibration import calibration_part, model_target
 from riskbench.workflow.stage_data import stage_source
-from riskbench.workflow.stage_result import StageResult
+from riskbench.workflow.stage_result import ComparisonStageResult, StageResult
 from riskbench.workflow.stage_validation import (
     bootstrap_resamples,
     execution,
@@ -67,7 +69,7 @@ def _switch(config: AnalysisConfig, name: str) -> bool:
     return bool(getattr(config.report, name, True))
 
 
-def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
+def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> ComparisonStageResult:
     """Run stage 4 (see the module docstring) and write the report; return what it wrote."""
     run_dir = Path(run_dir)
     threshold = config.report.small_count_threshold
@@ -75,7 +77,7 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     cp = load_data(run_dir, "counting_process")
     cv = load_data(run_dir, "cv_predictions")
     time, status = stack_outcome(stack)
-    result = StageResult(stage="comparison", run_dir=run_dir)
+    result = ComparisonStageResult(stage="comparison", run_dir=run_dir)
     notes = StageNotes(threshold)
     fits: list[tuple[str, list[FitWarning]]] = []
     report_days: tuple[float, ...] = ()
@@ -104,7 +106,7 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
         else:
             notes.add("performance", "not computed: no model has cross-validated predictions (see the notes of "
                       "the models and validation stages).")
-        _comparison(config, stack, cp, cv, report_days, result, notes, fits)
+        paired = _comparison(config, stack, cp, cv, report_days, result, notes, fits)
     for table_name, table in result.tables.items():
         save_table(table, run_dir, table_name)
     from riskbench.workflow.review_items import write_review_items  # after every other table is written
@@ -117,7 +119,10 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
     result.notes.extend(n.sentence() for n in notes.notes)
     write_report(config, run_dir)
     result.notes.append(f"Report written to {run_dir / 'report.html'}.")
-    return result
+    discrimination = result.tables.get("discrimination")
+    concordance = (None if discrimination is None else
+                   ConcordanceView.from_discrimination(discrimination, str(discrimination["obtained_by"].iloc[0])))
+    return replace(result, concordance=concordance, comparison=paired)
 
 
 def _horizons_with_outcomes(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, threshold: int,
@@ -190,30 +195,31 @@ def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, hor
 
 
 def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, cv: pd.DataFrame,
-                report_days: tuple[float, ...], result: StageResult, notes: StageNotes, fits: list) -> None:
+                report_days: tuple[float, ...], result: StageResult, notes: StageNotes,
+                fits: list) -> ComparisonView | None:
     """The paired bootstrap comparison of the candidate against the reference at the report horizons with
-    enough outcomes (or a note why not)."""
+    enough outcomes (or a note why not); its view for the notebook."""
     part = "comparison of the model sets"
     pair = getattr(config, "comparison", None)
     if not pair or None in tuple(pair):
         notes.add(part, "not computed: no candidate and reference models are configured "
                   "([validation] candidate, reference).", kind="switched off")
-        return
+        return None
     candidate, reference = pair
     n_boot = bootstrap_resamples(config)
     if n_boot < 2:
         notes.add(part, f"not computed: it needs at least 2 bootstrap resamples ([validation] bootstrap_resamples "
                   f"= {n_boot}).", kind="switched off")
-        return
+        return None
     failed = failed_models(result.run_dir)
     absent = [m for m in (reference, candidate) if m in failed or m not in set(cv["model"])]
     if absent:
         notes.add(part, f"not computed: model(s) {', '.join(repr(m) for m in absent)} could not be fitted "
                   "(see the notes above).")
-        return
+        return None
     if not report_days:
         notes.add(part, "not computed: no report horizon has enough outcomes before it (see the notes above).")
-        return
+        return None
     specs = [model_spec(config.model(reference), config.missing_data),
              model_spec(config.model(candidate), config.missing_data)]
     try:
@@ -222,9 +228,11 @@ def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, c
                                    config=execution(config))
     except ValidationInputError as exc:  # every resample failed; the message gives the first reasons
         notes.add(part, f"not computed: {exc}")
-        return
-    result.tables["model_comparison"] = comparison_table(comparison, reference, candidate)
+        return None
+    table = comparison_table(comparison, reference, candidate)
+    result.tables["model_comparison"] = table
     fits += comparison.fit_log
     notes.notes.extend(failure_notes(comparison.failures, n_boot, "comparison", part,
                                      config.report.small_count_threshold))
     notes.notes.extend(warning_notes(comparison.fit_warnings, "comparison", part, f"{n_boot} bootstrap resamples"))
+    return ComparisonView(comparison, table, reference, candidate)

@@ -39,7 +39,7 @@ from riskbench.workflow.fit_diagnosis import hide_small_numbers, terms_text
 from riskbench.workflow.model_factory import model_spec
 from riskbench.workflow.stage_data import stage_tables
 from riskbench.workflow.stage_models import evaluation_horizons, fit_recorded
-from riskbench.workflow.stage_result import StageResult
+from riskbench.workflow.stage_result import StageResult, ValidationStageResult
 from riskbench.workflow.temporal_validation import temporal_validation
 
 CV_COLUMNS = ["row", "model", "horizon", "risk", "fold"]
@@ -161,11 +161,11 @@ def failure_notes(failures: tuple[tuple[str, str], ...], n_total: int, stage: st
     return notes
 
 
-def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> StageResult:
+def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> ValidationStageResult:
     """Run stage 3 (see the module docstring); return what it wrote."""
     run_dir = Path(run_dir)
     tables = stage_tables(run_dir)  # read once per worker process from data/*.parquet
-    result = StageResult(stage="validation", run_dir=run_dir)
+    result = ValidationStageResult(stage="validation", run_dir=run_dir)
     models = fitted_models(config, run_dir)
     notes: list[Note] = []
     fits: list[tuple[str, list[FitWarning]]] = []
@@ -176,6 +176,7 @@ def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> StageRe
                                f"{config.validation.folds} folds")
         fits += cv_fits
         save_data(cv, run_dir, "cv_predictions")
+        result.frames["cv_predictions"] = cv
         result.notes.append(
             f"{config.validation.folds}-fold cross-validation grouped by patient (seed {config.validation.seed}): "
             f"{cv['row'].nunique()} landmark rows predicted by models fitted without their patient.")

@@ -101,6 +101,18 @@ def test_no_input_patient_id_appears_in_any_output(demo_run):
             assert not ids & set(table["patient_id"].astype(str)), parquet.name
 
 
+def test_executed_notebooks_name_no_staging_folder(demo_run):
+    """papermill records where a notebook ran and with which run_dir; the run is built in a hidden staging
+    folder and moved into place, so every executed notebook (and its HTML copy) must name the final folder."""
+    run = demo_run["run"]
+    staging = f".{run.name}.partial"
+    for path in sorted((run / "notebooks").glob("0*_*.*")):
+        text = path.read_text(encoding="utf-8")
+        assert staging not in text, path.name
+        if path.suffix == ".ipynb":
+            assert json.loads(text)["metadata"]["papermill"]["parameters"]["run_dir"] == str(run)
+
+
 def test_every_figure_of_the_report_loads_in_headless_chromium(demo_run, chromium):
     check = check_report_renders(demo_run["run"] / "report.html", chromium)
     assert check.images >= 8 and check.broken == 0
