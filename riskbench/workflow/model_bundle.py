@@ -494,7 +494,8 @@ class SavedModel:
 
         Give either ``rows`` (covariates as known at ``landmark``, e.g. from :meth:`build_tables` or a run's
         landmark stack) or ``sources`` = (patients, measurements, outcomes), which are built into rows with the
-        model's cohort rules at ``landmarks_days`` or ``at_date``.
+        model's cohort rules at ``landmarks_days`` or ``at_date``. ``horizons_days`` defaults to the model's
+        prediction window.
 
         Returns
         -------
@@ -511,8 +512,8 @@ class SavedModel:
             if len(sources) != 3:
                 raise ModelInputError("sources must be (patients, measurements, outcomes).")
             rows = self.build_tables(*sources, landmarks_days=landmarks_days, at_date=at_date)
-        horizons = self.horizons_days[-1:] if horizons_days is None else tuple(float(h) for h in horizons_days)
-        horizons = tuple(self.prediction_window_days if h is None else h for h in horizons)
+        horizons = ((self.prediction_window_days,) if horizons_days is None
+                    else tuple(float(h) for h in horizons_days))
         from riskbench.models.risk_contract import risk_curve
 
         curve = np.full((len(rows), len(horizons)), np.nan)

@@ -19,6 +19,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from riskbench.report.markdown_text import md_text
 from riskbench.report.model_sheet import CAUTION, read_sheet_table
@@ -172,3 +174,29 @@ def test_user_strings_cannot_become_markup(run: Path, tmp_path: Path) -> None:
     assert "Age \\| &lt;b&gt;years&lt;/b&gt;" in text
     assert all(line.count("|") - line.count("\\|") in (0,) or line.startswith("|") for line in text.splitlines())
     assert load_model(bundle).name == hostile
+
+
+# --------------------------------------------------------------------------------------------------
+# properties of the Markdown escaping the sheet relies on
+
+
+@given(st.text(max_size=60))
+def test_escaped_text_cannot_open_markup_or_end_a_line(text: str) -> None:
+    """Whatever the text, its escaped form has no line break, no raw HTML bracket, and every Markdown
+    character is preceded by a backslash (CommonMark 0.31, section 2.4 "Backslash escapes": an escaped ASCII
+    punctuation character is shown literally -- **from memory**)."""
+    out = md_text(text)
+    assert "\n" not in out and "\r" not in out and "<" not in out and ">" not in out
+    unescaped = re.sub(r"\\.", "", out)
+    assert not re.search(r"[`*_{}\[\]()#+\-.!|~]", unescaped)
+
+
+@given(st.lists(st.floats(-1e6, 1e6, allow_nan=False), min_size=1, max_size=30))
+def test_development_rows_are_never_flagged_outside_their_own_range(values: list[float]) -> None:
+    from riskbench.cohort.spec import CohortSpec
+    from riskbench.workflow.model_bundle import development_ranges
+    from riskbench.workflow.scoring_rows import row_flags
+
+    table = pd.DataFrame({"x": values})
+    flags = row_flags(table, ["x"], development_ranges(table, ["x"]), CohortSpec(), None)
+    assert (flags["outside_development_range"] == "").all()
