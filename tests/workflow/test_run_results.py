@@ -132,6 +132,12 @@ def test_the_documented_recipe_runs_on_a_finished_run(finished):
     assert redrawn.calibration.oe_ratio == pytest.approx(stage_view.calibration.oe_ratio, rel=1e-12)
     assert redrawn.calibration.slope == pytest.approx(stage_view.calibration.slope, rel=1e-12)
     assert run.table("model_comparison")["imaging_clinical"].dtype == float  # numbers, not text
+    saved = run.saved_models()  # the models the models stage saved, loaded back: same risks as in the run
+    assert set(saved) == {"clinical", "imaging_clinical"}
+    apparent = run.apparent_predictions
+    by_2y = apparent[(apparent["model"] == "clinical") & np.isclose(apparent["horizon"], 730.5)].sort_values("row")
+    np.testing.assert_allclose(saved["clinical"].model.predict_risk(run.landmark_stack, 730.5), by_2y["risk"],
+                               rtol=1e-12)
 
 
 def test_open_run_refuses_a_folder_that_is_not_a_finished_run(tmp_path):
