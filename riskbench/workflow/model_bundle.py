@@ -24,7 +24,8 @@ model's name):
     The model sheet (:mod:`riskbench.report.model_sheet`): the full equation and a worked example.
 
 :func:`load_model` reads a bundle (or the model file beside it), checks every part's SHA-256 against the
-bundle before anything is loaded, and returns a :class:`SavedModel`. A changed, missing or foreign file is a
+bundle (and, inside a run folder, the bundle's own SHA-256 against ``manifest.json``) before anything is loaded,
+and returns a :class:`SavedModel`. A changed, missing or foreign file is a
 :class:`~riskbench.models.risk_contract.ModelInputError` naming the file and what to do.
 
 ``SavedModel.model`` answers ``predict_risk(table, horizon)`` exactly as the run's fitted model did.
@@ -298,6 +299,23 @@ def _checked_file(folder: Path, entry: Mapping[str, Any], what: str, bundle: Pat
     return path
 
 
+def _check_against_manifest(bundle: Path) -> None:
+    """Inside a run folder, the bundle's own SHA-256 must match the run manifest's record of it (a bundle copied
+    out of its run has no manifest beside it and is checked by its parts' digests only)."""
+    manifest = bundle.parent.parent / "manifest.json"
+    if bundle.parent.name != MODELS or not manifest.is_file():
+        return
+    try:
+        recorded = json.loads(manifest.read_text(encoding="utf-8")).get("outputs_sha256", {})
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError, AttributeError):
+        return  # not a riskbench manifest: nothing to compare with
+    expected = recorded.get(f"{MODELS}/{bundle.name}") if isinstance(recorded, dict) else None
+    if expected is not None and file_sha256(bundle) != expected:
+        raise ModelIntegrityError(
+            f"{bundle} does not match the SHA-256 that the run's manifest.json records for it: the bundle was "
+            "changed after the run; refusing to load it. Take the model from a trusted copy of the run.")
+
+
 def _read_bundle(bundle: Path) -> dict[str, Any]:
     try:
         doc = json.loads(bundle.read_text(encoding="utf-8"))
@@ -361,6 +379,7 @@ def load_model(path: str | Path) -> SavedModel:
     """
     bundle = bundle_path_of(path)
     doc = _read_bundle(bundle)
+    _check_against_manifest(bundle)
     folder = bundle.parent
     parts = [_load_part(_checked_file(folder, entry, "the model file", bundle), str(entry.get("kind")))
              for entry in doc["parts"]]

@@ -201,3 +201,18 @@ def test_flags_name_the_out_of_range_stale_and_missing_covariates(run: Path) -> 
     assert flags.loc[1, "older_than_carry_forward"] == "serum_marker"
     assert "serum_marker" in flags.loc[1, "missing_covariates"]
     assert flags.loc[2, "older_than_carry_forward"] == ""
+
+
+def test_inside_a_run_folder_a_changed_bundle_is_refused_by_the_manifest(run: Path, tmp_path: Path) -> None:
+    import shutil
+
+    folder = tmp_path / "run"
+    shutil.copytree(run / "run" / "models", folder / "models")
+    (folder / "manifest.json").write_text(json.dumps({"riskbench_run": 1, "outputs_sha256": output_digests(folder)}))
+    assert load_model(folder / "models" / "clinical_cox.bundle.json").name == "clinical_cox"
+    bundle = folder / "models" / "clinical_cox.bundle.json"
+    doc = json.loads(bundle.read_text())
+    doc["development_ranges"]["age_at_entry"]["max"] = 200.0  # widen what the model claims to have seen
+    bundle.write_text(json.dumps(doc, indent=1))
+    with pytest.raises(ModelIntegrityError, match="manifest"):
+        load_model(bundle)
