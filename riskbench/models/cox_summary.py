@@ -31,7 +31,7 @@ __all__ = ["VARIANCES", "CoxSummary", "stratified_concordance"]
 #: The standard errors a Cox summary can show.
 VARIANCES: dict[str, str] = {
     "model": "model-based (inverse of the information matrix)",
-    "robust": "cluster-robust sandwich (Lin & Wei 1989), clustered by patient",
+    "robust": "cluster-robust sandwich (Lin & Wei 1989), clustered by the id column",
 }
 
 
