@@ -10,7 +10,9 @@ estimates G once.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Hashable
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -90,7 +92,9 @@ class OutcomeSet:
         t = as_time(time)
         return cls(t, as_status(status, t.size, allow_competing=True))
 
-    def _cached(self, name: str, make):
+    def cached(self, name: Hashable, make: Callable[[], Any]) -> Any:
+        """``make()`` computed once for these rows under ``name`` (a value that depends on the rows only, e.g.
+        the pseudo-observations at a horizon)."""
         if name not in self._cache:
             self._cache[name] = make()
         return self._cache[name]
@@ -98,7 +102,7 @@ class OutcomeSet:
     @property
     def censoring(self) -> StepCurve:
         """Kaplan–Meier of censoring, G (estimated once)."""
-        return self._cached("censoring", lambda: censoring_survival(self.time, self.status))
+        return self.cached("censoring", lambda: censoring_survival(self.time, self.status))
 
     def later_key(self) -> tuple[np.ndarray, np.ndarray]:
         """Order key for "later than" (a larger time first; a censoring or competing event before an outcome at
@@ -106,8 +110,8 @@ class OutcomeSet:
         def make() -> tuple[np.ndarray, np.ndarray]:
             t_rank = dense_rank(-self.time)
             return 2 * t_rank + (self.status == 1).astype(np.int64), t_rank
-        return self._cached("later_key", make)
+        return self.cached("later_key", make)
 
     def time_rank(self) -> np.ndarray:
         """Dense rank of the time, ascending (computed once)."""
-        return self._cached("time_rank", lambda: dense_rank(self.time))
+        return self.cached("time_rank", lambda: dense_rank(self.time))

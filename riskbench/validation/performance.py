@@ -30,7 +30,9 @@ import numpy as np
 import pandas as pd
 
 from riskbench.metrics.calibration import observed_expected
+from riskbench.metrics.calibration_measures import SlopeAndICI, slope_and_ici
 from riskbench.metrics.concordance import concordance_at_horizon
+from riskbench.metrics.inputs import MetricInputError
 from riskbench.metrics.risk_sets import OutcomeSet
 from riskbench.models.prediction_target import fitted_target
 from riskbench.validation.errors import ValidationInputError
@@ -164,7 +166,7 @@ def evaluate_risks(
         # No confidence band (the resampling gives intervals) and no direction check: a poor model in
         # an unlucky replicate is a result to report, not an input error. A model whose risks take too few
         # distinct values for the smoother has no smoothed calibration (NaN; the other measures stand).
-        smooth = _smoothed_calibration(time, status, risk, t_eval, target)
+        smooth = _smoothed_calibration(time, status, risk, t_eval, target, outcomes)
         rows += [(name, h, np.nan, value) for name, value in core.items() if name != "oe_ratio"]
         rows += [
             ("calibration_slope", h, np.nan, float(smooth.slope)),
@@ -215,20 +217,15 @@ def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, hor
 
 
 def _smoothed_calibration(time: np.ndarray, status: np.ndarray, risk: np.ndarray, t_eval: float,
-                          target: str = "cumulative_incidence") -> Any:
-    """:func:`riskbench.metrics.calibration_at_horizon`, or NaN measures when the risks cannot be smoothed."""
-    from types import SimpleNamespace
-
-    from riskbench import metrics
-    from riskbench.metrics.inputs import MetricInputError
-
+                          target: str, outcomes: OutcomeSet) -> SlopeAndICI:
+    """Slope and ICI of :func:`riskbench.metrics.calibration_at_horizon` (computed alone, the pseudo-observations
+    shared through ``outcomes``), or NaN when the risks cannot be smoothed."""
     try:
-        return metrics.calibration_at_horizon(time, status, risk, t_eval, target=target, n_boot=0,
-                                              check_direction=False)
+        return slope_and_ici(time, status, risk, t_eval, target=target, outcomes=outcomes)
     except MetricInputError as exc:
         if "distinct values" not in str(exc):
             raise
-        return SimpleNamespace(slope=np.nan, ici=np.nan, oe_ratio=np.nan)
+        return SlopeAndICI(np.nan, np.nan)
 
 
 def evaluate_model(
