@@ -521,6 +521,7 @@ def fit_cox(
     max_iter: int = 50,
     tol: float = 1e-9,
     names: Sequence[str] | None = None,
+    initial: Any = None,
 ) -> CoxFit:
     """Fit a Cox model to counting-process rows ``(start, stop]`` by Newton–Raphson.
 
@@ -540,6 +541,9 @@ def fit_cox(
     tol : convergence when the relative change of the (penalised) log-likelihood is
         ≤ ``tol`` and the largest step on the standardised scale is ≤ ``sqrt(tol)``.
     names : covariate names (default: DataFrame columns or ``x0..``).
+    initial : (p,) coefficients (per unit of each covariate) to start Newton–Raphson from instead of 0, e.g.
+        the whole-cohort estimate when refitting on a bootstrap resample: the same optimum (to ``tol``) in
+        fewer iterations. The null model, and so the likelihood-ratio test, is still evaluated at 0.
 
     Returns
     -------
@@ -576,7 +580,7 @@ def fit_cox(
     Xa, wa = (Xs, inp.weights) if L.active.size == n else (Xs[L.active], inp.weights[L.active])
     pen = float(penalty) * n
     try:
-        nr = _newton_raphson(Xa, wa, L, pen, max_iter, tol)
+        nr = _newton_raphson(Xa, wa, L, pen, max_iter, tol, _initial(initial, scale, inp.names))
     except _BreakDown as stop:
         largest = [inp.names[j] for j in np.argsort(-np.abs(stop.beta))[: min(p, 5)] if abs(stop.beta[j]) > 1.0]
         raise CoxNumericalError(
@@ -713,8 +717,20 @@ class _BreakDown(Exception):
         self.beta, self.n_iter = beta, n_iter
 
 
-def _newton_raphson(Xa: np.ndarray, wa: np.ndarray, L: _Layout, pen: float, max_iter: int, tol: float) -> _Newton:
-    """Maximise ``loglik - pen/2 ‖β‖²`` from β = 0 with step halving.
+def _initial(initial: Any, scale: np.ndarray, names: tuple[str, ...]) -> np.ndarray | None:
+    """Starting coefficients on the standardised scale (None: start from 0)."""
+    if initial is None:
+        return None
+    beta = np.asarray(initial, dtype=float).reshape(-1)
+    if beta.size != scale.size or not np.isfinite(beta).all():
+        raise CoxInputError(f"`initial` must hold {scale.size} finite coefficients, one per covariate {list(names)}; "
+                            f"got {np.asarray(initial).tolist()!r}")
+    return beta * scale
+
+
+def _newton_raphson(Xa: np.ndarray, wa: np.ndarray, L: _Layout, pen: float, max_iter: int, tol: float,
+                    initial: np.ndarray | None = None) -> _Newton:
+    """Maximise ``loglik - pen/2 ‖β‖²`` from β = ``initial`` (default 0) with step halving.
 
     Converged when the relative change of the objective is ≤ ``tol`` and the largest step is
     ≤ ``sqrt(tol)``; stopped early when the objective stays flat for 3 steps while the
@@ -724,7 +740,11 @@ def _newton_raphson(Xa: np.ndarray, wa: np.ndarray, L: _Layout, pen: float, max_
     p = Xa.shape[1]
     beta = np.zeros(p)
     null = state = _evaluate(beta, Xa, wa, L, F)
-    obj = state.loglik
+    if initial is not None:
+        start = _evaluate(initial, Xa, wa, L, F)
+        if np.isfinite(start.loglik) and start.loglik >= null.loglik:  # else the start is worse than 0: keep 0
+            beta, state = initial.copy(), start
+    obj = state.loglik - 0.5 * pen * float(beta @ beta)
     converged, n_iter, flat_runs = False, 0, 0
     history = [beta.copy()]
     for n_iter in range(1, max_iter + 1):
