@@ -131,16 +131,10 @@ def landmark_label(days: float) -> str:
     return "at entry" if days == 0 else f"{format_duration(float(days))} after entry"
 
 
-def _interval_text(estimate: float, low: float, high: float) -> str:
-    if not np.isfinite(estimate):
-        return ""
-    if not (np.isfinite(low) and np.isfinite(high)):
-        return f"{estimate:.3f}"
-    return f"{estimate:.3f} ({low:.3f} to {high:.3f})"
-
-
 def performance_table(measures: pd.DataFrame) -> pd.DataFrame:
-    """One row per model, landmark and horizon; each measure as "estimate (2.5% to 97.5% percentile)"."""
+    """One row per model, landmark and horizon; each measure as three numbers: ``<heading>`` (estimate),
+    ``<heading>_low`` and ``<heading>_high`` (2.5% and 97.5% percentiles; NaN without resamples). The report
+    shows each triple as "estimate (low–high)" (:mod:`riskbench.report.display_format`)."""
     rows = []
     for (model, landmark, horizon), group in measures.groupby(["model", "landmark_days", "horizon_days"],
                                                               sort=False, dropna=False):
@@ -148,8 +142,9 @@ def performance_table(measures: pd.DataFrame) -> pd.DataFrame:
                "obtained_by": "cross-validated"}
         by = group.set_index("metric")
         for metric, heading in MEASURE_HEADINGS.items():
-            row[heading] = (_interval_text(*by.loc[metric, ["estimate", "ci_low", "ci_high"]])
-                            if metric in by.index else "")
+            values = (by.loc[metric, ["estimate", "ci_low", "ci_high"]].to_numpy(float) if metric in by.index
+                      else np.full(3, np.nan))
+            row.update({heading: values[0], f"{heading}_low": values[1], f"{heading}_high": values[2]})
         row["bootstrap_resamples"] = int(group["resamples"].min())
         rows.append(row)
     return pd.DataFrame(rows)

@@ -4,6 +4,7 @@ configuration, the table of intervals and the figures with bands."""
 
 from __future__ import annotations
 
+import io
 from types import SimpleNamespace
 
 import numpy as np
@@ -12,7 +13,10 @@ import pytest
 
 from riskbench.report.auc_plot import auc_curve_figure
 from riskbench.report.decision_curve_plot import decision_curve_figure
+from riskbench.report.display_format import display_table
+from riskbench.report.outputs import csv_text
 from riskbench.validation.landmark_performance import EvaluationRows
+
 # _resample_caution and _unmeasured_notes are private on purpose: they decide the wording and kind of a note,
 # which the public report_landmark_performance only shows after a full bootstrap run.
 from riskbench.workflow.landmark_report import (
@@ -75,8 +79,12 @@ def test_table_shows_each_estimate_with_its_interval_and_the_pooled_label() -> N
         "ci_high": [0.74, np.nan, 0.72], "resamples": [50, 0, 50]})
     table = performance_table(measures)
     assert list(table["landmark"]) == ["at entry", POOLED_LABEL]
-    assert table.loc[0, "AUC"] == "0.712 (0.680 to 0.740)" and table.loc[0, "Brier score"] == "0.100"
-    assert table.loc[1, "Harrell C"] == "" and table.loc[0, "horizon_years"] == pytest.approx(2.0)
+    assert list(table.loc[0, ["AUC", "AUC_low", "AUC_high"]]) == [0.71234, 0.68, 0.74]  # numbers, full precision
+    assert table.loc[0, "Brier score"] == 0.1 and np.isnan(table.loc[0, "Brier score_low"])
+    assert np.isnan(table.loc[1, "Harrell C"]) and table.loc[0, "horizon_years"] == pytest.approx(2.0)
+    shown = display_table(pd.read_csv(io.StringIO(csv_text(table)), dtype=str, keep_default_na=False))
+    assert shown.loc[0, "AUC (95% interval)"] == "0.712 (0.680–0.740)"  # the report merges the triple
+    assert shown.loc[0, "Brier score"] == "0.100"  # no resamples: the estimate alone
 
 
 def test_figures_draw_the_bands() -> None:
