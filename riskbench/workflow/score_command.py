@@ -90,21 +90,30 @@ def new_tables(config_path: str | Path | None, data: str | Path | None) -> tuple
     return (src.patients, src.measurements, src.outcomes), reading, config
 
 
-def predictable_rows(saved: SavedModel, landmarks: np.ndarray) -> tuple[np.ndarray, str]:
-    """Which rows' landmarks (days) the model can predict from, and why the others cannot be predicted.
+def predictable_rows(saved: SavedModel, rows: pd.DataFrame) -> np.ndarray:
+    """Why each row cannot be predicted (empty text: it can).
 
-    A landmark super-model with one baseline per landmark predicts only at its fitted landmarks; one with a
-    smooth baseline only inside the range of its fitted landmarks (it would extrapolate outside).
+    A landmark super-model with one baseline per landmark predicts only at its fitted landmarks, one with a
+    smooth baseline only inside the range of its fitted landmarks (it would extrapolate outside); a model
+    without a missing-data method, or with complete cases, needs every covariate.
     """
+    landmarks = rows["landmark"].to_numpy(float)
+    why = np.full(len(rows), "", dtype=object)
     part = saved.parts[0]
-    if not isinstance(part, LandmarkSupermodel):
-        return np.ones(len(landmarks), dtype=bool), ""
-    fitted = np.asarray(part.landmarks_, float)
-    if part.baseline == "stratified":
-        ok = np.isclose(landmarks[:, None], fitted[None, :]).any(axis=1)
-        return ok, f"the model predicts only at its fitted landmarks ({', '.join(f'{s:g}' for s in fitted)} days)"
-    ok = (landmarks >= fitted.min() - 1e-9) & (landmarks <= fitted.max() + 1e-9)
-    return ok, f"outside the model's landmark range {fitted.min():g} to {fitted.max():g} days"
+    if isinstance(part, LandmarkSupermodel):
+        fitted = np.asarray(part.landmarks_, float)
+        if part.baseline == "stratified":
+            off = ~np.isclose(landmarks[:, None], fitted[None, :]).any(axis=1)
+            text = f"the model predicts only at its fitted landmarks ({', '.join(f'{s:g}' for s in fitted)} days)"
+        else:
+            off = (landmarks < fitted.min() - 1e-9) | (landmarks > fitted.max() + 1e-9)
+            text = f"outside the model's landmark range {fitted.min():g} to {fitted.max():g} days"
+        why[off] = text
+    method = None if saved.missing_data is None else saved.missing_data.get("method")
+    if method in (None, "complete_cases"):
+        missing = rows[list(saved.covariates)].isna().any(axis=1).to_numpy()
+        why[missing & (why == "")] = "a covariate is missing and the model uses complete cases only"
+    return why
 
 
 def _pseudonyms(ids: pd.Series, key_file: Path | None, config: Any, out: Path) -> pd.Series:
@@ -185,12 +194,13 @@ def score_patients(model_path: str | Path, out: str | Path, *, config: str | Pat
         raise ScoreInputError("no patient of the new tables is under follow-up at the requested landmarks or date "
                               "(follow-up ends with the last outcomes row; add an end_of_follow_up row on the day "
                               "the data were extracted)")
-    ok, why = predictable_rows(saved, rows["landmark"].to_numpy(float))
+    why = predictable_rows(saved, rows)
+    ok = why == ""
     table = saved.predict(rows[ok].reset_index(drop=True), horizons_days=hs)
     table["not_predicted"] = ""
     if not ok.all():
         skipped = _unpredicted(saved, rows[~ok], hs)
-        skipped["not_predicted"] = why
+        skipped["not_predicted"] = np.tile(why[~ok], len(hs))
         table = pd.concat([table, skipped], ignore_index=True)
     n_patients = int(table["patient_id"].nunique())
     if not keep_ids:

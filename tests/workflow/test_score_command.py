@@ -142,3 +142,29 @@ def test_a_changed_model_is_refused_with_exit_status_2(run: Path, tmp_path: Path
                    "--data", str(run / "data")])
     assert status == 2 and "SHA-256" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
+
+
+def test_rows_a_complete_case_model_cannot_predict_say_why(run: Path, tmp_path: Path) -> None:
+    from riskbench.models.landmark import LandmarkSupermodel
+    from riskbench.models.missing_data import MissingDataModel
+    from riskbench.workflow.model_bundle import load_model, save_run_model
+
+    stack = pd.read_parquet(run / "run" / "data" / "landmark_stack.parquet")
+    model = MissingDataModel(LandmarkSupermodel(B.IMAGING, baseline="stratified"), method="complete_cases").fit(stack)
+    spec = load_model(run / "run" / "models" / "clinical.bundle.json").cohort_spec()
+    bundle = save_run_model(tmp_path / "run", "complete", "landmark_cox", model, cohort_rules=spec, development=stack,
+                            landmarks_days=[0.0, 182.625, 365.25, 547.875, 730.5], prediction_window_days=730.5,
+                            horizons_days=[730.5])
+    data = tmp_path / "data"
+    shutil.copytree(run / "data", data)
+    measurements = pd.read_csv(data / "measurements.csv")
+    some = measurements["patient_id"].isin(measurements["patient_id"].unique()[:40])
+    measurements[~(some & (measurements["variable"] == "suspicion_score"))].to_csv(data / "measurements.csv",
+                                                                                   index=False)
+    out = tmp_path / "scored"
+    assert main(["score-patients", str(bundle), "--out", str(out), "--data", str(data), "--keep-ids"]) == 0
+    risks = _risks(out)
+    missing = risks["missing_covariates"].str.contains("suspicion_score")
+    assert missing.sum() >= 40
+    assert risks.loc[missing, "risk"].isna().all() and risks.loc[~missing, "risk"].between(0, 1).all()
+    assert risks.loc[missing, "not_predicted"].str.contains("complete cases").all()
