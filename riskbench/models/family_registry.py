@@ -175,6 +175,33 @@ FAMILIES: dict[str, Family] = {
             "Cause-specific random survival forest on the landmark stack",
             reserved=("random_state",),
         ),
+        Family(
+            "shared_trajectory_joint", "riskbench.models.joint_family.SharedTrajectoryModel", COUNTING_PROCESS,
+            (
+                Param("marker", ("str", "none"), None,
+                      "the repeated marker among the covariates (leave out for the first covariate); the other "
+                      "covariates must be baseline values"),
+                Param("association", ("str",), "value",
+                      "how the outcome hazard depends on the marker's current true value, its slope per year, "
+                      "both or neither", choices=("value", "slope", "value_slope", "none")),
+                Param("competing", ("bool",), True, "also model the competing event (cumulative incidence)"),
+                Param("competing_association", ("bool",), True,
+                      "the competing hazard depends on the marker's current value too"),
+                Param("time_knots", ("int",), 0,
+                      "interior knots of a natural cubic spline of time in the marker's mean (0: a straight line)",
+                      minimum=0, maximum=5),
+                Param("baseline_pieces", ("int",), 6,
+                      "pieces of the piecewise-constant baseline hazards (knots at event-time quantiles)",
+                      minimum=1, maximum=20),
+                Param("hermite_points", ("int",), 5, "Gauss-Hermite nodes per random effect", minimum=2,
+                      maximum=15),
+                Param("prediction_draws", ("int",), 100,
+                      "Monte Carlo draws of the random effects per predicted row", minimum=10),
+            ),
+            "Joint model of one repeated marker and the outcome (random intercept and slope shared with the "
+            "cause-specific hazards); dynamic predictions from each patient's measurement history",
+            reserved=("random_state",),
+        ),
     )
 }
 

@@ -308,14 +308,20 @@ class JointModel(BaseEstimator):
             raise ModelInputError("this JointModel is not fitted yet; call fit(measurements, survival) first")
 
     # ------------------------------------------------------------------ prediction
-    def _rows(self, table: pd.DataFrame) -> PredictionRows:
+    def _rows(self, table: pd.DataFrame, measurements: pd.DataFrame | None = None) -> PredictionRows:
         structure = self.structure_
         landmark = prediction_origin(table) / DAYS_PER_YEAR
         if "patient_id" not in table.columns:
             raise ModelInputError("prediction table lacks 'patient_id'; the joint model finds each row's "
                                   "measurement history by it")
-        row_patient = pd.Index(self.history_ids_).get_indexer(table["patient_id"].to_numpy())
-        history = rows_history(self.history_, row_patient, landmark)
+        ids, stored = self.history_ids_, self.history_
+        if measurements is not None:
+            ids = np.asarray(pd.unique(measurements["patient_id"]))
+            found = marker_history(measurements, ids, time_column=self.measurement_time, marker=self.marker)
+            order = np.lexsort((found.time, found.patient))
+            stored = History(found.patient[order], found.time[order], found.value[order])
+        row_patient = pd.Index(ids).get_indexer(table["patient_id"].to_numpy())
+        history = rows_history(stored, row_patient, landmark)
         marker_x = covariate_block(table, list(structure.marker_covariates), "prediction table")
         cause_x = tuple(covariate_block(table, list(c), "prediction table") - m
                         for c, m in zip(structure.cause_covariates, structure.cause_means))
@@ -325,8 +331,11 @@ class JointModel(BaseEstimator):
         size = max(1, _CELLS_PER_CHUNK // max(1, int(self.prediction_draws) * width))
         return [slice(i, min(i + size, n_rows)) for i in range(0, n_rows, size)]
 
-    def predict_curve(self, table: pd.DataFrame, times: Sequence[float] | np.ndarray) -> np.ndarray:
+    def predict_curve(self, table: pd.DataFrame, times: Sequence[float] | np.ndarray, *,
+                      measurements: pd.DataFrame | None = None) -> np.ndarray:
         """Risk of the outcome in ``(s, s + t]`` for each row and each ``t`` in ``times`` (days).
+
+        ``measurements`` (columns as in :meth:`fit`) replaces the stored history for this call.
 
         Returns
         -------
@@ -336,7 +345,7 @@ class JointModel(BaseEstimator):
         horizons = np.asarray(times, dtype=float) / DAYS_PER_YEAR
         if np.any(~np.isfinite(horizons)) or np.any(horizons < 0):
             raise ModelInputError(f"times must be non-negative numbers of days, got {list(times)[:5]}")
-        rows = self._rows(table)
+        rows = self._rows(table, measurements)
         rng = np.random.default_rng(self.random_state)
         out = np.zeros((len(rows), len(horizons)))
         width = int(self.grid_steps) + len(horizons) + len(self.structure_.knots) * self.legendre_points
@@ -347,10 +356,11 @@ class JointModel(BaseEstimator):
                                          int(self.grid_steps))
         return np.clip(out, 0.0, 1.0)
 
-    def predict_risk(self, table: pd.DataFrame, horizon: float) -> np.ndarray:
+    def predict_risk(self, table: pd.DataFrame, horizon: float, *, measurements: pd.DataFrame | None = None
+                     ) -> np.ndarray:
         """Probability of the outcome in ``(s, s + horizon]`` (days) for each row (see the module docstring)."""
         self._check_fitted()
-        return self.predict_curve(table, [check_horizon(horizon)])[:, 0]
+        return self.predict_curve(table, [check_horizon(horizon)], measurements=measurements)[:, 0]
 
     def dynamic_prediction(self, table: pd.DataFrame, horizons: Sequence[float], *, parameter_draws: int = 200,
                            draws_per_parameter: int = 50, seed: int | None = None) -> pd.DataFrame:

@@ -36,7 +36,7 @@ def prediction_target(family_name: str, params: Mapping[str, Any] | None = None)
         The model's ``params`` from the configuration (defaults from the registry where absent).
     """
     name = canonical_family(family_name)
-    if name == "landmark_cox":
+    if name in ("landmark_cox", "shared_trajectory_joint"):
         default = family(name).param("competing").default
         return CUMULATIVE_INCIDENCE if bool((params or {}).get("competing", default)) else CAUSE_SPECIFIC
     family(name)  # an unknown family raises KeyError here

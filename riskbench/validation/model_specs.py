@@ -11,7 +11,10 @@ from riskbench.models.missing_data import MissingDataPlan
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.sources import ValidationTables
 
-FAMILIES: tuple[str, ...] = ("landmark_cox", "time_varying_cox", "forest")  # "cox": old name, accepted
+FAMILIES: tuple[str, ...] = ("landmark_cox", "time_varying_cox", "forest",
+                              "shared_trajectory_joint")  # "cox": old name, accepted
+#: Families fitted on the counting-process table.
+COUNTING_PROCESS_FAMILIES: tuple[str, ...] = ("time_varying_cox", "shared_trajectory_joint")
 
 
 @dataclass(frozen=True)
@@ -90,6 +93,13 @@ def build_estimator(spec: ModelSpec, *, seed: int | None = None) -> Any:
         # a patient's rows are not independent: robust standard errors unless configured otherwise
         params.setdefault("variance", "model" if params.get("cluster", "patient_id") is None else "robust")
         estimator = models.CoxModel(spec.covariates, **params)
+    elif spec.family == "shared_trajectory_joint":
+        if seed is not None:
+            params.setdefault("random_state", seed)
+        # missing marker values are simply no measurement: the joint model needs no missing-data wrapper
+        from riskbench.models.joint_family import SharedTrajectoryModel
+
+        return SharedTrajectoryModel(spec.covariates, **params)
     else:
         if seed is not None:
             params.setdefault("random_state", seed)
@@ -118,10 +128,10 @@ def fit_spec(spec: ModelSpec, tables: ValidationTables, *, seed: int | None = No
         The fitted model (has ``predict_risk(table, horizon)``).
     """
     estimator = build_estimator(spec, seed=seed)
-    if spec.family == "time_varying_cox":
+    if spec.family in COUNTING_PROCESS_FAMILIES:
         if tables.counting_process is None:
             raise ValidationInputError(
-                f"ModelSpec '{spec.name}' (family 'time_varying_cox') fits on the counting-process table, but the table "
+                f"ModelSpec '{spec.name}' (family '{spec.family}') fits on the counting-process table, but the table "
                 "source has none; build the source with the counting-process table."
             )
         return estimator.fit(tables.counting_process)
@@ -137,5 +147,8 @@ def prediction_columns(spec: ModelSpec, table_columns: Sequence[str]) -> list[st
     """
     present = set(table_columns)
     named = [v for v in spec.params.values() if isinstance(v, str) and v in present]
+    if spec.family == "shared_trajectory_joint":  # its prediction reads the patient's own measurement history
+        named += [c for c in ("patient_id",) if c in present]
+        named += [c for c in present if c.endswith("_staleness_days") or c.endswith("_change")]
     columns = [*spec.covariates, *[c for c in ("landmark", "start") if c in present], *named]
     return list(dict.fromkeys(columns))

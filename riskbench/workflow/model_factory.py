@@ -50,7 +50,8 @@ def fit_model(model: ModelConfig, landmark_stack: pd.DataFrame, counting_process
     ConfigError
         If the model's covariates are not columns of the tables or its ``params`` are not accepted.
     """
-    table = counting_process if model.family in ("cox", "time_varying_cox") else landmark_stack
+    table = (counting_process if model.family in ("cox", "time_varying_cox", "shared_trajectory_joint")
+             else landmark_stack)
     if table is not None:
         missing = [c for c in model.covariates if c not in table.columns]
         if missing:

@@ -1,0 +1,168 @@
+"""The joint model as a workflow family: fits on the counting-process table, predicts landmark-stack rows.
+
+:class:`SharedTrajectoryModel` wraps :class:`riskbench.models.joint_model.JointModel` behind the contract every
+configured model answers (``fit(table)``, ``predict_risk(table, horizon)``; :mod:`riskbench.models.risk_contract`):
+
+* ``covariates`` are the configuration's covariate list: ``marker`` (default: the first covariate) is the
+  repeated marker, the others are baseline covariates of both hazards and of the marker's mean. They must not
+  change within a patient (a time-varying covariate belongs in the marker, or is left out).
+* ``fit(counting_process)``: the measurements and each patient's follow-up are read from the counting-process
+  table (:mod:`riskbench.models.joint_inputs`), so the joint model sees the same rows and ledger as the
+  time-varying Cox model. Missing marker values are simply no measurement (no imputation is needed); baseline
+  covariates must be complete.
+* ``predict_risk(stack, horizon)``: each row's history is the patient's measurements from the fitting table at
+  or before the row's landmark. A patient the model was not fitted on (a held-out fold, an external cohort)
+  has no stored history; that row's history is rebuilt from the row itself, leakage-free: the current value
+  dated ``landmark - staleness`` and, when the stack has ``<marker>_change``, the first value
+  (``value - change``) dated at entry. Such rows therefore use at most two measurements, so resampled
+  estimates of the joint model's performance are on the cautious side. A bootstrap copy (``"<id>#<k>"``, see
+  :func:`riskbench.validation.sources.draw_tables`) shares its patient's history.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+from sklearn.base import BaseEstimator
+
+from riskbench.models.joint_inputs import (
+    measurements_from_counting_process,
+    staleness_column,
+    survival_from_counting_process,
+)
+from riskbench.models.joint_model import JointModel
+from riskbench.models.risk_contract import ModelInputError, check_horizon, describe_rows, prediction_origin
+
+__all__ = ["SharedTrajectoryModel", "patient_key"]
+
+_COPY_SUFFIX = re.compile(r"#\d+$")
+
+
+def patient_key(ids: Sequence[object] | np.ndarray | pd.Series) -> np.ndarray:
+    """Patient ids with a bootstrap copy's ``#<k>`` suffix removed (a copy's records are its patient's)."""
+    return np.array([_COPY_SUFFIX.sub("", str(i)) for i in ids], dtype=object)
+
+
+class SharedTrajectoryModel(BaseEstimator):
+    """Joint model of one repeated marker and the outcome, for the workflow (see the module docstring).
+
+    Parameters
+    ----------
+    covariates : sequence of str
+        The marker column and the baseline covariates.
+    marker : str or None
+        The marker column (None: the first covariate).
+    association, competing, competing_association, time_knots, baseline_pieces, hermite_points,
+    prediction_draws, random_state
+        As in :class:`riskbench.models.joint_model.JointModel`.
+
+    Attributes (after fit)
+    ----------------------
+    model_ : JointModel
+    competing_ : True or None (a competing-event hazard was fitted: the risk is a cumulative incidence)
+    """
+
+    def __init__(
+        self,
+        covariates: Sequence[str],
+        *,
+        marker: str | None = None,
+        association: str = "value",
+        competing: bool = True,
+        competing_association: bool = True,
+        time_knots: int = 0,
+        baseline_pieces: int = 6,
+        hermite_points: int = 5,
+        prediction_draws: int = 100,
+        random_state: int = 0,
+    ) -> None:
+        self.covariates = covariates
+        self.marker = marker
+        self.association = association
+        self.competing = competing
+        self.competing_association = competing_association
+        self.time_knots = time_knots
+        self.baseline_pieces = baseline_pieces
+        self.hermite_points = hermite_points
+        self.prediction_draws = prediction_draws
+        self.random_state = random_state
+
+    def _roles(self) -> tuple[str, list[str]]:
+        covariates = [self.covariates] if isinstance(self.covariates, str) else list(self.covariates)
+        if not covariates:
+            raise ModelInputError("covariates is empty; name the marker column first, then baseline covariates")
+        marker = self.marker or covariates[0]
+        if marker not in covariates:
+            raise ModelInputError(f"marker {marker!r} is not one of the covariates {covariates}; list it there")
+        return marker, [c for c in covariates if c != marker]
+
+    def fit(self, table: pd.DataFrame) -> SharedTrajectoryModel:
+        """Fit on a counting-process table (``patient_id, start, stop, status``, covariates, staleness)."""
+        marker, baseline = self._roles()
+        for column in baseline:
+            if column in table.columns:
+                spread = table.groupby("patient_id", sort=False)[column].nunique(dropna=True)
+                varying = table["patient_id"].isin(spread.index[spread > 1]).to_numpy()
+                if varying.any():
+                    raise ModelInputError(
+                        f"covariate '{column}' changes within patients ({describe_rows(table, varying)}); the joint "
+                        "model's other covariates must be baseline values -- make a time-varying variable the "
+                        "marker ([[models]] params marker) or leave it out")
+        measurements = measurements_from_counting_process(table, marker)
+        survival = survival_from_counting_process(table, baseline)
+        self.model_ = JointModel(
+            marker, marker_covariates=baseline, event_covariates=baseline, association=self.association,
+            competing=self.competing, competing_association=self.competing_association,
+            time_knots=self.time_knots, baseline_pieces=self.baseline_pieces, hermite_points=self.hermite_points,
+            prediction_draws=self.prediction_draws, random_state=self.random_state,
+        ).fit(measurements, survival)
+        self.competing_ = True if self.competing and int((survival["status"] == 2).sum()) > 0 else None
+        keyed = measurements.assign(patient_id=patient_key(measurements["patient_id"]))
+        self.history_ = keyed.drop_duplicates(["patient_id", "time"], ignore_index=True)
+        self.max_time_ = self.model_.max_time_
+        return self
+
+    def _history_for(self, table: pd.DataFrame) -> pd.DataFrame:
+        """Stored measurements, plus measurements rebuilt from the rows of patients without a stored history."""
+        marker = self.model_.marker
+        keys = patient_key(table["patient_id"])
+        unknown = ~np.isin(keys, self.history_["patient_id"].to_numpy())
+        if not unknown.any():
+            return self.history_
+        rows = table.loc[unknown]
+        s = prediction_origin(rows)
+        value = pd.to_numeric(rows[marker], errors="coerce").to_numpy(dtype=float) if marker in rows else np.nan
+        stale_name = staleness_column(marker)
+        age = (pd.to_numeric(rows[stale_name], errors="coerce").to_numpy(dtype=float) if stale_name in rows
+               else np.zeros(len(rows)))
+        parts = [pd.DataFrame({"patient_id": keys[unknown], "time": np.clip(s - age, 0.0, None), marker: value})]
+        change_name = f"{marker}_change"
+        if change_name in rows:
+            change = pd.to_numeric(rows[change_name], errors="coerce").to_numpy(dtype=float)
+            parts.append(pd.DataFrame({"patient_id": keys[unknown], "time": 0.0, marker: value - change}))
+        rebuilt = pd.concat(parts, ignore_index=True)
+        rebuilt = rebuilt[np.isfinite(rebuilt[marker].to_numpy(dtype=float))]
+        rebuilt = rebuilt.drop_duplicates(["patient_id", "time"], ignore_index=True)
+        return pd.concat([self.history_, rebuilt], ignore_index=True)
+
+    def predict_curve(self, table: pd.DataFrame, times: Sequence[float] | np.ndarray) -> np.ndarray:
+        """Risk of the outcome in ``(s, s + t]`` for each row and each ``t`` (days) in ``times``."""
+        if not hasattr(self, "model_"):
+            raise ModelInputError("this model is not fitted yet; call fit(counting_process) first")
+        if "patient_id" not in table.columns:
+            raise ModelInputError("prediction table lacks 'patient_id'; the joint model finds each row's history "
+                                  "by it")
+        history = self._history_for(table)
+        rows = table.assign(patient_id=patient_key(table["patient_id"]))
+        return self.model_.predict_curve(rows, times, measurements=history)
+
+    def predict_risk(self, table: pd.DataFrame, horizon: float) -> np.ndarray:
+        """Probability of the outcome in ``(s, s + horizon]`` (days) for each row."""
+        return self.predict_curve(table, [check_horizon(horizon)])[:, 0]
+
+    def summary(self) -> pd.DataFrame:
+        """The joint model's estimates (see :meth:`riskbench.models.joint_model.JointModel.summary`)."""
+        return self.model_.summary()
