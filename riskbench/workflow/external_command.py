@@ -15,6 +15,7 @@ import argparse
 import hashlib
 import json
 import tempfile
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -111,9 +112,22 @@ def _rows(saved: Any, cohort_in: NewCohort, temp: Path) -> tuple[pd.DataFrame, i
     return stack, dropped
 
 
+def _horizons(given: Sequence[float] | None, new: NewCohort, window: float) -> list[float]:
+    """The horizons to validate at (days): as given, else the report horizons within the window and the window."""
+    if given is not None:
+        beyond = [h for h in given if not 0 < h <= window + 1e-9]
+        if beyond or not given:
+            raise ExternalRunError(f"--horizons must lie in (0, {window / DAYS_PER_YEAR:g} years], the model's "
+                                   f"prediction window; got {[round(h / DAYS_PER_YEAR, 4) for h in beyond]} years")
+        return sorted({float(h) for h in given})
+    report = tuple(new.report.horizons_days) if new.config_file is not None else ()
+    return sorted({float(h) for h in report if 0 < h <= window + 1e-9} | {float(window)})
+
+
 def validate_saved_model(model_path: str | Path, out: str | Path, *, config_path: str | Path | None = None,
                          data: str | Path | None = None, overwrite: bool = False, resamples: int | None = None,
-                         alpha: float = 0.05, shrink_revision: bool = False) -> tuple[Path, Any]:
+                         alpha: float = 0.05, shrink_revision: bool = False,
+                         horizons_days: Sequence[float] | None = None) -> tuple[Path, Any]:
     """Validate a saved model on a new cohort, fit and choose its updates, write the report.
 
     Parameters
@@ -134,6 +148,9 @@ def validate_saved_model(model_path: str | Path, out: str | Path, *, config_path
         Significance level of the closed test.
     shrink_revision
         Shrink the model revision towards the original model.
+    horizons_days
+        Horizons (days) to validate and update at, none beyond the model's prediction window. Default: the
+        configuration's report horizons within the window, and the window itself.
 
     Returns
     -------
@@ -154,8 +171,7 @@ def validate_saved_model(model_path: str | Path, out: str | Path, *, config_path
     new = NewCohort.from_arguments(config_path, data)
     saved = load_model(model_path)
     out = Path(out)
-    horizons = [h for h in saved.horizons_days if h <= saved.prediction_window_days + 1e-9] or \
-        [saved.prediction_window_days]
+    horizons = _horizons(horizons_days, new, saved.prediction_window_days)
     threshold = new.threshold
     n_boot = int(new.resamples if resamples is None else resamples)
     report = new.report
@@ -217,9 +233,17 @@ def summary_lines(ev: Any) -> list[str]:
 
 
 def _validate(args: argparse.Namespace) -> int:
+    from riskbench.time_units import parse_duration
+
+    horizons = None
+    if args.horizons:
+        try:
+            horizons = [parse_duration(part) for part in args.horizons.split(",") if part.strip()]
+        except ValueError as exc:
+            raise ExternalRunError(f"--horizons {args.horizons!r}: {exc}") from None
     page, ev = validate_saved_model(args.model, args.out, config_path=args.config, data=args.data,
                                     overwrite=args.overwrite, resamples=args.resamples, alpha=args.alpha,
-                                    shrink_revision=args.shrink_revision)
+                                    shrink_revision=args.shrink_revision, horizons_days=horizons)
     for line in summary_lines(ev):
         print(line)
     print(page)
@@ -246,6 +270,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     cmd.add_argument("--resamples", type=int, default=None,
                      help="bootstrap resamples of patients (default: [validation] bootstrap_resamples)")
     cmd.add_argument("--alpha", type=float, default=0.05, help="significance level of the closed test (0.05)")
+    cmd.add_argument("--horizons", help='horizons to validate at, e.g. "1 year, 2 years" (default: the report '
+                     "horizons of --config within the model's prediction window, and the window)")
     cmd.add_argument("--shrink-revision", action="store_true",
                      help="shrink the revised coefficients towards the original model")
     cmd.set_defaults(handler=_validate)

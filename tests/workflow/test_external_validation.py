@@ -83,7 +83,7 @@ def test_shifted_cohort_gets_an_update_that_brings_oe_back_to_one(saved):
 def test_unshifted_cohort_keeps_the_original_model(saved, capsys):
     folder, bundle, _ = saved
     code = main(["validate-model", str(bundle), "--data", str(folder / "same"), "--out",
-                 str(folder / "out_same"), "--resamples", "5"])
+                 str(folder / "out_same"), "--resamples", "5", "--horizons", "1 year, 2 years"])
     assert code == 0
     printed = capsys.readouterr().out
     assert printed.count("chosen: original model") == 2  # both horizons
@@ -104,3 +104,8 @@ def test_an_existing_folder_is_not_replaced_without_overwrite(saved, capsys):
         validate_saved_model(bundle, folder / "elsewhere", data=folder / "nothing_here")
     with pytest.raises(ExternalRunError, match="--config"):
         validate_saved_model(bundle, folder / "elsewhere")
+    with pytest.raises(ExternalRunError, match="prediction window"):
+        validate_saved_model(bundle, folder / "elsewhere", data=folder / "same", horizons_days=[3 * 365.25])
+    assert main(["validate-model", str(bundle), "--data", str(folder / "same"), "--out", str(folder / "x"),
+                 "--horizons", "two years"]) == 2
+    assert "--horizons" in capsys.readouterr().err
