@@ -210,7 +210,7 @@ def cox_refit(family: str, covariates: Sequence[str], params: Mapping[str, Any],
         keep = {k: v for k, v in params.items() if k in ("landmark_effects", "baseline", "ties")}
         supermodel = LandmarkSupermodel(covariates, competing=False, **keep).fit(rows)
         s = rows["landmark"].to_numpy(float)
-        design = supermodel._design(rows[covariates].to_numpy(float), s)
+        design = supermodel.design_matrix(rows[covariates].to_numpy(float), s)
         names = list(supermodel.design_columns_)
         fit_table = pd.DataFrame(design, columns=names)
         fit_table["time"] = rows["time"].to_numpy(float)

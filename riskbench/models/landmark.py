@@ -196,6 +196,11 @@ class LandmarkSupermodel(BaseEstimator):
             raise ModelInputError("covariates is empty; name at least one covariate column")
         return power
 
+    def design_matrix(self, covariate_matrix: np.ndarray, landmarks: np.ndarray) -> np.ndarray:
+        """The fitted model's design for rows with covariates ``covariate_matrix`` known at ``landmarks`` (days):
+        the covariates, their landmark interactions and the landmark terms (columns ``design_columns_``)."""
+        return self._design(np.asarray(covariate_matrix, dtype=float), np.asarray(landmarks, dtype=float))
+
     def _design(self, covariate_matrix: np.ndarray, s: np.ndarray) -> np.ndarray:
         scaled = s / self.landmark_scale_
         blocks = [covariate_matrix]
