@@ -168,3 +168,25 @@ def test_rows_a_complete_case_model_cannot_predict_say_why(run: Path, tmp_path: 
     assert missing.sum() >= 40
     assert risks.loc[missing, "risk"].isna().all() and risks.loc[~missing, "risk"].between(0, 1).all()
     assert risks.loc[missing, "not_predicted"].str.contains("complete cases").all()
+
+
+def test_values_older_than_the_carry_forward_limit_are_flagged(run: Path, tmp_path: Path) -> None:
+    """Patients whose measurements stop after half a year, scored at 4 years: their values are older than the
+    3-year carry-forward limit of the model's cohort rules, so the row names those variables."""
+    data = tmp_path / "data"
+    shutil.copytree(run / "data", data)
+    measurements = pd.read_csv(data / "measurements.csv")
+    patients = pd.read_csv(data / "patients.csv")
+    entry = pd.to_datetime(measurements["patient_id"].map(patients.set_index("patient_id")["entry_date"]))
+    stopped = patients["patient_id"].iloc[:60]
+    late = measurements["patient_id"].isin(stopped) & (pd.to_datetime(measurements["date"]) - entry
+                                                        > pd.Timedelta(days=180))
+    measurements[~late].to_csv(data / "measurements.csv", index=False)
+    out = tmp_path / "scored"
+    assert _score(run, out, "--data", str(data), "--keep-ids", "--landmarks", "4 years", model="clinical") == 0
+    risks = _risks(out)
+    old = risks["patient_id"].isin(stopped)
+    assert old.any() and (~old).any()
+    assert risks.loc[old, "older_than_carry_forward"].str.contains("serum_marker").all()
+    assert risks.loc[old, "missing_covariates"].str.contains("serum_marker").all()
+    assert not risks.loc[~old, "older_than_carry_forward"].str.contains("serum_marker").any()
