@@ -91,7 +91,7 @@ class CoxModel(BaseEstimator):
     baseline_cumhaz_ : DataFrame ``stratum, time, cumhaz`` (days; at covariates ``center_``).
     center_ : Series of covariate means.
     time_scale_ : ``"since_entry"`` when fitted on ``stop`` (counting-process rows; predictions start at
-        ``landmark``/``start``) or ``"since_landmark"`` when fitted on a stack's ``time`` (predictions
+        ``landmark``, else at the start column) or ``"since_landmark"`` when fitted on a stack's ``time`` (predictions
         start at 0 on that clock, since the stack's rows already begin at their landmark).
     """
 
@@ -295,6 +295,12 @@ class CoxModel(BaseEstimator):
             )
         return values
 
+    def _origin(self, table: pd.DataFrame) -> np.ndarray:
+        """Days since entry from which each row is predicted: ``landmark``, else the start column, else 0."""
+        if "landmark" not in table.columns and self.start_column is not None and self.start_column in table.columns:
+            return self._numeric(table, self.start_column)
+        return prediction_origin(table)
+
     def predict_log_relative_hazard(self, table: pd.DataFrame) -> np.ndarray:
         """``(x - center)·β`` per row (the log hazard ratio against the baseline)."""
         self._check_fitted()
@@ -312,7 +318,7 @@ class CoxModel(BaseEstimator):
             raise ModelInputError(f"times must be finite days >= 0, got {days[:5].tolist()}.")
         lp = self.predict_log_relative_hazard(table)
         # a model fitted on a landmark stack ('time' from the landmark) predicts from its own origin 0
-        origin = prediction_origin(table) if self.time_scale_ == "since_entry" else np.zeros(len(table))
+        origin = self._origin(table) if self.time_scale_ == "since_entry" else np.zeros(len(table))
         strata = self._strata_of(table)
         out = np.empty((len(table), days.size))
         for level in pd.unique(strata):

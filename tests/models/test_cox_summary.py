@@ -96,6 +96,9 @@ def test_counting_process_rows_with_named_start_and_id(rossi, summary):
     np.testing.assert_allclose(split.coefficients["coef"], summary.coefficients["coef"], atol=1e-9)
     assert split.likelihood_ratio.statistic == pytest.approx(summary.likelihood_ratio.statistic, abs=1e-8)
     assert split.concordance == pytest.approx(summary.concordance, abs=1e-12)  # same risk sets, same pairs
+    plain = CoxModel(ROSSI_COLS, cluster="pid").fit(_two_rows_per_patient(rossi))
+    np.testing.assert_allclose(model.predict_risk(rows, 20.0), plain.predict_risk(_two_rows_per_patient(rossi), 20.0),
+                               rtol=1e-10)  # predicted from the named start column, as from 'start'
 
 
 def test_robust_variance_only_when_asked(rossi):
