@@ -168,10 +168,13 @@ def _covariates(saved: Any) -> list[str]:
     elif md["method"] == "complete_cases":
         lines.append("Missing values: **complete cases**. A row with a missing covariate gets no risk.")
     else:
-        lines.append(f"Missing values: **multiple imputation** with {md['imputations']} imputations. The model is "
-                     f"{len(saved.parts)} fitted model(s); the risk is the mean of their risks (below, part 1 to "
-                     f"{len(saved.parts)}). A row with a missing covariate is completed {md['imputations']} times "
-                     "by the saved imputer (chained equations) before the mean is taken; this cannot be done by hand.")
+        m, parts = md["imputations"], len(saved.parts)
+        fitted = (f"the model is {parts} fitted models, one per imputed data set, and the risk is the mean of their "
+                  f"risks (parts 1 to {parts} below)" if parts > 1 else
+                  "no covariate was missing in development, so one model was fitted")
+        lines.append(f"Missing values: **multiple imputation** with {m} imputations: {fitted}. A row to predict "
+                     f"with a missing covariate is completed {m} times by the saved imputer (chained equations) and "
+                     "the risks are averaged; that step cannot be done by hand.")
     return lines + [""]
 
 
