@@ -164,5 +164,34 @@ class SharedTrajectoryModel(BaseEstimator):
         return self.predict_curve(table, [check_horizon(horizon)])[:, 0]
 
     def summary(self) -> pd.DataFrame:
-        """The joint model's estimates (see :meth:`riskbench.models.joint_model.JointModel.summary`)."""
+        """Hazard terms of each cause in the layout of the other families' summaries.
+
+        Columns ``cause, term, coef, se, hazard_ratio, hr_lower_95, hr_upper_95, p_value``; the term of the
+        association with the current true marker value is the marker column itself (its hazard ratio is per
+        unit of the true value), that of the slope ``<marker>_slope_per_year_true``. The marker submodel and
+        the baseline hazards are in :meth:`joint_summary`.
+        """
+        from scipy.stats import norm
+
+        structure = self.model_.structure_
+        theta, cov = self.model_.theta_, self.model_.covariance_
+        rows = []
+        for c, (cause, terms) in enumerate(zip(("outcome", "competing"), structure.cause_terms)):
+            _, sl_g, sl_a = structure.layout.cause_slices(c)
+            names = [*structure.cause_covariates[c],
+                     *[self.model_.marker if t == "value" else f"{self.model_.marker}_slope_per_year_true"
+                       for t in terms]]
+            index = [*range(sl_g.start, sl_g.stop), *range(sl_a.start, sl_a.stop)]
+            for name, k in zip(names, index):
+                rows.append({"cause": cause, "term": name, "coef": theta[k], "se": np.sqrt(max(cov[k, k], 0.0))})
+        out = pd.DataFrame.from_records(rows, columns=["cause", "term", "coef", "se"])
+        z = norm.ppf(0.975)
+        out["hazard_ratio"] = np.exp(out["coef"])
+        out["hr_lower_95"] = np.exp(out["coef"] - z * out["se"])
+        out["hr_upper_95"] = np.exp(out["coef"] + z * out["se"])
+        out["p_value"] = 2 * norm.sf(np.abs(out["coef"] / out["se"]))
+        return out
+
+    def joint_summary(self) -> pd.DataFrame:
+        """Every estimate of the joint model (see :meth:`riskbench.models.joint_model.JointModel.summary`)."""
         return self.model_.summary()

@@ -78,3 +78,12 @@ def test_validation_fits_it_on_the_counting_process_table(demo_tables):
     model = fit_spec(spec, ValidationTables(stack, counting), seed=1)
     assert isinstance(model, SharedTrajectoryModel)
     assert "patient_id" in prediction_columns(spec, stack.columns)
+
+
+def test_summary_has_the_hazard_terms_in_the_common_layout(fitted):
+    """The models stage reads hazard ratios from every family's summary in one layout."""
+    table = fitted.summary()
+    outcome = table[table["cause"] == "outcome"].set_index("term")
+    assert list(outcome.index) == ["age_at_entry", "log_nodule_volume"]
+    assert np.allclose(outcome["hazard_ratio"], np.exp(outcome["coef"]))
+    assert outcome.loc["log_nodule_volume", "hr_lower_95"] > 1.0  # the generator's hazard rises with volume
