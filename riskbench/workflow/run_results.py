@@ -228,8 +228,9 @@ class FinishedRun:
         Parameters
         ----------
         model
-            A model name of the run (its cross-validated risks, as in the report) or a fitted model such as
-            :meth:`refit` returns (its risks on the run's landmark stack: apparent, so optimistic).
+            A model name of the run (its cross-validated risks on the rows every model predicts, as in the
+            report) or a fitted model such as :meth:`refit` returns (its risks on the run's landmark stack:
+            apparent, so optimistic).
         horizon
             Time from the landmark.
         name
@@ -240,11 +241,14 @@ class FinishedRun:
         stack = self.landmark_stack
         if isinstance(model, str):
             risk, label, target = self.risks(model, days), model, model_target(config, model)
+            # as in the report: the rows every model predicts (a complete-case model leaves some out)
+            keep = np.logical_and.reduce([np.isfinite(self.risks(str(m), days))
+                                          for m in self.cv_predictions["model"].unique()])
         else:
             risk = np.asarray(risk_curve(model, stack, [days]), dtype=float)[:, 0]
             label, target = name or "refit", fitted_target(model)
+            keep = np.isfinite(risk)
         time, status = stack_outcome(stack)
-        keep = np.isfinite(risk)  # a complete-case model leaves rows unpredicted
         patient = stack["patient_id"].to_numpy()[keep]
         cal = calibration_at_horizon(time[keep], status[keep], risk[keep], evaluation_time(days, time[keep]),
                                      target=target, cluster=patient, seed=config.validation.seed)

@@ -16,6 +16,7 @@ import pytest
 from riskbench.models.missing_data import MissingDataModel
 from riskbench.workflow.config import load_config
 from riskbench.workflow.model_factory import fit_model, missing_data_plan
+from riskbench.workflow.run_results import FinishedRun
 
 _SPEC = importlib.util.spec_from_file_location("analysis_builder", Path(__file__).with_name("analysis_builder.py"))
 B = importlib.util.module_from_spec(_SPEC)
@@ -73,9 +74,14 @@ def test_the_configured_plan_and_the_per_model_override_reach_the_fits(cohort: P
 def test_every_stage_runs_and_reports(cohort: Path, imaging_method: str) -> None:
     path = _config(cohort, imaging_method, imaging_method)
     run_dir = B.copy_run(cohort / "cohort_run", cohort / f"run_{imaging_method}")
-    B.run_stages(path, run_dir, LATER)
+    results = B.run_stages(path, run_dir, LATER)
     tables = run_dir / "tables"
     coefficients = pd.read_csv(tables / "coefficients_imaging_clinical.csv").set_index("term")
+    # the run read back calibrates on the same rows as the report (every model's predicted rows)
+    back = FinishedRun(run_dir, manifest={}, config=load_config(path)).calibration("clinical", "2 years")
+    stage = results["comparison"].calibration("clinical", "2 years")
+    assert back.calibration.oe_ratio == pytest.approx(stage.calibration.oe_ratio, rel=1e-12)
+    assert back.risk.size == stage.risk.size
     comparison = pd.read_csv(tables / "model_comparison.csv")
     assert len(comparison) > 0 and (tables / "discrimination.csv").exists()
     if imaging_method == "multiple_imputation":
