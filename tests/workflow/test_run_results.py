@@ -143,3 +143,19 @@ def test_the_documented_recipe_runs_on_a_finished_run(finished):
 def test_open_run_refuses_a_folder_that_is_not_a_finished_run(tmp_path):
     with pytest.raises(RunFolderError, match=r"manifest\.json"):
         open_run(tmp_path)
+
+
+def test_a_cox_model_of_the_models_stage_gives_its_summary_object(finished):
+    """A time-varying Cox model answers ``model_summary`` with its summary object (fitted on the (start, stop]
+    rows it was fitted on); the events are the counting-process rows that end in the outcome."""
+    from riskbench.models.cox_model import CoxModel
+    from riskbench.workflow.stage_result import ModelsStageResult
+
+    _, results = finished
+    cp = results["cohort"].counting_process
+    cox = CoxModel(["age_at_entry", "pack_years"]).fit(cp)
+    result = ModelsStageResult(stage="models", run_dir=Path("."), models={"tv": cox},
+                               landmark_stack=results["cohort"].landmark_stack, counting_process=cp)
+    summary = result.model_summary("tv")
+    assert summary.n_rows == len(cp) and summary.n_events == int((cp["status"] == 1).sum())
+    assert "Cox proportional-hazards model" in summary._repr_html_()
