@@ -3,11 +3,11 @@ bands, quantiles with confidence limits and the number at risk, overall or by gr
 
 The curves themselves come from :mod:`riskbench.metrics.censoring` (Kaplan–Meier with Greenwood's variance;
 Aalen–Johansen with the delta-method variance of Marubini & Valsecchi 1995, *Analysing Survival Data from Clinical
-Trials and Observational Studies*, Wiley, section 10.2). This module adds what a reader asks of them:
+Trials and Observational Studies*, Wiley). This module adds what a reader asks of them:
 
 * **Pointwise confidence band** of the curve C (S for Kaplan–Meier, F for Aalen–Johansen) from its standard error
   on a transformed scale (Kalbfleisch & Prentice 2002, *The Statistical Analysis of Failure Time Data*, 2nd ed.,
-  section 1.4):
+  Wiley):
 
   - ``"log-log"`` (default): log(−log C) ± z·SE/(C·|log C|), i.e. C^exp(±z·SE/(C·|log C|)); the default of SAS
     PROC LIFETEST, Stata's ``sts`` and lifelines (R's ``survfit`` defaults to ``"log"``);

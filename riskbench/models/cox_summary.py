@@ -6,7 +6,7 @@
   model's tie handling; unpenalised even when a ridge penalty was used in fitting).
 * Global tests of all coefficients equal to zero: likelihood ratio ``2 (log L − log L₀)``, score
   ``U(0)' I(0)⁻¹ U(0)`` and Wald ``β' V⁻¹ β``, each χ² with p degrees of freedom (Collett 2015, *Modelling
-  Survival Data in Medical Research*, 3rd ed., section 3.5). The Wald test uses the variance the summary shows
+  Survival Data in Medical Research*, 3rd ed., CRC Press). The Wald test uses the variance the summary shows
   (``variance``: model-based, or the cluster-robust sandwich of Lin & Wei 1989); the likelihood-ratio and score
   tests are model-based.
 * Harrell's concordance of the linear predictor on the fitting rows: at each event time the event row is
