@@ -10,7 +10,8 @@ Trials and Observational Studies*, Wiley). This module adds what a reader asks o
   Wiley):
 
   - ``"log-log"`` (default): log(−log C) ± z·SE/(C·|log C|), i.e. C^exp(±z·SE/(C·|log C|)); the default of SAS
-    PROC LIFETEST, Stata's ``sts`` and lifelines (R's ``survfit`` defaults to ``"log"``);
+    PROC LIFETEST, Stata's ``sts`` and lifelines (R's ``survfit`` defaults to ``"log"``; these defaults are
+    from memory of each package's documentation);
   - ``"log"``: log C ± z·SE/C (upper limit capped at 1);
   - ``"plain"``: C ± z·SE, cut to [0, 1].
 
