@@ -12,6 +12,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import assume, given, settings
+from hypothesis import strategies as st
 from lifelines import CoxPHFitter
 from lifelines.datasets import load_rossi
 from statsmodels.duration.hazard_regression import PHReg
@@ -156,3 +158,19 @@ def test_summary_refuses_another_table(rossi):
         model.fit_summary(rossi.iloc[:100])
     with pytest.raises(ModelInputError, match="stop_column="):
         CoxModel(ROSSI_COLS).fit(rossi)
+
+
+@settings(max_examples=8, deadline=None)
+@given(scale=st.floats(0.01, 100.0), shift=st.floats(-1000.0, 1000.0), seed=st.integers(0, 10_000))
+def test_global_tests_do_not_depend_on_units_or_row_order(rossi, summary, scale, shift, seed):
+    """The global tests of β = 0 are invariant under a change of a covariate's units and origin (a non-singular
+    linear reparametrisation), and under reordering rows (definition of the partial likelihood)."""
+    assume(abs(scale - 1.0) > 1e-3)
+    changed = rossi.assign(age=rossi["age"] * scale + shift).sample(frac=1.0, random_state=seed)
+    again = CoxModel(ROSSI_COLS, stop_column="week", status_column="arrest").fit(changed).fit_summary(changed)
+    for name in ("likelihood_ratio", "score", "wald"):
+        assert getattr(again, name).statistic == pytest.approx(getattr(summary, name).statistic, rel=1e-7), name
+    assert again.minus2_loglik == pytest.approx(summary.minus2_loglik, rel=1e-10)
+    assert again.concordance == pytest.approx(summary.concordance, abs=1e-12)
+    assert again.coefficients.loc["age", "coef"] == pytest.approx(summary.coefficients.loc["age", "coef"] / scale,
+                                                                  rel=1e-6)
