@@ -129,25 +129,23 @@ def not_drawn(ids: np.ndarray, drawn: np.ndarray) -> np.ndarray:
 
 class StackOnlyTables:
     """A :class:`~riskbench.validation.sources.PrecomputedTables` seen without its counting-process table, for
-    resampling specs that all fit on the landmark stack: a bootstrap draw then repeats only the stack's rows
-    (the counting-process table of 30 k patients has about four times as many). Patients, their status and the
-    stack's rows are those of the wrapped source, so every draw and every refit are unchanged."""
+    resampling specs that all fit on the landmark stack: a bootstrap draw then repeats only the stack's rows,
+    and a replicate sent to a worker process carries only the stack (the counting-process table of 30 k patients
+    has about four times as many rows). Patients, their status and the stack's rows are those of the source, so
+    every draw and every refit are unchanged."""
 
     def __init__(self, source: PrecomputedTables) -> None:
-        self._source = source
+        self._ids = source.patient_ids()
+        self._status = source.outcome_status()
         self._full = ValidationTables(source.full_tables().landmark_stack, None)
 
-    def __reduce__(self) -> tuple[type[StackOnlyTables], tuple[PrecomputedTables]]:
-        # Pickled as its source alone: a file-backed source then reaches workers as file references.
-        return (StackOnlyTables, (self._source,))
-
     def patient_ids(self) -> np.ndarray:
-        """The wrapped source's patient ids."""
-        return self._source.patient_ids()
+        """The source's patient ids."""
+        return self._ids
 
     def outcome_status(self) -> pd.Series:
-        """The wrapped source's status per patient."""
-        return self._source.outcome_status()
+        """The source's status per patient."""
+        return self._status
 
     def full_tables(self) -> ValidationTables:
         """The landmark stack of every patient (no counting-process table)."""
