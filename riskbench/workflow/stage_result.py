@@ -18,6 +18,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from matplotlib.figure import Figure
 
 from riskbench.report.html_report import table_html
 from riskbench.report.notebook_views import (
@@ -144,6 +145,25 @@ class ModelsStageResult(StageResult):
             on_intervals = cp is not None and start is not None and start in cp.columns
             return model.fit_summary(cp if on_intervals else self.landmark_stack)
         return self.tables.get(f"coefficients_{name}")
+
+    def plot_hazard_ratios(self) -> Figure:
+        """Forest plot of every model's outcome hazard ratios per step (``tables/hazard_ratios_<model>``).
+
+        Raises
+        ------
+        KeyError
+            When no model has a hazard-ratio table (e.g. only forests were fitted).
+        """
+        from riskbench.report.hazard_ratio_plot import hazard_ratio_figure
+
+        tables = {}
+        for name in self.models:
+            table = self.tables.get(f"hazard_ratios_{name}")
+            if table is not None:
+                tables[name] = table.set_index("term").dropna(subset=["hazard_ratio"])
+        if not tables:
+            raise KeyError("no model of this stage has hazard ratios (tables hazard_ratios_<model>)")
+        return hazard_ratio_figure(tables, title="Hazard ratios per step (column 'per' of the tables)")
 
     def _repr_html_(self) -> str:
         parts = []

@@ -58,6 +58,7 @@ def test_each_stage_result_holds_what_it_wrote(finished):
     np.testing.assert_allclose(risk, saved.sort_values("row")["risk"], rtol=1e-12)
     pd.testing.assert_frame_equal(models.apparent_predictions, apparent)
     assert models.model_summary("clinical") is models.tables["coefficients_clinical"]  # no Cox summary object
+    assert len(models.plot_hazard_ratios().axes[0].get_yticks()) >= len(B.IMAGING)
     with pytest.raises(KeyError, match="fitted: clinical, imaging_clinical"):
         models.model_summary("nonexistent")
 
