@@ -27,7 +27,7 @@ from riskbench.metrics.censoring import (
 )
 from riskbench.metrics.concordance import TIED_TOL
 from riskbench.metrics.inputs import ArrayLike, MetricInputError
-from riskbench.metrics.risk_sets import censoring_curve, dense_rank, horizon_inputs
+from riskbench.metrics.risk_sets import OutcomeSet, censoring_curve, dense_rank, horizon_inputs
 
 
 @dataclass(frozen=True)
@@ -67,9 +67,13 @@ class HorizonWeights:
         return np.where(t > horizon, self.at_horizon[k], np.where((status == 2) & (t <= horizon), self.at_end, 0.0))
 
 
-def horizon_weights(t, status, horizons, train_time, train_event) -> HorizonWeights:
-    """Censoring weights from the Kaplan–Meier of censoring (training data if given)."""
-    g_curve = censoring_curve(t, status, train_time, train_event)
+def horizon_weights(t, status, horizons, train_time, train_event, outcomes: OutcomeSet | None = None) -> HorizonWeights:
+    """Censoring weights from the Kaplan–Meier of censoring (training data if given; else the one of
+    ``outcomes``, the same rows as an evaluation set, when given)."""
+    if outcomes is not None and train_time is None and train_event is None:
+        g_curve = outcomes.censoring
+    else:
+        g_curve = censoring_curve(t, status, train_time, train_event)
     at_end = inverse_censoring_weights(g_curve, t, (status != 0) & (t <= horizons[-1]))
     g_h = censoring_weights_at(g_curve, horizons, what="horizons")
     if (g_h <= 0).any():
@@ -95,6 +99,7 @@ def auc_cumulative_dynamic(
     *,
     train_time: ArrayLike | None = None,
     train_event: ArrayLike | None = None,
+    outcomes: OutcomeSet | None = None,
 ) -> AUCResult:
     """Cumulative/dynamic AUC at each horizon.
 
@@ -108,13 +113,16 @@ def auc_cumulative_dynamic(
         Times (days) within [min(time), max(time)).
     train_time, train_event
         Data for the censoring Kaplan–Meier (default: the evaluation data).
+    outcomes
+        ``time`` and ``event`` as an evaluation set (:class:`riskbench.metrics.risk_sets.OutcomeSet`), whose
+        censoring curve then serves every model and horizon measured on these rows.
 
     Returns
     -------
     AUCResult
     """
     t, status, r, h = horizon_inputs(time, event, risk, horizons, probability=False)
-    weights = horizon_weights(t, status, h, train_time, train_event)
+    weights = horizon_weights(t, status, h, train_time, train_event, outcomes)
     aucs, n_cases, n_ctrl = np.empty(h.size), np.empty(h.size, dtype=int), np.empty(h.size, dtype=int)
     rank = dense_rank(r, TIED_TOL) if r.ndim == 1 else None
     for k, hz in enumerate(h):

@@ -15,7 +15,7 @@ import pandas as pd
 from riskbench.metrics.auc import HorizonWeights, horizon_weights, observed_incidence
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_status, as_time
 from riskbench.metrics.risk_direction import check_risk_direction
-from riskbench.metrics.risk_sets import horizon_inputs
+from riskbench.metrics.risk_sets import OutcomeSet, horizon_inputs
 
 
 def _ipcw_brier(t, status, risk_col, horizon, k, weights: HorizonWeights) -> float:
@@ -33,6 +33,7 @@ def brier_score(
     train_time: ArrayLike | None = None,
     train_event: ArrayLike | None = None,
     check_direction: bool = True,
+    outcomes: OutcomeSet | None = None,
 ) -> pd.DataFrame:
     """IPCW Brier score of predicted risks at each horizon, with the Kaplan–Meier null model.
 
@@ -49,6 +50,9 @@ def brier_score(
         Data for the censoring Kaplan–Meier and for the null model (default: the evaluation data).
     check_direction
         Refuse a ``risk`` that is clearly anti-concordant (a survival probability passed by mistake).
+    outcomes
+        ``time`` and ``event`` as an evaluation set (:class:`riskbench.metrics.risk_sets.OutcomeSet`), whose
+        censoring curve and null model then serve every model and horizon measured on these rows.
 
     Returns
     -------
@@ -67,9 +71,10 @@ def brier_score(
         r = r[:, None]
     if check_direction:
         check_risk_direction(t, status, r[:, -1])
-    weights = horizon_weights(t, status, h, train_time, train_event)
+    weights = horizon_weights(t, status, h, train_time, train_event, outcomes)
     if train_time is None or train_event is None:  # horizon_weights refused one without the other
-        null_curve = observed_incidence(t, status)
+        null_curve = (observed_incidence(t, status) if outcomes is None
+                      else outcomes.cached("incidence", lambda: observed_incidence(t, status)))
     else:
         tt = as_time(train_time, "train_time")
         null_curve = observed_incidence(tt, as_status(train_event, tt.size, allow_competing=True, name="train_event"))

@@ -202,10 +202,10 @@ def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, hor
     t_eval = evaluation_time(float(horizon), time)
     # Harrell's C with outcome and follow-up truncated at the horizon (either after it is censored there) and
     # Uno's C share one pass over the pairs and the evaluation set's sort and censoring curve.
-    c = concordance_at_horizon(outcomes if outcomes is not None else OutcomeSet.from_arrays(time, status), risk,
-                               t_eval)
-    auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval])
-    brier = metrics.brier_score(time, status, risk, [t_eval], check_direction=False)
+    outcomes = outcomes if outcomes is not None else OutcomeSet.from_arrays(time, status)
+    c = concordance_at_horizon(outcomes, risk, t_eval)
+    auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval], outcomes=outcomes)
+    brier = metrics.brier_score(time, status, risk, [t_eval], check_direction=False, outcomes=outcomes)
     return {
         "harrell_c": c.harrell,
         "uno_c": c.uno,

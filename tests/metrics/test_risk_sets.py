@@ -77,3 +77,22 @@ def test_censoring_curve_needs_both_training_arrays_and_horizon_inputs_check_hor
         horizon_inputs(t, status, np.ones((4, 2)) * 0.5, [2.0, 2.0], probability=True)
     _, _, r, h = horizon_inputs(t, status, np.c_[np.full(4, 0.2), np.full(4, 0.1)], [3.0, 1.5], probability=True)
     assert h.tolist() == [1.5, 3.0] and r[0].tolist() == [0.1, 0.2]
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10_000), n=st.integers(20, 300))
+def test_auc_and_brier_read_the_shared_censoring_curve_with_the_same_result(seed, n):
+    from riskbench.metrics import auc_cumulative_dynamic, brier_score
+
+    rng = np.random.default_rng(seed)
+    t = rng.exponential(100, n).round(1) + 0.1
+    status = rng.choice([0, 1, 2], n)
+    risk = rng.random(n)
+    horizon = float(np.quantile(t, 0.6))
+    assume(((status == 1) & (t <= horizon)).any() and (t > horizon).any())
+    shared = OutcomeSet.from_arrays(t, status)
+    for _ in range(2):  # the second call reads the set's cached curves
+        auc = auc_cumulative_dynamic(t, status, risk, [horizon], outcomes=shared)
+        assert auc.table.equals(auc_cumulative_dynamic(t, status, risk, [horizon]).table)
+        brier = brier_score(t, status, risk, [horizon], check_direction=False, outcomes=shared)
+        assert brier.equals(brier_score(t, status, risk, [horizon], check_direction=False))
