@@ -392,7 +392,8 @@ class JointModel(BaseEstimator):
                                 "risk_upper_95": float(np.quantile(values, 0.975))})
         return pd.DataFrame.from_records(records)
 
-    def marker_trajectory(self, table: pd.DataFrame, times: Sequence[float], level: float = 0.95) -> pd.DataFrame:
+    def marker_trajectory(self, table: pd.DataFrame, times: Sequence[float] | np.ndarray, level: float = 0.95
+                          ) -> pd.DataFrame:
         """Predicted true marker value (posterior mean and pointwise band) at ``times`` (days since entry).
 
         Each row uses its measurements up to its landmark and its survival to the landmark.

@@ -86,6 +86,13 @@ SECTIONS: tuple[Section, ...] = (
             "treats a patient's landmark rows as independent, so read it as a guide to parsimony.",
             figures=("hazard_ratios", "landmark_effects"),
             tables=("hazard_ratios_*", "landmark_effect_forms", "coefficients_*")),
+    Section("joint-model", "Joint model of a repeated marker",
+            "Only for a joint model (family shared_trajectory_joint): every estimate with its standard error from "
+            "the observed information (time in years; the marker intercept and the baseline hazards refer to the "
+            "covariate means), and Patient A of the example timelines under the model: the measured marker "
+            "values, the predicted true marker with its 95% band, and the risk within the prediction window asked "
+            "again every three months, each time from the measurements up to then.",
+            figures=("joint_patient_*",), tables=("joint_estimates_*",)),
     Section("model-checks", "Proportional hazards and the nested likelihood-ratio test",
             "Grambsch-Therneau test of proportional hazards (scaled Schoenfeld residuals against 1 - Kaplan-Meier "
             "of time, model-based variance) for each Cox model's outcome part, refitted on the rows with every "

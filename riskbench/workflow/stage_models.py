@@ -33,6 +33,7 @@ from riskbench.report.notes import Note, save_notes
 from riskbench.report.outputs import load_data, save_data, save_figure, save_table
 from riskbench.workflow.config import AnalysisConfig, ConfigError
 from riskbench.workflow.fit_diagnosis import describe_fit_failure, describe_warnings
+from riskbench.workflow.joint_outputs import joint_model_outputs
 from riskbench.workflow.model_bundle import save_run_model
 from riskbench.workflow.model_effects import PART_ERRORS, coefficient_table, effect_bands, form_tests, model_effects
 from riskbench.workflow.model_factory import fit_model
@@ -187,6 +188,11 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> ModelsStage
                 result.tables[f"coefficients_{spec.name}"] = coefficient_table(coefficients)
             else:
                 result.notes.append(f"Model {spec.name!r} ({spec.family}) has no coefficients to show.")
+            joint_tables, joint_figures, joint_notes = joint_model_outputs(config, spec.name, fit.model, cp, run_dir,
+                                                                           label_of)
+            result.tables.update(joint_tables)
+            result.figures.update(joint_figures)
+            notes += joint_notes
             said = describe_warnings(spec, fit.warnings, stack, cp, threshold=threshold)
             if said:
                 notes.append(Note("models", "fit on the whole cohort", said, model=spec.name,

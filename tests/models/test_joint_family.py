@@ -87,3 +87,37 @@ def test_summary_has_the_hazard_terms_in_the_common_layout(fitted):
     assert list(outcome.index) == ["age_at_entry", "log_nodule_volume"]
     assert np.allclose(outcome["hazard_ratio"], np.exp(outcome["coef"]))
     assert outcome.loc["log_nodule_volume", "hr_lower_95"] > 1.0  # the generator's hazard rises with volume
+
+
+def test_example_patient_figure(fitted, demo_tables):
+    """The figure draws the measured values, the predicted marker band and one risk per landmark."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from riskbench.report.joint_patient_plot import joint_patient_figure
+
+    counting, stack = demo_tables
+    pid = counting.loc[counting["status"] == 1, "patient_id"].iloc[0]
+    end = float(counting.loc[counting["patient_id"] == pid, "stop"].max())
+    figure = joint_patient_figure(fitted, stack[stack["patient_id"] == pid].head(1), end, 730.5, "Patient A")
+    top, bottom = figure.axes
+    assert "Patient A" in top.get_title() and pid not in top.get_title()
+    assert len(bottom.lines[0].get_xdata()) == len(np.arange(0.0, max(end, 1.0), 365.25 / 4))
+
+
+def test_models_stage_outputs_for_a_joint_model(fitted, demo_tables, tmp_path):
+    """The models stage writes the joint model's estimates and Patient A's figure; other models get nothing."""
+    from types import SimpleNamespace
+
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from riskbench.workflow.joint_outputs import joint_model_outputs
+
+    counting, _ = demo_tables
+    config = SimpleNamespace(seed=5, report=SimpleNamespace(example_patients=3),
+                             landmarks=SimpleNamespace(horizon_days=730.5))
+    tables, figures, notes = joint_model_outputs(config, "joint", fitted, counting, tmp_path, str)
+    assert list(tables) == ["joint_estimates_joint"] and list(figures) == ["joint_patient_joint"] and not notes
+    assert figures["joint_patient_joint"].png.exists()
+    assert joint_model_outputs(config, "other", object(), counting, tmp_path, str) == ({}, {}, [])
