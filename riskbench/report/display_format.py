@@ -3,6 +3,9 @@
 The CSV tables keep full precision (6 significant digits, compared byte for byte across runs); this module
 only turns a table, read as text, into the strings a reader sees. Every cell that does not parse as a number
 (a suppressed count such as ``"<10"``, a label, an already formatted ``"64 (58.8–69.4)"``) is shown as it is.
+An interval is stored as three numeric columns and shown as one: the fixed triples of :data:`INTERVALS`, and
+any ``<name>``, ``<name>_low``, ``<name>_high`` (a model's estimate in the comparison table, a measure in the
+performance per landmark).
 
 Conventions (**common practice** in medical journals' statistical reporting guidelines, e.g. the
 *Annals of Internal Medicine* / *NEJM* author instructions, **from memory**): p-values with two decimals,

@@ -8,7 +8,7 @@ from pathlib import Path
 import matplotlib.pyplot as plt
 import pandas as pd
 
-from riskbench.report.html_report import SECTIONS, build_report
+from riskbench.report.html_report import SECTIONS, build_report, table_html
 from riskbench.report.outputs import atomic_write_text, save_figure, save_table
 from riskbench.report.render_check import check_report_renders
 
@@ -55,3 +55,16 @@ def test_every_figure_loads_in_headless_chromium(tmp_path, chromium):
     _fake_run(tmp_path / "bad", broken_png=True)
     bad = check_report_renders(build_report(tmp_path / "bad", title="t", threshold=10), chromium)
     assert bad.broken == bad.images > 0
+
+
+def test_a_table_in_a_notebook_looks_as_in_the_report(tmp_path: Path):
+    """``table_html`` (the notebook display) passes a table through the same CSV text and formatting as the
+    report page: the same cells, escaped, formula-looking text shown as written."""
+    table = pd.DataFrame({"model": ["<b>m</b>", "=cmd()"], "horizon_years": [2.0, 2.0],
+                          "harrell_c": [0.725288, 0.7], "n_patients": ["<10", "120"]})
+    save_table(table, tmp_path, "discrimination")
+    page = build_report(tmp_path, title="t", threshold=10).read_text()
+    shown = table_html(table)
+    assert shown in page
+    assert "&lt;b&gt;m&lt;/b&gt;" in shown and "<b>" not in shown and "=cmd()" in shown
+    assert "0.725" in shown and "0.725288" not in shown and "&lt;10" in shown
