@@ -109,3 +109,18 @@ def test_an_existing_folder_is_not_replaced_without_overwrite(saved, capsys):
     assert main(["validate-model", str(bundle), "--data", str(folder / "same"), "--out", str(folder / "x"),
                  "--horizons", "two years"]) == 2
     assert "--horizons" in capsys.readouterr().err
+
+
+def test_a_hostile_model_name_is_escaped_in_the_report(saved, tmp_path):
+    """The bundle's name is user text: it reaches the page only escaped."""
+    folder, bundle, _ = saved
+    copy = tmp_path / "models"
+    copy.mkdir()
+    for path in bundle.parent.iterdir():
+        (copy / path.name).write_bytes(path.read_bytes())
+    doc = json.loads((copy / bundle.name).read_text())
+    doc["name"] = '<script>alert("x")</script>'
+    (copy / bundle.name).write_text(json.dumps(doc))
+    page, _ = validate_saved_model(copy / bundle.name, tmp_path / "out", data=folder / "same", resamples=0)
+    html = page.read_text(encoding="utf-8")
+    assert "<script" not in html and "&lt;script&gt;" in html
