@@ -262,8 +262,8 @@ class ComparisonStageResult(StageResult):
 
 
 def _html_table(table: pd.DataFrame) -> str:
-    """The table as an HTML ``<table>`` whose headers and cells are all escaped text."""
-    return table.to_html(index=False, escape=True, na_rep="", border=0)
+    """The table as the report shows it: an HTML ``<table>`` of escaped text, numbers rounded for reading."""
+    return table_html(table)
 
 
 def show(result: StageResult) -> None:
