@@ -99,6 +99,7 @@ class StudyFacts:
     unmet_sample_size: tuple[str, ...] = ()  # models that miss a Riley et al. criterion
     ph_violations: tuple[str, ...] = ()  # models whose global proportional-hazards test has p < 0.05
     notes: tuple[str, ...] = field(default=())  # extra sentences for the limitations
+    develop_before: str | None = None  # temporal split: ISO date ([validation] develop_before)
 
 
 _FAMILY_WORDS = {
@@ -189,14 +190,25 @@ def methods_paragraphs(f: StudyFacts) -> list[str]:
                   "Brier score and net benefit treat a competing event before the horizon as a known non-outcome, "
                   "and calibration compares each model's risk with the observed risk of the same kind (the "
                   "Aalen–Johansen cumulative incidence, or 1 − Kaplan–Meier with competing events censored for a "
-                  f"cause-specific model).{optimism}{pair}")
+                  f"cause-specific model).{optimism}{pair}{_temporal(f)}")
     return [participants, predictors, question, models, validation]
+
+
+def _temporal(f: StudyFacts) -> str:
+    if not f.develop_before:
+        return ""
+    return (f" In a temporal validation every model is also refitted on the patients who entered before "
+            f"{f.develop_before} and evaluated on those who entered on or after it.")
 
 
 def limitations_paragraph(f: StudyFacts) -> str:
     """The limitations that follow from the configuration and the data, one sentence each."""
     out = ["The validation is internal (cross-validation and bootstrap on the development cohort); performance "
-           "in another population, period or setting is not known until the model is validated there."]
+           "in another population, period or setting is not known until the model is validated there."
+           if not f.develop_before else
+           f"Apart from the temporal validation on the patients entering from {f.develop_before} on, the validation "
+           "is internal; performance in another population or setting is not known until the model is validated "
+           "there."]
     if len(f.landmarks_days) > 1:
         out.append("Pooled measures count a patient once per landmark; the rows of one patient are correlated, "
                    "so intervals come from resampling patients, not rows.")

@@ -225,6 +225,7 @@ def study_facts(config: AnalysisConfig, patients: pd.DataFrame, stack: pd.DataFr
         reference=pair[1] if pair else None, candidate=pair[0] if pair else None,
         threshold=config.report.small_count_threshold, nri=nri_kind(None),
         unmet_sample_size=unmet, ph_violations=_global_ph_violations(run_dir),
+        develop_before=config.validation.develop_before,
     )
 
 

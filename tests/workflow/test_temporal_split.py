@@ -84,3 +84,21 @@ def test_models_are_fitted_on_the_earlier_patients_and_scored_on_the_later(run):
     by_hand = horizon_measures(later["time"].to_numpy(float), later["status"].to_numpy(int), np.asarray(risk),
                                730.5)["harrell_c"]
     assert pooled.loc["imaging_clinical", "estimate"] == pytest.approx(by_hand, abs=1e-12)
+
+
+def test_methods_and_limitations_state_the_split():
+    """The comparison stage's methods and limitations drafts say that a temporal validation was done."""
+    import dataclasses
+
+    from riskbench.report.methods_text import StudyFacts, limitations_paragraph, methods_paragraphs
+
+    facts = StudyFacts(
+        n_patients=800, n_outcomes=90, n_competing=40, n_censored=670, follow_up_days=(1000.0, 700.0, 1400.0),
+        time_varying=("log nodule volume",), static=("age at entry",), max_carry_days=365.25, lookback_days=180.0,
+        landmarks_days=(0.0, 182.625), horizon_days=730.5, report_horizons_days=(730.5,), n_landmark_rows=1500,
+        models=(), folds=5, bootstrap_resamples=200, optimism=True, reference=None, candidate=None, threshold=10)
+    plain = " ".join(methods_paragraphs(facts)) + limitations_paragraph(facts)
+    assert "temporal" not in plain
+    split = dataclasses.replace(facts, develop_before=CUTOFF)
+    assert f"entered before {CUTOFF}" in " ".join(methods_paragraphs(split))
+    assert f"temporal validation on the patients entering from {CUTOFF}" in limitations_paragraph(split)
