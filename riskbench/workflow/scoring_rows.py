@@ -3,8 +3,8 @@
 At common landmarks the rows are the cohort stage's own landmark stack (the run's rows exactly). At a calendar
 date every patient has its own s (days from entry to the date); the row is the counting-process row with
 ``start <= s < stop`` and the clocks (staleness, days since exam, current age) advanced from ``start`` to s,
-the rule of :func:`riskbench.cohort.landmark.landmark_sql`. A patient whose follow-up ended at or before s has
-no row.
+the rule of :func:`riskbench.cohort.landmark.landmark_sql`. A patient whose follow-up ended before s (or at s with
+an event) has no row.
 """
 
 from __future__ import annotations
@@ -56,9 +56,12 @@ def rows_at_dates(cohort: Cohort, at_date: Any) -> pd.DataFrame:
     """Covariates as known at a calendar date (one date, or ``{patient_id: date}``) for each patient.
 
     Returns ``patient_id, landmark`` (days from entry to the date), ``prediction_date`` and the covariate
-    columns; patients not at risk at their date (follow-up ended, or the date before entry) are left out.
+    columns. A patient whose follow-up ends on the date without an event (last seen that day, e.g. the day the
+    data were extracted) gets the values known then; a value dated that very day is not among them (the cohort
+    rule: a value dated at the end of follow-up never enters a row). Patients whose follow-up ended before the
+    date, or with an event on it, and dates before entry are left out.
     """
-    patients = cohort.patients[["patient_id", "entry_date", "end_days"]].copy()
+    patients = cohort.patients[["patient_id", "entry_date", "end_days", "end_status"]].copy()
     if isinstance(at_date, Mapping):
         dates = {str(k): parse_date(v) for k, v in at_date.items()}
         patients = patients[patients["patient_id"].astype(str).isin(dates)]
@@ -67,10 +70,16 @@ def rows_at_dates(cohort: Cohort, at_date: Any) -> pd.DataFrame:
         patients["prediction_date"] = parse_date(at_date)
     entry = pd.to_datetime(patients["entry_date"])
     patients["landmark"] = (pd.to_datetime(patients["prediction_date"]) - entry).dt.days.astype(float)
-    patients = patients[(patients["landmark"] >= 0) & (patients["landmark"] < patients["end_days"])]
+    # still followed at s: follow-up ends after s, or ends at s without an outcome or competing event (last seen
+    # on the prediction date: the row ending there gives the values known at s)
+    last_seen = (patients["landmark"] == patients["end_days"]) & (patients["end_status"] == 0)
+    patients = patients[(patients["landmark"] >= 0) & ((patients["landmark"] < patients["end_days"]) | last_seen)]
     cp = cohort.counting_process
-    merged = cp.merge(patients[["patient_id", "landmark", "prediction_date"]], on="patient_id", how="inner")
-    merged = merged[(merged["start"] <= merged["landmark"]) & (merged["landmark"] < merged["stop"])]
+    merged = cp.merge(patients[["patient_id", "landmark", "prediction_date", "end_days"]], on="patient_id",
+                      how="inner")
+    inside = (merged["start"] <= merged["landmark"]) & (merged["landmark"] < merged["stop"])
+    at_end = (merged["stop"] == merged["landmark"]) & (merged["stop"] == merged["end_days"])
+    merged = merged[inside | at_end]
     advance = merged["landmark"] - merged["start"]
     for column in _clock_columns(cohort.spec):
         if column in merged.columns:

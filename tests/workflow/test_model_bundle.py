@@ -216,3 +216,17 @@ def test_inside_a_run_folder_a_changed_bundle_is_refused_by_the_manifest(run: Pa
     bundle.write_text(json.dumps(doc, indent=1))
     with pytest.raises(ModelIntegrityError, match="manifest"):
         load_model(bundle)
+
+
+def test_a_patient_last_seen_on_the_prediction_date_is_scored_one_with_an_event_then_is_not(run: Path) -> None:
+    saved = load_model(_bundle(run, "clinical_cox"))
+    data = run / "data"
+    outcomes = pd.read_csv(data / "outcomes.csv", dtype={"patient_id": str})
+    last = outcomes.sort_values("date").groupby("patient_id").tail(1)
+    dates = dict(zip(last["patient_id"], last["date"]))
+    rows = saved.build_tables(data / "patients.csv", data / "measurements.csv", data / "outcomes.csv", at_date=dates)
+    scored = set(rows["patient_id"].astype(str))
+    censored = set(last.loc[last["kind"] == "end_of_follow_up", "patient_id"])
+    events = set(last.loc[last["kind"] != "end_of_follow_up", "patient_id"])
+    assert len(censored & scored) >= 0.9 * len(censored) and not events & scored
+    assert rows[["age_at_entry", "pack_years"]].notna().all().all()
