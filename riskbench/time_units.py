@@ -8,10 +8,10 @@ and horizons written in months or years agree with each other exactly.
 
 from __future__ import annotations
 
-from riskbench.errors import RiskbenchError
-
 import math
 import re
+
+from riskbench.errors import RiskbenchError
 
 DAYS_PER_YEAR: float = 365.25
 DAYS_PER_MONTH: float = DAYS_PER_YEAR / 12

@@ -15,7 +15,6 @@ import re
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Union
 
 import duckdb
 import numpy as np
@@ -27,7 +26,7 @@ from riskbench.cohort.errors import CohortInputError
 from riskbench.cohort.sources import TableSource
 from riskbench.cohort.spec import CohortSpec
 
-Source = Union[str, Path, pd.DataFrame, TableSource]
+Source = str | Path | pd.DataFrame | TableSource
 #: Name of the row-position column added to a DataFrame's Arrow copy (unlikely to clash with a source column).
 ROW_NUMBER = "__riskbench_row_number"
 

@@ -120,7 +120,7 @@ class _Spoiler:
         self.info: dict[str, int] = {}
 
     def size(self, defect: str) -> int:
-        return max(1, int(round(RATES[defect] * self.n)))
+        return max(1, round(RATES[defect] * self.n))
 
     def take_patients(self, defect: str, eligible: np.ndarray | None = None) -> np.ndarray:
         """Reserve patients for one defect (disjoint from every other defect)."""

@@ -17,12 +17,12 @@ from pathlib import Path
 import matplotlib
 
 matplotlib.use("Agg")  # figures are written to files; no display needed
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from lifelines import KaplanMeierFitter  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import pandas as pd
+from lifelines import KaplanMeierFitter
 
-from riskbench.demo.parameters import DAYS_PER_YEAR  # noqa: E402
+from riskbench.demo.parameters import DAYS_PER_YEAR
 
 STATUS = {"outcome": 1, "competing": 2, "end_of_follow_up": 0}
 

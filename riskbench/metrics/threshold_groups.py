@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+
 @dataclass(frozen=True)
 class ThresholdSplit:
     """Per threshold (ascending): subject counts and observed risk by the horizon above and below it."""

@@ -18,7 +18,6 @@ from riskbench.metrics.inputs import ArrayLike, MetricInputError
 from riskbench.metrics.threshold_groups import split_by_thresholds
 
 
-
 class TargetUnreachable(MetricInputError):
     """No candidate risk threshold meets the triage target on these data (a result, not a broken input).
 

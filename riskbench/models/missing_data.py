@@ -50,8 +50,8 @@ from sklearn.base import BaseEstimator, clone
 from riskbench.models.imputation import (
     PredictionImputer,
     check_imputable,
-    impute_training_rows,
     imputation_seeds,
+    impute_training_rows,
     outcome_predictors,
 )
 from riskbench.models.risk_contract import (

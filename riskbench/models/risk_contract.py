@@ -28,8 +28,6 @@ cumulative incidence of the outcome by the Aalen–Johansen product-integral (:f
 
 from __future__ import annotations
 
-from riskbench.errors import RiskbenchError
-
 from collections.abc import Sequence
 from typing import Protocol, runtime_checkable
 
@@ -37,21 +35,23 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
+from riskbench.errors import RiskbenchError
+
 __all__ = [
+    "MISSING_DATA_KEYS",
     "ModelInputError",
     "RiskModel",
-    "MISSING_DATA_KEYS",
     "check_covariates",
-    "covariate_values",
-    "describe_rows",
-    "source_variable",
-    "check_stack_outcome",
     "check_horizon",
+    "check_stack_outcome",
+    "covariate_values",
     "cumulative_incidence",
     "cumulative_incidence_at",
+    "describe_rows",
     "prediction_origin",
     "risk_curve",
     "risk_from_cumulative_hazard",
+    "source_variable",
     "step_function_at",
 ]
 

@@ -95,7 +95,7 @@ def baseline_table(
         binary = _is_binary(merged[cov])
         cells, hide = _covariate_counts(values, sizes, hidden_groups, binary, threshold)
 
-        def counts(category: str, percent: bool) -> dict[str, str]:
+        def counts(category: str, percent: bool, cells: dict = cells, hide: set | None = hide) -> dict[str, str]:
             out = {}
             for n in names:
                 value = cells[(category, n)]

@@ -13,12 +13,12 @@ from __future__ import annotations
 import matplotlib
 
 matplotlib.use("Agg", force=False)
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
 
-from riskbench.metrics.calibration import Calibration  # noqa: E402
-from riskbench.report.suppression import format_count  # noqa: E402
-from riskbench.time_units import format_duration  # noqa: E402
+from riskbench.metrics.calibration import Calibration
+from riskbench.report.suppression import format_count
+from riskbench.time_units import format_duration
 
 #: What the figure says each target is compared with.
 _COMPARISON = {

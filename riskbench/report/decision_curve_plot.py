@@ -6,10 +6,10 @@ from __future__ import annotations
 import matplotlib
 
 matplotlib.use("Agg", force=False)
-import matplotlib.pyplot as plt  # noqa: E402
-import pandas as pd  # noqa: E402
+import matplotlib.pyplot as plt
+import pandas as pd
 
-from riskbench.time_units import format_duration  # noqa: E402
+from riskbench.time_units import format_duration
 
 
 def decision_curve_figure(table: pd.DataFrame, *, horizon_days: float | None = None, model_name: str = "model",

@@ -8,11 +8,11 @@ import matplotlib
 
 matplotlib.use("Agg", force=False)
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import pandas as pd
 
-from riskbench.report.log_axis import readable_log_ticks  # noqa: E402
+from riskbench.report.log_axis import readable_log_ticks
 
 __all__ = ["hazard_ratio_figure"]
 

@@ -22,8 +22,8 @@ from pathlib import Path
 import matplotlib
 
 matplotlib.use("Agg")  # figures are files; never open a window
-import matplotlib.pyplot as plt  # noqa: E402
-import pandas as pd  # noqa: E402
+import matplotlib.pyplot as plt
+import pandas as pd
 
 FIGURES = "figures"
 TABLES = "tables"
@@ -124,7 +124,7 @@ def neutralise_csv_cell(value: object) -> object:
     non-text value are left alone. A cell that already starts with ``'`` gets a second one, so that
     :func:`restore_csv_cell` gives every cell back exactly.
     """
-    if isinstance(value, str) and (value.startswith(FORMULA_STARTS) and not _FLOAT_TEXT.match(value)
+    if isinstance(value, str) and ((value.startswith(FORMULA_STARTS) and not _FLOAT_TEXT.match(value))
                                    or value.startswith("'")):
         return "'" + value
     return value

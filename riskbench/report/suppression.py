@@ -12,6 +12,7 @@ cells until no small count follows from the shown ones; counts of the same peopl
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Hashable, Iterable, Iterator, Mapping, Sequence
 
 import numpy as np
@@ -30,7 +31,7 @@ def format_count(n: float | int, threshold: int) -> str:
     """
     if n is None or (isinstance(n, float) and np.isnan(n)):
         return ""
-    n = int(round(float(n)))
+    n = round(float(n))
     if 0 < n < threshold:
         return f"<{threshold}"
     return str(n)
@@ -38,7 +39,7 @@ def format_count(n: float | int, threshold: int) -> str:
 
 def is_suppressed(n: float | int, threshold: int) -> bool:
     """True when the count would be hidden."""
-    return 0 < int(round(float(n))) < threshold
+    return 0 < round(float(n)) < threshold
 
 
 def complementary_hidden(counts: np.ndarray, threshold: int) -> np.ndarray:
@@ -104,7 +105,7 @@ def suppress_counts(
             elif hide[i, j]:
                 texts.append(f"<{threshold}" if v < threshold else "suppressed")
             else:
-                texts.append(str(int(round(v))))
+                texts.append(str(round(v)))
         out[col] = texts
     return out
 
@@ -226,7 +227,7 @@ def coarsen_sequence(counts: Sequence[float], threshold: int) -> list[str]:
     disclosure control).
     """
     values = [float(v) for v in counts]
-    small_step = any(0 < abs(a - b) < threshold for a, b in zip(values, values[1:]))
+    small_step = any(0 < abs(a - b) < threshold for a, b in itertools.pairwise(values))
     out = []
     for v in values:
         if np.isnan(v):
@@ -236,7 +237,7 @@ def coarsen_sequence(counts: Sequence[float], threshold: int) -> list[str]:
         elif small_step and v > 0:
             out.append(f"~{round_to_base(v, threshold)}")
         else:
-            out.append(str(int(round(v))))
+            out.append(str(round(v)))
     return out
 
 

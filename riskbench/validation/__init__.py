@@ -23,7 +23,13 @@ from riskbench.validation.model_specs import FAMILIES, ModelSpec, build_estimato
 from riskbench.validation.optimism import bootstrap_optimism
 from riskbench.validation.parallel import ExecutionConfig, replicate_seeds, run_replicates
 from riskbench.validation.performance import evaluate_model, evaluate_risks
-from riskbench.validation.plans import Split, bootstrap_patient_draw, patient_folds, patient_outcome_status, temporal_split
+from riskbench.validation.plans import (
+    Split,
+    bootstrap_patient_draw,
+    patient_folds,
+    patient_outcome_status,
+    temporal_split,
+)
 from riskbench.validation.reclassification import (
     IntegratedDiscrimination,
     NetReclassification,

@@ -32,8 +32,8 @@ from typing import Any
 
 from riskbench.config_problems import Problem
 from riskbench.errors import RiskbenchError
-from riskbench.models.missing_data import MissingDataPlan  # noqa: F401 - one definition, re-exported
-from riskbench.time_units import DAYS_PER_YEAR  # noqa: F401 - re-exported for the stage modules
+from riskbench.models.missing_data import MissingDataPlan
+from riskbench.time_units import DAYS_PER_YEAR
 
 MODEL_FAMILIES: tuple[str, ...] = ("landmark_cox", "time_varying_cox", "forest")
 

@@ -14,11 +14,10 @@ Epidemiol 48:1503-1510; **common practice**).
 
 from __future__ import annotations
 
+import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
-
-import re
 
 import numpy as np
 import pandas as pd

@@ -55,7 +55,7 @@ def bind_output_pipe_to_ipc(folder: str) -> None:
         self._pipe_in = ZMQStream(pipe_in, self.io_loop)
         self._pipe_in.on_recv(self._handle_pipe_msg)
 
-    def setup_pipe_out(self):  # noqa: ANN202 - ipykernel's signature
+    def setup_pipe_out(self):
         ctx = zmq.Context()
         pipe_out = ctx.socket(zmq.PUSH)
         pipe_out.linger = 3000

@@ -19,7 +19,7 @@ from riskbench.models.rubin import pool_estimates
 from riskbench.report.effects import EffectStep, effect_steps, scaled_hazard_ratios
 from riskbench.validation.landmark_form import form_comparisons, landmark_form_test
 
-__all__ = ["PART_ERRORS", "coefficient_table", "landmark_models", "effect_bands", "form_tests", "model_effects"]
+__all__ = ["PART_ERRORS", "coefficient_table", "effect_bands", "form_tests", "landmark_models", "model_effects"]
 
 #: Errors that make one effect part fail without stopping the stage.
 PART_ERRORS: tuple[type[BaseException], ...] = (ValueError, ArithmeticError, np.linalg.LinAlgError)

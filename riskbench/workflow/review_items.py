@@ -23,8 +23,14 @@ from riskbench.metrics.follow_up import reverse_km_follow_up
 from riskbench.metrics.sample_size import DEFAULT_R2_FRACTION, max_cox_snell_r2, riley_survival_criteria
 from riskbench.models.cox_diagnostics import cox_refit, proportional_hazards_test
 from riskbench.models.family_registry import family as family_of
-from riskbench.report.methods_text import (ModelFacts, StudyFacts, limitations_paragraph, methods_paragraphs,
-                                           prediction_kind, shown_parts)
+from riskbench.report.methods_text import (
+    ModelFacts,
+    StudyFacts,
+    limitations_paragraph,
+    methods_paragraphs,
+    prediction_kind,
+    shown_parts,
+)
 from riskbench.report.notes import Note
 from riskbench.report.outputs import TABLES, atomic_write_text, load_data, save_table
 from riskbench.report.reporting_items import reporting_items_table

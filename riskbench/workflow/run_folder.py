@@ -13,6 +13,7 @@ on this host (stale: the run was killed) is taken over, with a message.
 
 from __future__ import annotations
 
+import contextlib
 import errno
 import json
 import os
@@ -223,19 +224,15 @@ class RunLock:
             else:
                 self._say(f"taking over the stale lock of process {holder['pid']} (started "
                           f"{holder.get('started_utc')}, no longer running) on {self.out}")
-            try:
+            with contextlib.suppress(FileNotFoundError):
                 self.path.unlink()
-            except FileNotFoundError:
-                pass
         raise RunLocked(f"could not lock {self.out}: another run keeps taking the lock {self.path}")
 
     def release(self) -> None:
         holder = _read_lock(self.path)
         if holder is not None and holder.get("token") == self._record["token"]:
-            try:
+            with contextlib.suppress(FileNotFoundError):
                 self.path.unlink()
-            except FileNotFoundError:
-                pass
 
     def __enter__(self) -> RunLock:
         return self.acquire()

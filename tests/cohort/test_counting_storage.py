@@ -10,6 +10,7 @@ import pandas as pd
 import pytest
 
 from riskbench.cohort import CohortSpec, VariableSpec, build_cohort, contract, counting
+
 # Private on purpose: which reading path a frame takes (numbered Arrow table or DuckDB reading the frame
 # itself) is an internal choice with no public handle; the public result is the same either way.
 from riskbench.cohort.reading import _numbered_arrow

@@ -7,7 +7,8 @@ import math
 import pandas as pd
 import pytest
 
-from riskbench.cohort import CohortSpec, RowState as S, VariableSpec, build_cohort
+from riskbench.cohort import CohortSpec, VariableSpec, build_cohort
+from riskbench.cohort import RowState as S
 
 SPEC = CohortSpec(variables=(VariableSpec("vol", "mm3", {"cm3": 1000.0}, 1, 1e5, "log"),), lookback_days=30,
                   static=("sex_male",), current_age=False)

@@ -8,7 +8,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from riskbench.cohort import CohortSpec, RowState as S, SpecError, StaticSpec, VariableSpec, build_cohort
+from riskbench.cohort import CohortSpec, SpecError, StaticSpec, VariableSpec, build_cohort
+from riskbench.cohort import RowState as S
 
 NAN = float("nan")
 

@@ -78,7 +78,7 @@ def test_invariants(data) -> None:
         rows = ledger[ledger.table == table].row_number.tolist()
         assert sorted(rows) == list(range(1, len(frame) + 1))
     flow = cohort.flow
-    for table, g in flow.groupby("table"):
+    for _table, g in flow.groupby("table"):
         assert g.excluded.sum() + g[g.state == "used"].remaining.iloc[0] == g[g.state == "read"].remaining.iloc[0]
 
     for pid, rows in cp.groupby("patient_id"):

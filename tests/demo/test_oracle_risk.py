@@ -100,7 +100,7 @@ def test_true_risk_with_competing_death_matches_adaptive_quadrature():
         def h0(t):
             return 0.3 * (t / 365.25) ** 0.7
 
-        def h2(t):
+        def h2(t, a0=a0):
             return 4e-4 / 0.1 * np.exp(0.1 * a0) * np.expm1(0.1 * t / 365.25)
 
         def density(t, s=row.landmark):

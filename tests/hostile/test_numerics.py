@@ -142,9 +142,9 @@ def test_separation_is_phrased_as_a_covariate_that_separates(tiny):
 
 def test_recorded_warnings_sort_by_kind():
     with recorded_warnings() as log:
-        warnings.warn("overflow encountered in exp", RuntimeWarning)
-        warnings.warn(MonotoneLikelihoodWarning("runs off", ["x:s"]))
-        warnings.warn("something else", UserWarning)
+        warnings.warn("overflow encountered in exp", RuntimeWarning, stacklevel=1)
+        warnings.warn(MonotoneLikelihoodWarning("runs off", ["x:s"]), stacklevel=1)
+        warnings.warn("something else", UserWarning, stacklevel=1)
     assert [(w.kind, w.terms) for w in log] == [("numerical", ()), ("separation", ("x:s",)), ("other", ())]
     assert np.array_equal(count_warnings([("m", log)])["kind"].to_numpy(), ["separation", "numerical", "other"])
 

@@ -17,7 +17,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from riskbench.cohort import CohortInputError, CohortSpec, RowState as S, TableSource, VariableSpec, build_cohort
+from riskbench.cohort import CohortInputError, CohortSpec, TableSource, VariableSpec, build_cohort
+from riskbench.cohort import RowState as S
 
 SPEC = CohortSpec(variables=(VariableSpec("vol", unit="mm3", plausible_min=1, plausible_max=1e6),),
                   static=("sex_male", "pack_years", "age_at_entry"), lookback_days=30)
@@ -291,7 +292,7 @@ def test_every_line_is_accounted_for(tmp_path_factory, mutations, encoding, acce
     cohort = _build(sources)
     named = {str(s) for s in S}
     for table, n in records.items():
-        rows = cohort.ledger.query("table == @table")
+        rows = cohort.ledger[cohort.ledger["table"] == table]
         assert len(rows) == n  # input lines = used + excluded
         assert rows.state.isin(named).all()
         assert rows.row_number.is_unique and rows.row_number.min() >= 2

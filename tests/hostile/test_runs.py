@@ -270,7 +270,7 @@ def _mkdir_refused(folder: Path) -> bool:
 
 def test_read_only_parent_is_one_line_exit_2(project, tmp_path, capsys):
     parent = _unwritable_parent(tmp_path)
-    with pytest.raises(RunLocationError, match="cannot write the run folder at .*: (permission denied|read-only)"):
+    with pytest.raises(RunLocationError, match=r"cannot write the run folder at .*: (permission denied|read-only)"):
         run(project, parent / "run", [("one", "one.ipynb")])
     capsys.readouterr()
     assert main(["run-analysis", str(project["config"]), "--out", str(parent / "run")]) == 2
@@ -349,7 +349,7 @@ def _kill_when(proc: subprocess.Popen, ready, sig: int, what: str) -> tuple[int,
         _wait_for(lambda: ready() or proc.poll() is not None, timeout=120, what=what)
         assert proc.poll() is None, f"the run ended before {what}: {proc.communicate()}"
         proc.send_signal(sig)
-        out, err = proc.communicate(timeout=60)
+        _out, err = proc.communicate(timeout=60)
     finally:
         if proc.poll() is None:
             proc.kill()

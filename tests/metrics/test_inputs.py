@@ -38,7 +38,7 @@ def test_errors_are_value_errors():
 
 
 def test_no_outcome_before_horizon():
-    with pytest.raises(MetricInputError, match="no outcome .* at or before the horizon 0.5"):
+    with pytest.raises(MetricInputError, match=r"no outcome .* at or before the horizon 0\.5"):
         calibration_at_horizon(np.r_[T, 0.2], np.r_[E, 0], np.r_[R, 0.9], 0.5)
 
 

@@ -10,11 +10,11 @@ names what a cause-specific 1 − S is compared with.
 import matplotlib
 
 matplotlib.use("Agg")
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
+import numpy as np
+import pytest
 
-from riskbench.metrics import calibration_at_horizon  # noqa: E402
-from riskbench.report.calibration_plot import axis_top, calibration_figure, plain_text  # noqa: E402
+from riskbench.metrics import calibration_at_horizon
+from riskbench.report.calibration_plot import axis_top, calibration_figure, plain_text
 
 
 @pytest.fixture(scope="module")
@@ -40,7 +40,7 @@ def test_figure_draws_the_computed_curve_groups_and_histogram(cohort):
     cal = calibration_at_horizon(t, s, risk, 5.0, n_boot=10)
     fig = calibration_figure(cal, risk, model_name="true model", min_group_size=1)
     main, hist, side = fig.axes
-    line = [ln for ln in main.get_lines() if "smoothed" in str(ln.get_label())][0]
+    line = next(ln for ln in main.get_lines() if "smoothed" in str(ln.get_label()))
     top = axis_top(risk)
     inside = cal.curve[cal.curve["predicted"] <= top]
     np.testing.assert_allclose(line.get_ydata(), inside["observed"])

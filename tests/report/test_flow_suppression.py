@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import itertools
+
 import pandas as pd
 import pytest
 from hypothesis import assume, given
@@ -77,7 +79,7 @@ def test_no_hidden_count_follows_from_the_shown_ones(start, removed, cuts, thres
     # The groups split the included patients (cut at random points).
     included = start - sum(removed)
     edges = [0, *sorted(round(c * included) for c in cuts), included]
-    groups = [b - a for a, b in zip(edges[:-1], edges[1:])]
+    groups = [b - a for a, b in itertools.pairwise(edges)]
     flow = _flow(start, removed, groups)
     shown = suppress_flow(flow, threshold)
     main = shown[shown["level"] == 0].reset_index(drop=True)

@@ -8,6 +8,7 @@ and solves every sum with a single unknown, again and again; the true counts com
 
 from __future__ import annotations
 
+import itertools
 import re
 
 import numpy as np
@@ -156,7 +157,7 @@ def test_no_small_difference_between_consecutive_landmark_counts(case):
         values = [int(v.lstrip("~")) if re.fullmatch(r"~?\d+", v) else None for v in table[column]]
         for v in values:
             assert v is None or not 0 < v < threshold
-        for a, b in zip(values, values[1:]):
+        for a, b in itertools.pairwise(values):
             if a is not None and b is not None:
                 assert a == b or abs(a - b) >= threshold, (column, values)
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import itertools
+
 import pandas as pd
 import pytest
 
@@ -29,7 +31,7 @@ def test_log_ticks_are_plain_numbers_that_do_not_overlap(low, high):
     boxes = sorted((t.get_window_extent() for t in ax.get_xticklabels() if t.get_text() and t.get_visible()),
                    key=lambda b: b.x0)
     shown = [b for b in boxes if ax.bbox.x0 - 1 <= (b.x0 + b.x1) / 2 <= ax.bbox.x1 + 1]
-    assert all(a.x1 <= b.x0 for a, b in zip(shown, shown[1:]))  # no two labels overlap
+    assert all(a.x1 <= b.x0 for a, b in itertools.pairwise(shown))  # no two labels overlap
     assert not any(t.get_text() for t in ax.xaxis.get_minorticklabels())
 
 

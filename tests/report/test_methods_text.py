@@ -13,8 +13,15 @@ import html
 import pandas as pd
 
 from riskbench.report.html_report import Section, build_report
-from riskbench.report.methods_text import (CAUSE_SPECIFIC, CUMULATIVE_INCIDENCE, ModelFacts, StudyFacts,
-                                           limitations_paragraph, methods_paragraphs, prediction_kind)
+from riskbench.report.methods_text import (
+    CAUSE_SPECIFIC,
+    CUMULATIVE_INCIDENCE,
+    ModelFacts,
+    StudyFacts,
+    limitations_paragraph,
+    methods_paragraphs,
+    prediction_kind,
+)
 from riskbench.report.outputs import atomic_write_text, save_table
 from riskbench.report.reporting_items import ITEMS, reporting_items_table
 from riskbench.time_units import DAYS_PER_YEAR

@@ -3,11 +3,11 @@
 import matplotlib
 
 matplotlib.use("Agg")
-import numpy as np  # noqa: E402
-import pytest  # noqa: E402
+import numpy as np
+import pytest
 
-from riskbench.metrics import net_benefit  # noqa: E402
-from riskbench.report.decision_curve_plot import decision_curve_figure  # noqa: E402
+from riskbench.metrics import net_benefit
+from riskbench.report.decision_curve_plot import decision_curve_figure
 
 
 @pytest.fixture(scope="module")

@@ -8,10 +8,10 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import pandas as pd  # noqa: E402
+import pandas as pd
 
-from riskbench.report.flow_diagram import flow_figure  # noqa: E402
-from riskbench.report.timelines import timeline_figure  # noqa: E402
+from riskbench.report.flow_diagram import flow_figure
+from riskbench.report.timelines import timeline_figure
 
 
 def _cp() -> pd.DataFrame:

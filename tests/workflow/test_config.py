@@ -69,14 +69,14 @@ def test_unknown_top_level_key_and_unknown_family_are_rejected():
         parse(data)
     data = demo_dict()
     data["models"][0]["family"] = "deep_net"
-    with pytest.raises(ConfigError, match="family = 'deep_net'.*'landmark_cox', 'time_varying_cox', 'forest'"):
+    with pytest.raises(ConfigError, match=r"family = 'deep_net'.*'landmark_cox', 'time_varying_cox', 'forest'"):
         parse(data)
 
 
 def test_report_horizon_beyond_the_landmark_horizon_is_rejected():
     data = demo_dict()
     data["report"]["report_horizons"] = ["1 year", "3 years"]
-    with pytest.raises(ConfigError, match="report_horizons.*no longer than \\[landmarks\\] prediction_window"):
+    with pytest.raises(ConfigError, match=r"report_horizons.*no longer than \[landmarks\] prediction_window"):
         parse(data)
 
 
