@@ -22,6 +22,7 @@ from matplotlib.figure import Figure
 
 from riskbench.report.html_report import table_html
 from riskbench.report.notebook_views import (
+    CAUTION_TEXT,
     CalibrationView,
     CohortSummary,
     ComparisonView,
@@ -51,6 +52,7 @@ class StageResult:
 
 
 def _overview_html(result: StageResult, body: str = "") -> str:
+    caution = html.escape(CAUTION_TEXT)
     notes = "".join(f"<li>{html.escape(n)}</li>" for n in result.notes)
     written = ", ".join(html.escape(f"tables/{safe_file_stem(n)}.csv") for n in result.tables)
     drawn = ", ".join(html.escape(f"figures/{f.png.name}") for f in result.figures.values())
@@ -58,7 +60,8 @@ def _overview_html(result: StageResult, body: str = "") -> str:
             + (f"<ul>{notes}</ul>" if notes else "")
             + (f"<p>Tables: <code>{written}</code></p>" if written else "")
             + (f"<p>Figures: <code>{drawn}</code></p>" if drawn else "")
-            + "<p>(<code>show(result)</code> shows every table and figure.)</p></div>")
+            + "<p>(<code>show(result)</code> shows every table and figure.)</p>"
+            + ("" if caution in body else f"<p><em>{caution}</em></p>") + "</div>")
 
 
 def horizon_days(horizon: float | str) -> float:

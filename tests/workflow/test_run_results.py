@@ -91,6 +91,7 @@ def test_results_show_as_escaped_html_with_small_counts_hidden(finished):
     for result in results.values():
         page = result._repr_html_()
         assert page.startswith("<div>") and "<script" not in page
+        assert "Research software, not a medical device" in page
     assert "Research software, not a medical device" in results["comparison"]._repr_html_()
     hostile = CohortSummary(tables={"cohort_flow": pd.DataFrame({"step": ["<script>alert(1)</script>"],
                                                                  "n_patients": ["<10"]})},
