@@ -332,7 +332,8 @@ def _reference_risks(saved: Any) -> list[str]:
         horizons = list(saved.horizons_days)
     else:
         return []
-    rows = pd.DataFrame([dict(zip(saved.covariates, means), landmark=s) for s in saved.landmarks_days])
+    rows = pd.DataFrame([{**dict(zip(saved.covariates, means)), **_stratum(saved), "landmark": s}
+                         for s in saved.landmarks_days])
     risks = {h: saved.model.predict_risk(rows, h) for h in horizons}
     table = [[f"{s:g}", *(f"{risks[h][i]:.4f}" for h in horizons)] for i, s in enumerate(saved.landmarks_days)]
     lines = ["## Baseline risk at each landmark and horizon", "",
@@ -341,18 +342,28 @@ def _reference_risks(saved: Any) -> list[str]:
     return lines + md_table(["landmark"] + [f"{h:g}" for h in horizons], table) + [""]
 
 
+def _stratum(saved: Any) -> dict[str, Any]:
+    """A stratified Cox model's strata column set to its first stratum (the reference and example patients)."""
+    part = saved.parts[0]
+    column = getattr(part, "strata", None) if isinstance(part, CoxModel) else None
+    return {} if column is None else {column: next(iter(part._curves))}
+
+
 def _example(saved: Any) -> list[str]:
     values = example_patient(saved)
     s, w = example_point(saved)
-    row = pd.DataFrame([{**values, "landmark": s}])
+    row = pd.DataFrame([{**values, **_stratum(saved), "landmark": s}])
     lines = ["## Worked example (an invented patient)", "",
-             "An invented patient, not a patient of the development cohort:", "", _marker("example patient")]
+             "An invented patient, not a patient of the development cohort"
+             + "".join(f" (in stratum {md_text(k)} = {md_text(v)})" for k, v in _stratum(saved).items()) + ":", "",
+             _marker("example patient")]
     lines += md_table(["covariate", "value"], [[md_text(c), _num(v)] for c, v in values.items()]
                       + [["landmark (days)", _num(s)], ["horizon (days)", _num(w)]])
     lines.append("")
     for k, part in enumerate(saved.parts, start=1):
         # the part's own columns: a missing-indicator column is 0 (the example's values are all observed)
-        part_row = pd.DataFrame([{**{c: values.get(c, 0.0) for c in part.covariates}, "landmark": s}])
+        part_row = pd.DataFrame([{**{c: values.get(c, 0.0) for c in part.covariates}, **_stratum(saved),
+                                  "landmark": s}])
         if isinstance(part, LandmarkSupermodel):
             x = np.array([[values.get(c, 0.0) for c in part.covariates]])
             design = part._design(x, np.array([s]))[0]
@@ -369,7 +380,7 @@ def _example(saved: Any) -> list[str]:
         elif isinstance(part, CoxModel):
             x = np.array([values.get(c, 0.0) for c in part.coef_.index])
             eta = float((x - part.center_.to_numpy()) @ part.coef_.to_numpy())
-            times, cumhaz = next(iter(part._curves.values()))
+            times, cumhaz = part._curves[next(iter(_stratum(saved).values()), next(iter(part._curves)))]
             at_s, at_end = step_function_at(times, cumhaz, [s, s + w])
             lines.append(f"Part {k}: η = {_num(eta)}, exp(η) = {_num(np.exp(eta))}; H₀({s:g}) = {_num(at_s)} and "
                          f"H₀({s + w:g}) = {_num(at_end)} (the last table rows at or before those times), so the "

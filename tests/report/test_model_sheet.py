@@ -102,7 +102,8 @@ def _cox_risk_by_hand(text: str, k: int) -> float:
     values, s, w = _example(text)
     table = read_sheet_table(text, f"coefficients outcome {k}")
     eta = sum(float(beta) * (values[_plain(name)] - float(centre)) for name, _, beta, centre in table)
-    grid = [(float(t), float(h)) for t, h in read_sheet_table(text, f"cumulative hazard {k}")]
+    # the first H0 column: the only one, or the first stratum, where the sheet puts its example patient
+    grid = [(float(row[0]), float(row[1])) for row in read_sheet_table(text, f"cumulative hazard {k}")]
 
     def cumhaz(at: float) -> float:
         return max((h for t, h in grid if t <= at + 1e-9), default=0.0)
@@ -123,6 +124,23 @@ def test_the_risk_computed_by_hand_from_the_sheet_equals_predict_risk(run: Path,
     assert 0.0 < expected < 1.0
     printed = float(re.search(r"\*\*(\S+)\*\*", text.split("## Worked example")[1]).group(1))  # type: ignore[union-attr]
     assert printed == expected
+
+
+def test_a_stratified_cox_models_sheet_is_recomputed_in_the_examples_stratum(run: Path, tmp_path: Path) -> None:
+    from riskbench.models.cox_model import CoxModel
+
+    cp = pd.read_parquet(run / "data" / "counting_process.parquet").dropna(subset=B.CLINICAL)
+    covariates = [c for c in B.CLINICAL if c != "sex_male"]
+    model = CoxModel(covariates, strata="sex_male").fit(cp)
+    spec = load_model(run / "models" / "cox.bundle.json").cohort_spec()
+    saved = load_model(save_run_model(tmp_path, "strata", "time_varying_cox", model, cohort_rules=spec,
+                                      development=cp, landmarks_days=[0.0, 365.25], prediction_window_days=730.5,
+                                      horizons_days=[730.5]))
+    text = (tmp_path / "models" / "strata.md").read_text()
+    assert "in stratum sex\\_male = 0\\.0" in text
+    values, s, w = _example(text)
+    row = pd.DataFrame([{**values, "sex_male": 0.0, "landmark": s}])
+    assert abs(_cox_risk_by_hand(text, 1) - float(saved.model.predict_risk(row, w)[0])) < 1e-10
 
 
 def test_the_sheet_has_the_caution_rules_equation_and_both_causes(run: Path) -> None:
