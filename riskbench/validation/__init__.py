@@ -16,6 +16,7 @@ draws from its own seed spawned from ``seed``, so serial, joblib and Dask runs g
 
 from riskbench.validation.comparison import Comparison, compare_specs
 from riskbench.validation.errors import ValidationInputError
+from riskbench.validation.external import ExternalValidation, validate_externally
 from riskbench.validation.holdout import evaluate_splits, external_validation
 from riskbench.validation.importance import leave_group_out, permutation_importance
 from riskbench.validation.likelihood_ratio import LikelihoodRatioTest, likelihood_ratio_test, nested_cox_lr_test
@@ -37,23 +38,27 @@ from riskbench.validation.reclassification import (
     net_reclassification,
 )
 from riskbench.validation.sources import CohortDerivation, PrecomputedTables, ValidationTables, draw_tables
+from riskbench.validation.updating import UpdatedModel, closed_test, fit_update, update_model, updating_rows
 
 __all__ = [
     "FAMILIES",
     "CohortDerivation",
     "Comparison",
     "ExecutionConfig",
+    "ExternalValidation",
     "IntegratedDiscrimination",
     "LikelihoodRatioTest",
     "ModelSpec",
     "NetReclassification",
     "PrecomputedTables",
     "Split",
+    "UpdatedModel",
     "ValidationInputError",
     "ValidationTables",
     "bootstrap_optimism",
     "bootstrap_patient_draw",
     "build_estimator",
+    "closed_test",
     "compare_specs",
     "draw_tables",
     "evaluate_model",
@@ -61,6 +66,7 @@ __all__ = [
     "evaluate_splits",
     "external_validation",
     "fit_spec",
+    "fit_update",
     "integrated_discrimination",
     "leave_group_out",
     "likelihood_ratio_test",
@@ -72,4 +78,7 @@ __all__ = [
     "replicate_seeds",
     "run_replicates",
     "temporal_split",
+    "update_model",
+    "updating_rows",
+    "validate_externally",
 ]

@@ -14,6 +14,9 @@ Given a fitted model (any model answering ``predict_risk``) and the new cohort's
    (:func:`riskbench.metrics.calibration_at_horizon`, a patient's rows one cluster) and, if asked, the triage
    operating point of the original and the chosen model.
 
+This module starts from a model already fitted elsewhere (a saved model); to fit model specifications on one
+cohort and compare them on another, see :func:`riskbench.validation.holdout.external_validation`.
+
 What the intervals cover: the original model's performance is a genuine external validation. An updated model
 was estimated on the same cohort it is scored on, so its performance is apparent (optimistic by about as much
 as the parameters it re-estimates allow; least for recalibration in the large); the bootstrap holds the fitted
