@@ -124,3 +124,17 @@ def test_a_hostile_model_name_is_escaped_in_the_report(saved, tmp_path):
     page, _ = validate_saved_model(copy / bundle.name, tmp_path / "out", data=folder / "same", resamples=0)
     html = page.read_text(encoding="utf-8")
     assert "<script" not in html and "&lt;script&gt;" in html
+
+
+def test_the_report_renders_with_every_figure(saved, chromium):
+    """The page opens in a headless browser with every embedded figure loaded (calibration of the original and
+    the chosen model at each horizon, the decision curve)."""
+    from riskbench.report.render_check import check_report_renders
+
+    folder = saved[0]
+    page = folder / "out_shifted" / "report.html"
+    if not page.is_file():
+        pytest.skip("the shifted-cohort test writes the report first")
+    figures = list((folder / "out_shifted" / "figures").glob("*.png"))
+    rendered = check_report_renders(page, chromium)
+    assert rendered.images == len(figures) > 0 and rendered.broken == 0
