@@ -267,8 +267,12 @@ def test_stage_outputs_stay_in_the_run_folder_with_derived_names(hostile_stage_r
     assert outside == []
     for path in run.rglob("*"):
         if path.is_file():
-            assert re.fullmatch(r"[A-Za-z0-9_]+\.(csv|png|svg|parquet|html|json)", path.name), path
+            # saved models: <stem>[.part<k>|.bundle|.imputer].<json|md|joblib>[.sha256] (workflow/model_bundle.py)
+            assert re.fullmatch(r"[A-Za-z0-9_]+(\.part\d+|\.bundle|\.imputer)?\.(csv|png|svg|parquet|html|json|md|"
+                                r"joblib)(\.sha256)?", path.name), path
     assert any(p.name.startswith("coefficients_x_escaped_outside_") for p in (run / "tables").iterdir())
+    sheets = [p.read_text() for p in (run / "models").glob("*.md")]  # model sheets show the names as text
+    assert len(sheets) == 2 and not any("<img" in text or "<script" in text for text in sheets)
 
 
 def test_stage_outputs_show_hostile_names_as_text(hostile_stage_run, monkeypatch):
