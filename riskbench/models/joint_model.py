@@ -87,7 +87,7 @@ class JointModel(BaseEstimator):
         How the outcome hazard depends on the current true marker value and its slope.
     competing : bool
         Model the competing event (status 2) and predict the cumulative incidence of the outcome; otherwise
-        status 2 is treated as censoring.
+        status 2 is treated as censoring. Data without a competing event fit the outcome model alone.
     competing_association : bool
         The competing hazard depends on the current marker value too.
     time_knots : int
@@ -173,14 +173,13 @@ class JointModel(BaseEstimator):
             if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
                 raise ModelInputError(f"{name} must be an integer >= {low}, got {value!r}")
 
-    def _cause_setup(self) -> tuple[tuple[tuple[str, ...], ...], tuple[tuple[str, ...], ...]]:
+    def _cause_setup(self, competing: bool) -> tuple[tuple[tuple[str, ...], ...], tuple[tuple[str, ...], ...]]:
         event = tuple(self.event_covariates)
-        competing = event if self.competing_covariates is None else tuple(self.competing_covariates)
         terms: list[tuple[str, ...]] = [ASSOCIATIONS[self.association]]
         covariates = [event]
-        if self.competing:
+        if competing:
             terms.append(("value",) if self.competing_association else ())
-            covariates.append(competing)
+            covariates.append(event if self.competing_covariates is None else tuple(self.competing_covariates))
         return tuple(terms), tuple(covariates)
 
     def fit(self, measurements: pd.DataFrame, survival: pd.DataFrame) -> JointModel:
@@ -207,7 +206,8 @@ class JointModel(BaseEstimator):
         ids, end, status = check_survival(survival)
         if not self.competing:
             status = np.where(status == 2, 0, status)
-        cause_terms, cause_covariates = self._cause_setup()
+        # without a competing event in the data there is nothing to fit for it: the outcome model alone
+        cause_terms, cause_covariates = self._cause_setup(bool(self.competing and (status == 2).any()))
         marker_x = covariate_block(survival, list(self.marker_covariates), "survival table")
         cause_x = [covariate_block(survival, list(c), "survival table") for c in cause_covariates]
         marker_means = marker_x.mean(axis=0)

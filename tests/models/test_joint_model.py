@@ -158,3 +158,10 @@ def test_refuses_measurements_after_follow_up(small_data):
 def test_refuses_unknown_association():
     with pytest.raises(ModelInputError, match="association"):
         JointModel("value", association="area").fit(pd.DataFrame(), pd.DataFrame())
+
+
+def test_data_without_competing_events_fit_the_outcome_model_alone(small_data):
+    measurements, survival = small_data
+    censored = survival.assign(status=survival["status"].replace({2: 0}))
+    model = JointModel("value", event_covariates=["w"], max_iter=50).fit(measurements, censored)
+    assert len(model.structure_.cause_terms) == 1
