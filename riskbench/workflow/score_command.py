@@ -2,10 +2,10 @@
 
 The new patients' tables follow the same input contract as a run's (patients, measurements, outcomes; the
 outcomes table says until when each patient was followed: an ``end_of_follow_up`` row on the day the data were
-extracted is enough). They come from an analysis configuration's ``[sources]`` (``--config``: paths, column
-names, date format; its ``[cohort]`` reading keys ``columns``, ``date_format``, ``measurement_layout`` and
-``kind_map``) or from a folder holding ``patients``, ``measurements`` and ``outcomes`` as ``.csv`` or
-``.parquet`` with our column names (``--data``). The rows are built with the MODEL's cohort rules
+extracted is enough). They come from a configuration's ``[sources]`` (``--config``: paths, column names, date
+format, encoding; a whole analysis configuration, or a file holding only ``[sources]`` with optional ``[cohort]
+kind_map`` and ``[privacy] key_file``) or from a folder holding ``patients``, ``measurements`` and ``outcomes`` as
+``.csv`` or ``.parquet`` with our column names (``--data``). The rows are built with the MODEL's cohort rules
 (:meth:`riskbench.workflow.model_bundle.SavedModel.build_tables`), never with the configuration's, at the
 model's landmarks, at ``--landmarks`` or at one calendar date (``--at-date``).
 
@@ -13,7 +13,8 @@ The output folder (made like a run folder: a marker file, replaced with ``--over
 the marker) holds ``risks.csv`` -- one row per patient, landmark and horizon with the risk and the per-row
 flags; text cells that a spreadsheet would run as a formula are neutralised -- and ``README.txt`` with the
 caution, the model and its SHA-256, and what each column means. Patients appear under pseudonyms (HMAC-SHA-256
-under the configuration's pseudonym key, or ``--key-file``) unless ``--keep-ids`` is given; ids stay on this
+under the configuration's pseudonym key -- ``[privacy] key_file`` or ``<configuration>.key`` beside it --, or
+``--key-file``, or ``<out>.key`` beside the output folder) unless ``--keep-ids`` is given; ids stay on this
 machine either way, and no file maps pseudonyms back to ids.
 """
 
@@ -21,6 +22,7 @@ from __future__ import annotations
 
 import argparse
 import tempfile
+import tomllib
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -73,21 +75,44 @@ def _folder_tables(folder: Path) -> tuple[Path, Path, Path]:
     return found[0], found[1], found[2]
 
 
-def new_tables(config_path: str | Path | None, data: str | Path | None) -> tuple[tuple[Any, Any, Any], dict, Any]:
-    """The three sources, the reading keys and the configuration (or None) of the patients to score."""
+def new_tables(config_path: str | Path | None,
+               data: str | Path | None) -> tuple[tuple[Any, Any, Any], dict[str, Any], Path | None]:
+    """The three sources of the patients to score, the reading keys, and the pseudonym key file of the
+    configuration (None with ``--data``).
+
+    ``config_path`` may be a whole analysis configuration (checked as ``run-analysis`` checks it) or a file
+    holding only ``[sources]`` (with optional ``[cohort] kind_map`` and ``[privacy] key_file``).
+    """
     if (config_path is None) == (data is None):
-        raise ScoreInputError("give the new patients' tables with --config (an analysis configuration whose "
-                              "[sources] name them) or --data (a folder with patients, measurements and outcomes)")
+        raise ScoreInputError("give the new patients' tables with --config (a configuration whose [sources] name "
+                              "them) or --data (a folder with patients, measurements and outcomes)")
     if data is not None:
         return _folder_tables(Path(data)), {}, None
-    from riskbench.workflow.config import load_config
-
     assert config_path is not None
-    config = load_config(config_path)
-    cohort, src = config.cohort, config.sources
-    reading = {"columns": dict(cohort.columns), "date_format": cohort.date_format,
-               "measurement_layout": cohort.measurement_layout, "kind_map": dict(cohort.kind_map)}
-    return (src.patients, src.measurements, src.outcomes), reading, config
+    path = Path(config_path)
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise ScoreInputError(f"cannot read the configuration {path}: {exc}") from None
+    if "models" in raw:  # a whole analysis: every key checked, previous-release keys converted
+        from riskbench.workflow.config import load_config
+        from riskbench.workflow.pseudonyms import key_file_of
+
+        config = load_config(path)
+        src = config.sources
+        return (src.patients, src.measurements, src.outcomes), {"kind_map": dict(config.cohort.kind_map)}, \
+            key_file_of(config)
+    if not isinstance(raw.get("sources"), dict):
+        raise ScoreInputError(f"{path} has no [sources] section naming the patients, measurements and outcomes "
+                              "tables of the patients to score")
+    from riskbench.cohort.config_schema import read_sources
+
+    base = path.resolve().parent
+    src = read_sources(raw["sources"], base)
+    kind_map = dict((raw.get("cohort") or {}).get("kind_map") or {})
+    key = (raw.get("privacy") or {}).get("key_file") or f"{path.stem}.key"
+    return (src.patients, src.measurements, src.outcomes), {"kind_map": kind_map} if kind_map else {}, \
+        (base / key).resolve()
 
 
 def predictable_rows(saved: SavedModel, rows: pd.DataFrame) -> np.ndarray:
@@ -116,16 +141,10 @@ def predictable_rows(saved: SavedModel, rows: pd.DataFrame) -> np.ndarray:
     return why
 
 
-def _pseudonyms(ids: pd.Series, key_file: Path | None, config: Any, out: Path) -> pd.Series:
-    from riskbench.workflow.pseudonyms import config_key, load_or_create_key, pseudonym_map
+def _pseudonyms(ids: pd.Series, key_file: Path, out: Path) -> pd.Series:
+    from riskbench.workflow.pseudonyms import load_or_create_key, pseudonym_map
 
-    if key_file is not None:
-        key = load_or_create_key(key_file, run_dir=out)
-    elif config is not None:
-        key = config_key(config, out)
-    else:
-        key = load_or_create_key(out.parent / f"{out.name}.key", run_dir=out)
-    mapping = pseudonym_map(ids, key)
+    mapping = pseudonym_map(ids, load_or_create_key(key_file, run_dir=out))
     return ids.map(lambda v: mapping.get(str(v)))
 
 
@@ -183,7 +202,7 @@ def score_patients(model_path: str | Path, out: str | Path, *, config: str | Pat
     saved = load_model(model_path)
     if landmarks and at_date:
         raise ScoreInputError("give either --landmarks or --at-date, not both")
-    sources, reading, cfg = new_tables(config, data)
+    sources, reading, config_key_file = new_tables(config, data)
     out = Path(out)
     marks = None if not landmarks else [parse_duration(t) for t in landmarks]
     hs = [saved.prediction_window_days] if not horizons else [parse_duration(t) for t in horizons]
@@ -204,7 +223,8 @@ def score_patients(model_path: str | Path, out: str | Path, *, config: str | Pat
         table = pd.concat([table, skipped], ignore_index=True)
     n_patients = int(table["patient_id"].nunique())
     if not keep_ids:
-        table["patient_id"] = _pseudonyms(table["patient_id"], None if key_file is None else Path(key_file), cfg, out)
+        key = Path(key_file) if key_file is not None else config_key_file or out.parent / f"{out.name}.key"
+        table["patient_id"] = _pseudonyms(table["patient_id"], key, out)
         table = table.rename(columns={"patient_id": "patient"})
     table = table.sort_values([table.columns[0], "landmark", "horizon_days"], kind="stable", ignore_index=True)
     table = table.rename(columns={"landmark": "landmark_days"})
@@ -255,7 +275,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     sub.add_argument("model", help="a saved model: models/<name>.bundle.json of a run (or the model file beside it)")
     sub.add_argument("--out", required=True, help="output folder to create")
-    sub.add_argument("--config", help="analysis configuration whose [sources] name the new patients' tables")
+    sub.add_argument("--config", help="configuration whose [sources] name the new patients' tables (a whole analysis "
+                     "configuration or only [sources])")
     sub.add_argument("--data", help="folder with patients, measurements and outcomes (.csv or .parquet)")
     sub.add_argument("--landmarks", nargs="+", metavar="DURATION",
                      help='landmarks since entry, e.g. "0 years" "1 year" (default: the model\'s landmarks)')

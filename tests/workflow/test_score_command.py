@@ -190,3 +190,29 @@ def test_values_older_than_the_carry_forward_limit_are_flagged(run: Path, tmp_pa
     assert risks.loc[old, "older_than_carry_forward"].str.contains("serum_marker").all()
     assert risks.loc[old, "missing_covariates"].str.contains("serum_marker").all()
     assert not risks.loc[~old, "older_than_carry_forward"].str.contains("serum_marker").any()
+
+
+def test_a_sources_only_configuration_with_its_own_column_names_and_date_format(run: Path, tmp_path: Path) -> None:
+    """The new site names its columns and writes its dates its own way; a file holding only [sources] says how,
+    and the scores equal those from the tables in our names (same key, so same pseudonyms)."""
+    site = tmp_path / "site"
+    site.mkdir()
+    patients = pd.read_csv(run / "data" / "patients.csv")
+    patients["entry_date"] = pd.to_datetime(patients["entry_date"]).dt.strftime("%d/%m/%Y")
+    patients["birth_date"] = pd.to_datetime(patients["birth_date"]).dt.strftime("%d/%m/%Y")
+    patients.rename(columns={"patient_id": "PatientNo", "entry_date": "FirstCT"}).to_csv(site / "p.csv", index=False)
+    for name in ("measurements", "outcomes"):
+        table = pd.read_csv(run / "data" / f"{name}.csv")
+        table["date"] = pd.to_datetime(table["date"]).dt.strftime("%d/%m/%Y")
+        table.rename(columns={"patient_id": "PatientNo"}).to_csv(site / f"{name[0]}.csv", index=False)
+    (site / "site.toml").write_text(
+        '[sources]\ndate_format = "%d/%m/%Y"\n'
+        '[sources.patients]\npath = "p.csv"\ncolumns = { patient_id = "PatientNo", entry_date = "FirstCT" }\n'
+        '[sources.measurements]\npath = "m.csv"\ncolumns = { patient_id = "PatientNo" }\n'
+        '[sources.outcomes]\npath = "o.csv"\ncolumns = { patient_id = "PatientNo" }\n'
+        f'[privacy]\nkey_file = "{tmp_path / "shared.key"}"\n')
+    ours, theirs = tmp_path / "ours", tmp_path / "theirs"
+    assert _score(run, theirs, "--config", str(site / "site.toml")) == 0
+    assert _score(run, ours, "--data", str(run / "data"), "--key-file", str(tmp_path / "shared.key")) == 0
+    pd.testing.assert_frame_equal(_risks(theirs), _risks(ours))
+    assert len(_risks(ours)) > 500
