@@ -49,8 +49,11 @@ EXTERNAL_SECTIONS: tuple[Section, ...] = (
             "model revision (each covariate's effect corrected). The closed test (after Vergouwe et al., Stat Med "
             "2017) first tests the most extended update against the original model; only if it differs "
             "significantly are the methods tested in turn, each against the method chosen so far. Tests are Wald "
-            "tests with patient-clustered sandwich variances of pseudo-observation regressions.",
-            tables=("closed_test", "update_parameters")),
+            "tests with patient-clustered sandwich variances of pseudo-observation regressions. The last table "
+            "estimates by the bootstrap how much of each update's calibration here is optimism (re-estimated on "
+            "resamples of patients, scored on the resample and on the whole cohort): the corrected values are what "
+            "to expect on the next patients from this population.",
+            tables=("closed_test", "update_parameters", "update_optimism")),
     Section("calibration", "Calibration on the new cohort",
             "Observed against predicted risk by the horizon for the original and the chosen model, from "
             "pseudo-observations of the observed risk (Austin, Putter, Giardiello & van Klaveren 2022); a "
@@ -121,6 +124,9 @@ def write_external_report(ev: ExternalValidation, out: str | Path, *, title: str
     if len(params):
         params = params.assign(horizon_years=params.pop("horizon_days") / DAYS_PER_YEAR)
         save_table(_labelled(params, "method"), out, "update_parameters")
+    if len(ev.update_optimism):
+        optimism = ev.update_optimism.assign(horizon_years=ev.update_optimism["horizon_days"] / DAYS_PER_YEAR)
+        save_table(_labelled(optimism.drop(columns="horizon_days"), "method"), out, "update_optimism")
     _calibration(ev, out, threshold)
     if len(ev.performance.decision_curve):
         table = ev.performance.decision_curve

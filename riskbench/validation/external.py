@@ -10,7 +10,9 @@ Given a fitted model (any model answering ``predict_risk``) and the new cohort's
    :func:`riskbench.validation.landmark_performance.landmark_performance` (Harrell's and Uno's C, AUC, Brier,
    scaled Brier and observed/expected at each landmark and pooled, the AUC curve and decision curves, with
    percentile intervals from a seeded bootstrap that resamples patients with all their landmark rows);
-4. computes the calibration of each model at each horizon against its own estimand
+4. estimates by the bootstrap how much of each update's calibration on this cohort is optimism
+   (:mod:`riskbench.validation.update_optimism`);
+5. computes the calibration of each model at each horizon against its own estimand
    (:func:`riskbench.metrics.calibration_at_horizon`, a patient's rows one cluster) and, if asked, the triage
    operating point of the original and the chosen model.
 
@@ -32,14 +34,15 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from riskbench.metrics.calibration import Calibration, calibration_at_horizon
+from riskbench.metrics.calibration import Calibration, calibration_at_horizon, target_status
 from riskbench.metrics.inputs import MetricInputError
 from riskbench.metrics.triage import triage_operating_point
 from riskbench.models.prediction_target import fitted_target
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.landmark_performance import EvaluationRows, LandmarkPerformance, landmark_performance
 from riskbench.validation.parallel import ExecutionConfig
-from riskbench.validation.performance import evaluation_time
+from riskbench.validation.performance import evaluation_time, stack_outcome
+from riskbench.validation.update_optimism import optimism_for
 from riskbench.validation.updating import (
     METHODS,
     ClosedTest,
@@ -76,6 +79,9 @@ class ExternalValidation:
         ``model, horizon_days`` and the triage table's columns (empty when not asked or not reachable).
     skipped
         ``(part, reason)`` for every method or measure that could not be computed.
+    update_optimism
+        Bootstrap optimism of each update's O/E and calibration slope
+        (:func:`riskbench.validation.update_optimism.update_optimism`).
     n_rows, n_patients, n_outcomes
         Landmark rows, patients and outcomes within the longest horizon of the new cohort.
     """
@@ -89,6 +95,7 @@ class ExternalValidation:
     calibration: dict[tuple[str, float], Calibration]
     triage: pd.DataFrame
     skipped: list[tuple[str, str]] = field(default_factory=list)
+    update_optimism: pd.DataFrame = field(default_factory=pd.DataFrame)
     n_rows: int = 0
     n_patients: int = 0
     n_outcomes: int = 0
@@ -201,8 +208,12 @@ def validate_externally(
     fits: dict[float, dict[str, UpdateFit]] = {}
     tests: dict[float, ClosedTest] = {}
     risks: dict[str, np.ndarray] = {"original": np.full((len(stack), len(hs)), np.nan)}
+    time, raw_status = stack_outcome(stack)
+    status = target_status(raw_status, target)
+    rows_at: dict[float, tuple[Any, np.ndarray, np.ndarray]] = {}
     for j, h in enumerate(hs):
         rows = updating_rows(model, stack, h, target=target)
+        rows_at[h] = (rows, time, status)
         risks["original"][:, j] = rows.risk
         fits[h] = {}
         for method in methods:
@@ -239,10 +250,12 @@ def validate_externally(
             if cal is not None:
                 calibration[(m, h)] = cal
     triage = _triage(eval_rows, complete, hs, tests, triage_target_npv, n_boot, seed, skipped)
+    optimism = optimism_for(rows_at, fits, n_boot=n_boot, seed=seed, shrink_revision=shrink_revision,
+                            methods=[m for m in complete if m != "original"])
     outcomes = int(((eval_rows.status == 1) & (eval_rows.time <= longest)).sum())
     return ExternalValidation(hs, target, fits, tests, complete, performance, calibration, triage, skipped,
-                              n_rows=len(stack), n_patients=int(np.unique(eval_rows.patient).size),
-                              n_outcomes=outcomes)
+                              update_optimism=optimism, n_rows=len(stack),
+                              n_patients=int(np.unique(eval_rows.patient).size), n_outcomes=outcomes)
 
 
 def _triage(rows: EvaluationRows, risks: dict[str, np.ndarray], horizons: tuple[float, ...],

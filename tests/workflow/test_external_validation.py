@@ -70,7 +70,8 @@ def test_shifted_cohort_gets_an_update_that_brings_oe_back_to_one(saved):
     html = page.read_text(encoding="utf-8")
     assert "not a medical device" in html and "Which update the new cohort warrants" in html
     assert "<script" not in html
-    for name in ("update_comparison", "closed_test", "update_parameters", "external_cohort", "external_calibration"):
+    for name in ("update_comparison", "closed_test", "update_parameters", "update_optimism", "external_cohort",
+                 "external_calibration"):
         assert (folder / "out_shifted" / "tables" / f"{name}.csv").is_file(), name
     manifest = json.loads((folder / "out_shifted" / "manifest.json").read_text())
     assert manifest["chosen_update"][f"{WINDOW:g}"] == chosen
