@@ -61,6 +61,7 @@ from riskbench.models.model_file import package_versions
 from riskbench.models.risk_contract import ModelInputError, covariate_values
 from riskbench.report.model_sheet import CAUTION, write_model_sheet
 from riskbench.report.outputs import atomic_write_text, safe_file_stem
+from riskbench.validation.apparent_importance import forest_importance
 
 __all__ = [
     "BUNDLE_FORMAT", "CAUTION", "MODELS", "SavedModel", "bundle_path_of", "cohort_rules_of", "development_ranges",
@@ -180,30 +181,6 @@ def _missing_data_doc(model: MissingDataModel, folder: Path, stem: str) -> dict[
     return doc
 
 
-def forest_importance(model: Any, table: pd.DataFrame, covariates: Sequence[str], horizon_days: float, *,
-                      seed: int = 0) -> list[dict[str, Any]]:
-    """Permutation importance of each covariate: Harrell's C of the risk at ``horizon_days`` on ``table`` minus
-    the C after the covariate's values are shuffled across the rows (one seeded permutation each)."""
-    from riskbench.metrics.concordance import concordance_harrell
-
-    rows = table.reset_index(drop=True)
-    time, status = rows["time"].to_numpy(float), rows["status"].to_numpy(int)
-
-    def c_index(frame: pd.DataFrame) -> float:
-        risk = np.asarray(model.predict_risk(frame, horizon_days), float)
-        keep = np.isfinite(risk)
-        return float(concordance_harrell(time[keep], status[keep], risk[keep], with_se=False).estimate)
-
-    full = c_index(rows)
-    rng = np.random.default_rng(seed)
-    out = []
-    for name in covariates:
-        shuffled = rows.copy()
-        shuffled[name] = rng.permutation(shuffled[name].to_numpy())
-        out.append({"covariate": str(name), "importance": full - c_index(shuffled)})
-    return out
-
-
 def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, cohort_rules: CohortSpec,
                    development: pd.DataFrame, landmarks_days: Sequence[float], prediction_window_days: float,
                    horizons_days: Sequence[float] | np.ndarray, labels: Mapping[str, str] | None = None,
@@ -229,7 +206,8 @@ def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, c
     labels : mapping, optional
         Readable covariate labels for the sheet.
     seed : int
-        Seed of the permutations of a forest's variable importance (:func:`forest_importance`).
+        Seed of the permutations of a forest's variable importance
+        (:func:`riskbench.validation.apparent_importance.forest_importance`).
 
     Returns
     -------
