@@ -63,20 +63,45 @@ class ScoredPatients:
     n_not_predicted: int
 
 
-def _folder_tables(folder: Path) -> tuple[Path, Path, Path]:
-    found = []
+def _table_in(folder: Path, name: str) -> Path | None:
+    return next((folder / f"{name}.{ext}" for ext in ("parquet", "csv") if (folder / f"{name}.{ext}").is_file()), None)
+
+
+def _folder_tables(folder: Path, followed_until: str | None = None) -> tuple[Any, Any, Any]:
+    """The three tables of ``--data``; without an outcomes table, ``followed_until`` gives every patient an
+    ``end_of_follow_up`` on that date (patients still under surveillance, last seen then)."""
+    found: list[Any] = []
     for name in TABLES:
-        path = next((folder / f"{name}.{ext}" for ext in ("parquet", "csv") if (folder / f"{name}.{ext}").is_file()),
-                    None)
+        path = _table_in(folder, name)
+        if path is None and name == "outcomes" and followed_until is not None:
+            found.append(_open_follow_up(found[0], followed_until))
+            continue
         if path is None:
+            hint = " (or give --followed-until for patients still under surveillance)" if name == "outcomes" else ""
             raise ScoreInputError(f"--data {folder}: no {name}.parquet or {name}.csv there; the folder must hold "
-                                  "the three tables of the input contract (patients, measurements, outcomes)")
+                                  f"the three tables of the input contract (patients, measurements, outcomes){hint}")
         found.append(path)
+    if followed_until is not None and not isinstance(found[2], pd.DataFrame):
+        raise ScoreInputError(f"--followed-until is for a --data folder without an outcomes table, but {found[2]} "
+                              "exists; remove the option or the table")
     return found[0], found[1], found[2]
 
 
-def new_tables(config_path: str | Path | None,
-               data: str | Path | None) -> tuple[tuple[Any, Any, Any], dict[str, Any], Path | None]:
+def _open_follow_up(patients: Path, followed_until: str) -> pd.DataFrame:
+    """An outcomes table with one ``end_of_follow_up`` row per patient of ``patients`` on ``followed_until``."""
+    from riskbench.workflow.scoring_rows import parse_date
+
+    day = parse_date(followed_until).isoformat()
+    if patients.suffix == ".parquet":
+        ids = pd.read_parquet(patients, columns=["patient_id"])["patient_id"]
+    else:
+        ids = pd.read_csv(patients, usecols=["patient_id"], dtype=str, keep_default_na=False)["patient_id"]
+    ids = ids[ids.astype(str).str.strip() != ""].drop_duplicates()
+    return pd.DataFrame({"patient_id": ids.to_numpy(), "date": day, "kind": "end_of_follow_up"})
+
+
+def new_tables(config_path: str | Path | None, data: str | Path | None,
+               followed_until: str | None = None) -> tuple[tuple[Any, Any, Any], dict[str, Any], Path | None]:
     """The three sources of the patients to score, the reading keys, and the pseudonym key file of the
     configuration (None with ``--data``).
 
@@ -87,7 +112,10 @@ def new_tables(config_path: str | Path | None,
         raise ScoreInputError("give the new patients' tables with --config (a configuration whose [sources] name "
                               "them) or --data (a folder with patients, measurements and outcomes)")
     if data is not None:
-        return _folder_tables(Path(data)), {}, None
+        return _folder_tables(Path(data), followed_until), {}, None
+    if followed_until is not None:
+        raise ScoreInputError("--followed-until goes with --data (a folder without an outcomes table); with "
+                              "--config, give the outcomes table in [sources]")
     assert config_path is not None
     path = Path(config_path)
     try:
@@ -188,10 +216,12 @@ def _readme(saved: SavedModel, keep_ids: bool, at_date: Any, horizons: Sequence[
 def score_patients(model_path: str | Path, out: str | Path, *, config: str | Path | None = None,
                    data: str | Path | None = None, landmarks: Sequence[str] | None = None,
                    at_date: str | None = None, horizons: Sequence[str] | None = None, keep_ids: bool = False,
-                   key_file: str | Path | None = None, overwrite: bool = False) -> ScoredPatients:
+                   key_file: str | Path | None = None, overwrite: bool = False,
+                   followed_until: str | None = None) -> ScoredPatients:
     """Score the patients of new raw tables with a saved model into the folder ``out`` (module docstring).
 
-    ``landmarks`` and ``horizons`` are durations with units (``"1 year"``); ``at_date`` a date ``YYYY-MM-DD``.
+    ``landmarks`` and ``horizons`` are durations with units (``"1 year"``); ``at_date`` a date ``YYYY-MM-DD``;
+    ``followed_until`` (with ``data`` lacking an outcomes table) the date every patient was last seen.
 
     Raises
     ------
@@ -202,7 +232,7 @@ def score_patients(model_path: str | Path, out: str | Path, *, config: str | Pat
     saved = load_model(model_path)
     if landmarks and at_date:
         raise ScoreInputError("give either --landmarks or --at-date, not both")
-    sources, reading, config_key_file = new_tables(config, data)
+    sources, reading, config_key_file = new_tables(config, data, followed_until)
     out = Path(out)
     marks = None if not landmarks else [parse_duration(t) for t in landmarks]
     hs = [saved.prediction_window_days] if not horizons else [parse_duration(t) for t in horizons]
@@ -254,7 +284,7 @@ def _unpredicted(saved: SavedModel, rows: pd.DataFrame, horizons: Sequence[float
 def _score(args: argparse.Namespace) -> int:
     result = score_patients(args.model, args.out, config=args.config, data=args.data, landmarks=args.landmarks,
                             at_date=args.at_date, horizons=args.horizons, keep_ids=args.keep_ids,
-                            key_file=args.key_file, overwrite=args.overwrite)
+                            key_file=args.key_file, overwrite=args.overwrite, followed_until=args.followed_until)
     print(f"scored {result.n_patients} patients ({len(result.risks)} rows) with model {result.model!r}; rows "
           f"flagged: {result.n_flagged}; rows without a risk: {result.n_not_predicted}")
     print("research software, not a medical device: read README.txt before using the risks")
@@ -280,6 +310,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     sub.add_argument("--data", help="folder with patients, measurements and outcomes (.csv or .parquet)")
     sub.add_argument("--landmarks", nargs="+", metavar="DURATION",
                      help='landmarks since entry, e.g. "0 years" "1 year" (default: the model\'s landmarks)')
+    sub.add_argument("--followed-until", metavar="YYYY-MM-DD",
+                     help="with --data and no outcomes table: every patient is under surveillance, last seen then")
     sub.add_argument("--at-date", metavar="YYYY-MM-DD", help="predict at this calendar date instead of landmarks")
     sub.add_argument("--horizons", nargs="+", metavar="DURATION",
                      help='prediction horizons, e.g. "1 year" "2 years" (default: the model\'s window)')

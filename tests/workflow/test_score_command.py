@@ -216,3 +216,23 @@ def test_a_sources_only_configuration_with_its_own_column_names_and_date_format(
     assert _score(run, ours, "--data", str(run / "data"), "--key-file", str(tmp_path / "shared.key")) == 0
     pd.testing.assert_frame_equal(_risks(theirs), _risks(ours))
     assert len(_risks(ours)) > 500
+
+
+def test_patients_without_an_outcomes_table_are_scored_as_followed_until_a_date(run: Path, tmp_path: Path) -> None:
+    """Without outcomes, every patient is last seen on --followed-until; the covariates at a landmark do not
+    depend on what happened later, so each (patient, landmark) scored both ways has the same risk."""
+    data = tmp_path / "data"
+    data.mkdir()
+    for name in ("patients", "measurements"):
+        shutil.copy(run / "data" / f"{name}.csv", data / f"{name}.csv")
+    until = pd.to_datetime(pd.read_csv(data / "measurements.csv")["date"]).max().date().isoformat()
+    assert _score(run, tmp_path / "no_outcomes", "--data", str(data), "--keep-ids") == 2
+    open_ = tmp_path / "open"
+    assert _score(run, open_, "--data", str(data), "--keep-ids", "--followed-until", until, model="clinical") == 0
+    known = tmp_path / "known"
+    assert _score(run, known, "--data", str(run / "data"), "--keep-ids", model="clinical") == 0
+    merged = _risks(known).merge(_risks(open_), on=["patient_id", "landmark_days", "horizon_days"],
+                                 suffixes=("_known", "_open"))
+    assert len(merged) == len(_risks(known))  # everyone at risk with outcomes known is scored without them
+    np.testing.assert_array_equal(merged["risk_open"].to_numpy(), merged["risk_known"].to_numpy())
+    assert len(_risks(open_)) > len(merged)  # and patients whose outcome came earlier are scored too
