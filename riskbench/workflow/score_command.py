@@ -5,7 +5,8 @@ outcomes table says until when each patient was followed: an ``end_of_follow_up`
 extracted is enough). They come from a configuration's ``[sources]`` (``--config``: paths, column names, date
 format, encoding; a whole analysis configuration, or a file holding only ``[sources]`` with optional ``[cohort]
 kind_map`` and ``[privacy] key_file``) or from a folder holding ``patients``, ``measurements`` and ``outcomes`` as
-``.csv`` or ``.parquet`` with our column names (``--data``). The rows are built with the MODEL's cohort rules
+``.csv`` or ``.parquet`` with our column names (``--data``; without an outcomes table, ``--followed-until`` says
+the day every patient was last seen). The rows are built with the MODEL's cohort rules
 (:meth:`riskbench.workflow.model_bundle.SavedModel.build_tables`), never with the configuration's, at the
 model's landmarks, at ``--landmarks`` or at one calendar date (``--at-date``).
 
