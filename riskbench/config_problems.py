@@ -89,8 +89,8 @@ def _unwrap(annotation: Any) -> tuple[type[BaseModel] | None, str | None]:
         inner, _ = _unwrap(typing.get_args(annotation)[1])
         return (inner, "dict") if inner else (None, None)
     if origin in (list, tuple, Sequence):
-        args = typing.get_args(annotation)
-        inner, _ = _unwrap(args[0]) if args else (None, None)
+        params = typing.get_args(annotation)
+        inner, _ = _unwrap(params[0]) if params else (None, None)
         return (inner, "list") if inner else (None, None)
     return None, None
 
@@ -160,10 +160,10 @@ def schema_problems(error: ValidationError, root: type[BaseModel], data: Any,
         table, model, key = _split(root, loc)
         place = where(table)
         if err["type"] == "extra_forbidden":
-            allowed = list(model.model_fields) if model is not None else []
+            keys = list(model.model_fields) if model is not None else []
             full = f"{place} {key}"
             found = Problem(full, f"{place} has unknown key {key!r} = {show(err['input'])}; allowed keys: "
-                                  f"{', '.join(allowed)}{did_you_mean(key, allowed)}")
+                                  f"{', '.join(keys)}{did_you_mean(key, keys)}")
         elif err["type"] == "missing":
             if key is None and table:  # a whole table is missing
                 table, model, _ = _split(root, loc[:-1])
@@ -179,8 +179,9 @@ def schema_problems(error: ValidationError, root: type[BaseModel], data: Any,
                 out.setdefault(place + allowed, Problem(place, f"{place}: {allowed}"))
                 continue
             value = _value_at(data, [*table, key])
-            if len(loc) > len(table) + 1 and isinstance(loc[len(table) + 1], int):
-                allowed += f" (item {loc[len(table) + 1] + 1})"
+            item = loc[len(table) + 1] if len(loc) > len(table) + 1 else None
+            if isinstance(item, int):
+                allowed += f" (item {item + 1})"
             found = problem(place, key, value, allowed, choices=choices)
         out.setdefault(found.key + err["type"], found)
     return list(out.values())

@@ -200,7 +200,8 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
     if temp_folder is not None:
         Path(temp_folder).mkdir(mode=0o700, parents=True, exist_ok=True)
     spill = tempfile.TemporaryDirectory(prefix="riskbench_duckdb_", dir=temp_folder)
-    config: dict[str, object] = {"preserve_insertion_order": True, "temp_directory": spill.name}
+    config: dict[str, str | bool | int | float | list[str]] = {"preserve_insertion_order": True,
+                                                             "temp_directory": spill.name}
     if memory_limit:
         config["memory_limit"] = memory_limit
     if threads:

@@ -113,6 +113,11 @@ def _assemble_block(values: pa.Table, first: int, last: int, patients: _Patients
                      "status": status, **covariates}, schema=table_schema(spec))
 
 
+def _write_when_assembled(writer: pq.ParquetWriter, block: Future) -> None:
+    """Write an assembled block (in the writer thread, once the assembler has finished it)."""
+    writer.write_table(block.result())
+
+
 def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec, target: Path,
                            block_patients: int | None = None) -> None:
     """Write the counting-process table of ``pat`` and ``meas`` to the Parquet file ``target``; create the
@@ -138,7 +143,7 @@ def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec, tar
             values = con.sql("SELECT pidx, day, vidx, x, slope FROM used_values WHERE pidx BETWEEN $1 AND $2 "
                              "ORDER BY pidx, day, vidx", params=[first, last]).to_arrow_table()
             table = assembler.submit(_assemble_block, values, first, last, patients, spec, exam_ids)
-            in_flight.append(write_pool.submit(lambda t=table: writer.write_table(t.result())))
+            in_flight.append(write_pool.submit(_write_when_assembled, writer, table))
             while len(in_flight) > BLOCKS_IN_FLIGHT:
                 in_flight.popleft().result()  # re-raises an error of the assembly or the write
         for done in in_flight:

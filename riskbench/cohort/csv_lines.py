@@ -142,7 +142,8 @@ def _head(path: Path, max_lines: int) -> bytes:
     """The first ``1 + max_lines`` lines of a file in a one-byte-newline encoding (gzip files whole)."""
     if path.suffix.lower() == ".gz":
         return path.read_bytes()  # cut after decompressing
-    chunks, newlines = [], 0
+    chunks: list[bytes] = []
+    newlines = 0
     with path.open("rb") as handle:
         while newlines <= max_lines:
             chunk = handle.read(1 << 20)

@@ -15,6 +15,7 @@ import re
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TypeAlias
 
 import duckdb
 import numpy as np
@@ -26,7 +27,7 @@ from riskbench.cohort.errors import CohortInputError
 from riskbench.cohort.sources import TableSource
 from riskbench.cohort.spec import CohortSpec
 
-Source = str | Path | pd.DataFrame | TableSource
+Source: TypeAlias = str | Path | pd.DataFrame | TableSource
 #: Name of the row-position column added to a DataFrame's Arrow copy (unlikely to clash with a source column).
 ROW_NUMBER = "__riskbench_row_number"
 

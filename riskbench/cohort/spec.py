@@ -149,7 +149,8 @@ class StaticSpec:
         for bound in (self.plausible_min, self.plausible_max):
             if bound is not None and not (isinstance(bound, (int, float)) and math.isfinite(bound)):
                 raise SpecError(f"{where}: range bounds must be finite numbers, got {bound!r}")
-        if None not in (self.plausible_min, self.plausible_max) and self.plausible_min > self.plausible_max:
+        if (self.plausible_min is not None and self.plausible_max is not None
+                and self.plausible_min > self.plausible_max):
             raise SpecError(f"{where}: range minimum {self.plausible_min!r} is above the maximum "
                             f"{self.plausible_max!r}")
         if self.kind != "categorical":
@@ -382,7 +383,7 @@ class CohortSpec:
                 return _with_unit(words, s.unit or "")
             for level in s.levels:
                 if column == f"{s.name}_{level}" and level != s.reference:
-                    return f"{words}: {level.replace('_', ' ')} (vs {s.reference.replace('_', ' ')})"
+                    return f"{words}: {level.replace('_', ' ')} (vs {str(s.reference).replace('_', ' ')})"
         raise KeyError(f"{column!r} is not a covariate column of this cohort; its columns are "
                        f"{list(self.covariate_columns)}")
 

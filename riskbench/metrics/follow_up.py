@@ -11,9 +11,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from numpy.typing import ArrayLike
 
-from riskbench.metrics.inputs import MetricInputError, as_time
+from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_time
 
 __all__ = ["FollowUp", "reverse_km_follow_up", "reverse_km_quantile"]
 

@@ -108,7 +108,7 @@ def triage_operating_point(
     if (target_npv is None) == (target_sensitivity is None):
         raise MetricInputError("give exactly one of `target_npv` and `target_sensitivity`")
     target = target_npv if target_npv is not None else target_sensitivity
-    if not 0 < float(target) < 1:
+    if target is None or not 0 < float(target) < 1:
         raise MetricInputError(f"the target must be a proportion strictly between 0 and 1; got {target}")
     t, status, r, h = single_horizon_inputs(time, event, risk, horizon, metric="triage", check_direction=check_direction)
 
@@ -127,7 +127,7 @@ def triage_operating_point(
     estimate = {"threshold": candidates[chosen], **{k: v[chosen] for k, v in acc.items()}}
 
     rng = np.random.default_rng(seed)
-    draws = {q: [] for q in QUANTITIES}
+    draws: dict[str, list[float]] = {q: [] for q in QUANTITIES}
     for _ in range(n_boot):
         i = rng.integers(0, t.size, t.size)
         b = _accuracy(split_by_thresholds(t[i], status[i], r[i], h, candidates))

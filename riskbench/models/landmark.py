@@ -261,7 +261,6 @@ class LandmarkSupermodel(BaseEstimator):
             )
         except CoxInputError as exc:
             # say which cause-specific model failed; callers restate it with the model's name
-            exc.cause = label
             exc.args = (f"{label} model: {exc.args[0] if exc.args else exc}",)
             raise
         means = design.mean(axis=0)

@@ -307,7 +307,7 @@ class MissingDataModel(BaseEstimator):
         return self
 
     def _fit_complete_cases(self, table: pd.DataFrame, missing: np.ndarray) -> None:
-        dropped = missing.any(axis=1)
+        dropped = np.asarray(missing.any(axis=1), dtype=bool)
         if dropped.all():
             raise ModelInputError(
                 f"complete cases: every training row misses a covariate of the model "

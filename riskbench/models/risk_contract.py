@@ -335,7 +335,7 @@ def cumulative_incidence_at(
     for start in range(0, n, block):
         part = slice(start, start + block)
         d1 = np.multiply.outer(event_score[part], a)
-        total = d1.copy() if b is None else np.multiply.outer(competing_score[part], b) + d1
+        total = d1.copy() if b is None or competing_score is None else np.multiply.outer(competing_score[part], b) + d1
         over = total > 1.0
         if over.any():  # a large exp(lp) can push an increment past 1: share the cap between causes
             d1[over] /= total[over]

@@ -110,12 +110,17 @@ def baseline_table(
         if binary:
             rows.append({"characteristic": f"{name} = 1, n (%)", **counts("one", True)})
         else:
-            add(f"{name}, median (IQR)", lambda g, c=cov: _median_iqr(g[c]))
+            add(f"{name}, median (IQR)", _median_iqr_of(cov))
         if merged[cov].isna().any():
             rows.append({"characteristic": f"{name} missing, n", **counts("missing", False)})
     table = pd.DataFrame(rows)
     empty = [label for code, label in STATUS_GROUPS if code == 2 and sizes[label] == 0]
     return table.drop(columns=empty)  # no empty competing-event column when the cohort has none
+
+
+def _median_iqr_of(column: str) -> Callable[[pd.DataFrame], str]:
+    """The median (IQR) cell of ``column`` for a group's rows."""
+    return lambda g: _median_iqr(g[column])
 
 
 def _label_of(column: str, labels: Mapping[str, str] | Callable[[str], str] | None) -> str:

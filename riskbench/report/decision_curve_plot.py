@@ -3,6 +3,8 @@ bands when the table carries them."""
 
 from __future__ import annotations
 
+from typing import Any
+
 import matplotlib
 
 matplotlib.use("Agg", force=False)
@@ -44,6 +46,8 @@ def decision_curve_figure(table: pd.DataFrame, *, horizon_days: float | None = N
         first = rows if first is None else first
         (line,) = ax.plot(rows["threshold"], rows["model"], linewidth=2, label=str(name))
         _band(ax, rows, "model", line.get_color())
+    if first is None:
+        raise ValueError("decision_curve_figure: the table has no rows; pass net_benefit's output")
     ax.plot(first["threshold"], first["treat_all"], color="grey", linewidth=1, label="treat all")
     _band(ax, first, "treat_all", "grey")
     ax.plot(first["threshold"], first["treat_none"], color="black", linewidth=1, linestyle="--", label="treat none")
@@ -62,7 +66,7 @@ def decision_curve_figure(table: pd.DataFrame, *, horizon_days: float | None = N
     return fig
 
 
-def _band(ax: plt.Axes, rows: pd.DataFrame, column: str, color: str) -> None:
+def _band(ax: plt.Axes, rows: pd.DataFrame, column: str, color: Any) -> None:
     low, high = f"{column}_lower", f"{column}_upper"
     if {low, high} <= set(rows.columns) and rows[[low, high]].notna().any().all():
         ax.fill_between(rows["threshold"], rows[low], rows[high], color=color, alpha=0.15, linewidth=0)

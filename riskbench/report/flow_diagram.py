@@ -5,6 +5,7 @@ side, and the included patients split by how follow-up ended along the bottom. S
 from __future__ import annotations
 
 import textwrap
+from typing import Any
 
 import matplotlib.pyplot as plt
 import pandas as pd
@@ -12,7 +13,7 @@ from matplotlib.patches import FancyBboxPatch
 
 from riskbench.report.flow_suppression import suppress_flow
 
-_BOX = {"facecolor": "#eef3f8", "edgecolor": "#34495e"}
+_BOX: dict[str, Any] = {"facecolor": "#eef3f8", "edgecolor": "#34495e"}
 _ARROW = {"arrowstyle": "->", "color": "#34495e"}
 
 

@@ -104,9 +104,9 @@ def build_estimator(spec: ModelSpec, *, seed: int | None = None) -> Any:
         if seed is not None:
             params.setdefault("random_state", seed)
         estimator = models.SurvivalForest(spec.covariates, **params)
-    if spec.missing is None:
+    plan = MissingDataPlan.coerce(spec.missing)  # a plan already (ModelSpec coerces it); typed for the checker
+    if plan is None:
         return estimator
-    plan = spec.missing
     return MissingDataModel(estimator, method=plan.method, imputations=plan.imputations,
                             max_iterations=plan.max_iterations, random_state=0 if seed is None else int(seed))
 

@@ -250,7 +250,7 @@ class CohortDerivation:
         keep = set(np.asarray(raw_ids).tolist())
         # Raw ids may be typed differently from the cohort's string ids: compare as text.
         subsets = [frame.loc[frame[col].astype(str).isin(keep)] for frame, col in zip(self._raw, self._id_columns())]
-        cohort = build_cohort(*subsets, self._spec)
+        cohort = build_cohort(subsets[0], subsets[1], subsets[2], self._spec)
         stack = cohort.landmark_stack(self._landmarks, self._horizon)
         cp = cohort.counting_process if self._with_cp else None
         return ValidationTables(stack.reset_index(drop=True), cp), cohort.patients

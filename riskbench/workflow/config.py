@@ -222,7 +222,7 @@ class AnalysisConfig:
         config, problems = build_config(data, base_dir=(base_dir or Path.cwd()).resolve(),
                                         config_path=config_path)
         raise_problems(problems, source)
-        return config  # type: ignore[return-value]
+        return config
 
 
 def raise_problems(problems: list[Problem], source: str) -> None:

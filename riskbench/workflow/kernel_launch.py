@@ -62,8 +62,8 @@ def bind_output_pipe_to_ipc(folder: str) -> None:
         pipe_out.connect(self._pipe_endpoint)
         return ctx, pipe_out
 
-    thread_class._setup_pipe_in = setup_pipe_in
-    thread_class._setup_pipe_out = setup_pipe_out
+    thread_class._setup_pipe_in = setup_pipe_in  # type: ignore[method-assign]  # the patch this module exists for
+    thread_class._setup_pipe_out = setup_pipe_out  # type: ignore[method-assign]
 
 
 def quiet_process_output() -> None:

@@ -24,7 +24,7 @@ def missing_data_plan(model: ModelConfig, analysis_plan: object | None = None) -
     try:
         base = MissingDataPlan.coerce(analysis_plan) or MissingDataPlan()
         override = model.missing_data
-        return MissingDataPlan.coerce(override, default=base) if override is not None else base
+        return MissingDataPlan.coerce(override, default=base) or base
     except ValueError as exc:
         raise ConfigError(f"[[models]] {model.name!r}: {exc}") from None
 

@@ -45,6 +45,7 @@ from riskbench.workflow.term_labels import term_label
 COX_FAMILIES = ("landmark_cox", "time_varying_cox", "cox")
 #: Errors of one check that become a note (numerical trouble, a model that cannot be refitted).
 CHECK_ERRORS: tuple[type[BaseException], ...] = (ValueError, ArithmeticError, np.linalg.LinAlgError)
+_FACT_ERRORS: tuple[type[BaseException], ...] = (*CHECK_ERRORS, KeyError)
 PH_ALPHA = 0.05  # common practice
 
 
@@ -266,7 +267,7 @@ def write_review_items(config: AnalysisConfig, run_dir: str | Path, stack: pd.Da
                               f"outcomes is hidden by the small-count rule (threshold {threshold})."))
         try:
             facts = study_facts(config, patients, stack, sample_size, run_dir, label_of)
-        except (*CHECK_ERRORS, KeyError) as exc:
+        except _FACT_ERRORS as exc:
             notes.append(Note("comparison", "methods and limitations", f"not written: {exc}"))
         else:
             atomic_write_text(run_dir / TABLES / "methods.txt", "\n".join(methods_paragraphs(facts)) + "\n")

@@ -245,7 +245,7 @@ def location_error(exc: OSError, where: Path) -> RunLocationError:
     """A one-line message for an OSError met while creating or writing the run folder."""
     reason = {errno.EACCES: "permission denied", errno.EPERM: "permission denied",
               errno.EROFS: "read-only file system", errno.ENOSPC: "no space left on the device",
-              errno.EDQUOT: "disk quota exceeded"}.get(exc.errno, exc.strerror or type(exc).__name__)
+              errno.EDQUOT: "disk quota exceeded"}.get(exc.errno or 0, exc.strerror or type(exc).__name__)
     target = exc.filename or where
     return RunLocationError(f"cannot write the run folder at {where}: {reason} ({target}); choose an --out in a "
                             "folder you can write to")
