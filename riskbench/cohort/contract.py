@@ -236,7 +236,8 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
                  WHEN {day} < -{spec.lookback_days!r} THEN '{S.BEFORE_LOOKBACK}'
                  WHEN {day} > k.end_days THEN '{S.AFTER_FOLLOW_UP}'
             END AS state
-        FROM (SELECT row_number, t_date, CAST(t_patient_id AS VARCHAR) AS patient_id, CAST(t_variable AS VARCHAR) AS var,
+        FROM (SELECT row_number, t_date, CAST(t_patient_id AS VARCHAR) AS patient_id,
+                     CAST(t_variable AS VARCHAR) AS var,
                      {unit_raw} AS unit_given, {timestamp_expr(loaded, 'date', trimmed='t_date')} AS ts,
                      {number_expr(loaded, 'value', trimmed='t_value')} AS raw_value,
                      {" OR ".join(blank(c, None, loaded.types[c], trimmed=f"t_{c}") for c in required)} AS is_blank

@@ -437,7 +437,8 @@ def _visit_warnings(config: Any, visits: tuple[float, ...]) -> list[Problem]:
             if 0 < gap <= VISIT_MARGIN_DAYS:
                 out.append(Problem(
                     "[landmarks] landmarks",
-                    f"[landmarks] landmarks: {format_duration(s)!r} ({s:g} days) falls {gap:g} days before day {v:g}, "
+                    f"[landmarks] landmarks: {format_duration(s)!r} ({s:g} days) falls {gap:g} days before "
+                    f"day {v:g}, "
                     f"a common visit day in the measurements sample: values of that visit are not yet known at the "
                     f"landmark, so the landmark sees mostly stale values; write \"{v:g} days\" to include the visit",
                     WARNING))

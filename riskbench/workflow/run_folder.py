@@ -220,7 +220,8 @@ class RunLock:
             elif pid_alive(holder["pid"]):
                 raise RunLocked(
                     f"another run (process {holder['pid']}, started {holder.get('started_utc')}) is writing into "
-                    f"{self.out}; wait for it to finish or choose another --out (if no run is going, delete {self.path})")
+                    f"{self.out}; wait for it to finish or choose another --out "
+                    f"(if no run is going, delete {self.path})")
             else:
                 self._say(f"taking over the stale lock of process {holder['pid']} (started "
                           f"{holder.get('started_utc')}, no longer running) on {self.out}")
