@@ -150,8 +150,9 @@ def _kind(model: Any) -> str:
     for kind, cls in _KINDS.items():
         if isinstance(model, cls):
             return kind
-    raise ModelInputError(f"a {type(model).__name__} cannot be saved as a run model; riskbench saves "
-                          f"{', '.join(c.__name__ for c in _KINDS.values())} (optionally with a missing-data method).")
+    raise ModelInputError(f"a model of class {type(model).__name__} cannot be saved as a run model yet; riskbench "
+                          f"saves {', '.join(c.__name__ for c in _KINDS.values())} (optionally with a missing-data "
+                          "method).")
 
 
 def _part_name(stem: str, k: int, kind: str) -> str:
@@ -219,10 +220,10 @@ def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, c
     stem = safe_file_stem(name)
     wrapper = model if isinstance(model, MissingDataModel) else None
     parts = list(wrapper.models_) if wrapper is not None else [model]
+    kinds = [_kind(part) for part in parts]  # a family that cannot be saved is refused before anything is written
     covariates = list(wrapper.covariates if wrapper is not None else model.covariates)
     part_docs = []
-    for k, part in enumerate(parts, start=1):
-        kind = _kind(part)
+    for k, (part, kind) in enumerate(zip(parts, kinds), start=1):
         path = folder / _part_name(stem, k, kind)
         part_docs.append({"file": path.name, "kind": kind, "sha256": _save_part(part, path, kind)})
     doc = {

@@ -230,3 +230,18 @@ def test_a_patient_last_seen_on_the_prediction_date_is_scored_one_with_an_event_
     events = set(last.loc[last["kind"] != "end_of_follow_up", "patient_id"])
     assert len(censored & scored) >= 0.9 * len(censored) and not events & scored
     assert rows[["age_at_entry", "pack_years"]].notna().all().all()
+
+
+def test_a_model_family_that_cannot_be_saved_is_refused_before_anything_is_written(run: Path,
+                                                                                   tmp_path: Path) -> None:
+    from riskbench.workflow.model_bundle import save_run_model
+
+    class Unsaveable:
+        covariates = ("age_at_entry",)
+
+    spec = load_model(_bundle(run, "clinical_cox")).cohort_spec()
+    with pytest.raises(ModelInputError, match="cannot be saved"):
+        save_run_model(tmp_path, "other", "landmark_cox", Unsaveable(), cohort_rules=spec,
+                       development=pd.DataFrame({"age_at_entry": [50.0]}), landmarks_days=[0.0],
+                       prediction_window_days=365.25, horizons_days=[365.25])
+    assert not any((tmp_path / "models").glob("*"))
