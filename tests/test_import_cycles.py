@@ -123,8 +123,6 @@ def cycles(graph: dict[str, set[str]]) -> list[list[str]]:
 KNOWN_CYCLES: list[list[str]] = [
     # AnalysisConfig.from_dict builds through config_build, which builds the AnalysisConfig dataclasses.
     ["riskbench.workflow.config", "riskbench.workflow.config_build"],
-    # landmark_report reads years_label from stage_comparison, which calls report_landmark_performance.
-    ["riskbench.workflow.landmark_report", "riskbench.workflow.stage_comparison"],
 ]
 
 

@@ -20,7 +20,7 @@ from riskbench.metrics.inputs import MetricInputError
 from riskbench.report.auc_plot import auc_curve_figure
 from riskbench.report.decision_curve_plot import decision_curve_figure
 from riskbench.report.outputs import save_figure
-from riskbench.report.suppression import complementary_hidden, coarsen_sequence, format_count, round_to_base
+from riskbench.report.suppression import coarsen_sequence, complementary_hidden, format_count, round_to_base
 from riskbench.time_units import DAYS_PER_YEAR, format_duration
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.landmark_performance import (
@@ -30,6 +30,7 @@ from riskbench.validation.landmark_performance import (
     landmark_performance,
 )
 from riskbench.validation.performance import evaluation_time
+from riskbench.workflow.comparison_presentation import years_label
 from riskbench.workflow.config import AnalysisConfig
 from riskbench.workflow.stage_calibration import model_target
 from riskbench.workflow.stage_result import StageResult
@@ -211,8 +212,6 @@ def _write_tables(perf: LandmarkPerformance, rows: EvaluationRows, report_days: 
 
 
 def _write_figures(perf: LandmarkPerformance, result: StageResult, n_boot: int) -> None:
-    from riskbench.workflow.stage_comparison import years_label
-
     band = f"pointwise 95% band from {n_boot} patient-level bootstrap resamples" if n_boot >= 2 else ""
     if len(perf.auc_curve):
         result.figures["auc_curves"] = save_figure(auc_curve_figure(perf.auc_curve, band_label=band),
