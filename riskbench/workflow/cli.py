@@ -99,11 +99,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     debug = bool(getattr(args, "debug", False))
     try:
         return int(args.handler(args) or 0)
-    except (KeyboardInterrupt, Exception) as exc:  # noqa: BLE001 - every failure is one line
+    except (KeyboardInterrupt, Exception) as exc:  # every failure is one line
         status, line = describe_failure(exc, args.command, debug)
         if debug:
             traceback.print_exception(exc, file=sys.stderr)
-            if getattr(exc, "details", ""):  # a stage's own traceback, from inside its notebook
-                print(f"--- traceback inside the stage notebook ---\n{exc.details}", file=sys.stderr)
+            details = getattr(exc, "details", "")  # a stage's own traceback, from inside its notebook
+            if details:
+                print(f"--- traceback inside the stage notebook ---\n{details}", file=sys.stderr)
         print(line, file=sys.stderr)
         return status
