@@ -161,9 +161,9 @@ def test_competing_event_is_comparable_with_every_outcome():
 
 def test_bad_input_messages():
     t, e, x = np.array([1.0, 2.0, 3.0]), np.array([1, 0, 1]), np.array([0.3, 0.2, 0.1])
-    with pytest.raises(MetricInputError, match="differ|entries"):
+    with pytest.raises(MetricInputError, match=r"differ|entries"):
         concordance_harrell(t, e[:2], x)
-    with pytest.raises(MetricInputError, match="`risk`.*missing"):
+    with pytest.raises(MetricInputError, match=r"`risk`.*missing"):
         concordance_harrell(t, e, np.array([0.1, np.nan, 0.2]))
     with pytest.raises(MetricInputError, match="coded 0"):
         concordance_uno(t, np.array([1, 3, 0]), x, 2.5)

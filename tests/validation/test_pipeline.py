@@ -80,7 +80,7 @@ def test_paired_interval_excludes_zero_for_a_strong_imaging_effect(source):
 def test_cross_validation_and_temporal_split(source):
     splits = patient_folds(source.full_tables().counting_process["patient_id"],
                            source.full_tables().counting_process["status"], 3, seed=1)
-    per_spec, per_pair = evaluate_splits([CLINICAL, BOTH], source, splits, [365.0])
+    per_spec, _per_pair = evaluate_splits([CLINICAL, BOTH], source, splits, [365.0])
     assert per_spec["split"].nunique() == 3
     c = per_spec[per_spec["metric"] == "harrell_c"].groupby("spec")["value"].mean()
     assert c["imaging + clinical"] > c["clinical"]
