@@ -76,7 +76,7 @@ def test_ph_test_detects_a_changing_effect_and_global_equals_single():
 
 
 def test_ph_test_errors(rossi_fit):
-    r, table, model, _ = rossi_fit
+    _, table, model, _ = rossi_fit
     with pytest.raises(ModelInputError, match="transform"):
         proportional_hazards_test(model, table, transform="sqrt")
     with pytest.raises(ModelInputError, match="events"):
