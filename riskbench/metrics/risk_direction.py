@@ -11,7 +11,8 @@ from riskbench.metrics.inputs import MetricInputError
 def check_risk_direction(time: np.ndarray, status: np.ndarray, risk: np.ndarray) -> None:
     """Raise when ``risk`` is clearly anti-concordant with the outcome (Harrell's C below 0.35 and more than
     four standard errors below 0.5, over at least 50 comparable pairs): the usual cause is a survival
-    probability passed where the probability of the outcome is expected. Pass ``check_direction=False`` to evaluate a genuinely inverted model.
+    probability passed where the probability of the outcome is expected. Pass ``check_direction=False`` to
+    evaluate a genuinely inverted model.
     """
     if not (status == 1).any() or np.ptp(risk) == 0:
         return
