@@ -9,10 +9,10 @@ Outside checks:
   with outcome hazard a·exp(x) and competing hazard b,
   F(τ | x) = a e^x / (a e^x + b) · (1 − exp(−(a e^x + b) τ)) (Putter, Fiocco & Geskus 2007, Stat Med,
   section 2 — the cumulative incidence of constant cause-specific hazards). Predictions equal to the truth give
-  a slope within Monte Carlo error of 1, an intercept near 0 and an ICI near 0; predictions scaled by 1.5 give O/E = 1/1.5 of the truth's (Austin, Putter, Giardiello & van
-  Klaveren 2022, Diagn Progn Res, use the same checks of a correctly specified model); 1 − S of the
-  cause-specific model is calibrated against 1 − Kaplan–Meier with competing events censored and
-  overestimates the cumulative incidence.
+  a slope within Monte Carlo error of 1, an intercept near 0 and an ICI near 0; predictions scaled by 1.5 give
+  O/E = 1/1.5 of the truth's (Austin, Putter, Giardiello & van Klaveren 2022, Diagn Progn Res, use the same
+  checks of a correctly specified model); 1 − S of the cause-specific model is calibrated against
+  1 − Kaplan–Meier with competing events censored and overestimates the cumulative incidence.
 """
 
 import warnings
