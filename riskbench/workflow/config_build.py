@@ -8,7 +8,7 @@ parameters, the comparison pair, report horizons, scheduler and key file) follow
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -43,7 +43,7 @@ def _models(data: Mapping[str, Any], problems: list[Problem]) -> list[ModelSecti
         try:
             out.append(ModelSection.model_validate(table))
         except ValidationError as exc:
-            problems += schema_problems(exc, ModelSection, table, lambda _t, label=label: label)
+            problems += schema_problems(exc, ModelSection, table, _placed_at(label))
     names = [m.name for m in out]
     for n in sorted({n for n in names if names.count(n) > 1}):
         problems.append(problem("[[models]]", "name", n, "expected a name not used by another model"))
@@ -56,6 +56,11 @@ def _seed(data: Mapping[str, Any], problems: list[Problem]) -> int:
         problems.append(problem("", "seed", seed, "expected an integer >= 0"))
         return 0
     return seed
+
+
+def _placed_at(label: str) -> Callable[[list[Any]], str]:
+    """A problem locator that names every problem of one [[models]] table by that table's label."""
+    return lambda _table: label
 
 
 def _path(text: str, base_dir: Path) -> Path | None:
@@ -92,7 +97,8 @@ def build_config(data: Mapping[str, Any], *, base_dir: Path,
     landmarks = _section("landmarks", data, problems) if "landmarks" in data else None
     models = _models(data, problems)
 
-    if problems or None in (sources, cohort, landmarks, models) or None in sections.values():
+    if (problems or sources is None or cohort is None or landmarks is None or models is None
+            or None in sections.values()):
         return None, problems + _partial_rules(cohort, models, landmarks)
     config = _assemble(original, seed, sources, cohort, landmarks, models, sections, base_dir, config_path,
                        problems)
@@ -171,7 +177,8 @@ def _assemble(data: Mapping[str, Any], seed: int, sources: Any, cohort: Any, lm:
                                 f"[report] effect_units names {show(name)}, which no [[models]] table uses as a "
                                 f"covariate{did_you_mean(name, sorted(used))}"))
     default_key = f"{config_path.stem}.key" if config_path is not None else "riskbench.key"
-    privacy = cfg.PrivacyOptions(key_file=_path(priv.key_file or default_key, base_dir).resolve())
+    key_file = _path(priv.key_file or default_key, base_dir) or Path(default_key)  # the text is never empty
+    privacy = cfg.PrivacyOptions(key_file=key_file.resolve())
     model_configs = tuple(
         cfg.ModelConfig(name=m.name, covariates=tuple(m.covariates), family=m.family, params=dict(m.params),
                         missing_data=m.missing_data)
