@@ -11,12 +11,12 @@ by hand.
 Reference implementation: the R package pmsampsize (Ensor, Martin & Riley), which implements the paper's
 criteria; it was read, not run, and the figures below taken from its tests are **from memory**, checked
 against the paper's formulas. Its criterion (i) is our formula; for the same inputs with 25 parameters it
-expects 4286 participants and 23.07 events per parameter (checked below). Its criterion (ii) source computes max R²cs from lnL_null = E ln(E/n) − E with E = rate · mean
-follow-up · n, as we do, but rounds max R²cs to 2 decimals and the shrinkage to 3 (we do not): about 1%
-more participants (checked below); its test file expects 1306 for 25 parameters, which neither its source's
-formula nor ours gives (866): not resolved. Its criterion (iii) reports the margin of error at max(n(i),
-n(ii)) instead of solving for n; we solve for the smallest n with a margin of at most 0.05, so "met" means
-the same thing (the margin falls as n grows).
+expects 4286 participants and 23.07 events per parameter (checked below). Its criterion (ii) computes max
+R²cs from lnL_null = E ln(E/n) − E with E = rate · mean follow-up · n, as we do, but rounds max R²cs to
+2 decimals and the shrinkage to 3 (we do not): about 1% more participants (checked below); its tests expect
+1306 for 25 parameters, which neither its formula nor ours gives (866): not resolved. Its criterion (iii)
+reports the margin of error at max(n(i), n(ii)) instead of solving for n; we solve for the smallest n with a
+margin of at most 0.05, so "met" means the same thing (the margin falls as n grows).
 """
 
 from __future__ import annotations
