@@ -17,12 +17,17 @@ configured model answers (``fit(table)``, ``predict_risk(table, horizon)``; :mod
   (``value - change``) dated at entry. Such rows therefore use at most two measurements, so resampled
   estimates of the joint model's performance are on the cautious side. A bootstrap copy (``"<id>#<k>"``, see
   :func:`riskbench.validation.sources.draw_tables`) shares its patient's history.
+* ``to_json`` / ``from_json`` (:mod:`riskbench.models.joint_io`): the fitted model without any measurement; a
+  loaded model is given the measurement history of the patients it predicts by ``with_history`` (read from
+  their counting-process table by ``history_from``, as ``fit`` reads it).
 """
 
 from __future__ import annotations
 
+import copy
 import re
 from collections.abc import Sequence
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -33,6 +38,7 @@ from riskbench.models.joint_inputs import (
     staleness_column,
     survival_from_counting_process,
 )
+from riskbench.models.joint_io import read_joint_file, save_joint_model
 from riskbench.models.joint_model import JointModel
 from riskbench.models.risk_contract import ModelInputError, check_horizon, describe_rows, prediction_origin
 
@@ -44,6 +50,12 @@ _COPY_SUFFIX = re.compile(r"#\d+$")
 def patient_key(ids: Sequence[object] | np.ndarray | pd.Series) -> np.ndarray:
     """Patient ids with a bootstrap copy's ``#<k>`` suffix removed (a copy's records are its patient's)."""
     return np.array([_COPY_SUFFIX.sub("", str(i)) for i in ids], dtype=object)
+
+
+def _keyed(measurements: pd.DataFrame) -> pd.DataFrame:
+    """Measurements keyed by patient (a bootstrap copy's suffix removed), one per patient and time."""
+    keyed = measurements.assign(patient_id=patient_key(measurements["patient_id"]))
+    return keyed.drop_duplicates(["patient_id", "time"], ignore_index=True)
 
 
 class SharedTrajectoryModel(BaseEstimator):
@@ -110,20 +122,76 @@ class SharedTrajectoryModel(BaseEstimator):
                     raise ModelInputError(
                         f"covariate '{column}' changes within patients ({describe_rows(table, varying)}); the joint "
                         "model's other covariates must be baseline values -- make a time-varying variable the "
-                        "marker ([[models]] params marker) or leave it out")
+                        "marker ([[models]] params marker) or leave it out"
+                    )
         measurements = measurements_from_counting_process(table, marker)
         survival = survival_from_counting_process(table, baseline)
         self.model_ = JointModel(
-            marker, marker_covariates=baseline, event_covariates=baseline, association=self.association,
-            competing=self.competing, competing_association=self.competing_association,
-            time_knots=self.time_knots, baseline_pieces=self.baseline_pieces, hermite_points=self.hermite_points,
-            prediction_draws=self.prediction_draws, random_state=self.random_state,
+            marker,
+            marker_covariates=baseline,
+            event_covariates=baseline,
+            association=self.association,
+            competing=self.competing,
+            competing_association=self.competing_association,
+            time_knots=self.time_knots,
+            baseline_pieces=self.baseline_pieces,
+            hermite_points=self.hermite_points,
+            prediction_draws=self.prediction_draws,
+            random_state=self.random_state,
         ).fit(measurements, survival)
         self.competing_ = True if self.competing and int((survival["status"] == 2).sum()) > 0 else None
-        keyed = measurements.assign(patient_id=patient_key(measurements["patient_id"]))
-        self.history_ = keyed.drop_duplicates(["patient_id", "time"], ignore_index=True)
+        self.history_ = _keyed(measurements)
         self.max_time_ = self.model_.max_time_
         return self
+
+    def history_from(self, table: pd.DataFrame) -> pd.DataFrame:
+        """The marker's measurements (``patient_id, time`` in days since entry, marker) of a counting-process
+        table, read as :meth:`fit` reads them."""
+        marker = self.model_.marker if hasattr(self, "model_") else self._roles()[0]
+        return _keyed(measurements_from_counting_process(table, marker))
+
+    def with_history(self, measurements: pd.DataFrame) -> SharedTrajectoryModel:
+        """A copy of this fitted model whose predictions read each patient's history from ``measurements``.
+
+        ``measurements`` has the columns of :meth:`history_from` (e.g. the counting-process table of new
+        patients built with the model's cohort rules, through :meth:`history_from`); a row uses only the
+        measurements of its patient taken at or before its landmark. This model is left unchanged.
+        """
+        if not hasattr(self, "model_"):
+            raise ModelInputError("this model is not fitted yet; call fit(counting_process) first")
+        marker = self.model_.marker
+        absent = [c for c in ("patient_id", "time", marker) if c not in measurements.columns]
+        if absent:
+            raise ModelInputError(
+                f"measurement history lacks column(s) {absent}; give patient_id, time (days since entry) and "
+                f"{marker!r}, e.g. history_from(counting_process)"
+            )
+        out = copy.copy(self)
+        out.history_ = _keyed(measurements[["patient_id", "time", marker]])
+        return out
+
+    def to_json(self, path: str | Path) -> Path:
+        """Write the fitted model to ``path`` (:mod:`riskbench.models.joint_io`; no measurement history)."""
+        return save_joint_model(self, path)
+
+    @classmethod
+    def from_json(cls, path: str | Path) -> SharedTrajectoryModel:
+        """Read a model written by :meth:`to_json`; it predicts from the history given by :meth:`with_history`
+        (without one, each row's history is rebuilt from the row, as for a patient it was not fitted on)."""
+        saved = read_joint_file(path)
+        model = cls(**saved.params)
+        model.model_ = saved.model
+        model.competing_ = saved.competing
+        model.max_time_ = saved.model.max_time_
+        model.history_ = pd.DataFrame(
+            {
+                "patient_id": pd.Series(dtype=object),
+                "time": pd.Series(dtype=float),
+                saved.model.marker: pd.Series(dtype=float),
+            }
+        )
+        model.saved_versions_ = saved.versions
+        return model
 
     def _history_for(self, table: pd.DataFrame) -> pd.DataFrame:
         """Stored measurements, plus measurements rebuilt from the rows of patients without a stored history."""
@@ -136,8 +204,11 @@ class SharedTrajectoryModel(BaseEstimator):
         s = prediction_origin(rows)
         value = pd.to_numeric(rows[marker], errors="coerce").to_numpy(dtype=float) if marker in rows else np.nan
         stale_name = staleness_column(marker)
-        age = (pd.to_numeric(rows[stale_name], errors="coerce").to_numpy(dtype=float) if stale_name in rows
-               else np.zeros(len(rows)))
+        age = (
+            pd.to_numeric(rows[stale_name], errors="coerce").to_numpy(dtype=float)
+            if stale_name in rows
+            else np.zeros(len(rows))
+        )
         parts = [pd.DataFrame({"patient_id": keys[unknown], "time": np.clip(s - age, 0.0, None), marker: value})]
         change_name = f"{marker}_change"
         if change_name in rows:
@@ -153,8 +224,7 @@ class SharedTrajectoryModel(BaseEstimator):
         if not hasattr(self, "model_"):
             raise ModelInputError("this model is not fitted yet; call fit(counting_process) first")
         if "patient_id" not in table.columns:
-            raise ModelInputError("prediction table lacks 'patient_id'; the joint model finds each row's history "
-                                  "by it")
+            raise ModelInputError("prediction table lacks 'patient_id'; the joint model finds each row's history by it")
         history = self._history_for(table)
         rows = table.assign(patient_id=patient_key(table["patient_id"]))
         return self.model_.predict_curve(rows, times, measurements=history)
@@ -178,9 +248,10 @@ class SharedTrajectoryModel(BaseEstimator):
         rows = []
         for c, (cause, terms) in enumerate(zip(("outcome", "competing"), structure.cause_terms)):
             _, sl_g, sl_a = structure.layout.cause_slices(c)
-            names = [*structure.cause_covariates[c],
-                     *[self.model_.marker if t == "value" else f"{self.model_.marker}_slope_per_year_true"
-                       for t in terms]]
+            names = [
+                *structure.cause_covariates[c],
+                *[self.model_.marker if t == "value" else f"{self.model_.marker}_slope_per_year_true" for t in terms],
+            ]
             index = [*range(sl_g.start, sl_g.stop), *range(sl_a.start, sl_a.stop)]
             for name, k in zip(names, index):
                 rows.append({"cause": cause, "term": name, "coef": theta[k], "se": np.sqrt(max(cov[k, k], 0.0))})
