@@ -4,7 +4,8 @@ Layout (inside a run folder, ``models/``; ``<stem>`` is :func:`riskbench.report.
 model's name):
 
 ``<stem>.json``
-    The fitted model (``CoxModel`` / ``LandmarkSupermodel`` ``to_json``). A forest is ``<stem>.joblib`` with
+    The fitted model (``CoxModel`` / ``LandmarkSupermodel`` / ``SharedTrajectoryModel`` ``to_json``; a joint
+    model's file holds no measurement, :mod:`riskbench.models.joint_io`). A forest is ``<stem>.joblib`` with
     its ``.sha256`` beside it (:mod:`riskbench.models.forest_io`). A model fitted on multiply imputed data
     consists of m fitted models: ``<stem>.json`` and ``<stem>.part2.json`` ... ``<stem>.part<m>.json``; its
     risk is the mean of the m models' risks, as in the run.
@@ -32,7 +33,10 @@ and returns a :class:`SavedModel`. A changed, missing or foreign file is a
 ``SavedModel.build_tables(sources)`` applies the model's own cohort rules to new raw tables (same input
 contract) and gives one row per patient and landmark with the covariates as known at that landmark;
 ``SavedModel.predict(...)`` gives the risks with per-row flags (a covariate outside the development range, a
-value older than the carry-forward limit, a covariate missing).
+value older than the carry-forward limit, a covariate missing). A joint model
+(``shared_trajectory_joint``) predicts from each patient's own marker measurements up to the landmark: ``predict``
+reads them from the new tables' counting-process rows (:meth:`SavedModel.marker_history`), built with the same
+rules.
 """
 
 from __future__ import annotations
@@ -50,11 +54,13 @@ import numpy as np
 import pandas as pd
 from sklearn.base import clone
 
+from riskbench.cohort import Cohort
 from riskbench.cohort.spec import CohortSpec, StaticSpec, VariableSpec
 from riskbench.models.cox_model import CoxModel
 from riskbench.models.forest import SurvivalForest
 from riskbench.models.forest_io import ModelIntegrityError, file_sha256, load_forest, save_forest
 from riskbench.models.imputation import PredictionImputer, imputation_seeds
+from riskbench.models.joint_family import SharedTrajectoryModel
 from riskbench.models.landmark import LandmarkSupermodel
 from riskbench.models.missing_data import MissingDataModel
 from riskbench.models.model_file import package_versions
@@ -64,8 +70,15 @@ from riskbench.report.outputs import atomic_write_text, safe_file_stem
 from riskbench.validation.apparent_importance import forest_importance
 
 __all__ = [
-    "BUNDLE_FORMAT", "CAUTION", "MODELS", "SavedModel", "bundle_path_of", "cohort_rules_of", "development_ranges",
-    "load_model", "save_run_model",
+    "BUNDLE_FORMAT",
+    "CAUTION",
+    "MODELS",
+    "SavedModel",
+    "bundle_path_of",
+    "cohort_rules_of",
+    "development_ranges",
+    "load_model",
+    "save_run_model",
 ]
 
 BUNDLE_FORMAT = "riskbench.model_bundle"
@@ -75,7 +88,12 @@ MODELS = "models"
 BUNDLE_SUFFIX = ".bundle.json"
 
 #: The part kinds a bundle can hold, with the model class each one loads.
-_KINDS: dict[str, Any] = {"cox": CoxModel, "landmark": LandmarkSupermodel, "forest": SurvivalForest}
+_KINDS: dict[str, Any] = {
+    "cox": CoxModel,
+    "landmark": LandmarkSupermodel,
+    "forest": SurvivalForest,
+    "joint": SharedTrajectoryModel,
+}
 _PART = re.compile(r"\.part\d+$")
 
 
@@ -114,8 +132,9 @@ def cohort_spec_from_rules(rules: Mapping[str, Any]) -> CohortSpec:
             values[key] = tuple(values.get(key, ()))
         return CohortSpec(**values)
     except (TypeError, ValueError) as exc:
-        raise ModelInputError(f"the bundle's cohort_rules do not describe a cohort ({exc}); save the model "
-                              "again from its run.") from None
+        raise ModelInputError(
+            f"the bundle's cohort_rules do not describe a cohort ({exc}); save the model again from its run."
+        ) from None
 
 
 def development_ranges(table: pd.DataFrame, covariates: Sequence[str]) -> dict[str, dict[str, Any]]:
@@ -150,9 +169,11 @@ def _kind(model: Any) -> str:
     for kind, cls in _KINDS.items():
         if isinstance(model, cls):
             return kind
-    raise ModelInputError(f"a model of class {type(model).__name__} cannot be saved as a run model yet; riskbench "
-                          f"saves {', '.join(c.__name__ for c in _KINDS.values())} (optionally with a missing-data "
-                          "method).")
+    raise ModelInputError(
+        f"a model of class {type(model).__name__} cannot be saved as a run model yet; riskbench "
+        f"saves {', '.join(c.__name__ for c in _KINDS.values())} (optionally with a missing-data "
+        "method)."
+    )
 
 
 def _part_name(stem: str, k: int, kind: str) -> str:
@@ -169,9 +190,14 @@ def _save_part(model: Any, path: Path, kind: str) -> str:
 
 def _missing_data_doc(model: MissingDataModel, folder: Path, stem: str) -> dict[str, Any]:
     doc: dict[str, Any] = {
-        "method": model.method, "imputations": int(model.imputations), "max_iterations": int(model.max_iterations),
-        "random_state": int(model.random_state), "fitted_once": bool(model.fitted_once_),
-        "indicator_columns": list(model.indicator_columns_), "medians": dict(model.medians_), "imputer": None,
+        "method": model.method,
+        "imputations": int(model.imputations),
+        "max_iterations": int(model.max_iterations),
+        "random_state": int(model.random_state),
+        "fitted_once": bool(model.fitted_once_),
+        "indicator_columns": list(model.indicator_columns_),
+        "medians": dict(model.medians_),
+        "imputer": None,
     }
     if model.method == "multiple_imputation":
         seeds = imputation_seeds(int(model.random_state), int(model.imputations))
@@ -182,10 +208,20 @@ def _missing_data_doc(model: MissingDataModel, folder: Path, stem: str) -> dict[
     return doc
 
 
-def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, cohort_rules: CohortSpec,
-                   development: pd.DataFrame, landmarks_days: Sequence[float], prediction_window_days: float,
-                   horizons_days: Sequence[float] | np.ndarray, labels: Mapping[str, str] | None = None,
-                   seed: int = 0) -> Path:
+def save_run_model(
+    run_dir: str | Path,
+    name: str,
+    family: str,
+    model: Any,
+    *,
+    cohort_rules: CohortSpec,
+    development: pd.DataFrame,
+    landmarks_days: Sequence[float],
+    prediction_window_days: float,
+    horizons_days: Sequence[float] | np.ndarray,
+    labels: Mapping[str, str] | None = None,
+    seed: int = 0,
+) -> Path:
     """Save a fitted model of a run under ``<run_dir>/models/`` with its bundle description and model sheet.
 
     Parameters
@@ -194,9 +230,10 @@ def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, c
         The run folder (``models/`` is created in it).
     name, family : str
         The model's name (any text: the file stem is derived from it) and family (``landmark_cox``,
-        ``time_varying_cox``, ``forest``).
+        ``time_varying_cox``, ``forest``, ``shared_trajectory_joint``).
     model : fitted model
-        ``CoxModel``, ``LandmarkSupermodel`` or ``SurvivalForest``, or a ``MissingDataModel`` around one.
+        ``CoxModel``, ``LandmarkSupermodel``, ``SurvivalForest`` or ``SharedTrajectoryModel``, or a
+        ``MissingDataModel`` around one of the first three.
     cohort_rules : CohortSpec
         The rules that built the model's input rows.
     development : DataFrame
@@ -227,8 +264,12 @@ def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, c
         path = folder / _part_name(stem, k, kind)
         part_docs.append({"file": path.name, "kind": kind, "sha256": _save_part(part, path, kind)})
     doc = {
-        "format": BUNDLE_FORMAT, "format_version": BUNDLE_VERSION, "name": str(name), "family": str(family),
-        "covariates": covariates, "parts": part_docs,
+        "format": BUNDLE_FORMAT,
+        "format_version": BUNDLE_VERSION,
+        "name": str(name),
+        "family": str(family),
+        "covariates": covariates,
+        "parts": part_docs,
         "missing_data": None if wrapper is None else _missing_data_doc(wrapper, folder, stem),
         "cohort_rules": cohort_rules_of(cohort_rules),
         "landmarks_days": [float(s) for s in landmarks_days],
@@ -236,9 +277,13 @@ def save_run_model(run_dir: str | Path, name: str, family: str, model: Any, *, c
         "horizons_days": [float(h) for h in horizons_days],
         "development_ranges": development_ranges(development, covariates),
         "labels": {c: str(labels[c]) for c in covariates if labels and c in labels},
-        "variable_importance": (forest_importance(model, development, covariates, float(prediction_window_days),
-                                                  seed=seed) if part_docs[0]["kind"] == "forest" else None),
-        "caution": CAUTION, "versions": package_versions(),
+        "variable_importance": (
+            forest_importance(model, development, covariates, float(prediction_window_days), seed=seed)
+            if part_docs[0]["kind"] == "forest"
+            else None
+        ),
+        "caution": CAUTION,
+        "versions": package_versions(),
     }
     bundle = folder / f"{stem}{BUNDLE_SUFFIX}"
     atomic_write_text(bundle, json.dumps(doc, indent=1, allow_nan=True))
@@ -267,14 +312,16 @@ def _checked_file(folder: Path, entry: Mapping[str, Any], what: str, bundle: Pat
     name = str(entry.get("file", ""))
     path = folder / name
     if not name or Path(name).name != name or not path.is_file():
-        raise ModelInputError(f"{bundle} names {what} {name!r}, which is not a file beside it; copy the whole "
-                              "models/ folder of the run.")
+        raise ModelInputError(
+            f"{bundle} names {what} {name!r}, which is not a file beside it; copy the whole models/ folder of the run."
+        )
     expected = str(entry.get("sha256", "")).lower()
     actual = file_sha256(path)
     if actual != expected:
         raise ModelIntegrityError(
             f"{path} has SHA-256 {actual}, but {bundle} records {expected or '(nothing)'}: the file was changed "
-            "or replaced after saving; refusing to load it. Take the model from a trusted copy of the run.")
+            "or replaced after saving; refusing to load it. Take the model from a trusted copy of the run."
+        )
     return path
 
 
@@ -292,24 +339,41 @@ def _check_against_manifest(bundle: Path) -> None:
     if expected is not None and file_sha256(bundle) != expected:
         raise ModelIntegrityError(
             f"{bundle} does not match the SHA-256 that the run's manifest.json records for it: the bundle was "
-            "changed after the run; refusing to load it. Take the model from a trusted copy of the run.")
+            "changed after the run; refusing to load it. Take the model from a trusted copy of the run."
+        )
 
 
 def _read_bundle(bundle: Path) -> dict[str, Any]:
     try:
         doc = json.loads(bundle.read_text(encoding="utf-8"))
     except FileNotFoundError:
-        raise ModelInputError(f"no model bundle at {bundle}; give the <model>.bundle.json file of a run's "
-                              "models/ folder (or the model file beside it).") from None
+        raise ModelInputError(
+            f"no model bundle at {bundle}; give the <model>.bundle.json file of a run's "
+            "models/ folder (or the model file beside it)."
+        ) from None
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise ModelInputError(f"cannot read the model bundle {bundle}: {exc}") from None
     if not isinstance(doc, dict) or doc.get("format") != BUNDLE_FORMAT:
         raise ModelInputError(f"{bundle} is not a riskbench model bundle (format {BUNDLE_FORMAT!r} expected).")
     if int(doc.get("format_version", 0)) > BUNDLE_VERSION:
-        raise ModelInputError(f"{bundle} has bundle format version {doc['format_version']}, newer than this "
-                              f"riskbench reads ({BUNDLE_VERSION}); upgrade riskbench.")
-    missing = [k for k in ("name", "family", "covariates", "parts", "cohort_rules", "landmarks_days",
-                           "prediction_window_days", "development_ranges") if k not in doc]
+        raise ModelInputError(
+            f"{bundle} has bundle format version {doc['format_version']}, newer than this "
+            f"riskbench reads ({BUNDLE_VERSION}); upgrade riskbench."
+        )
+    missing = [
+        k
+        for k in (
+            "name",
+            "family",
+            "covariates",
+            "parts",
+            "cohort_rules",
+            "landmarks_days",
+            "prediction_window_days",
+            "development_ranges",
+        )
+        if k not in doc
+    ]
     if missing or not doc["parts"]:
         raise ModelInputError(f"{bundle} lacks {missing or ['parts']}; save the model again from its run.")
     return doc
@@ -323,12 +387,18 @@ def _load_part(path: Path, kind: str) -> Any:
     return _KINDS[kind].from_json(path)
 
 
-def _restore_missing_data(doc: Mapping[str, Any], parts: list[Any], covariates: list[str], folder: Path,
-                          bundle: Path) -> MissingDataModel:
+def _restore_missing_data(
+    doc: Mapping[str, Any], parts: list[Any], covariates: list[str], folder: Path, bundle: Path
+) -> MissingDataModel:
     """The run's ``MissingDataModel`` rebuilt from its saved parts (private fitted state set on purpose)."""
     estimator = clone(parts[0]).set_params(covariates=list(covariates))
-    model = MissingDataModel(estimator, method=doc["method"], imputations=int(doc["imputations"]),
-                             max_iterations=int(doc["max_iterations"]), random_state=int(doc["random_state"]))
+    model = MissingDataModel(
+        estimator,
+        method=doc["method"],
+        imputations=int(doc["imputations"]),
+        max_iterations=int(doc["max_iterations"]),
+        random_state=int(doc["random_state"]),
+    )
     model.models_ = parts
     model.fitted_once_ = bool(doc["fitted_once"])
     model.indicator_columns_ = list(doc.get("indicator_columns", []))
@@ -337,8 +407,9 @@ def _restore_missing_data(doc: Mapping[str, Any], parts: list[Any], covariates: 
     model.note_ = f"{doc['method']}: loaded from {bundle.name}"
     if doc["method"] == "multiple_imputation":
         if not doc.get("imputer"):
-            raise ModelInputError(f"{bundle}: a multiple-imputation model without its imputer file; save the "
-                                  "model again from its run.")
+            raise ModelInputError(
+                f"{bundle}: a multiple-imputation model without its imputer file; save the model again from its run."
+            )
         path = _checked_file(folder, doc["imputer"], "the imputer", bundle)
         imputer = joblib.load(path)
         if not isinstance(imputer, PredictionImputer):
@@ -360,20 +431,30 @@ def load_model(path: str | Path) -> SavedModel:
     doc = _read_bundle(bundle)
     _check_against_manifest(bundle)
     folder = bundle.parent
-    parts = [_load_part(_checked_file(folder, entry, "the model file", bundle), str(entry.get("kind")))
-             for entry in doc["parts"]]
+    parts = [
+        _load_part(_checked_file(folder, entry, "the model file", bundle), str(entry.get("kind")))
+        for entry in doc["parts"]
+    ]
     covariates = [str(c) for c in doc["covariates"]]
     md = doc.get("missing_data")
     model = parts[0] if md is None else _restore_missing_data(md, parts, covariates, folder, bundle)
     return SavedModel(
-        name=str(doc["name"]), family=str(doc["family"]), model=model, parts=tuple(parts),
-        covariates=tuple(covariates), cohort_rules=dict(doc["cohort_rules"]),
+        name=str(doc["name"]),
+        family=str(doc["family"]),
+        model=model,
+        parts=tuple(parts),
+        covariates=tuple(covariates),
+        cohort_rules=dict(doc["cohort_rules"]),
         landmarks_days=tuple(float(s) for s in doc["landmarks_days"]),
         prediction_window_days=float(doc["prediction_window_days"]),
         horizons_days=tuple(float(h) for h in doc.get("horizons_days", [doc["prediction_window_days"]])),
-        development_ranges=dict(doc["development_ranges"]), missing_data=md, labels=dict(doc.get("labels", {})),
+        development_ranges=dict(doc["development_ranges"]),
+        missing_data=md,
+        labels=dict(doc.get("labels", {})),
         variable_importance=doc.get("variable_importance"),
-        bundle_path=bundle, versions=dict(doc.get("versions", {})))
+        bundle_path=bundle,
+        versions=dict(doc.get("versions", {})),
+    )
 
 
 # --------------------------------------------------------------------------------------------------
@@ -430,8 +511,10 @@ class SavedModel:
         allowed = {"columns", "date_format", "measurement_layout", "kind_map"}
         other = sorted(set(reading) - allowed)
         if other:
-            raise ModelInputError(f"cohort_spec: {other} are rules of the model and cannot be changed; only "
-                                  f"{sorted(allowed)} describe the new sources.")
+            raise ModelInputError(
+                f"cohort_spec: {other} are rules of the model and cannot be changed; only "
+                f"{sorted(allowed)} describe the new sources."
+            )
         return cohort_spec_from_rules({**self.cohort_rules, **reading})
 
     @property
@@ -440,9 +523,17 @@ class SavedModel:
         value = self.cohort_rules.get("max_carry_days")
         return None if value is None else float(value)
 
-    def build_tables(self, patients: Any, measurements: Any, outcomes: Any, *,
-                     landmarks_days: Sequence[float] | None = None, at_date: Any = None,
-                     temp_folder: str | Path | None = None, **reading: Any) -> pd.DataFrame:
+    def build_tables(
+        self,
+        patients: Any,
+        measurements: Any,
+        outcomes: Any,
+        *,
+        landmarks_days: Sequence[float] | None = None,
+        at_date: Any = None,
+        temp_folder: str | Path | None = None,
+        **reading: Any,
+    ) -> pd.DataFrame:
         """Rows to predict from new raw tables, built with the model's own cohort rules.
 
         Parameters
@@ -467,33 +558,80 @@ class SavedModel:
             covariates as known at s and the staleness of each variable; patients whose follow-up ended at or
             before s are left out (no risk can be predicted for them).
         """
+        cohort = self.build_cohort(patients, measurements, outcomes, temp_folder=temp_folder, **reading)
+        return self.rows_of(cohort, landmarks_days=landmarks_days, at_date=at_date)
+
+    def build_cohort(
+        self, patients: Any, measurements: Any, outcomes: Any, *, temp_folder: str | Path | None = None, **reading: Any
+    ) -> Cohort:
+        """The cohort of new raw tables built with the model's own cohort rules (arguments as in
+        :meth:`build_tables`)."""
         from riskbench.cohort import build_cohort
-        from riskbench.workflow.scoring_rows import rows_at_dates, rows_at_landmarks
 
         spec = self.cohort_spec(**reading)
-        cohort = build_cohort(patients, measurements, outcomes, spec, temp_folder=temp_folder)
+        return build_cohort(patients, measurements, outcomes, spec, temp_folder=temp_folder)
+
+    def rows_of(
+        self, cohort: Cohort, *, landmarks_days: Sequence[float] | None = None, at_date: Any = None
+    ) -> pd.DataFrame:
+        """Rows to predict of a cohort from :meth:`build_cohort`, at landmarks (days; default the model's) or at a
+        calendar date (see :meth:`build_tables`)."""
+        from riskbench.workflow.scoring_rows import rows_at_dates, rows_at_landmarks
+
         if at_date is not None:
             return rows_at_dates(cohort, at_date)
         marks = self.landmarks_days if landmarks_days is None else tuple(float(s) for s in landmarks_days)
         return rows_at_landmarks(cohort, marks, self.prediction_window_days)
+
+    def marker_history(self, cohort: Cohort) -> pd.DataFrame | None:
+        """A joint model's input besides the rows: the marker measurements of the cohort's patients
+        (``patient_id``, ``time`` in days since entry, the marker), read from its counting-process rows as the
+        model read them in development. None for the other families (their rows hold all they read)."""
+        part = self.parts[0]
+        return part.history_from(cohort.counting_process) if isinstance(part, SharedTrajectoryModel) else None
+
+    def model_with_history(self, marker_history: pd.DataFrame | None) -> Any:
+        """The model to predict with: a joint model reading ``marker_history`` (:meth:`marker_history`), any
+        other model as loaded."""
+        if marker_history is None or not isinstance(self.model, SharedTrajectoryModel):
+            return self.model
+        return self.model.with_history(marker_history)
+
+    @property
+    def required_covariates(self) -> tuple[str, ...]:
+        """Covariates a row must have to be predicted without a missing-data method: all of them, but a joint
+        model's marker (a row without a value is a patient not yet measured; the model reads the history)."""
+        part = self.parts[0]
+        if isinstance(part, SharedTrajectoryModel):
+            return tuple(c for c in self.covariates if c != part.model_.marker)
+        return self.covariates
 
     def flags(self, rows: pd.DataFrame) -> pd.DataFrame:
         """Per row: covariates outside the development range, variables whose last value is older than the
         carry-forward limit, and covariates missing (each a ``;``-separated list of covariate names)."""
         from riskbench.workflow.scoring_rows import row_flags
 
-        return row_flags(rows, self.covariates, self.development_ranges, self.cohort_spec(),
-                         self.max_carry_days)
+        return row_flags(rows, self.covariates, self.development_ranges, self.cohort_spec(), self.max_carry_days)
 
-    def predict(self, rows: pd.DataFrame | None = None, *, sources: Sequence[Any] | None = None,
-                landmarks_days: Sequence[float] | None = None, at_date: Any = None,
-                horizons_days: Sequence[float] | None = None) -> pd.DataFrame:
+    def predict(
+        self,
+        rows: pd.DataFrame | None = None,
+        *,
+        sources: Sequence[Any] | None = None,
+        landmarks_days: Sequence[float] | None = None,
+        at_date: Any = None,
+        horizons_days: Sequence[float] | None = None,
+        marker_history: pd.DataFrame | None = None,
+    ) -> pd.DataFrame:
         """Predicted risks, one row per input row and horizon.
 
         Give either ``rows`` (covariates as known at ``landmark``, e.g. from :meth:`build_tables` or a run's
         landmark stack) or ``sources`` = (patients, measurements, outcomes), which are built into rows with the
         model's cohort rules at ``landmarks_days`` or ``at_date``. ``horizons_days`` defaults to the model's
-        prediction window.
+        prediction window. A joint model reads each patient's marker measurements up to the row's landmark:
+        from ``sources`` they are taken from the built cohort; with ``rows`` give them as ``marker_history``
+        (:meth:`marker_history` of the rows' cohort), or each row's history is rebuilt from the row alone (its
+        current value and first value, as for a held-out patient).
 
         Returns
         -------
@@ -509,14 +647,16 @@ class SavedModel:
             assert sources is not None
             if len(sources) != 3:
                 raise ModelInputError("sources must be (patients, measurements, outcomes).")
-            rows = self.build_tables(*sources, landmarks_days=landmarks_days, at_date=at_date)
-        horizons = ((self.prediction_window_days,) if horizons_days is None
-                    else tuple(float(h) for h in horizons_days))
+            cohort = self.build_cohort(*sources)
+            rows = self.rows_of(cohort, landmarks_days=landmarks_days, at_date=at_date)
+            marker_history = self.marker_history(cohort)
+        horizons = (self.prediction_window_days,) if horizons_days is None else tuple(float(h) for h in horizons_days)
         from riskbench.models.risk_contract import risk_curve
 
         curve = np.full((len(rows), len(horizons)), np.nan)
         if len(rows):
-            curve = np.asarray(risk_curve(self.model, rows.reset_index(drop=True), np.asarray(horizons)), float)
+            model = self.model_with_history(marker_history)
+            curve = np.asarray(risk_curve(model, rows.reset_index(drop=True), np.asarray(horizons)), float)
         keep = [c for c in ("patient_id", "landmark", "prediction_date") if c in rows.columns]
         base = pd.concat([rows[keep].reset_index(drop=True), self.flags(rows).reset_index(drop=True)], axis=1)
         frames = []
@@ -526,4 +666,3 @@ class SavedModel:
             part.insert(len(keep) + 1, "risk", curve[:, j])
             frames.append(part)
         return pd.concat(frames, ignore_index=True) if frames else base
-

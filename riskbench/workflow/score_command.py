@@ -7,8 +7,9 @@ format, encoding; a whole analysis configuration, or a file holding only ``[sour
 kind_map`` and ``[privacy] key_file``) or from a folder holding ``patients``, ``measurements`` and ``outcomes`` as
 ``.csv`` or ``.parquet`` with our column names (``--data``; without an outcomes table, ``--followed-until`` says
 the day every patient was last seen). The rows are built with the MODEL's cohort rules
-(:meth:`riskbench.workflow.model_bundle.SavedModel.build_tables`), never with the configuration's, at the
-model's landmarks, at ``--landmarks`` or at one calendar date (``--at-date``).
+(:meth:`riskbench.workflow.model_bundle.SavedModel.build_cohort`), never with the configuration's, at the
+model's landmarks, at ``--landmarks`` or at one calendar date (``--at-date``); a joint model reads each
+patient's marker measurements up to the row's landmark from the same cohort.
 
 The output folder (made like a run folder: a marker file, replaced with ``--overwrite`` only when it carries
 the marker) holds ``risks.csv`` -- one row per patient, landmark and horizon with the risk and the per-row
@@ -79,12 +80,16 @@ def _folder_tables(folder: Path, followed_until: str | None = None) -> tuple[Any
             continue
         if path is None:
             hint = " (or give --followed-until for patients still under surveillance)" if name == "outcomes" else ""
-            raise ScoreInputError(f"--data {folder}: no {name}.parquet or {name}.csv there; the folder must hold "
-                                  f"the three tables of the input contract (patients, measurements, outcomes){hint}")
+            raise ScoreInputError(
+                f"--data {folder}: no {name}.parquet or {name}.csv there; the folder must hold "
+                f"the three tables of the input contract (patients, measurements, outcomes){hint}"
+            )
         found.append(path)
     if followed_until is not None and not isinstance(found[2], pd.DataFrame):
-        raise ScoreInputError(f"--followed-until is for a --data folder without an outcomes table, but {found[2]} "
-                              "exists; remove the option or the table")
+        raise ScoreInputError(
+            f"--followed-until is for a --data folder without an outcomes table, but {found[2]} "
+            "exists; remove the option or the table"
+        )
     return found[0], found[1], found[2]
 
 
@@ -101,8 +106,9 @@ def _open_follow_up(patients: Path, followed_until: str) -> pd.DataFrame:
     return pd.DataFrame({"patient_id": ids.to_numpy(), "date": day, "kind": "end_of_follow_up"})
 
 
-def new_tables(config_path: str | Path | None, data: str | Path | None,
-               followed_until: str | None = None) -> tuple[tuple[Any, Any, Any], dict[str, Any], Path | None]:
+def new_tables(
+    config_path: str | Path | None, data: str | Path | None, followed_until: str | None = None
+) -> tuple[tuple[Any, Any, Any], dict[str, Any], Path | None]:
     """The three sources of the patients to score, the reading keys, and the pseudonym key file of the
     configuration (None with ``--data``).
 
@@ -110,13 +116,17 @@ def new_tables(config_path: str | Path | None, data: str | Path | None,
     holding only ``[sources]`` (with optional ``[cohort] kind_map`` and ``[privacy] key_file``).
     """
     if (config_path is None) == (data is None):
-        raise ScoreInputError("give the new patients' tables with --config (a configuration whose [sources] name "
-                              "them) or --data (a folder with patients, measurements and outcomes)")
+        raise ScoreInputError(
+            "give the new patients' tables with --config (a configuration whose [sources] name "
+            "them) or --data (a folder with patients, measurements and outcomes)"
+        )
     if data is not None:
         return _folder_tables(Path(data), followed_until), {}, None
     if followed_until is not None:
-        raise ScoreInputError("--followed-until goes with --data (a folder without an outcomes table); with "
-                              "--config, give the outcomes table in [sources]")
+        raise ScoreInputError(
+            "--followed-until goes with --data (a folder without an outcomes table); with "
+            "--config, give the outcomes table in [sources]"
+        )
     assert config_path is not None
     path = Path(config_path)
     try:
@@ -129,19 +139,27 @@ def new_tables(config_path: str | Path | None, data: str | Path | None,
 
         config = load_config(path)
         src = config.sources
-        return (src.patients, src.measurements, src.outcomes), {"kind_map": dict(config.cohort.kind_map)}, \
-            key_file_of(config)
+        return (
+            (src.patients, src.measurements, src.outcomes),
+            {"kind_map": dict(config.cohort.kind_map)},
+            key_file_of(config),
+        )
     if not isinstance(raw.get("sources"), dict):
-        raise ScoreInputError(f"{path} has no [sources] section naming the patients, measurements and outcomes "
-                              "tables of the patients to score")
+        raise ScoreInputError(
+            f"{path} has no [sources] section naming the patients, measurements and outcomes "
+            "tables of the patients to score"
+        )
     from riskbench.cohort.config_schema import read_sources
 
     base = path.resolve().parent
     src = read_sources(raw["sources"], base)
     kind_map = dict((raw.get("cohort") or {}).get("kind_map") or {})
     key = (raw.get("privacy") or {}).get("key_file") or f"{path.stem}.key"
-    return (src.patients, src.measurements, src.outcomes), {"kind_map": kind_map} if kind_map else {}, \
-        (base / key).resolve()
+    return (
+        (src.patients, src.measurements, src.outcomes),
+        {"kind_map": kind_map} if kind_map else {},
+        (base / key).resolve(),
+    )
 
 
 def predictable_rows(saved: SavedModel, rows: pd.DataFrame) -> np.ndarray:
@@ -149,7 +167,8 @@ def predictable_rows(saved: SavedModel, rows: pd.DataFrame) -> np.ndarray:
 
     A landmark super-model with one baseline per landmark predicts only at its fitted landmarks, one with a
     smooth baseline only inside the range of its fitted landmarks (it would extrapolate outside); a model
-    without a missing-data method, or with complete cases, needs every covariate.
+    without a missing-data method, or with complete cases, needs every covariate (a joint model every one but
+    its marker, which it reads from the patient's measurement history).
     """
     landmarks = rows["landmark"].to_numpy(float)
     why = np.full(len(rows), "", dtype=object)
@@ -165,7 +184,7 @@ def predictable_rows(saved: SavedModel, rows: pd.DataFrame) -> np.ndarray:
         why[off] = text
     method = None if saved.missing_data is None else saved.missing_data.get("method")
     if method in (None, "complete_cases"):
-        missing = rows[list(saved.covariates)].isna().any(axis=1).to_numpy()
+        missing = rows[list(saved.required_covariates)].isna().any(axis=1).to_numpy()
         why[missing & (why == "")] = "a covariate is missing and the model uses complete cases only"
     return why
 
@@ -181,12 +200,18 @@ def _readme(saved: SavedModel, keep_ids: bool, at_date: Any, horizons: Sequence[
     from riskbench.models.forest_io import file_sha256
 
     bundle = saved.bundle_path
-    who = ("patient_id: the identifiers of your source tables. This file identifies patients: keep it on this "
-           "machine and within your data-protection rules; riskbench sent nothing elsewhere." if keep_ids else
-           "patient: run pseudonyms (keyed HMAC-SHA-256 of the source id). Nothing maps them back to ids; with the "
-           "key file the same ids give the same pseudonyms again. The source ids stayed on this machine.")
-    when = (f"prediction_date: the date of the prediction ({at_date}); landmark_days: days from entry to it."
-            if at_date is not None else "landmark_days: the landmark s, days since the patient's entry.")
+    who = (
+        "patient_id: the identifiers of your source tables. This file identifies patients: keep it on this "
+        "machine and within your data-protection rules; riskbench sent nothing elsewhere."
+        if keep_ids
+        else "patient: run pseudonyms (keyed HMAC-SHA-256 of the source id). Nothing maps them back to ids; with the "
+        "key file the same ids give the same pseudonyms again. The source ids stayed on this machine."
+    )
+    when = (
+        f"prediction_date: the date of the prediction ({at_date}); landmark_days: days from entry to it."
+        if at_date is not None
+        else "landmark_days: the landmark s, days since the patient's entry."
+    )
     lines = [
         "Predicted risks from a saved riskbench model",
         "",
@@ -214,11 +239,20 @@ def _readme(saved: SavedModel, keep_ids: bool, at_date: Any, horizons: Sequence[
     return "\n".join(lines) + "\n"
 
 
-def score_patients(model_path: str | Path, out: str | Path, *, config: str | Path | None = None,
-                   data: str | Path | None = None, landmarks: Sequence[str] | None = None,
-                   at_date: str | None = None, horizons: Sequence[str] | None = None, keep_ids: bool = False,
-                   key_file: str | Path | None = None, overwrite: bool = False,
-                   followed_until: str | None = None) -> ScoredPatients:
+def score_patients(
+    model_path: str | Path,
+    out: str | Path,
+    *,
+    config: str | Path | None = None,
+    data: str | Path | None = None,
+    landmarks: Sequence[str] | None = None,
+    at_date: str | None = None,
+    horizons: Sequence[str] | None = None,
+    keep_ids: bool = False,
+    key_file: str | Path | None = None,
+    overwrite: bool = False,
+    followed_until: str | None = None,
+) -> ScoredPatients:
     """Score the patients of new raw tables with a saved model into the folder ``out`` (module docstring).
 
     ``landmarks`` and ``horizons`` are durations with units (``"1 year"``); ``at_date`` a date ``YYYY-MM-DD``;
@@ -239,14 +273,18 @@ def score_patients(model_path: str | Path, out: str | Path, *, config: str | Pat
     hs = [saved.prediction_window_days] if not horizons else [parse_duration(t) for t in horizons]
     fresh_output_folder(out, overwrite, "the output of score-patients")
     with tempfile.TemporaryDirectory(prefix=".score-", dir=out) as temp:
-        rows = saved.build_tables(*sources, landmarks_days=marks, at_date=at_date, temp_folder=temp, **reading)
+        cohort = saved.build_cohort(*sources, temp_folder=temp, **reading)
+        rows = saved.rows_of(cohort, landmarks_days=marks, at_date=at_date)
+        history = saved.marker_history(cohort)  # a joint model's measurements up to each landmark
     if rows.empty:
-        raise ScoreInputError("no patient of the new tables is under follow-up at the requested landmarks or date "
-                              "(follow-up ends with the last outcomes row; add an end_of_follow_up row on the day "
-                              "the data were extracted)")
+        raise ScoreInputError(
+            "no patient of the new tables is under follow-up at the requested landmarks or date "
+            "(follow-up ends with the last outcomes row; add an end_of_follow_up row on the day "
+            "the data were extracted)"
+        )
     why = predictable_rows(saved, rows)
     ok = why == ""
-    table = saved.predict(rows[ok].reset_index(drop=True), horizons_days=hs)
+    table = saved.predict(rows[ok].reset_index(drop=True), horizons_days=hs, marker_history=history)
     table["not_predicted"] = ""
     if not ok.all():
         skipped = _unpredicted(saved, rows[~ok], hs)
@@ -264,9 +302,14 @@ def score_patients(model_path: str | Path, out: str | Path, *, config: str | Pat
     atomic_write_text(out / README_FILE, _readme(saved, keep_ids, at_date, hs, len(table)))
     write_marker(out, "complete")
     flagged = (table[list(FLAG_COLUMNS[:2])] != "").any(axis=1)
-    return ScoredPatients(out=out, model=saved.name, risks=table, n_patients=n_patients,
-                          n_flagged=int(flagged.sum()),
-                          n_not_predicted=int(table["risk"].isna().sum()))
+    return ScoredPatients(
+        out=out,
+        model=saved.name,
+        risks=table,
+        n_patients=n_patients,
+        n_flagged=int(flagged.sum()),
+        n_not_predicted=int(table["risk"].isna().sum()),
+    )
 
 
 def _unpredicted(saved: SavedModel, rows: pd.DataFrame, horizons: Sequence[float]) -> pd.DataFrame:
@@ -283,11 +326,23 @@ def _unpredicted(saved: SavedModel, rows: pd.DataFrame, horizons: Sequence[float
 
 
 def _score(args: argparse.Namespace) -> int:
-    result = score_patients(args.model, args.out, config=args.config, data=args.data, landmarks=args.landmarks,
-                            at_date=args.at_date, horizons=args.horizons, keep_ids=args.keep_ids,
-                            key_file=args.key_file, overwrite=args.overwrite, followed_until=args.followed_until)
-    print(f"scored {result.n_patients} patients ({len(result.risks)} rows) with model {result.model!r}; rows "
-          f"flagged: {result.n_flagged}; rows without a risk: {result.n_not_predicted}")
+    result = score_patients(
+        args.model,
+        args.out,
+        config=args.config,
+        data=args.data,
+        landmarks=args.landmarks,
+        at_date=args.at_date,
+        horizons=args.horizons,
+        keep_ids=args.keep_ids,
+        key_file=args.key_file,
+        overwrite=args.overwrite,
+        followed_until=args.followed_until,
+    )
+    print(
+        f"scored {result.n_patients} patients ({len(result.risks)} rows) with model {result.model!r}; rows "
+        f"flagged: {result.n_flagged}; rows without a risk: {result.n_not_predicted}"
+    )
     print("research software, not a medical device: read README.txt before using the risks")
     print(result.out / RISKS_FILE)
     return 0
@@ -302,22 +357,40 @@ def register(subparsers: argparse._SubParsersAction) -> None:
             "Build the new patients' rows with the saved model's own cohort rules and write risks.csv (risk per "
             "patient, landmark or prediction date, and horizon, with flags for values outside the development "
             "range or older than the carry-forward limit) and README.txt into OUT. Patients appear under "
-            "pseudonyms unless --keep-ids; ids never leave this machine."),
+            "pseudonyms unless --keep-ids; ids never leave this machine."
+        ),
     )
     sub.add_argument("model", help="a saved model: models/<name>.bundle.json of a run (or the model file beside it)")
     sub.add_argument("--out", required=True, help="output folder to create")
-    sub.add_argument("--config", help="configuration whose [sources] name the new patients' tables (a whole analysis "
-                     "configuration or only [sources])")
+    sub.add_argument(
+        "--config",
+        help="configuration whose [sources] name the new patients' tables (a whole analysis "
+        "configuration or only [sources])",
+    )
     sub.add_argument("--data", help="folder with patients, measurements and outcomes (.csv or .parquet)")
-    sub.add_argument("--landmarks", nargs="+", metavar="DURATION",
-                     help='landmarks since entry, e.g. "0 years" "1 year" (default: the model\'s landmarks)')
-    sub.add_argument("--followed-until", metavar="YYYY-MM-DD",
-                     help="with --data and no outcomes table: every patient is under surveillance, last seen then")
+    sub.add_argument(
+        "--landmarks",
+        nargs="+",
+        metavar="DURATION",
+        help='landmarks since entry, e.g. "0 years" "1 year" (default: the model\'s landmarks)',
+    )
+    sub.add_argument(
+        "--followed-until",
+        metavar="YYYY-MM-DD",
+        help="with --data and no outcomes table: every patient is under surveillance, last seen then",
+    )
     sub.add_argument("--at-date", metavar="YYYY-MM-DD", help="predict at this calendar date instead of landmarks")
-    sub.add_argument("--horizons", nargs="+", metavar="DURATION",
-                     help='prediction horizons, e.g. "1 year" "2 years" (default: the model\'s window)')
-    sub.add_argument("--keep-ids", action="store_true",
-                     help="write the source patient ids instead of pseudonyms (the file then stays on this machine)")
+    sub.add_argument(
+        "--horizons",
+        nargs="+",
+        metavar="DURATION",
+        help='prediction horizons, e.g. "1 year" "2 years" (default: the model\'s window)',
+    )
+    sub.add_argument(
+        "--keep-ids",
+        action="store_true",
+        help="write the source patient ids instead of pseudonyms (the file then stays on this machine)",
+    )
     sub.add_argument("--key-file", help="pseudonym key file (default: the configuration's, or OUT.key beside OUT)")
     sub.add_argument("--overwrite", action="store_true", help="replace OUT if an earlier score-patients made it")
     sub.set_defaults(handler=_score)

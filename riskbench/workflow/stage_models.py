@@ -31,6 +31,7 @@ from riskbench.models.missing_data import rows_without_prediction
 from riskbench.models.risk_contract import risk_curve
 from riskbench.report.notes import Note, save_notes
 from riskbench.report.outputs import load_data, save_data, save_figure, save_table
+from riskbench.validation.model_specs import COUNTING_PROCESS_FAMILIES
 from riskbench.workflow.config import AnalysisConfig, ConfigError
 from riskbench.workflow.fit_diagnosis import describe_fit_failure, describe_warnings
 from riskbench.workflow.joint_outputs import joint_model_outputs
@@ -53,8 +54,9 @@ def evaluation_horizons(config: AnalysisConfig, n_grid: int = 8) -> np.ndarray:
     return np.unique(np.round(np.r_[grid, config.report.horizons_days], 6))
 
 
-def predictions_long(model: Any, stack: pd.DataFrame, name: str, horizons: np.ndarray,
-                     rows: np.ndarray | None = None) -> pd.DataFrame:
+def predictions_long(
+    model: Any, stack: pd.DataFrame, name: str, horizons: np.ndarray, rows: np.ndarray | None = None
+) -> pd.DataFrame:
     """Risks of ``model`` for the stack rows at each horizon, as ``row, model, horizon, risk``.
 
     Raises
@@ -67,14 +69,17 @@ def predictions_long(model: Any, stack: pd.DataFrame, name: str, horizons: np.nd
     if bad.any():
         raise FloatingPointError(
             f"{int(bad.any(axis=1).sum())} of {len(stack)} predicted risks are not finite numbers "
-            "(overflow: some coefficients are extreme)")
+            "(overflow: some coefficients are extreme)"
+        )
     rows = np.arange(len(stack)) if rows is None else rows
-    return pd.DataFrame({
-        "row": np.repeat(rows, len(horizons)),
-        "model": name,
-        "horizon": np.tile(horizons, len(stack)),
-        "risk": curve.reshape(-1),
-    })
+    return pd.DataFrame(
+        {
+            "row": np.repeat(rows, len(horizons)),
+            "model": name,
+            "horizon": np.tile(horizons, len(stack)),
+            "risk": curve.reshape(-1),
+        }
+    )
 
 
 @dataclass
@@ -87,10 +92,19 @@ class RecordedFit:
     failure: str | None = None
 
 
-def fit_recorded(spec: Any, fit_stack: pd.DataFrame, fit_cp: pd.DataFrame | None, *, seed: int,
-                 threshold: int, horizons: np.ndarray, predict_stack: pd.DataFrame,
-                 predict_rows: np.ndarray | None = None, where: str = "on the whole cohort",
-                 missing_data: Any = None) -> RecordedFit:
+def fit_recorded(
+    spec: Any,
+    fit_stack: pd.DataFrame,
+    fit_cp: pd.DataFrame | None,
+    *,
+    seed: int,
+    threshold: int,
+    horizons: np.ndarray,
+    predict_stack: pd.DataFrame,
+    predict_rows: np.ndarray | None = None,
+    where: str = "on the whole cohort",
+    missing_data: Any = None,
+) -> RecordedFit:
     """Fit one configured model and predict ``predict_stack``, recording warnings and catching failures.
 
     A fit or prediction that fails with a numerical or data error gives ``failure`` (a sentence naming the
@@ -120,8 +134,9 @@ def outcome_hazard_ratios(summary: pd.DataFrame) -> pd.DataFrame:
     return summary.reset_index(drop=True)
 
 
-def hazard_ratio_figure(tables: dict[str, pd.DataFrame], covariates: dict[str, tuple[str, ...]],
-                        labels: Mapping[str, str] | None = None) -> Figure:
+def hazard_ratio_figure(
+    tables: dict[str, pd.DataFrame], covariates: dict[str, tuple[str, ...]], labels: Mapping[str, str] | None = None
+) -> Figure:
     """Forest plot of each model's outcome hazard ratios for its covariates (main terms), per the step of
     each covariate (``tables``: :func:`riskbench.report.effects.scaled_hazard_ratios`).
 
@@ -146,31 +161,55 @@ def _finite_ratios(table: pd.DataFrame) -> bool:
 def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> ModelsStageResult:
     """Run stage 2 (see the module docstring); return what it wrote."""
     run_dir = Path(run_dir)
-    tables = {"counting_process": load_data(run_dir, "counting_process"),
-              "landmark_stack": load_data(run_dir, "landmark_stack")}
+    tables = {
+        "counting_process": load_data(run_dir, "counting_process"),
+        "landmark_stack": load_data(run_dir, "landmark_stack"),
+    }
     stack, cp = tables["landmark_stack"], tables["counting_process"]
     threshold = config.report.small_count_threshold
     horizons = evaluation_horizons(config)
     predictions: list[pd.DataFrame] = []
-    result = ModelsStageResult(stage="models", run_dir=run_dir, landmark_stack=stack, counting_process=cp,
-                               prediction_frames=predictions)
+    result = ModelsStageResult(
+        stage="models", run_dir=run_dir, landmark_stack=stack, counting_process=cp, prediction_frames=predictions
+    )
     notes: list[Note] = []
     per_fit: list[tuple[str, list[FitWarning]]] = []
     hazard_ratios: dict[str, pd.DataFrame] = {}
     effects = EffectParts()
     label_of = covariate_labels(config)
     if not (stack["status"] == 2).any():
-        notes.append(Note("models", "competing-event model", "not fitted: the cohort has no competing events, so "
-                          "each model's risk is one minus its outcome-free survival and no competing-event "
-                          "column or measure is shown.", kind="not computed"))
+        notes.append(
+            Note(
+                "models",
+                "competing-event model",
+                "not fitted: the cohort has no competing events, so "
+                "each model's risk is one minus its outcome-free survival and no competing-event "
+                "column or measure is shown.",
+                kind="not computed",
+            )
+        )
     with recorded_warnings() as stray:
         for spec in config.models:
-            fit = fit_recorded(spec, stack, cp, seed=config.seed, missing_data=config.missing_data,
-                               threshold=threshold, horizons=horizons,
-                               predict_stack=stack)
+            fit = fit_recorded(
+                spec,
+                stack,
+                cp,
+                seed=config.seed,
+                missing_data=config.missing_data,
+                threshold=threshold,
+                horizons=horizons,
+                predict_stack=stack,
+            )
             if fit.failure is not None:
-                notes.append(Note("models", "fit", fit.failure + " The model is left out "
-                                  "of the rest of the report.", model=spec.name, kind="fit failed"))
+                notes.append(
+                    Note(
+                        "models",
+                        "fit",
+                        fit.failure + " The model is left out of the rest of the report.",
+                        model=spec.name,
+                        kind="fit failed",
+                    )
+                )
                 per_fit.append((spec.name, fit.warnings))
                 continue
             predictions.append(fit.predictions)
@@ -180,38 +219,48 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> ModelsStage
                 with recorded_warnings() as summary_log:
                     coefficients = outcome_hazard_ratios(fit.model.summary())
                 fit.warnings.extend(summary_log)
-                notes += _effects(config, spec, fit.model, coefficients, stack, label_of, result, hazard_ratios,
-                                  effects)
+                notes += _effects(
+                    config, spec, fit.model, coefficients, stack, label_of, result, hazard_ratios, effects
+                )
                 if "term" in coefficients.columns:  # readable names beside the column names
-                    coefficients.insert(coefficients.columns.get_loc("term") + 1, "label",
-                                        [term_label(t, label_of) for t in coefficients["term"]])
+                    coefficients.insert(
+                        coefficients.columns.get_loc("term") + 1,
+                        "label",
+                        [term_label(t, label_of) for t in coefficients["term"]],
+                    )
                 result.tables[f"coefficients_{spec.name}"] = coefficient_table(coefficients)
             else:
                 result.notes.append(f"Model {spec.name!r} ({spec.family}) has no coefficients to show.")
-            joint_tables, joint_figures, joint_notes = joint_model_outputs(config, spec.name, fit.model, cp, run_dir,
-                                                                           label_of)
+            joint_tables, joint_figures, joint_notes = joint_model_outputs(
+                config, spec.name, fit.model, cp, run_dir, label_of
+            )
             result.tables.update(joint_tables)
             result.figures.update(joint_figures)
             notes += joint_notes
             said = describe_warnings(spec, fit.warnings, stack, cp, threshold=threshold)
             if said:
-                notes.append(Note("models", "fit on the whole cohort", said, model=spec.name,
-                                  kind="fitting warnings"))
+                notes.append(Note("models", "fit on the whole cohort", said, model=spec.name, kind="fitting warnings"))
             per_fit.append((spec.name, fit.warnings))
         columns = ["row", "model", "horizon", "risk"]
-        save_data(pd.concat(predictions, ignore_index=True) if predictions else pd.DataFrame(columns=columns),
-                  run_dir, "apparent_predictions")
+        save_data(
+            pd.concat(predictions, ignore_index=True) if predictions else pd.DataFrame(columns=columns),
+            run_dir,
+            "apparent_predictions",
+        )
         if hazard_ratios:
             covariates = {m.name: m.covariates for m in config.models}
-            labels = {c: f"{term_label(c, label_of)}, per {effects.per.get(c, '1')}"
-                      for cs in covariates.values() for c in cs}
-            result.figures["hazard_ratios"] = save_figure(hazard_ratio_figure(hazard_ratios, covariates, labels),
-                                                          run_dir, "hazard_ratios")
+            labels = {
+                c: f"{term_label(c, label_of)}, per {effects.per.get(c, '1')}" for cs in covariates.values() for c in cs
+            }
+            result.figures["hazard_ratios"] = save_figure(
+                hazard_ratio_figure(hazard_ratios, covariates, labels), run_dir, "hazard_ratios"
+            )
         notes += _landmark_effect_outputs(effects, label_of, result, run_dir)
         from riskbench.workflow.review_items import cox_checks  # PH tests and the nested LR test
 
-        checks, check_notes = cox_checks(config, stack, cp, label_of,
-                                         frozenset(n.model for n in notes if n.kind == "fit failed"))
+        checks, check_notes = cox_checks(
+            config, stack, cp, label_of, frozenset(n.model for n in notes if n.kind == "fit failed")
+        )
         result.tables.update(checks)
         notes += check_notes
     if stray:
@@ -223,17 +272,35 @@ def run_models_stage(config: AnalysisConfig, run_dir: str | Path) -> ModelsStage
     return result
 
 
-def _save_model(config: AnalysisConfig, spec: Any, model: Any, stack: pd.DataFrame, cp: pd.DataFrame | None,
-                horizons: np.ndarray, label_of: Callable[[str], str], run_dir: Path) -> list[Note]:
+def _save_model(
+    config: AnalysisConfig,
+    spec: Any,
+    model: Any,
+    stack: pd.DataFrame,
+    cp: pd.DataFrame | None,
+    horizons: np.ndarray,
+    label_of: Callable[[str], str],
+    run_dir: Path,
+) -> list[Note]:
     """Save one fitted model under ``models/`` with its bundle and model sheet
-    (:func:`riskbench.workflow.model_bundle.save_run_model`); a model that cannot be saved becomes a note."""
-    development = cp if spec.family in ("cox", "time_varying_cox") and cp is not None else stack
+    (:func:`riskbench.workflow.model_bundle.save_run_model`; every family, the joint model included); a model
+    whose files cannot be written becomes a note."""
+    development = cp if spec.family in ("cox", *COUNTING_PROCESS_FAMILIES) and cp is not None else stack
     try:
         with recorded_warnings():
-            save_run_model(run_dir, spec.name, spec.family, model, cohort_rules=config.cohort,
-                           development=development, landmarks_days=config.landmarks.landmarks_days,
-                           prediction_window_days=config.landmarks.horizon_days, horizons_days=horizons,
-                           labels={c: label_of(c) for c in spec.covariates}, seed=config.seed)
+            save_run_model(
+                run_dir,
+                spec.name,
+                spec.family,
+                model,
+                cohort_rules=config.cohort,
+                development=development,
+                landmarks_days=config.landmarks.landmarks_days,
+                prediction_window_days=config.landmarks.horizon_days,
+                horizons_days=horizons,
+                labels={c: label_of(c) for c in spec.covariates},
+                seed=config.seed,
+            )
     except FIT_ERRORS + (OSError,) as exc:
         return [Note("models", "saved model", f"not saved: {exc}", model=spec.name, kind="not computed")]
     return []
@@ -250,14 +317,23 @@ class EffectParts:
     steps: dict[str, float] = field(default_factory=dict)
 
 
-def _effects(config: AnalysisConfig, spec: Any, model: Any, coefficients: pd.DataFrame, stack: pd.DataFrame,
-             label_of: Callable[[str], str], result: StageResult, hazard_ratios: dict[str, pd.DataFrame],
-             effects: EffectParts) -> list[Note]:
+def _effects(
+    config: AnalysisConfig,
+    spec: Any,
+    model: Any,
+    coefficients: pd.DataFrame,
+    stack: pd.DataFrame,
+    label_of: Callable[[str], str],
+    result: StageResult,
+    hazard_ratios: dict[str, pd.DataFrame],
+    effects: EffectParts,
+) -> list[Note]:
     """Hazard ratios per step (table and figure entry), β(s) bands and landmark-form tests of one model."""
     notes: list[Note] = []
     try:
-        table, steps = model_effects(model, coefficients, stack, list(spec.covariates),
-                                     getattr(config.report, "effect_units", {}), label_of)
+        table, steps = model_effects(
+            model, coefficients, stack, list(spec.covariates), getattr(config.report, "effect_units", {}), label_of
+        )
     except PART_ERRORS as exc:
         return [Note("models", "hazard ratios per step", f"not computed: {exc}", model=spec.name)]
     result.tables[f"hazard_ratios_{spec.name}"] = table
@@ -266,10 +342,18 @@ def _effects(config: AnalysisConfig, spec: Any, model: Any, coefficients: pd.Dat
     if _finite_ratios(table):
         hazard_ratios[spec.name] = table
     else:
-        notes.append(Note("models", "hazard-ratio figure", "left out of the figure: some hazard ratios or "
-                          "intervals are not finite (see its hazard-ratio table).", model=spec.name))
-    for part, compute in (("β(s) figure", lambda: effect_bands(model)),
-                          ("landmark-effect likelihood-ratio test", lambda: form_tests(model, spec, stack))):
+        notes.append(
+            Note(
+                "models",
+                "hazard-ratio figure",
+                "left out of the figure: some hazard ratios or intervals are not finite (see its hazard-ratio table).",
+                model=spec.name,
+            )
+        )
+    for part, compute in (
+        ("β(s) figure", lambda: effect_bands(model)),
+        ("landmark-effect likelihood-ratio test", lambda: form_tests(model, spec, stack)),
+    ):
         try:
             with recorded_warnings():
                 value = compute()
@@ -283,8 +367,9 @@ def _effects(config: AnalysisConfig, spec: Any, model: Any, coefficients: pd.Dat
     return notes
 
 
-def _landmark_effect_outputs(effects: EffectParts, label_of: Callable[[str], str], result: StageResult,
-                             run_dir: Path) -> list[Note]:
+def _landmark_effect_outputs(
+    effects: EffectParts, label_of: Callable[[str], str], result: StageResult, run_dir: Path
+) -> list[Note]:
     """The β(s) figure and the landmark-form test table."""
     from riskbench.report.landmark_effect_plot import landmark_effect_figure
 
