@@ -43,12 +43,19 @@ def small_cohort(n: int, seed: int) -> tuple[pd.DataFrame, pd.DataFrame, pd.Data
     var = np.concatenate([np.repeat(["v0", "v1"], k[i]) for i in range(n)])
     day = (rng.random(pid.size) * (end[pid] + 1)).astype(int)
     value = rng.integers(1, 100, pid.size).astype(float)
-    meas = pd.DataFrame({"patient_id": ids[pid], "date": (entry[pid] + pd.to_timedelta(day, unit="D")).strftime("%Y-%m-%d"),
-                         "variable": var, "value": value})
+    meas = pd.DataFrame(
+        {
+            "patient_id": ids[pid],
+            "date": (entry[pid] + pd.to_timedelta(day, unit="D")).strftime("%Y-%m-%d"),
+            "variable": var,
+            "value": value,
+        }
+    )
     meas = meas.drop_duplicates(["patient_id", "date", "variable"], ignore_index=True)
     patients = pd.DataFrame({"patient_id": ids, "entry_date": entry.strftime("%Y-%m-%d")})
-    outcomes = pd.DataFrame({"patient_id": ids, "date": (entry + pd.to_timedelta(end, unit="D")).strftime("%Y-%m-%d"),
-                             "kind": kind})
+    outcomes = pd.DataFrame(
+        {"patient_id": ids, "date": (entry + pd.to_timedelta(end, unit="D")).strftime("%Y-%m-%d"), "kind": kind}
+    )
     return patients, meas, outcomes
 
 
@@ -63,9 +70,13 @@ def peer_small(patients: pd.DataFrame, meas: pd.DataFrame, outcomes: pd.DataFram
     from lifelines.utils import add_covariate_to_timeline, to_long_format
 
     entry = pd.to_datetime(patients.set_index("patient_id")["entry_date"])
-    base = pd.DataFrame({"patient_id": outcomes.patient_id,
-                         "duration": (pd.to_datetime(outcomes.date) - entry.loc[outcomes.patient_id].to_numpy()).dt.days,
-                         "event": outcomes.kind != "end_of_follow_up"})
+    base = pd.DataFrame(
+        {
+            "patient_id": outcomes.patient_id,
+            "duration": (pd.to_datetime(outcomes.date) - entry.loc[outcomes.patient_id].to_numpy()).dt.days,
+            "event": outcomes.kind != "end_of_follow_up",
+        }
+    )
     table = to_long_format(base, "duration")
     days = (pd.to_datetime(meas.date) - entry.loc[meas.patient_id].to_numpy()).dt.days
     for var in ["v0", "v1"]:
@@ -82,8 +93,14 @@ def child_large(folder: Path, what: str) -> None:
 
     out = Path(tempfile.mkdtemp(prefix="riskbench_cohort_bench_"))
     t0 = time.perf_counter()
-    cohort = build_cohort(folder / "patients.parquet", folder / "measurements.parquet",
-                          folder / "outcomes.parquet", demo_cohort_spec(), memory_limit="5GB", threads=2)
+    cohort = build_cohort(
+        folder / "patients.parquet",
+        folder / "measurements.parquet",
+        folder / "outcomes.parquet",
+        demo_cohort_spec(),
+        memory_limit="5GB",
+        threads=2,
+    )
     if what == "counting_process":
         shutil.copyfile(cohort.counting_process_file, out / "counting_process.parquet")
         seconds = time.perf_counter() - t0
@@ -93,8 +110,9 @@ def child_large(folder: Path, what: str) -> None:
 
         t0 = time.perf_counter()  # the stack alone, from the built cohort, written out of core
         target = out / "landmark_stack.parquet"
-        cohort._con.execute(f"COPY ({landmark_sql(cohort.spec, LANDMARKS_DAYS, HORIZON_DAYS)}) TO '{target}' "
-                            "(FORMAT parquet)")
+        cohort._con.execute(
+            f"COPY ({landmark_sql(cohort.spec, LANDMARKS_DAYS, HORIZON_DAYS)}) TO '{target}' (FORMAT parquet)"
+        )
         seconds = time.perf_counter() - t0
         rows = cohort._con.execute(f"SELECT count(*) FROM read_parquet('{target}')").fetchall()[0][0]
     peak_gb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024**2
@@ -112,8 +130,9 @@ def generate_large(folder: Path, n: int, seed: int) -> None:
 
 
 def run_child(folder: Path, what: str) -> dict:
-    proc = subprocess.run([sys.executable, __file__, "--child", what, "--data", str(folder)],
-                          capture_output=True, text=True, check=True)
+    proc = subprocess.run(
+        [sys.executable, __file__, "--child", what, "--data", str(folder)], capture_output=True, text=True, check=True
+    )
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
 
@@ -139,8 +158,10 @@ def main() -> None:
             med = statistics.median(r["seconds"] for r in runs)
             peak = max(r["peak_gb"] for r in runs)
             each = ", ".join(f"{r['seconds']:.1f}" for r in runs)
-            print(f"{what} ({args.large} patients, {runs[0]['rows']} rows): median {med:.1f} s over "
-                  f"{len(runs)} runs ({each}; goal <= 30 s), peak memory {peak:.2f} GB (goal <= 8 GB)")
+            print(
+                f"{what} ({args.large} patients, {runs[0]['rows']} rows): median {med:.1f} s over "
+                f"{len(runs)} runs ({each}; goal <= 30 s), peak memory {peak:.2f} GB (goal <= 8 GB)"
+            )
     if not args.small:
         return
     patients, meas, outcomes = small_cohort(args.small, seed=7)
@@ -154,8 +175,10 @@ def main() -> None:
     peer_time = time.perf_counter() - t0  # once: it is the slow side
     ours_time = statistics.median(ours_times)
     print(f"rows: ours {len(ours)} (split at every value date), peer {len(peer)} (split where a value changes)")
-    print(f"counting-process table, {args.small} patients x ~10 values: ours {ours_time:.3f} s, "
-          f"peer {peer_time:.1f} s, ratio {peer_time / ours_time:.0f}")
+    print(
+        f"counting-process table, {args.small} patients x ~10 values: ours {ours_time:.3f} s, "
+        f"peer {peer_time:.1f} s, ratio {peer_time / ours_time:.0f}"
+    )
 
 
 if __name__ == "__main__":

@@ -45,7 +45,9 @@ def simulate_counting_process(n_patients: int, n_covariates: int, rows_per_patie
     hit = t_event < gaps
     # follow-up ends at the first row with an event; later rows are dropped
     row_in_patient = np.arange(n) - np.repeat(first, k)
-    first_hit = pd.Series(np.where(hit, row_in_patient, np.iinfo(np.int64).max)).groupby(pid).transform("min").to_numpy()
+    first_hit = (
+        pd.Series(np.where(hit, row_in_patient, np.iinfo(np.int64).max)).groupby(pid).transform("min").to_numpy()
+    )
     keep = row_in_patient <= first_hit
     event = (row_in_patient == first_hit) & hit
     stop = np.where(event, start + np.ceil(t_event), stop)  # event day on the day grid (ties on purpose)
@@ -81,7 +83,11 @@ def main() -> None:
 
     t0 = time.perf_counter()
     peer_fit = CoxTimeVaryingFitter().fit(
-        df, id_col="id", event_col="event", start_col="start", stop_col="stop",
+        df,
+        id_col="id",
+        event_col="event",
+        start_col="start",
+        stop_col="stop",
         fit_options={"precision": 1e-11, "r_precision": 1e-14},
     )
     peer = time.perf_counter() - t0

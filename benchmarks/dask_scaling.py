@@ -42,16 +42,20 @@ HORIZONS_DAYS = (365.25, 730.5)
 IMAGING = ["log_nodule_volume", "log_nodule_volume_change", "suspicion_score"]
 CLINICAL = ["serum_marker", "age_at_entry", "pack_years"]
 CONSTANT = {"landmark_effects": "none"}
-SPECS = [ModelSpec("clinical", CLINICAL, params=CONSTANT),
-         ModelSpec("imaging + clinical", IMAGING + CLINICAL, params=CONSTANT)]
+SPECS = [
+    ModelSpec("clinical", CLINICAL, params=CONSTANT),
+    ModelSpec("imaging + clinical", IMAGING + CLINICAL, params=CONSTANT),
+]
 
 
 def write_tables(n_patients: int, seed: int, folder: Path) -> tuple[TableFiles, dict[str, float]]:
     """Generate and build a cohort, write its two tables to Parquet; the files and their sizes (MB)."""
     data = generate_cohort(n_patients, seed, n_risk_paths=0)
     cohort = build_cohort(data.patients, data.measurements, data.outcomes, demo_cohort_spec())
-    frames = {"landmark_stack": cohort.landmark_stack(DEFAULT_LANDMARKS_DAYS, DEFAULT_HORIZON_DAYS),
-              "counting_process": cohort.counting_process}
+    frames = {
+        "landmark_stack": cohort.landmark_stack(DEFAULT_LANDMARKS_DAYS, DEFAULT_HORIZON_DAYS),
+        "counting_process": cohort.counting_process,
+    }
     paths, sizes = {}, {}
     for name, frame in frames.items():
         paths[name] = folder / f"{name}.parquet"
@@ -79,8 +83,14 @@ def on_cluster(source: PrecomputedTables, reps: int, workers: int) -> tuple[floa
     """Wall time and table of ``reps`` replicates on a fresh LocalCluster; the workers' memory after it."""
     from distributed import Client, LocalCluster
 
-    with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None,
-                      silence_logs=40, host="127.0.0.1") as cluster:
+    with LocalCluster(
+        n_workers=workers,
+        threads_per_worker=1,
+        processes=True,
+        dashboard_address=None,
+        silence_logs=40,
+        host="127.0.0.1",
+    ) as cluster:
         config = ExecutionConfig(scheduler_address=cluster.scheduler_address, replicates_per_task=1, progress=False)
         seconds, table = timed(source, reps, config)
         with Client(cluster.scheduler_address, set_as_default=False) as client:
@@ -107,32 +117,44 @@ def main(argv: list[str] | None = None) -> int:
         source = table_source(files)
         print(load(), flush=True)
         serial, expected = timed(source, args.reps, ExecutionConfig(progress=False))
-        joblib_s, joblib_table = timed(source, args.reps, ExecutionConfig(n_jobs=2, replicates_per_task=1,
-                                                                          progress=False))
+        joblib_s, joblib_table = timed(
+            source, args.reps, ExecutionConfig(n_jobs=2, replicates_per_task=1, progress=False)
+        )
         dask1_s, dask1_table, mem1 = on_cluster(source, args.reps, 1)
         dask2_s, dask2_table, mem2 = on_cluster(source, args.reps, 2)
         for table in (joblib_table, dask1_table, dask2_table):
             pd.testing.assert_frame_equal(expected, table, check_exact=True)
-        print(f"{args.reps} replicates, identical tables: serial {serial:.1f} s, joblib 2 processes {joblib_s:.1f} s, "
-              f"Dask 1 worker {dask1_s:.1f} s, Dask 2 workers {dask2_s:.1f} s", flush=True)
-        per = {"serial": serial / args.reps, "joblib 2": joblib_s * 2 / args.reps,
-               "Dask 1": dask1_s / args.reps, "Dask 2": dask2_s * 2 / args.reps}
+        print(
+            f"{args.reps} replicates, identical tables: serial {serial:.1f} s, joblib 2 processes {joblib_s:.1f} s, "
+            f"Dask 1 worker {dask1_s:.1f} s, Dask 2 workers {dask2_s:.1f} s",
+            flush=True,
+        )
+        per = {
+            "serial": serial / args.reps,
+            "joblib 2": joblib_s * 2 / args.reps,
+            "Dask 1": dask1_s / args.reps,
+            "Dask 2": dask2_s * 2 / args.reps,
+        }
         print("per-task cost (wall x workers / tasks): " + ", ".join(f"{k} {v:.2f} s" for k, v in per.items()))
         print(f"worker memory after the run: 1 worker {mem1[0]:.0f} MB; 2 workers {mem2[0]:.0f} and {mem2[-1]:.0f} MB")
         print(load(), flush=True)
     if args.cost_patients:
         with tempfile.TemporaryDirectory(prefix="rb-dask-") as folder:
             files, sizes = write_tables(args.cost_patients, 7, Path(folder))
-            print(f"{args.cost_patients} patients: " + ", ".join(f"{k} {v:,.1f}" for k, v in sizes.items()),
-                  flush=True)
+            print(f"{args.cost_patients} patients: " + ", ".join(f"{k} {v:,.1f}" for k, v in sizes.items()), flush=True)
             seconds, _ = timed(table_source(files), args.cost_reps, ExecutionConfig(progress=False))
             growth = (seconds / args.cost_reps) / per["serial"]
-            print(f"serial per replicate at {args.cost_patients} patients: {seconds / args.cost_reps:.2f} s "
-                  f"({growth:.1f} x the cost at {args.patients}; patients x {args.cost_patients / args.patients:.0f}); "
-                  + load(), flush=True)
+            print(
+                f"serial per replicate at {args.cost_patients} patients: {seconds / args.cost_reps:.2f} s "
+                f"({growth:.1f} x the cost at {args.patients}; patients x {args.cost_patients / args.patients:.0f}); "
+                + load(),
+                flush=True,
+            )
     ours, peer = per["Dask 2"], per["joblib 2"]
-    print(f"dask replicates {args.patients // 1000}k patients: ours {ours:.2f} s per task, peer joblib {peer:.2f} s, "
-          f"ratio {peer / ours:.2f}")
+    print(
+        f"dask replicates {args.patients // 1000}k patients: ours {ours:.2f} s per task, peer joblib {peer:.2f} s, "
+        f"ratio {peer / ours:.2f}"
+    )
     return 0
 
 

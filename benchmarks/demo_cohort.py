@@ -47,19 +47,28 @@ def main(argv: list[str] | None = None) -> int:
         secs, cpu, rows = timed(args.patients, "clean", 0, seed=r)
         times.append(secs)
         cpus.append(cpu)
-        print(f"run {r + 1}: clean {args.patients} patients in {secs:.1f} s wall, {cpu:.1f} s CPU "
-              f"({rows} measurement rows); peak memory {peak_rss_gib():.2f} GiB", flush=True)
+        print(
+            f"run {r + 1}: clean {args.patients} patients in {secs:.1f} s wall, {cpu:.1f} s CPU "
+            f"({rows} measurement rows); peak memory {peak_rss_gib():.2f} GiB",
+            flush=True,
+        )
     if args.messy:
         secs, cpu, rows = timed(args.patients, "messy", 0, seed=0)
-        print(f"messy {args.patients} patients in {secs:.1f} s wall, {cpu:.1f} s CPU ({rows} measurement rows); "
-              f"peak memory {peak_rss_gib():.2f} GiB")
+        print(
+            f"messy {args.patients} patients in {secs:.1f} s wall, {cpu:.1f} s CPU ({rows} measurement rows); "
+            f"peak memory {peak_rss_gib():.2f} GiB"
+        )
     ours = statistics.median(times)
-    print(f"median CPU time {statistics.median(cpus):.1f} s (single-threaded: wall = CPU on an idle core); "
-          f"machine: 2 cores shared with other jobs, load {os.getloadavg()[0]:.1f}; "
-          f"peak memory {peak_rss_gib():.2f} GiB")
+    print(
+        f"median CPU time {statistics.median(cpus):.1f} s (single-threaded: wall = CPU on an idle core); "
+        f"machine: 2 cores shared with other jobs, load {os.getloadavg()[0]:.1f}; "
+        f"peak memory {peak_rss_gib():.2f} GiB"
+    )
     label = f"{args.patients // 1_000_000}M" if args.patients % 1_000_000 == 0 else str(args.patients)
-    print(f"synthetic cohort {label} patients: ours {ours:.1f} s, goal {GOAL_SECONDS:.0f} s, "
-          f"ratio {GOAL_SECONDS / ours:.2f}")
+    print(
+        f"synthetic cohort {label} patients: ours {ours:.1f} s, goal {GOAL_SECONDS:.0f} s, "
+        f"ratio {GOAL_SECONDS / ours:.2f}"
+    )
     return 0
 
 

@@ -34,8 +34,16 @@ MONTH = 365.25 / 12
 HORIZON = 24 * MONTH
 LANDMARKS = [k * 6 * MONTH for k in range(8)]
 COVARIATES = [
-    "landmark", "log_nodule_volume", "log_nodule_volume_change", "suspicion_score", "serum_marker",
-    "days_since_exam", "n_exams", "age", "sex_male", "pack_years",
+    "landmark",
+    "log_nodule_volume",
+    "log_nodule_volume_change",
+    "suspicion_score",
+    "serum_marker",
+    "days_since_exam",
+    "n_exams",
+    "age",
+    "sex_male",
+    "pack_years",
 ]
 N_ROWS, N_TEST, N_SUB = 50_000, 10_000, 5_000
 FOREST_PARAMS = dict(n_estimators=100, max_samples=5_000, min_samples_leaf=15, random_state=0, n_jobs=2)
@@ -85,7 +93,16 @@ def child(task: str, folder: Path) -> None:
     risk = model.predict_risk(test, HORIZON)
     seconds = time.perf_counter() - started
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024  # Linux reports KiB
-    print(json.dumps({"seconds": seconds, "fit_seconds": fitted - started, "peak_bytes": peak, "c_index": concordance(test, risk)}))
+    print(
+        json.dumps(
+            {
+                "seconds": seconds,
+                "fit_seconds": fitted - started,
+                "peak_bytes": peak,
+                "c_index": concordance(test, risk),
+            }
+        )
+    )
 
 
 def run(task: str, folder: Path) -> dict:
@@ -130,24 +147,32 @@ def main() -> None:
         train = demo_stack(N_ROWS, n_patients=9_000, seed=101)
         demo_stack(N_TEST, n_patients=2_000, seed=202).to_parquet(folder / "test.parquet")
         train.to_parquet(folder / "train.parquet")
-        print(f"training stack: {len(train)} rows, {train['patient_id'].nunique()} patients, "
-              f"{int((train['status'] == 1).sum())} outcomes, {int((train['status'] == 2).sum())} competing")
+        print(
+            f"training stack: {len(train)} rows, {train['patient_id'].nunique()} patients, "
+            f"{int((train['status'] == 1).sum())} outcomes, {int((train['status'] == 2).sum())} competing"
+        )
         full = [run("full", folder) for _ in range(args.repeats)]
         grid, continuous = run("sub_grid", folder), run("sub_continuous", folder)
     seconds = float(np.median([r["seconds"] for r in full]))
     peak_gb = max(max(r["peak_bytes"], r["tree_peak_bytes"]) for r in full) / 1e9
     gap = abs(grid["c_index"] - continuous["c_index"])
-    print(f"50k rows, monthly grid, {FOREST_PARAMS['n_estimators']} trees of {FOREST_PARAMS['max_samples']} rows, "
-          f"2 jobs: median {seconds:.1f} s over {args.repeats} runs, peak RSS {peak_gb:.2f} GB, "
-          f"held-out C {np.median([r['c_index'] for r in full]):.4f}; CPU of the whole child process tree "
-          f"(data loading included) median {np.median([r['cpu_seconds'] for r in full]):.1f} s; "
-          f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
-    print(f"5k-row subsample: C monthly grid {grid['c_index']:.4f} ({grid['seconds']:.1f} s, "
-          f"{grid['peak_bytes'] / 1e9:.2f} GB) vs continuous times {continuous['c_index']:.4f} "
-          f"({continuous['seconds']:.1f} s, {continuous['peak_bytes'] / 1e9:.2f} GB); "
-          f"gap {gap:.4f} (goal <= 0.01: {'met' if gap <= 0.01 else 'NOT met'})")
-    print(f"survival forest 50k rows: ours {seconds:.1f} s, goal 60 s, ratio {60 / seconds:.2f}; "
-          f"peak {peak_gb:.2f} GB (goal 1 GB)")
+    print(
+        f"50k rows, monthly grid, {FOREST_PARAMS['n_estimators']} trees of {FOREST_PARAMS['max_samples']} rows, "
+        f"2 jobs: median {seconds:.1f} s over {args.repeats} runs, peak RSS {peak_gb:.2f} GB, "
+        f"held-out C {np.median([r['c_index'] for r in full]):.4f}; CPU of the whole child process tree "
+        f"(data loading included) median {np.median([r['cpu_seconds'] for r in full]):.1f} s; "
+        f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores"
+    )
+    print(
+        f"5k-row subsample: C monthly grid {grid['c_index']:.4f} ({grid['seconds']:.1f} s, "
+        f"{grid['peak_bytes'] / 1e9:.2f} GB) vs continuous times {continuous['c_index']:.4f} "
+        f"({continuous['seconds']:.1f} s, {continuous['peak_bytes'] / 1e9:.2f} GB); "
+        f"gap {gap:.4f} (goal <= 0.01: {'met' if gap <= 0.01 else 'NOT met'})"
+    )
+    print(
+        f"survival forest 50k rows: ours {seconds:.1f} s, goal 60 s, ratio {60 / seconds:.2f}; "
+        f"peak {peak_gb:.2f} GB (goal 1 GB)"
+    )
 
 
 if __name__ == "__main__":

@@ -48,7 +48,8 @@ def _two_stage(counting: pd.DataFrame) -> float:
     measurements = measurements_from_counting_process(counting, MARKER)
     measurements["t"] = measurements["time"] / DAYS_PER_YEAR
     mixed = smf.mixedlm(f"{MARKER} ~ t", measurements, groups=measurements["patient_id"], re_formula="~t").fit(
-        reml=False, method="lbfgs")
+        reml=False, method="lbfgs"
+    )
     effects = pd.DataFrame(mixed.random_effects).T
     index = effects.index.get_indexer(counting["patient_id"])
     b0 = np.where(index >= 0, effects.iloc[:, 0].to_numpy()[index], 0.0)
@@ -83,35 +84,54 @@ def main(argv: list[str] | None = None) -> None:
     stack = cohort.landmark_stack(list(landmarks), horizon)
     measurements = measurements_from_counting_process(counting, MARKER)
     survival = survival_from_counting_process(counting, EVENT)
-    print(f"demo cohort: {len(survival)} patients, {len(measurements)} marker measurements "
-          f"({len(measurements) / len(survival):.1f} per patient), {int((survival.status == 1).sum())} outcomes, "
-          f"{int((survival.status == 2).sum())} competing deaths; {len(stack)} landmark rows", flush=True)
+    print(
+        f"demo cohort: {len(survival)} patients, {len(measurements)} marker measurements "
+        f"({len(measurements) / len(survival):.1f} per patient), {int((survival.status == 1).sum())} outcomes, "
+        f"{int((survival.status == 2).sum())} competing deaths; {len(stack)} landmark rows",
+        flush=True,
+    )
 
     started = time.perf_counter()
-    model = JointModel(MARKER, event_covariates=EVENT, competing_covariates=["age_at_entry"],
-                       association="value_slope").fit(measurements, survival)
+    model = JointModel(
+        MARKER, event_covariates=EVENT, competing_covariates=["age_at_entry"], association="value_slope"
+    ).fit(measurements, survival)
     fit_seconds = time.perf_counter() - started
     steps = ", ".join(f"{k} {v:.1f} s" for k, v in model.fit_seconds_.items())
-    print(f"joint model fit: {fit_seconds:.1f} s ({steps}); converged {model.converged_}; "
-          f"max |gradient| {np.abs(model.gradient_).max():.2e}", flush=True)
+    print(
+        f"joint model fit: {fit_seconds:.1f} s ({steps}); converged {model.converged_}; "
+        f"max |gradient| {np.abs(model.gradient_).max():.2e}",
+        flush=True,
+    )
     with pd.option_context("display.width", 160, "display.max_colwidth", 70):
         print(model.summary().round(4).to_string(index=False), flush=True)
 
-    print(f"two-stage approach (mixed model, then time-varying Cox on fitted trajectories): "
-          f"{_two_stage(counting):.1f} s", flush=True)
+    print(
+        f"two-stage approach (mixed model, then time-varying Cox on fitted trajectories): {_two_stage(counting):.1f} s",
+        flush=True,
+    )
 
     started = time.perf_counter()
     joint_risk = model.predict_risk(stack, horizon)
     predict_seconds = time.perf_counter() - started
-    print(f"joint model predictions: {len(stack)} rows at {len(landmarks)} landmarks in {predict_seconds:.1f} s",
-          flush=True)
+    print(
+        f"joint model predictions: {len(stack)} rows at {len(landmarks)} landmarks in {predict_seconds:.1f} s",
+        flush=True,
+    )
     keyed = stack[["patient_id", "landmark"]].merge(truth, on=["patient_id", "landmark"], how="left")
     true_risk = keyed["true_risk"].to_numpy()
     ok = np.isfinite(true_risk)
-    rows = [_correlations("joint model (log volume + age, pack-years)", joint_risk[ok], true_risk[ok],
-                          stack["landmark"].to_numpy()[ok])]
-    for label, covariates in (("landmark super-model, same information", SAME_INFORMATION),
-                              ("landmark super-model, all covariates", ALL_COVARIATES)):
+    rows = [
+        _correlations(
+            "joint model (log volume + age, pack-years)",
+            joint_risk[ok],
+            true_risk[ok],
+            stack["landmark"].to_numpy()[ok],
+        )
+    ]
+    for label, covariates in (
+        ("landmark super-model, same information", SAME_INFORMATION),
+        ("landmark super-model, all covariates", ALL_COVARIATES),
+    ):
         complete = stack.dropna(subset=covariates)
         landmark_model = LandmarkSupermodel(covariates).fit(complete)
         risk = np.full(len(stack), np.nan)

@@ -36,12 +36,16 @@ from riskbench.models.joint_model import JointModel
 def truth_table(truth: JointTruth) -> dict[str, float]:
     """Summary name of each checked parameter and its true value."""
     return {
-        "marker: time_years": truth.beta[1], "marker: x": truth.beta[2], "marker: residual SD": truth.sigma,
+        "marker: time_years": truth.beta[1],
+        "marker: x": truth.beta[2],
+        "marker: residual SD": truth.sigma,
         "marker: random-intercept SD": float(np.sqrt(truth.d[0][0])),
         "marker: random-slope SD per year": float(np.sqrt(truth.d[1][1])),
         "marker: random intercept-slope correlation": truth.d[0][1] / float(np.sqrt(truth.d[0][0] * truth.d[1][1])),
-        "outcome: w": truth.gamma_outcome, "outcome: association, current marker value": truth.alpha,
-        "competing: w": truth.gamma_competing, "competing: association, current marker value": 0.0,
+        "outcome: w": truth.gamma_outcome,
+        "outcome: association, current marker value": truth.alpha,
+        "competing: w": truth.gamma_competing,
+        "competing: association, current marker value": 0.0,
     }
 
 
@@ -61,15 +65,28 @@ def main(argv: list[str] | None = None) -> None:
         table = model.summary().set_index("parameter")
         for name, value in expected.items():
             row = table.loc[name]
-            records.append({"parameter": name, "true": value, "estimate": row["estimate"],
-                            "se": row["std_error"],
-                            "covered": row["ci_lower"] <= value <= row["ci_upper"]})
-        print(f"replicate {r + 1}: {int((survival.status == 1).sum())} outcomes, converged {model.converged_}, "
-              f"alpha {table.loc['outcome: association, current marker value', 'estimate']:.3f}", flush=True)
+            records.append(
+                {
+                    "parameter": name,
+                    "true": value,
+                    "estimate": row["estimate"],
+                    "se": row["std_error"],
+                    "covered": row["ci_lower"] <= value <= row["ci_upper"],
+                }
+            )
+        print(
+            f"replicate {r + 1}: {int((survival.status == 1).sum())} outcomes, converged {model.converged_}, "
+            f"alpha {table.loc['outcome: association, current marker value', 'estimate']:.3f}",
+            flush=True,
+        )
     frame = pd.DataFrame(records)
     summary = frame.groupby("parameter", sort=False).agg(
-        true=("true", "first"), mean_estimate=("estimate", "mean"), empirical_sd=("estimate", "std"),
-        mean_se=("se", "mean"), coverage_95=("covered", "mean"))
+        true=("true", "first"),
+        mean_estimate=("estimate", "mean"),
+        empirical_sd=("estimate", "std"),
+        mean_se=("se", "mean"),
+        coverage_95=("covered", "mean"),
+    )
     summary.insert(2, "bias", summary["mean_estimate"] - summary["true"])
     with pd.option_context("display.width", 160):
         print(summary.round(4).to_string())

@@ -54,7 +54,9 @@ def main() -> None:
     ours_u, c_u = timed(lambda: concordance_uno(t, e, r, tau, with_se=False), 3)
     se_h, _ = timed(lambda: concordance_harrell(t, e, r), 3)
     se_u, _ = timed(lambda: concordance_uno(t, e, r, tau), 3)
-    print(f"{n_peer} subjects: ours Harrell {ours_h:.2f} s (with SE {se_h:.2f} s), Uno {ours_u:.2f} s (with SE {se_u:.2f} s)")
+    print(
+        f"{n_peer} subjects: ours Harrell {ours_h:.2f} s (with SE {se_h:.2f} s), Uno {ours_u:.2f} s (with SE {se_u:.2f} s)"
+    )
     peer_h, ref_h = timed(lambda: concordance_index_censored(e.astype(bool), t, r), 1)
     print(f"  scikit-survival Harrell {peer_h:.1f} s; estimates {c_h.estimate:.6f} vs {ref_h[0]:.6f}", flush=True)
     peer_u, ref_u = timed(lambda: concordance_index_ipcw(y, y, r, tau), 1)
@@ -66,8 +68,10 @@ def main() -> None:
     big_u, _ = timed(lambda: concordance_uno(tb, eb, rb, float(np.quantile(tb, 0.9)), with_se=False), 3)
     horizons = np.quantile(tb[eb == 1], np.linspace(0.05, 0.95, 10))
     big_auc, _ = timed(lambda: auc_cumulative_dynamic(tb, eb, rb, horizons), 3)
-    print(f"{n_big} subjects: Harrell {big_h:.2f} s (goal 5 s; with SE {big_hse:.2f} s), Uno {big_u:.2f} s (goal 5 s), "
-          f"AUC at 10 horizons {big_auc:.2f} s (goal 10 s)")
+    print(
+        f"{n_big} subjects: Harrell {big_h:.2f} s (goal 5 s; with SE {big_hse:.2f} s), Uno {big_u:.2f} s (goal 5 s), "
+        f"AUC at 10 horizons {big_auc:.2f} s (goal 10 s)"
+    )
     ours, peer = ours_h + ours_u, peer_h + peer_u
     label = "200k" if not args.quick else f"{n_peer // 1000}k"
     print(f"Harrell and Uno C at {label}: ours {ours:.3f} s, peer {peer:.1f} s, ratio {peer / ours:.0f}")

@@ -41,13 +41,20 @@ CLINICAL = ["serum_marker", "age_at_entry", "pack_years"]
 def _source() -> PrecomputedTables:
     tables = read_tables(ROOT / "demo_data" / "clean")
     cohort = build_cohort(tables["patients"], tables["measurements"], tables["outcomes"], demo_cohort_spec())
-    return PrecomputedTables.from_cohort(cohort, DEFAULT_LANDMARKS_DAYS, DEFAULT_HORIZON_DAYS, with_counting_process=False)
+    return PrecomputedTables.from_cohort(
+        cohort, DEFAULT_LANDMARKS_DAYS, DEFAULT_HORIZON_DAYS, with_counting_process=False
+    )
 
 
 def _run(source: PrecomputedTables, specs: list[ModelSpec], reps: int, n_jobs: int) -> tuple[float, pd.DataFrame]:
     start = time.perf_counter()
     table = bootstrap_optimism(
-        specs, source, HORIZONS_DAYS, n_boot=reps, seed=2026, thresholds=THRESHOLDS,
+        specs,
+        source,
+        HORIZONS_DAYS,
+        n_boot=reps,
+        seed=2026,
+        thresholds=THRESHOLDS,
         config=ExecutionConfig(n_jobs=n_jobs, progress=False),
     )
     return time.perf_counter() - start, table
@@ -64,15 +71,20 @@ def main(argv: list[str] | None = None) -> int:
     n_rows = len(source.full_tables().landmark_stack)
     print(f"demo cohort: {len(source.patient_ids())} patients, {n_rows} landmark rows", flush=True)
     constant = {"landmark_effects": "none"}
-    specs = [ModelSpec("clinical", CLINICAL, params=constant),
-             ModelSpec("imaging + clinical", IMAGING + CLINICAL, params=constant)]
+    specs = [
+        ModelSpec("clinical", CLINICAL, params=constant),
+        ModelSpec("imaging + clinical", IMAGING + CLINICAL, params=constant),
+    ]
 
     one, table_one = _run(source, specs, args.speedup_reps, 1)
     two, table_two = _run(source, specs, args.speedup_reps, 2)
     pd.testing.assert_frame_equal(table_one, table_two, check_exact=True)
     speedup = one / two
-    print(f"{args.speedup_reps} reps: 1 worker {one:.1f} s, 2 workers {two:.1f} s, speed-up {speedup:.2f} "
-          "(identical results)", flush=True)
+    print(
+        f"{args.speedup_reps} reps: 1 worker {one:.1f} s, 2 workers {two:.1f} s, speed-up {speedup:.2f} "
+        "(identical results)",
+        flush=True,
+    )
 
     times = []
     table = table_two
@@ -83,8 +95,10 @@ def main(argv: list[str] | None = None) -> int:
     median = statistics.median(times)
     c = table[(table["metric"] == "harrell_c") & (table["horizon_days"] == 730.5)]
     print(c[["spec", "apparent", "optimism", "corrected", "n_boot"]].to_string(index=False), flush=True)
-    print(f"bootstrap {args.reps} reps x 2 specs: ours {median:.1f} s (2 workers), goal {GOAL_SECONDS:.0f} s, "
-          f"ratio {GOAL_SECONDS / median:.2f}; speed-up 1->2 workers {speedup:.2f}")
+    print(
+        f"bootstrap {args.reps} reps x 2 specs: ours {median:.1f} s (2 workers), goal {GOAL_SECONDS:.0f} s, "
+        f"ratio {GOAL_SECONDS / median:.2f}; speed-up 1->2 workers {speedup:.2f}"
+    )
     return 0
 
 

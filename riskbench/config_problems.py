@@ -63,8 +63,9 @@ def show(value: Any, limit: int = 80) -> str:
     return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
-def problem(where: str, key: str | None, value: Any, allowed: str, *, choices: Iterable[str] = (),
-            severity: str = ERROR) -> Problem:
+def problem(
+    where: str, key: str | None, value: Any, allowed: str, *, choices: Iterable[str] = (), severity: str = ERROR
+) -> Problem:
     """A problem ``<where> <key> = <value> is not allowed: <allowed>`` (+ did you mean)."""
     full = f"{where} {key}".strip() if key else where
     verdict = "is not allowed" if severity == ERROR else "is doubtful"
@@ -127,6 +128,7 @@ def _value_at(data: Any, path: Sequence[Any]) -> Any:
 
 def default_where(prefix: str) -> Callable[[list[Any]], str]:
     """TOML table names ``[prefix.a.b]``; list items as ``#n``."""
+
     def where(table: list[Any]) -> str:
         parts = [prefix, *(f"#{p + 1}" if isinstance(p, int) else str(p) for p in table)]
         return "[" + ".".join(p for p in parts if p) + "]"
@@ -151,8 +153,9 @@ def _allowed_text(model: type[BaseModel] | None, key: Any, err: Mapping[str, Any
     return "expected " + text[0].lower() + text[1:], []
 
 
-def schema_problems(error: ValidationError, root: type[BaseModel], data: Any,
-                    where: Callable[[list[Any]], str]) -> list[Problem]:
+def schema_problems(
+    error: ValidationError, root: type[BaseModel], data: Any, where: Callable[[list[Any]], str]
+) -> list[Problem]:
     """One :class:`Problem` per distinct key in a pydantic ``ValidationError`` of ``root`` on ``data``."""
     out: dict[str, Problem] = {}
     for err in error.errors(include_url=False):
@@ -162,8 +165,11 @@ def schema_problems(error: ValidationError, root: type[BaseModel], data: Any,
         if err["type"] == "extra_forbidden":
             keys = list(model.model_fields) if model is not None else []
             full = f"{place} {key}"
-            found = Problem(full, f"{place} has unknown key {key!r} = {show(err['input'])}; allowed keys: "
-                                  f"{', '.join(keys)}{did_you_mean(key, keys)}")
+            found = Problem(
+                full,
+                f"{place} has unknown key {key!r} = {show(err['input'])}; allowed keys: "
+                f"{', '.join(keys)}{did_you_mean(key, keys)}",
+            )
         elif err["type"] == "missing":
             if key is None and table:  # a whole table is missing
                 table, model, _ = _split(root, loc[:-1])

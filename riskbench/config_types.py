@@ -14,8 +14,10 @@ from riskbench.cohort.spec import NAME_PATTERN  # the one definition of a safe n
 from riskbench.time_units import DurationError, format_duration, parse_duration
 
 #: Names of variables, statics, levels and models: file names and columns derive from them.
-NAME_RULE = ("a name of letters, digits and underscores that starts with a letter, at most 40 characters "
-             "(^[A-Za-z][A-Za-z0-9_]{0,39}$)")
+NAME_RULE = (
+    "a name of letters, digits and underscores that starts with a letter, at most 40 characters "
+    "(^[A-Za-z][A-Za-z0-9_]{0,39}$)"
+)
 #: Free text (labels, titles) is shown escaped; this only bounds its length.
 MAX_TEXT = 300
 
@@ -49,8 +51,9 @@ def _to_days(value: object) -> float:
     try:
         return parse_duration(value)  # type: ignore[arg-type]
     except DurationError:
-        raise ValueError('expected a duration with a unit in quotes, e.g. "180 days", "6 months" or '
-                         '"2 years"') from None
+        raise ValueError(
+            'expected a duration with a unit in quotes, e.g. "180 days", "6 months" or "2 years"'
+        ) from None
 
 
 def _positive(days: float) -> float:

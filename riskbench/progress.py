@@ -86,8 +86,13 @@ class ProgressState:
         data = json.loads(text)
         if not isinstance(data, dict):
             raise ValueError("a progress line is a JSON object")
-        return cls(label=str(data["label"]), done=int(data["done"]), total=int(data["total"]),
-                   elapsed_s=float(data["elapsed_s"]), unit=str(data.get("unit", "replicates")))
+        return cls(
+            label=str(data["label"]),
+            done=int(data["done"]),
+            total=int(data["total"]),
+            elapsed_s=float(data["elapsed_s"]),
+            unit=str(data.get("unit", "replicates")),
+        )
 
 
 def format_seconds(seconds: float) -> str:
@@ -130,8 +135,15 @@ class TerminalSink:
     clock : callable, default time.monotonic
     """
 
-    def __init__(self, stream: TextIO | None = None, *, interactive: bool | None = None, interval_s: float = 30.0,
-                 prefix: str = "", clock: Callable[[], float] = time.monotonic) -> None:
+    def __init__(
+        self,
+        stream: TextIO | None = None,
+        *,
+        interactive: bool | None = None,
+        interval_s: float = 30.0,
+        prefix: str = "",
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
         self._stream = stream
         self._interactive = interactive
         self._interval = interval_s
@@ -233,8 +245,9 @@ class FileSink:
     clock : callable, default time.monotonic
     """
 
-    def __init__(self, path: str | os.PathLike[str], interval_s: float = 1.0,
-                 clock: Callable[[], float] = time.monotonic) -> None:
+    def __init__(
+        self, path: str | os.PathLike[str], interval_s: float = 1.0, clock: Callable[[], float] = time.monotonic
+    ) -> None:
         self._path = os.fspath(path)
         self._interval = interval_s
         self._clock = clock
@@ -325,8 +338,15 @@ class Progress:
     3
     """
 
-    def __init__(self, label: str, total: int, sinks: Sequence[ProgressSink], *, unit: str = "replicates",
-                 clock: Callable[[], float] = time.monotonic) -> None:
+    def __init__(
+        self,
+        label: str,
+        total: int,
+        sinks: Sequence[ProgressSink],
+        *,
+        unit: str = "replicates",
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
         self.label = label
         self.total = int(total)
         self.unit = unit

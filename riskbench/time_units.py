@@ -19,10 +19,14 @@ DAYS_PER_WEEK: float = 7.0
 
 #: Unit words accepted in a duration text and their length in days.
 UNIT_DAYS: dict[str, float] = {
-    "day": 1.0, "days": 1.0,
-    "week": DAYS_PER_WEEK, "weeks": DAYS_PER_WEEK,
-    "month": DAYS_PER_MONTH, "months": DAYS_PER_MONTH,
-    "year": DAYS_PER_YEAR, "years": DAYS_PER_YEAR,
+    "day": 1.0,
+    "days": 1.0,
+    "week": DAYS_PER_WEEK,
+    "weeks": DAYS_PER_WEEK,
+    "month": DAYS_PER_MONTH,
+    "months": DAYS_PER_MONTH,
+    "year": DAYS_PER_YEAR,
+    "years": DAYS_PER_YEAR,
 }
 
 _DURATION = re.compile(r"^\s*([0-9]+(?:\.[0-9]*)?|\.[0-9]+)\s*([A-Za-z]+)\s*$")
@@ -52,13 +56,13 @@ def parse_duration(text: str) -> float:
         If the text has no unit, an unknown unit or a number that is negative or not finite.
     """
     if not isinstance(text, str):
-        raise DurationError(
-            f"{text!r} is not a duration; write a number and a unit in quotes, e.g. \"6 months\"")
+        raise DurationError(f'{text!r} is not a duration; write a number and a unit in quotes, e.g. "6 months"')
     match = _DURATION.match(text)
     if not match:
         raise DurationError(
-            f"{text!r} is not a duration; write a non-negative number and a unit, e.g. \"180 days\", "
-            "\"6 months\" or \"2 years\"")
+            f'{text!r} is not a duration; write a non-negative number and a unit, e.g. "180 days", '
+            '"6 months" or "2 years"'
+        )
     number, unit = float(match.group(1)), match.group(2).lower()
     if unit not in UNIT_DAYS:
         raise DurationError(f"{text!r}: unknown unit {match.group(2)!r}; use days, weeks, months or years")

@@ -22,8 +22,9 @@ def _blocks() -> list[tuple[str, str]]:
     return BLOCK.findall(DOC.read_text(encoding="utf-8"))
 
 
-@pytest.mark.skipif(not (ROOT / "demo_data" / "clean" / "patients.parquet").exists(),
-                    reason="committed demo cohort not present")
+@pytest.mark.skipif(
+    not (ROOT / "demo_data" / "clean" / "patients.parquet").exists(), reason="committed demo cohort not present"
+)
 def test_every_example_prints_what_the_page_shows(monkeypatch):
     import matplotlib.pyplot as plt
 

@@ -41,8 +41,12 @@ def _imported_exception_classes() -> dict[str, type[BaseException]]:
             continue
         module = importlib.import_module(info.name)
         for obj in vars(module).values():
-            if (inspect.isclass(obj) and issubclass(obj, BaseException) and not issubclass(obj, Warning)
-                    and obj.__module__ == info.name):
+            if (
+                inspect.isclass(obj)
+                and issubclass(obj, BaseException)
+                and not issubclass(obj, Warning)
+                and obj.__module__ == info.name
+            ):
                 found[f"{obj.__module__}.{obj.__qualname__}"] = obj
     return found
 
@@ -63,17 +67,25 @@ def _class_definitions() -> dict[str, set[str]]:
 
 def test_the_walk_finds_the_stage_errors() -> None:
     """The search is not empty-handed: the base and one error of each stage are among the classes found."""
-    expected = {"riskbench.errors.RiskbenchError", "riskbench.workflow.config.ConfigError",
-                "riskbench.cohort.errors.CohortInputError", "riskbench.models.risk_contract.ModelInputError",
-                "riskbench.metrics.inputs.MetricInputError", "riskbench.validation.errors.ValidationInputError"}
+    expected = {
+        "riskbench.errors.RiskbenchError",
+        "riskbench.workflow.config.ConfigError",
+        "riskbench.cohort.errors.CohortInputError",
+        "riskbench.models.risk_contract.ModelInputError",
+        "riskbench.metrics.inputs.MetricInputError",
+        "riskbench.validation.errors.ValidationInputError",
+    }
     assert expected <= set(CLASSES)
 
 
 def test_every_error_class_derives_from_the_package_base() -> None:
-    outside = sorted(name for name, cls in CLASSES.items()
-                     if not issubclass(cls, RiskbenchError) and name not in INTERNAL)
-    assert not outside, (f"{outside} do not derive from riskbench.errors.RiskbenchError; derive them from it (or "
-                         "from a stage's error class), or list them in INTERNAL with the reason")
+    outside = sorted(
+        name for name, cls in CLASSES.items() if not issubclass(cls, RiskbenchError) and name not in INTERNAL
+    )
+    assert not outside, (
+        f"{outside} do not derive from riskbench.errors.RiskbenchError; derive them from it (or "
+        "from a stage's error class), or list them in INTERNAL with the reason"
+    )
 
 
 def test_internal_list_is_current() -> None:
@@ -86,8 +98,12 @@ def test_no_exception_class_hides_inside_a_function() -> None:
     """Every class with an exception-like name defined anywhere in the source is one the import walk found
     (a class defined inside a function would escape the hierarchy check)."""
     known = {name.rsplit(".", 1)[1] for name in CLASSES}
-    hidden = sorted(f"{module}.{cls}" for module, names in _class_definitions().items() for cls in names
-                    if cls.endswith(("Error", "Exception", "Failed", "Interrupted")) and cls not in known)
+    hidden = sorted(
+        f"{module}.{cls}"
+        for module, names in _class_definitions().items()
+        for cls in names
+        if cls.endswith(("Error", "Exception", "Failed", "Interrupted")) and cls not in known
+    )
     assert not hidden, f"exception classes not defined at module level: {hidden}"
 
 
@@ -98,8 +114,9 @@ def _source_text() -> str:
 def test_every_user_facing_error_class_is_used() -> None:
     """A declared error class nobody raises, catches or derives from is a promise the code does not keep."""
     text = _source_text()
-    unused = sorted(name for name, cls in CLASSES.items()
-                    if text.count(cls.__name__) < 2)  # the definition itself is one occurrence
+    unused = sorted(
+        name for name, cls in CLASSES.items() if text.count(cls.__name__) < 2
+    )  # the definition itself is one occurrence
     assert not unused, f"error classes never used outside their definition: {unused}"
 
 

@@ -16,8 +16,12 @@ def early_returns(source: str) -> list[str]:
         if not isinstance(node, ast.FunctionDef) or not any("given" in ast.unparse(d) for d in node.decorator_list):
             continue
         for inner in ast.walk(node):
-            if (isinstance(inner, ast.If) and len(inner.body) == 1 and isinstance(inner.body[0], ast.Return)
-                    and inner.body[0].value is None):
+            if (
+                isinstance(inner, ast.If)
+                and len(inner.body) == 1
+                and isinstance(inner.body[0], ast.Return)
+                and inner.body[0].value is None
+            ):
                 found.append(f"{node.name}:{inner.lineno}")
     return found
 
@@ -29,6 +33,8 @@ def test_property_tests_use_assume() -> None:
 
 
 def test_the_check_sees_an_early_return() -> None:
-    source = ("@given(st.integers())\ndef test_a(x):\n    if x < 0:\n        return\n    assert x >= 0\n"
-              "def test_b(x):\n    if x:\n        return\n")
+    source = (
+        "@given(st.integers())\ndef test_a(x):\n    if x < 0:\n        return\n    assert x >= 0\n"
+        "def test_b(x):\n    if x:\n        return\n"
+    )
     assert early_returns(source) == ["test_a:3"]

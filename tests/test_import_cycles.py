@@ -33,7 +33,8 @@ def _modules() -> dict[str, Path]:
 
 def _is_type_checking(test: ast.expr) -> bool:
     return (isinstance(test, ast.Name) and test.id == "TYPE_CHECKING") or (
-        isinstance(test, ast.Attribute) and test.attr == "TYPE_CHECKING")
+        isinstance(test, ast.Attribute) and test.attr == "TYPE_CHECKING"
+    )
 
 
 def _import_nodes(tree: ast.AST) -> list[ast.Import | ast.ImportFrom]:
@@ -129,7 +130,8 @@ KNOWN_CYCLES: list[list[str]] = [
 def test_riskbench_has_no_import_cycle() -> None:
     found = [c for c in cycles(import_graph(_modules())) if c not in KNOWN_CYCLES]
     assert not found, "import cycles (break them by moving the shared part into its own module):\n" + "\n".join(
-        " <-> ".join(c) for c in found)
+        " <-> ".join(c) for c in found
+    )
 
 
 def test_known_cycles_still_exist() -> None:
@@ -138,11 +140,14 @@ def test_known_cycles_still_exist() -> None:
     assert not gone, f"these cycles are broken now; remove them from KNOWN_CYCLES: {gone}"
 
 
-@pytest.mark.parametrize(("graph", "expected"), [
-    ({"a": {"b"}, "b": {"c"}, "c": {"a"}, "d": {"a"}}, [["a", "b", "c"]]),
-    ({"a": {"b"}, "b": set(), "c": {"c"}}, [["c"]]),
-    ({"a": {"b", "c"}, "b": {"c"}, "c": set()}, []),
-])
+@pytest.mark.parametrize(
+    ("graph", "expected"),
+    [
+        ({"a": {"b"}, "b": {"c"}, "c": {"a"}, "d": {"a"}}, [["a", "b", "c"]]),
+        ({"a": {"b"}, "b": set(), "c": {"c"}}, [["c"]]),
+        ({"a": {"b", "c"}, "b": {"c"}, "c": set()}, []),
+    ],
+)
 def test_cycle_search_on_known_graphs(graph, expected) -> None:
     """The search itself, on graphs whose cycles are known by construction."""
     assert cycles(graph) == expected
@@ -154,12 +159,19 @@ def test_function_level_import_is_an_edge(tmp_path) -> None:
     pkg.mkdir(parents=True)
     (pkg / "__init__.py").write_text("")
     (pkg / "a.py").write_text("def f():\n    from riskbench.models.b import g\n    return g\n")
-    (pkg / "b.py").write_text("from .a import f\nfrom typing import TYPE_CHECKING\nif TYPE_CHECKING:\n"
-                              "    from riskbench.models import c\n")
+    (pkg / "b.py").write_text(
+        "from .a import f\nfrom typing import TYPE_CHECKING\nif TYPE_CHECKING:\n    from riskbench.models import c\n"
+    )
     (pkg / "c.py").write_text("")
-    modules = {n: p for n, p in {
-        "riskbench.models": pkg / "__init__.py", "riskbench.models.a": pkg / "a.py",
-        "riskbench.models.b": pkg / "b.py", "riskbench.models.c": pkg / "c.py"}.items()}
+    modules = {
+        n: p
+        for n, p in {
+            "riskbench.models": pkg / "__init__.py",
+            "riskbench.models.a": pkg / "a.py",
+            "riskbench.models.b": pkg / "b.py",
+            "riskbench.models.c": pkg / "c.py",
+        }.items()
+    }
     graph = import_graph(modules)
     assert graph["riskbench.models.a"] == {"riskbench.models.b"}
     assert graph["riskbench.models.b"] == {"riskbench.models.a"}

@@ -19,8 +19,9 @@ def private_imports(source: str) -> list[str]:
     names = []
     for node in ast.walk(ast.parse(source)):
         if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("riskbench"):
-            names += [f"{node.module}.{a.name}" for a in node.names if a.name.startswith("_")
-                      and not a.name.startswith("__")]
+            names += [
+                f"{node.module}.{a.name}" for a in node.names if a.name.startswith("_") and not a.name.startswith("__")
+            ]
     return names
 
 
@@ -36,8 +37,10 @@ def _offenders() -> dict[str, list[str]]:
 
 def test_private_imports_say_why() -> None:
     offenders = {k: v for k, v in _offenders().items() if k not in PENDING}
-    assert not offenders, ("use the public API, or say in the file why the private name is tested on purpose "
-                           f"(with the words 'private on purpose'): {offenders}")
+    assert not offenders, (
+        "use the public API, or say in the file why the private name is tested on purpose "
+        f"(with the words 'private on purpose'): {offenders}"
+    )
 
 
 def test_pending_list_is_current() -> None:
@@ -46,6 +49,8 @@ def test_pending_list_is_current() -> None:
 
 
 def test_the_reader_sees_function_level_and_multiline_imports() -> None:
-    source = ("from riskbench.a import (\n    b,\n    _c,\n)\n"
-              "def f():\n    from riskbench.d import _e\nfrom other import _x\nfrom riskbench.g import __version__\n")
+    source = (
+        "from riskbench.a import (\n    b,\n    _c,\n)\n"
+        "def f():\n    from riskbench.d import _e\nfrom other import _x\nfrom riskbench.g import __version__\n"
+    )
     assert private_imports(source) == ["riskbench.a._c", "riskbench.d._e"]

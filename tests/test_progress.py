@@ -42,8 +42,10 @@ def test_no_estimate_before_the_first_unit_and_a_plain_total_at_the_end():
     assert ProgressState("folds", 5, 5, 75.0, "folds").line() == "folds: 5 of 5 folds in 1 min 15 s"
 
 
-@pytest.mark.parametrize(("seconds", "text"), [(0.44, "0.4 s"), (12.4, "12 s"), (185, "3 min 05 s"),
-                                               (7620, "2 h 07 min"), (float("nan"), "unknown time")])
+@pytest.mark.parametrize(
+    ("seconds", "text"),
+    [(0.44, "0.4 s"), (12.4, "12 s"), (185, "3 min 05 s"), (7620, "2 h 07 min"), (float("nan"), "unknown time")],
+)
 def test_durations_for_people(seconds, text):
     assert format_seconds(seconds) == text
 
@@ -84,8 +86,10 @@ def test_log_file_gets_a_line_per_interval_and_the_final_one():
 
 def test_work_stopped_early_says_how_far_it_got():
     stream, clock = io.StringIO(), Clock()
-    with pytest.raises(RuntimeError), Progress("bootstrap", 4, [TerminalSink(stream, interactive=False)],
-                                               clock=clock) as progress:
+    with (
+        pytest.raises(RuntimeError),
+        Progress("bootstrap", 4, [TerminalSink(stream, interactive=False)], clock=clock) as progress,
+    ):
         clock.now += 5.0
         progress.advance()
         raise RuntimeError

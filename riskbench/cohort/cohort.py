@@ -61,8 +61,13 @@ class Cohort:
         One row per included patient: ``patient_id, entry_date, end_days, end_status`` and static covariates.
     """
 
-    def __init__(self, con: duckdb.DuckDBPyConnection, spec: CohortSpec, counting_process_file: Path,
-                 spill_folder: tempfile.TemporaryDirectory | None = None) -> None:
+    def __init__(
+        self,
+        con: duckdb.DuckDBPyConnection,
+        spec: CohortSpec,
+        counting_process_file: Path,
+        spill_folder: tempfile.TemporaryDirectory | None = None,
+    ) -> None:
         self._con = con
         self.spec = spec
         self._cp_file = counting_process_file  # the Parquet file the view cp reads
@@ -82,20 +87,28 @@ class Cohort:
     def ledger(self) -> pd.DataFrame:
         order = {t: i for i, t in enumerate(TABLE_ORDER)}
         frame = _to_pandas(self._con.sql('SELECT * FROM ledger ORDER BY "table", row_number'))
-        return frame.sort_values(["table", "row_number"], key=lambda s: s.map(order) if s.name == "table" else s,
-                                 kind="stable", ignore_index=True)
+        return frame.sort_values(
+            ["table", "row_number"],
+            key=lambda s: s.map(order) if s.name == "table" else s,
+            kind="stable",
+            ignore_index=True,
+        )
 
     @cached_property
     def patients(self) -> pd.DataFrame:
         statics = "".join(f", {quote(c)}" for c in self.spec.static_columns)
-        return _to_pandas(self._con.sql(
-            f"SELECT patient_id, CAST(entry_ts AS DATE) AS entry_date, end_days, "
-            f"CAST(end_status AS TINYINT) AS end_status, entry_age_years{statics} FROM pat ORDER BY patient_id"))
+        return _to_pandas(
+            self._con.sql(
+                f"SELECT patient_id, CAST(entry_ts AS DATE) AS entry_date, end_days, "
+                f"CAST(end_status AS TINYINT) AS end_status, entry_age_years{statics} FROM pat ORDER BY patient_id"
+            )
+        )
 
     def state_counts(self) -> pd.DataFrame:
         """Rows per table and ledger state: ``table, state, n_rows``."""
-        return self._con.sql('SELECT "table", state, count(*) AS n_rows FROM ledger GROUP BY ALL '
-                             'ORDER BY "table", state').df()
+        return self._con.sql(
+            'SELECT "table", state, count(*) AS n_rows FROM ledger GROUP BY ALL ORDER BY "table", state'
+        ).df()
 
     @cached_property
     def flow(self) -> pd.DataFrame:
@@ -137,15 +150,21 @@ class Cohort:
         """
         return _to_pandas(self._con.sql(landmark_sql(self.spec, landmarks_days, horizon_days)))
 
-    def write_parquet(self, folder: str | Path, *, landmarks_days: Sequence[float] | None = None,
-                      horizon_days: float | None = None) -> dict[str, Path]:
+    def write_parquet(
+        self, folder: str | Path, *, landmarks_days: Sequence[float] | None = None, horizon_days: float | None = None
+    ) -> dict[str, Path]:
         """Write the tables as Parquet files into ``folder`` (out of core); return the paths by table name."""
         out = Path(folder)
         out.mkdir(parents=True, exist_ok=True)
-        paths = {"counting_process": out / "counting_process.parquet", "ledger": out / "ledger.parquet",
-                 "patients": out / "patients.parquet"}
-        queries = {"ledger": "SELECT * FROM ledger",
-                   "patients": "SELECT * EXCLUDE (entry_ts), CAST(entry_ts AS DATE) AS entry_date FROM pat"}
+        paths = {
+            "counting_process": out / "counting_process.parquet",
+            "ledger": out / "ledger.parquet",
+            "patients": out / "patients.parquet",
+        }
+        queries = {
+            "ledger": "SELECT * FROM ledger",
+            "patients": "SELECT * EXCLUDE (entry_ts), CAST(entry_ts AS DATE) AS entry_date FROM pat",
+        }
         if landmarks_days is not None:
             if horizon_days is None:
                 raise ValueError("write_parquet: give horizon_days together with landmarks_days")
@@ -161,9 +180,17 @@ class Cohort:
         return paths
 
 
-def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec: CohortSpec, *,
-                 memory_limit: str | None = None, threads: int | None = None,
-                 run_day: datetime.date | None = None, temp_folder: str | Path | None = None) -> Cohort:
+def build_cohort(
+    patients: Source,
+    measurements: Source,
+    outcomes: Source,
+    spec: CohortSpec,
+    *,
+    memory_limit: str | None = None,
+    threads: int | None = None,
+    run_day: datetime.date | None = None,
+    temp_folder: str | Path | None = None,
+) -> Cohort:
     """Check the sources, keep the ledger and build the counting-process table.
 
     Parameters
@@ -200,8 +227,10 @@ def build_cohort(patients: Source, measurements: Source, outcomes: Source, spec:
     if temp_folder is not None:
         Path(temp_folder).mkdir(mode=0o700, parents=True, exist_ok=True)
     spill = tempfile.TemporaryDirectory(prefix="riskbench_duckdb_", dir=temp_folder)
-    config: dict[str, str | bool | int | float | list[str]] = {"preserve_insertion_order": True,
-                                                             "temp_directory": spill.name}
+    config: dict[str, str | bool | int | float | list[str]] = {
+        "preserve_insertion_order": True,
+        "temp_directory": spill.name,
+    }
     if memory_limit:
         config["memory_limit"] = memory_limit
     if threads:

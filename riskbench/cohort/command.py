@@ -22,12 +22,17 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "build-tables",
         help="check the sources of a configuration; write counting-process table, ledger and flow (Parquet)",
         description="Read the [sources] and [cohort] sections of an analysis configuration (TOML), check every "
-                    "source row, print the cohort flow and the most frequent exclusion reasons, and write "
-                    "the tables as Parquet files.")
+        "source row, print the cohort flow and the most frequent exclusion reasons, and write "
+        "the tables as Parquet files.",
+    )
     parser.add_argument("config", type=Path, help="analysis configuration (TOML)")
     parser.add_argument("--out", type=Path, required=True, help="folder for the Parquet tables")
-    parser.add_argument("--landmark-every-months", type=float, default=None,
-                        help="also write a landmark stack with landmarks every this many months")
+    parser.add_argument(
+        "--landmark-every-months",
+        type=float,
+        default=None,
+        help="also write a landmark stack with landmarks every this many months",
+    )
     parser.add_argument("--landmark-up-to-years", type=float, default=5.0, help="last landmark, years (default 5)")
     parser.add_argument("--horizon-years", type=float, default=2.0, help="landmark horizon, years (default 2)")
     parser.add_argument("--top", type=int, default=5, help="how many exclusion reasons to list (default 5)")
@@ -54,9 +59,12 @@ def run(args: argparse.Namespace) -> int:
     cohort = build_cohort(sources.patients, sources.measurements, sources.outcomes, spec)
     landmarks = None
     if args.landmark_every_months is not None:
-        landmarks = landmark_grid(args.landmark_every_months * DAYS_PER_MONTH, args.landmark_up_to_years * DAYS_PER_YEAR)
-    paths = cohort.write_parquet(args.out, landmarks_days=landmarks,
-                                 horizon_days=args.horizon_years * DAYS_PER_YEAR if landmarks else None)
+        landmarks = landmark_grid(
+            args.landmark_every_months * DAYS_PER_MONTH, args.landmark_up_to_years * DAYS_PER_YEAR
+        )
+    paths = cohort.write_parquet(
+        args.out, landmarks_days=landmarks, horizon_days=args.horizon_years * DAYS_PER_YEAR if landmarks else None
+    )
     flow = cohort.flow
     shown = flow[(flow["excluded"] > 0) | flow["state"].isin(["read", "used"])]
     print("Cohort flow (rows per source table)")

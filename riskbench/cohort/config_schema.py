@@ -54,9 +54,8 @@ class TableSection(ConfigTable):
     """``[sources.<table>]``."""
 
     path: str = Field(description="a file path (CSV or Parquet) relative to the configuration file")
-    columns: dict[str, str] = Field(default_factory=dict,
-                                    description="a table our_name = \"file's column name\"")
-    date_format: str | None = Field(None, description="a strftime format such as \"%d/%m/%Y\"")
+    columns: dict[str, str] = Field(default_factory=dict, description='a table our_name = "file\'s column name"')
+    date_format: str | None = Field(None, description='a strftime format such as "%d/%m/%Y"')
     encoding: str | None = Field(None, description="a text encoding: " + ", ".join(ENCODINGS))
 
     @field_validator("encoding")
@@ -66,8 +65,9 @@ class TableSection(ConfigTable):
             try:
                 codecs.lookup(value)
             except LookupError:
-                raise ValueError("expected a text encoding such as " + ", ".join(ENCODINGS)
-                                 + did_you_mean(value, ENCODINGS)) from None
+                raise ValueError(
+                    "expected a text encoding such as " + ", ".join(ENCODINGS) + did_you_mean(value, ENCODINGS)
+                ) from None
         return value
 
 
@@ -81,10 +81,9 @@ class SourcesSection(ConfigTable):
     """``[sources]``: the three input tables."""
 
     date_format: str | None = Field(None, description="a strftime format shared by the three tables")
-    patients: TableSection = Field(description="a [sources.patients] table with at least path = \"...\"")
-    measurements: MeasurementsSection = Field(
-        description="a [sources.measurements] table with at least path = \"...\"")
-    outcomes: TableSection = Field(description="a [sources.outcomes] table with at least path = \"...\"")
+    patients: TableSection = Field(description='a [sources.patients] table with at least path = "..."')
+    measurements: MeasurementsSection = Field(description='a [sources.measurements] table with at least path = "..."')
+    outcomes: TableSection = Field(description='a [sources.outcomes] table with at least path = "..."')
 
 
 # --------------------------------------------------------------------------------------------------
@@ -104,9 +103,10 @@ def _check_range(value: Range | None) -> Range | None:
 class VariableSection(ConfigTable):
     """``[cohort.variables.<name>]``: one time-varying variable."""
 
-    unit: str = Field("1", description="the canonical unit, a string such as \"mm3\"")
-    conversions: dict[str, float] = Field(default_factory=dict,
-                                          description="a table unit = factor, each a finite number > 0")
+    unit: str = Field("1", description='the canonical unit, a string such as "mm3"')
+    conversions: dict[str, float] = Field(
+        default_factory=dict, description="a table unit = factor, each a finite number > 0"
+    )
     range: Range | None = Field(None, description="[min, max]: two finite numbers, min <= max")
     transform: Literal["none", "log"] = "none"
     change: bool = Field(False, description="true or false")
@@ -132,8 +132,9 @@ class StaticSection(ConfigTable):
     column: str | None = Field(None, description="the patients table's column (default: the static's name)")
     kind: Literal["numeric", "count", "categorical"] | None = None
     range: Range | None = Field(None, description="[min, max]: two finite numbers, min <= max")
-    codes: dict[str, Name] = Field(default_factory=dict,
-                                   description="a table source_code = \"level\" (level: a safe name)")
+    codes: dict[str, Name] = Field(
+        default_factory=dict, description='a table source_code = "level" (level: a safe name)'
+    )
     reference: Name | None = None
     label: Text | None = None
     unit: str | None = None
@@ -143,16 +144,20 @@ class StaticSection(ConfigTable):
     @model_validator(mode="after")
     def _categorical(self) -> StaticSection:
         if (self.kind == "categorical") != bool(self.codes) and self.kind is not None:
-            raise ValueError("kind = 'categorical' goes with codes = { source_code = \"level\", ... } and codes with "
-                             "kind = 'categorical'")
+            raise ValueError(
+                "kind = 'categorical' goes with codes = { source_code = \"level\", ... } and codes with "
+                "kind = 'categorical'"
+            )
         if self.codes and self.range is not None:
             raise ValueError("give either codes (a categorical static) or range (a numeric one), not both")
         levels = sorted(set(self.codes.values()))
         if self.codes and self.reference not in levels:
-            raise ValueError(f"reference = {show(self.reference)} must be one of the levels {levels}"
-                             f"{did_you_mean(self.reference, levels)}")
+            raise ValueError(
+                f"reference = {show(self.reference)} must be one of the levels {levels}"
+                f"{did_you_mean(self.reference, levels)}"
+            )
         if self.reference is not None and not self.codes:
-            raise ValueError("reference needs codes = { source_code = \"level\", ... }")
+            raise ValueError('reference needs codes = { source_code = "level", ... }')
         return self
 
 
@@ -175,22 +180,44 @@ def _cohort_rules(section: CohortSection) -> list[Problem]:
 
     out = []
     if not section.variables:
-        out.append(Problem("[cohort.variables]", "[cohort.variables] is empty: riskbench builds its tables from "
-                           "repeated measurements, so describe at least one variable of the measurements file as "
-                           "a [cohort.variables.<name>] table (unit, range); a cohort with static covariates only "
-                           "is outside what riskbench is built for"))
-    out += [Problem(f"[cohort.variables.{n}]", f"[cohort.variables] the variable name {show(n)} is not allowed: "
-                                              f"expected {NAME_RULE}") for n in section.variables if not is_name(n)]
-    out += [Problem(f"[cohort.statics.{n}]", f"[cohort.statics] the static name {show(n)} is not allowed: "
-                                            f"expected {NAME_RULE}") for n in section.statics if not is_name(n)]
+        out.append(
+            Problem(
+                "[cohort.variables]",
+                "[cohort.variables] is empty: riskbench builds its tables from "
+                "repeated measurements, so describe at least one variable of the measurements file as "
+                "a [cohort.variables.<name>] table (unit, range); a cohort with static covariates only "
+                "is outside what riskbench is built for",
+            )
+        )
+    out += [
+        Problem(
+            f"[cohort.variables.{n}]",
+            f"[cohort.variables] the variable name {show(n)} is not allowed: expected {NAME_RULE}",
+        )
+        for n in section.variables
+        if not is_name(n)
+    ]
+    out += [
+        Problem(
+            f"[cohort.statics.{n}]", f"[cohort.statics] the static name {show(n)} is not allowed: expected {NAME_RULE}"
+        )
+        for n in section.statics
+        if not is_name(n)
+    ]
     out += [problem("[cohort]", "static", n, f"expected {NAME_RULE}") for n in section.static if not is_name(n)]
     if len(set(section.static)) != len(section.static):
         out.append(problem("[cohort]", "static", section.static, "expected distinct names"))
     unknown = [v for v in section.exam_variables if v not in section.variables]
     for v in unknown:
-        out.append(problem("[cohort]", "exam_variables", v,
-                           f"expected names of [cohort.variables.*] tables: {sorted(section.variables)}",
-                           choices=section.variables))
+        out.append(
+            problem(
+                "[cohort]",
+                "exam_variables",
+                v,
+                f"expected names of [cohort.variables.*] tables: {sorted(section.variables)}",
+                choices=section.variables,
+            )
+        )
     return out
 
 
@@ -213,8 +240,10 @@ def migrate_durations(table: Mapping[str, Any], stem: str, where: str, deprecati
         if old in out and stem not in out:
             value = out.pop(old)
             out[stem] = _number_to_duration(value, unit)
-            deprecations.append(f"{where} {old} = {show(value)} is deprecated; write {stem} = "
-                                f"{show(readable_duration(out[stem]))} (a duration with its unit)")
+            deprecations.append(
+                f"{where} {old} = {show(value)} is deprecated; write {stem} = "
+                f"{show(readable_duration(out[stem]))} (a duration with its unit)"
+            )
     return out
 
 
@@ -227,7 +256,8 @@ def _migrate_cohort(data: Any, deprecations: list[str]) -> Any:
     if isinstance(variables, Mapping):
         out["variables"] = {
             name: migrate_durations(v, "slope_window", f"[cohort.variables.{name}]", deprecations)
-            if isinstance(v, Mapping) else v
+            if isinstance(v, Mapping)
+            else v
             for name, v in variables.items()
         }
     return out
@@ -250,26 +280,51 @@ def construct(cls: type, **kwargs: Any) -> Any:
 def _static_spec(name: str, s: StaticSection) -> Any:
     lo, hi = s.range if s.range is not None else (None, None)
     return construct(
-        StaticSpec, name=name, column=s.column,
-        kind=s.kind or ("categorical" if s.codes else "numeric"), plausible_min=lo, plausible_max=hi,
-        codes=dict(s.codes), reference=s.reference, label=s.label, unit=s.unit)
+        StaticSpec,
+        name=name,
+        column=s.column,
+        kind=s.kind or ("categorical" if s.codes else "numeric"),
+        plausible_min=lo,
+        plausible_max=hi,
+        codes=dict(s.codes),
+        reference=s.reference,
+        label=s.label,
+        unit=s.unit,
+    )
 
 
 def build_cohort_spec(section: CohortSection) -> CohortSpec:
     """The :class:`~riskbench.cohort.spec.CohortSpec` of a checked [cohort] section."""
     variables = tuple(
-        construct(VariableSpec, name=name, unit=v.unit, conversions=dict(v.conversions),
-                  plausible_min=v.range[0] if v.range else None, plausible_max=v.range[1] if v.range else None,
-                  transform=v.transform, change=v.change, slope=v.slope, slope_window_days=v.slope_window,
-                  previous=v.previous, label=v.label)
+        construct(
+            VariableSpec,
+            name=name,
+            unit=v.unit,
+            conversions=dict(v.conversions),
+            plausible_min=v.range[0] if v.range else None,
+            plausible_max=v.range[1] if v.range else None,
+            transform=v.transform,
+            change=v.change,
+            slope=v.slope,
+            slope_window_days=v.slope_window,
+            previous=v.previous,
+            label=v.label,
+        )
         for name, v in section.variables.items()
     )
     statics = tuple(_static_spec(n, s) for n, s in section.statics.items()) if section.statics else ()
     return construct(
-        CohortSpec, variables=variables, max_carry_days=section.max_carry, lookback_days=section.lookback,
-        same_day_rule=section.same_day_rule, static=tuple(section.static), statics=statics,
-        exam_variables=tuple(section.exam_variables), current_age=section.current_age,
-        kind_map=dict(section.kind_map))
+        CohortSpec,
+        variables=variables,
+        max_carry_days=section.max_carry,
+        lookback_days=section.lookback,
+        same_day_rule=section.same_day_rule,
+        static=tuple(section.static),
+        statics=statics,
+        exam_variables=tuple(section.exam_variables),
+        current_age=section.current_age,
+        kind_map=dict(section.kind_map),
+    )
 
 
 def _file_problems(section: SourcesSection, base_dir: Path) -> list[Problem]:
@@ -286,8 +341,9 @@ def _file_problems(section: SourcesSection, base_dir: Path) -> list[Problem]:
         allowed = TABLE_COLUMNS[table]
         for ours in src.columns:
             if strict and ours not in allowed:
-                out.append(problem(where, "columns", ours, f"expected our column names: {', '.join(allowed)}",
-                                   choices=allowed))
+                out.append(
+                    problem(where, "columns", ours, f"expected our column names: {', '.join(allowed)}", choices=allowed)
+                )
     return out
 
 
@@ -298,11 +354,17 @@ def _resolve(path: str, base_dir: Path) -> Path:
 
 def build_source_spec(section: SourcesSection, base_dir: Path) -> SourceSpec:
     """The :class:`~riskbench.cohort.sources.SourceSpec` of a checked [sources] section."""
+
     def table(name: str) -> Any:
         src: TableSection = getattr(section, name)
-        return construct(TableSource, path=_resolve(src.path, base_dir), columns=dict(src.columns),
-                         date_format=src.date_format or section.date_format,
-                         layout=getattr(src, "layout", "long"), encoding=src.encoding or "utf-8")
+        return construct(
+            TableSource,
+            path=_resolve(src.path, base_dir),
+            columns=dict(src.columns),
+            date_format=src.date_format or section.date_format,
+            layout=getattr(src, "layout", "long"),
+            encoding=src.encoding or "utf-8",
+        )
 
     return SourceSpec(patients=table("patients"), measurements=table("measurements"), outcomes=table("outcomes"))
 

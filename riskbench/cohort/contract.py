@@ -38,13 +38,43 @@ LINE_STATES = (S.BLANK_LINE, S.WRONG_FIELD_COUNT)
 DATE_STATES = (S.DATE_WITH_TIME_ZONE, S.UNPARSEABLE_DATE, S.IMPLAUSIBLE_DATE, S.FUTURE_DATE)
 #: The order in which each table's checks are applied (the flow table follows it).
 CHECK_ORDER: dict[str, tuple[S, ...]] = {
-    "patients": (*LINE_STATES, S.MISSING_REQUIRED, *DATE_STATES, S.EXACT_DUPLICATE, *STATIC_STATES,
-                 S.OUTCOME_BEFORE_ENTRY, S.NO_FOLLOW_UP, S.USED),
-    "outcomes": (*LINE_STATES, S.MISSING_REQUIRED, *DATE_STATES, S.UNKNOWN_KIND, S.UNKNOWN_PATIENT,
-                 S.EXACT_DUPLICATE, S.PATIENT_EXCLUDED, S.LATER_EVENT, S.USED),
-    "measurements": (*LINE_STATES, S.MISSING_REQUIRED, *DATE_STATES, S.UNPARSEABLE_VALUE, S.UNKNOWN_VARIABLE,
-                     S.UNKNOWN_PATIENT, S.EXACT_DUPLICATE, S.PATIENT_EXCLUDED, S.UNKNOWN_UNIT,
-                     S.IMPLAUSIBLE_VALUE, S.BEFORE_LOOKBACK, S.AFTER_FOLLOW_UP, S.SAME_DAY_MERGED, S.USED),
+    "patients": (
+        *LINE_STATES,
+        S.MISSING_REQUIRED,
+        *DATE_STATES,
+        S.EXACT_DUPLICATE,
+        *STATIC_STATES,
+        S.OUTCOME_BEFORE_ENTRY,
+        S.NO_FOLLOW_UP,
+        S.USED,
+    ),
+    "outcomes": (
+        *LINE_STATES,
+        S.MISSING_REQUIRED,
+        *DATE_STATES,
+        S.UNKNOWN_KIND,
+        S.UNKNOWN_PATIENT,
+        S.EXACT_DUPLICATE,
+        S.PATIENT_EXCLUDED,
+        S.LATER_EVENT,
+        S.USED,
+    ),
+    "measurements": (
+        *LINE_STATES,
+        S.MISSING_REQUIRED,
+        *DATE_STATES,
+        S.UNPARSEABLE_VALUE,
+        S.UNKNOWN_VARIABLE,
+        S.UNKNOWN_PATIENT,
+        S.EXACT_DUPLICATE,
+        S.PATIENT_EXCLUDED,
+        S.UNKNOWN_UNIT,
+        S.IMPLAUSIBLE_VALUE,
+        S.BEFORE_LOOKBACK,
+        S.AFTER_FOLLOW_UP,
+        S.SAME_DAY_MERGED,
+        S.USED,
+    ),
 }
 #: Dates before this are implausible (a typo such as 0954 for 1954).
 EARLIEST_DATE = "1900-01-01"
@@ -60,8 +90,15 @@ ERROR_ROWS_SHOWN = 10
 _GROUP_HASH = "hash(k.kidx, c.vidx, m.ts)"
 
 
-def date_checks(loaded: LoadedTable, column: str, run_day: date, alias: str | None = None, *,
-                trimmed: str | None = None, ts: str | None = None) -> dict[S, str]:
+def date_checks(
+    loaded: LoadedTable,
+    column: str,
+    run_day: date,
+    alias: str | None = None,
+    *,
+    trimmed: str | None = None,
+    ts: str | None = None,
+) -> dict[S, str]:
     """SQL conditions, one per state of :data:`DATE_STATES`, for a date column that is not blank.
 
     A time-zone suffix is refused (the offset is neither applied nor cut off); a date that does not parse, a
@@ -73,15 +110,23 @@ def date_checks(loaded: LoadedTable, column: str, run_day: date, alias: str | No
     if "WITH TIME ZONE" in kind or kind.startswith("TIMESTAMPTZ"):
         raise CohortInputError(
             f"{loaded.label}: column {column!r} holds time-zone-aware timestamps; riskbench needs local dates "
-            "(convert them to the local date of the clinic, or to text without a zone)")
+            "(convert them to the local date of the clinic, or to text without a zone)"
+        )
     ts = ts or timestamp_expr(loaded, column, alias, trimmed=trimmed)
     col = f"{alias}.{quote(column)}" if alias else quote(column)
     text = trimmed or f"trim(CAST({col} AS VARCHAR))"
-    zone = (f"(length({text}) > 10 AND regexp_matches({text}, {sql_text(TIME_ZONE_PATTERN)}))"
-            if kind.startswith("VARCHAR") else "FALSE")
+    zone = (
+        f"(length({text}) > 10 AND regexp_matches({text}, {sql_text(TIME_ZONE_PATTERN)}))"
+        if kind.startswith("VARCHAR")
+        else "FALSE"
+    )
     next_day = (run_day + timedelta(days=1)).isoformat()
-    return {S.DATE_WITH_TIME_ZONE: zone, S.UNPARSEABLE_DATE: f"{ts} IS NULL",
-            S.IMPLAUSIBLE_DATE: f"{ts} < TIMESTAMP '{EARLIEST_DATE}'", S.FUTURE_DATE: f"{ts} >= TIMESTAMP '{next_day}'"}
+    return {
+        S.DATE_WITH_TIME_ZONE: zone,
+        S.UNPARSEABLE_DATE: f"{ts} IS NULL",
+        S.IMPLAUSIBLE_DATE: f"{ts} < TIMESTAMP '{EARLIEST_DATE}'",
+        S.FUTURE_DATE: f"{ts} >= TIMESTAMP '{next_day}'",
+    }
 
 
 def _date_cases(*columns: dict[S, str]) -> str:
@@ -115,8 +160,8 @@ def check_patients(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Co
         checks.append({st: f"{given} AND {c}" for st, c in date_checks(loaded, "birth_date", run_day).items()})
     con.execute(f"""
         CREATE TEMP TABLE p1 AS SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
-            {timestamp_expr(loaded, 'entry_date')} AS entry_ts, {birth} AS birth_ts, * EXCLUDE (row_number, patient_id),
-            CASE WHEN {_first_blank(loaded, ('patient_id', 'entry_date'))} THEN '{S.MISSING_REQUIRED}'
+            {timestamp_expr(loaded, "entry_date")} AS entry_ts, {birth} AS birth_ts, * EXCLUDE (row_number, patient_id),
+            CASE WHEN {_first_blank(loaded, ("patient_id", "entry_date"))} THEN '{S.MISSING_REQUIRED}'
                  {_date_cases(*checks)}
             END AS state
         FROM raw_patients""")
@@ -130,7 +175,8 @@ def check_patients(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Co
         raise CohortInputError(
             f"{loaded.label}: {dups[0][1]} patient id(s) appear on more than one {word} with different contents "
             f"({shown}). Each patient must have exactly one {word} in the patients table; remove or correct "
-            "the extra ones.")
+            "the extra ones."
+        )
     static_table(con, loaded, spec)
 
 
@@ -143,8 +189,8 @@ def check_outcomes(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Co
         CREATE TEMP TABLE o1 AS SELECT row_number, trim(CAST(patient_id AS VARCHAR)) AS patient_id,
             {ts} AS ts, CASE trim(CAST(kind AS VARCHAR)) {kind_case} END AS kind_std,
             * EXCLUDE (row_number, patient_id),
-            CASE WHEN {_first_blank(loaded, ('patient_id', 'date', 'kind'))} THEN '{S.MISSING_REQUIRED}'
-                 {_date_cases(date_checks(loaded, 'date', run_day))}
+            CASE WHEN {_first_blank(loaded, ("patient_id", "date", "kind"))} THEN '{S.MISSING_REQUIRED}'
+                 {_date_cases(date_checks(loaded, "date", run_day))}
                  WHEN (CASE trim(CAST(kind AS VARCHAR)) {kind_case} END) IS NULL THEN '{S.UNKNOWN_KIND}'
                  WHEN trim(CAST(patient_id AS VARCHAR)) NOT IN (SELECT patient_id FROM p1
                       WHERE patient_id IS NOT NULL) THEN '{S.UNKNOWN_PATIENT}'
@@ -155,7 +201,7 @@ def check_outcomes(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Co
     rank_case = " ".join(f"WHEN '{k}' THEN {v}" for k, v in KIND_RANK.items())
     con.execute(f"""
         CREATE TEMP TABLE first_event AS SELECT * FROM (
-            SELECT o.row_number, o.patient_id, {days_between('o.ts', 'p.entry_ts')} AS end_days,
+            SELECT o.row_number, o.patient_id, {days_between("o.ts", "p.entry_ts")} AS end_days,
                 CASE o.kind_std {status_case} END AS end_status,
                 row_number() OVER (PARTITION BY o.patient_id
                     ORDER BY o.ts, CASE o.kind_std {rank_case} END, o.row_number) AS k
@@ -188,8 +234,7 @@ def build_patient_table(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> Non
         WHERE p.state = '{S.USED}'""")
 
 
-def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec,
-                       run_day: date) -> None:
+def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: CohortSpec, run_day: date) -> None:
     """Measurement rows: parse, convert units, check ranges and windows, merge same-time values.
 
     The row checks run in one pass; exact duplicates and same-time merges are then settled inside the few
@@ -204,10 +249,14 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
             units.append(f"({i}::SMALLINT, {sql_text(unit)}, {factor!r}, {lo}::DOUBLE, {hi}::DOUBLE)")
     if not units:
         raise CohortInputError("the cohort spec has no variables; add at least one under [cohort.variables]")
-    con.execute(f"CREATE TEMP TABLE var_canon(variable VARCHAR, vidx SMALLINT, unit VARCHAR, is_log BOOLEAN); "
-                f"INSERT INTO var_canon VALUES {', '.join(canon)}")
-    con.execute(f"CREATE TEMP TABLE units(vidx SMALLINT, unit VARCHAR, factor DOUBLE, lo DOUBLE, hi DOUBLE); "
-                f"INSERT INTO units VALUES {', '.join(units)}")
+    con.execute(
+        f"CREATE TEMP TABLE var_canon(variable VARCHAR, vidx SMALLINT, unit VARCHAR, is_log BOOLEAN); "
+        f"INSERT INTO var_canon VALUES {', '.join(canon)}"
+    )
+    con.execute(
+        f"CREATE TEMP TABLE units(vidx SMALLINT, unit VARCHAR, factor DOUBLE, lo DOUBLE, hi DOUBLE); "
+        f"INSERT INTO units VALUES {', '.join(units)}"
+    )
     # One join on the text id gives both "known id" and the included patient's key and window.
     con.execute("""CREATE TEMP TABLE id_lookup AS SELECT k.patient_id, k.kidx, p.pidx, p.entry_ts, p.end_days
                    FROM (SELECT patient_id, CAST(row_number() OVER () AS INTEGER) AS kidx
@@ -225,7 +274,7 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
         CREATE TEMP TABLE m2 AS SELECT m.row_number, CASE WHEN k.kidx IS NULL THEN m.patient_id END AS other_id,
             k.pidx, k.kidx, c.vidx, {_GROUP_HASH} AS h, {day} AS day, {value} AS value, c.is_log,
             CASE WHEN m.is_blank THEN '{S.MISSING_REQUIRED}'
-                 {_date_cases(date_checks(loaded, 'date', run_day, trimmed='m.t_date', ts='m.ts'))}
+                 {_date_cases(date_checks(loaded, "date", run_day, trimmed="m.t_date", ts="m.ts"))}
                  WHEN m.raw_value IS NULL THEN '{S.UNPARSEABLE_VALUE}'
                  WHEN c.vidx IS NULL THEN '{S.UNKNOWN_VARIABLE}'
                  WHEN k.patient_id IS NULL THEN '{S.UNKNOWN_PATIENT}'
@@ -238,8 +287,8 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
             END AS state
         FROM (SELECT row_number, t_date, CAST(t_patient_id AS VARCHAR) AS patient_id,
                      CAST(t_variable AS VARCHAR) AS var,
-                     {unit_raw} AS unit_given, {timestamp_expr(loaded, 'date', trimmed='t_date')} AS ts,
-                     {number_expr(loaded, 'value', trimmed='t_value')} AS raw_value,
+                     {unit_raw} AS unit_given, {timestamp_expr(loaded, "date", trimmed="t_date")} AS ts,
+                     {number_expr(loaded, "value", trimmed="t_value")} AS raw_value,
                      {" OR ".join(blank(c, None, loaded.types[c], trimmed=f"t_{c}") for c in required)} AS is_blank
               FROM (SELECT row_number, {trimmed} FROM raw_measurements m)) m
         LEFT JOIN var_canon c ON m.var = c.variable
@@ -249,8 +298,9 @@ def check_measurements(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec
     # groups can be duplicates or need merging: one grouping on integer keys finds them, and the exact
     # comparison of every column runs on those few rows only. The checks before the duplicate check depend
     # only on a row's content, so identical rows that failed them already share that state.
-    early = ", ".join(f"'{st}'" for st in CHECK_ORDER["measurements"][:CHECK_ORDER["measurements"].index(
-        S.EXACT_DUPLICATE)])
+    early = ", ".join(
+        f"'{st}'" for st in CHECK_ORDER["measurements"][: CHECK_ORDER["measurements"].index(S.EXACT_DUPLICATE)]
+    )
     _find_crowded(con, f"state IS NULL OR state NOT IN ({early})")
     same = ", ".join(quote(c) for c in loaded.columns)
     con.execute(f"""
@@ -299,7 +349,8 @@ def _merge_same_time(con: duckdb.DuckDBPyConnection, spec: CohortSpec, loaded: L
             raise CohortInputError(
                 f"{loaded.label}: {clash[0][2]} group(s) of {word}s give one patient different values of one "
                 f"variable at the same time ({shown}). The cohort spec says same_day_rule = 'error'; correct "
-                "those rows or choose 'mean' or 'last'.")
+                "those rows or choose 'mean' or 'last'."
+            )
     keep = "k_first = n" if rule == "last" else "k_first = 1"
     merged = "avg(value) OVER g" if rule == "mean" else "value"
     # Only the few crowded (patient, variable, time) groups need a window; every other row is used as it is.

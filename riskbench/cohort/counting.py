@@ -54,7 +54,8 @@ def _slope_rows(spec: CohortSpec) -> str:
         w = spec.variables[i].slope_window_days
         parts.append(
             f"SELECT pidx, day, vidx, x, regr_slope(x, day) OVER (PARTITION BY pidx ORDER BY day "
-            f"RANGE BETWEEN {w!r} PRECEDING AND CURRENT ROW) * {DAYS_PER_YEAR} AS slope FROM meas WHERE vidx = {i}")
+            f"RANGE BETWEEN {w!r} PRECEDING AND CURRENT ROW) * {DAYS_PER_YEAR} AS slope FROM meas WHERE vidx = {i}"
+        )
     others = f"WHERE vidx NOT IN ({', '.join(map(str, slope_ids))})" if slope_ids else ""
     parts.append(f"SELECT pidx, day, vidx, x, NULL::DOUBLE AS slope FROM meas {others}")
     return " UNION ALL ".join(parts)
@@ -66,8 +67,12 @@ def table_schema(spec: CohortSpec) -> pa.Schema:
     ``patient_id`` is dictionary-encoded while written (each block's rows point into its patients' ids);
     the file does not keep the Arrow schema, so readers see plain text.
     """
-    fields = [pa.field("patient_id", PATIENT_ID_TYPE), pa.field("start", pa.float64()),
-              pa.field("stop", pa.float64()), pa.field("status", pa.int8())]
+    fields = [
+        pa.field("patient_id", PATIENT_ID_TYPE),
+        pa.field("start", pa.float64()),
+        pa.field("stop", pa.float64()),
+        pa.field("status", pa.int8()),
+    ]
     fields += [pa.field(c, pa.int32() if c == "n_exams" else pa.float64()) for c in spec.covariate_columns]
     return pa.schema(fields)
 
@@ -85,32 +90,47 @@ class _Patients:
 
 def _read_patients(con: duckdb.DuckDBPyConnection, spec: CohortSpec) -> _Patients:
     static_sql = "".join(f", {quote(c)}" for c in spec.static_columns)
-    table = con.sql(f"SELECT patient_id, end_days, end_status, entry_age_years{static_sql} FROM pat "
-                    "ORDER BY pidx").to_arrow_table()
+    table = con.sql(
+        f"SELECT patient_id, end_days, end_status, entry_age_years{static_sql} FROM pat ORDER BY pidx"
+    ).to_arrow_table()
     col = lambda name: table.column(name).to_numpy()  # noqa: E731
-    return _Patients(ids=table.column("patient_id").combine_chunks(), end_days=col("end_days"),
-                     end_status=col("end_status"), entry_age=col("entry_age_years").astype(float),
-                     statics={c: col(c).astype(float) for c in spec.static_columns})
+    return _Patients(
+        ids=table.column("patient_id").combine_chunks(),
+        end_days=col("end_days"),
+        end_status=col("end_status"),
+        entry_age=col("entry_age_years").astype(float),
+        statics={c: col(c).astype(float) for c in spec.static_columns},
+    )
 
 
-def _assemble_block(values: pa.Table, first: int, last: int, patients: _Patients, spec: CohortSpec,
-                    exam_ids: list[int]) -> pa.Table:
+def _assemble_block(
+    values: pa.Table, first: int, last: int, patients: _Patients, spec: CohortSpec, exam_ids: list[int]
+) -> pa.Table:
     """Counting-process rows of patients ``first..last`` (pidx) as an Arrow table."""
     pidx, day, var, x, slope = (values.column(c).to_numpy() for c in ("pidx", "day", "vidx", "x", "slope"))
-    end_days = patients.end_days[first - 1:last]
+    end_days = patients.end_days[first - 1 : last]
     patient = pidx - first
     before_end = day < end_days[patient]  # a value dated at the end never enters a row
     patient, day, var = patient[before_end], day[before_end], var[before_end]
-    block = ValueBlock(patient=patient, day=day, var=var, x=x[before_end], slope=slope[before_end],
-                       exam_day=exam_dates(patient, day, var, exam_ids))
+    block = ValueBlock(
+        patient=patient,
+        day=day,
+        var=var,
+        x=x[before_end],
+        slope=slope[before_end],
+        exam_day=exam_dates(patient, day, var, exam_ids),
+    )
     rows = assemble_rows(block, end_days, spec)
-    statics = {c: a[first - 1:last] for c, a in patients.statics.items()}
-    covariates = covariate_columns(rows, spec, patients.entry_age[first - 1:last], statics)
-    status = np.where(rows["last_row"], patients.end_status[first - 1:last][rows["patient"]], 0).astype(np.int8)
-    ids = pa.DictionaryArray.from_arrays(pa.array(rows["patient"].astype(np.int32)),
-                                         patients.ids.slice(first - 1, last - first + 1))
-    return pa.table({"patient_id": ids, "start": rows["start"], "stop": rows["stop"],
-                     "status": status, **covariates}, schema=table_schema(spec))
+    statics = {c: a[first - 1 : last] for c, a in patients.statics.items()}
+    covariates = covariate_columns(rows, spec, patients.entry_age[first - 1 : last], statics)
+    status = np.where(rows["last_row"], patients.end_status[first - 1 : last][rows["patient"]], 0).astype(np.int8)
+    ids = pa.DictionaryArray.from_arrays(
+        pa.array(rows["patient"].astype(np.int32)), patients.ids.slice(first - 1, last - first + 1)
+    )
+    return pa.table(
+        {"patient_id": ids, "start": rows["start"], "stop": rows["stop"], "status": status, **covariates},
+        schema=table_schema(spec),
+    )
 
 
 def _write_when_assembled(writer: pq.ParquetWriter, block: Future) -> None:
@@ -118,8 +138,9 @@ def _write_when_assembled(writer: pq.ParquetWriter, block: Future) -> None:
     writer.write_table(block.result())
 
 
-def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec, target: Path,
-                           block_patients: int | None = None) -> None:
+def build_counting_process(
+    con: duckdb.DuckDBPyConnection, spec: CohortSpec, target: Path, block_patients: int | None = None
+) -> None:
     """Write the counting-process table of ``pat`` and ``meas`` to the Parquet file ``target``; create the
     DuckDB view ``cp`` over it. ``block_patients`` defaults to :data:`BLOCK_PATIENTS`, or for a small cohort
     to a share that still gives :data:`MIN_BLOCKS` blocks (so assembling one overlaps writing the last)."""
@@ -134,14 +155,19 @@ def build_counting_process(con: duckdb.DuckDBPyConnection, spec: CohortSpec, tar
     schema = table_schema(spec)
     # Plain (not dictionary-encoded) floats: the values rarely repeat, and trying costs time.
     options = {"compression": "snappy", "use_dictionary": ["patient_id"], "store_schema": False}
-    with pq.ParquetWriter(target, schema, **options) as writer, \
-            ThreadPoolExecutor(1, thread_name_prefix="cp_assemble") as assembler, \
-            ThreadPoolExecutor(1, thread_name_prefix="cp_write") as write_pool:
+    with (
+        pq.ParquetWriter(target, schema, **options) as writer,
+        ThreadPoolExecutor(1, thread_name_prefix="cp_assemble") as assembler,
+        ThreadPoolExecutor(1, thread_name_prefix="cp_write") as write_pool,
+    ):
         in_flight: deque[Future] = deque()
         for first in range(1, n_patients + 1, block_patients):
             last = min(first + block_patients - 1, n_patients)
-            values = con.sql("SELECT pidx, day, vidx, x, slope FROM used_values WHERE pidx BETWEEN $1 AND $2 "
-                             "ORDER BY pidx, day, vidx", params=[first, last]).to_arrow_table()
+            values = con.sql(
+                "SELECT pidx, day, vidx, x, slope FROM used_values WHERE pidx BETWEEN $1 AND $2 "
+                "ORDER BY pidx, day, vidx",
+                params=[first, last],
+            ).to_arrow_table()
             table = assembler.submit(_assemble_block, values, first, last, patients, spec, exam_ids)
             in_flight.append(write_pool.submit(_write_when_assembled, writer, table))
             while len(in_flight) > BLOCKS_IN_FLIGHT:

@@ -66,8 +66,9 @@ def check_encoding(encoding: str, where: str) -> str:
         return codecs.lookup(encoding).name
     except LookupError:
         raise CohortInputError(
-            f"{where}: encoding = {encoding!r} is not a text encoding Python knows; use e.g. \"utf-8\", "
-            "\"latin-1\", \"cp1252\" or \"utf-16\"") from None
+            f'{where}: encoding = {encoding!r} is not a text encoding Python knows; use e.g. "utf-8", '
+            '"latin-1", "cp1252" or "utf-16"'
+        ) from None
 
 
 def read_csv_lines(path: Path, table: str, encoding: str = "utf-8", max_lines: int | None = None) -> CsvLines:
@@ -97,16 +98,20 @@ def _decode(path: Path, table: str, encoding: str, codec: str, max_lines: int | 
     """The file's text and its UTF-8 bytes (without a byte-order mark); its first ``1 + max_lines`` lines
     when ``max_lines`` is given."""
     try:
-        raw = _head(path, max_lines) if max_lines is not None and codec.replace("-", "_") not in _WIDE_ENCODINGS \
+        raw = (
+            _head(path, max_lines)
+            if max_lines is not None and codec.replace("-", "_") not in _WIDE_ENCODINGS
             else path.read_bytes()
+        )
     except OSError as exc:
         raise CohortInputError(f"{path}: cannot be read ({exc.strerror or exc})") from None
     if path.suffix.lower() == ".gz":
         try:
             raw = gzip.decompress(raw)
         except (OSError, EOFError):
-            raise CohortInputError(f"{path}: the name ends in .gz but the file is not gzip-compressed; "
-                                   "rename it or compress it with gzip") from None
+            raise CohortInputError(
+                f"{path}: the name ends in .gz but the file is not gzip-compressed; rename it or compress it with gzip"
+            ) from None
         if max_lines is not None and codec.replace("-", "_") not in _WIDE_ENCODINGS:
             raw = _first_lines(raw, max_lines)
     if not raw.strip():
@@ -115,23 +120,31 @@ def _decode(path: Path, table: str, encoding: str, codec: str, max_lines: int | 
         raise CohortInputError(f"{path}: this is a Parquet file, not CSV; give it a .parquet name")
     wide = codec.replace("-", "_") in _WIDE_ENCODINGS
     if not wide and _looks_binary(raw[:_SNIFF_BYTES]):
-        raise CohortInputError(f"{path}: this is not a text (CSV) file; the {table} source must be a CSV file "
-                               "with a header line, or a Parquet file named .parquet")
+        raise CohortInputError(
+            f"{path}: this is not a text (CSV) file; the {table} source must be a CSV file "
+            "with a header line, or a Parquet file named .parquet"
+        )
     key = f"[sources.{table}] encoding"
     try:
         text = raw.decode(codec)
     except UnicodeDecodeError as exc:
         line = raw.count(b"\n", 0, exc.start) + 1
-        hint = ("set encoding = \"latin-1\" (or \"cp1252\", \"utf-16\") under [sources." + table + "]"
-                if codec == "utf-8" else f"check {key} = {encoding!r}")
+        hint = (
+            'set encoding = "latin-1" (or "cp1252", "utf-16") under [sources.' + table + "]"
+            if codec == "utf-8"
+            else f"check {key} = {encoding!r}"
+        )
         raise CohortInputError(
             f"{path}: line {line} is not valid {encoding} text (first bad byte at offset {exc.start}); the file "
-            f"was saved in another encoding: {hint}") from None
+            f"was saved in another encoding: {hint}"
+        ) from None
     if text.startswith("\ufeff"):
         text = text[1:]
     if "\x00" in text:
-        raise CohortInputError(f"{path}: the text holds NUL characters, so this is not a CSV file (or "
-                               f"{key} = {encoding!r} is wrong for it)")
+        raise CohortInputError(
+            f"{path}: the text holds NUL characters, so this is not a CSV file (or "
+            f"{key} = {encoding!r} is wrong for it)"
+        )
     data = raw[3:] if codec == "utf-8" and raw.startswith(codecs.BOM_UTF8) else raw
     if codec != "utf-8":
         data = text.encode("utf-8")
@@ -161,7 +174,7 @@ def _first_lines(data: bytes, max_lines: int) -> bytes:
         cut = data.find(b"\n", cut + 1)
         if cut < 0:
             return data
-    return data[:cut + 1]
+    return data[: cut + 1]
 
 
 def _looks_binary(head: bytes) -> bool:
@@ -176,25 +189,32 @@ def _header(text: str, path: Path) -> tuple[str, ...]:
     """The column names on line 1 (checked)."""
     first = text.splitlines()[0] if text else ""
     if not first.strip():
-        raise CohortInputError(f"{path}: line 1 is blank; line 1 must be the header with the column names "
-                               "(remove the blank lines above it)")
+        raise CohortInputError(
+            f"{path}: line 1 is blank; line 1 must be the header with the column names "
+            "(remove the blank lines above it)"
+        )
     if first.lstrip().startswith("#"):
         raise CohortInputError(
             f"{path}: line 1 starts with '#', but line 1 must be the header with the column names: riskbench "
-            "reads no remark lines (a '#' at the start of a later line is data). Move the remark out of the file")
+            "reads no remark lines (a '#' at the start of a later line is data). Move the remark out of the file"
+        )
     if first.count('"') % 2:
-        raise CohortInputError(f"{path}: the header (line 1) has a quote that does not close; "
-                               "line 1 must hold the column names on one line")
+        raise CohortInputError(
+            f"{path}: the header (line 1) has a quote that does not close; "
+            "line 1 must hold the column names on one line"
+        )
     names = tuple(next(csv.reader([first])))
     blank = [i + 1 for i, n in enumerate(names) if not n.strip()]
     if blank:
-        raise CohortInputError(f"{path}: field {blank[0]} of the header (line 1) has no column name; "
-                               f"the header reads {list(names)}")
+        raise CohortInputError(
+            f"{path}: field {blank[0]} of the header (line 1) has no column name; the header reads {list(names)}"
+        )
     seen: set[str] = set()
     repeated = sorted({n for n in names if n in seen or seen.add(n)})  # type: ignore[func-returns-value]
     if repeated:
-        raise CohortInputError(f"{path}: the header (line 1) names column(s) {repeated} more than once; "
-                               "each column needs its own name")
+        raise CohortInputError(
+            f"{path}: the header (line 1) names column(s) {repeated} more than once; each column needs its own name"
+        )
     return names
 
 
@@ -220,10 +240,15 @@ def _read_fast(data: bytes, header: tuple[str, ...]) -> pa.Table | None:
         table = pacsv.read_csv(
             pa.BufferReader(data),
             read_options=pacsv.ReadOptions(column_names=list(header), skip_rows=1),
-            parse_options=pacsv.ParseOptions(newlines_in_values=True, ignore_empty_lines=True,
-                                             invalid_row_handler=invalid),
-            convert_options=pacsv.ConvertOptions(column_types={n: pa.string() for n in header},
-                                                 strings_can_be_null=False, quoted_strings_can_be_null=False))
+            parse_options=pacsv.ParseOptions(
+                newlines_in_values=True, ignore_empty_lines=True, invalid_row_handler=invalid
+            ),
+            convert_options=pacsv.ConvertOptions(
+                column_types={n: pa.string() for n in header},
+                strings_can_be_null=False,
+                quoted_strings_can_be_null=False,
+            ),
+        )
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
         return None
     if bad or table.num_rows != lines - 1:
@@ -260,9 +285,13 @@ def _read_exact(text: str, header: tuple[str, ...], path: Path) -> CsvLines:
     except csv.Error as exc:
         raise CohortInputError(
             f"{path}: line {last + 1}: the quoting cannot be read ({exc}); a field that holds a comma, a quote "
-            "or a line break must be enclosed in double quotes, with a quote inside written twice") from None
-    rows = pa.table({"row_number": pa.array(numbers, pa.int64()),
-                     **{name: pa.array(col, pa.string()) for name, col in zip(header, columns)}})
-    other = pa.table({"row_number": pa.array(other_numbers, pa.int64()),
-                      "state": pa.array(other_states, pa.string())})
+            "or a line break must be enclosed in double quotes, with a quote inside written twice"
+        ) from None
+    rows = pa.table(
+        {
+            "row_number": pa.array(numbers, pa.int64()),
+            **{name: pa.array(col, pa.string()) for name, col in zip(header, columns)},
+        }
+    )
+    other = pa.table({"row_number": pa.array(other_numbers, pa.int64()), "state": pa.array(other_states, pa.string())})
     return CsvLines(header, rows, other)

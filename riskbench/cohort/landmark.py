@@ -54,7 +54,7 @@ def landmark_sql(spec: CohortSpec, landmarks_days: Sequence[float], horizon_days
         SELECT cp.patient_id, cp.landmark,
             least(p.end_days, cp.landmark + {w!r}) - cp.landmark AS time,
             CAST(CASE WHEN p.end_days <= cp.landmark + {w!r} THEN p.end_status ELSE 0 END AS TINYINT) AS status,
-            {', '.join(covs)}
+            {", ".join(covs)}
         FROM (SELECT m.landmark, cp.* FROM cp JOIN (VALUES {marks_sql}) m(landmark)
               ON cp.start <= m.landmark AND cp.stop > m.landmark) cp
         JOIN pat p ON p.patient_id = cp.patient_id

@@ -85,8 +85,9 @@ def days_between(ts: str, origin: str) -> str:
     return f"((epoch({ts}) - epoch({origin})) / 86400.0)"
 
 
-def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec: CohortSpec,
-               extra: tuple[str, ...] = ()) -> LoadedTable:
+def load_table(
+    con: duckdb.DuckDBPyConnection, table: str, source: Source, spec: CohortSpec, extra: tuple[str, ...] = ()
+) -> LoadedTable:
     """Load one source table into ``raw_<table>`` and ``lines_<table>``; check its required columns.
 
     Parameters
@@ -144,7 +145,8 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
             what = "required column" if ours in required else "column (read by a static covariate)"
             raise CohortInputError(
                 f"{label}: {what} {ours!r}{mapped} is missing; {describe_columns(present)}. Rename the "
-                f"column or map it in [sources.{table}] columns = {{ {ours} = \"<source column>\" }}.")
+                f'column or map it in [sources.{table}] columns = {{ {ours} = "<source column>" }}.'
+            )
     optional = [c for c in OPTIONAL[table] if c not in extra]
     wanted = list(dict.fromkeys(list(required) + list(extra) + [c for c in optional if columns.get(c, c) in present]))
     selects = [f"{numbered} AS row_number"] + [f"{quote(columns.get(c, c))} AS {quote(c)}" for c in wanted]
@@ -154,18 +156,20 @@ def load_table(con: duckdb.DuckDBPyConnection, table: str, source: Source, spec:
         if not variables:
             raise CohortInputError(
                 f"{label}: wide measurement table has none of the variable columns "
-                f"{[v.name for v in spec.variables]}; {describe_columns(present)}")
+                f"{[v.name for v in spec.variables]}; {describe_columns(present)}"
+            )
         # A blank cell of a wide table is no measurement (UNPIVOT leaves out NULLs).
-        selects += [f"nullif(trim(CAST({quote(columns.get(v, v))} AS VARCHAR)), '') AS {quote(v)}"
-                    for v in variables]
+        selects += [f"nullif(trim(CAST({quote(columns.get(v, v))} AS VARCHAR)), '') AS {quote(v)}" for v in variables]
         con.execute(f"CREATE TEMP VIEW wide_numbered AS SELECT {', '.join(selects)} FROM {relation}")
         con.execute(
             "CREATE TEMP TABLE raw_measurements AS SELECT * FROM (UNPIVOT wide_numbered ON "
             f"{', '.join(quote(v) for v in variables)} INTO NAME variable VALUE value) "
-            "ORDER BY row_number, variable")
+            "ORDER BY row_number, variable"
+        )
         types.update(variable="VARCHAR", value="VARCHAR")
-        return LoadedTable(table, label, tuple(wanted) + ("variable", "value"), types, date_format,
-                           file_columns, row_word)
+        return LoadedTable(
+            table, label, tuple(wanted) + ("variable", "value"), types, date_format, file_columns, row_word
+        )
     # Read in place: the relation carries each row's number.
     con.execute(f"CREATE TEMP VIEW raw_{table} AS SELECT {', '.join(selects)} FROM {relation}")
     return LoadedTable(table, label, tuple(wanted), types, date_format, file_columns, row_word)
@@ -179,8 +183,9 @@ def describe_columns(present: Iterable[str]) -> str:
     hidden = len(names) - len(shown)
     text = f"the file's columns are {shown}"
     if hidden:
-        text += (f" and {hidden} name(s) that look like data, not shown (is line 1 a data row? line 1 must "
-                 "name the columns)")
+        text += (
+            f" and {hidden} name(s) that look like data, not shown (is line 1 a data row? line 1 must name the columns)"
+        )
     return text
 
 

@@ -42,8 +42,7 @@ def exam_dates(patient: np.ndarray, day: np.ndarray, var: np.ndarray, exam_ids: 
     return out
 
 
-def _last_index(mask: np.ndarray, positions: np.ndarray, start_of_patient: np.ndarray
-                ) -> tuple[np.ndarray, np.ndarray]:
+def _last_index(mask: np.ndarray, positions: np.ndarray, start_of_patient: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """For each row, the index of the last row at or before it (same patient) where ``mask``; and validity.
 
     ``positions`` is ``arange(n)`` in a small integer type (half the memory traffic of 64-bit indices).
@@ -55,8 +54,14 @@ def _last_index(mask: np.ndarray, positions: np.ndarray, start_of_patient: np.nd
     return idx, valid
 
 
-def _previous_value(mask: np.ndarray, positions: np.ndarray, start_of_patient: np.ndarray, x: np.ndarray,
-                    idx: np.ndarray, valid: np.ndarray) -> np.ndarray:
+def _previous_value(
+    mask: np.ndarray,
+    positions: np.ndarray,
+    start_of_patient: np.ndarray,
+    x: np.ndarray,
+    idx: np.ndarray,
+    valid: np.ndarray,
+) -> np.ndarray:
     """For rows whose last ``mask`` row is ``idx`` (where ``valid``), the value of the ``mask`` row before it
     (same patient); NaN when there is none. Sorted rows hold one value per variable and time."""
     before = np.where(mask, positions, -1)
@@ -153,8 +158,9 @@ def _cut_at_expiry(rows: Mapping[str, np.ndarray], carry: float, n_var: int) -> 
     return out
 
 
-def covariate_columns(rows: Mapping[str, np.ndarray], spec: CohortSpec, entry_age: np.ndarray,
-                      statics: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+def covariate_columns(
+    rows: Mapping[str, np.ndarray], spec: CohortSpec, entry_age: np.ndarray, statics: Mapping[str, np.ndarray]
+) -> dict[str, np.ndarray]:
     """The covariate columns (``spec.covariate_columns`` order) of assembled rows, carry rule applied."""
     start, patient = rows["start"], rows["patient"]
     carry = np.inf if spec.max_carry_days is None else spec.max_carry_days

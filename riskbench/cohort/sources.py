@@ -58,8 +58,10 @@ class TableSource:
         try:
             codecs.lookup(self.encoding)
         except LookupError:
-            raise SpecError(f"{self.path}: encoding = {self.encoding!r} is not a text encoding Python knows; use "
-                            "e.g. \"utf-8\", \"latin-1\", \"cp1252\" or \"utf-16\"") from None
+            raise SpecError(
+                f"{self.path}: encoding = {self.encoding!r} is not a text encoding Python knows; use "
+                'e.g. "utf-8", "latin-1", "cp1252" or "utf-16"'
+            ) from None
 
     @property
     def file_format(self) -> str:

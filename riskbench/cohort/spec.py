@@ -77,7 +77,9 @@ class VariableSpec:
             raise SpecError(f"variable {self.name!r}: transform {self.transform!r} is not one of {TRANSFORMS}")
         for unit, factor in self.conversions.items():
             if not (isinstance(factor, (int, float)) and factor > 0 and math.isfinite(factor)):
-                raise SpecError(f"variable {self.name!r}: conversion factor for unit {unit!r} must be > 0, got {factor!r}")
+                raise SpecError(
+                    f"variable {self.name!r}: conversion factor for unit {unit!r} must be > 0, got {factor!r}"
+                )
         if self.slope_window_days <= 0:
             raise SpecError(f"variable {self.name!r}: slope_window_days must be > 0")
 
@@ -142,37 +144,45 @@ class StaticSpec:
     def __post_init__(self) -> None:
         where = f"static {self.name!r}"
         if not NAME_PATTERN.fullmatch(self.name):
-            raise SpecError(f"{where}: a name must be letters, digits and underscores (a letter first, at most "
-                            "40 characters)")
+            raise SpecError(
+                f"{where}: a name must be letters, digits and underscores (a letter first, at most 40 characters)"
+            )
         if self.kind not in STATIC_KINDS:
             raise SpecError(f"{where}: kind {self.kind!r} is not one of {STATIC_KINDS}")
         for bound in (self.plausible_min, self.plausible_max):
             if bound is not None and not (isinstance(bound, (int, float)) and math.isfinite(bound)):
                 raise SpecError(f"{where}: range bounds must be finite numbers, got {bound!r}")
-        if (self.plausible_min is not None and self.plausible_max is not None
-                and self.plausible_min > self.plausible_max):
-            raise SpecError(f"{where}: range minimum {self.plausible_min!r} is above the maximum "
-                            f"{self.plausible_max!r}")
+        if (
+            self.plausible_min is not None
+            and self.plausible_max is not None
+            and self.plausible_min > self.plausible_max
+        ):
+            raise SpecError(
+                f"{where}: range minimum {self.plausible_min!r} is above the maximum {self.plausible_max!r}"
+            )
         if self.kind != "categorical":
             if self.codes or self.reference is not None:
-                raise SpecError(f"{where}: codes and reference belong to a categorical static; "
-                                "set kind = \"categorical\" or remove them")
+                raise SpecError(
+                    f"{where}: codes and reference belong to a categorical static; "
+                    'set kind = "categorical" or remove them'
+                )
             return
         if self.plausible_min is not None or self.plausible_max is not None:
             raise SpecError(f"{where}: a categorical static has codes, not a range")
         if not self.codes:
-            raise SpecError(f"{where}: a categorical static needs codes = {{ <source code> = \"<level>\", ... }}")
+            raise SpecError(f'{where}: a categorical static needs codes = {{ <source code> = "<level>", ... }}')
         upper: dict[str, str] = {}
         for code, level in self.codes.items():
             if not NAME_PATTERN.fullmatch(str(level)):
-                raise SpecError(f"{where}: level {level!r} must be letters, digits and underscores (it names "
-                                "a column)")
+                raise SpecError(f"{where}: level {level!r} must be letters, digits and underscores (it names a column)")
             key = str(code).strip().upper()
             if not key:
                 raise SpecError(f"{where}: a code may not be blank (a blank cell is a missing value)")
             if upper.setdefault(key, level) != level:
-                raise SpecError(f"{where}: codes {code!r} and another code differing only in case map to "
-                                "different levels; codes are matched without regard to case")
+                raise SpecError(
+                    f"{where}: codes {code!r} and another code differing only in case map to "
+                    "different levels; codes are matched without regard to case"
+                )
         if self.reference not in self.levels:
             raise SpecError(f"{where}: reference {self.reference!r} is not one of its levels {list(self.levels)}")
 
@@ -206,8 +216,9 @@ SEX_CODES: dict[str, str] = {"M": "male", "F": "female", "MALE": "male", "FEMALE
 #: Statics known without a declaration: their defaults (a declaration under [cohort.statics] replaces them).
 BUILTIN_STATICS: dict[str, StaticSpec] = {
     "sex": StaticSpec("sex", kind="categorical", codes=SEX_CODES, reference="female", label="Sex"),
-    "age_at_entry": StaticSpec("age_at_entry", plausible_min=0.0, plausible_max=120.0, label="Age at entry",
-                               unit="years"),
+    "age_at_entry": StaticSpec(
+        "age_at_entry", plausible_min=0.0, plausible_max=120.0, label="Age at entry", unit="years"
+    ),
     "pack_years": StaticSpec("pack_years", plausible_min=0.0, label="Smoking", unit="pack-years"),
 }
 #: ``sex_male`` in the static list means the ``sex`` static (its 0/1 column is ``sex_male``).
@@ -294,16 +305,21 @@ class CohortSpec:
             raise SpecError(f"static lists one covariate twice: {list(self.static)} ('sex_male' is 'sex')")
         unlisted = [n for n in declared if n not in used]
         if unlisted:
-            raise SpecError(f"[cohort.statics.{unlisted[0]}] is declared but static = {list(self.static)} does "
-                            "not list it; add it to static or remove the declaration")
+            raise SpecError(
+                f"[cohort.statics.{unlisted[0]}] is declared but static = {list(self.static)} does "
+                "not list it; add it to static or remove the declaration"
+            )
         if "sex_male" in self.static and "sex_male" not in self.static_spec("sex_male").output_columns:
-            raise SpecError("static lists 'sex_male', but [cohort.statics.sex] creates the columns "
-                            f"{list(self.static_spec('sex').output_columns)}; list 'sex' instead")
+            raise SpecError(
+                "static lists 'sex_male', but [cohort.statics.sex] creates the columns "
+                f"{list(self.static_spec('sex').output_columns)}; list 'sex' instead"
+            )
         columns = self.covariate_columns
         clash = sorted({c for c in columns if columns.count(c) > 1})
         if clash:
-            raise SpecError(f"the cohort would create the covariate column(s) {clash} twice; rename a variable "
-                            "or static")
+            raise SpecError(
+                f"the cohort would create the covariate column(s) {clash} twice; rename a variable or static"
+            )
 
     def static_spec(self, name: str) -> StaticSpec:
         """The rules of static covariate ``name``: its declaration, else the built-in default, else numeric."""
@@ -367,14 +383,20 @@ class CohortSpec:
             unit = "" if v.unit in ("1", "") else v.unit
             scale = f"log {unit}".strip() if v.transform == "log" else unit
             value = words if v.label or v.transform != "log" else f"log {words}"
-            parts = {v.column: (value, scale), f"{v.column}_change": (f"{words}, change from first", scale),
-                     f"{v.column}_slope_per_year": (f"{words}, slope", f"{scale} per year".strip()),
-                     v.previous_column: (f"{words}, previous value", scale),
-                     v.staleness_column: (f"{words}, days since measured", "days")}
+            parts = {
+                v.column: (value, scale),
+                f"{v.column}_change": (f"{words}, change from first", scale),
+                f"{v.column}_slope_per_year": (f"{words}, slope", f"{scale} per year".strip()),
+                v.previous_column: (f"{words}, previous value", scale),
+                v.staleness_column: (f"{words}, days since measured", "days"),
+            }
             if column in parts:
                 return _with_unit(*parts[column])
-        clocks = {"days_since_exam": ("days since last exam", "days"), "n_exams": ("number of exams so far", ""),
-                  "age": ("Age", "years")}
+        clocks = {
+            "days_since_exam": ("days since last exam", "days"),
+            "n_exams": ("number of exams so far", ""),
+            "age": ("Age", "years"),
+        }
         if column in clocks and column in self.covariate_columns:
             return _with_unit(*clocks[column])
         for s in self.static_specs:
@@ -384,8 +406,9 @@ class CohortSpec:
             for level in s.levels:
                 if column == f"{s.name}_{level}" and level != s.reference:
                     return f"{words}: {level.replace('_', ' ')} (vs {str(s.reference).replace('_', ' ')})"
-        raise KeyError(f"{column!r} is not a covariate column of this cohort; its columns are "
-                       f"{list(self.covariate_columns)}")
+        raise KeyError(
+            f"{column!r} is not a covariate column of this cohort; its columns are {list(self.covariate_columns)}"
+        )
 
 
 def _with_unit(text: str, unit: str) -> str:

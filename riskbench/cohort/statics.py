@@ -73,7 +73,8 @@ def static_table(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Coho
             raise CohortInputError(
                 f"{loaded.label}: the age at entry (static 'age_at_entry' or current_age = true) needs a "
                 f"'birth_date' or 'age_at_entry' column; the file's columns are {sorted(loaded.file_columns)}. "
-                "Map one in [sources.patients] columns, or set current_age = false and drop age_at_entry")
+                "Map one in [sources.patients] columns, or set current_age = false and drop age_at_entry"
+            )
         if age_col is None:
             age = f"({days_between('p.entry_ts', 'p.birth_ts')} / {DAYS_PER_YEAR})"
         else:
@@ -87,23 +88,30 @@ def static_table(con: duckdb.DuckDBPyConnection, loaded: LoadedTable, spec: Coho
         col = s.source_column
         is_blank = blank(col, "p", loaded.types[col])
         if s.kind == "categorical":
-            cases = " ".join(f"WHEN {sql_text(str(code).strip().upper())} THEN {sql_text(level)}"
-                             for code, level in s.codes.items())
+            cases = " ".join(
+                f"WHEN {sql_text(str(code).strip().upper())} THEN {sql_text(level)}" for code, level in s.codes.items()
+            )
             level = f"(CASE upper(trim(CAST(p.{quote(col)} AS VARCHAR))) {cases} END)"
             undeclared.append(f"(NOT {is_blank} AND {level} IS NULL)")
-            outputs += [f"CASE WHEN {level} IS NULL THEN NULL WHEN {level} = {sql_text(out[len(s.name) + 1:])} "
-                        f"THEN 1.0 ELSE 0.0 END::DOUBLE AS {quote(out)}" for out in s.output_columns]
+            outputs += [
+                f"CASE WHEN {level} IS NULL THEN NULL WHEN {level} = {sql_text(out[len(s.name) + 1 :])} "
+                f"THEN 1.0 ELSE 0.0 END::DOUBLE AS {quote(out)}"
+                for out in s.output_columns
+            ]
         else:
             value = number_expr(loaded, col, "p")
             unparseable.append(f"(NOT {is_blank} AND {value} IS NULL)")
             implausible.append(f"coalesce({_range_sql(value, s, s.lower_bound)}, FALSE)")
             outputs.append(f"{value} AS {quote(s.name)}")
-    state = " ".join(f"WHEN {' OR '.join(conds)} THEN '{st}'"
-                     for conds, st in zip((unparseable, implausible, undeclared), STATIC_STATES) if conds)
+    state = " ".join(
+        f"WHEN {' OR '.join(conds)} THEN '{st}'"
+        for conds, st in zip((unparseable, implausible, undeclared), STATIC_STATES)
+        if conds
+    )
     state_sql = f"CASE {state} END" if state else "NULL::VARCHAR"
     con.execute(f"""
         CREATE TEMP TABLE p_static AS SELECT p.row_number, {age} AS entry_age_years,
-            {''.join(o + ', ' for o in outputs)}{state_sql} AS static_state
+            {"".join(o + ", " for o in outputs)}{state_sql} AS static_state
         FROM p1 p WHERE p.state IS NULL""")
     con.execute("""UPDATE p1 SET state = s.static_state FROM p_static s
                    WHERE p1.row_number = s.row_number AND s.static_state IS NOT NULL""")

@@ -34,13 +34,30 @@ def demo_cohort_spec() -> CohortSpec:
     """
     return CohortSpec(
         variables=(
-            VariableSpec("nodule_volume", unit="mm3", conversions={"cm3": 1000.0},
-                         plausible_min=DEMO_RANGES["nodule_volume"][0], plausible_max=DEMO_RANGES["nodule_volume"][1],
-                         transform="log", change=True, slope=True, slope_window_days=365.25),
-            VariableSpec("suspicion_score", unit="1", plausible_min=DEMO_RANGES["suspicion_score"][0],
-                         plausible_max=DEMO_RANGES["suspicion_score"][1]),
-            VariableSpec("serum_marker", unit="ng/mL", conversions={"ug/L": 1.0},
-                         plausible_min=DEMO_RANGES["serum_marker"][0], plausible_max=DEMO_RANGES["serum_marker"][1]),
+            VariableSpec(
+                "nodule_volume",
+                unit="mm3",
+                conversions={"cm3": 1000.0},
+                plausible_min=DEMO_RANGES["nodule_volume"][0],
+                plausible_max=DEMO_RANGES["nodule_volume"][1],
+                transform="log",
+                change=True,
+                slope=True,
+                slope_window_days=365.25,
+            ),
+            VariableSpec(
+                "suspicion_score",
+                unit="1",
+                plausible_min=DEMO_RANGES["suspicion_score"][0],
+                plausible_max=DEMO_RANGES["suspicion_score"][1],
+            ),
+            VariableSpec(
+                "serum_marker",
+                unit="ng/mL",
+                conversions={"ug/L": 1.0},
+                plausible_min=DEMO_RANGES["serum_marker"][0],
+                plausible_max=DEMO_RANGES["serum_marker"][1],
+            ),
         ),
         max_carry_days=DEMO_MAX_CARRY_DAYS,
         lookback_days=DEMO_LOOKBACK_DAYS,

@@ -54,20 +54,28 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     sim.add_argument("--variant", choices=VARIANTS, default="clean", help="clean or messy (default clean)")
     sim.add_argument("--out", required=True, help="output folder")
     sim.add_argument(
-        "--risk-paths", type=int, default=DEFAULT_RISK_PATHS,
+        "--risk-paths",
+        type=int,
+        default=DEFAULT_RISK_PATHS,
         help=f"Monte Carlo futures per patient and landmark for the true risk; 0 skips it "
         f"(default {DEFAULT_RISK_PATHS})",
     )
     shift = sim.add_argument_group(
         "population shift", "simulate another site or a later period (defaults: the demo population unchanged)"
     )
-    shift.add_argument("--hazard-multiplier", type=float, default=1.0,
-                       help="factor on the outcome's baseline hazard (default 1)")
+    shift.add_argument(
+        "--hazard-multiplier", type=float, default=1.0, help="factor on the outcome's baseline hazard (default 1)"
+    )
     shift.add_argument("--age-shift", type=float, default=0.0, help="years added to the mean age at entry (default 0)")
-    shift.add_argument("--pack-years-multiplier", type=float, default=1.0,
-                       help="factor on smokers' pack-years (default 1)")
-    shift.add_argument("--volume-shift", type=float, default=0.0,
-                       help="added to the mean ln nodule volume at entry, ln mm3 (default 0)")
+    shift.add_argument(
+        "--pack-years-multiplier", type=float, default=1.0, help="factor on smokers' pack-years (default 1)"
+    )
+    shift.add_argument(
+        "--volume-shift",
+        type=float,
+        default=0.0,
+        help="added to the mean ln nodule volume at entry, ln mm3 (default 0)",
+    )
     sim.set_defaults(handler=_simulate)
 
     summ = subparsers.add_parser(

@@ -100,8 +100,9 @@ def _iso(days: np.ndarray) -> np.ndarray:
 class _Spoiler:
     """Book-keeping: disjoint patient groups, in-place edits, appended rows and the counts."""
 
-    def __init__(self, patients: pd.DataFrame, measurements: pd.DataFrame, outcomes: pd.DataFrame,
-                 rng: np.random.Generator) -> None:
+    def __init__(
+        self, patients: pd.DataFrame, measurements: pd.DataFrame, outcomes: pd.DataFrame, rng: np.random.Generator
+    ) -> None:
         self.rng = rng
         self.n = len(patients)
         ids = pd.Index(patients["patient_id"].to_numpy())
@@ -210,8 +211,9 @@ def spoil(
     old = extra["value"].to_numpy().astype(float)
     is_score = extra["variable"].to_numpy() == "suspicion_score"
     step = np.where(rng.random(rows.size) < 0.5, -1.0, 1.0)
-    score = np.round(np.where(old + 0.02 * step > 1.0, old - 0.02, np.where(old + 0.02 * step < 0, old + 0.02,
-                                                                             old + 0.02 * step)), 3)
+    score = np.round(
+        np.where(old + 0.02 * step > 1.0, old - 0.02, np.where(old + 0.02 * step < 0, old + 0.02, old + 0.02 * step)), 3
+    )
     other = np.round(old * (1 + step * rng_u(0.03, 0.1, rows.size)), 2)
     other = np.where(other == old, old + 0.01, other)
     extra["value"] = np.where(is_score, score, other)

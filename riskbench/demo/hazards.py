@@ -105,9 +105,7 @@ def sample_piecewise_event_days(
     hit = (cum_before < target) & (cum_after >= target)
     event = np.full(n_patients, np.inf)
     h = np.flatnonzero(hit)
-    solved = baseline_cumhaz_inverse(
-        base0[h] + (target[h] - cum_before[h]) / np.exp(linear_predictor[h]), p
-    )
+    solved = baseline_cumhaz_inverse(base0[h] + (target[h] - cum_before[h]) / np.exp(linear_predictor[h]), p)
     # guard against rounding just outside the piece
     event[piece_patient[h]] = np.clip(solved, start[h], stop[h])
     return event

@@ -52,7 +52,11 @@ _PATHS_PER_CHUNK = 100_000
 
 
 def _chunk_risk(
-    sim: SimulatedProcess, patient: np.ndarray, landmark: np.ndarray, horizon: float, n_paths: int,
+    sim: SimulatedProcess,
+    patient: np.ndarray,
+    landmark: np.ndarray,
+    horizon: float,
+    n_paths: int,
     rng: np.random.Generator,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Oracle risk and its Monte Carlo standard error for rows (patient, landmark)."""
@@ -68,10 +72,17 @@ def _chunk_risk(
     last_volume = path.volume[state]
 
     # next exam and lab after s, given that none happened between the last one and s
-    first_exam = next_visit_after(path.last_exam_day[state], *exam_interval_bounds(last_volume, p),
-                                  p.exam_miss_probability, p.min_gap_days, s, rng)
-    first_lab = next_visit_after(path.last_lab_day[state], *lab_interval_bounds(m, p),
-                                 p.lab_miss_probability, p.min_gap_days, s, rng)
+    first_exam = next_visit_after(
+        path.last_exam_day[state],
+        *exam_interval_bounds(last_volume, p),
+        p.exam_miss_probability,
+        p.min_gap_days,
+        s,
+        rng,
+    )
+    first_lab = next_visit_after(
+        path.last_lab_day[state], *lab_interval_bounds(m, p), p.lab_miss_probability, p.min_gap_days, s, rng
+    )
 
     def exam_step(rows: np.ndarray, day: np.ndarray) -> tuple[np.ndarray, ...]:
         volume, suspicion = measure_exam(hidden, g[rows], day, p, rng)
@@ -107,8 +118,9 @@ def _chunk_risk(
     piece_cif = np.empty(start.size)
     at_entry = start == 0  # the Weibull baseline is not smooth at t = 0: more nodes there
     for mask, (nodes, weights) in ((~at_entry, _RULE), (at_entry, _RULE_AT_ENTRY)):
-        piece_cif[mask] = _piece_incidence(lo[mask], hi[mask], ratio[mask], age[mask], death_lo[mask], nodes,
-                                           weights, p)
+        piece_cif[mask] = _piece_incidence(
+            lo[mask], hi[mask], ratio[mask], age[mask], death_lo[mask], nodes, weights, p
+        )
     increment = ratio * (hi - lo) + death_cumhaz(stop, age, p) - death_lo
     before = cumulative_before(fut.patient, increment)
     per_path = np.bincount(fut.patient, weights=np.exp(-before) * piece_cif, minlength=m)
@@ -118,8 +130,14 @@ def _chunk_risk(
 
 
 def _piece_incidence(
-    lo: np.ndarray, hi: np.ndarray, ratio: np.ndarray, age: np.ndarray, death_lo: np.ndarray,
-    nodes: np.ndarray, weights: np.ndarray, p: GeneratorParameters,
+    lo: np.ndarray,
+    hi: np.ndarray,
+    ratio: np.ndarray,
+    age: np.ndarray,
+    death_lo: np.ndarray,
+    nodes: np.ndarray,
+    weights: np.ndarray,
+    p: GeneratorParameters,
 ) -> np.ndarray:
     """Outcome incidence within each piece given event-free at its start.
 

@@ -124,8 +124,7 @@ class GeneratorParameters:
         extra = [name for name in self.coefficients if name not in COVARIATES]
         if missing or extra:
             raise ValueError(
-                f"coefficients must name exactly the covariates {list(COVARIATES)}; "
-                f"missing {missing}, unknown {extra}"
+                f"coefficients must name exactly the covariates {list(COVARIATES)}; missing {missing}, unknown {extra}"
             )
         # freeze the mapping so the dataclass is truly immutable
         object.__setattr__(self, "coefficients", MappingProxyType(dict(self.coefficients)))

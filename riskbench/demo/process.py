@@ -83,9 +83,9 @@ def measure_lab(
 ) -> np.ndarray:
     """Serum marker (ng/mL, 0.01 resolution, at most the assay limit) of one lab draw; rises over time
     in aggressive nodules."""
-    level = state.marker_log_level[rows] + p.marker_rise_per_year * np.maximum(
-        state.aggressiveness[rows], 0.0
-    ) * (day / DAYS_PER_YEAR)
+    level = state.marker_log_level[rows] + p.marker_rise_per_year * np.maximum(state.aggressiveness[rows], 0.0) * (
+        day / DAYS_PER_YEAR
+    )
     measured = level + p.marker_noise_sd * rng.standard_normal(rows.size)
     # the assay reports values beyond its range at its limits
     return np.clip(np.round(np.exp(measured), 2), 0.01, p.marker_max_ng_ml)

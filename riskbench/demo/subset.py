@@ -32,7 +32,8 @@ def write_subset(source: str | Path, folder: str | Path, n_patients: int) -> lis
     ids = sorted(patients["patient_id"])[:n_patients]
     keep = set(ids)
     for name in TABLES:
-        table = patients if name == "patients" else pd.read_csv(source / f"{name}.csv", dtype=str,
-                                                                  keep_default_na=False)
+        table = (
+            patients if name == "patients" else pd.read_csv(source / f"{name}.csv", dtype=str, keep_default_na=False)
+        )
         table[table["patient_id"].isin(keep)].to_csv(folder / f"{name}.csv", index=False)
     return ids

@@ -55,16 +55,20 @@ def follow_up_table(patients: pd.DataFrame, outcomes: pd.DataFrame) -> pd.DataFr
     """One row per patient with a terminal row: ``time`` (days from entry to the first terminal
     event) and ``status`` (0/1/2). Rows with unparseable dates, unknown kinds or unknown patients are
     skipped (the cohort stage accounts for them; this is only a description)."""
-    entry = pd.to_datetime(patients.drop_duplicates("patient_id").set_index("patient_id")["entry_date"],
-                           errors="coerce")
+    entry = pd.to_datetime(
+        patients.drop_duplicates("patient_id").set_index("patient_id")["entry_date"], errors="coerce"
+    )
     o = outcomes[outcomes["kind"].isin(list(STATUS))].copy()
     o["when"] = pd.to_datetime(o["date"], errors="coerce", format="%Y-%m-%d")
     o = o[o["when"].notna() & o["patient_id"].isin(entry.index)]
     o["time"] = (o["when"] - entry.loc[o["patient_id"]].to_numpy()).dt.days.astype(float)
     o = o[o["time"] >= 0].sort_values(["patient_id", "time"], kind="stable").drop_duplicates("patient_id")
     return pd.DataFrame(
-        {"patient_id": o["patient_id"].to_numpy(), "time": o["time"].to_numpy(),
-         "status": o["kind"].map(STATUS).to_numpy()}
+        {
+            "patient_id": o["patient_id"].to_numpy(),
+            "time": o["time"].to_numpy(),
+            "status": o["kind"].map(STATUS).to_numpy(),
+        }
     )
 
 

@@ -73,8 +73,11 @@ def brier_score(
         check_risk_direction(t, status, r[:, -1])
     weights = horizon_weights(t, status, h, train_time, train_event, outcomes)
     if train_time is None or train_event is None:  # horizon_weights refused one without the other
-        null_curve = (observed_incidence(t, status) if outcomes is None
-                      else outcomes.cached("incidence", lambda: observed_incidence(t, status)))
+        null_curve = (
+            observed_incidence(t, status)
+            if outcomes is None
+            else outcomes.cached("incidence", lambda: observed_incidence(t, status))
+        )
     else:
         tt = as_time(train_time, "train_time")
         null_curve = observed_incidence(tt, as_status(train_event, tt.size, allow_competing=True, name="train_event"))

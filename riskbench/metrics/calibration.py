@@ -180,9 +180,15 @@ def target_status(status: np.ndarray, target: str) -> np.ndarray:
     return np.where(status == 2, 0, status) if target == "cause_specific" else status
 
 
-def observed_expected(time: np.ndarray, status: np.ndarray, risk: np.ndarray, horizon: float, *,
-                      target: str = "cumulative_incidence",
-                      cluster: ArrayLike | None = None) -> tuple[float, float, float]:
+def observed_expected(
+    time: np.ndarray,
+    status: np.ndarray,
+    risk: np.ndarray,
+    horizon: float,
+    *,
+    target: str = "cumulative_incidence",
+    cluster: ArrayLike | None = None,
+) -> tuple[float, float, float]:
     """Observed/expected ratio at ``horizon`` and its 95% interval: the observed risk (Aalen–Johansen, or
     1 − Kaplan–Meier for ``target="cause_specific"``) over the mean predicted risk.
 
@@ -210,8 +216,15 @@ def observed_expected(time: np.ndarray, status: np.ndarray, risk: np.ndarray, ho
 TIES = ("efron", "breslow")
 
 
-def cox_recalibration(time: np.ndarray, status: np.ndarray, z: np.ndarray, horizon: float, *, ties: str = "efron",
-                      cluster: np.ndarray | None = None) -> tuple[float, float]:
+def cox_recalibration(
+    time: np.ndarray,
+    status: np.ndarray,
+    z: np.ndarray,
+    horizon: float,
+    *,
+    ties: str = "efron",
+    cluster: np.ndarray | None = None,
+) -> tuple[float, float]:
     """Slope and standard error of a Cox model of the outcome (status 1) on ``z`` with follow-up cut at ``horizon``.
 
     Fitted by :func:`riskbench.models.cox_engine.fit_cox`; the standard error is cluster-robust when ``cluster``
@@ -227,15 +240,21 @@ def cox_recalibration(time: np.ndarray, status: np.ndarray, z: np.ndarray, horiz
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            fit = fit_cox(z[:, None], np.minimum(time, horizon), event, entry, cluster=cluster, ties=ties,
-                          names=["cloglog_risk"])
+            fit = fit_cox(
+                z[:, None], np.minimum(time, horizon), event, entry, cluster=cluster, ties=ties, names=["cloglog_risk"]
+            )
         except CoxNumericalError as exc:
-            caught.append(warnings.WarningMessage(MonotoneLikelihoodWarning(str(exc)), MonotoneLikelihoodWarning,
-                                                  __file__, 0))
+            caught.append(
+                warnings.WarningMessage(MonotoneLikelihoodWarning(str(exc)), MonotoneLikelihoodWarning, __file__, 0)
+            )
     running_off = [w for w in caught if issubclass(w.category, MonotoneLikelihoodWarning)]
     if running_off:  # the ill-conditioning warnings that come with it say the same thing
-        warnings.warn(f"the Cox recalibration slope is not estimable (the predicted risks separate the outcomes: "
-                      f"{running_off[0].message}); it is reported as NaN", RuntimeWarning, stacklevel=3)
+        warnings.warn(
+            f"the Cox recalibration slope is not estimable (the predicted risks separate the outcomes: "
+            f"{running_off[0].message}); it is reported as NaN",
+            RuntimeWarning,
+            stacklevel=3,
+        )
         return float("nan"), float("nan")
     for w in caught:
         warnings.warn(w.message, w.category, stacklevel=3)
@@ -359,8 +378,14 @@ def calibration_at_horizon(
     grid_risk = np.quantile(r, np.linspace(0.01, 0.99, 60))
     grid_design = _smoother_design(cloglog(grid_risk), knots)
     band = _band(pseudo, design, grid_design, groups_of_rows, start, n_boot, seed)
-    curve = pd.DataFrame({"predicted": grid_risk, "observed": smooth.mean(grid_design),
-                          "observed_lower": band[0], "observed_upper": band[1]})
+    curve = pd.DataFrame(
+        {
+            "predicted": grid_risk,
+            "observed": smooth.mean(grid_design),
+            "observed_lower": band[0],
+            "observed_upper": band[1],
+        }
+    )
     return Calibration(
         horizon=h,
         target=target,

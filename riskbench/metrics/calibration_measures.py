@@ -35,8 +35,15 @@ class SlopeAndICI(NamedTuple):
     ici: float
 
 
-def slope_and_ici(time: ArrayLike, status: ArrayLike, risk: ArrayLike, horizon: float, *,
-                  target: str = "cumulative_incidence", outcomes: OutcomeSet | None = None) -> SlopeAndICI:
+def slope_and_ici(
+    time: ArrayLike,
+    status: ArrayLike,
+    risk: ArrayLike,
+    horizon: float,
+    *,
+    target: str = "cumulative_incidence",
+    outcomes: OutcomeSet | None = None,
+) -> SlopeAndICI:
     """The ``slope`` and ``ici`` of :func:`riskbench.metrics.calibration.calibration_at_horizon` (no cluster,
     no band, no direction check) for one set of predicted risks.
 

@@ -50,9 +50,17 @@ def _pieces(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return mu, ratio, e * np.exp(-e) * ratio
 
 
-def fit_cloglog(x: np.ndarray, y: np.ndarray, *, offset: np.ndarray | float = 0.0, start: np.ndarray | None = None,
-                cluster: np.ndarray | None = None, weights: np.ndarray | None = None, max_iter: int = 100,
-                tol: float = 1e-10) -> CloglogFit:
+def fit_cloglog(
+    x: np.ndarray,
+    y: np.ndarray,
+    *,
+    offset: np.ndarray | float = 0.0,
+    start: np.ndarray | None = None,
+    cluster: np.ndarray | None = None,
+    weights: np.ndarray | None = None,
+    max_iter: int = 100,
+    tol: float = 1e-10,
+) -> CloglogFit:
     """Fit E[y | x] = 1 − exp(−exp(x β + offset)) by quasi-likelihood (GEE, working independence).
 
     Parameters

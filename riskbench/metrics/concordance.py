@@ -49,8 +49,9 @@ TIED_TOL = 1e-8
 computed score (e.g. 0.1 + 0.2 vs 0.3) does not decide a pair."""
 
 
-def _result(estimate: float, se: float, below: np.ndarray, tied: np.ndarray, total: np.ndarray,
-            tied_time: int = 0) -> Concordance:
+def _result(
+    estimate: float, se: float, below: np.ndarray, tied: np.ndarray, total: np.ndarray, tied_time: int = 0
+) -> Concordance:
     """Concordance with pair counts summed from per-outcome counts."""
     concordant, tied_risk, comparable = (round(float(x.sum())) for x in (below, tied, total))
     return Concordance(
@@ -131,8 +132,9 @@ def _earlier_competing_sums(time, rank, pairs: _EarlierCompeting, *, with_se: bo
     return _PairContributions(num_i, den_i, num_j, den_j, (counts.below[used], counts.tied[used], counts.total[used]))
 
 
-def _weighted_concordance(time, is_event, risk, event_weight, *, with_se: bool,
-                          earlier_competing: _EarlierCompeting | None = None) -> Concordance:
+def _weighted_concordance(
+    time, is_event, risk, event_weight, *, with_se: bool, earlier_competing: _EarlierCompeting | None = None
+) -> Concordance:
     """C = sum_i w_i (#{j later, r_j < r_i} + ½ #{ties}) / sum_i w_i #{j later}; i over outcomes.
 
     With ``earlier_competing``, the pairs of an outcome and an earlier competing event are added with their
@@ -268,8 +270,10 @@ def concordance_uno(
     if (status == 2).any():
         # only competing events before the last outcome used can be in a pair
         competing = (status == 2) & (t < t[use].max())
-        earlier = _EarlierCompeting(outcome_weight=inverse_censoring_weights(g_curve, t, use, power=1),
-                                    competing_weight=inverse_censoring_weights(g_curve, t, competing, power=1))
+        earlier = _EarlierCompeting(
+            outcome_weight=inverse_censoring_weights(g_curve, t, use, power=1),
+            competing_weight=inverse_censoring_weights(g_curve, t, competing, power=1),
+        )
     return _weighted_concordance(t, is_event, r, weight, with_se=with_se, earlier_competing=earlier)
 
 
@@ -340,7 +344,8 @@ def concordance_at_horizon(outcomes: OutcomeSet, risk: ArrayLike, tau: float) ->
     if earlier is not None:
         pairs = _EarlierCompeting(
             outcome_weight=inverse_censoring_weights(g_curve, t, use, power=1),
-            competing_weight=inverse_censoring_weights(g_curve, t, competing & (t < t[use].max()), power=1))
+            competing_weight=inverse_censoring_weights(g_curve, t, competing & (t < t[use].max()), power=1),
+        )
         extra = _earlier_competing_pairs(outcomes.time_rank(), rank, is_event, competing, pairs)
         num_i, den_i = num_i + extra.below, den_i + extra.total
     den = float(den_i.sum())
@@ -354,8 +359,13 @@ class _PairTotals(NamedTuple):
     total: np.ndarray
 
 
-def _earlier_competing_pairs(t_rank: np.ndarray, rank: np.ndarray, is_event: np.ndarray, competing: np.ndarray,
-                             pairs: _EarlierCompeting | None = None) -> _PairTotals:
+def _earlier_competing_pairs(
+    t_rank: np.ndarray,
+    rank: np.ndarray,
+    is_event: np.ndarray,
+    competing: np.ndarray,
+    pairs: _EarlierCompeting | None = None,
+) -> _PairTotals:
     """Per outcome, the competing events strictly before it with a lower, equal and any score: counted
     (``pairs`` None) or weighted (``below`` and ``total`` then hold ``outcome_weight * (below + ½ tied)`` and
     ``outcome_weight * total``). Only outcomes and competing events enter the sums; zero for other subjects."""
@@ -427,7 +437,8 @@ def concordance_counting_process(
     den = float(total.sum())
     if den == 0:
         raise MetricInputError(
-            "no row is at risk at any outcome time besides the outcome row: concordance is undefined")
+            "no row is at risk at any outcome time besides the outcome row: concordance is undefined"
+        )
     num_i = below + 0.5 * tied
     estimate = float(num_i.sum() / den)
     # influence of each row as a member of other rows' risk sets (both orders flipped)

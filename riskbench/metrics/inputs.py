@@ -5,11 +5,11 @@ Every error is a :class:`MetricInputError` (a ``ValueError``) that names the arg
 
 from __future__ import annotations
 
-from riskbench.errors import RiskbenchError
-
 from collections.abc import Sequence
 
 import numpy as np
+
+from riskbench.errors import RiskbenchError
 
 ArrayLike = Sequence[float] | np.ndarray
 
@@ -22,7 +22,9 @@ def as_time(time: ArrayLike, name: str = "time") -> np.ndarray:
     """Return ``time`` as a finite, non-negative float array (days, or any unit used consistently)."""
     arr = np.asarray(time, dtype=float)
     if arr.ndim != 1:
-        raise MetricInputError(f"`{name}` must be one-dimensional (one follow-up time per subject); got shape {arr.shape}")
+        raise MetricInputError(
+            f"`{name}` must be one-dimensional (one follow-up time per subject); got shape {arr.shape}"
+        )
     if arr.size == 0:
         raise MetricInputError(f"`{name}` is empty: a metric needs at least one subject")
     bad = np.flatnonzero(~np.isfinite(arr))
@@ -44,7 +46,9 @@ def as_status(event: ArrayLike, n: int, *, allow_competing: bool, name: str = "e
     """Return ``event`` as an int array coded 0 censored, 1 outcome (and 2 competing when allowed)."""
     raw = np.asarray(event)
     if raw.ndim != 1 or raw.shape[0] != n:
-        raise MetricInputError(f"`{name}` has {raw.shape[0] if raw.ndim else 1} entries but `time` has {n}: give one status per subject")
+        raise MetricInputError(
+            f"`{name}` has {raw.shape[0] if raw.ndim else 1} entries but `time` has {n}: give one status per subject"
+        )
     if raw.dtype == bool:
         return raw.astype(np.int64)
     arr = np.asarray(raw, dtype=float)
@@ -52,7 +56,11 @@ def as_status(event: ArrayLike, n: int, *, allow_competing: bool, name: str = "e
     bad = np.flatnonzero(~np.isin(arr, allowed))
     if bad.size:
         codes = "0 (censored), 1 (outcome) or 2 (competing event)" if allow_competing else "0 (censored) or 1 (outcome)"
-        hint = "" if allow_competing else "; for a competing event (code 2) pass `event == 1` to score the outcome cause-specifically"
+        hint = (
+            ""
+            if allow_competing
+            else "; for a competing event (code 2) pass `event == 1` to score the outcome cause-specifically"
+        )
         raise MetricInputError(
             f"`{name}` must be coded {codes}; rows {bad[:5].tolist()} hold {np.unique(arr[bad])[:5].tolist()}{hint}"
         )

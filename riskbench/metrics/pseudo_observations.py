@@ -26,8 +26,9 @@ def _safe_ratio(num: np.ndarray, den: np.ndarray) -> np.ndarray:
     return out
 
 
-def leave_one_out_cumulative_incidence(time: ArrayLike, status: ArrayLike, horizon: float,
-                                       cause: int = 1) -> tuple[float, np.ndarray]:
+def leave_one_out_cumulative_incidence(
+    time: ArrayLike, status: ArrayLike, horizon: float, cause: int = 1
+) -> tuple[float, np.ndarray]:
     """The Aalen–Johansen cumulative incidence of ``cause`` by ``horizon`` and its leave-one-out values.
 
     Parameters

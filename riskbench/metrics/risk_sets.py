@@ -37,8 +37,9 @@ def dense_rank(values: np.ndarray, tol: float = 0.0) -> np.ndarray:
     return inv.reshape(-1)
 
 
-def censoring_curve(t: np.ndarray, status: np.ndarray, train_time: ArrayLike | None = None,
-                    train_event: ArrayLike | None = None) -> StepCurve:
+def censoring_curve(
+    t: np.ndarray, status: np.ndarray, train_time: ArrayLike | None = None, train_event: ArrayLike | None = None
+) -> StepCurve:
     """Kaplan–Meier of censoring G from the evaluation data, or from ``train_time``/``train_event`` when given
     (both or neither); a competing event (2) is not a censoring."""
     if (train_time is None) != (train_event is None):
@@ -50,8 +51,9 @@ def censoring_curve(t: np.ndarray, status: np.ndarray, train_time: ArrayLike | N
     return censoring_survival(tt, te)
 
 
-def horizon_inputs(time: ArrayLike, event: ArrayLike, risk: ArrayLike, horizons: float | ArrayLike, *,
-                   probability: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def horizon_inputs(
+    time: ArrayLike, event: ArrayLike, risk: ArrayLike, horizons: float | ArrayLike, *, probability: bool
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Validated ``(time, status, risk, horizons)`` for a measure at one or more horizons: horizons sorted and
     distinct, within the follow-up, each with an outcome before it; ``risk`` 1-D or one column per horizon
     (columns reordered with the horizons); ``probability`` asks for values in [0, 1]."""
@@ -107,9 +109,11 @@ class OutcomeSet:
     def later_key(self) -> tuple[np.ndarray, np.ndarray]:
         """Order key for "later than" (a larger time first; a censoring or competing event before an outcome at
         an equal time) and the dense rank of -time (computed once)."""
+
         def make() -> tuple[np.ndarray, np.ndarray]:
             t_rank = dense_rank(-self.time)
             return 2 * t_rank + (self.status == 1).astype(np.int64), t_rank
+
         return self.cached("later_key", make)
 
     def time_rank(self) -> np.ndarray:

@@ -114,9 +114,17 @@ def _risk_n(rate: float, follow_up: float, horizon: float, margin: float) -> int
     return high if risk_margin(low, rate, follow_up, horizon) > margin else low
 
 
-def riley_survival_criteria(parameters: int, r2_cox_snell: float | None, rate_per_year: float,
-                            mean_follow_up_years: float, horizon_years: float, *, shrinkage: float = 0.9,
-                            delta: float = 0.05, margin: float = 0.05) -> list[SampleSizeCriterion]:
+def riley_survival_criteria(
+    parameters: int,
+    r2_cox_snell: float | None,
+    rate_per_year: float,
+    mean_follow_up_years: float,
+    horizon_years: float,
+    *,
+    shrinkage: float = 0.9,
+    delta: float = 0.05,
+    margin: float = 0.05,
+) -> list[SampleSizeCriterion]:
     """Riley et al. (2020) minimum sample size criteria (i)–(iii) for a time-to-event outcome.
 
     Parameters
@@ -150,12 +158,24 @@ def riley_survival_criteria(parameters: int, r2_cox_snell: float | None, rate_pe
     _check("shrinkage", shrinkage, 0, 1)
     s_nagelkerke = r2 / (r2 + _check("delta", delta, 0, 1) * r2_max)
     needed = [
-        ("i", f"expected shrinkage of the coefficients at least {shrinkage:g}",
-         math.ceil(_shrinkage_n(parameters, r2, shrinkage)), shrinkage),
-        ("ii", f"apparent and adjusted Nagelkerke R² differ by at most {delta:g}",
-         math.ceil(_shrinkage_n(parameters, r2, s_nagelkerke)), s_nagelkerke),
-        ("iii", f"overall risk by {horizon:g} years estimated within ±{margin:g}",
-         _risk_n(rate, follow_up, horizon, _check("margin", margin, 0, 1)), math.nan),
+        (
+            "i",
+            f"expected shrinkage of the coefficients at least {shrinkage:g}",
+            math.ceil(_shrinkage_n(parameters, r2, shrinkage)),
+            shrinkage,
+        ),
+        (
+            "ii",
+            f"apparent and adjusted Nagelkerke R² differ by at most {delta:g}",
+            math.ceil(_shrinkage_n(parameters, r2, s_nagelkerke)),
+            s_nagelkerke,
+        ),
+        (
+            "iii",
+            f"overall risk by {horizon:g} years estimated within ±{margin:g}",
+            _risk_n(rate, follow_up, horizon, _check("margin", margin, 0, 1)),
+            math.nan,
+        ),
     ]
     out = []
     for name, text, n, s in needed:

@@ -108,8 +108,10 @@ class CurveEstimate:
         for g in self.groups:
             rows = self._rows(g)
             idx = np.searchsorted(rows["time"].to_numpy(), when, side="right") - 1
-            pick = {c: np.r_[v0, rows[c].to_numpy(float)][idx + 1]
-                    for c, v0 in (("estimate", start), ("se", 0.0), ("lower", start), ("upper", start))}
+            pick = {
+                c: np.r_[v0, rows[c].to_numpy(float)][idx + 1]
+                for c, v0 in (("estimate", start), ("se", 0.0), ("lower", start), ("upper", start))
+            }
             frames.append(pd.DataFrame({"group": g, "time": when, **pick, "at_risk": self._at_risk(rows, when)}))
         return pd.concat(frames, ignore_index=True)
 
@@ -174,8 +176,9 @@ def _counts(time: np.ndarray, is_event: np.ndarray) -> pd.DataFrame:
     return pd.DataFrame({"time": uniq, "at_risk": at_risk, "events": events, "censored": total - events})
 
 
-def _estimate(kind: str, status: np.ndarray, t: np.ndarray, group: ArrayLike | None, cause: int,
-              ci_scale: str, level: float) -> CurveEstimate:
+def _estimate(
+    kind: str, status: np.ndarray, t: np.ndarray, group: ArrayLike | None, cause: int, ci_scale: str, level: float
+) -> CurveEstimate:
     labels, groups = _groups(group, t.size)
     confidence_band(np.array([0.5]), np.array([0.1]), ci_scale, level)  # checks scale and level up front
     frames = []
@@ -193,12 +196,19 @@ def _estimate(kind: str, status: np.ndarray, t: np.ndarray, group: ArrayLike | N
         frame["lower"], frame["upper"] = confidence_band(curve.values, frame["se"].to_numpy(), ci_scale, level)
         frame.insert(0, "group", g)
         frames.append(frame)
-    return CurveEstimate(kind, pd.concat(frames, ignore_index=True), ci_scale, float(level),
-                         None if kind == "survival" else cause, groups)
+    return CurveEstimate(
+        kind,
+        pd.concat(frames, ignore_index=True),
+        ci_scale,
+        float(level),
+        None if kind == "survival" else cause,
+        groups,
+    )
 
 
-def kaplan_meier_estimate(time: ArrayLike, event: ArrayLike, *, group: ArrayLike | None = None,
-                          ci_scale: str = "log-log", level: float = 0.95) -> CurveEstimate:
+def kaplan_meier_estimate(
+    time: ArrayLike, event: ArrayLike, *, group: ArrayLike | None = None, ci_scale: str = "log-log", level: float = 0.95
+) -> CurveEstimate:
     """Kaplan–Meier survival with Greenwood standard errors, pointwise band, quantiles and number at risk.
 
     Parameters
@@ -214,8 +224,15 @@ def kaplan_meier_estimate(time: ArrayLike, event: ArrayLike, *, group: ArrayLike
     return _estimate("survival", status, t, group, 1, ci_scale, level)
 
 
-def aalen_johansen_estimate(time: ArrayLike, status: ArrayLike, *, cause: int = 1, group: ArrayLike | None = None,
-                            ci_scale: str = "log-log", level: float = 0.95) -> CurveEstimate:
+def aalen_johansen_estimate(
+    time: ArrayLike,
+    status: ArrayLike,
+    *,
+    cause: int = 1,
+    group: ArrayLike | None = None,
+    ci_scale: str = "log-log",
+    level: float = 0.95,
+) -> CurveEstimate:
     """Aalen–Johansen cumulative incidence of ``cause`` with the other event code competing.
 
     Parameters

@@ -110,7 +110,9 @@ def triage_operating_point(
     target = target_npv if target_npv is not None else target_sensitivity
     if target is None or not 0 < float(target) < 1:
         raise MetricInputError(f"the target must be a proportion strictly between 0 and 1; got {target}")
-    t, status, r, h = single_horizon_inputs(time, event, risk, horizon, metric="triage", check_direction=check_direction)
+    t, status, r, h = single_horizon_inputs(
+        time, event, risk, horizon, metric="triage", check_direction=check_direction
+    )
 
     candidates = np.unique(r)
     if candidates.size > _MAX_CANDIDATES:
@@ -122,8 +124,12 @@ def triage_operating_point(
         reached = np.asarray(acc["npv"] if target_npv is not None else acc["sensitivity"], dtype=float)
         best = float(reached[np.isfinite(reached)].max()) if np.isfinite(reached).any() else np.nan
         reach = f"the best candidate reaches {best:.3f}" if np.isfinite(best) else "no candidate spares anyone"
-        raise TargetUnreachable(f"no risk threshold reaches {what} at horizon {h:g} days ({reach}); lower the target",
-                                what=what, horizon=h, best=best)
+        raise TargetUnreachable(
+            f"no risk threshold reaches {what} at horizon {h:g} days ({reach}); lower the target",
+            what=what,
+            horizon=h,
+            best=best,
+        )
     estimate = {"threshold": candidates[chosen], **{k: v[chosen] for k, v in acc.items()}}
 
     rng = np.random.default_rng(seed)
@@ -139,6 +145,6 @@ def triage_operating_point(
     for q in QUANTITIES:
         vals = np.asarray(draws[q], dtype=float)
         vals = vals[np.isfinite(vals)]
-        lo, hi = (np.quantile(vals, [0.025, 0.975]) if vals.size else (np.nan, np.nan))
+        lo, hi = np.quantile(vals, [0.025, 0.975]) if vals.size else (np.nan, np.nan)
         rows.append((q, float(estimate[q]), float(lo), float(hi)))
     return pd.DataFrame(rows, columns=["quantity", "estimate", "lower", "upper"])

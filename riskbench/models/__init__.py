@@ -6,6 +6,8 @@ from riskbench.models.cox_model import CoxModel
 from riskbench.models.cox_summary import CoxSummary
 from riskbench.models.forest import SurvivalForest
 from riskbench.models.forest_io import ModelIntegrityError, load_forest, save_forest
+from riskbench.models.joint_family import SharedTrajectoryModel
+from riskbench.models.joint_model import JointModel
 from riskbench.models.landmark import LandmarkSupermodel
 from riskbench.models.risk_contract import ModelInputError, RiskModel, cumulative_incidence, risk_curve
 
@@ -14,10 +16,12 @@ __all__ = [
     "CoxInputError",
     "CoxModel",
     "CoxSummary",
+    "JointModel",
     "LandmarkSupermodel",
     "ModelInputError",
     "ModelIntegrityError",
     "RiskModel",
+    "SharedTrajectoryModel",
     "SurvivalForest",
     "cumulative_incidence",
     "fit_cox",

@@ -72,8 +72,9 @@ def schoenfeld_residuals(model: CoxModel, table: pd.DataFrame, *, scaled: bool =
             "pass the table the model was fitted on."
         )
     Xs = (X - fit.center) / fit.scale
-    parts = event_risk_set_means(Xs, start, arr.stop, event, _strata_codes(arr.strata, n), weights,
-                                 fit.coef * fit.scale, fit.ties)
+    parts = event_risk_set_means(
+        Xs, start, arr.stop, event, _strata_codes(arr.strata, n), weights, fit.coef * fit.scale, fit.ties
+    )
     resid = (Xs[parts.row] - parts.mean) * fit.scale
     if scaled:
         resid = fit.n_events * resid @ fit.var + fit.coef
@@ -83,15 +84,18 @@ def schoenfeld_residuals(model: CoxModel, table: pd.DataFrame, *, scaled: bool =
     return out.sort_values(["time", "row"], kind="stable").reset_index(drop=True)
 
 
-def _km_at_event_times(start: np.ndarray, stop: np.ndarray, event: np.ndarray, weights: np.ndarray,
-                       at: np.ndarray) -> np.ndarray:
+def _km_at_event_times(
+    start: np.ndarray, stop: np.ndarray, event: np.ndarray, weights: np.ndarray, at: np.ndarray
+) -> np.ndarray:
     """Product-limit survival (all strata pooled; left truncation at ``start``) at times ``at``."""
     times = np.unique(stop[event > 0])
     order_stop, order_start = np.argsort(stop), np.argsort(start)
     w_stop = np.r_[np.cumsum(weights[order_stop][::-1])[::-1], 0.0]
     w_start = np.r_[np.cumsum(weights[order_start][::-1])[::-1], 0.0]
-    at_risk = (w_stop[np.searchsorted(stop[order_stop], times, side="left")]
-               - w_start[np.searchsorted(start[order_start], times, side="left")])
+    at_risk = (
+        w_stop[np.searchsorted(stop[order_stop], times, side="left")]
+        - w_start[np.searchsorted(start[order_start], times, side="left")]
+    )
     deaths = np.bincount(np.searchsorted(times, stop[event > 0]), weights=weights[event > 0], minlength=times.size)
     surv = np.cumprod(1.0 - deaths / at_risk)
     return surv[np.searchsorted(times, at)]
@@ -172,8 +176,14 @@ class CoxRefit:
     time_origin: str
 
 
-def cox_refit(family: str, covariates: Sequence[str], params: Mapping[str, Any], table: pd.DataFrame,
-              *, complete_on: Sequence[str] | None = None) -> CoxRefit:
+def cox_refit(
+    family: str,
+    covariates: Sequence[str],
+    params: Mapping[str, Any],
+    table: pd.DataFrame,
+    *,
+    complete_on: Sequence[str] | None = None,
+) -> CoxRefit:
     """Refit the outcome part of a ``landmark_cox`` or ``time_varying_cox`` model as a :class:`CoxModel`.
 
     A landmark super-model becomes a Cox model on its design (covariates and their landmark interactions,

@@ -41,23 +41,25 @@ Conventions
 
 from __future__ import annotations
 
-from riskbench.errors import RiskbenchError
-
+import itertools
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 import pandas as pd
 from scipy import linalg, sparse, stats
 
+from riskbench.errors import RiskbenchError
+
 __all__ = [
-    "CoxFit",
     "CoxCollinearityError",
     "CoxConstantCovariateError",
-    "CoxInputError",
     "CoxConvergenceWarning",
+    "CoxFit",
     "CoxIllConditionedWarning",
+    "CoxInputError",
     "CoxNumericalError",
     "EventRiskSetMeans",
     "LikelihoodTest",
@@ -73,12 +75,14 @@ class CoxInputError(RiskbenchError):
     """Bad input to the Cox engine (the message names the column, rows and the fix).
 
     ``terms`` names the design columns concerned, when the error is about particular columns, so that a
-    caller can restate the problem in its own terms (a model name, a configuration key).
+    caller can restate the problem in its own terms (a model name, a configuration key); ``cause`` is set by a
+    caller fitting one of several cause-specific models (e.g. ``"competing event"``), None otherwise.
     """
 
     def __init__(self, message: str = "", terms: Sequence[str] = ()) -> None:
         super().__init__(message)
         self.terms: tuple[str, ...] = tuple(terms)
+        self.cause: str | None = None
 
 
 class CoxConstantCovariateError(CoxInputError):
@@ -356,14 +360,16 @@ def _layout(start: np.ndarray, stop: np.ndarray, event: np.ndarray, strata: np.n
 def _segment_reverse_cumsum(values: np.ndarray, bounds: np.ndarray) -> np.ndarray:
     """Sum over keys k..end of the stratum segment (keeps strata apart, exact resets)."""
     out = np.empty_like(values)
-    for a, b in zip(bounds[:-1], bounds[1:]):
+    for a, b in itertools.pairwise(bounds):
         out[a:b] = np.cumsum(values[a:b][::-1], axis=0)[::-1]
     return out
 
 
 def _bincount_cols(index: np.ndarray, weights: np.ndarray, size: int) -> np.ndarray:
     """Column-wise ``np.bincount``: (rows, p) weights -> (size, p) sums."""
-    return np.stack([np.bincount(index, weights=weights[:, j], minlength=size) for j in range(weights.shape[1])], axis=1)
+    return np.stack(
+        [np.bincount(index, weights=weights[:, j], minlength=size) for j in range(weights.shape[1])], axis=1
+    )
 
 
 def _risk_set_sums(L: _Layout, v: np.ndarray, Xa: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -484,9 +490,13 @@ def _solve_pd(H: np.ndarray, g: np.ndarray) -> np.ndarray:
     try:
         return linalg.cho_solve(linalg.cho_factor(H), g)
     except linalg.LinAlgError:
-        warnings.warn(CoxIllConditionedWarning(
-            "the information matrix is not positive definite (ill-conditioned: nearly collinear covariates or "
-            "coefficients running off); a least-squares Newton step was taken instead"), stacklevel=4)
+        warnings.warn(
+            CoxIllConditionedWarning(
+                "the information matrix is not positive definite (ill-conditioned: nearly collinear covariates or "
+                "coefficients running off); a least-squares Newton step was taken instead"
+            ),
+            stacklevel=4,
+        )
         return linalg.lstsq(H, g)[0]
 
 
@@ -494,9 +504,13 @@ def _inverse_pd(H: np.ndarray) -> np.ndarray:
     try:
         return linalg.cho_solve(linalg.cho_factor(H), np.eye(H.shape[0]))
     except linalg.LinAlgError:
-        warnings.warn(CoxIllConditionedWarning(
-            "the information matrix is not positive definite (ill-conditioned); the covariance is a "
-            "pseudo-inverse and the standard errors are unreliable"), stacklevel=4)
+        warnings.warn(
+            CoxIllConditionedWarning(
+                "the information matrix is not positive definite (ill-conditioned); the covariance is a "
+                "pseudo-inverse and the standard errors are unreliable"
+            ),
+            stacklevel=4,
+        )
         return linalg.pinvh(H)
 
 
@@ -597,7 +611,7 @@ def fit_cox(
     coef = nr.beta / scale
     var = V_std / np.outer(scale, scale)
     robust_var = robust_wald = None
-    if inp.cluster_codes is not None:
+    if inp.cluster_codes is not None and inp.n_clusters is not None:
         res = _score_residuals(Xa, L, nr.state) * wa[:, None]
         per_cluster = _bincount_cols(inp.cluster_codes[L.active], res, inp.n_clusters)
         robust_var = (V_std @ (per_cluster.T @ per_cluster) @ V_std) / np.outer(scale, scale)
@@ -655,8 +669,16 @@ def _labels(name: str, values: Any, n: int) -> tuple[np.ndarray, list[Any]]:
 
 
 def _checked_inputs(
-    X: Any, stop: Any, event: Any, start: Any, strata: Any, weights: Any, cluster: Any,
-    ties: str, penalty: float, names: Sequence[str] | None,
+    X: Any,
+    stop: Any,
+    event: Any,
+    start: Any,
+    strata: Any,
+    weights: Any,
+    cluster: Any,
+    ties: str,
+    penalty: float,
+    names: Sequence[str] | None,
 ) -> _Inputs:
     if ties not in ("efron", "breslow"):
         raise CoxInputError(f"ties={ties!r}; use 'efron' or 'breslow'.")
@@ -723,13 +745,16 @@ def _initial(initial: Any, scale: np.ndarray, names: tuple[str, ...]) -> np.ndar
         return None
     beta = np.asarray(initial, dtype=float).reshape(-1)
     if beta.size != scale.size or not np.isfinite(beta).all():
-        raise CoxInputError(f"`initial` must hold {scale.size} finite coefficients, one per covariate {list(names)}; "
-                            f"got {np.asarray(initial).tolist()!r}")
+        raise CoxInputError(
+            f"`initial` must hold {scale.size} finite coefficients, one per covariate {list(names)}; "
+            f"got {np.asarray(initial).tolist()!r}"
+        )
     return beta * scale
 
 
-def _newton_raphson(Xa: np.ndarray, wa: np.ndarray, L: _Layout, pen: float, max_iter: int, tol: float,
-                    initial: np.ndarray | None = None) -> _Newton:
+def _newton_raphson(
+    Xa: np.ndarray, wa: np.ndarray, L: _Layout, pen: float, max_iter: int, tol: float, initial: np.ndarray | None = None
+) -> _Newton:
     """Maximise ``loglik - pen/2 ‖β‖²`` from β = ``initial`` (default 0) with step halving.
 
     Converged when the relative change of the objective is ≤ ``tol`` and the largest step is
@@ -777,10 +802,13 @@ def _warn_convergence(nr: _Newton, names: tuple[str, ...], tol: float) -> None:
     running = _running_off(list(nr.history), nr.converged)
     if running:
         terms = [names[j] for j in running]
-        warnings.warn(MonotoneLikelihoodWarning(
-            f"monotone likelihood: coefficient(s) {terms} run off to infinity "
-            "(an event pattern is perfectly separated by them); their estimates and standard errors are "
-            "meaningless — drop or coarsen them, or use a ridge penalty.", terms),
+        warnings.warn(
+            MonotoneLikelihoodWarning(
+                f"monotone likelihood: coefficient(s) {terms} run off to infinity "
+                "(an event pattern is perfectly separated by them); their estimates and standard errors are "
+                "meaningless — drop or coarsen them, or use a ridge penalty.",
+                terms,
+            ),
             stacklevel=3,
         )
     elif not nr.converged:
@@ -829,9 +857,16 @@ class EventRiskSetMeans:
     mean: np.ndarray
 
 
-def event_risk_set_means(x_std: np.ndarray, start: np.ndarray, stop: np.ndarray, event: np.ndarray,
-                         strata_codes: np.ndarray, weights: np.ndarray, beta_std: np.ndarray,
-                         ties: str) -> EventRiskSetMeans:
+def event_risk_set_means(
+    x_std: np.ndarray,
+    start: np.ndarray,
+    stop: np.ndarray,
+    event: np.ndarray,
+    strata_codes: np.ndarray,
+    weights: np.ndarray,
+    beta_std: np.ndarray,
+    ties: str,
+) -> EventRiskSetMeans:
     """Risk-set covariate means at each event of ``(start, stop]`` rows for standardised coefficients ``beta_std``.
 
     ``x_std`` are the covariates centred and scaled as in :class:`CoxFit` (``(x - center) / scale``);

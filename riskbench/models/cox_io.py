@@ -48,8 +48,10 @@ def save_cox_model(model: Any, path: str | Path) -> Path:
     """Write a fitted ``CoxModel`` to ``path`` (JSON); returns the path."""
     if not hasattr(model, "fit_"):
         raise ModelInputError("only a fitted CoxModel can be saved; call fit(table) first.")
-    body = {"time_scale": model.time_scale_,
-            "fit": {f.name: _plain(getattr(model.fit_, f.name)) for f in fields(CoxFit)}}
+    body = {
+        "time_scale": model.time_scale_,
+        "fit": {f.name: _plain(getattr(model.fit_, f.name)) for f in fields(CoxFit)},
+    }
     return write_model_file(path, FORMAT, FORMAT_VERSION, model, body)
 
 
@@ -87,10 +89,19 @@ def read_cox_file(path: str | Path) -> SavedCox:
         elif f.name.endswith("_test"):
             v = _test(v)
         elif f.name == "baseline":
-            v = pd.DataFrame({"stratum": v["stratum"], "time": np.asarray(v["time"], float),
-                              "cumhaz": np.asarray(v["cumhaz"], float)})
+            v = pd.DataFrame(
+                {
+                    "stratum": v["stratum"],
+                    "time": np.asarray(v["time"], float),
+                    "cumhaz": np.asarray(v["cumhaz"], float),
+                }
+            )
         elif f.name in ("names", "strata_levels"):
             v = tuple(v)
         values[f.name] = v
-    return SavedCox(params=doc["params"], fit=CoxFit(**values), time_scale=doc.get("time_scale", "since_entry"),
-                    versions=doc.get("versions", {}))
+    return SavedCox(
+        params=doc["params"],
+        fit=CoxFit(**values),
+        time_scale=doc.get("time_scale", "since_entry"),
+        versions=doc.get("versions", {}),
+    )

@@ -128,9 +128,16 @@ class CoxModel(BaseEstimator):
         """Fit on rows with a stop column (``stop``/``time``), a status column and optionally a start column."""
         arrays = self.fitting_arrays(table)
         fit = fit_cox(
-            arrays.X, arrays.stop, arrays.event, arrays.start, strata=arrays.strata, weights=arrays.weights,
+            arrays.X,
+            arrays.stop,
+            arrays.event,
+            arrays.start,
+            strata=arrays.strata,
+            weights=arrays.weights,
             cluster=arrays.cluster if self.variance == "robust" else None,
-            ties=self.ties, penalty=self.penalty, names=list(self.covariates),
+            ties=self.ties,
+            penalty=self.penalty,
+            names=list(self.covariates),
         )
         self._set_fitted(fit, "since_landmark" if self._stop_column(table) == "time" else "since_entry")
         return self

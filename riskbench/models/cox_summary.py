@@ -99,8 +99,9 @@ class CoxSummary:
 
     def _repr_html_(self) -> str:
         """Notebook display: facts, global tests and coefficients, every text escaped."""
-        facts = "".join(f"<tr><th>{_esc(k)}</th><td>{_esc(_fmt(v))}</td></tr>" for k, v in self.facts().itertuples(
-            index=False))
+        facts = "".join(
+            f"<tr><th>{_esc(k)}</th><td>{_esc(_fmt(v))}</td></tr>" for k, v in self.facts().itertuples(index=False)
+        )
         return (
             "<div><strong>Cox proportional-hazards model</strong>"
             f"<table>{facts}</table>{_frame_html(self.tests())}{_frame_html(self.coefficients)}"

@@ -87,8 +87,11 @@ class Param:
         else:
             ok = False
         if ok and not isinstance(value, (bool, str)):
-            ok = not ((self.positive and value <= 0) or (self.minimum is not None and value < self.minimum)
-                      or (self.maximum is not None and value > self.maximum))
+            ok = not (
+                (self.positive and value <= 0)
+                or (self.minimum is not None and value < self.minimum)
+                or (self.maximum is not None and value > self.maximum)
+            )
         return None if ok else self.allowed()
 
 
@@ -127,48 +130,78 @@ class Family:
 _TIES = Param("ties", ("str",), "efron", "tie handling in the partial likelihood", choices=("efron", "breslow"))
 
 FAMILIES: dict[str, Family] = {
-    f.name: f for f in (
+    f.name: f
+    for f in (
         Family(
-            "landmark_cox", "riskbench.models.landmark.LandmarkSupermodel", LANDMARK_STACK,
+            "landmark_cox",
+            "riskbench.models.landmark.LandmarkSupermodel",
+            LANDMARK_STACK,
             (
-                Param("landmark_effects", ("str",), "linear",
-                      "how each coefficient varies with the landmark: constant, linear or quadratic in s "
-                      "(needs 1, 2 or 3 distinct landmarks)", choices=("none", "linear", "quadratic")),
-                Param("baseline", ("str",), "smooth",
-                      "one pooled baseline with landmark terms, or one baseline per landmark",
-                      choices=("smooth", "stratified")),
+                Param(
+                    "landmark_effects",
+                    ("str",),
+                    "linear",
+                    "how each coefficient varies with the landmark: constant, linear or quadratic in s "
+                    "(needs 1, 2 or 3 distinct landmarks)",
+                    choices=("none", "linear", "quadratic"),
+                ),
+                Param(
+                    "baseline",
+                    ("str",),
+                    "smooth",
+                    "one pooled baseline with landmark terms, or one baseline per landmark",
+                    choices=("smooth", "stratified"),
+                ),
                 Param("competing", ("bool",), True, "also model the competing event (cumulative incidence)"),
                 _TIES,
             ),
             "Cox landmark super-model on the landmark stack: risk at each landmark from the values known then",
         ),
         Family(
-            "time_varying_cox", "riskbench.models.cox_model.CoxModel", COUNTING_PROCESS,
+            "time_varying_cox",
+            "riskbench.models.cox_model.CoxModel",
+            COUNTING_PROCESS,
             (
                 _TIES,
-                Param("penalty", ("int", "float"), 0.0, "ridge penalty on standardised coefficients",
-                      minimum=0.0),
+                Param("penalty", ("int", "float"), 0.0, "ridge penalty on standardised coefficients", minimum=0.0),
                 Param("strata", ("str", "none"), None, "a column whose values get separate baseline hazards"),
                 Param("weights", ("str", "none"), None, "a column of positive case weights"),
                 Param("cluster", ("str", "none"), "patient_id", "a column of cluster labels (robust variance)"),
-                Param("variance", ("str",), "model",
-                      "standard errors: 'model' (inverse information) or 'robust' (sandwich by cluster); the "
-                      "workflow uses 'robust' when cluster is set", choices=("model", "robust")),
+                Param(
+                    "variance",
+                    ("str",),
+                    "model",
+                    "standard errors: 'model' (inverse information) or 'robust' (sandwich by cluster); the "
+                    "workflow uses 'robust' when cluster is set",
+                    choices=("model", "robust"),
+                ),
             ),
             "Cox model on the counting-process rows: the whole follow-up with time-varying covariates",
             reserved=("event_code", "stop_column", "start_column", "status_column"),
         ),
         Family(
-            "forest", "riskbench.models.forest.SurvivalForest", LANDMARK_STACK,
+            "forest",
+            "riskbench.models.forest.SurvivalForest",
+            LANDMARK_STACK,
             (
-                Param("grid_days", ("int", "float", "none"), 30.4375, "width of the time grid, days",
-                      positive=True),
+                Param("grid_days", ("int", "float", "none"), 30.4375, "width of the time grid, days", positive=True),
                 Param("n_estimators", ("int",), 200, "number of trees", minimum=1),
-                Param("max_samples", ("int", "float", "none"), None,
-                      "rows drawn per tree: a count or a fraction of the rows", positive=True),
+                Param(
+                    "max_samples",
+                    ("int", "float", "none"),
+                    None,
+                    "rows drawn per tree: a count or a fraction of the rows",
+                    positive=True,
+                ),
                 Param("min_samples_leaf", ("int",), 15, "smallest leaf, rows", minimum=1),
-                Param("max_features", ("int", "float", "str"), "sqrt", "candidate covariates per split",
-                      choices=("sqrt", "log2"), positive=True),
+                Param(
+                    "max_features",
+                    ("int", "float", "str"),
+                    "sqrt",
+                    "candidate covariates per split",
+                    choices=("sqrt", "log2"),
+                    positive=True,
+                ),
                 Param("max_depth", ("int", "none"), None, "deepest tree", minimum=1),
                 Param("n_jobs", ("int",), 1, "worker processes for growing the trees", minimum=-1),
             ),
@@ -176,27 +209,56 @@ FAMILIES: dict[str, Family] = {
             reserved=("random_state",),
         ),
         Family(
-            "shared_trajectory_joint", "riskbench.models.joint_family.SharedTrajectoryModel", COUNTING_PROCESS,
+            "shared_trajectory_joint",
+            "riskbench.models.joint_family.SharedTrajectoryModel",
+            COUNTING_PROCESS,
             (
-                Param("marker", ("str", "none"), None,
-                      "the repeated marker among the covariates (leave out for the first covariate); the other "
-                      "covariates must be baseline values"),
-                Param("association", ("str",), "value",
-                      "how the outcome hazard depends on the marker's current true value, its slope per year, "
-                      "both or neither", choices=("value", "slope", "value_slope", "none")),
+                Param(
+                    "marker",
+                    ("str", "none"),
+                    None,
+                    "the repeated marker among the covariates (leave out for the first covariate); the other "
+                    "covariates must be baseline values",
+                ),
+                Param(
+                    "association",
+                    ("str",),
+                    "value",
+                    "how the outcome hazard depends on the marker's current true value, its slope per year, "
+                    "both or neither",
+                    choices=("value", "slope", "value_slope", "none"),
+                ),
                 Param("competing", ("bool",), True, "also model the competing event (cumulative incidence)"),
-                Param("competing_association", ("bool",), True,
-                      "the competing hazard depends on the marker's current value too"),
-                Param("time_knots", ("int",), 0,
-                      "interior knots of a natural cubic spline of time in the marker's mean (0: a straight line)",
-                      minimum=0, maximum=5),
-                Param("baseline_pieces", ("int",), 6,
-                      "pieces of the piecewise-constant baseline hazards (knots at event-time quantiles)",
-                      minimum=1, maximum=20),
-                Param("hermite_points", ("int",), 5, "Gauss-Hermite nodes per random effect", minimum=2,
-                      maximum=15),
-                Param("prediction_draws", ("int",), 100,
-                      "Monte Carlo draws of the random effects per predicted row", minimum=10),
+                Param(
+                    "competing_association",
+                    ("bool",),
+                    True,
+                    "the competing hazard depends on the marker's current value too",
+                ),
+                Param(
+                    "time_knots",
+                    ("int",),
+                    0,
+                    "interior knots of a natural cubic spline of time in the marker's mean (0: a straight line)",
+                    minimum=0,
+                    maximum=5,
+                ),
+                Param(
+                    "baseline_pieces",
+                    ("int",),
+                    6,
+                    "pieces of the piecewise-constant baseline hazards (knots at event-time quantiles)",
+                    minimum=1,
+                    maximum=20,
+                ),
+                Param("hermite_points", ("int",), 5, "Gauss-Hermite nodes per random effect", minimum=2, maximum=15),
+                Param(
+                    "prediction_draws",
+                    ("int",),
+                    100,
+                    "Monte Carlo draws of the random effects per predicted row",
+                    minimum=10,
+                ),
             ),
             "Joint model of one repeated marker and the outcome (random intercept and slope shared with the "
             "cause-specific hazards); dynamic predictions from each patient's measurement history",
@@ -226,16 +288,20 @@ def param_problems(family_name: str, params: Mapping[str, Any]) -> list[tuple[st
     names = [p.name for p in fam.params]
     for key, value in params.items():
         if key in fam.reserved:
-            out.append((key, value, "set by the run from the configuration's seed or outcome coding; "
-                                    "leave it out", []))
+            out.append((key, value, "set by the run from the configuration's seed or outcome coding; leave it out", []))
         elif key not in names:
             listing = ", ".join(f"{p.name} (default {p.default!r})" for p in fam.params)
-            out.append((key, value, f"not a parameter of family {fam.name!r}; its parameters: {listing}",
-                        names))
+            out.append((key, value, f"not a parameter of family {fam.name!r}; its parameters: {listing}", names))
         else:
             param = fam.param(key)
             allowed = param.check(value)
             if allowed is not None:
-                out.append((key, value, f"expected {allowed} (default {param.default!r}; {param.doc})",
-                            list(param.choices or ())))
+                out.append(
+                    (
+                        key,
+                        value,
+                        f"expected {allowed} (default {param.default!r}; {param.doc})",
+                        list(param.choices or ()),
+                    )
+                )
     return out

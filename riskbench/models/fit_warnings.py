@@ -114,6 +114,6 @@ def count_warnings(per_fit: Iterable[tuple[str, list[FitWarning]]]) -> pd.DataFr
     ]
     order = {k: i for i, k in enumerate(WARNING_KINDS)}
     table = pd.DataFrame(rows, columns=COUNT_COLUMNS)
-    return table.sort_values(["model", "kind"], key=lambda c: c.map(order) if c.name == "kind" else c,
-                             ignore_index=True)
-
+    return table.sort_values(
+        ["model", "kind"], key=lambda c: c.map(order) if c.name == "kind" else c, ignore_index=True
+    )

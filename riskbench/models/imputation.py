@@ -82,7 +82,8 @@ def nelson_aalen_curve(
         return times, np.zeros(0)
     deaths = np.bincount(np.searchsorted(times, stop[event > 0]), minlength=len(times)).astype(float)
     at_risk = (len(stop) - np.searchsorted(np.sort(stop), times, side="left")) - (
-        len(start) - np.searchsorted(np.sort(start), times, side="left"))
+        len(start) - np.searchsorted(np.sort(start), times, side="left")
+    )
     return times, np.cumsum(deaths / at_risk)
 
 
@@ -137,11 +138,19 @@ def _patient_outcome(table: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.nd
     """One row per patient of counting-process rows: entry (first ``start``), exit (last ``stop``) and the
     final ``status``; and, per row, the index of its patient."""
     codes = pd.factorize(table["patient_id"].to_numpy())[0]
-    start = (pd.to_numeric(table["start"], errors="coerce").to_numpy(dtype=float) if "start" in table.columns
-             else np.zeros(len(table)))
-    frame = pd.DataFrame({"code": codes, "start": start,
-                          "stop": pd.to_numeric(table["stop"], errors="coerce").to_numpy(dtype=float),
-                          "status": pd.to_numeric(table["status"], errors="coerce").to_numpy(dtype=float)})
+    start = (
+        pd.to_numeric(table["start"], errors="coerce").to_numpy(dtype=float)
+        if "start" in table.columns
+        else np.zeros(len(table))
+    )
+    frame = pd.DataFrame(
+        {
+            "code": codes,
+            "start": start,
+            "stop": pd.to_numeric(table["stop"], errors="coerce").to_numpy(dtype=float),
+            "status": pd.to_numeric(table["status"], errors="coerce").to_numpy(dtype=float),
+        }
+    )
     last = frame.sort_values(["code", "stop"]).groupby("code", sort=True).tail(1).set_index("code").sort_index()
     entry = frame.groupby("code", sort=True)["start"].min().to_numpy()
     return entry, last["stop"].to_numpy(), last["status"].to_numpy(), codes
@@ -176,8 +185,11 @@ def outcome_predictors(table: pd.DataFrame) -> tuple[np.ndarray, list[str]]:
             columns += [event, nelson_aalen_at(time, event, strata=strata)]
             names += [f"event_{cause}", f"cumulative_hazard_{cause}"]
         return np.column_stack(columns), names
-    row_start = (pd.to_numeric(table["start"], errors="coerce").to_numpy(dtype=float)
-                 if "start" in table.columns else np.zeros(len(table)))
+    row_start = (
+        pd.to_numeric(table["start"], errors="coerce").to_numpy(dtype=float)
+        if "start" in table.columns
+        else np.zeros(len(table))
+    )
     row_stop = pd.to_numeric(table["stop"], errors="coerce").to_numpy(dtype=float)
     if "patient_id" in table.columns:
         entry, exit_, status, row_patient = _patient_outcome(table)
@@ -254,8 +266,12 @@ def _iterative_imputer(seed: int, max_iterations: int, *, skip_complete: bool):
     from sklearn.impute import IterativeImputer
 
     return IterativeImputer(
-        estimator=LinearPredictiveModel(), sample_posterior=True, max_iter=int(max_iterations),
-        random_state=int(seed), skip_complete=skip_complete, initial_strategy="mean",
+        estimator=LinearPredictiveModel(),
+        sample_posterior=True,
+        max_iter=int(max_iterations),
+        random_state=int(seed),
+        skip_complete=skip_complete,
+        initial_strategy="mean",
     )
 
 

@@ -58,8 +58,9 @@ def check_survival(survival: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.n
     return ids, time / DAYS_PER_YEAR, status.astype(int)
 
 
-def marker_history(measurements: pd.DataFrame, ids: np.ndarray, *, time_column: str, marker: str,
-                   end_years: np.ndarray | None = None) -> History:
+def marker_history(
+    measurements: pd.DataFrame, ids: np.ndarray, *, time_column: str, marker: str, end_years: np.ndarray | None = None
+) -> History:
     """Measurements matched to the patients ``ids`` (times in years).
 
     Raises
@@ -159,9 +160,16 @@ def build_arrays(
         for code, cov, terms in zip((1, 2), cause_covariates, cause_terms)
     )
     return JointArrays(
-        end=end, piece=piece_index(knots, end), times=times, weights=weights,
-        design_nodes=np.ascontiguousarray(design_nodes), slope_nodes=np.ascontiguousarray(slope_nodes),
-        design_end=design_end, slope_end=slope_end, causes=causes, **vars(sums),
+        end=end,
+        piece=piece_index(knots, end),
+        times=times,
+        weights=weights,
+        design_nodes=np.ascontiguousarray(design_nodes),
+        slope_nodes=np.ascontiguousarray(slope_nodes),
+        design_end=design_end,
+        slope_end=slope_end,
+        causes=causes,
+        **vars(sums),
     )
 
 

@@ -51,8 +51,10 @@ class TimeBasis:
         xi = np.asarray(self.knots)
         last = xi[-1]
         scale = 3.0 if power == 2 else 1.0
-        d = (scale * (np.clip(t[..., None] - xi[:-1], 0.0, None) ** power
-                      - np.clip(t[..., None] - last, 0.0, None) ** power)) / (last - xi[:-1])
+        d = (
+            scale
+            * (np.clip(t[..., None] - xi[:-1], 0.0, None) ** power - np.clip(t[..., None] - last, 0.0, None) ** power)
+        ) / (last - xi[:-1])
         return d[..., :-1] - d[..., -1:]
 
     def values(self, t: np.ndarray) -> np.ndarray:

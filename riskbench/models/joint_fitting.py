@@ -28,8 +28,15 @@ from riskbench.models.joint_likelihood import (
 )
 from riskbench.models.joint_quadrature import adaptive_nodes, hermite_grid
 
-__all__ = ["FitResult", "fit_joint", "fit_marker", "fit_two_stage", "newton_polish", "observed_information",
-           "start_hazards"]
+__all__ = [
+    "FitResult",
+    "fit_joint",
+    "fit_marker",
+    "fit_two_stage",
+    "newton_polish",
+    "observed_information",
+    "start_hazards",
+]
 
 Objective = Callable[[np.ndarray], tuple[float, np.ndarray]]
 
@@ -45,8 +52,9 @@ class FitResult:
     message: str
 
 
-def _maximise(objective: Objective, start: np.ndarray, scale: float, max_iter: int, method: str = "L-BFGS-B"
-              ) -> FitResult:
+def _maximise(
+    objective: Objective, start: np.ndarray, scale: float, max_iter: int, method: str = "L-BFGS-B"
+) -> FitResult:
     """Maximise ``objective`` (returns log-likelihood and gradient) from ``start``; ``scale`` divides both."""
 
     def negative(theta: np.ndarray) -> tuple[float, np.ndarray]:
@@ -55,11 +63,15 @@ def _maximise(objective: Objective, start: np.ndarray, scale: float, max_iter: i
             return np.inf, np.zeros_like(theta)
         return -ll / scale, -grad / scale
 
-    options = {"maxiter": max_iter, "gtol": 1e-9} if method == "BFGS" else {
-        "maxiter": max_iter, "maxcor": 30, "ftol": 1e-14, "gtol": 1e-8}
+    options = (
+        {"maxiter": max_iter, "gtol": 1e-9}
+        if method == "BFGS"
+        else {"maxiter": max_iter, "maxcor": 30, "ftol": 1e-14, "gtol": 1e-8}
+    )
     result = minimize(negative, start, jac=True, method=method, options=options)
-    return FitResult(np.asarray(result.x), float(-result.fun * scale), int(result.nit), bool(result.success),
-                     str(result.message))
+    return FitResult(
+        np.asarray(result.x), float(-result.fun * scale), int(result.nit), bool(result.success), str(result.message)
+    )
 
 
 def marker_start(arrays: JointArrays, layout: ParameterLayout) -> np.ndarray:
@@ -80,8 +92,9 @@ def marker_start(arrays: JointArrays, layout: ParameterLayout) -> np.ndarray:
 def fit_marker(arrays: JointArrays, layout: ParameterLayout, max_iter: int) -> FitResult:
     """Maximum-likelihood (not REML) fit of the linear mixed submodel alone (exact likelihood)."""
     start = marker_start(arrays, layout)
-    result = _maximise(lambda th: marker_loglik(th, arrays, layout), start, float(arrays.n_patients), max_iter,
-                       method="BFGS")
+    result = _maximise(
+        lambda th: marker_loglik(th, arrays, layout), start, float(arrays.n_patients), max_iter, method="BFGS"
+    )
     return result
 
 
@@ -94,12 +107,18 @@ def start_hazards(arrays: JointArrays, layout: ParameterLayout, knots: np.ndarra
     for c, cause in enumerate(arrays.causes):
         sl_h, _, _ = layout.cause_slices(c)
         events = np.bincount(arrays.piece, weights=cause.event, minlength=layout.n_pieces)
-        theta[sl_h.start - offset: sl_h.stop - offset] = np.log((events + 0.5) / np.maximum(exposure, 1e-9))
+        theta[sl_h.start - offset : sl_h.stop - offset] = np.log((events + 0.5) / np.maximum(exposure, 1e-9))
     return theta
 
 
-def fit_two_stage(arrays: JointArrays, layout: ParameterLayout, marker_theta: np.ndarray, centre: np.ndarray,
-                  knots: np.ndarray, max_iter: int) -> FitResult:
+def fit_two_stage(
+    arrays: JointArrays,
+    layout: ParameterLayout,
+    marker_theta: np.ndarray,
+    centre: np.ndarray,
+    knots: np.ndarray,
+    max_iter: int,
+) -> FitResult:
     """Hazard parameters with the marker parameters fixed and ``b_i`` fixed at ``centre`` (posterior means)."""
     points = centre[:, None, :]
     log_weight = np.zeros((arrays.n_patients, 1))
@@ -115,9 +134,17 @@ def fit_two_stage(arrays: JointArrays, layout: ParameterLayout, marker_theta: np
     return FitResult(theta, result.loglik, result.iterations, result.converged, result.message)
 
 
-def fit_joint(arrays: JointArrays, layout: ParameterLayout, start: np.ndarray, centre: np.ndarray,
-              covariance: np.ndarray, *, hermite_points: int, adaptive_rounds: int, max_iter: int
-              ) -> tuple[FitResult, np.ndarray, np.ndarray]:
+def fit_joint(
+    arrays: JointArrays,
+    layout: ParameterLayout,
+    start: np.ndarray,
+    centre: np.ndarray,
+    covariance: np.ndarray,
+    *,
+    hermite_points: int,
+    adaptive_rounds: int,
+    max_iter: int,
+) -> tuple[FitResult, np.ndarray, np.ndarray]:
     """Joint maximum likelihood with pseudo-adaptive Gauss–Hermite nodes.
 
     Returns the fit and the nodes and log weights it was maximised with (kept for the information matrix).
@@ -138,8 +165,9 @@ def fit_joint(arrays: JointArrays, layout: ParameterLayout, start: np.ndarray, c
     return result, points, log_weight
 
 
-def _joint_objective(arrays: JointArrays, layout: ParameterLayout, points: np.ndarray, log_weight: np.ndarray
-                     ) -> Objective:
+def _joint_objective(
+    arrays: JointArrays, layout: ParameterLayout, points: np.ndarray, log_weight: np.ndarray
+) -> Objective:
     def objective(theta: np.ndarray) -> tuple[float, np.ndarray]:
         ll, grad, _ = joint_loglik(theta, arrays, layout, points, log_weight)
         return ll, grad
@@ -162,8 +190,9 @@ def observed_information(gradient: Callable[[np.ndarray], np.ndarray], theta: np
     return -0.5 * (hessian + hessian.T)
 
 
-def newton_polish(objective: Objective, theta: np.ndarray, information: np.ndarray, steps: int = 3
-                  ) -> tuple[np.ndarray, float]:
+def newton_polish(
+    objective: Objective, theta: np.ndarray, information: np.ndarray, steps: int = 3
+) -> tuple[np.ndarray, float]:
     """A few Newton–Raphson steps with step halving from an optimiser's answer (sharpens the optimum).
 
     Returns the improved ``θ`` and its log-likelihood; a step that does not raise the likelihood is not taken.
@@ -190,8 +219,9 @@ def newton_polish(objective: Objective, theta: np.ndarray, information: np.ndarr
     return theta, ll
 
 
-def marker_only_posterior(arrays: JointArrays, layout: ParameterLayout, theta: np.ndarray
-                          ) -> tuple[np.ndarray, np.ndarray]:
+def marker_only_posterior(
+    arrays: JointArrays, layout: ParameterLayout, theta: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     """Posterior mean and covariance of ``b`` under the marker model at ``θ``."""
     beta, sigma, chol = layout.marker_parts(theta)
     return marker_posterior(arrays, beta, sigma, chol)

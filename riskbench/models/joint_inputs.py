@@ -38,8 +38,7 @@ def _require(table: pd.DataFrame, columns: Sequence[str]) -> None:
         )
 
 
-def measurements_from_counting_process(table: pd.DataFrame, marker: str, staleness: str | None = None
-                                       ) -> pd.DataFrame:
+def measurements_from_counting_process(table: pd.DataFrame, marker: str, staleness: str | None = None) -> pd.DataFrame:
     """Measurement table (``patient_id, time`` in days since entry, ``marker``) of a counting-process table."""
     staleness = staleness or staleness_column(marker)
     _require(table, ("patient_id", "start", marker, staleness))
@@ -47,8 +46,13 @@ def measurements_from_counting_process(table: pd.DataFrame, marker: str, stalene
     age = pd.to_numeric(table[staleness], errors="coerce")
     known = value.notna() & age.notna()
     times = np.clip(pd.to_numeric(table["start"], errors="coerce")[known] - age[known], 0.0, None)
-    out = pd.DataFrame({"patient_id": table["patient_id"][known].to_numpy(), "time": times.to_numpy(dtype=float),
-                        marker: value[known].to_numpy(dtype=float)})
+    out = pd.DataFrame(
+        {
+            "patient_id": table["patient_id"][known].to_numpy(),
+            "time": times.to_numpy(dtype=float),
+            marker: value[known].to_numpy(dtype=float),
+        }
+    )
     return out.drop_duplicates(["patient_id", "time"], keep="first", ignore_index=True)
 
 
@@ -59,8 +63,13 @@ def survival_from_counting_process(table: pd.DataFrame, covariates: Sequence[str
     grouped = order.groupby("patient_id", sort=False)
     last = grouped[["stop", "status"]].last()
     first = grouped[list(covariates)].first() if covariates else pd.DataFrame(index=last.index)
-    out = pd.DataFrame({"patient_id": last.index.to_numpy(), "time": last["stop"].to_numpy(dtype=float),
-                        "status": last["status"].to_numpy()})
+    out = pd.DataFrame(
+        {
+            "patient_id": last.index.to_numpy(),
+            "time": last["stop"].to_numpy(dtype=float),
+            "status": last["status"].to_numpy(),
+        }
+    )
     for column in covariates:
         out[column] = first[column].to_numpy()
     return out

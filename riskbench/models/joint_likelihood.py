@@ -29,8 +29,15 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.special import logsumexp
 
-__all__ = ["CauseArrays", "JointArrays", "MarkerSums", "ParameterLayout", "joint_loglik", "marker_loglik",
-           "marker_posterior"]
+__all__ = [
+    "CauseArrays",
+    "JointArrays",
+    "MarkerSums",
+    "ParameterLayout",
+    "joint_loglik",
+    "marker_loglik",
+    "marker_posterior",
+]
 
 _LOG_2PI = math.log(2.0 * math.pi)
 _ETA_CAP = 600.0  # exp() argument cap: keeps a wild trial step of the optimiser finite
@@ -108,8 +115,11 @@ class ParameterLayout:
         for q, a in self.cause_sizes[:c]:
             start += self.n_pieces + q + a
         q, a = self.cause_sizes[c]
-        return (slice(start, start + self.n_pieces), slice(start + self.n_pieces, start + self.n_pieces + q),
-                slice(start + self.n_pieces + q, start + self.n_pieces + q + a))
+        return (
+            slice(start, start + self.n_pieces),
+            slice(start + self.n_pieces, start + self.n_pieces + q),
+            slice(start + self.n_pieces + q, start + self.n_pieces + q + a),
+        )
 
     @property
     def size(self) -> int:
@@ -129,8 +139,9 @@ def _residual_stats(arrays: MarkerSums, beta: np.ndarray) -> tuple[np.ndarray, n
     return rr, zr
 
 
-def marker_posterior(arrays: MarkerSums, beta: np.ndarray, sigma: float, chol: np.ndarray
-                     ) -> tuple[np.ndarray, np.ndarray]:
+def marker_posterior(
+    arrays: MarkerSums, beta: np.ndarray, sigma: float, chol: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     """Posterior mean ``μ_i`` (n, 2) and covariance ``Σ_i`` (n, 2, 2) of ``b`` given the marker alone."""
     d_inv = np.linalg.inv(chol @ chol.T)
     precision = d_inv[None] + arrays.zz / sigma**2
@@ -140,8 +151,15 @@ def marker_posterior(arrays: MarkerSums, beta: np.ndarray, sigma: float, chol: n
     return mean, cov
 
 
-def _marker_gradient(arrays: JointArrays, theta: np.ndarray, layout: ParameterLayout, m1: np.ndarray,
-                     m2: np.ndarray, rr: np.ndarray, zr: np.ndarray) -> np.ndarray:
+def _marker_gradient(
+    arrays: JointArrays,
+    theta: np.ndarray,
+    layout: ParameterLayout,
+    m1: np.ndarray,
+    m2: np.ndarray,
+    rr: np.ndarray,
+    zr: np.ndarray,
+) -> np.ndarray:
     """Gradient of the longitudinal parameters given each patient's moments ``E b`` (n,2) and ``E bbᵀ``."""
     beta, sigma, chol = layout.marker_parts(theta)
     p = layout.n_fixed
@@ -172,8 +190,13 @@ def marker_loglik(theta: np.ndarray, arrays: JointArrays, layout: ParameterLayou
     u = np.linalg.solve(chol, mean.T)
     log_det_l = math.log(chol[0, 0]) + math.log(chol[1, 1])
     _, log_det_cov = np.linalg.slogdet(cov)
-    ll = (-0.5 * arrays.n_obs * (_LOG_2PI + math.log(s2)) - 0.5 * rss / s2
-          - log_det_l - 0.5 * np.sum(u**2, axis=0) + 0.5 * log_det_cov)
+    ll = (
+        -0.5 * arrays.n_obs * (_LOG_2PI + math.log(s2))
+        - 0.5 * rss / s2
+        - log_det_l
+        - 0.5 * np.sum(u**2, axis=0)
+        + 0.5 * log_det_cov
+    )
     m2 = cov + np.einsum("ni,nj->nij", mean, mean)
     grad = _marker_gradient(arrays, theta, layout, mean, m2, rr, zr)
     return float(ll.sum()), grad
@@ -218,13 +241,23 @@ def joint_loglik(
     s2 = sigma**2
     rr, zr = _residual_stats(arrays, beta)
     b0, b1 = points[..., 0], points[..., 1]
-    rss = (rr[:, None] - 2.0 * (b0 * zr[:, :1] + b1 * zr[:, 1:])
-           + b0**2 * arrays.zz[:, None, 0, 0] + 2 * b0 * b1 * arrays.zz[:, None, 0, 1]
-           + b1**2 * arrays.zz[:, None, 1, 1])
+    rss = (
+        rr[:, None]
+        - 2.0 * (b0 * zr[:, :1] + b1 * zr[:, 1:])
+        + b0**2 * arrays.zz[:, None, 0, 0]
+        + 2 * b0 * b1 * arrays.zz[:, None, 0, 1]
+        + b1**2 * arrays.zz[:, None, 1, 1]
+    )
     u0 = b0 / chol[0, 0]
     u1 = (b1 - chol[1, 0] * u0) / chol[1, 1]
-    total = (log_weight - 0.5 * arrays.n_obs[:, None] * (_LOG_2PI + math.log(s2)) - 0.5 * rss / s2
-             - _LOG_2PI - math.log(chol[0, 0] * chol[1, 1]) - 0.5 * (u0**2 + u1**2))
+    total = (
+        log_weight
+        - 0.5 * arrays.n_obs[:, None] * (_LOG_2PI + math.log(s2))
+        - 0.5 * rss / s2
+        - _LOG_2PI
+        - math.log(chol[0, 0] * chol[1, 1])
+        - 0.5 * (u0**2 + u1**2)
+    )
 
     fixed_nodes = arrays.design_nodes @ beta  # (n, K, G)
     slope_fixed = arrays.slope_nodes @ beta
@@ -234,8 +267,11 @@ def joint_loglik(
 
     def node_marker(term: str) -> np.ndarray:
         if term not in cached:
-            cached[term] = (_marker_at(fixed_nodes, points, arrays.times) if term == "value"
-                            else slope_fixed[:, None] + b1[:, :, None, None])
+            cached[term] = (
+                _marker_at(fixed_nodes, points, arrays.times)
+                if term == "value"
+                else slope_fixed[:, None] + b1[:, :, None, None]
+            )
         return cached[term]
 
     end_marker = {"value": fixed_end[:, None] + b0 + b1 * arrays.end[:, None], "slope": slope_end[:, None] + b1}
@@ -271,7 +307,8 @@ def joint_loglik(
         q_post = post if hazard_nodes.shape[1] > 1 else np.ones((len(post), 1))
         weighted = np.einsum("nq,nqkg->nkg", q_post, hazard_nodes)  # posterior-averaged node hazards
         grad[sl_h] = np.bincount(arrays.piece, weights=cause.event, minlength=layout.n_pieces) - weighted.sum(
-            axis=(0, 2))
+            axis=(0, 2)
+        )
         expected_cumhaz = (q_post * cumhaz).sum(axis=1)
         grad[sl_g] = cause.covariates.T @ (cause.event - expected_cumhaz)
         beta_direction = np.zeros(arrays.design_nodes.shape[:3] + (layout.n_fixed,))
@@ -280,8 +317,9 @@ def joint_loglik(
             at_end = (post * end_marker[term]).sum(axis=1)
             at_nodes = np.einsum("nq,nqkg,nqkg->", q_post, hazard_nodes, node_marker(term))
             grad[sl_a.start + j] = float(cause.event @ at_end - at_nodes)
-            design, design_end = ((arrays.design_nodes, arrays.design_end) if term == "value"
-                                  else (arrays.slope_nodes, arrays.slope_end))
+            design, design_end = (
+                (arrays.design_nodes, arrays.design_end) if term == "value" else (arrays.slope_nodes, arrays.slope_end)
+            )
             beta_direction += a * design
             beta_end += a * design_end
         if cause.terms:

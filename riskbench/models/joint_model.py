@@ -64,7 +64,10 @@ __all__ = ["ASSOCIATIONS", "JointModel"]
 
 #: Marker terms of the outcome hazard for each ``association`` value.
 ASSOCIATIONS: dict[str, tuple[str, ...]] = {
-    "value": ("value",), "slope": ("slope",), "value_slope": ("value", "slope"), "none": (),
+    "value": ("value",),
+    "slope": ("slope",),
+    "value_slope": ("value", "slope"),
+    "none": (),
 }
 _CELLS_PER_CHUNK = 3_000_000
 
@@ -166,9 +169,16 @@ class JointModel(BaseEstimator):
     def _check_params(self) -> None:
         if self.association not in ASSOCIATIONS:
             raise ModelInputError(f"association must be one of {sorted(ASSOCIATIONS)}, got {self.association!r}")
-        for name, low in (("baseline_pieces", 1), ("hermite_points", 1), ("legendre_points", 1),
-                          ("adaptive_rounds", 1), ("max_iter", 1), ("prediction_draws", 1), ("grid_steps", 1),
-                          ("time_knots", 0)):
+        for name, low in (
+            ("baseline_pieces", 1),
+            ("hermite_points", 1),
+            ("legendre_points", 1),
+            ("adaptive_rounds", 1),
+            ("max_iter", 1),
+            ("prediction_draws", 1),
+            ("grid_steps", 1),
+            ("time_knots", 0),
+        ):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
                 raise ModelInputError(f"{name} must be an integer >= {low}, got {value!r}")
@@ -212,24 +222,39 @@ class JointModel(BaseEstimator):
         cause_x = [covariate_block(survival, list(c), "survival table") for c in cause_covariates]
         marker_means = marker_x.mean(axis=0)
         cause_means = tuple(x.mean(axis=0) for x in cause_x)
-        history = marker_history(measurements, ids, time_column=self.measurement_time, marker=self.marker,
-                                 end_years=end)
+        history = marker_history(
+            measurements, ids, time_column=self.measurement_time, marker=self.marker, end_years=end
+        )
         if (status == 1).sum() == 0:
             raise ModelInputError("survival table has no outcome (status 1); the joint model needs events to fit")
         if len(history.time) == 0:
             raise ModelInputError("measurement table has no rows; the joint model needs marker measurements")
         basis = TimeBasis.from_times(history.time, int(self.time_knots))
         event_times = end[status > 0]
-        knots = np.unique(np.concatenate(
-            [[0.0], np.quantile(event_times, np.arange(1, self.baseline_pieces) / self.baseline_pieces)]))
+        knots = np.unique(
+            np.concatenate([[0.0], np.quantile(event_times, np.arange(1, self.baseline_pieces) / self.baseline_pieces)])
+        )
         knots = knots[(knots == 0) | (knots < event_times.max())]
-        layout = ParameterLayout(1 + basis.n_columns + marker_x.shape[1], len(knots),
-                                 tuple((x.shape[1], len(t)) for x, t in zip(cause_x, cause_terms)))
+        layout = ParameterLayout(
+            1 + basis.n_columns + marker_x.shape[1],
+            len(knots),
+            tuple((x.shape[1], len(t)) for x, t in zip(cause_x, cause_terms)),
+        )
         centred = [x - m for x, m in zip(cause_x, cause_means)]
-        arrays = build_arrays(history, end, status, marker_x - marker_means, centred, cause_terms, basis, knots,
-                              int(self.legendre_points))
-        self.structure_ = JointStructure(layout, basis, knots, cause_terms, tuple(self.marker_covariates),
-                                         cause_covariates, marker_means, cause_means, int(self.legendre_points))
+        arrays = build_arrays(
+            history, end, status, marker_x - marker_means, centred, cause_terms, basis, knots, int(self.legendre_points)
+        )
+        self.structure_ = JointStructure(
+            layout,
+            basis,
+            knots,
+            cause_terms,
+            tuple(self.marker_covariates),
+            cause_covariates,
+            marker_means,
+            cause_means,
+            int(self.legendre_points),
+        )
         timings["prepare"] = clock.perf_counter() - started
 
         started = clock.perf_counter()
@@ -244,8 +269,15 @@ class JointModel(BaseEstimator):
 
         started = clock.perf_counter()
         result, points, log_weight = fit_joint(
-            arrays, layout, two_stage.theta, centre, covariance, hermite_points=int(self.hermite_points),
-            adaptive_rounds=int(self.adaptive_rounds), max_iter=int(self.max_iter))
+            arrays,
+            layout,
+            two_stage.theta,
+            centre,
+            covariance,
+            hermite_points=int(self.hermite_points),
+            adaptive_rounds=int(self.adaptive_rounds),
+            max_iter=int(self.max_iter),
+        )
         timings["joint"] = clock.perf_counter() - started
 
         started = clock.perf_counter()
@@ -261,8 +293,14 @@ class JointModel(BaseEstimator):
         self._store_history(ids, history)
         return self
 
-    def _finish(self, arrays: JointArrays, layout: ParameterLayout, theta: np.ndarray, points: np.ndarray,
-                log_weight: np.ndarray) -> None:
+    def _finish(
+        self,
+        arrays: JointArrays,
+        layout: ParameterLayout,
+        theta: np.ndarray,
+        points: np.ndarray,
+        log_weight: np.ndarray,
+    ) -> None:
         """Observed information, Newton polish, covariance."""
 
         def objective(th: np.ndarray) -> tuple[float, np.ndarray]:
@@ -298,8 +336,7 @@ class JointModel(BaseEstimator):
         """
         self._check_fitted()
         ids = pd.unique(measurements["patient_id"]) if "patient_id" in measurements.columns else np.array([])
-        history = marker_history(measurements, np.asarray(ids), time_column=self.measurement_time,
-                                 marker=self.marker)
+        history = marker_history(measurements, np.asarray(ids), time_column=self.measurement_time, marker=self.marker)
         self._store_history(np.asarray(ids), history)
         return self
 
@@ -312,8 +349,9 @@ class JointModel(BaseEstimator):
         structure = self.structure_
         landmark = prediction_origin(table) / DAYS_PER_YEAR
         if "patient_id" not in table.columns:
-            raise ModelInputError("prediction table lacks 'patient_id'; the joint model finds each row's "
-                                  "measurement history by it")
+            raise ModelInputError(
+                "prediction table lacks 'patient_id'; the joint model finds each row's measurement history by it"
+            )
         ids, stored = self.history_ids_, self.history_
         if measurements is not None:
             ids = np.asarray(pd.unique(measurements["patient_id"]))
@@ -323,16 +361,19 @@ class JointModel(BaseEstimator):
         row_patient = pd.Index(ids).get_indexer(table["patient_id"].to_numpy())
         history = rows_history(stored, row_patient, landmark)
         marker_x = covariate_block(table, list(structure.marker_covariates), "prediction table")
-        cause_x = tuple(covariate_block(table, list(c), "prediction table") - m
-                        for c, m in zip(structure.cause_covariates, structure.cause_means))
+        cause_x = tuple(
+            covariate_block(table, list(c), "prediction table") - m
+            for c, m in zip(structure.cause_covariates, structure.cause_means)
+        )
         return PredictionRows(landmark, history, marker_x - structure.marker_means, cause_x)
 
     def _chunks(self, n_rows: int, width: int) -> list[slice]:
         size = max(1, _CELLS_PER_CHUNK // max(1, int(self.prediction_draws) * width))
         return [slice(i, min(i + size, n_rows)) for i in range(0, n_rows, size)]
 
-    def predict_curve(self, table: pd.DataFrame, times: Sequence[float] | np.ndarray, *,
-                      measurements: pd.DataFrame | None = None) -> np.ndarray:
+    def predict_curve(
+        self, table: pd.DataFrame, times: Sequence[float] | np.ndarray, *, measurements: pd.DataFrame | None = None
+    ) -> np.ndarray:
         """Risk of the outcome in ``(s, s + t]`` for each row and each ``t`` in ``times`` (days).
 
         ``measurements`` (columns as in :meth:`fit`) replaces the stored history for this call.
@@ -352,18 +393,27 @@ class JointModel(BaseEstimator):
         for part in self._chunks(len(rows), width):
             sub = rows.subset(part)
             draws, weights = posterior_draws(self.structure_, self.theta_, sub, int(self.prediction_draws), rng)
-            out[part] = risk_given_draws(self.structure_, self.theta_, sub, draws, weights, horizons,
-                                         int(self.grid_steps))
+            out[part] = risk_given_draws(
+                self.structure_, self.theta_, sub, draws, weights, horizons, int(self.grid_steps)
+            )
         return np.clip(out, 0.0, 1.0)
 
-    def predict_risk(self, table: pd.DataFrame, horizon: float, *, measurements: pd.DataFrame | None = None
-                     ) -> np.ndarray:
+    def predict_risk(
+        self, table: pd.DataFrame, horizon: float, *, measurements: pd.DataFrame | None = None
+    ) -> np.ndarray:
         """Probability of the outcome in ``(s, s + horizon]`` (days) for each row (see the module docstring)."""
         self._check_fitted()
         return self.predict_curve(table, [check_horizon(horizon)], measurements=measurements)[:, 0]
 
-    def dynamic_prediction(self, table: pd.DataFrame, horizons: Sequence[float], *, parameter_draws: int = 200,
-                           draws_per_parameter: int = 50, seed: int | None = None) -> pd.DataFrame:
+    def dynamic_prediction(
+        self,
+        table: pd.DataFrame,
+        horizons: Sequence[float],
+        *,
+        parameter_draws: int = 200,
+        draws_per_parameter: int = 50,
+        seed: int | None = None,
+    ) -> pd.DataFrame:
         """Rizopoulos' (2011) Monte Carlo dynamic prediction with parameter uncertainty, for a few rows.
 
         For each of ``parameter_draws`` draws ``θ⁽ᵐ⁾ ~ N(θ̂, covariance_)`` the risk is averaged over
@@ -379,21 +429,29 @@ class JointModel(BaseEstimator):
         for m in range(parameter_draws):
             theta = self.theta_ + chol @ rng.standard_normal(len(self.theta_))
             draws, weights = posterior_draws(self.structure_, theta, rows, draws_per_parameter, rng)
-            risks[m] = risk_given_draws(self.structure_, theta, rows, draws, weights, horizons_years,
-                                        int(self.grid_steps))
+            risks[m] = risk_given_draws(
+                self.structure_, theta, rows, draws, weights, horizons_years, int(self.grid_steps)
+            )
         records = []
         for i in range(len(rows)):
             for h, horizon in enumerate(horizons):
                 values = risks[:, i, h]
-                records.append({"row": i, "landmark_days": rows.landmark[i] * DAYS_PER_YEAR,
-                                "horizon_days": float(horizon), "risk_mean": float(values.mean()),
-                                "risk_median": float(np.median(values)),
-                                "risk_lower_95": float(np.quantile(values, 0.025)),
-                                "risk_upper_95": float(np.quantile(values, 0.975))})
+                records.append(
+                    {
+                        "row": i,
+                        "landmark_days": rows.landmark[i] * DAYS_PER_YEAR,
+                        "horizon_days": float(horizon),
+                        "risk_mean": float(values.mean()),
+                        "risk_median": float(np.median(values)),
+                        "risk_lower_95": float(np.quantile(values, 0.025)),
+                        "risk_upper_95": float(np.quantile(values, 0.975)),
+                    }
+                )
         return pd.DataFrame.from_records(records)
 
-    def marker_trajectory(self, table: pd.DataFrame, times: Sequence[float] | np.ndarray, level: float = 0.95
-                          ) -> pd.DataFrame:
+    def marker_trajectory(
+        self, table: pd.DataFrame, times: Sequence[float] | np.ndarray, level: float = 0.95
+    ) -> pd.DataFrame:
         """Predicted true marker value (posterior mean and pointwise band) at ``times`` (days since entry).
 
         Each row uses its measurements up to its landmark and its survival to the landmark.
@@ -405,9 +463,15 @@ class JointModel(BaseEstimator):
         grid = np.asarray(times, dtype=float) / DAYS_PER_YEAR
         mean, lower, upper = marker_band(self.structure_, self.theta_, rows, draws, weights, grid, level)
         n, t = mean.shape
-        return pd.DataFrame({"row": np.repeat(np.arange(n), t), "time_days": np.tile(grid * DAYS_PER_YEAR, n),
-                             "marker_mean": mean.ravel(), "marker_lower": lower.ravel(),
-                             "marker_upper": upper.ravel()})
+        return pd.DataFrame(
+            {
+                "row": np.repeat(np.arange(n), t),
+                "time_days": np.tile(grid * DAYS_PER_YEAR, n),
+                "marker_mean": mean.ravel(),
+                "marker_lower": lower.ravel(),
+                "marker_upper": upper.ravel(),
+            }
+        )
 
     # ------------------------------------------------------------------ reporting
     def summary(self, level: float = 0.95) -> pd.DataFrame:
@@ -425,8 +489,13 @@ class JointModel(BaseEstimator):
         se = np.sqrt(np.clip(np.diag(self.covariance_), 0.0, None))
         rows = [{"parameter": n, "estimate": e, "std_error": s} for n, e, s in zip(names, self.theta_, se)]
         for name, value, grad in self._variance_components():
-            rows.append({"parameter": name, "estimate": value,
-                         "std_error": float(np.sqrt(max(grad @ self.covariance_ @ grad, 0.0)))})
+            rows.append(
+                {
+                    "parameter": name,
+                    "estimate": value,
+                    "std_error": float(np.sqrt(max(grad @ self.covariance_ @ grad, 0.0))),
+                }
+            )
         out = pd.DataFrame.from_records(rows)
         out["ci_lower"] = out["estimate"] - z * out["std_error"]
         out["ci_upper"] = out["estimate"] + z * out["std_error"]
@@ -447,8 +516,12 @@ class JointModel(BaseEstimator):
             e = np.zeros(len(self.theta_))
             e[j] = 1e-6
             jac[:, j] = (components(self.theta_ + e) - components(self.theta_ - e)) / 2e-6
-        labels = ("marker: residual SD", "marker: random-intercept SD", "marker: random-slope SD per year",
-                  "marker: random intercept-slope correlation")
+        labels = (
+            "marker: residual SD",
+            "marker: random-intercept SD",
+            "marker: random-slope SD per year",
+            "marker: random intercept-slope correlation",
+        )
         return [(label, float(v), jac[k]) for k, (label, v) in enumerate(zip(labels, value))]
 
     def coefficient(self, name: str) -> tuple[float, float]:

@@ -78,8 +78,9 @@ def rows_history(history: History, row_patient: np.ndarray, landmark: np.ndarray
     return History(rows, history.time[position], history.value[position])
 
 
-def _marker_values(structure: JointStructure, theta: np.ndarray, marker_x: np.ndarray, draws: np.ndarray,
-                   times: np.ndarray, term: str) -> np.ndarray:
+def _marker_values(
+    structure: JointStructure, theta: np.ndarray, marker_x: np.ndarray, draws: np.ndarray, times: np.ndarray, term: str
+) -> np.ndarray:
     """Marker value or slope at ``times`` (R, ...) for every draw (R, K, 2) -> (R, K, ...)."""
     beta = theta[: structure.layout.n_fixed]
     extra = times.ndim - 1
@@ -91,8 +92,9 @@ def _marker_values(structure: JointStructure, theta: np.ndarray, marker_x: np.nd
     return (slope @ beta)[:, None] + draws[..., 1][expand]
 
 
-def _log_hazard(structure: JointStructure, theta: np.ndarray, rows: PredictionRows, c: int, draws: np.ndarray,
-                times: np.ndarray) -> np.ndarray:
+def _log_hazard(
+    structure: JointStructure, theta: np.ndarray, rows: PredictionRows, c: int, draws: np.ndarray, times: np.ndarray
+) -> np.ndarray:
     """Log cause-specific hazard of cause ``c`` at ``times`` (R, ...) for each draw -> (R, K, ...)."""
     sl_h, sl_g, sl_a = structure.layout.cause_slices(c)
     extra = times.ndim - 1
@@ -103,8 +105,9 @@ def _log_hazard(structure: JointStructure, theta: np.ndarray, rows: PredictionRo
     return np.minimum(out, _ETA_CAP)
 
 
-def posterior_draws(structure: JointStructure, theta: np.ndarray, rows: PredictionRows, n_draws: int,
-                    rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+def posterior_draws(
+    structure: JointStructure, theta: np.ndarray, rows: PredictionRows, n_draws: int, rng: np.random.Generator
+) -> tuple[np.ndarray, np.ndarray]:
     """Draws of ``b`` (R, K, 2) and their normalised importance weights (R, K) given ``T > s`` and ``Y(s)``."""
     n = len(rows)
     beta, sigma, chol = structure.layout.marker_parts(theta)
@@ -123,8 +126,15 @@ def posterior_draws(structure: JointStructure, theta: np.ndarray, rows: Predicti
     return draws, w / w.sum(axis=1, keepdims=True)
 
 
-def risk_given_draws(structure: JointStructure, theta: np.ndarray, rows: PredictionRows, draws: np.ndarray,
-                     weights: np.ndarray, horizons: np.ndarray, grid_steps: int) -> np.ndarray:
+def risk_given_draws(
+    structure: JointStructure,
+    theta: np.ndarray,
+    rows: PredictionRows,
+    draws: np.ndarray,
+    weights: np.ndarray,
+    horizons: np.ndarray,
+    grid_steps: int,
+) -> np.ndarray:
     """Weighted mean over draws of the outcome's cumulative incidence over ``(s, s + h]`` -> (R, len(h))."""
     horizons = np.asarray(horizons, dtype=float)
     top = float(horizons.max()) if len(horizons) else 0.0
@@ -133,16 +143,24 @@ def risk_given_draws(structure: JointStructure, theta: np.ndarray, rows: Predict
     edges = np.unique(np.concatenate([np.linspace(0.0, top, grid_steps + 1), horizons, [0.0]]))
     mids, width = 0.5 * (edges[1:] + edges[:-1]), np.diff(edges)
     times = rows.landmark[:, None] + mids[None, :]  # (R, J)
-    increments = [np.exp(_log_hazard(structure, theta, rows, c, draws, times)) * width
-                  for c in range(len(structure.cause_terms))]
+    increments = [
+        np.exp(_log_hazard(structure, theta, rows, c, draws, times)) * width for c in range(len(structure.cause_terms))
+    ]
     incidence = cumulative_incidence(increments[0], increments[1] if len(increments) > 1 else None)
     incidence = np.concatenate([np.zeros(incidence.shape[:-1] + (1,)), incidence], axis=-1)  # at each edge
     at = np.searchsorted(edges, horizons)
     return np.einsum("nk,nkh->nh", weights, incidence[..., at])
 
 
-def marker_band(structure: JointStructure, theta: np.ndarray, rows: PredictionRows, draws: np.ndarray,
-                weights: np.ndarray, times: np.ndarray, level: float = 0.95) -> tuple[np.ndarray, ...]:
+def marker_band(
+    structure: JointStructure,
+    theta: np.ndarray,
+    rows: PredictionRows,
+    draws: np.ndarray,
+    weights: np.ndarray,
+    times: np.ndarray,
+    level: float = 0.95,
+) -> tuple[np.ndarray, ...]:
     """Posterior mean and pointwise band of the true marker value at ``times`` (years) for each row.
 
     Returns mean, lower and upper, each (R, len(times)); the band is the weighted ``level`` quantile range of
@@ -153,8 +171,9 @@ def marker_band(structure: JointStructure, theta: np.ndarray, rows: PredictionRo
     mean = np.einsum("nk,nkt->nt", weights, values)
     order = np.argsort(values, axis=1)
     sorted_values = np.take_along_axis(values, order, axis=1)
-    cumulative = np.cumsum(np.take_along_axis(np.broadcast_to(weights[:, :, None], values.shape), order, axis=1),
-                           axis=1)
+    cumulative = np.cumsum(
+        np.take_along_axis(np.broadcast_to(weights[:, :, None], values.shape), order, axis=1), axis=1
+    )
     tail = (1.0 - level) / 2
 
     def quantile(prob: float) -> np.ndarray:

@@ -78,8 +78,9 @@ def piece_index(knots: np.ndarray, times: np.ndarray) -> np.ndarray:
     return np.clip(np.searchsorted(knots, times, side="left") - 1, 0, len(knots) - 1)
 
 
-def legendre_pieces(ends: np.ndarray, knots: np.ndarray, n_points: int,
-                    starts: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+def legendre_pieces(
+    ends: np.ndarray, knots: np.ndarray, n_points: int, starts: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Gauss–Legendre nodes over ``[start_i, end_i]`` split at the knots of a piecewise-constant hazard.
 
     Parameters

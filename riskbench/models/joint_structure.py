@@ -51,13 +51,18 @@ class JointStructure:
         """A readable name for every entry of ``θ``."""
         names = ["marker: intercept (at covariate means)"] + [f"marker: {c}" for c in self.basis.names()]
         names += [f"marker: {c}" for c in self.marker_covariates]
-        names += ["marker: log residual SD", "marker: log random-intercept scale (L11)",
-                  "marker: random-effects L21", "marker: log random-slope scale (L22)"]
+        names += [
+            "marker: log residual SD",
+            "marker: log random-intercept scale (L11)",
+            "marker: random-effects L21",
+            "marker: log random-slope scale (L22)",
+        ]
         upper = list(self.knots[1:]) + [np.inf]
         for label, terms, covariates in zip(("outcome", "competing"), self.cause_terms, self.cause_covariates):
             for lo, hi in zip(self.knots, upper):
                 names.append(f"{label}: log baseline hazard per year, ({lo:.3g}, {hi:.3g}] years")
             names += [f"{label}: {c}" for c in covariates]
-            names += [f"{label}: association, current marker {'value' if t == 'value' else 'slope per year'}"
-                      for t in terms]
+            names += [
+                f"{label}: association, current marker {'value' if t == 'value' else 'slope per year'}" for t in terms
+            ]
         return names

@@ -107,8 +107,13 @@ def _fit_cox_arrays(
     sandwich variance by ``cluster``).
     """
     fit = fit_cox(design, time, event, strata=strata, cluster=cluster, ties=ties, names=names)
-    return (np.asarray(fit.coef), np.asarray(fit.var), np.asarray(fit.robust_var), float(fit.loglik),
-            float(fit.loglik_null))
+    return (
+        np.asarray(fit.coef),
+        np.asarray(fit.var),
+        np.asarray(fit.robust_var),
+        float(fit.loglik),
+        float(fit.loglik_null),
+    )
 
 
 def _breslow_increments(
@@ -261,6 +266,7 @@ class LandmarkSupermodel(BaseEstimator):
             )
         except CoxInputError as exc:
             # say which cause-specific model failed; callers restate it with the model's name
+            exc.cause = label
             exc.args = (f"{label} model: {exc.args[0] if exc.args else exc}",)
             raise
         means = design.mean(axis=0)
@@ -338,8 +344,13 @@ class LandmarkSupermodel(BaseEstimator):
         scores = [np.exp((design - fit.means) @ fit.coef) for fit in fits]
         competing = len(fits) > 1
         return cumulative_incidence_at(
-            scores[0], jumps[0], scores[1] if competing else None, jumps[1] if competing else None,
-            grid, times, block_cells=_CHUNK_CELLS,
+            scores[0],
+            jumps[0],
+            scores[1] if competing else None,
+            jumps[1] if competing else None,
+            grid,
+            times,
+            block_cells=_CHUNK_CELLS,
         )
 
     def predict_risk(self, stack: pd.DataFrame, horizon: float) -> np.ndarray:
@@ -406,8 +417,7 @@ class LandmarkSupermodel(BaseEstimator):
         frame.insert(0, "landmark", np.atleast_1d(np.asarray(landmarks, dtype=float)))
         return frame
 
-    def landmark_effect_bands(self, landmarks: ArrayLike, level: float = 0.95,
-                              cause: str = "outcome") -> pd.DataFrame:
+    def landmark_effect_bands(self, landmarks: ArrayLike, level: float = 0.95, cause: str = "outcome") -> pd.DataFrame:
         """β(s) of each covariate with a pointwise interval, by the delta method on the robust covariance.
 
         Parameters
@@ -443,6 +453,16 @@ class LandmarkSupermodel(BaseEstimator):
             coef = powers @ fit.coef[index]
             cov = fit.robust_var[np.ix_(index, index)]
             se = np.sqrt(np.maximum(np.einsum("ik,kl,il->i", powers, cov, powers), 0.0))
-            frames.append(pd.DataFrame({"covariate": name, "landmark_days": days, "coef": coef, "se": se,
-                                        "lower": coef - z * se, "upper": coef + z * se}))
+            frames.append(
+                pd.DataFrame(
+                    {
+                        "covariate": name,
+                        "landmark_days": days,
+                        "coef": coef,
+                        "se": se,
+                        "lower": coef - z * se,
+                        "upper": coef + z * se,
+                    }
+                )
+            )
         return pd.concat(frames, ignore_index=True)

@@ -32,9 +32,13 @@ def _fit_doc(fit: Any) -> dict[str, Any] | None:
     if fit is None:
         return None
     return {
-        "coef": fit.coef.tolist(), "var": fit.var.tolist(), "robust_var": fit.robust_var.tolist(),
-        "means": fit.means.tolist(), "n_events": int(fit.n_events),
-        "loglik": float(fit.loglik), "loglik_null": float(fit.loglik_null),
+        "coef": fit.coef.tolist(),
+        "var": fit.var.tolist(),
+        "robust_var": fit.robust_var.tolist(),
+        "means": fit.means.tolist(),
+        "n_events": int(fit.n_events),
+        "loglik": float(fit.loglik),
+        "loglik_null": float(fit.loglik_null),
         # JSON keys are text: the strata go in a list of [stratum, times, increments]
         "baseline": [[float(k), t.tolist(), h.tolist()] for k, (t, h) in sorted(fit.baseline.items())],
     }
@@ -45,11 +49,14 @@ def _fit_values(doc: dict[str, Any] | None) -> dict[str, Any] | None:
     if doc is None:
         return None
     return {
-        "coef": np.asarray(doc["coef"], float), "var": np.asarray(doc["var"], float),
-        "robust_var": np.asarray(doc["robust_var"], float), "means": np.asarray(doc["means"], float),
+        "coef": np.asarray(doc["coef"], float),
+        "var": np.asarray(doc["var"], float),
+        "robust_var": np.asarray(doc["robust_var"], float),
+        "means": np.asarray(doc["means"], float),
         "baseline": {float(k): (np.asarray(t, float), np.asarray(h, float)) for k, t, h in doc["baseline"]},
         "n_events": int(doc["n_events"]),
-        "loglik": float(doc.get("loglik", np.nan)), "loglik_null": float(doc.get("loglik_null", np.nan)),
+        "loglik": float(doc.get("loglik", np.nan)),
+        "loglik_null": float(doc.get("loglik_null", np.nan)),
     }
 
 
@@ -59,9 +66,12 @@ def save_landmark_model(model: Any, path: str | Path) -> Path:
         raise ModelInputError("only a fitted LandmarkSupermodel can be saved; call fit(stack) first.")
     body = {
         "design": {
-            "landmarks_days": model.landmarks_.tolist(), "landmark_scale_days": model.landmark_scale_,
-            "effect_power": model._effect_power_, "baseline_power": model._baseline_power_,
-            "design_columns": list(model.design_columns_), "max_time_days": model.max_time_,
+            "landmarks_days": model.landmarks_.tolist(),
+            "landmark_scale_days": model.landmark_scale_,
+            "effect_power": model._effect_power_,
+            "baseline_power": model._baseline_power_,
+            "design_columns": list(model.design_columns_),
+            "max_time_days": model.max_time_,
         },
         "outcome": _fit_doc(model.outcome_),
         "competing": _fit_doc(model.competing_),
@@ -114,8 +124,14 @@ def read_landmark_file(path: str | Path) -> SavedLandmark:
     if outcome is None:
         raise ModelInputError(f"{path} holds no outcome fit; save the model again with to_json.")
     return SavedLandmark(
-        params=doc["params"], landmarks=np.asarray(design["landmarks_days"], float),
-        landmark_scale=float(design["landmark_scale_days"]), max_time=float(design["max_time_days"]),
-        effect_power=int(design["effect_power"]), baseline_power=int(design["baseline_power"]),
-        design_columns=list(design["design_columns"]), outcome=outcome, competing=_fit_values(doc["competing"]),
-        versions=doc.get("versions", {}))
+        params=doc["params"],
+        landmarks=np.asarray(design["landmarks_days"], float),
+        landmark_scale=float(design["landmark_scale_days"]),
+        max_time=float(design["max_time_days"]),
+        effect_power=int(design["effect_power"]),
+        baseline_power=int(design["baseline_power"]),
+        design_columns=list(design["design_columns"]),
+        outcome=outcome,
+        competing=_fit_values(doc["competing"]),
+        versions=doc.get("versions", {}),
+    )

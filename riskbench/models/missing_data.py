@@ -157,14 +157,21 @@ def dropped_rows_by_landmark(table: pd.DataFrame, dropped: np.ndarray) -> pd.Dat
     dropped = np.asarray(dropped, dtype=bool)
     landmark = (
         pd.to_numeric(table["landmark"], errors="coerce").to_numpy(dtype=float)
-        if "landmark" in table.columns else np.full(len(table), np.nan)
+        if "landmark" in table.columns
+        else np.full(len(table), np.nan)
     )
     patients = table["patient_id"].to_numpy() if "patient_id" in table.columns else np.arange(len(table))
     frame = pd.DataFrame({"landmark": landmark, "dropped": dropped, "patient": patients})
     rows = []
     for s, group in frame.groupby("landmark", dropna=False, sort=True):
-        rows.append({"landmark": float(s), "rows": len(group), "rows_dropped": int(group["dropped"].sum()),
-                     "patients_dropped": int(group.loc[group["dropped"], "patient"].nunique())})
+        rows.append(
+            {
+                "landmark": float(s),
+                "rows": len(group),
+                "rows_dropped": int(group["dropped"].sum()),
+                "patients_dropped": int(group.loc[group["dropped"], "patient"].nunique()),
+            }
+        )
     return pd.DataFrame(rows, columns=["landmark", "rows", "rows_dropped", "patients_dropped"])
 
 
@@ -351,14 +358,17 @@ class MissingDataModel(BaseEstimator):
             completed = impute_training_rows(x, origin, outcome, seed=seed, max_iterations=plan.max_iterations)
             self.models_.append(clone(self.estimator).fit(self._with_values(table, names, completed)))
         self.fitted_once_ = False
-        self.note_ = (f"multiple imputation: {plan.imputations} imputations of "
-                      f"{sum(self.training_missing_.values())} missing training values")
+        self.note_ = (
+            f"multiple imputation: {plan.imputations} imputations of "
+            f"{sum(self.training_missing_.values())} missing training values"
+        )
 
     # ----------------------------------------------------------------- predict
     def _prediction_imputer(self, seed: int) -> PredictionImputer:
         if self._prediction_imputer_ is None:
             self._prediction_imputer_ = PredictionImputer(seed, int(self.max_iterations)).fit(
-                self._x_train_, self._origin_train_)
+                self._x_train_, self._origin_train_
+            )
         return self._prediction_imputer_
 
     def predict_curve(self, table: pd.DataFrame, times: ArrayLike) -> np.ndarray:
@@ -380,8 +390,10 @@ class MissingDataModel(BaseEstimator):
             return out
         if self.method == "missing_indicator":
             self.unexpected_missing_ = {
-                n: int(missing[:, j].sum()) for j, n in enumerate(names)
-                if missing[:, j].any() and f"{n}_missing" not in self.indicator_columns_}
+                n: int(missing[:, j].sum())
+                for j, n in enumerate(names)
+                if missing[:, j].any() and f"{n}_missing" not in self.indicator_columns_
+            }
             return risk_curve(self.models_[0], self._indicator_table(table, x), times)
         if not missing.any():
             curves = [risk_curve(model, table, times) for model in self.models_]

@@ -56,5 +56,6 @@ def read_model_file(path: str | Path, fmt: str, version: int, what: str) -> dict
     if int(doc.get("format_version", 0)) > version:
         raise ModelInputError(
             f"{path} has format version {doc['format_version']}, newer than this riskbench reads "
-            f"({version}); upgrade riskbench.")
+            f"({version}); upgrade riskbench."
+        )
     return doc

@@ -103,7 +103,7 @@ def source_variable(column: str) -> str:
             break
     for prefix in _DERIVED_PREFIXES:
         if name.startswith(prefix) and len(name) > len(prefix):
-            name = name[len(prefix):]
+            name = name[len(prefix) :]
     return name
 
 
@@ -197,9 +197,7 @@ def check_stack_outcome(stack: pd.DataFrame, required: Sequence[str] = ()) -> tu
     """
     for column in (*required, "time", "status"):
         if column not in stack.columns:
-            raise ModelInputError(
-                f"landmark stack lacks column '{column}'; build it with Cohort.landmark_stack(...)"
-            )
+            raise ModelInputError(f"landmark stack lacks column '{column}'; build it with Cohort.landmark_stack(...)")
     time = pd.to_numeric(stack["time"], errors="coerce").to_numpy(dtype=float)
     status = pd.to_numeric(stack["status"], errors="coerce").to_numpy()
     bad = ~np.isfinite(time) | (time <= 0) | ~np.isin(status, (0, 1, 2))

@@ -106,6 +106,14 @@ def pool_estimates(estimates: ArrayLike, variances: ArrayLike) -> PooledEstimate
         fmi = np.where(inflation > 0, (relative + 2.0 / (df + 3.0)) / (relative + 1.0), 0.0)
     fmi = np.where(np.isinf(relative), 1.0, fmi)
     return PooledEstimates(
-        estimate=estimate, within=within, between=between, total=total, se=np.sqrt(total),
-        relative_increase=relative, df=df, variance_share_missing=share, fraction_missing_info=fmi, m=m,
+        estimate=estimate,
+        within=within,
+        between=between,
+        total=total,
+        se=np.sqrt(total),
+        relative_increase=relative,
+        df=df,
+        variance_share_missing=share,
+        fraction_missing_info=fmi,
+        m=m,
     )

@@ -31,8 +31,9 @@ def auc_curve_figure(auc_table: pd.DataFrame, *, band_label: str = "") -> plt.Fi
         years = rows["horizon"] / DAYS_PER_YEAR
         (line,) = ax.plot(years, rows["auc"], marker="o", markersize=3, label=str(model))
         if banded and rows[["auc_lower", "auc_upper"]].notna().any().all():
-            ax.fill_between(years, rows["auc_lower"], rows["auc_upper"], color=line.get_color(), alpha=0.18,
-                            linewidth=0)
+            ax.fill_between(
+                years, rows["auc_lower"], rows["auc_upper"], color=line.get_color(), alpha=0.18, linewidth=0
+            )
             lowest = min(lowest, float(rows["auc_lower"].min()))
         lowest = min(lowest, float(rows["auc"].min()))
     ax.axhline(0.5, color="grey", linestyle=":", linewidth=1, label="no discrimination")

@@ -74,14 +74,23 @@ def baseline_table(
     names = [label for label, _ in groups]
     sizes = {label: len(g) for label, g in groups}
     # group sizes: the same rule as the groups of the cohort flow (complementary within the split)
-    hidden_groups = {label for (label, _), hide in zip(groups[:-1], complementary_hidden(
-        np.array([sizes[n] for n in names[:-1]], dtype=float), threshold)) if hide}
+    hidden_groups = {
+        label
+        for (label, _), hide in zip(
+            groups[:-1], complementary_hidden(np.array([sizes[n] for n in names[:-1]], dtype=float), threshold)
+        )
+        if hide
+    }
     if 0 < sizes[ALL] < threshold:
         hidden_groups.add(ALL)
     described = [n for n in names if n not in hidden_groups]
 
-    rows: list[dict[str, str]] = [{"characteristic": "Patients, n", **{
-        n: _hidden_text(sizes[n], threshold) if n in hidden_groups else str(sizes[n]) for n in names}}]
+    rows: list[dict[str, str]] = [
+        {
+            "characteristic": "Patients, n",
+            **{n: _hidden_text(sizes[n], threshold) if n in hidden_groups else str(sizes[n]) for n in names},
+        }
+    ]
 
     def add(name: str, fn: Callable[[pd.DataFrame], str]) -> None:
         rows.append({"characteristic": name, **{label: fn(g) if label in described else "" for label, g in groups}})
@@ -131,8 +140,9 @@ def _label_of(column: str, labels: Mapping[str, str] | Callable[[str], str] | No
     return str(labels.get(column, column))
 
 
-def _covariate_counts(values: Mapping[str, pd.Series], sizes: Mapping[str, int], hidden_groups: set,
-                      binary: bool, threshold: int) -> tuple[dict, set | None]:
+def _covariate_counts(
+    values: Mapping[str, pd.Series], sizes: Mapping[str, int], hidden_groups: set, binary: bool, threshold: int
+) -> tuple[dict, set | None]:
     """The covariate's counts per ``(category, group)`` and which of them to hide.
 
     Categories: ``one`` (binary only), ``other`` (zeros, or observed values; never shown but derivable)
@@ -153,8 +163,14 @@ def _covariate_counts(values: Mapping[str, pd.Series], sizes: Mapping[str, int],
     relations += [(tuple((c, g) for c in categories), ("size", g)) for g in groups]
     hidden = {(c, g) for c in ("size", *categories) for g in hidden_groups}
     try:
-        hide = linked_suppression(cells, relations, threshold, unpublished=[("other", g) for g in groups],
-                                  hidden=hidden, keep=[("size", g) for g in groups])
+        hide = linked_suppression(
+            cells,
+            relations,
+            threshold,
+            unpublished=[("other", g) for g in groups],
+            hidden=hidden,
+            keep=[("size", g) for g in groups],
+        )
     except ValueError:
         return cells, None
     return cells, hide

@@ -75,8 +75,18 @@ def calibration_figure(
     risk = np.asarray(risk, dtype=float)
     top = axis_top(risk)
     fig = plt.figure(figsize=(8.0, 6.0))
-    grid = fig.add_gridspec(2, 2, width_ratios=[3, 1.35], height_ratios=[4, 1], hspace=0.06, wspace=0.05,
-                            left=0.1, right=0.98, top=0.87, bottom=0.15)
+    grid = fig.add_gridspec(
+        2,
+        2,
+        width_ratios=[3, 1.35],
+        height_ratios=[4, 1],
+        hspace=0.06,
+        wspace=0.05,
+        left=0.1,
+        right=0.98,
+        top=0.87,
+        bottom=0.15,
+    )
     ax = fig.add_subplot(grid[0, 0])
     hist_ax = fig.add_subplot(grid[1, 0], sharex=ax)
     side = fig.add_subplot(grid[:, 1])
@@ -87,19 +97,36 @@ def calibration_figure(
     y_values = [top]
     if len(inside):
         if inside["observed_lower"].notna().all():
-            ax.fill_between(inside["predicted"], inside["observed_lower"], inside["observed_upper"], color="C0",
-                            alpha=0.2, linewidth=0, label="95% band (bootstrap\nover patients)")
+            ax.fill_between(
+                inside["predicted"],
+                inside["observed_lower"],
+                inside["observed_upper"],
+                color="C0",
+                alpha=0.2,
+                linewidth=0,
+                label="95% band (bootstrap\nover patients)",
+            )
             y_values.append(float(inside["observed_upper"].max()))
-        ax.plot(inside["predicted"], inside["observed"], color="C0",
-                label="smoothed: pseudo-\nobservations on a spline\nof cloglog predicted risk")
+        ax.plot(
+            inside["predicted"],
+            inside["observed"],
+            color="C0",
+            label="smoothed: pseudo-\nobservations on a spline\nof cloglog predicted risk",
+        )
         y_values.append(float(inside["observed"].max()))
-    groups = calibration.groups[(calibration.groups["n"] >= min_group_size)
-                                & (calibration.groups["predicted"] <= top)]
+    groups = calibration.groups[(calibration.groups["n"] >= min_group_size) & (calibration.groups["predicted"] <= top)]
     if len(groups):
-        err = np.vstack([groups["observed"] - groups["observed_lower"],
-                         groups["observed_upper"] - groups["observed"]])
-        ax.errorbar(groups["predicted"], groups["observed"], yerr=np.nan_to_num(np.abs(err)), fmt="o", color="C1",
-                    markersize=4, capsize=2, label="quantile groups of\npredicted risk\n(observed, 95% CI)")
+        err = np.vstack([groups["observed"] - groups["observed_lower"], groups["observed_upper"] - groups["observed"]])
+        ax.errorbar(
+            groups["predicted"],
+            groups["observed"],
+            yerr=np.nan_to_num(np.abs(err)),
+            fmt="o",
+            color="C1",
+            markersize=4,
+            capsize=2,
+            label="quantile groups of\npredicted risk\n(observed, 95% CI)",
+        )
         y_values.append(float(np.nanmax(groups["observed_upper"].to_numpy(), initial=0.0)))
     y_top = float(min(1.0, max(y_values) * 1.05))
     ax.plot([0, top], [0, top], color="grey", linestyle=":", linewidth=1, label="ideal: observed =\npredicted")
@@ -120,8 +147,9 @@ def calibration_figure(
     fig.text(0.1, 0.905, _COMPARISON[calibration.target], fontsize=8, ha="left")
     handles, labels = ax.get_legend_handles_labels()
     side.legend(handles, labels, loc="upper left", frameon=False, fontsize=7.5)
-    side.text(0.02, 0.42, _measures_text(calibration), transform=side.transAxes, va="top", fontsize=8,
-              family="monospace")
+    side.text(
+        0.02, 0.42, _measures_text(calibration), transform=side.transAxes, va="top", fontsize=8, family="monospace"
+    )
     fig.text(0.1, 0.02, _beyond_text(risk, top, min_group_size, row_unit, counts, shown), fontsize=7.5, ha="left")
     return fig
 
@@ -143,12 +171,15 @@ def _measures_text(cal: Calibration) -> str:
     return "\n".join(lines)
 
 
-def _beyond_text(risk: np.ndarray, top: float, threshold: int, row_unit: str, counts: np.ndarray,
-                 shown: np.ndarray) -> str:
+def _beyond_text(
+    risk: np.ndarray, top: float, threshold: int, row_unit: str, counts: np.ndarray, shown: np.ndarray
+) -> str:
     """Note under the figure: rows beyond the axes and histogram bars hidden as small counts."""
     beyond = int((risk > top).sum())
-    parts = [f"Axes end at predicted risk {top:.2f} (10% above the 99th percentile); "
-             f"{format_count(beyond, threshold)} {row_unit} with higher predicted risk are not drawn."]
+    parts = [
+        f"Axes end at predicted risk {top:.2f} (10% above the 99th percentile); "
+        f"{format_count(beyond, threshold)} {row_unit} with higher predicted risk are not drawn."
+    ]
     if (shown != counts).any():
         parts.append(f"Histogram bars with fewer than {threshold} {row_unit} are not drawn.")
     return "\n".join(parts)

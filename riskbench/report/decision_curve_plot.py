@@ -14,8 +14,9 @@ import pandas as pd
 from riskbench.time_units import format_duration
 
 
-def decision_curve_figure(table: pd.DataFrame, *, horizon_days: float | None = None, model_name: str = "model",
-                          band_label: str = "") -> plt.Figure:
+def decision_curve_figure(
+    table: pd.DataFrame, *, horizon_days: float | None = None, model_name: str = "model", band_label: str = ""
+) -> plt.Figure:
     """Plot net benefit against the threshold probability.
 
     Parameters

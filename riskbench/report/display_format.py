@@ -186,8 +186,22 @@ MEASURES: dict[str, tuple[str, Formatter]] = {
     "fraction_below": ("Fraction below threshold", _fixed3),
 }
 
-_COUNT_COLUMNS = {"n", "n_boot", "bootstrap_resamples", "at_risk", "outcomes", "competing_events", "level",
-                  "n_patients", "n_excluded", "rows_remaining", "rows_excluded", "n_rows", "events", "count"}
+_COUNT_COLUMNS = {
+    "n",
+    "n_boot",
+    "bootstrap_resamples",
+    "at_risk",
+    "outcomes",
+    "competing_events",
+    "level",
+    "n_patients",
+    "n_excluded",
+    "rows_remaining",
+    "rows_excluded",
+    "n_rows",
+    "events",
+    "count",
+}
 
 #: Column name → (header, formatter). Names not listed fall back to :func:`_column_role`.
 COLUMNS: dict[str, tuple[str, Formatter | None]] = {
@@ -249,8 +263,7 @@ INTERVALS: tuple[IntervalColumns, ...] = (
     IntervalColumns("hazard_ratio", "hr_lower_95", "hr_upper_95", "Hazard ratio (95% CI)"),
     IntervalColumns("observed_expected", "oe_lower", "oe_upper", "Observed/expected (95% CI)"),
     IntervalColumns("estimate", "lower", "upper", "Estimate (95% bootstrap interval)"),
-    IntervalColumns("optimism", "optimism_low", "optimism_high", "Optimism (95% bootstrap interval)",
-                   difference=True),
+    IntervalColumns("optimism", "optimism_low", "optimism_high", "Optimism (95% bootstrap interval)", difference=True),
 )
 
 _ROW_KEYS = ("metric", "quantity")
@@ -267,8 +280,13 @@ def _named_intervals(table: pd.DataFrame, taken: set[str]) -> dict[str, Interval
     for column in table.columns:
         name = str(column)
         if name not in taken and {f"{name}_low", f"{name}_high"} <= columns:
-            found[name] = IntervalColumns(name, f"{name}_low", f"{name}_high",
-                                          f"{_column_role(name)[0]} (95% interval)", difference=" minus " in name)
+            found[name] = IntervalColumns(
+                name,
+                f"{name}_low",
+                f"{name}_high",
+                f"{_column_role(name)[0]} (95% interval)",
+                difference=" minus " in name,
+            )
     return found
 
 
@@ -348,8 +366,7 @@ def display_table(table: pd.DataFrame) -> pd.DataFrame:
     for group in INTERVALS:
         if {group.estimate, group.low, group.high} <= set(table.columns):
             merged[group.estimate] = group
-    label_columns = {"model", "term", "cause", "metric", "quantity", "table", "state", "model_name",
-                     "characteristic"}
+    label_columns = {"model", "term", "cause", "metric", "quantity", "table", "state", "model_name", "characteristic"}
     merged.update(_named_intervals(table, set(merged) | label_columns))
     skip = {c for g in merged.values() for c in (g.low, g.high)}
 

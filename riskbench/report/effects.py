@@ -85,12 +85,14 @@ def effect_step(values: np.ndarray, rule: float | str | None = None) -> EffectSt
     return EffectStep(sd, "sd") if sd > 0 else EffectStep(1.0, "unit")
 
 
-def effect_steps(table: pd.DataFrame, covariates: list[str] | tuple[str, ...],
-                 rules: Mapping[str, float | str] | None = None) -> dict[str, EffectStep]:
+def effect_steps(
+    table: pd.DataFrame, covariates: list[str] | tuple[str, ...], rules: Mapping[str, float | str] | None = None
+) -> dict[str, EffectStep]:
     """The step of each covariate over the rows of ``table`` (columns named by ``covariates``)."""
     rules = dict(rules or {})
-    return {c: effect_step(table[c].to_numpy() if c in table.columns else np.empty(0), rules.get(c))
-            for c in covariates}
+    return {
+        c: effect_step(table[c].to_numpy() if c in table.columns else np.empty(0), rules.get(c)) for c in covariates
+    }
 
 
 def per_text(step: EffectStep, unit: str) -> str:
@@ -98,13 +100,21 @@ def per_text(step: EffectStep, unit: str) -> str:
     if step.kind == "binary":
         return "1 (present vs absent)"
     amount = f"{step.size:.3g} {unit}".strip()
-    why = {"iqr": "interquartile range", "sd": "standard deviation", "configured": "set in the configuration",
-           "unit": "one unit: the covariate does not vary"}[step.kind]
+    why = {
+        "iqr": "interquartile range",
+        "sd": "standard deviation",
+        "configured": "set in the configuration",
+        "unit": "one unit: the covariate does not vary",
+    }[step.kind]
     return f"{amount} ({why})"
 
 
-def scaled_hazard_ratios(summary: pd.DataFrame, steps: Mapping[str, EffectStep],
-                         label_of: Callable[[str], str] = str, varying: frozenset[str] = frozenset()) -> pd.DataFrame:
+def scaled_hazard_ratios(
+    summary: pd.DataFrame,
+    steps: Mapping[str, EffectStep],
+    label_of: Callable[[str], str] = str,
+    varying: frozenset[str] = frozenset(),
+) -> pd.DataFrame:
     """Hazard ratios of a model's main terms per the covariate's step, with the interval scaled alike.
 
     Parameters
@@ -135,12 +145,20 @@ def scaled_hazard_ratios(summary: pd.DataFrame, steps: Mapping[str, EffectStep],
             continue
         step = steps[term]
         label = label_of(str(term))
-        out.append({
-            "term": term, "label": label, "per": per_text(step, unit_of_label(label)), "step": step.size,
-            **{c: float(row[c]) ** step.size for c in HR_COLUMNS},
-            "p_value": float(row["p_value"]) if "p_value" in rows.columns else np.nan,
-            "effect_at": ("landmark 0 (entry); changes with the landmark: see the β(s) figure"
-                          if term in varying else "every landmark"),
-        })
+        out.append(
+            {
+                "term": term,
+                "label": label,
+                "per": per_text(step, unit_of_label(label)),
+                "step": step.size,
+                **{c: float(row[c]) ** step.size for c in HR_COLUMNS},
+                "p_value": float(row["p_value"]) if "p_value" in rows.columns else np.nan,
+                "effect_at": (
+                    "landmark 0 (entry); changes with the landmark: see the β(s) figure"
+                    if term in varying
+                    else "every landmark"
+                ),
+            }
+        )
     columns = ["term", "label", "per", "step", *HR_COLUMNS, "p_value", "effect_at"]
     return pd.DataFrame(out, columns=columns)

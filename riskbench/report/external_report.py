@@ -29,46 +29,70 @@ from riskbench.validation.updating import METHOD_WORDS
 __all__ = ["EXTERNAL_SECTIONS", "write_external_report"]
 
 EXTERNAL_SECTIONS: tuple[Section, ...] = (
-    Section("cohort", "The new cohort",
-            "Patients, landmark rows and outcomes of the new cohort, built from its raw tables with the model's own "
-            "cohort rules (variables, units, transforms, carry-forward and look-back).",
-            tables=("external_cohort",)),
-    Section("performance", "Performance of the original model and its updates",
-            "Each measure on the new cohort, pooled over landmark rows and at each landmark, with 95% percentile "
-            "intervals from bootstrap resamples that draw patients with all their landmark rows. The original "
-            "model's values are an external validation. The updated models were estimated on this same cohort, "
-            "so their values are apparent (optimistic; least so for recalibration in the large), and the "
-            "intervals hold the fitted updates fixed. The observed/expected ratio compares the observed risk by "
-            "the horizon (Aalen–Johansen cumulative incidence with the competing event, or 1 − Kaplan–Meier for a "
-            "cause-specific prediction) with the mean predicted risk.",
-            tables=("update_comparison", "external_performance")),
-    Section("updates", "Which update the new cohort warrants",
-            "Updating methods in order of the parameters they re-estimate on the complementary log-log scale of "
-            "the original risk (Steyerberg, Clinical Prediction Models, 2nd ed. 2019, ch. 20): recalibration in "
-            "the large (intercept), recalibration of intercept and slope, a baseline refitted per landmark, and "
-            "model revision (each covariate's effect corrected). The closed test (after Vergouwe et al., Stat Med "
-            "2017) first tests the most extended update against the original model; only if it differs "
-            "significantly are the methods tested in turn, each against the method chosen so far. Tests are Wald "
-            "tests with patient-clustered sandwich variances of pseudo-observation regressions. The last table "
-            "estimates by the bootstrap how much of each update's calibration here is optimism (re-estimated on "
-            "resamples of patients, scored on the resample and on the whole cohort): the corrected values are what "
-            "to expect on the next patients from this population.",
-            tables=("closed_test", "update_parameters", "update_optimism")),
-    Section("calibration", "Calibration on the new cohort",
-            "Observed against predicted risk by the horizon for the original and the chosen model, from "
-            "pseudo-observations of the observed risk (Austin, Putter, Giardiello & van Klaveren 2022); a "
-            "patient's landmark rows are one cluster.",
-            figures=("external_calibration_*",), tables=("external_calibration",)),
-    Section("decision-curves", "Decision curves on the new cohort",
-            "Net benefit over risk thresholds at the longest horizon, for the original and every updated model, "
-            "against treating everyone and no one, with pointwise bootstrap bands.",
-            figures=("external_decision_curve",), tables=("external_decision_curve",)),
-    Section("triage", "Triage operating point on the new cohort",
-            "The highest risk threshold below which the spared landmark rows keep the target negative predictive "
-            "value, for the original and the chosen model.",
-            tables=("external_triage",)),
-    Section("not-computed", "Parts that could not be computed",
-            "Methods or measures left out, with the reason.", tables=("external_skipped",)),
+    Section(
+        "cohort",
+        "The new cohort",
+        "Patients, landmark rows and outcomes of the new cohort, built from its raw tables with the model's own "
+        "cohort rules (variables, units, transforms, carry-forward and look-back).",
+        tables=("external_cohort",),
+    ),
+    Section(
+        "performance",
+        "Performance of the original model and its updates",
+        "Each measure on the new cohort, pooled over landmark rows and at each landmark, with 95% percentile "
+        "intervals from bootstrap resamples that draw patients with all their landmark rows. The original "
+        "model's values are an external validation. The updated models were estimated on this same cohort, "
+        "so their values are apparent (optimistic; least so for recalibration in the large), and the "
+        "intervals hold the fitted updates fixed. The observed/expected ratio compares the observed risk by "
+        "the horizon (Aalen–Johansen cumulative incidence with the competing event, or 1 − Kaplan–Meier for a "
+        "cause-specific prediction) with the mean predicted risk.",
+        tables=("update_comparison", "external_performance"),
+    ),
+    Section(
+        "updates",
+        "Which update the new cohort warrants",
+        "Updating methods in order of the parameters they re-estimate on the complementary log-log scale of "
+        "the original risk (Steyerberg, Clinical Prediction Models, 2nd ed. 2019, ch. 20): recalibration in "
+        "the large (intercept), recalibration of intercept and slope, a baseline refitted per landmark, and "
+        "model revision (each covariate's effect corrected). The closed test (after Vergouwe et al., Stat Med "
+        "2017) first tests the most extended update against the original model; only if it differs "
+        "significantly are the methods tested in turn, each against the method chosen so far. Tests are Wald "
+        "tests with patient-clustered sandwich variances of pseudo-observation regressions. The last table "
+        "estimates by the bootstrap how much of each update's calibration here is optimism (re-estimated on "
+        "resamples of patients, scored on the resample and on the whole cohort): the corrected values are what "
+        "to expect on the next patients from this population.",
+        tables=("closed_test", "update_parameters", "update_optimism"),
+    ),
+    Section(
+        "calibration",
+        "Calibration on the new cohort",
+        "Observed against predicted risk by the horizon for the original and the chosen model, from "
+        "pseudo-observations of the observed risk (Austin, Putter, Giardiello & van Klaveren 2022); a "
+        "patient's landmark rows are one cluster.",
+        figures=("external_calibration_*",),
+        tables=("external_calibration",),
+    ),
+    Section(
+        "decision-curves",
+        "Decision curves on the new cohort",
+        "Net benefit over risk thresholds at the longest horizon, for the original and every updated model, "
+        "against treating everyone and no one, with pointwise bootstrap bands.",
+        figures=("external_decision_curve",),
+        tables=("external_decision_curve",),
+    ),
+    Section(
+        "triage",
+        "Triage operating point on the new cohort",
+        "The highest risk threshold below which the spared landmark rows keep the target negative predictive "
+        "value, for the original and the chosen model.",
+        tables=("external_triage",),
+    ),
+    Section(
+        "not-computed",
+        "Parts that could not be computed",
+        "Methods or measures left out, with the reason.",
+        tables=("external_skipped",),
+    ),
 )
 
 
@@ -77,10 +101,12 @@ def _years(days: float) -> str:
 
 
 def _cohort_table(ev: ExternalValidation, threshold: int) -> pd.DataFrame:
-    rows = [("patients", format_count(ev.n_patients, threshold)),
-            ("landmark rows", format_count(ev.n_rows, threshold)),
-            (f"outcomes within {_years(ev.horizons[-1])} of a landmark", format_count(ev.n_outcomes, threshold)),
-            ("the model predicts", TARGETS[ev.target])]
+    rows = [
+        ("patients", format_count(ev.n_patients, threshold)),
+        ("landmark rows", format_count(ev.n_rows, threshold)),
+        (f"outcomes within {_years(ev.horizons[-1])} of a landmark", format_count(ev.n_outcomes, threshold)),
+        ("the model predicts", TARGETS[ev.target]),
+    ]
     return pd.DataFrame(rows, columns=["what", "value"])
 
 
@@ -90,8 +116,9 @@ def _labelled(frame: pd.DataFrame, column: str = "model") -> pd.DataFrame:
     return out
 
 
-def write_external_report(ev: ExternalValidation, out: str | Path, *, title: str, threshold: int,
-                          facts: Sequence[tuple[str, str]] = ()) -> Path:
+def write_external_report(
+    ev: ExternalValidation, out: str | Path, *, title: str, threshold: int, facts: Sequence[tuple[str, str]] = ()
+) -> Path:
     """Write the external validation's tables, figures and ``report.html`` into ``out``; return the page.
 
     Parameters
@@ -131,11 +158,13 @@ def write_external_report(ev: ExternalValidation, out: str | Path, *, title: str
     if len(ev.performance.decision_curve):
         table = ev.performance.decision_curve
         save_table(table, out, "external_decision_curve")
-        save_figure(decision_curve_figure(table, horizon_days=ev.performance.decision_days,
-                                          band_label="95% bootstrap band"), out, "external_decision_curve")
+        save_figure(
+            decision_curve_figure(table, horizon_days=ev.performance.decision_days, band_label="95% bootstrap band"),
+            out,
+            "external_decision_curve",
+        )
     if len(ev.triage):
-        triage = ev.triage.assign(horizon_years=ev.triage["horizon_days"] / DAYS_PER_YEAR).drop(
-            columns="horizon_days")
+        triage = ev.triage.assign(horizon_years=ev.triage["horizon_days"] / DAYS_PER_YEAR).drop(columns="horizon_days")
         save_table(_labelled(triage), out, "external_triage")
     if ev.skipped:
         save_table(pd.DataFrame(ev.skipped, columns=["part", "reason"]), out, "external_skipped")
@@ -145,14 +174,30 @@ def write_external_report(ev: ExternalValidation, out: str | Path, *, title: str
 def _calibration(ev: ExternalValidation, out: Path, threshold: int) -> None:
     rows = []
     for (model, h), cal in ev.calibration.items():
-        rows.append({"model": model, "horizon_years": h / DAYS_PER_YEAR, "observed_risk": cal.observed,
-                     "mean_predicted": cal.expected, "observed_expected": cal.oe_ratio, "oe_lower": cal.oe_lower,
-                     "oe_upper": cal.oe_upper, "calibration_intercept": cal.intercept, "slope": cal.slope,
-                     "ici": cal.ici, "e90": cal.e90})
+        rows.append(
+            {
+                "model": model,
+                "horizon_years": h / DAYS_PER_YEAR,
+                "observed_risk": cal.observed,
+                "mean_predicted": cal.expected,
+                "observed_expected": cal.oe_ratio,
+                "oe_lower": cal.oe_lower,
+                "oe_upper": cal.oe_upper,
+                "calibration_intercept": cal.intercept,
+                "slope": cal.slope,
+                "ici": cal.ici,
+                "e90": cal.e90,
+            }
+        )
         if model in ("original", ev.chosen(h)):
             column = ev.horizons.index(h)
-            figure = calibration_figure(cal, np.asarray(ev.risks[model][:, column]), model_name=METHOD_WORDS[model],
-                                        min_group_size=threshold, horizon_days=h)
+            figure = calibration_figure(
+                cal,
+                np.asarray(ev.risks[model][:, column]),
+                model_name=METHOD_WORDS[model],
+                min_group_size=threshold,
+                horizon_days=h,
+            )
             save_figure(figure, out, f"external_calibration_{model}_{_years(h).replace(' ', '_')}")
     if rows:
         save_table(_labelled(pd.DataFrame(rows)), out, "external_calibration")

@@ -49,10 +49,10 @@ def flow_figure(flow: pd.DataFrame, *, threshold: int = 10) -> plt.Figure:
         if i + 1 < len(main):
             ax.annotate("", xy=(3.2, y - 0.66), xytext=(3.2, y - 0.36), arrowprops=_ARROW)
         if row["n_excluded"] != "0":
-            ax.annotate("", xy=(6.6, y + 0.5), xytext=(3.2, y + 0.5),
-                        arrowprops={"arrowstyle": "->", "color": "#7f8c8d"})
-            ax.text(6.7, y + 0.5, f"excluded: {row['n_excluded']}",
-                    ha="left", va="center", fontsize=8, color="#7f3f00")
+            ax.annotate(
+                "", xy=(6.6, y + 0.5), xytext=(3.2, y + 0.5), arrowprops={"arrowstyle": "->", "color": "#7f8c8d"}
+            )
+            ax.text(6.7, y + 0.5, f"excluded: {row['n_excluded']}", ha="left", va="center", fontsize=8, color="#7f3f00")
     if len(split):
         y = -float(len(main))
         width = 9.4 / len(split)

@@ -85,8 +85,10 @@ def suppress_flow(flow: pd.DataFrame, threshold: int, *, prefix: str = "after ex
     first, inner, final = main.iloc[0], main.iloc[1:], None
     if len(main) > 1 and main["n_excluded"].iloc[-1] == 0:
         inner, final = main.iloc[1:-1], main.iloc[-1]
-    steps = [_Step([str(r.step).removeprefix(prefix)], int(r.n_patients), int(r.n_excluded))
-             for r in inner.itertuples(index=False)]
+    steps = [
+        _Step([str(r.step).removeprefix(prefix)], int(r.n_patients), int(r.n_excluded))
+        for r in inner.itertuples(index=False)
+    ]
     merged = _merge_small_steps(steps, threshold)
 
     total_excluded = sum(s.excluded for s in merged)
@@ -105,6 +107,8 @@ def suppress_flow(flow: pd.DataFrame, threshold: int, *, prefix: str = "after ex
         counts = split["n_patients"].to_numpy(dtype=float)
         hide = complementary_hidden(counts, threshold)
         for (label, n), hidden in zip(split[["step", "n_patients"]].itertuples(index=False), hide):
-            text = (f"<{threshold}" if is_suppressed(n, threshold) else WITHHELD) if hidden else format_count(n, threshold)
+            text = (
+                (f"<{threshold}" if is_suppressed(n, threshold) else WITHHELD) if hidden else format_count(n, threshold)
+            )
             rows.append((str(label), text, "0", 1))
     return pd.DataFrame(rows, columns=list(FLOW_COLUMNS))

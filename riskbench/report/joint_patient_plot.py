@@ -55,8 +55,7 @@ def joint_patient_figure(
     key = patient_key(row["patient_id"])[0]
     history = model.history_[model.history_["patient_id"] == key]
     landmarks = np.arange(0.0, max(end_days, 1.0), step_days)
-    rows = pd.concat([row.iloc[[0]]] * len(landmarks), ignore_index=True).assign(
-        patient_id=key, landmark=landmarks)
+    rows = pd.concat([row.iloc[[0]]] * len(landmarks), ignore_index=True).assign(patient_id=key, landmark=landmarks)
     risk = joint.predict_risk(rows, window_days, measurements=model.history_)
     last = rows.iloc[[-1]]
     grid = np.linspace(0.0, landmarks[-1] + window_days, 60)
@@ -64,12 +63,24 @@ def joint_patient_figure(
 
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(6.4, 5.6), sharex=True)
     years = trajectory["time_days"].to_numpy() / DAYS_PER_YEAR
-    top.fill_between(years, trajectory["marker_lower"], trajectory["marker_upper"], color="#9ecae1", alpha=0.6,
-                     label="predicted true value, 95% band")
+    top.fill_between(
+        years,
+        trajectory["marker_lower"],
+        trajectory["marker_upper"],
+        color="#9ecae1",
+        alpha=0.6,
+        label="predicted true value, 95% band",
+    )
     top.plot(years, trajectory["marker_mean"], color="#08519c", label="predicted true value")
     seen = history[history["time"] <= landmarks[-1]]
-    top.plot(seen["time"] / DAYS_PER_YEAR, seen[marker], "o", color="#252525", markersize=4,
-             label="measured (up to the last landmark)")
+    top.plot(
+        seen["time"] / DAYS_PER_YEAR,
+        seen[marker],
+        "o",
+        color="#252525",
+        markersize=4,
+        label="measured (up to the last landmark)",
+    )
     top.axvline(landmarks[-1] / DAYS_PER_YEAR, color="#777777", linestyle="--", linewidth=1)
     top.set_ylabel(labels(marker) if labels else marker)
     top.set_title(f"{pseudonym}: marker fit and risk updated over follow-up", fontsize=10)

@@ -19,9 +19,12 @@ from riskbench.time_units import DAYS_PER_YEAR
 __all__ = ["landmark_effect_figure"]
 
 
-def landmark_effect_figure(bands: Mapping[str, pd.DataFrame], steps: Mapping[str, float],
-                           labels: Mapping[str, str] | None = None,
-                           per: Mapping[str, str] | None = None) -> plt.Figure:
+def landmark_effect_figure(
+    bands: Mapping[str, pd.DataFrame],
+    steps: Mapping[str, float],
+    labels: Mapping[str, str] | None = None,
+    per: Mapping[str, str] | None = None,
+) -> plt.Figure:
     """One panel per covariate: hazard ratio per step, exp(u·β(s)), and its band against the landmark s.
 
     Parameters
@@ -54,8 +57,14 @@ def landmark_effect_figure(bands: Mapping[str, pd.DataFrame], steps: Mapping[str
                 continue
             years = rows["landmark_days"].to_numpy(float) / DAYS_PER_YEAR
             colour = f"C{m}"
-            ax.fill_between(years, np.exp(u * rows["lower"].to_numpy(float)), np.exp(u * rows["upper"].to_numpy(float)),
-                            color=colour, alpha=0.2, linewidth=0)
+            ax.fill_between(
+                years,
+                np.exp(u * rows["lower"].to_numpy(float)),
+                np.exp(u * rows["upper"].to_numpy(float)),
+                color=colour,
+                alpha=0.2,
+                linewidth=0,
+            )
             ax.plot(years, np.exp(u * rows["coef"].to_numpy(float)), color=colour, linewidth=1.5, label=name)
         ax.axhline(1.0, color="grey", linestyle=":", linewidth=1)
         ax.set_yscale("log")
@@ -66,7 +75,7 @@ def landmark_effect_figure(bands: Mapping[str, pd.DataFrame], steps: Mapping[str
         ax.set_ylabel("hazard ratio (95% band)", fontsize=8)
         ax.tick_params(labelsize=7)
         ax.grid(alpha=0.3, which="both")
-    for ax in list(axes.flat)[len(covariates):]:
+    for ax in list(axes.flat)[len(covariates) :]:
         ax.set_visible(False)
     if len(bands) > 1:
         handles, names = axes.flat[0].get_legend_handles_labels()

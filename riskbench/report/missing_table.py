@@ -25,8 +25,15 @@ from riskbench.time_units import DAYS_PER_YEAR
 
 __all__ = ["complete_case_table", "missing_data_table"]
 
-MISSING_COLUMNS = ["covariate", "landmark_years", "rows", "rows_missing", "rows_observed", "share_missing",
-                   "median_staleness_days"]
+MISSING_COLUMNS = [
+    "covariate",
+    "landmark_years",
+    "rows",
+    "rows_missing",
+    "rows_observed",
+    "share_missing",
+    "median_staleness_days",
+]
 COMPLETE_CASE_COLUMNS = ["model", "landmark_years", "rows", "rows_dropped", "rows_kept", "patients_dropped"]
 
 
@@ -34,8 +41,10 @@ def _staleness_lookup(covariates: Sequence[str], staleness_columns: Mapping[str,
     if isinstance(staleness_columns, Mapping):
         return {c: staleness_columns.get(c) for c in covariates}
     available = set(staleness_columns)
-    return {c: f"{source_variable(c)}_staleness_days" if f"{source_variable(c)}_staleness_days" in available
-            else None for c in covariates}
+    return {
+        c: f"{source_variable(c)}_staleness_days" if f"{source_variable(c)}_staleness_days" in available else None
+        for c in covariates
+    }
 
 
 def _landmarks(stack: pd.DataFrame) -> np.ndarray:
@@ -89,20 +98,28 @@ def missing_data_table(
             continue
         values = pd.to_numeric(stack[covariate], errors="coerce").to_numpy(dtype=float)
         column = lookup.get(covariate)
-        staleness = (pd.to_numeric(stack[column], errors="coerce").to_numpy(dtype=float)
-                     if column is not None and column in stack.columns else None)
+        staleness = (
+            pd.to_numeric(stack[column], errors="coerce").to_numpy(dtype=float)
+            if column is not None and column in stack.columns
+            else None
+        )
         for s in np.unique(landmarks):
             at = landmarks == s
             missing = at & np.isnan(values)
             observed = at & ~np.isnan(values)
             carried = staleness[observed] if staleness is not None else np.empty(0)
             carried = carried[np.isfinite(carried)]
-            rows.append({
-                "covariate": covariate, "landmark_years": round(float(s) / DAYS_PER_YEAR, 4),
-                "rows": int(at.sum()), "rows_missing": int(missing.sum()), "rows_observed": int(observed.sum()),
-                "share_missing": float(missing.sum() / at.sum()) if at.any() else np.nan,
-                "median_staleness_days": float(np.median(carried)) if len(carried) else np.nan,
-            })
+            rows.append(
+                {
+                    "covariate": covariate,
+                    "landmark_years": round(float(s) / DAYS_PER_YEAR, 4),
+                    "rows": int(at.sum()),
+                    "rows_missing": int(missing.sum()),
+                    "rows_observed": int(observed.sum()),
+                    "share_missing": float(missing.sum() / at.sum()) if at.any() else np.nan,
+                    "median_staleness_days": float(np.median(carried)) if len(carried) else np.nan,
+                }
+            )
     table = pd.DataFrame(rows, columns=MISSING_COLUMNS)
     if labels is not None:
         table.insert(1, "label", [labels(c) for c in table["covariate"]])
@@ -144,10 +161,16 @@ def complete_case_table(
         dropped = np.isnan(values).any(axis=1) if present else np.zeros(len(stack), dtype=bool)
         for s in np.unique(landmarks):
             at = landmarks == s
-            rows.append({"model": name, "landmark_years": round(float(s) / DAYS_PER_YEAR, 4),
-                         "rows": int(at.sum()), "rows_dropped": int((at & dropped).sum()),
-                         "rows_kept": int((at & ~dropped).sum()),
-                         "patients_dropped": int(pd.Series(patients[at & dropped]).nunique())})
+            rows.append(
+                {
+                    "model": name,
+                    "landmark_years": round(float(s) / DAYS_PER_YEAR, 4),
+                    "rows": int(at.sum()),
+                    "rows_dropped": int((at & dropped).sum()),
+                    "rows_kept": int((at & ~dropped).sum()),
+                    "patients_dropped": int(pd.Series(patients[at & dropped]).nunique()),
+                }
+            )
     table = pd.DataFrame(rows, columns=COMPLETE_CASE_COLUMNS)
     if threshold is None or table.empty:
         return table

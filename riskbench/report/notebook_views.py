@@ -28,8 +28,10 @@ from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.validation.comparison import Comparison
 
 #: The caution every displayed result carries (the report's caution, shortened).
-CAUTION_TEXT = ("Research software, not a medical device: not for clinical decisions without proper validation; "
-                "local ethics approval, data-protection rules and clinical governance decide what may be done.")
+CAUTION_TEXT = (
+    "Research software, not a medical device: not for clinical decisions without proper validation; "
+    "local ethics approval, data-protection rules and clinical governance decide what may be done."
+)
 
 CONCORDANCE_MEASURES: tuple[str, ...] = ("harrell_c", "uno_c")
 
@@ -80,8 +82,10 @@ class CohortSummary:
 
     def _repr_html_(self) -> str:
         t = self.threshold
-        lead = (f"{format_count(self.n_patients, t)} patients included; {format_count(self.n_intervals, t)} "
-                f"counting-process intervals; {format_count(self.n_landmark_rows, t)} landmark rows.")
+        lead = (
+            f"{format_count(self.n_patients, t)} patients included; {format_count(self.n_intervals, t)} "
+            f"counting-process intervals; {format_count(self.n_landmark_rows, t)} landmark rows."
+        )
         return titled_html("Cohort", {k.replace("_", " "): v for k, v in self.tables.items()}, lead)
 
     def plot_flow(self) -> plt.Figure:
@@ -95,8 +99,9 @@ class CohortSummary:
         if self.flow is not None:
             return flow_figure(self.flow, threshold=self.threshold)
         if self.flow_png is None or not self.flow_png.is_file():
-            raise FileNotFoundError(f"no exact flow counts and no saved flow figure ({self.flow_png}); rerun the "
-                                    "cohort stage")
+            raise FileNotFoundError(
+                f"no exact flow counts and no saved flow figure ({self.flow_png}); rerun the cohort stage"
+            )
         image = plt.imread(self.flow_png)
         fig, ax = plt.subplots(figsize=(image.shape[1] / 100, image.shape[0] / 100))
         ax.imshow(image)
@@ -132,8 +137,7 @@ class ConcordanceView:
     def plot(self) -> plt.Figure:
         """C against the horizon (years), one panel per measure and one line per model."""
         measures = [m for m in CONCORDANCE_MEASURES if (self.table["metric"] == m).any()]
-        fig, axes = plt.subplots(1, max(len(measures), 1), figsize=(4.2 * max(len(measures), 1), 3.4),
-                                 squeeze=False)
+        fig, axes = plt.subplots(1, max(len(measures), 1), figsize=(4.2 * max(len(measures), 1), 3.4), squeeze=False)
         for ax, measure in zip(axes[0], measures):
             rows = self.table[self.table["metric"] == measure].sort_values("horizon_years")
             for model in self.models:
@@ -174,13 +178,22 @@ class CalibrationView:
 
     def _repr_html_(self) -> str:
         years = format_years(self.horizon_days / DAYS_PER_YEAR)
-        return titled_html(f"Calibration of {self.model} at {years} years", {"": pd.DataFrame([self.summary])},
-                           self.calibration.target_text)
+        return titled_html(
+            f"Calibration of {self.model} at {years} years",
+            {"": pd.DataFrame([self.summary])},
+            self.calibration.target_text,
+        )
 
     def plot(self) -> plt.Figure:
         """Observed against predicted risk (the report's calibration figure)."""
-        return calibration_figure(self.calibration, self.risk, model_name=self.model, min_group_size=self.threshold,
-                                  row_unit="landmark rows", horizon_days=self.horizon_days)
+        return calibration_figure(
+            self.calibration,
+            self.risk,
+            model_name=self.model,
+            min_group_size=self.threshold,
+            row_unit="landmark rows",
+            horizon_days=self.horizon_days,
+        )
 
 
 @dataclass(frozen=True)
@@ -202,16 +215,20 @@ class ComparisonView:
         return f"{self.candidate} minus {self.reference}"
 
     def _repr_html_(self) -> str:
-        return titled_html(f"{self.candidate} against {self.reference}", {"": self.table},
-                           "Out-of-bag bootstrap estimates with 95% percentile intervals; the difference is "
-                           "candidate minus reference.")
+        return titled_html(
+            f"{self.candidate} against {self.reference}",
+            {"": self.table},
+            "Out-of-bag bootstrap estimates with 95% percentile intervals; the difference is "
+            "candidate minus reference.",
+        )
 
     def plot(self) -> plt.Figure:
         """The differences with their 95% intervals, one row per measure and horizon (0: no difference)."""
         d = self.difference_column
         rows = self.table.reset_index(drop=True)
-        labels = [f"{MEASURES.get(m, (m,))[0]}, {format_years(h)} y"
-                  for m, h in zip(rows["metric"], rows["horizon_years"])]
+        labels = [
+            f"{MEASURES.get(m, (m,))[0]}, {format_years(h)} y" for m, h in zip(rows["metric"], rows["horizon_years"])
+        ]
         y = np.arange(len(rows))[::-1]
         fig, ax = plt.subplots(figsize=(6.0, 0.45 * len(rows) + 1.2))
         estimate = rows[d].to_numpy(float)

@@ -24,8 +24,14 @@ from riskbench.report.outputs import atomic_write_text
 NOTES = "notes"
 STAGE_ORDER: tuple[str, ...] = ("cohort", "models", "validation", "comparison")
 #: Kinds of note, in the order the report explains them.
-NOTE_KINDS: tuple[str, ...] = ("switched off", "fit failed", "not computed", "resamples dropped", "fitting warnings",
-                               "caution")
+NOTE_KINDS: tuple[str, ...] = (
+    "switched off",
+    "fit failed",
+    "not computed",
+    "resamples dropped",
+    "fitting warnings",
+    "caution",
+)
 
 
 @dataclass(frozen=True)
@@ -67,8 +73,9 @@ def switched_off(stage: str, part: str, key: str) -> Note:
     return Note(stage, part, f"switched off by {key} = false.", kind="switched off")
 
 
-def save_notes(run_dir: str | Path, stage: str, notes: Sequence[Note],
-               fit_warnings: pd.DataFrame | None = None) -> Path:
+def save_notes(
+    run_dir: str | Path, stage: str, notes: Sequence[Note], fit_warnings: pd.DataFrame | None = None
+) -> Path:
     """Write ``notes/<stage>.json`` (the stage's notes and its fitting-warning counts); return its path.
 
     ``fit_warnings`` has the columns of :func:`riskbench.models.fit_warnings.count_warnings`.
@@ -114,9 +121,11 @@ def failed_models(run_dir: str | Path) -> dict[str, str]:
     return {n["model"]: n["text"] for n in payload.get("notes", []) if n.get("kind") == "fit failed"}
 
 
-_INTRO = ("Parts of the report that were switched off or could not be computed, per stage and model, and how "
-          "often model fits warned. A part listed here is missing above; the rest of the report stands. A "
-          "caution is shown above but says how far to trust it.")
+_INTRO = (
+    "Parts of the report that were switched off or could not be computed, per stage and model, and how "
+    "often model fits warned. A part listed here is missing above; the rest of the report stands. A "
+    "caution is shown above but says how far to trust it."
+)
 
 
 def _rows(cells: Sequence[Sequence[str]], header: Sequence[str], numeric: Sequence[bool]) -> str:
@@ -136,14 +145,32 @@ def notes_html(run_dir: str | Path) -> str:
     if not notes and not len(warned):
         parts.append('<p class="meta">Nothing to note: every part was computed and no fit warned.</p>')
     if notes:
-        parts.append(_rows([(n.stage, n.model or "(all)", n.part, n.kind, n.text) for n in notes],
-                           ("stage", "model", "part", "kind", "note"), (False,) * 5))
+        parts.append(
+            _rows(
+                [(n.stage, n.model or "(all)", n.part, n.kind, n.text) for n in notes],
+                ("stage", "model", "part", "kind", "note"),
+                (False,) * 5,
+            )
+        )
     if len(warned):
         parts.append("<h3>Fitting warnings</h3>")
-        rows = [(r.stage, r.model, f"{r.kind}: {KIND_MEANING.get(r.kind, r.kind)}", str(int(r.warnings)),
-                 f"{int(r.fits_warned)} of {int(r.fits)}", r.terms)
-                for r in warned.itertuples(index=False)]
-        parts.append(_rows(rows, ("stage", "model", "kind", "warnings", "fits that warned", "terms named"),
-                           (False, False, False, True, True, False)))
+        rows = [
+            (
+                r.stage,
+                r.model,
+                f"{r.kind}: {KIND_MEANING.get(r.kind, r.kind)}",
+                str(int(r.warnings)),
+                f"{int(r.fits_warned)} of {int(r.fits)}",
+                r.terms,
+            )
+            for r in warned.itertuples(index=False)
+        ]
+        parts.append(
+            _rows(
+                rows,
+                ("stage", "model", "kind", "warnings", "fits that warned", "terms named"),
+                (False, False, False, True, True, False),
+            )
+        )
     parts.append("</section>")
     return "".join(parts)

@@ -124,8 +124,9 @@ def neutralise_csv_cell(value: object) -> object:
     non-text value are left alone. A cell that already starts with ``'`` gets a second one, so that
     :func:`restore_csv_cell` gives every cell back exactly.
     """
-    if isinstance(value, str) and ((value.startswith(FORMULA_STARTS) and not _FLOAT_TEXT.match(value))
-                                   or value.startswith("'")):
+    if isinstance(value, str) and (
+        (value.startswith(FORMULA_STARTS) and not _FLOAT_TEXT.match(value)) or value.startswith("'")
+    ):
         return "'" + value
     return value
 

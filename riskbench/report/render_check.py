@@ -17,9 +17,17 @@ from dataclasses import dataclass
 from pathlib import Path
 
 BROWSERS: tuple[str, ...] = ("chromium", "chromium-browser")
-FLAGS: tuple[str, ...] = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-                          "--no-first-run", "--disable-extensions", "--disable-sync",
-                          "--virtual-time-budget=15000", "--dump-dom")
+FLAGS: tuple[str, ...] = (
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--no-first-run",
+    "--disable-extensions",
+    "--disable-sync",
+    "--virtual-time-budget=15000",
+    "--dump-dom",
+)
 _PROBE = (
     "<script>window.addEventListener('load', function () {"
     " var imgs = Array.prototype.slice.call(document.images);"
@@ -59,8 +67,9 @@ def chromium_or_reason(*, install: bool = False) -> tuple[str | None, str]:
         return None, "chromium is not installed and cannot be installed here (needs root and apt-get)"
     env = {**os.environ, "DEBIAN_FRONTEND": "noninteractive"}
     try:
-        subprocess.run(["apt-get", "install", "-y", "-qq", "chromium"], env=env, capture_output=True,
-                       timeout=600, check=True)
+        subprocess.run(
+            ["apt-get", "install", "-y", "-qq", "chromium"], env=env, capture_output=True, timeout=600, check=True
+        )
     except (OSError, subprocess.SubprocessError) as exc:
         return None, f"chromium is not installed and apt-get install chromium failed ({type(exc).__name__})"
     path = find_chromium()
@@ -81,8 +90,12 @@ def check_report_renders(html_path: str | Path, chromium: str, *, timeout: float
         page = Path(tmp) / "page.html"
         page.write_text(probed, encoding="utf-8")
         profile = Path(tmp) / "profile"
-        proc = subprocess.run([chromium, *FLAGS, f"--user-data-dir={profile}", page.as_uri()],
-                              capture_output=True, text=True, timeout=timeout)
+        proc = subprocess.run(
+            [chromium, *FLAGS, f"--user-data-dir={profile}", page.as_uri()],
+            capture_output=True,
+            text=True,
+            timeout=timeout,
+        )
     found = _RESULT.search(proc.stdout)
     if not found:
         raise RuntimeError(f"chromium did not render the page (exit {proc.returncode}): {proc.stderr[-500:]}")

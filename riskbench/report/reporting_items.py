@@ -58,8 +58,13 @@ _BOTH: tuple[tuple[str, str, str, str, tuple[str, ...]], ...] = (
     ("8", "10", "Sample size", "Sample size and follow-up", ("sample_size",)),
     ("9", "11", "Missing data", "Baseline characteristics by outcome status", ("missing_data",)),
     ("10a", "12a", "Analytical methods: handling of predictors", _METHODS, ("methods",)),
-    ("10b", "12c", "Analytical methods: model type, building and checks", _METHODS,
-     ("methods", "coefficients_*", "proportional_hazards")),
+    (
+        "10b",
+        "12c",
+        "Analytical methods: model type, building and checks",
+        _METHODS,
+        ("methods", "coefficients_*", "proportional_hazards"),
+    ),
     ("10d", "12e", "Analytical methods: performance measures", _METHODS, ("methods", "discrimination")),
     ("11", "", "Risk groups", "Triage operating point", ("triage_operating_point",)),
     ("", "13", "Class imbalance", "", ()),
@@ -72,15 +77,30 @@ _BOTH: tuple[tuple[str, str, str, str, tuple[str, ...]], ...] = (
     ("", "18f", "Code sharing", "", ()),
     ("", "19", "Patient and public involvement", "", ()),
     ("13a", "20a", "Participants: flow and follow-up", _FLOW, ("cohort_flow", "follow_up")),
-    ("13b", "20b", "Participants: characteristics", "Baseline characteristics by outcome status",
-     ("baseline_characteristics",)),
-    ("14a", "20c", "Participants and outcome events in each analysis", _FLOW,
-     ("landmark_summary", "landmark_outcome_counts")),
+    (
+        "13b",
+        "20b",
+        "Participants: characteristics",
+        "Baseline characteristics by outcome status",
+        ("baseline_characteristics",),
+    ),
+    (
+        "14a",
+        "20c",
+        "Participants and outcome events in each analysis",
+        _FLOW,
+        ("landmark_summary", "landmark_outcome_counts"),
+    ),
     ("14b", "", "Unadjusted predictor–outcome associations", "", ()),
     ("15a", "22", "Model specification: full model", "Hazard ratios", ("coefficients_*",)),
     ("15b", "22", "Model specification: how to use it", "Hazard ratios", ("coefficients_*",)),
-    ("16", "23a", "Model performance", "Time-dependent AUC",
-     ("discrimination", "performance_by_landmark", "auc_by_horizon", "calibration_*")),
+    (
+        "16",
+        "23a",
+        "Model performance",
+        "Time-dependent AUC",
+        ("discrimination", "performance_by_landmark", "auc_by_horizon", "calibration_*"),
+    ),
     ("", "23b", "Model performance in key subgroups", "", ()),
     ("17", "24", "Model updating", "", ()),
     ("18", "26", "Limitations", "Limitations", ("limitations",)),
@@ -121,6 +141,14 @@ def reporting_items_table(run_dir: str | Path, items: tuple[ReportingItem, ...] 
             status = "covered"
         else:
             status = "not produced in this run (see the notes)"
-        rows.append({"tripod_2015": it.tripod_2015 or "—", "tripod_ai_2024": it.tripod_ai_2024 or "—",
-                     "item": it.name, "section": it.section or "—", "status": status, "files": ", ".join(files[:4])})
+        rows.append(
+            {
+                "tripod_2015": it.tripod_2015 or "—",
+                "tripod_ai_2024": it.tripod_ai_2024 or "—",
+                "item": it.name,
+                "section": it.section or "—",
+                "status": status,
+                "files": ", ".join(files[:4]),
+            }
+        )
     return pd.DataFrame(rows, columns=["tripod_2015", "tripod_ai_2024", "item", "section", "status", "files"])

@@ -87,9 +87,7 @@ def suppress_counts(
     """
     missing = [c for c in columns if c not in table.columns]
     if missing:
-        raise ValueError(
-            f"suppress_counts: column(s) {missing} not in the table (columns: {list(table.columns)})"
-        )
+        raise ValueError(f"suppress_counts: column(s) {missing} not in the table (columns: {list(table.columns)})")
     out = table.copy()
     values = table.loc[:, list(columns)].to_numpy(dtype=float)
     hide = (values > 0) & (np.round(values) < threshold)

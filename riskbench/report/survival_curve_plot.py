@@ -62,7 +62,10 @@ def survival_curve_figure(
     start = 1.0 if estimate.kind == "survival" else 0.0
     n_groups = len(estimate.groups)
     fig, (ax, table_ax) = plt.subplots(
-        2, 1, figsize=(7.5, 5.0 + 0.3 * n_groups), sharex=True,
+        2,
+        1,
+        figsize=(7.5, 5.0 + 0.3 * n_groups),
+        sharex=True,
         gridspec_kw={"height_ratios": [4.0, 0.6 + 0.35 * n_groups], "hspace": 0.25},
     )
     labels = [plain_text(str(g)) for g in estimate.groups]
@@ -71,8 +74,15 @@ def survival_curve_figure(
         t = np.r_[0.0, rows["time"].to_numpy(float)]
         (line,) = ax.step(t, np.r_[start, rows["estimate"].to_numpy(float)], where="post", label=label)
         if show_band:
-            ax.fill_between(t, np.r_[start, rows["lower"].to_numpy(float)], np.r_[start, rows["upper"].to_numpy(float)],
-                            step="post", alpha=0.2, color=line.get_color(), linewidth=0)
+            ax.fill_between(
+                t,
+                np.r_[start, rows["lower"].to_numpy(float)],
+                np.r_[start, rows["upper"].to_numpy(float)],
+                step="post",
+                alpha=0.2,
+                color=line.get_color(),
+                linewidth=0,
+            )
     ax.set_ylim(-0.02, 1.02)
     ax.set_ylabel(_Y_LABEL[estimate.kind])
     band = f"{100 * estimate.level:g}% pointwise band, {estimate.ci_scale} scale" if show_band else "no band drawn"

@@ -72,8 +72,9 @@ def timeline_figure(
     """
     variables = [v for v in variables if v in counting_process.columns][:4] or ["status"]
     n_rows = max(len(patient_ids), 1)
-    fig, axes = plt.subplots(n_rows, len(variables), figsize=(3.2 * len(variables), 2.1 * n_rows + 0.5),
-                             squeeze=False, sharex="row")
+    fig, axes = plt.subplots(
+        n_rows, len(variables), figsize=(3.2 * len(variables), 2.1 * n_rows + 0.5), squeeze=False, sharex="row"
+    )
     ends: set[int] = set()
     for i, pid in enumerate(patient_ids):
         rows = counting_process[counting_process["patient_id"] == pid].sort_values("start")
@@ -100,8 +101,11 @@ def timeline_figure(
             if i == n_rows - 1:
                 ax.set_xlabel("years since entry", fontsize=8)
     handles = [Line2D([], [], marker="o", linestyle="", color="#4d9221", markersize=3.5, label="new value known")]
-    handles += [Line2D([], [], linestyle="--", color=END_COLOURS[c], label=END_LABELS[c])
-                for c in sorted(ends) if c in END_LABELS]
+    handles += [
+        Line2D([], [], linestyle="--", color=END_COLOURS[c], label=END_LABELS[c])
+        for c in sorted(ends)
+        if c in END_LABELS
+    ]
     fig.legend(handles=handles, loc="lower center", ncol=len(handles), fontsize=7, frameon=False)
     fig.tight_layout(rect=(0, 0.35 / fig.get_figheight(), 1, 1))
     return fig

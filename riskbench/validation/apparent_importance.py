@@ -19,8 +19,9 @@ from riskbench.metrics.concordance import concordance_harrell
 __all__ = ["forest_importance"]
 
 
-def forest_importance(model: Any, table: pd.DataFrame, covariates: Sequence[str], horizon_days: float, *,
-                      seed: int = 0) -> list[dict[str, Any]]:
+def forest_importance(
+    model: Any, table: pd.DataFrame, covariates: Sequence[str], horizon_days: float, *, seed: int = 0
+) -> list[dict[str, Any]]:
     """Permutation importance of each covariate: Harrell's C of the risk at ``horizon_days`` on ``table`` minus
     the C after the covariate's values are shuffled across the rows (one seeded permutation each)."""
     rows = table.reset_index(drop=True)

@@ -31,6 +31,7 @@ from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_
 from riskbench.validation.performance import METRIC_DIRECTION, check_horizons
 from riskbench.validation.plans import bootstrap_patient_draw
 from riskbench.validation.sources import PrecomputedTables, TableSource, ValidationTables, draw_tables, subset_tables
+from riskbench.validation.table_files import ParquetTables
 
 #: Errors a replicate may hit on an unlucky resample (a fit that cannot converge, no events by a horizon);
 #: such replicates are dropped and counted, everything else propagates.
@@ -79,8 +80,9 @@ class ReplicateLog:
     failed_spec: str | None = None
 
 
-def fit_all_recorded(specs: Sequence[ModelSpec], tables: ValidationTables, seed: int | None,
-                     log: ReplicateLog) -> list[Any]:
+def fit_all_recorded(
+    specs: Sequence[ModelSpec], tables: ValidationTables, seed: int | None, log: ReplicateLog
+) -> list[Any]:
     """:func:`~riskbench.validation.paired.fit_all`, recording each fit's warnings (and a failing spec) in ``log``."""
     models = []
     for spec in specs:
@@ -138,6 +140,13 @@ class StackOnlyTables:
         self._ids = source.patient_ids()
         self._status = source.outcome_status()
         self._full = ValidationTables(source.full_tables().landmark_stack, None)
+        # a file-backed source travels to workers as its file references (each worker reads them once)
+        self._files = source if isinstance(source, ParquetTables) else None
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        if self._files is not None:
+            return (stack_only_tables, (self._files,))
+        return (_restore_stack_only, (self._ids, self._status, self._full))
 
     def patient_ids(self) -> np.ndarray:
         """The source's patient ids."""
@@ -156,11 +165,30 @@ class StackOnlyTables:
         return subset_tables(self._full, patient_ids)
 
 
+_stack_only: dict[int, tuple[PrecomputedTables, StackOnlyTables]] = {}
+
+
+def stack_only_tables(source: PrecomputedTables) -> StackOnlyTables:
+    """The :class:`StackOnlyTables` of ``source``, built once per process (unpickling a file-backed one calls
+    this; :func:`~riskbench.validation.table_files.parquet_tables` gives the same source object each time)."""
+    cached = _stack_only.get(id(source))
+    if cached is None or cached[0] is not source:
+        _stack_only.clear()  # one run's source at a time, as for the file-backed sources themselves
+        cached = _stack_only[id(source)] = (source, StackOnlyTables(source))
+    return cached[1]
+
+
+def _restore_stack_only(ids: np.ndarray, status: pd.Series, full: ValidationTables) -> StackOnlyTables:
+    tables = StackOnlyTables.__new__(StackOnlyTables)
+    tables._ids, tables._status, tables._full, tables._files = ids, status, full, None
+    return tables
+
+
 def resampling_source(source: TableSource, specs: Sequence[ModelSpec]) -> TableSource:
     """``source`` as the replicates should cut it: without the counting-process table when it is precomputed
     and no spec fits on it (:class:`StackOnlyTables`)."""
     if isinstance(source, PrecomputedTables) and all(s.family != "time_varying_cox" for s in specs):
-        return StackOnlyTables(source)
+        return stack_only_tables(source)
     return source
 
 
@@ -170,8 +198,9 @@ def failed_replicate(index: int, exc: BaseException, log: ReplicateLog | None = 
     return index, None, None, f"{spec}{type(exc).__name__}: {exc}", log
 
 
-def tagged_replicate(index: int, per_spec: pd.DataFrame, per_pair: pd.DataFrame | None = None, *,
-                     log: ReplicateLog | None = None) -> tuple:
+def tagged_replicate(
+    index: int, per_spec: pd.DataFrame, per_pair: pd.DataFrame | None = None, *, log: ReplicateLog | None = None
+) -> tuple:
     """The result of a successful replicate, its frames tagged with the replicate index."""
     for frame in (per_spec, per_pair):
         if frame is not None:
@@ -185,7 +214,7 @@ def replicate_problems(results: list) -> tuple[tuple[tuple[str, str], ...], tupl
     for r in results:
         if r[1] is None and r[3]:
             spec = (r[4].failed_spec or "") if len(r) > 4 and r[4] is not None else ""
-            failures.append((spec, r[3][len(spec) + 2:] if spec else r[3]))
+            failures.append((spec, r[3][len(spec) + 2 :] if spec else r[3]))
     fits = tuple(fit for r in results if len(r) > 4 and r[4] is not None for fit in r[4].fits)
     return tuple(failures), fits
 
@@ -210,8 +239,14 @@ def summarise_comparison(
         pair_reps = pd.DataFrame()
     replicates = pd.concat([spec_reps, pair_reps], ignore_index=True)
     failures, fit_log = replicate_problems(results)
-    return Comparison(performance=performance, differences=differences, replicates=replicates, n_failed=n_failed,
-                      failures=failures, fit_log=fit_log)
+    return Comparison(
+        performance=performance,
+        differences=differences,
+        replicates=replicates,
+        n_failed=n_failed,
+        failures=failures,
+        fit_log=fit_log,
+    )
 
 
 def collect_replicates(results: list) -> tuple[pd.DataFrame, pd.DataFrame, int]:
@@ -280,8 +315,9 @@ def compare_specs(
     full = source.full_tables()
     hs = check_horizons(horizons, full.landmark_stack)
     plan = Evaluation.build(specs, hs, pairs=pairs, thresholds=thresholds, nri_categories=nri_categories)
-    job = _ComparisonJob(evaluation=plan, source=resampling_source(source, specs),
-                         out_of_bag=evaluation == "out_of_bag")
+    job = _ComparisonJob(
+        evaluation=plan, source=resampling_source(source, specs), out_of_bag=evaluation == "out_of_bag"
+    )
     results = run_replicates(_comparison_replicate, job, seed, n_boot, config, description="paired bootstrap")
     spec_point = pair_point = None
     if evaluation == "apparent":

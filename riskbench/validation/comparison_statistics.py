@@ -18,8 +18,17 @@ from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.performance import evaluate_risks
 
 #: Measures shown in the comparison table (the validation stage computes a few more).
-COMPARISON_METRICS: tuple[str, ...] = ("harrell_c", "uno_c", "auc", "brier", "scaled_brier",
-                                       "calibration_slope", "ici", "nri", "idi")
+COMPARISON_METRICS: tuple[str, ...] = (
+    "harrell_c",
+    "uno_c",
+    "auc",
+    "brier",
+    "scaled_brier",
+    "calibration_slope",
+    "ici",
+    "nri",
+    "idi",
+)
 
 #: How the comparison table's estimates were obtained (stated in its ``obtained_by`` column).
 COMPARISON_OBTAINED_BY = "out-of-bag bootstrap (mean over resamples)"
@@ -48,11 +57,11 @@ def risk_matrices(cv: pd.DataFrame, n_rows: int) -> tuple[np.ndarray, dict[str, 
     horizons = np.sort(cv["horizon"].unique().astype(float))
     out: dict[str, np.ndarray] = {}
     for model, rows in cv.groupby("model", sort=False):
-        wide = rows.pivot(index="row", columns="horizon", values="risk").reindex(index=range(n_rows),
-                                                                                  columns=horizons)
+        wide = rows.pivot(index="row", columns="horizon", values="risk").reindex(index=range(n_rows), columns=horizons)
         if len(set(range(n_rows)) - set(rows["row"])):  # a NaN risk is a complete-case row left unpredicted
-            raise ValidationInputError(f"cv_predictions: model {model!r} lacks predictions for some rows; "
-                                       "rerun stage 3")
+            raise ValidationInputError(
+                f"cv_predictions: model {model!r} lacks predictions for some rows; rerun stage 3"
+            )
         out[str(model)] = wide.to_numpy(float)
     return horizons, out
 
@@ -67,14 +76,20 @@ def prediction_column(horizons: np.ndarray, horizon: float) -> int:
     """
     i = int(np.argmin(np.abs(horizons - horizon)))
     if abs(horizons[i] - horizon) > 1e-3:
-        raise ValidationInputError(f"no predictions at horizon {horizon} days; rerun stages 2 and 3 with this "
-                                   "configuration")
+        raise ValidationInputError(
+            f"no predictions at horizon {horizon} days; rerun stages 2 and 3 with this configuration"
+        )
     return i
 
 
-def discrimination_table(time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
-                         risks: dict[str, np.ndarray], report_days: tuple[float, ...],
-                         targets: dict[str, str] | None = None) -> pd.DataFrame:
+def discrimination_table(
+    time: np.ndarray,
+    status: np.ndarray,
+    horizons: np.ndarray,
+    risks: dict[str, np.ndarray],
+    report_days: tuple[float, ...],
+    targets: dict[str, str] | None = None,
+) -> pd.DataFrame:
     """Every measure of :func:`riskbench.validation.performance.evaluate_risks` at the report horizons.
 
     Parameters
@@ -102,8 +117,9 @@ def discrimination_table(time: np.ndarray, status: np.ndarray, horizons: np.ndar
     table = pd.concat(frames, ignore_index=True)
     table["horizon_years"] = table.pop("horizon_days") / DAYS_PER_YEAR
     table = table.drop(columns=["threshold"])
-    return table.pivot_table(index=["horizon_years", "metric"], columns="model", values="value",
-                             sort=False, dropna=False).reset_index()
+    return table.pivot_table(
+        index=["horizon_years", "metric"], columns="model", values="value", sort=False, dropna=False
+    ).reset_index()
 
 
 def comparison_table(comparison: Comparison, reference: str, candidate: str) -> pd.DataFrame:
@@ -124,11 +140,18 @@ def comparison_table(comparison: Comparison, reference: str, candidate: str) -> 
     for r in diff.itertuples(index=False):
         if r.metric not in COMPARISON_METRICS or not np.isnan(r.threshold):
             continue
-        row: dict[str, object] = {"metric": r.metric, "horizon_years": r.horizon_days / DAYS_PER_YEAR,
-                                  "obtained_by": COMPARISON_OBTAINED_BY}
+        row: dict[str, object] = {
+            "metric": r.metric,
+            "horizon_years": r.horizon_days / DAYS_PER_YEAR,
+            "obtained_by": COMPARISON_OBTAINED_BY,
+        }
         for name in (reference, candidate):
-            p = perf[(perf["spec"] == name) & (perf["metric"] == r.metric) & (perf["horizon_days"] == r.horizon_days)
-                     & perf["threshold"].isna()]
+            p = perf[
+                (perf["spec"] == name)
+                & (perf["metric"] == r.metric)
+                & (perf["horizon_days"] == r.horizon_days)
+                & perf["threshold"].isna()
+            ]
             values = p[["estimate", "ci_low", "ci_high"]].iloc[0].to_numpy(float) if len(p) else np.full(3, np.nan)
             row.update(_interval_columns(name, *values))
         row.update(_interval_columns(difference_name(candidate, reference), r.estimate, r.ci_low, r.ci_high))

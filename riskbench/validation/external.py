@@ -114,14 +114,31 @@ class ExternalValidation:
         frame = pooled[["horizon_days", "model", "metric", "estimate", "ci_low", "ci_high"]].copy()
         extra = []
         for (model, h), cal in self.calibration.items():
-            extra.append((h, model, "calibration_slope", cal.slope, cal.slope - 1.96 * cal.slope_se,
-                          cal.slope + 1.96 * cal.slope_se))
-            extra.append((h, model, "calibration_intercept", cal.intercept, cal.intercept - 1.96 * cal.intercept_se,
-                          cal.intercept + 1.96 * cal.intercept_se))
+            extra.append(
+                (
+                    h,
+                    model,
+                    "calibration_slope",
+                    cal.slope,
+                    cal.slope - 1.96 * cal.slope_se,
+                    cal.slope + 1.96 * cal.slope_se,
+                )
+            )
+            extra.append(
+                (
+                    h,
+                    model,
+                    "calibration_intercept",
+                    cal.intercept,
+                    cal.intercept - 1.96 * cal.intercept_se,
+                    cal.intercept + 1.96 * cal.intercept_se,
+                )
+            )
         if extra:
             frame = pd.concat([frame, pd.DataFrame(extra, columns=frame.columns)], ignore_index=True)
-        frame.insert(2, "chosen", [self.tests[float(h)].chosen == m for h, m in zip(frame["horizon_days"],
-                                                                                     frame["model"])])
+        frame.insert(
+            2, "chosen", [self.tests[float(h)].chosen == m for h, m in zip(frame["horizon_days"], frame["model"])]
+        )
         order = {m: i for i, m in enumerate(METHODS)}
         frame["_order"] = frame["model"].map(order)
         return frame.sort_values(["horizon_days", "metric", "_order"]).drop(columns="_order").reset_index(drop=True)
@@ -138,8 +155,7 @@ class ExternalValidation:
         return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
 
 
-def _attempt(skipped: list[tuple[str, str]], part: str, compute: Callable[..., Any], *args: Any,
-             **kwargs: Any) -> Any:
+def _attempt(skipped: list[tuple[str, str]], part: str, compute: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
     try:
         return compute(*args, **kwargs)
     except (ValidationInputError, MetricInputError, np.linalg.LinAlgError) as exc:
@@ -217,13 +233,20 @@ def validate_externally(
         risks["original"][:, j] = rows.risk
         fits[h] = {}
         for method in methods:
-            fit = _attempt(skipped, f"{method} at {h:g} days", fit_update, rows, method,
-                           shrink=shrink_revision and method == "revision")
+            fit = _attempt(
+                skipped,
+                f"{method} at {h:g} days",
+                fit_update,
+                rows,
+                method,
+                shrink=shrink_revision and method == "revision",
+            )
             if fit is None:
                 continue
             fits[h][method] = fit
-            risks.setdefault(method, np.full((len(stack), len(hs)), np.nan))[:, j] = fit.risk(rows.risk,
-                                                                                             rows.landmark, rows.x)
+            risks.setdefault(method, np.full((len(stack), len(hs)), np.nan))[:, j] = fit.risk(
+                rows.risk, rows.landmark, rows.x
+            )
         # the closed test compares unshrunk fits
         unshrunk = dict(fits[h])
         if shrink_revision and "revision" in unshrunk:
@@ -236,31 +259,75 @@ def validate_externally(
     eval_rows = EvaluationRows.from_stack(stack)
     longest = hs[-1]
     performance = landmark_performance(
-        eval_rows, hs, complete, report_days=hs, curve_days=(), decision_days=longest if len(thresholds) else None,
-        thresholds=thresholds, targets={m: target for m in complete}, min_outcomes=min_outcomes, n_boot=n_boot,
-        seed=seed, config=config,
+        eval_rows,
+        hs,
+        complete,
+        report_days=hs,
+        curve_days=(),
+        decision_days=longest if len(thresholds) else None,
+        thresholds=thresholds,
+        targets={m: target for m in complete},
+        min_outcomes=min_outcomes,
+        n_boot=n_boot,
+        seed=seed,
+        config=config,
     )
     calibration: dict[tuple[str, float], Calibration] = {}
     for j, h in enumerate(hs):
         t_eval = evaluation_time(h, eval_rows.time)
         for m, r in complete.items():
-            cal = _attempt(skipped, f"calibration of {m} at {h:g} days", calibration_at_horizon, eval_rows.time,
-                           eval_rows.status, r[:, j], t_eval, target=target, cluster=eval_rows.patient,
-                           n_boot=min(n_boot, 100), seed=seed)
+            cal = _attempt(
+                skipped,
+                f"calibration of {m} at {h:g} days",
+                calibration_at_horizon,
+                eval_rows.time,
+                eval_rows.status,
+                r[:, j],
+                t_eval,
+                target=target,
+                cluster=eval_rows.patient,
+                n_boot=min(n_boot, 100),
+                seed=seed,
+            )
             if cal is not None:
                 calibration[(m, h)] = cal
     triage = _triage(eval_rows, complete, hs, tests, triage_target_npv, n_boot, seed, skipped)
-    optimism = optimism_for(rows_at, fits, n_boot=n_boot, seed=seed, shrink_revision=shrink_revision,
-                            methods=[m for m in complete if m != "original"])
+    optimism = optimism_for(
+        rows_at,
+        fits,
+        n_boot=n_boot,
+        seed=seed,
+        shrink_revision=shrink_revision,
+        methods=[m for m in complete if m != "original"],
+    )
     outcomes = int(((eval_rows.status == 1) & (eval_rows.time <= longest)).sum())
-    return ExternalValidation(hs, target, fits, tests, complete, performance, calibration, triage, skipped,
-                              update_optimism=optimism, n_rows=len(stack),
-                              n_patients=int(np.unique(eval_rows.patient).size), n_outcomes=outcomes)
+    return ExternalValidation(
+        hs,
+        target,
+        fits,
+        tests,
+        complete,
+        performance,
+        calibration,
+        triage,
+        skipped,
+        update_optimism=optimism,
+        n_rows=len(stack),
+        n_patients=int(np.unique(eval_rows.patient).size),
+        n_outcomes=outcomes,
+    )
 
 
-def _triage(rows: EvaluationRows, risks: dict[str, np.ndarray], horizons: tuple[float, ...],
-            tests: dict[float, ClosedTest], target_npv: float | None, n_boot: int, seed: int,
-            skipped: list[tuple[str, str]]) -> pd.DataFrame:
+def _triage(
+    rows: EvaluationRows,
+    risks: dict[str, np.ndarray],
+    horizons: tuple[float, ...],
+    tests: dict[float, ClosedTest],
+    target_npv: float | None,
+    n_boot: int,
+    seed: int,
+    skipped: list[tuple[str, str]],
+) -> pd.DataFrame:
     """Triage operating point of the original and the chosen model at each horizon."""
     if target_npv is None:
         return pd.DataFrame()
@@ -270,8 +337,18 @@ def _triage(rows: EvaluationRows, risks: dict[str, np.ndarray], horizons: tuple[
         for m in dict.fromkeys(("original", tests[h].chosen)):
             if m not in risks:
                 continue
-            table = _attempt(skipped, f"triage of {m} at {h:g} days", triage_operating_point, rows.time,
-                             rows.status, risks[m][:, j], t_eval, target_npv=target_npv, n_boot=n_boot, seed=seed)
+            table = _attempt(
+                skipped,
+                f"triage of {m} at {h:g} days",
+                triage_operating_point,
+                rows.time,
+                rows.status,
+                risks[m][:, j],
+                t_eval,
+                target_npv=target_npv,
+                n_boot=n_boot,
+                seed=seed,
+            )
             if table is not None:
                 tables.append(table.assign(model=m, horizon_days=h))
     return pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()

@@ -46,7 +46,9 @@ def _check_groups(spec: ModelSpec, groups: Mapping[str, Sequence[str]]) -> dict[
         members = (members,) if isinstance(members, str) else tuple(members)
         absent = [c for c in members if c not in spec.covariates]
         if not members or absent:
-            raise ValidationInputError(f"group '{name}' names covariates {absent or members} not in spec '{spec.name}'.")
+            raise ValidationInputError(
+                f"group '{name}' names covariates {absent or members} not in spec '{spec.name}'."
+            )
         out[str(name)] = members
     return out
 
@@ -184,4 +186,6 @@ def permutation_importance(
     reps, _, _ = collect_replicates(results)
     reps = reps.assign(threshold=np.nan)
     summary = percentile_summary(reps, ["group", "metric", "horizon_days"], level=level)
-    return summary.rename(columns={"estimate": "drop"})[["group", "metric", "horizon_days", "drop", "ci_low", "ci_high", "n_boot"]]
+    return summary.rename(columns={"estimate": "drop"})[
+        ["group", "metric", "horizon_days", "drop", "ci_low", "ci_high", "n_boot"]
+    ]

@@ -35,18 +35,19 @@ def form_comparisons(fitted: str, n_landmarks: int) -> list[tuple[str, str]]:
     the landmarks allow against it, or, for the richest form, the fitted form against the next simpler one."""
     if fitted not in FORMS:
         raise ValidationInputError(f"landmark_effects must be one of {FORMS}; got {fitted!r}")
-    allowed = FORMS[:max(1, min(n_landmarks, len(FORMS)))]
+    allowed = FORMS[: max(1, min(n_landmarks, len(FORMS)))]
     i = FORMS.index(fitted)
     if fitted not in allowed:
         return []
-    richer = [(fitted, f) for f in allowed[i + 1:]]
+    richer = [(fitted, f) for f in allowed[i + 1 :]]
     if richer:
         return richer
     return [(FORMS[i - 1], fitted)] if i > 0 else []
 
 
-def landmark_form_test(stack: pd.DataFrame, covariates: Sequence[str], smaller: str, larger: str,
-                       params: Mapping[str, Any] | None = None) -> dict[str, Any]:
+def landmark_form_test(
+    stack: pd.DataFrame, covariates: Sequence[str], smaller: str, larger: str, params: Mapping[str, Any] | None = None
+) -> dict[str, Any]:
     """Likelihood-ratio test of landmark form ``larger`` against ``smaller`` (module notes).
 
     Parameters
@@ -71,17 +72,27 @@ def landmark_form_test(stack: pd.DataFrame, covariates: Sequence[str], smaller: 
         Forms not nested, or a fit that does not allow the test.
     """
     if smaller not in FORMS or larger not in FORMS or FORMS.index(smaller) >= FORMS.index(larger):
-        raise ValidationInputError(f"the landmark forms {smaller!r} and {larger!r} are not nested in that order; "
-                                   f"use two of {FORMS}, the simpler first")
+        raise ValidationInputError(
+            f"the landmark forms {smaller!r} and {larger!r} are not nested in that order; "
+            f"use two of {FORMS}, the simpler first"
+        )
     covariates = list(covariates)
     complete = stack[covariates].notna().all(axis=1).to_numpy() if covariates else np.ones(len(stack), bool)
     rows = stack.loc[complete]
     other = {k: v for k, v in dict(params or {}).items() if k not in ("landmark_effects", "competing")}
-    fits = [LandmarkSupermodel(covariates, landmark_effects=form, competing=False, **other).fit(rows)
-            for form in (smaller, larger)]
+    fits = [
+        LandmarkSupermodel(covariates, landmark_effects=form, competing=False, **other).fit(rows)
+        for form in (smaller, larger)
+    ]
     small, large = (f.outcome_ for f in fits)
     if not np.isclose(small.loglik_null, large.loglik_null, rtol=1e-8, atol=1e-8):
         raise ValidationInputError("the two forms' null log-likelihoods differ; they were not fitted on the same rows")
     test = likelihood_ratio_test(small.loglik, large.loglik, len(large.coef) - len(small.coef))
-    return {"smaller_form": smaller, "larger_form": larger, "lr_statistic": test.statistic, "df": test.df,
-            "p_value": test.p_value, "rows": int(complete.sum())}
+    return {
+        "smaller_form": smaller,
+        "larger_form": larger,
+        "lr_statistic": test.statistic,
+        "df": test.df,
+        "p_value": test.p_value,
+        "rows": int(complete.sum()),
+    }

@@ -72,8 +72,10 @@ class EvaluationRows:
         time, status = stack_outcome(stack)
         landmark = pd.to_numeric(stack["landmark"], errors="coerce").to_numpy(float)
         if not np.isfinite(landmark).all():
-            raise ValidationInputError("the evaluation stack's 'landmark' has missing values in rows "
-                                       f"{np.flatnonzero(~np.isfinite(landmark))[:5].tolist()}.")
+            raise ValidationInputError(
+                "the evaluation stack's 'landmark' has missing values in rows "
+                f"{np.flatnonzero(~np.isfinite(landmark))[:5].tolist()}."
+            )
         patient = pd.factorize(stack["patient_id"])[0]
         return cls(time, status, landmark, patient)
 
@@ -126,8 +128,9 @@ class LandmarkPerformance:
     decision_days: float | None = None
 
 
-def landmark_cells(rows: EvaluationRows, report_days: Sequence[float],
-                   min_outcomes: int) -> tuple[tuple[float, float], ...]:
+def landmark_cells(
+    rows: EvaluationRows, report_days: Sequence[float], min_outcomes: int
+) -> tuple[tuple[float, float], ...]:
     """``(landmark, horizon)`` pairs (landmark NaN = pooled) with at least ``min_outcomes`` outcomes before the
     horizon among their rows."""
     cells = []
@@ -157,19 +160,33 @@ def evaluate_plan(rows: EvaluationRows, plan: EvaluationPlan, index: np.ndarray 
         risk = matrix[idx]
         for lm, h in plan.cells:
             at = rows_at[lm]
-            values = _measures_or_nan(time[at], status[at], risk[at, plan.column(h)], h,
-                                      plan.targets.get(model, "cumulative_incidence"), sets[lm])
+            values = _measures_or_nan(
+                time[at],
+                status[at],
+                risk[at, plan.column(h)],
+                h,
+                plan.targets.get(model, "cumulative_incidence"),
+                sets[lm],
+            )
             out += [("measure", model, lm, h, name, np.nan, values[name]) for name in HORIZON_MEASURES]
-        out += [("auc_curve", model, np.nan, h, "auc", np.nan, v)
-                for h, v in zip(plan.curve_days, _auc_curve(time, status, risk, plan))]
+        out += [
+            ("auc_curve", model, np.nan, h, "auc", np.nan, v)
+            for h, v in zip(plan.curve_days, _auc_curve(time, status, risk, plan))
+        ]
         if plan.decision_days is not None and plan.thresholds:
             model_nb, all_nb, fraction = _net_benefit(time, status, risk[:, plan.column(plan.decision_days)], plan)
-            out += [("net_benefit", model, np.nan, plan.decision_days, "model", p, v)
-                    for p, v in zip(plan.thresholds, model_nb)]
-            out += [("net_benefit", model, np.nan, plan.decision_days, "fraction_treated", p, v)
-                    for p, v in zip(plan.thresholds, fraction)]
-            out += [("net_benefit", model, np.nan, plan.decision_days, "treat_all", p, v)
-                    for p, v in zip(plan.thresholds, all_nb)]
+            out += [
+                ("net_benefit", model, np.nan, plan.decision_days, "model", p, v)
+                for p, v in zip(plan.thresholds, model_nb)
+            ]
+            out += [
+                ("net_benefit", model, np.nan, plan.decision_days, "fraction_treated", p, v)
+                for p, v in zip(plan.thresholds, fraction)
+            ]
+            out += [
+                ("net_benefit", model, np.nan, plan.decision_days, "treat_all", p, v)
+                for p, v in zip(plan.thresholds, all_nb)
+            ]
     return pd.DataFrame(out, columns=[*KEY_COLUMNS, "value"])
 
 
@@ -181,8 +198,9 @@ def _outcome_set(time: np.ndarray, status: np.ndarray) -> OutcomeSet | None:
         return None
 
 
-def _measures_or_nan(time: np.ndarray, status: np.ndarray, risk: np.ndarray, h: float,
-                     target: str, outcomes: OutcomeSet | None) -> dict[str, float]:
+def _measures_or_nan(
+    time: np.ndarray, status: np.ndarray, risk: np.ndarray, h: float, target: str, outcomes: OutcomeSet | None
+) -> dict[str, float]:
     try:
         if outcomes is None:
             raise MetricInputError("no rows to measure")
@@ -213,20 +231,19 @@ def _auc_one(time: np.ndarray, status: np.ndarray, risk: np.ndarray, at: float) 
         return np.nan
 
 
-def _net_benefit(time: np.ndarray, status: np.ndarray, risk: np.ndarray,
-                 plan: EvaluationPlan) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _net_benefit(
+    time: np.ndarray, status: np.ndarray, risk: np.ndarray, plan: EvaluationPlan
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     from riskbench.metrics import net_benefit
 
     days = float(plan.decision_days) if plan.decision_days is not None else np.nan  # called only with decision days
     try:
-        nb = net_benefit(time, status, risk, evaluation_time(days, time), list(plan.thresholds),
-                         check_direction=False)
+        nb = net_benefit(time, status, risk, evaluation_time(days, time), list(plan.thresholds), check_direction=False)
     except MetricInputError:
         empty = np.full(len(plan.thresholds), np.nan)
         return empty, empty, empty
     order = np.argsort(np.argsort(plan.thresholds))  # net_benefit sorts the thresholds; back to plan order
-    return (nb["model"].to_numpy()[order], nb["treat_all"].to_numpy()[order],
-            nb["fraction_treated"].to_numpy()[order])
+    return (nb["model"].to_numpy()[order], nb["treat_all"].to_numpy()[order], nb["fraction_treated"].to_numpy()[order])
 
 
 def patient_resample(patient: np.ndarray, rng: np.random.Generator) -> np.ndarray:
@@ -249,13 +266,13 @@ def _replicate(shared: dict, _i: int, seed: np.random.SeedSequence) -> np.ndarra
 
 def landmark_performance(
     rows: EvaluationRows,
-    horizons: Sequence[float],
+    horizons: Sequence[float] | np.ndarray,
     risks: Mapping[str, np.ndarray],
     *,
     report_days: Sequence[float],
     curve_days: Sequence[float] = (),
     decision_days: float | None = None,
-    thresholds: Sequence[float] = (),
+    thresholds: Sequence[float] | np.ndarray = (),
     targets: Mapping[str, str] | None = None,
     min_outcomes: int = 1,
     n_boot: int = 200,
@@ -301,15 +318,24 @@ def landmark_performance(
         raise ValidationInputError(f"the number of bootstrap resamples must be 0 or more; got {n_boot}.")
     for model, matrix in risks.items():
         if np.shape(matrix) != (rows.time.size, len(horizons)):
-            raise ValidationInputError(f"model {model!r}: risk matrix of shape {np.shape(matrix)}; expected "
-                                       f"({rows.time.size}, {len(horizons)}) (rows × horizons).")
-    plan = EvaluationPlan(np.asarray(horizons, float), dict(risks), tuple(float(h) for h in report_days),
-                          tuple(float(h) for h in curve_days), None if decision_days is None else float(decision_days),
-                          tuple(float(p) for p in thresholds), landmark_cells(rows, report_days, min_outcomes),
-                          dict(targets or {}))
+            raise ValidationInputError(
+                f"model {model!r}: risk matrix of shape {np.shape(matrix)}; expected "
+                f"({rows.time.size}, {len(horizons)}) (rows × horizons)."
+            )
+    plan = EvaluationPlan(
+        np.asarray(horizons, float),
+        dict(risks),
+        tuple(float(h) for h in report_days),
+        tuple(float(h) for h in curve_days),
+        None if decision_days is None else float(decision_days),
+        tuple(float(p) for p in thresholds),
+        landmark_cells(rows, report_days, min_outcomes),
+        dict(targets or {}),
+    )
     point = evaluate_plan(rows, plan)
-    replicates = run_replicates(_replicate, {"rows": rows, "plan": plan}, seed, n_boot, config,
-                                description="bootstrap of the evaluation")
+    replicates = run_replicates(
+        _replicate, {"rows": rows, "plan": plan}, seed, n_boot, config, description="bootstrap of the evaluation"
+    )
     table = _with_intervals(point, np.array(replicates, float).reshape(n_boot, len(point)))
     return LandmarkPerformance(_measures(table), _curve(table), _decisions(table), n_boot, plan.decision_days)
 
@@ -330,34 +356,61 @@ def _with_intervals(point: pd.DataFrame, draws: np.ndarray) -> pd.DataFrame:
 
 def _measures(table: pd.DataFrame) -> pd.DataFrame:
     rows = table[table["part"] == "measure"]
-    return rows[["model", "landmark_days", "horizon_days", "metric", "estimate", "ci_low", "ci_high",
-                 "resamples"]].reset_index(drop=True)
+    return rows[
+        ["model", "landmark_days", "horizon_days", "metric", "estimate", "ci_low", "ci_high", "resamples"]
+    ].reset_index(drop=True)
 
 
 def _curve(table: pd.DataFrame) -> pd.DataFrame:
     rows = table[table["part"] == "auc_curve"]
-    return pd.DataFrame({"model": rows["model"].to_numpy(), "horizon": rows["horizon_days"].to_numpy(float),
-                         "auc": rows["estimate"].to_numpy(float), "auc_lower": rows["ci_low"].to_numpy(float),
-                         "auc_upper": rows["ci_high"].to_numpy(float), "resamples": rows["resamples"].to_numpy()})
+    return pd.DataFrame(
+        {
+            "model": rows["model"].to_numpy(),
+            "horizon": rows["horizon_days"].to_numpy(float),
+            "auc": rows["estimate"].to_numpy(float),
+            "auc_lower": rows["ci_low"].to_numpy(float),
+            "auc_upper": rows["ci_high"].to_numpy(float),
+            "resamples": rows["resamples"].to_numpy(),
+        }
+    )
 
 
 def _decisions(table: pd.DataFrame) -> pd.DataFrame:
     rows = table[table["part"] == "net_benefit"]
     if rows.empty:
-        return pd.DataFrame(columns=["model_name", "threshold", "model", "model_lower", "model_upper", "treat_all",
-                                     "treat_all_lower", "treat_all_upper", "treat_none", "fraction_treated"])
-    wide = rows.pivot_table(index=["model", "threshold"], columns="metric",
-                            values=["estimate", "ci_low", "ci_high"], sort=False, dropna=False)
-    out = pd.DataFrame({
-        "model_name": wide.index.get_level_values("model"),
-        "threshold": wide.index.get_level_values("threshold").astype(float),
-        "model": wide[("estimate", "model")].to_numpy(),
-        "model_lower": wide[("ci_low", "model")].to_numpy(),
-        "model_upper": wide[("ci_high", "model")].to_numpy(),
-        "treat_all": wide[("estimate", "treat_all")].to_numpy(),
-        "treat_all_lower": wide[("ci_low", "treat_all")].to_numpy(),
-        "treat_all_upper": wide[("ci_high", "treat_all")].to_numpy(),
-        "treat_none": 0.0,
-        "fraction_treated": wide[("estimate", "fraction_treated")].to_numpy(),
-    })
+        return pd.DataFrame(
+            columns=[
+                "model_name",
+                "threshold",
+                "model",
+                "model_lower",
+                "model_upper",
+                "treat_all",
+                "treat_all_lower",
+                "treat_all_upper",
+                "treat_none",
+                "fraction_treated",
+            ]
+        )
+    wide = rows.pivot_table(
+        index=["model", "threshold"],
+        columns="metric",
+        values=["estimate", "ci_low", "ci_high"],
+        sort=False,
+        dropna=False,
+    )
+    out = pd.DataFrame(
+        {
+            "model_name": wide.index.get_level_values("model"),
+            "threshold": wide.index.get_level_values("threshold").astype(float),
+            "model": wide[("estimate", "model")].to_numpy(),
+            "model_lower": wide[("ci_low", "model")].to_numpy(),
+            "model_upper": wide[("ci_high", "model")].to_numpy(),
+            "treat_all": wide[("estimate", "treat_all")].to_numpy(),
+            "treat_all_lower": wide[("ci_low", "treat_all")].to_numpy(),
+            "treat_all_upper": wide[("ci_high", "treat_all")].to_numpy(),
+            "treat_none": 0.0,
+            "fraction_treated": wide[("estimate", "fraction_treated")].to_numpy(),
+        }
+    )
     return out.reset_index(drop=True)

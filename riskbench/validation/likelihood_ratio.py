@@ -112,8 +112,11 @@ def nested_cox_lr_test(small: Any, large: Any) -> LikelihoodRatioTest:
             )
     null_small = getattr(fit_small, "loglik_null", None)
     null_large = getattr(fit_large, "loglik_null", None)
-    if (null_small is not None and null_large is not None
-            and not np.isclose(float(null_small), float(null_large), rtol=1e-8, atol=1e-8)):
+    if (
+        null_small is not None
+        and null_large is not None
+        and not np.isclose(float(null_small), float(null_large), rtol=1e-8, atol=1e-8)
+    ):
         raise ValidationInputError(
             f"the null log-likelihoods differ ({null_small:.8g} vs {null_large:.8g}): the models were "
             "fitted on different rows (e.g. different missing-value exclusions). Refit both on the same rows."

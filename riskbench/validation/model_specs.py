@@ -11,8 +11,12 @@ from riskbench.models.missing_data import MissingDataPlan
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.sources import ValidationTables
 
-FAMILIES: tuple[str, ...] = ("landmark_cox", "time_varying_cox", "forest",
-                              "shared_trajectory_joint")  # "cox": old name, accepted
+FAMILIES: tuple[str, ...] = (
+    "landmark_cox",
+    "time_varying_cox",
+    "forest",
+    "shared_trajectory_joint",
+)  # "cox": old name, accepted
 #: Families fitted on the counting-process table.
 COUNTING_PROCESS_FAMILIES: tuple[str, ...] = ("time_varying_cox", "shared_trajectory_joint")
 
@@ -53,12 +57,16 @@ class ModelSpec:
             raise ValidationInputError("a ModelSpec needs a non-empty name.")
         covs = (self.covariates,) if isinstance(self.covariates, str) else tuple(self.covariates)
         if not covs or not all(isinstance(c, str) and c for c in covs):
-            raise ValidationInputError(f"ModelSpec '{self.name}': covariates must be non-empty column names; got {self.covariates!r}.")
+            raise ValidationInputError(
+                f"ModelSpec '{self.name}': covariates must be non-empty column names; got {self.covariates!r}."
+            )
         if len(set(covs)) != len(covs):
             raise ValidationInputError(f"ModelSpec '{self.name}': covariates repeat a name: {list(covs)}.")
         object.__setattr__(self, "family", canonical_family(self.family))
         if self.family not in FAMILIES:
-            raise ValidationInputError(f"ModelSpec '{self.name}': family must be one of {FAMILIES}; got {self.family!r}.")
+            raise ValidationInputError(
+                f"ModelSpec '{self.name}': family must be one of {FAMILIES}; got {self.family!r}."
+            )
         object.__setattr__(self, "covariates", covs)
         object.__setattr__(self, "params", dict(self.params))
         try:
@@ -74,8 +82,9 @@ class ModelSpec:
         kept = tuple(c for c in self.covariates if c not in set(group))
         if not kept:
             raise ValidationInputError(f"removing {list(group)} leaves ModelSpec '{self.name}' without covariates.")
-        return ModelSpec(name or f"{self.name} without {', '.join(group)}", kept, self.family, self.params,
-                         self.missing)
+        return ModelSpec(
+            name or f"{self.name} without {', '.join(group)}", kept, self.family, self.params, self.missing
+        )
 
 
 def build_estimator(spec: ModelSpec, *, seed: int | None = None) -> Any:
@@ -107,8 +116,13 @@ def build_estimator(spec: ModelSpec, *, seed: int | None = None) -> Any:
     plan = MissingDataPlan.coerce(spec.missing)  # a plan already (ModelSpec coerces it); typed for the checker
     if plan is None:
         return estimator
-    return MissingDataModel(estimator, method=plan.method, imputations=plan.imputations,
-                            max_iterations=plan.max_iterations, random_state=0 if seed is None else int(seed))
+    return MissingDataModel(
+        estimator,
+        method=plan.method,
+        imputations=plan.imputations,
+        max_iterations=plan.max_iterations,
+        random_state=0 if seed is None else int(seed),
+    )
 
 
 def fit_spec(spec: ModelSpec, tables: ValidationTables, *, seed: int | None = None) -> Any:

@@ -98,8 +98,9 @@ def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSeque
     return tagged_replicate(index, frame, log=log)
 
 
-def _out_of_bag(plan: Evaluation, models: list[Any], stack: pd.DataFrame, risks: list[dict[float, np.ndarray]],
-                drawn: np.ndarray) -> pd.DataFrame | None:
+def _out_of_bag(
+    plan: Evaluation, models: list[Any], stack: pd.DataFrame, risks: list[dict[float, np.ndarray]], drawn: np.ndarray
+) -> pd.DataFrame | None:
     """Measures of the refits on the rows of the patients the resample did not draw (None if they cannot be
     measured there, e.g. no outcome among them: the replicate then counts for the other estimates only)."""
     held = ~stack["patient_id"].isin(pd.unique(drawn)).to_numpy()
@@ -216,16 +217,20 @@ def bootstrap_optimism_result(
     oob = reps.groupby(OPTIMISM_KEYS, dropna=False)["out_of_bag"].mean().rename("out_of_bag").reset_index()
     out = out.merge(oob, on=OPTIMISM_KEYS, how="left")
     gamma = out["metric"].map(NO_INFORMATION)
-    out["dot632_plus"] = np.where(gamma.notna(), dot632_plus(out["apparent"], out["out_of_bag"],
-                                                             gamma.fillna(0.5).to_numpy()), np.nan)
-    table = out[OPTIMISM_KEYS + ["apparent", "optimism", "corrected", "optimism_low", "optimism_high",
-                                 "out_of_bag", "dot632_plus", "n_boot"]]
+    out["dot632_plus"] = np.where(
+        gamma.notna(), dot632_plus(out["apparent"], out["out_of_bag"], gamma.fillna(0.5).to_numpy()), np.nan
+    )
+    table = out[
+        OPTIMISM_KEYS
+        + ["apparent", "optimism", "corrected", "optimism_low", "optimism_high", "out_of_bag", "dot632_plus", "n_boot"]
+    ]
     failures, fit_log = replicate_problems(results)
     return OptimismResult(table, n_failed, failures, fit_log)
 
 
-def bootstrap_optimism(specs: ModelSpec | Sequence[ModelSpec], source: TableSource, horizons: Sequence[float],
-                       **options: Any) -> pd.DataFrame:
+def bootstrap_optimism(
+    specs: ModelSpec | Sequence[ModelSpec], source: TableSource, horizons: Sequence[float], **options: Any
+) -> pd.DataFrame:
     """The table of :func:`bootstrap_optimism_result` (same parameters, given by keyword)."""
     return bootstrap_optimism_result(specs, source, horizons, **options).table
 

@@ -106,8 +106,14 @@ class Evaluation:
     ) -> tuple[pd.DataFrame, pd.DataFrame]:
         """Per-spec and pairwise measures of ``models`` on ``stack`` (see :func:`evaluate_fitted`)."""
         return evaluate_fitted(
-            self.specs, models, stack, self.horizons,
-            pairs=self.pairs, thresholds=self.thresholds, nri_categories=self.nri_categories, risks=risks,
+            self.specs,
+            models,
+            stack,
+            self.horizons,
+            pairs=self.pairs,
+            thresholds=self.thresholds,
+            nri_categories=self.nri_categories,
+            risks=risks,
         )
 
 
@@ -184,8 +190,9 @@ def evaluate_fitted(
     per_spec = []
     outcomes = OutcomeSet.from_arrays(time, status)  # one sort and censoring curve for every spec and horizon
     for spec, model, risk in zip(specs, models, risks):
-        frame = evaluate_risks(time, status, risk, thresholds=thresholds, target=fitted_target(model),
-                               outcomes=outcomes)
+        frame = evaluate_risks(
+            time, status, risk, thresholds=thresholds, target=fitted_target(model), outcomes=outcomes
+        )
         frame.insert(0, "spec", spec.name)
         per_spec.append(frame)
     spec_frame = pd.concat(per_spec, ignore_index=True)
@@ -226,8 +233,11 @@ def _reclassification_rows(
         ]
         if categories is not None:
             cat = net_reclassification(time, event, risk_ref[h], risk_cand[h], t_eval, categories=categories)
-            rows += [("nri_cat_events", h, cat.events), ("nri_cat_nonevents", h, cat.nonevents),
-                     ("nri_cat", h, cat.total)]
+            rows += [
+                ("nri_cat_events", h, cat.events),
+                ("nri_cat_nonevents", h, cat.nonevents),
+                ("nri_cat", h, cat.total),
+            ]
     frame = pd.DataFrame(rows, columns=["metric", "horizon_days", "value"])
     frame["threshold"] = np.nan
     frame.insert(0, "candidate", cand)

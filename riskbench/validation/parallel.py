@@ -93,16 +93,21 @@ class ExecutionConfig:
         """The execution settings of an ``[execution]`` plan (``workers``, ``scheduler_address``,
         ``allow_remote_scheduler``, ``tls_ca_file``, ``tls_client_cert_file``, ``tls_client_key_file``,
         ``replicates_per_task``)."""
+
         def file(key: str) -> str | None:
             value = getattr(plan, key, None)
             return str(value) if value else None
 
-        return cls(n_jobs=int(getattr(plan, "workers", 1)), scheduler_address=getattr(plan, "scheduler_address", None)
-                   or None, progress=progress,
-                   allow_remote_scheduler=bool(getattr(plan, "allow_remote_scheduler", False)),
-                   replicates_per_task=getattr(plan, "replicates_per_task", None) or None,
-                   tls_ca_file=file("tls_ca_file"), tls_client_cert_file=file("tls_client_cert_file"),
-                   tls_client_key_file=file("tls_client_key_file"))
+        return cls(
+            n_jobs=int(getattr(plan, "workers", 1)),
+            scheduler_address=getattr(plan, "scheduler_address", None) or None,
+            progress=progress,
+            allow_remote_scheduler=bool(getattr(plan, "allow_remote_scheduler", False)),
+            replicates_per_task=getattr(plan, "replicates_per_task", None) or None,
+            tls_ca_file=file("tls_ca_file"),
+            tls_client_cert_file=file("tls_client_cert_file"),
+            tls_client_key_file=file("tls_client_key_file"),
+        )
 
 
 TLS_KEYS: tuple[str, ...] = ("tls_ca_file", "tls_client_cert_file", "tls_client_key_file")
@@ -144,11 +149,15 @@ def check_scheduler(plan: Any) -> list[str]:
     try:
         scheme, host = scheduler_host(address)
     except ValueError:
-        return [f"[execution] scheduler_address = {address!r} is not a Dask address; write tcp://HOST:PORT for a "
-                "scheduler on this machine or tls://HOST:PORT, or leave it empty to run on local processes"]
+        return [
+            f"[execution] scheduler_address = {address!r} is not a Dask address; write tcp://HOST:PORT for a "
+            "scheduler on this machine or tls://HOST:PORT, or leave it empty to run on local processes"
+        ]
     if scheme not in SCHEMES:
-        return [f"[execution] scheduler_address = {address!r} uses {scheme}://, which riskbench does not use; "
-                "write tcp://HOST:PORT (this machine) or tls://HOST:PORT"]
+        return [
+            f"[execution] scheduler_address = {address!r} uses {scheme}://, which riskbench does not use; "
+            "write tcp://HOST:PORT (this machine) or tls://HOST:PORT"
+        ]
     problems: list[str] = []
     files = {k: getattr(plan, k, None) for k in TLS_KEYS}
     if not is_loopback(host):
@@ -156,19 +165,29 @@ def check_scheduler(plan: Any) -> list[str]:
             problems.append(
                 f"[execution] scheduler_address = {address!r} is not on this machine: patient-level tables would "
                 "be sent to it; set allow_remote_scheduler = true and give tls_ca_file, tls_client_cert_file and "
-                "tls_client_key_file, or leave scheduler_address empty to run on local processes")
+                "tls_client_key_file, or leave scheduler_address empty to run on local processes"
+            )
         if scheme != "tls":
-            problems.append(f"[execution] scheduler_address = {address!r}: a scheduler on another machine must be "
-                            f"reached over TLS; write tls://{address.split('://')[-1]}")
+            problems.append(
+                f"[execution] scheduler_address = {address!r}: a scheduler on another machine must be "
+                f"reached over TLS; write tls://{address.split('://')[-1]}"
+            )
         missing = [k for k, v in files.items() if not v]
         if missing:
-            problems.append(f"[execution] {', '.join(missing)} not set: a scheduler on another machine needs all "
-                            "three TLS files (certificate authority, client certificate, client key)")
-    problems += [f"[execution] {k} = {str(v)!r} is not a readable file; give the path of the PEM file"
-                 for k, v in files.items() if v and not Path(v).is_file()]
+            problems.append(
+                f"[execution] {', '.join(missing)} not set: a scheduler on another machine needs all "
+                "three TLS files (certificate authority, client certificate, client key)"
+            )
+    problems += [
+        f"[execution] {k} = {str(v)!r} is not a readable file; give the path of the PEM file"
+        for k, v in files.items()
+        if v and not Path(v).is_file()
+    ]
     if scheme == "tls" and is_loopback(host) and not all(files.values()):
-        problems.append(f"[execution] scheduler_address = {address!r} uses TLS: give tls_ca_file, "
-                        "tls_client_cert_file and tls_client_key_file")
+        problems.append(
+            f"[execution] scheduler_address = {address!r} uses TLS: give tls_ca_file, "
+            "tls_client_cert_file and tls_client_key_file"
+        )
     return problems
 
 
@@ -179,9 +198,11 @@ def check_workers(worker_addresses: Iterable[str], allow_remote: bool) -> list[s
     remote = sorted({host for a in worker_addresses for _, host in [scheduler_host(a)] if not is_loopback(host)})
     if not remote:
         return []
-    return [f"the Dask scheduler has workers on other machines ({', '.join(remote)}): patient-level tables would be "
-            "sent to them; set [execution] allow_remote_scheduler = true with the TLS files, or use a scheduler "
-            "whose workers run on this machine"]
+    return [
+        f"the Dask scheduler has workers on other machines ({', '.join(remote)}): patient-level tables would be "
+        "sent to them; set [execution] allow_remote_scheduler = true with the TLS files, or use a scheduler "
+        "whose workers run on this machine"
+    ]
 
 
 def data_leaves_machine(plan: Any) -> bool:
@@ -201,10 +222,14 @@ def execution_statement(plan: Any) -> str:
     if not address:
         return "no: every step ran on this machine (no network connection was opened)"
     if data_leaves_machine(plan):
-        return (f"yes: resampling replicates (patient-level tables under run pseudonyms) were sent over TLS to the "
-                f"Dask scheduler at {address} and its workers")
-    return (f"no: resampling replicates ran on the Dask scheduler at {address} on this machine (loopback), "
-            "whose workers were checked to be on this machine")
+        return (
+            f"yes: resampling replicates (patient-level tables under run pseudonyms) were sent over TLS to the "
+            f"Dask scheduler at {address} and its workers"
+        )
+    return (
+        f"no: resampling replicates ran on the Dask scheduler at {address} on this machine (loopback), "
+        "whose workers were checked to be on this machine"
+    )
 
 
 def replicate_seeds(seed: int, n: int) -> list[np.random.SeedSequence]:
@@ -332,8 +357,13 @@ def run_replicates(
         return _run_joblib(func, shared, seeds, config, progress)
 
 
-def _run_joblib(func: ReplicateFunction, shared: Any, seeds: Sequence[np.random.SeedSequence],
-                config: ExecutionConfig, progress: Progress) -> list[Any]:
+def _run_joblib(
+    func: ReplicateFunction,
+    shared: Any,
+    seeds: Sequence[np.random.SeedSequence],
+    config: ExecutionConfig,
+    progress: Progress,
+) -> list[Any]:
     from joblib import Parallel, cpu_count, delayed
 
     workers = cpu_count() if config.n_jobs == -1 else config.n_jobs
@@ -368,8 +398,12 @@ def _run_dask(
     if scheduler_host(address)[0] == "tls":  # check_scheduler made sure the three files are given
         from distributed.security import Security
 
-        security = Security(tls_ca_file=config.tls_ca_file, tls_client_cert=config.tls_client_cert_file,
-                            tls_client_key=config.tls_client_key_file, require_encryption=True)
+        security = Security(
+            tls_ca_file=config.tls_ca_file,
+            tls_client_cert=config.tls_client_cert_file,
+            tls_client_key=config.tls_client_key_file,
+            require_encryption=True,
+        )
     try:
         client = Client(address, set_as_default=False, timeout=f"{config.connect_timeout_s}s", security=security)
     except (OSError, TimeoutError) as exc:
@@ -399,6 +433,9 @@ def _worker_table_problems(client: Any, shared: Any) -> list[str]:
     if not tables:
         return []
     answers = client.run(table_problems, tables)
-    return [f"Dask worker {worker}: {problem}; put the run folder on storage every worker mounts at the same "
-            "path, or run on local processes (unset [execution] scheduler_address)"
-            for worker, problems in sorted(answers.items()) for problem in problems]
+    return [
+        f"Dask worker {worker}: {problem}; put the run folder on storage every worker mounts at the same "
+        "path, or run on local processes (unset [execution] scheduler_address)"
+        for worker, problems in sorted(answers.items())
+        for problem in problems
+    ]

@@ -183,8 +183,15 @@ def evaluate_risks(
 HORIZON_MEASURES: tuple[str, ...] = ("harrell_c", "uno_c", "auc", "brier", "scaled_brier", "oe_ratio")
 
 
-def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, horizon: float, *,
-                     target: str = "cumulative_incidence", outcomes: OutcomeSet | None = None) -> dict[str, float]:
+def horizon_measures(
+    time: np.ndarray,
+    status: np.ndarray,
+    risk: np.ndarray,
+    horizon: float,
+    *,
+    target: str = "cumulative_incidence",
+    outcomes: OutcomeSet | None = None,
+) -> dict[str, float]:
     """Concordance (Harrell, Uno), cumulative/dynamic AUC, Brier score, scaled Brier (IPA) and
     calibration-in-the-large at one horizon (days), each treating a competing event as the module notes say.
 
@@ -216,8 +223,9 @@ def horizon_measures(time: np.ndarray, status: np.ndarray, risk: np.ndarray, hor
     }
 
 
-def _smoothed_calibration(time: np.ndarray, status: np.ndarray, risk: np.ndarray, t_eval: float,
-                          target: str, outcomes: OutcomeSet) -> SlopeAndICI:
+def _smoothed_calibration(
+    time: np.ndarray, status: np.ndarray, risk: np.ndarray, t_eval: float, target: str, outcomes: OutcomeSet
+) -> SlopeAndICI:
     """Slope and ICI of :func:`riskbench.metrics.calibration_at_horizon` (computed alone, the pseudo-observations
     shared through ``outcomes``), or NaN when the risks cannot be smoothed."""
     try:

@@ -132,7 +132,9 @@ def _check_arrays(time, event, risk_old, risk_new, horizon) -> tuple[np.ndarray,
         )
     for name, arr in (("time", t), ("risk_old", old), ("risk_new", new)):
         if not np.isfinite(arr).all():
-            raise ValidationInputError(f"{name} has missing or infinite values at rows {np.flatnonzero(~np.isfinite(arr))[:5].tolist()}.")
+            raise ValidationInputError(
+                f"{name} has missing or infinite values at rows {np.flatnonzero(~np.isfinite(arr))[:5].tolist()}."
+            )
     if (t < 0).any():
         raise ValidationInputError("time must be non-negative (days from the landmark or entry).")
     if not np.isfinite(horizon) or horizon <= 0:
@@ -149,7 +151,9 @@ def kaplan_meier_at(time: np.ndarray, event: np.ndarray, horizon: float) -> floa
         return 1.0
     sorted_time = np.sort(time)
     at_risk = len(time) - np.searchsorted(sorted_time, event_times, side="left")
-    deaths = np.bincount(np.searchsorted(event_times, time[(event == 1) & (time <= horizon)]), minlength=len(event_times))
+    deaths = np.bincount(
+        np.searchsorted(event_times, time[(event == 1) & (time <= horizon)]), minlength=len(event_times)
+    )
     return float(np.prod(1.0 - deaths / at_risk))
 
 
@@ -222,7 +226,8 @@ def net_reclassification(
         cuts = tuple(float(c) for c in categories)
         if len(cuts) == 0 or any(not 0.0 < c < 1.0 for c in cuts) or any(np.diff(cuts) <= 0):
             raise ValidationInputError(
-                f"categories must be increasing risk cut points strictly between 0 and 1, e.g. (0.05, 0.2); got {categories!r}."
+                "categories must be increasing risk cut points strictly between 0 and 1, e.g. (0.05, 0.2); "
+                f"got {categories!r}."
             )
         move = np.sign(_categorise(new, cuts) - _categorise(old, cuts))
     else:

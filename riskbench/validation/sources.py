@@ -219,7 +219,9 @@ class CohortDerivation:
     ) -> None:
         for frame, what in ((patients, "patients"), (measurements, "measurements"), (outcomes, "outcomes")):
             if not isinstance(frame, pd.DataFrame):
-                raise ValidationInputError(f"{what} must be a DataFrame (read the file first); got {type(frame).__name__}.")
+                raise ValidationInputError(
+                    f"{what} must be a DataFrame (read the file first); got {type(frame).__name__}."
+                )
         self._raw = (patients, measurements, outcomes)
         self._spec = spec
         self._landmarks = tuple(float(s) for s in landmarks_days)

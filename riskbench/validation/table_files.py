@@ -59,8 +59,10 @@ class TableFile:
         """The reference of an existing Parquet file (reads it once for the digest)."""
         full = Path(path).resolve()
         if not full.is_file():
-            raise ValidationInputError(f"{full} is not a file: the replicate tables are read from the Parquet files "
-                                       "the cohort stage writes (data/*.parquet); run that stage first.")
+            raise ValidationInputError(
+                f"{full} is not a file: the replicate tables are read from the Parquet files "
+                "the cohort stage writes (data/*.parquet); run that stage first."
+            )
         return cls(str(full), full.stat().st_size, file_digest(full))
 
     def problem(self) -> str | None:
@@ -99,7 +101,8 @@ def read_table(table: TableFile) -> pd.DataFrame:
         if problem is not None:
             raise ValidationInputError(
                 f"{problem}; the replicate tables must stay unchanged while a run uses them, and every worker "
-                "must see the run folder at the same path (on a cluster: storage mounted on every worker).")
+                "must see the run folder at the same path (on a cluster: storage mounted on every worker)."
+            )
         frame = pd.read_parquet(table.path)
         _cache[table] = frame
         while len(_cache) > CACHED_TABLES:

@@ -37,8 +37,9 @@ __all__ = ["UPDATE_MEASURES", "calibration_measures", "update_optimism"]
 UPDATE_MEASURES: tuple[str, ...] = ("oe_ratio", "calibration_slope")
 
 
-def calibration_measures(time: np.ndarray, status: np.ndarray, pseudo: np.ndarray, risk: np.ndarray,
-                         horizon: float) -> dict[str, float]:
+def calibration_measures(
+    time: np.ndarray, status: np.ndarray, pseudo: np.ndarray, risk: np.ndarray, horizon: float
+) -> dict[str, float]:
     """Observed/expected ratio and calibration slope of ``risk`` at ``horizon`` (days).
 
     ``status`` is already coded for the model's estimand (competing events censored for a cause-specific
@@ -55,12 +56,26 @@ def calibration_measures(time: np.ndarray, status: np.ndarray, pseudo: np.ndarra
 
 
 def _subset(rows: UpdatingRows, index: np.ndarray, pseudo: np.ndarray) -> UpdatingRows:
-    return replace(rows, risk=rows.risk[index], pseudo=pseudo, landmark=rows.landmark[index],
-                   patient=rows.patient[index], x=rows.x[index])
+    return replace(
+        rows,
+        risk=rows.risk[index],
+        pseudo=pseudo,
+        landmark=rows.landmark[index],
+        patient=rows.patient[index],
+        x=rows.x[index],
+    )
 
 
-def update_optimism(rows: UpdatingRows, time: np.ndarray, status: np.ndarray, fits: Mapping[str, UpdateFit], *,
-                    n_boot: int, seed: int, shrink_revision: bool = False) -> pd.DataFrame:
+def update_optimism(
+    rows: UpdatingRows,
+    time: np.ndarray,
+    status: np.ndarray,
+    fits: Mapping[str, UpdateFit],
+    *,
+    n_boot: int,
+    seed: int,
+    shrink_revision: bool = False,
+) -> pd.DataFrame:
     """Bootstrap optimism of each fitted update's calibration at the rows' horizon.
 
     Parameters
@@ -85,8 +100,10 @@ def update_optimism(rows: UpdatingRows, time: np.ndarray, status: np.ndarray, fi
     if n_boot < 0:
         raise ValidationInputError(f"the number of bootstrap resamples must be 0 or more; got {n_boot}.")
     h = rows.horizon
-    apparent = {m: calibration_measures(time, status, rows.pseudo, fit.risk(rows.risk, rows.landmark, rows.x), h)
-                for m, fit in fits.items()}
+    apparent = {
+        m: calibration_measures(time, status, rows.pseudo, fit.risk(rows.risk, rows.landmark, rows.x), h)
+        for m, fit in fits.items()
+    }
     gaps: dict[str, list[dict[str, float]]] = {m: [] for m in fits}
     for seq in np.random.SeedSequence(seed).spawn(n_boot):
         index = patient_resample(rows.patient, np.random.default_rng(seq))
@@ -99,8 +116,9 @@ def update_optimism(rows: UpdatingRows, time: np.ndarray, status: np.ndarray, fi
             try:
                 refit = fit_update(drawn, method, shrink=shrink_revision and method == "revision")
                 on_draw = calibration_measures(t_b, s_b, pseudo_b, refit.risk(drawn.risk, drawn.landmark, drawn.x), h)
-                on_all = calibration_measures(time, status, rows.pseudo,
-                                              refit.risk(rows.risk, rows.landmark, rows.x), h)
+                on_all = calibration_measures(
+                    time, status, rows.pseudo, refit.risk(rows.risk, rows.landmark, rows.x), h
+                )
             except (ValidationInputError, ModelInputError, MetricInputError, np.linalg.LinAlgError):
                 continue
             gaps[method].append({k: on_draw[k] - on_all[k] for k in UPDATE_MEASURES})
@@ -110,20 +128,29 @@ def update_optimism(rows: UpdatingRows, time: np.ndarray, status: np.ndarray, fi
             values = np.array([g[metric] for g in gaps[method]], dtype=float)
             values = values[np.isfinite(values)]
             optimism = float(values.mean()) if values.size else np.nan
-            records.append((method, h, metric, per_metric[metric], optimism, per_metric[metric] - optimism,
-                            int(values.size)))
-    return pd.DataFrame(records, columns=["method", "horizon_days", "metric", "apparent", "optimism", "corrected",
-                                          "resamples"])
+            records.append(
+                (method, h, metric, per_metric[metric], optimism, per_metric[metric] - optimism, int(values.size))
+            )
+    return pd.DataFrame(
+        records, columns=["method", "horizon_days", "metric", "apparent", "optimism", "corrected", "resamples"]
+    )
 
 
-def optimism_for(rows_by_horizon: Mapping[float, tuple[UpdatingRows, np.ndarray, np.ndarray]],
-                 fits: Mapping[float, Mapping[str, UpdateFit]], *, n_boot: int, seed: int,
-                 shrink_revision: bool = False, methods: Sequence[str] | None = None) -> pd.DataFrame:
+def optimism_for(
+    rows_by_horizon: Mapping[float, tuple[UpdatingRows, np.ndarray, np.ndarray]],
+    fits: Mapping[float, Mapping[str, UpdateFit]],
+    *,
+    n_boot: int,
+    seed: int,
+    shrink_revision: bool = False,
+    methods: Sequence[str] | None = None,
+) -> pd.DataFrame:
     """:func:`update_optimism` at every horizon (``rows_by_horizon``: horizon -> (rows, time, status))."""
     frames = []
     for h, (rows, time, status) in rows_by_horizon.items():
         chosen = {m: f for m, f in fits[h].items() if methods is None or m in methods}
         if chosen:
-            frames.append(update_optimism(rows, time, status, chosen, n_boot=n_boot, seed=seed,
-                                          shrink_revision=shrink_revision))
+            frames.append(
+                update_optimism(rows, time, status, chosen, n_boot=n_boot, seed=seed, shrink_revision=shrink_revision)
+            )
     return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()

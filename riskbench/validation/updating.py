@@ -154,8 +154,14 @@ def _predict(model: object, table: pd.DataFrame, horizon: float) -> np.ndarray:
     return np.asarray(predict(table, horizon), dtype=np.float64)
 
 
-def updating_rows(model: object, stack: pd.DataFrame, horizon: float, *, target: str | None = None,
-                  covariates: Sequence[str] | None = None) -> UpdatingRows:
+def updating_rows(
+    model: object,
+    stack: pd.DataFrame,
+    horizon: float,
+    *,
+    target: str | None = None,
+    covariates: Sequence[str] | None = None,
+) -> UpdatingRows:
     """Predict with the original model on the new cohort's landmark stack and prepare the updating regressions.
 
     Parameters
@@ -178,8 +184,10 @@ def updating_rows(model: object, stack: pd.DataFrame, horizon: float, *, target:
         If the stack lacks a column, the horizon is not positive, or no outcome occurs by the horizon.
     """
     if "patient_id" not in stack.columns or "landmark" not in stack.columns:
-        raise ValidationInputError("the new cohort's landmark stack lacks 'patient_id' or 'landmark'; build it "
-                                   "with the cohort stage (Cohort.landmark_stack).")
+        raise ValidationInputError(
+            "the new cohort's landmark stack lacks 'patient_id' or 'landmark'; build it "
+            "with the cohort stage (Cohort.landmark_stack)."
+        )
     h = float(horizon)
     if not np.isfinite(h) or h <= 0:
         raise ValidationInputError(f"horizon must be a positive number of days; got {horizon!r}")
@@ -187,15 +195,26 @@ def updating_rows(model: object, stack: pd.DataFrame, horizon: float, *, target:
     target = target or fitted_target(model)
     status = target_status(status, target)
     if not ((status == 1) & (time <= h)).any():
-        raise ValidationInputError(f"the new cohort has no outcome within {h:g} days of a landmark; a model "
-                                   "cannot be updated or validated there.")
+        raise ValidationInputError(
+            f"the new cohort has no outcome within {h:g} days of a landmark; a model "
+            "cannot be updated or validated there."
+        )
     risk = _predict(model, stack, h)
     names = tuple(covariates) if covariates is not None else model_covariates(model)
-    x = covariate_values(stack, names, what="new cohort's landmark stack", allow_missing=True) if names else \
-        np.empty((len(stack), 0))
+    x = (
+        covariate_values(stack, names, what="new cohort's landmark stack", allow_missing=True)
+        if names
+        else np.empty((len(stack), 0))
+    )
     return UpdatingRows(
-        horizon=h, target=target, risk=risk, pseudo=pseudo_observations(time, status, h, cause=1),
-        landmark=prediction_origin(stack), patient=pd.factorize(stack["patient_id"])[0], covariates=names, x=x,
+        horizon=h,
+        target=target,
+        risk=risk,
+        pseudo=pseudo_observations(time, status, h, cause=1),
+        landmark=prediction_origin(stack),
+        patient=pd.factorize(stack["patient_id"])[0],
+        covariates=names,
+        x=x,
     )
 
 
@@ -225,8 +244,9 @@ def _terms(method: str, landmarks: np.ndarray, covariates: Sequence[str]) -> lis
     return [*per_landmark, "slope", *(f"correction:{c}" for c in covariates)]
 
 
-def _design(method: str, z: np.ndarray, landmark: np.ndarray, x: np.ndarray,
-            landmarks: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _design(
+    method: str, z: np.ndarray, landmark: np.ndarray, x: np.ndarray, landmarks: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     """Design matrix and offset of a method (offset z where the slope is fixed at 1)."""
     ones = np.ones((z.size, 1))
     if method == "original":
@@ -270,6 +290,10 @@ class UpdateFit:
         λ applied to a revision (1 = none).
     converged
         Whether the regression converged.
+    aliased
+        Corrections a revision cannot estimate because their covariate is a linear combination of the
+        per-landmark intercepts, z and the other covariates (a landmark Cox model's z is its baseline plus its
+        linear predictor); they stay at 0 with no variance, as a regression reports an aliased coefficient.
     """
 
     method: str
@@ -281,11 +305,17 @@ class UpdateFit:
     covariates: tuple[str, ...]
     shrinkage: float = 1.0
     converged: bool = True
+    aliased: tuple[str, ...] = ()
 
     def linear_predictor(self, risk: np.ndarray, landmark: np.ndarray, x: np.ndarray) -> np.ndarray:
         """η of the updated model from the original risks, the rows' landmarks and covariates."""
-        design, offset = _design(self.method, cloglog(np.asarray(risk, float)), np.asarray(landmark, float),
-                                 np.asarray(x, float), self.landmarks)
+        design, offset = _design(
+            self.method,
+            cloglog(np.asarray(risk, float)),
+            np.asarray(landmark, float),
+            np.asarray(x, float),
+            self.landmarks,
+        )
         return design @ self.coef + offset if design.shape[1] else offset
 
     def risk(self, risk: np.ndarray, landmark: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -294,11 +324,20 @@ class UpdateFit:
 
     def table(self) -> pd.DataFrame:
         """``method, horizon_days, term, estimate, se, original_value``."""
-        return pd.DataFrame({
-            "method": self.method, "horizon_days": self.horizon, "term": list(self.terms), "estimate": self.coef,
-            "se": np.sqrt(np.clip(np.diag(self.cov), 0.0, None)) if self.coef.size else np.empty(0),
-            "original_value": _original_values(self.terms),
-        })
+        return pd.DataFrame(
+            {
+                "method": self.method,
+                "horizon_days": self.horizon,
+                "term": list(self.terms),
+                "estimate": self.coef,
+                "se": np.where(
+                    np.isin(list(self.terms), self.aliased), np.nan, np.sqrt(np.clip(np.diag(self.cov), 0.0, None))
+                )
+                if self.coef.size
+                else np.empty(0),
+                "original_value": _original_values(self.terms),
+            }
+        )
 
 
 def _complete_x(rows: UpdatingRows) -> np.ndarray:
@@ -340,17 +379,34 @@ def fit_update(rows: UpdatingRows, method: str, *, shrink: bool = False) -> Upda
     if not terms:
         return UpdateFit(method, rows.horizon, (), np.empty(0), np.empty((0, 0)), landmarks, names)
     start = _original_values(terms)
-    fit = fit_cloglog(design, rows.pseudo, offset=offset, start=start, cluster=rows.patient)
-    result = UpdateFit(method, rows.horizon, terms, fit.coef, fit.cov, landmarks, names, 1.0, fit.converged)
+    keep = _estimable(design, first_optional=landmarks.size + 1) if method == "revision" else np.ones(len(terms), bool)
+    fit = fit_cloglog(design[:, keep], rows.pseudo, offset=offset, start=start[keep], cluster=rows.patient)
+    coef, cov = start.copy(), np.zeros((len(terms), len(terms)))
+    coef[keep] = fit.coef
+    cov[np.ix_(keep, keep)] = fit.cov
+    aliased = tuple(t for t, k in zip(terms, keep) if not k)
+    result = UpdateFit(method, rows.horizon, terms, coef, cov, landmarks, names, 1.0, fit.converged, aliased)
     if method == "revision" and shrink:
         return _shrunk(rows, result, design, start)
     return result
 
 
+def _estimable(design: np.ndarray, first_optional: int, tol: float = 1e-8) -> np.ndarray:
+    """Columns to estimate: every column before ``first_optional``, then each later column unless it is (to
+    ``tol``, relative to its length) a linear combination of the columns kept before it."""
+    keep = np.ones(design.shape[1], bool)
+    for j in range(first_optional, design.shape[1]):
+        column = design[:, j]
+        kept = design[:, :j][:, keep[:j]]
+        residual = column - kept @ np.linalg.lstsq(kept, column, rcond=None)[0]
+        keep[j] = np.linalg.norm(residual) > tol * max(float(np.linalg.norm(column)), 1.0)
+    return keep
+
+
 def _shrunk(rows: UpdatingRows, fit: UpdateFit, design: np.ndarray, start: np.ndarray) -> UpdateFit:
     """Revision shrunk towards the original by the heuristic λ; per-landmark intercepts re-estimated."""
     statistic = _wald(fit.coef, fit.cov, np.eye(fit.coef.size), start)
-    df = fit.coef.size
+    df = fit.coef.size - len(fit.aliased)
     lam = max(0.0, (statistic - df) / statistic) if statistic > 0 else 0.0
     shrunk = start + lam * (fit.coef - start)
     k = fit.landmarks.size
@@ -359,8 +415,9 @@ def _shrunk(rows: UpdatingRows, fit: UpdateFit, design: np.ndarray, start: np.nd
     coef = np.r_[refit.coef, shrunk[k:]]
     cov = fit.cov * lam**2
     cov[:k, :k] = refit.cov
-    return UpdateFit(fit.method, fit.horizon, fit.terms, coef, cov, fit.landmarks, fit.covariates, lam,
-                     refit.converged)
+    return UpdateFit(
+        fit.method, fit.horizon, fit.terms, coef, cov, fit.landmarks, fit.covariates, lam, refit.converged, fit.aliased
+    )
 
 
 # ---------------------------------------------------------------------------------------------- testing
@@ -491,13 +548,23 @@ class UpdatedModel:
         """Updated risk of the outcome in (s, s + horizon] for each row (days)."""
         fit = self._fit_at(horizon)
         risk = _predict(self.original, table, float(horizon))
-        x = covariate_values(table, fit.covariates, what="prediction table") if fit.covariates else \
-            np.empty((len(table), 0))
+        x = (
+            covariate_values(table, fit.covariates, what="prediction table")
+            if fit.covariates
+            else np.empty((len(table), 0))
+        )
         return fit.risk(risk, prediction_origin(table), x)
 
 
-def update_model(model: object, stack: pd.DataFrame, horizons: Sequence[float], method: str, *,
-                 shrink: bool = False, target: str | None = None) -> UpdatedModel:
+def update_model(
+    model: object,
+    stack: pd.DataFrame,
+    horizons: Sequence[float],
+    method: str,
+    *,
+    shrink: bool = False,
+    target: str | None = None,
+) -> UpdatedModel:
     """Fit one updating method at each horizon on the new cohort's landmark stack; return the updated model.
 
     Parameters
@@ -515,6 +582,7 @@ def update_model(model: object, stack: pd.DataFrame, horizons: Sequence[float], 
     target
         What the model's risk estimates (default: read from the model).
     """
-    fits = {float(h): fit_update(updating_rows(model, stack, h, target=target), method, shrink=shrink)
-            for h in horizons}
+    fits = {
+        float(h): fit_update(updating_rows(model, stack, h, target=target), method, shrink=shrink) for h in horizons
+    }
     return UpdatedModel(model, fits)

@@ -85,8 +85,10 @@ def describe_failure(exc: BaseException, command: str, debug: bool = False) -> t
         return 2, f"{prefix}: error: {_os_error_line(exc)}"
     if getattr(exc, "one_line_message", False):  # e.g. a stage that failed: the message says what to do
         return 1, f"{prefix}: error: {_one_line(exc)}"
-    return 1, (f"{prefix}: internal error: {type(exc).__name__}: {_one_line(exc)}"
-               + ("" if debug else "; rerun with --debug for the traceback and report it"))
+    return 1, (
+        f"{prefix}: internal error: {type(exc).__name__}: {_one_line(exc)}"
+        + ("" if debug else "; rerun with --debug for the traceback and report it")
+    )
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -44,6 +44,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
     check = subparsers.add_parser("check-config", help="check an analysis configuration without running it")
     check.add_argument("config", help="analysis configuration (TOML)")
-    check.add_argument("--no-data", action="store_true",
-                       help="check the file only, without reading the source headers and a sample of rows")
+    check.add_argument(
+        "--no-data",
+        action="store_true",
+        help="check the file only, without reading the source headers and a sample of rows",
+    )
     check.set_defaults(handler=_check_config)

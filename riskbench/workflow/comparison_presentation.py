@@ -45,28 +45,38 @@ class StageNotes:
         try:
             return compute(*args, **kwargs)
         except TargetUnreachable as exc:
-            reach = (f"the best threshold reaches {exc.best:.3f}" if np.isfinite(exc.best)
-                     else "no threshold leaves any patient below it")
-            self.add(part, f"not computed: no risk threshold of this model reaches {exc.what} by "
-                     f"{format_duration(round(float(exc.horizon), 3))} after the landmark ({reach}); lower the target "
-                     "([report] triage_target_npv) or switch the part off ([report] triage = false).", model)
+            reach = (
+                f"the best threshold reaches {exc.best:.3f}"
+                if np.isfinite(exc.best)
+                else "no threshold leaves any patient below it"
+            )
+            self.add(
+                part,
+                f"not computed: no risk threshold of this model reaches {exc.what} by "
+                f"{format_duration(round(float(exc.horizon), 3))} after the landmark ({reach}); lower the target "
+                "([report] triage_target_npv) or switch the part off ([report] triage = false).",
+                model,
+            )
         except FIT_ERRORS as exc:
-            self.add(part, f"not computed: {type(exc).__name__}: {hide_small_numbers(str(exc), self.threshold)}",
-                     model)
+            self.add(part, f"not computed: {type(exc).__name__}: {hide_small_numbers(str(exc), self.threshold)}", model)
         return None
 
 
 def report_facts(config: AnalysisConfig) -> list[tuple[str, str]]:
     """The facts shown under the report's title: version, configuration file, seeds, landmarks, window."""
-    return [("riskbench", __version__),
-            ("configuration", config.path.name if config.path else "(in memory)"),
-            ("seed", str(config.seed)), ("validation seed", str(config.validation.seed)),
-            ("landmarks", ", ".join(format_duration(s) for s in config.landmarks.landmarks_days)),
-            ("prediction window", format_duration(config.landmarks.horizon_days)),
-            ("data sent off this machine", execution_statement(config.execution))]
+    return [
+        ("riskbench", __version__),
+        ("configuration", config.path.name if config.path else "(in memory)"),
+        ("seed", str(config.seed)),
+        ("validation seed", str(config.validation.seed)),
+        ("landmarks", ", ".join(format_duration(s) for s in config.landmarks.landmarks_days)),
+        ("prediction window", format_duration(config.landmarks.horizon_days)),
+        ("data sent off this machine", execution_statement(config.execution)),
+    ]
 
 
 def write_report(config: AnalysisConfig, run_dir: Path) -> Path:
     """Write the run's ``report.html`` from its tables and figures; return its path."""
-    return build_report(run_dir, title=config.report.title, threshold=config.report.small_count_threshold,
-                        facts=report_facts(config))
+    return build_report(
+        run_dir, title=config.report.title, threshold=config.report.small_count_threshold, facts=report_facts(config)
+    )

@@ -8,8 +8,10 @@ Sections
 ``[landmarks]``       ``landmarks`` (durations) and ``prediction_window``: the prediction question.
 ``[[models]]``        ``name``, ``family``, ``covariates``, ``params``, optional ``missing_data``.
 ``[missing_data]``    ``method``, ``imputations``, ``max_iterations``.
-``[validation]``      ``folds``, ``bootstrap_resamples``, ``optimism``, ``candidate``, ``reference``, ``develop_before``.
-``[execution]``       ``workers``, ``scheduler_address``, ``allow_remote_scheduler``, TLS files, ``replicates_per_task``
+``[validation]``      ``folds``, ``bootstrap_resamples``, ``optimism``, ``candidate``, ``reference``,
+                      ``develop_before``.
+``[execution]``       ``workers``, ``scheduler_address``, ``allow_remote_scheduler``, TLS files,
+                      ``replicates_per_task``
 ``[report]``          ``title``, ``report_horizons``, ``small_count_threshold`` and the switches of each part.
 ``[privacy]``         ``key_file`` (pseudonym key; default ``<config stem>.key`` beside the configuration).
 
@@ -34,8 +36,6 @@ from riskbench.config_problems import Problem
 from riskbench.errors import RiskbenchError
 from riskbench.models.missing_data import MissingDataPlan
 from riskbench.time_units import DAYS_PER_YEAR
-
-MODEL_FAMILIES: tuple[str, ...] = ("landmark_cox", "time_varying_cox", "forest")
 
 
 class ConfigError(RiskbenchError):
@@ -208,8 +208,14 @@ class AnalysisConfig:
         return (self.models[-1].name, self.models[0].name)
 
     @classmethod
-    def from_dict(cls, data: Mapping[str, Any], *, base_dir: Path | None = None,
-                  source: str = "configuration", config_path: Path | None = None) -> AnalysisConfig:
+    def from_dict(
+        cls,
+        data: Mapping[str, Any],
+        *,
+        base_dir: Path | None = None,
+        source: str = "configuration",
+        config_path: Path | None = None,
+    ) -> AnalysisConfig:
         """Check a parsed TOML document completely; ``base_dir`` resolves relative paths.
 
         Raises
@@ -219,8 +225,7 @@ class AnalysisConfig:
         """
         from riskbench.workflow.config_build import build_config
 
-        config, problems = build_config(data, base_dir=(base_dir or Path.cwd()).resolve(),
-                                        config_path=config_path)
+        config, problems = build_config(data, base_dir=(base_dir or Path.cwd()).resolve(), config_path=config_path)
         raise_problems(problems, source)
         return config
 
@@ -262,8 +267,9 @@ def load_config(path: str | Path, *, check_data: bool = False) -> AnalysisConfig
         raise ConfigError(f"{path}: not valid TOML ({exc})") from None
     except UnicodeDecodeError:
         raise ConfigError(f"{path}: not a UTF-8 text file; save the configuration as UTF-8") from None
-    config = AnalysisConfig.from_dict(data, base_dir=path.resolve().parent, source=str(path),
-                                      config_path=path.resolve())
+    config = AnalysisConfig.from_dict(
+        data, base_dir=path.resolve().parent, source=str(path), config_path=path.resolve()
+    )
     object.__setattr__(config, "path", path.resolve())
     if check_data:
         from riskbench.workflow.config_data_check import check_analysis

@@ -33,8 +33,13 @@ def _section(name: str, data: Mapping[str, Any], problems: list[Problem]) -> Any
 def _models(data: Mapping[str, Any], problems: list[Problem]) -> list[ModelSection] | None:
     raw = data.get("models")
     if not isinstance(raw, list) or not raw:
-        problems.append(Problem("[[models]]", f"[[models]] is missing or empty (got {show(raw)}); add at least "
-                                              'one table: [[models]] name = "clinical" covariates = [...]'))
+        problems.append(
+            Problem(
+                "[[models]]",
+                f"[[models]] is missing or empty (got {show(raw)}); add at least "
+                'one table: [[models]] name = "clinical" covariates = [...]',
+            )
+        )
         return None
     out: list[ModelSection] = []
     for i, table in enumerate(raw):
@@ -70,15 +75,21 @@ def _path(text: str, base_dir: Path) -> Path | None:
     return p if p.is_absolute() else (base_dir / p)
 
 
-def build_config(data: Mapping[str, Any], *, base_dir: Path,
-                 config_path: Path | None = None) -> tuple[Any, list[Problem]]:
+def build_config(
+    data: Mapping[str, Any], *, base_dir: Path, config_path: Path | None = None
+) -> tuple[Any, list[Problem]]:
     """(AnalysisConfig or None, problems): None when any error was found."""
     problems: list[Problem] = []
     if not isinstance(data, Mapping):
         return None, [Problem("configuration", "the configuration must be a TOML document of tables")]
     for key in sorted(set(data) - set(TOP_LEVEL_KEYS)):
-        problems.append(Problem(key, f"unknown top-level key {key!r} = {show(data[key])}; allowed: "
-                                     f"{', '.join(TOP_LEVEL_KEYS)}{did_you_mean(key, TOP_LEVEL_KEYS)}"))
+        problems.append(
+            Problem(
+                key,
+                f"unknown top-level key {key!r} = {show(data[key])}; allowed: "
+                f"{', '.join(TOP_LEVEL_KEYS)}{did_you_mean(key, TOP_LEVEL_KEYS)}",
+            )
+        )
     deprecations: list[str] = []
     original, data = data, migrate(data, deprecations)
     seed = _seed(data, problems)
@@ -97,11 +108,16 @@ def build_config(data: Mapping[str, Any], *, base_dir: Path,
     landmarks = _section("landmarks", data, problems) if "landmarks" in data else None
     models = _models(data, problems)
 
-    if (problems or sources is None or cohort is None or landmarks is None or models is None
-            or None in sections.values()):
+    if (
+        problems
+        or sources is None
+        or cohort is None
+        or landmarks is None
+        or models is None
+        or None in sections.values()
+    ):
         return None, problems + _partial_rules(cohort, models, landmarks)
-    config = _assemble(original, seed, sources, cohort, landmarks, models, sections, base_dir, config_path,
-                       problems)
+    config = _assemble(original, seed, sources, cohort, landmarks, models, sections, base_dir, config_path, problems)
     if config is None:
         return None, problems
     from riskbench.workflow.config_rules import check_rules
@@ -128,65 +144,124 @@ def _partial_rules(cohort: Any, models: list[ModelSection] | None, landmarks: An
     return covariate_problems(config) + family_problems(config)
 
 
-def _assemble(data: Mapping[str, Any], seed: int, sources: Any, cohort: Any, lm: Any,
-              models: list[ModelSection], s: dict[str, Any], base_dir: Path, config_path: Path | None,
-              problems: list[Problem]) -> Any:
+def _assemble(
+    data: Mapping[str, Any],
+    seed: int,
+    sources: Any,
+    cohort: Any,
+    lm: Any,
+    models: list[ModelSection],
+    s: dict[str, Any],
+    base_dir: Path,
+    config_path: Path | None,
+    problems: list[Problem],
+) -> Any:
     val, ex, rep, md, priv = s["validation"], s["execution"], s["report"], s["missing_data"], s["privacy"]
     execution = cfg.ExecutionPlan(
-        workers=ex.workers, scheduler_address=ex.scheduler_address.strip() or None,
-        allow_remote_scheduler=ex.allow_remote_scheduler, tls_ca_file=_path(ex.tls_ca_file, base_dir),
+        workers=ex.workers,
+        scheduler_address=ex.scheduler_address.strip() or None,
+        allow_remote_scheduler=ex.allow_remote_scheduler,
+        tls_ca_file=_path(ex.tls_ca_file, base_dir),
         tls_client_cert_file=_path(ex.tls_client_cert_file, base_dir),
-        tls_client_key_file=_path(ex.tls_client_key_file, base_dir), replicates_per_task=ex.replicates_per_task)
+        tls_client_key_file=_path(ex.tls_client_key_file, base_dir),
+        replicates_per_task=ex.replicates_per_task,
+    )
     optimism = val.optimism if val.optimism is not None else val.bootstrap_resamples > 0
     if optimism and val.bootstrap_resamples == 0:
-        problems.append(problem("[validation]", "optimism", True,
-                                "bootstrap optimism needs bootstrap_resamples >= 2; set optimism = false or "
-                                "bootstrap_resamples = 200 (common practice)"))
+        problems.append(
+            problem(
+                "[validation]",
+                "optimism",
+                True,
+                "bootstrap optimism needs bootstrap_resamples >= 2; set optimism = false or "
+                "bootstrap_resamples = 200 (common practice)",
+            )
+        )
     candidate, reference = val.candidate, val.reference
     names = [m.name for m in models]
     if (candidate is None) != (reference is None):
         missing = "reference" if reference is None else "candidate"
-        problems.append(Problem(f"[validation] {missing}",
-                                f"[validation] needs {missing!r} too: candidate and reference name the two "
-                                f"models compared (models: {', '.join(names)})"))
+        problems.append(
+            Problem(
+                f"[validation] {missing}",
+                f"[validation] needs {missing!r} too: candidate and reference name the two "
+                f"models compared (models: {', '.join(names)})",
+            )
+        )
     elif candidate is None:
         if len(models) < 2:
             problems.append(Problem("[[models]]", f"a comparison needs two [[models]] tables; found {len(models)}"))
         else:
             candidate, reference = names[-1], names[0]
     validation = cfg.ValidationPlan(
-        folds=val.folds, bootstrap_resamples=val.bootstrap_resamples, optimism=optimism, candidate=candidate,
-        reference=reference, seed=val.seed if val.seed is not None else seed, execution=execution,
-        develop_before=val.develop_before)
+        folds=val.folds,
+        bootstrap_resamples=val.bootstrap_resamples,
+        optimism=optimism,
+        candidate=candidate,
+        reference=reference,
+        seed=val.seed if val.seed is not None else seed,
+        execution=execution,
+        develop_before=val.develop_before,
+    )
     landmarks = cfg.LandmarkPlan(tuple(sorted(lm.landmarks)), lm.prediction_window)
     horizons = tuple(sorted(rep.report_horizons)) if rep.report_horizons else (landmarks.horizon_days,)
     report = cfg.ReportOptions(
-        title=rep.title, horizons_days=horizons, small_count_threshold=rep.small_count_threshold,
-        example_patients=rep.example_patients, triage=rep.triage, triage_target_npv=rep.triage_target_npv,
-        decision_curves=rep.decision_curves, decision_threshold_max=rep.decision_threshold_max,
+        title=rep.title,
+        horizons_days=horizons,
+        small_count_threshold=rep.small_count_threshold,
+        example_patients=rep.example_patients,
+        triage=rep.triage,
+        triage_target_npv=rep.triage_target_npv,
+        decision_curves=rep.decision_curves,
+        decision_threshold_max=rep.decision_threshold_max,
         decision_threshold_min=rep.decision_threshold_min,
-        example_timelines=rep.example_timelines, effect_units=dict(rep.effect_units))
+        example_timelines=rep.example_timelines,
+        effect_units=dict(rep.effect_units),
+    )
     if rep.decision_threshold_min >= rep.decision_threshold_max:
-        problems.append(Problem("[report] decision_threshold_min",
-                                f"[report] decision_threshold_min = {rep.decision_threshold_min:g} must be below "
-                                f"decision_threshold_max = {rep.decision_threshold_max:g} (the decision curves run "
-                                "from the one to the other)"))
+        problems.append(
+            Problem(
+                "[report] decision_threshold_min",
+                f"[report] decision_threshold_min = {rep.decision_threshold_min:g} must be below "
+                f"decision_threshold_max = {rep.decision_threshold_max:g} (the decision curves run "
+                "from the one to the other)",
+            )
+        )
     used = {c for m in models for c in m.covariates}
     for name in sorted(set(rep.effect_units) - used):
-        problems.append(Problem(f"[report] effect_units.{name}",
-                                f"[report] effect_units names {show(name)}, which no [[models]] table uses as a "
-                                f"covariate{did_you_mean(name, sorted(used))}"))
+        problems.append(
+            Problem(
+                f"[report] effect_units.{name}",
+                f"[report] effect_units names {show(name)}, which no [[models]] table uses as a "
+                f"covariate{did_you_mean(name, sorted(used))}",
+            )
+        )
     default_key = f"{config_path.stem}.key" if config_path is not None else "riskbench.key"
     key_file = _path(priv.key_file or default_key, base_dir) or Path(default_key)  # the text is never empty
     privacy = cfg.PrivacyOptions(key_file=key_file.resolve())
     model_configs = tuple(
-        cfg.ModelConfig(name=m.name, covariates=tuple(m.covariates), family=m.family, params=dict(m.params),
-                        missing_data=m.missing_data)
-        for m in models)
+        cfg.ModelConfig(
+            name=m.name,
+            covariates=tuple(m.covariates),
+            family=m.family,
+            params=dict(m.params),
+            missing_data=m.missing_data,
+        )
+        for m in models
+    )
     if problems:
         return None
     return cfg.AnalysisConfig(
-        seed=seed, sources=sources, cohort=cohort, landmarks=landmarks, models=model_configs,
-        validation=validation, report=report, missing_data=cfg.MissingDataPlan(md.method, md.imputations,
-                                                                               md.max_iterations),
-        execution=execution, privacy=privacy, base_dir=base_dir, raw=dict(data))
+        seed=seed,
+        sources=sources,
+        cohort=cohort,
+        landmarks=landmarks,
+        models=model_configs,
+        validation=validation,
+        report=report,
+        missing_data=cfg.MissingDataPlan(md.method, md.imputations, md.max_iterations),
+        execution=execution,
+        privacy=privacy,
+        base_dir=base_dir,
+        raw=dict(data),
+    )

@@ -25,8 +25,10 @@ def check_config(args: argparse.Namespace) -> int:
     names = ", ".join(f"{m.name} ({m.family})" for m in config.models)
     landmarks = ", ".join(format_duration(s) for s in config.landmarks.landmarks_days)
     checked = "configuration" if getattr(args, "no_data", False) else "configuration and data sample"
-    print(f"{Path(args.config)}: valid ({checked}); landmarks {landmarks}; prediction window "
-          f"{format_duration(config.landmarks.horizon_days)}; models: {names}")
+    print(
+        f"{Path(args.config)}: valid ({checked}); landmarks {landmarks}; prediction window "
+        f"{format_duration(config.landmarks.horizon_days)}; models: {names}"
+    )
     return 0
 
 
@@ -59,7 +61,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "list-covariates",
         help="list every covariate column the configuration's cohort stage creates, and which models use it",
         description="Print each covariate column the cohort stage will create for CONFIG (its readable label "
-                    "and unit, and the models that use it). Use these names in [[models]] covariates.",
+        "and unit, and the models that use it). Use these names in [[models]] covariates.",
     )
     listing.add_argument("config", help="analysis configuration (TOML)")
     listing.set_defaults(handler=_list_covariates)

@@ -70,9 +70,18 @@ def _read(path: Path, encoding: str, nrows: int | None, usecols: list[str] | Non
         batch = next(pq.ParquetFile(path).iter_batches(batch_size=nrows, columns=usecols), None)
         return batch.to_pandas() if batch is not None else pd.DataFrame()
     # ragged lines are skipped here: the cohort stage gives each one a reason in the ledger
-    return pd.read_csv(path, nrows=nrows, dtype=str, encoding=encoding, keep_default_na=False,
-                       na_filter=False, usecols=usecols, skip_blank_lines=False, comment=None,
-                       on_bad_lines="skip")
+    return pd.read_csv(
+        path,
+        nrows=nrows,
+        dtype=str,
+        encoding=encoding,
+        keep_default_na=False,
+        na_filter=False,
+        usecols=usecols,
+        skip_blank_lines=False,
+        comment=None,
+        on_bad_lines="skip",
+    )
 
 
 def _load(name: str, source: Any, problems: list[Problem]) -> _Table:
@@ -81,14 +90,19 @@ def _load(name: str, source: Any, problems: list[Problem]) -> _Table:
     try:
         raw = _read(Path(source.path), encoding, SAMPLE_ROWS)
     except UnicodeDecodeError:
-        problems.append(problem(where, "encoding", encoding,
-                                f"{source.path} is not {encoding} text; set encoding = \"latin-1\", "
-                                "\"cp1252\" or \"utf-16\" to match the file"))
+        problems.append(
+            problem(
+                where,
+                "encoding",
+                encoding,
+                f'{source.path} is not {encoding} text; set encoding = "latin-1", '
+                '"cp1252" or "utf-16" to match the file',
+            )
+        )
         return _Table(name, source, None, ())
     except (ValueError, OSError, pd.errors.ParserError) as exc:
         first = str(exc).splitlines()[0][:200] if str(exc) else type(exc).__name__
-        problems.append(Problem(f"{where} path", f"{where} path: {source.path} cannot be read as a table "
-                                                  f"({first})"))
+        problems.append(Problem(f"{where} path", f"{where} path: {source.path} cannot be read as a table ({first})"))
         return _Table(name, source, None, ())
     file_columns = tuple(str(c) for c in raw.columns)
     back = {f: o for o, f in dict(source.columns).items()}
@@ -103,12 +117,15 @@ def _column_problems(t: _Table, cohort: Any) -> list[Problem]:
     out = []
     for column in required:
         if t.ours(column) not in t.file_columns:
-            out.append(Problem(
-                f"{t.where} columns",
-                f"{t.where} {t.source.path} has no column {t.ours(column)!r}"
-                f"{'' if t.ours(column) == column else f' (mapped to {column!r})'}; the file's columns: "
-                f"{', '.join(t.file_columns)}; map it with columns = {{ {column} = \"<file column>\" }}"
-                f"{did_you_mean(t.ours(column), t.file_columns)}"))
+            out.append(
+                Problem(
+                    f"{t.where} columns",
+                    f"{t.where} {t.source.path} has no column {t.ours(column)!r}"
+                    f"{'' if t.ours(column) == column else f' (mapped to {column!r})'}; the file's columns: "
+                    f'{", ".join(t.file_columns)}; map it with columns = {{ {column} = "<file column>" }}'
+                    f"{did_you_mean(t.ours(column), t.file_columns)}",
+                )
+            )
     return out
 
 
@@ -127,13 +144,25 @@ def _static_problems(t: _Table, cohort: Any) -> list[Problem]:
             column = (spec_of(name).column if callable(spec_of) else None) or name
             ok, needs = t.ours(column) in have, f"a column {t.ours(column)!r}"
         if not ok:
-            out.append(problem("[cohort]", "static", name,
-                               f"needs {needs} in {t.source.path} (the file's columns: {', '.join(t.file_columns)})"
-                               "; map it in [sources.patients] columns or remove it from static",
-                               choices=t.file_columns))
+            out.append(
+                problem(
+                    "[cohort]",
+                    "static",
+                    name,
+                    f"needs {needs} in {t.source.path} (the file's columns: {', '.join(t.file_columns)})"
+                    "; map it in [sources.patients] columns or remove it from static",
+                    choices=t.file_columns,
+                )
+            )
     if cohort.current_age and not age_ok:
-        out.append(problem("[cohort]", "current_age", True,
-                           f"needs a birth_date or age_at_entry column in {t.source.path}; set current_age = false"))
+        out.append(
+            problem(
+                "[cohort]",
+                "current_age",
+                True,
+                f"needs a birth_date or age_at_entry column in {t.source.path}; set current_age = false",
+            )
+        )
     return out
 
 
@@ -167,19 +196,39 @@ def _static_value_problems(t: _Table, cohort: Any) -> list[Problem]:
         if spec.kind == "categorical":
             declared = {str(c).strip().upper() for c in spec.codes}
             bad = int((~values.str.upper().isin(declared)).sum())
-            out += _share_problem(f"{key} codes", f"{key} codes = {sorted(spec.codes)}: column {t.ours(column)!r} of "
-                                  f"{t.source.path} has codes outside them (those patients are excluded); declare "
-                                  "every code the file uses", bad, len(values))
+            out += _share_problem(
+                f"{key} codes",
+                f"{key} codes = {sorted(spec.codes)}: column {t.ours(column)!r} of "
+                f"{t.source.path} has codes outside them (those patients are excluded); declare "
+                "every code the file uses",
+                bad,
+                len(values),
+            )
             continue
         numbers = pd.to_numeric(values, errors="coerce")
         lo, hi = getattr(spec, "lower_bound", spec.plausible_min), spec.plausible_max
-        outside = numbers.isna() | ((numbers < lo) if lo is not None else False) | (
-            (numbers > hi) if hi is not None else False)
-        bounds = (f"[{lo:g}, {hi:g}]" if lo is not None and hi is not None else f"at least {lo:g}" if lo is not None
-                  else f"at most {hi:g}" if hi is not None else "any number")
-        out += _share_problem(f"{key} range", f"{key} range ({bounds}): column {t.ours(column)!r} of "
-                              f"{t.source.path} has values that are not numbers in this range (those patients are "
-                              "excluded)", int(outside.sum()), len(values))
+        outside = (
+            numbers.isna()
+            | ((numbers < lo) if lo is not None else False)
+            | ((numbers > hi) if hi is not None else False)
+        )
+        bounds = (
+            f"[{lo:g}, {hi:g}]"
+            if lo is not None and hi is not None
+            else f"at least {lo:g}"
+            if lo is not None
+            else f"at most {hi:g}"
+            if hi is not None
+            else "any number"
+        )
+        out += _share_problem(
+            f"{key} range",
+            f"{key} range ({bounds}): column {t.ours(column)!r} of "
+            f"{t.source.path} has values that are not numbers in this range (those patients are "
+            "excluded)",
+            int(outside.sum()),
+            len(values),
+        )
     return out
 
 
@@ -197,9 +246,14 @@ def _unit_problems(t: _Table, cohort: Any) -> list[Problem]:
             continue
         key = f"[cohort.variables.{v.name}] conversions"
         bad = int(rows.isin(unknown).sum())
-        out += _share_problem(key, f"{key}: {len(unknown)} unit(s) of {v.name!r} in {t.source.path} are neither "
-                              f"{v.unit!r} nor converted (those rows are excluded); add unit = factor to conversions"
-                              f"{did_you_mean(unknown[0], v.factors)}", bad, len(rows))
+        out += _share_problem(
+            key,
+            f"{key}: {len(unknown)} unit(s) of {v.name!r} in {t.source.path} are neither "
+            f"{v.unit!r} nor converted (those rows are excluded); add unit = factor to conversions"
+            f"{did_you_mean(unknown[0], v.factors)}",
+            bad,
+            len(rows),
+        )
     return out
 
 
@@ -225,26 +279,44 @@ def _date_problems(t: _Table, column: str) -> list[Problem]:
     shown = repr(fmt) if fmt else "not set (ISO dates such as 2020-03-04)"
     if bad.any():
         first_line = int(bad.idxmax()) + 2  # header is line 1
-        alternatives = [f for f in (_DAY_FIRST, _MONTH_FIRST, "%d.%m.%Y", "%Y/%m/%d", "%d-%m-%Y")
-                        if f != fmt and _parse(filled, f).notna().all()]
-        hint = (f"; every sampled value reads with date_format = {alternatives[0]!r}"
-                if alternatives else "; set date_format to the strftime format of the file's dates")
+        alternatives = [
+            f
+            for f in (_DAY_FIRST, _MONTH_FIRST, "%d.%m.%Y", "%Y/%m/%d", "%d-%m-%Y")
+            if f != fmt and _parse(filled, f).notna().all()
+        ]
+        hint = (
+            f"; every sampled value reads with date_format = {alternatives[0]!r}"
+            if alternatives
+            else "; set date_format to the strftime format of the file's dates"
+        )
         if len(alternatives) > 1 and {_DAY_FIRST, _MONTH_FIRST} <= set(alternatives):
-            hint = ("; the dates read both day-first (\"%d/%m/%Y\") and month-first (\"%m/%d/%Y\"): set "
-                    "date_format to the one the file uses")
+            hint = (
+                '; the dates read both day-first ("%d/%m/%Y") and month-first ("%m/%d/%Y"): set '
+                "date_format to the one the file uses"
+            )
         share = bad.mean()
         severity = "error" if share > 0.01 else WARNING
         if severity == WARNING:
             hint = "; those rows are excluded as unparseable dates (the ledger counts them)"
-        return [Problem(key, f"{key} is {shown}, but {int(bad.sum())} of {len(filled)} sampled {column!r} values "
-                             f"in {t.source.path} do not parse with it (first at line {first_line}){hint}",
-                        severity)]
+        return [
+            Problem(
+                key,
+                f"{key} is {shown}, but {int(bad.sum())} of {len(filled)} sampled {column!r} values "
+                f"in {t.source.path} do not parse with it (first at line {first_line}){hint}",
+                severity,
+            )
+        ]
     if fmt in (_DAY_FIRST, _MONTH_FIRST):
         other = _MONTH_FIRST if fmt == _DAY_FIRST else _DAY_FIRST
         if _parse(filled, other).notna().all() and len(filled) >= 1:
-            return [Problem(key, f"{key} = {fmt!r}: every sampled {column!r} value in {t.source.path} also reads "
-                                 f"as {other!r} (no day above 12 in the sample); check which one the file uses",
-                            WARNING)]
+            return [
+                Problem(
+                    key,
+                    f"{key} = {fmt!r}: every sampled {column!r} value in {t.source.path} also reads "
+                    f"as {other!r} (no day above 12 in the sample); check which one the file uses",
+                    WARNING,
+                )
+            ]
     return []
 
 
@@ -258,11 +330,17 @@ def _kind_problems(t: _Table, cohort: Any) -> list[Problem]:
     out = []
     for k, n in unknown.value_counts().head(5).items():
         share = n / max(len(kinds), 1)
-        out.append(problem("[cohort]", "kind_map", mapped,
-                           f"the outcome kind {k!r} ({share:.1%} of the sampled rows of {t.source.path}) is neither "
-                           f"{', '.join(KINDS)} nor mapped, so those rows are excluded; add {k} = \"outcome\" | "
-                           f"\"competing\" | \"end_of_follow_up\" to kind_map{did_you_mean(k, KINDS)}",
-                           severity="error" if share > UNKNOWN_KIND_SHARE else WARNING))
+        out.append(
+            problem(
+                "[cohort]",
+                "kind_map",
+                mapped,
+                f"the outcome kind {k!r} ({share:.1%} of the sampled rows of {t.source.path}) is neither "
+                f'{", ".join(KINDS)} nor mapped, so those rows are excluded; add {k} = "outcome" | '
+                f'"competing" | "end_of_follow_up" to kind_map{did_you_mean(k, KINDS)}',
+                severity="error" if share > UNKNOWN_KIND_SHARE else WARNING,
+            )
+        )
     return out
 
 
@@ -275,9 +353,13 @@ def _variable_problems(t: _Table, cohort: Any) -> list[Problem]:
         if v.name in seen:
             continue
         near = did_you_mean(v.name, seen - {v.name})
-        out.append(Problem(f"[cohort.variables.{v.name}]",
-                           f"[cohort.variables.{v.name}]: no sampled row of {t.source.path} has variable = "
-                           f"{v.name!r}{near}", "error" if near else WARNING))
+        out.append(
+            Problem(
+                f"[cohort.variables.{v.name}]",
+                f"[cohort.variables.{v.name}]: no sampled row of {t.source.path} has variable = {v.name!r}{near}",
+                "error" if near else WARNING,
+            )
+        )
     return out
 
 
@@ -285,12 +367,17 @@ def _entry_dates(patients: _Table) -> pd.Series | None:
     """Every row of the patients file: its parsed entry date, indexed by the trimmed patient id (repeated ids
     kept). The full file is read once, two columns only; None when it cannot be read."""
     try:
-        p = _read(Path(patients.source.path), getattr(patients.source, "encoding", "utf-8"), None,
-                  [patients.ours("patient_id"), patients.ours("entry_date")])
+        p = _read(
+            Path(patients.source.path),
+            getattr(patients.source, "encoding", "utf-8"),
+            None,
+            [patients.ours("patient_id"), patients.ours("entry_date")],
+        )
     except (ValueError, OSError, KeyError):
         return None
-    return pd.Series(_parse(p.iloc[:, 1], patients.source.date_format).to_numpy(),
-                     index=p.iloc[:, 0].astype(str).str.strip())
+    return pd.Series(
+        _parse(p.iloc[:, 1], patients.source.date_format).to_numpy(), index=p.iloc[:, 0].astype(str).str.strip()
+    )
 
 
 def _follow_up(entries: pd.Series | None, outcomes: _Table, kind_map: dict) -> pd.DataFrame | None:
@@ -300,14 +387,22 @@ def _follow_up(entries: pd.Series | None, outcomes: _Table, kind_map: dict) -> p
     if entries is None:
         return None
     try:
-        o = _read(Path(outcomes.source.path), getattr(outcomes.source, "encoding", "utf-8"), None,
-                  [outcomes.ours("patient_id"), outcomes.ours("date"), outcomes.ours("kind")])
+        o = _read(
+            Path(outcomes.source.path),
+            getattr(outcomes.source, "encoding", "utf-8"),
+            None,
+            [outcomes.ours("patient_id"), outcomes.ours("date"), outcomes.ours("kind")],
+        )
     except (ValueError, OSError, KeyError):
         return None
     entry = entries[~entries.index.duplicated(keep=False)].dropna()
-    rows = pd.DataFrame({"patient_id": o.iloc[:, 0].astype(str).str.strip().to_numpy(),
-                         "end": _parse(o.iloc[:, 1], outcomes.source.date_format).to_numpy(),
-                         "kind": o.iloc[:, 2].astype(str).str.strip().map(lambda k: kind_map.get(k, k)).to_numpy()})
+    rows = pd.DataFrame(
+        {
+            "patient_id": o.iloc[:, 0].astype(str).str.strip().to_numpy(),
+            "end": _parse(o.iloc[:, 1], outcomes.source.date_format).to_numpy(),
+            "kind": o.iloc[:, 2].astype(str).str.strip().map(lambda k: kind_map.get(k, k)).to_numpy(),
+        }
+    )
     rows = rows.dropna(subset=["end"])
     per = rows.groupby("patient_id").agg(end=("end", "max"), event=("kind", lambda k: bool((k == "outcome").any())))
     per = per[per.index.isin(entry.index)]
@@ -318,8 +413,10 @@ def _follow_up(entries: pd.Series | None, outcomes: _Table, kind_map: dict) -> p
 def _id_hint(unknown: pd.Series, known: set[str]) -> str:
     """Why sampled ids miss the patients file, when a common spelling difference explains it (no id quoted)."""
     spellings = (
-        (lambda v: v.str.replace(r"\.0+$", "", regex=True), "they are written as decimals ('.0' at the end) "
-         "in one file and as whole numbers in the other"),
+        (
+            lambda v: v.str.replace(r"\.0+$", "", regex=True),
+            "they are written as decimals ('.0' at the end) in one file and as whole numbers in the other",
+        ),
         (lambda v: v.str.lstrip("0"), "they differ in leading zeros"),
         (lambda v: v.str.lower(), "they differ in upper and lower case"),
     )
@@ -346,14 +443,20 @@ def _id_problems(entries: pd.Series | None, others: tuple[_Table, ...]) -> list[
         if unknown.empty:
             continue
         key = f"{t.where} columns"
-        text = (f"{key}: {len(unknown)} of {len(ids)} sampled rows of {t.source.path} name a patient id "
-                f"(column {t.ours('patient_id')!r}) that is not in the patients file{_id_hint(unknown, known)}")
+        text = (
+            f"{key}: {len(unknown)} of {len(ids)} sampled rows of {t.source.path} name a patient id "
+            f"(column {t.ours('patient_id')!r}) that is not in the patients file{_id_hint(unknown, known)}"
+        )
         if len(unknown) > len(ids) / 2:
-            out.append(Problem(key, text + "; map the right column with columns = { patient_id = \"...\" } or "
-                               "write the ids the same way in every file"))
+            out.append(
+                Problem(
+                    key,
+                    text + '; map the right column with columns = { patient_id = "..." } or '
+                    "write the ids the same way in every file",
+                )
+            )
         else:
-            out.append(Problem(key, text + "; the cohort stage excludes those rows (ledger: unknown_patient)",
-                               WARNING))
+            out.append(Problem(key, text + "; the cohort stage excludes those rows (ledger: unknown_patient)", WARNING))
     return out
 
 
@@ -367,9 +470,15 @@ def _temporal_split_problems(config: Any, entries: pd.Series | None) -> list[Pro
     if 0 < before < len(dates):
         return []
     side = "before" if before == 0 else "on or after"
-    return [problem("[validation]", "develop_before", cutoff,
-                    f"no patient entered {side} this date (entries run from {dates.min():%Y-%m-%d} to "
-                    f"{dates.max():%Y-%m-%d}); choose a date between them so that both parts hold patients")]
+    return [
+        problem(
+            "[validation]",
+            "develop_before",
+            cutoff,
+            f"no patient entered {side} this date (entries run from {dates.min():%Y-%m-%d} to "
+            f"{dates.max():%Y-%m-%d}); choose a date between them so that both parts hold patients",
+        )
+    ]
 
 
 def _landmark_problems(config: Any, follow_up: pd.DataFrame) -> list[Problem]:
@@ -381,13 +490,24 @@ def _landmark_problems(config: Any, follow_up: pd.DataFrame) -> list[Problem]:
         if at_risk >= MIN_AT_RISK:
             continue
         count = "no patient is" if at_risk == 0 else f"fewer than {MIN_AT_RISK} patients are"
-        out.append(problem(
-            "[landmarks]", "landmarks", format_duration(s),
-            f"{count} still followed after this landmark ({s:g} days; the longest follow-up in the outcomes file "
-            f"is {longest:.0f} days); use landmarks that leave at least {MIN_AT_RISK} patients at risk"))
+        out.append(
+            problem(
+                "[landmarks]",
+                "landmarks",
+                format_duration(s),
+                f"{count} still followed after this landmark ({s:g} days; the longest follow-up in the outcomes file "
+                f"is {longest:.0f} days); use landmarks that leave at least {MIN_AT_RISK} patients at risk",
+            )
+        )
     if len(days) < config.validation.folds:
-        out.append(problem("[validation]", "folds", config.validation.folds,
-                           f"expected at most the number of patients with follow-up ({len(days)})"))
+        out.append(
+            problem(
+                "[validation]",
+                "folds",
+                config.validation.folds,
+                f"expected at most the number of patients with follow-up ({len(days)})",
+            )
+        )
     return out
 
 
@@ -395,21 +515,38 @@ def _event_problems(config: Any, follow_up: pd.DataFrame, path: Path) -> list[Pr
     """Enough outcome events: at least one per fold, and (a warning) about 10 per covariate."""
     events = int(follow_up["event"].sum())
     if events == 0:
-        return [problem("[cohort]", "kind_map", dict(config.cohort.kind_map),
-                        f"no patient of {path} has an outcome row of kind 'outcome' (after kind_map): there is "
-                        "nothing to predict; map the file's outcome kind to \"outcome\"")]
+        return [
+            problem(
+                "[cohort]",
+                "kind_map",
+                dict(config.cohort.kind_map),
+                f"no patient of {path} has an outcome row of kind 'outcome' (after kind_map): there is "
+                'nothing to predict; map the file\'s outcome kind to "outcome"',
+            )
+        ]
     out = []
     if events < config.validation.folds:
-        out.append(problem("[validation]", "folds", config.validation.folds,
-                           "expected at most the number of patients with an outcome event, so that every fold "
-                           "has one; use fewer folds"))
+        out.append(
+            problem(
+                "[validation]",
+                "folds",
+                config.validation.folds,
+                "expected at most the number of patients with an outcome event, so that every fold "
+                "has one; use fewer folds",
+            )
+        )
     for i, m in enumerate(config.models):
         if events < EVENTS_PER_COVARIATE * len(m.covariates):
-            out.append(problem(
-                f"[[models]] #{i + 1} ({m.name})", "covariates", f"{len(m.covariates)} covariates",
-                f"about {EVENTS_PER_COVARIATE} outcome events per covariate are common practice and the outcomes "
-                f"file has fewer than {EVENTS_PER_COVARIATE * len(m.covariates)}; estimates may be unstable",
-                severity=WARNING))
+            out.append(
+                problem(
+                    f"[[models]] #{i + 1} ({m.name})",
+                    "covariates",
+                    f"{len(m.covariates)} covariates",
+                    f"about {EVENTS_PER_COVARIATE} outcome events per covariate are common practice and the outcomes "
+                    f"file has fewer than {EVENTS_PER_COVARIATE * len(m.covariates)}; estimates may be unstable",
+                    severity=WARNING,
+                )
+            )
     return out
 
 
@@ -435,13 +572,16 @@ def _visit_warnings(config: Any, visits: tuple[float, ...]) -> list[Problem]:
         for v in visits:
             gap = v - s
             if 0 < gap <= VISIT_MARGIN_DAYS:
-                out.append(Problem(
-                    "[landmarks] landmarks",
-                    f"[landmarks] landmarks: {format_duration(s)!r} ({s:g} days) falls {gap:g} days before "
-                    f"day {v:g}, "
-                    f"a common visit day in the measurements sample: values of that visit are not yet known at the "
-                    f"landmark, so the landmark sees mostly stale values; write \"{v:g} days\" to include the visit",
-                    WARNING))
+                out.append(
+                    Problem(
+                        "[landmarks] landmarks",
+                        f"[landmarks] landmarks: {format_duration(s)!r} ({s:g} days) falls {gap:g} days before "
+                        f"day {v:g}, "
+                        f"a common visit day in the measurements sample: values of that visit are not yet known at the "
+                        f'landmark, so the landmark sees mostly stale values; write "{v:g} days" to include the visit',
+                        WARNING,
+                    )
+                )
     return out
 
 
@@ -459,8 +599,9 @@ def check_analysis(config: Any) -> list[Problem]:
         Empty when the data agree with the configuration.
     """
     problems: list[Problem] = []
-    tables = {name: _load(name, getattr(config.sources, name), problems)
-              for name in ("patients", "measurements", "outcomes")}
+    tables = {
+        name: _load(name, getattr(config.sources, name), problems) for name in ("patients", "measurements", "outcomes")
+    }
     if any(t.sample is None for t in tables.values()):
         return problems
     for t in tables.values():
@@ -468,8 +609,11 @@ def check_analysis(config: Any) -> list[Problem]:
     problems += _static_problems(tables["patients"], config.cohort)
     if any(p.is_error for p in problems):
         return problems
-    for name, columns in (("patients", ("entry_date", "birth_date")), ("measurements", ("date",)),
-                          ("outcomes", ("date",))):
+    for name, columns in (
+        ("patients", ("entry_date", "birth_date")),
+        ("measurements", ("date",)),
+        ("outcomes", ("date",)),
+    ):
         for column in columns:
             problems += _date_problems(tables[name], column)
     problems += _kind_problems(tables["outcomes"], config.cohort)
@@ -496,4 +640,3 @@ def _unique(problems: list[Problem]) -> list[Problem]:
     for p in problems:
         seen.setdefault(p.message, p)
     return list(seen.values())
-

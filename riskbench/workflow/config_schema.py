@@ -19,7 +19,15 @@ from riskbench.models.family_registry import ALIASES, FAMILIES
 MISSING_DATA_METHODS = ("multiple_imputation", "complete_cases", "missing_indicator")
 FAMILY_NAMES: tuple[str, ...] = tuple(FAMILIES)
 TOP_LEVEL_KEYS: tuple[str, ...] = (
-    "seed", "sources", "cohort", "landmarks", "models", "missing_data", "validation", "execution", "report",
+    "seed",
+    "sources",
+    "cohort",
+    "landmarks",
+    "models",
+    "missing_data",
+    "validation",
+    "execution",
+    "report",
     "privacy",
 )
 
@@ -34,7 +42,8 @@ class LandmarksSection(ConfigTable):
     """``[landmarks]``: the prediction question (risk in (s, s + window] at each landmark s)."""
 
     landmarks: list[Duration] = Field(
-        min_length=1, description='a non-empty list of distinct durations, e.g. ["0 years", "6 months"]')
+        min_length=1, description='a non-empty list of distinct durations, e.g. ["0 years", "6 months"]'
+    )
     prediction_window: PositiveDuration
 
     _distinct = field_validator("landmarks")(_distinct)
@@ -70,14 +79,18 @@ class ValidationSection(ConfigTable):
     """``[validation]``."""
 
     folds: int = Field(5, ge=2, le=100, description="an integer from 2 to 100")
-    bootstrap_resamples: int = Field(50, ge=0, le=100_000,
-                                     description="0 (off) or an integer >= 2 (200 is common practice)")
+    bootstrap_resamples: int = Field(
+        50, ge=0, le=100_000, description="0 (off) or an integer >= 2 (200 is common practice)"
+    )
     optimism: bool | None = Field(None, description="true or false")
     candidate: Name | None = None
     reference: Name | None = None
     seed: int | None = Field(None, ge=0, description="an integer >= 0")
-    develop_before: str | None = Field(None, description='a date "YYYY-MM-DD": patients entering before it '
-                                       "develop the models, those entering on or after it validate them")
+    develop_before: str | None = Field(
+        None,
+        description='a date "YYYY-MM-DD": patients entering before it '
+        "develop the models, those entering on or after it validate them",
+    )
 
     _resamples = field_validator("bootstrap_resamples")(_resamples)
 
@@ -94,19 +107,20 @@ class ValidationSection(ConfigTable):
             raise ValueError('expected a calendar date written "YYYY-MM-DD", such as "2021-01-01"') from None
 
 
-
 class ExecutionSection(ConfigTable):
     """``[execution]``: where the resampling replicates run."""
 
     workers: int = Field(1, ge=1, le=512, description="an integer from 1 to 512")
-    scheduler_address: str = Field("", description='a Dask scheduler address such as "tls://host:8786"; '
-                                                   '"" runs locally')
+    scheduler_address: str = Field(
+        "", description='a Dask scheduler address such as "tls://host:8786"; "" runs locally'
+    )
     allow_remote_scheduler: bool = Field(False, description="true or false")
     tls_ca_file: str = Field("", description="a file path")
     tls_client_cert_file: str = Field("", description="a file path")
     tls_client_key_file: str = Field("", description="a file path")
-    replicates_per_task: int | None = Field(None, ge=1, le=100_000, description="an integer from 1 to 100000; "
-                                            "leave it out for about four tasks per worker")
+    replicates_per_task: int | None = Field(
+        None, ge=1, le=100_000, description="an integer from 1 to 100000; leave it out for about four tasks per worker"
+    )
 
 
 class ReportSection(ConfigTable):
@@ -114,7 +128,8 @@ class ReportSection(ConfigTable):
 
     title: Text = "Dynamic risk analysis"
     report_horizons: list[PositiveDuration] | None = Field(
-        None, min_length=1, description='a non-empty list of durations, e.g. ["1 year", "2 years"]')
+        None, min_length=1, description='a non-empty list of durations, e.g. ["1 year", "2 years"]'
+    )
     small_count_threshold: int = Field(10, ge=1, le=1000, description="an integer from 1 to 1000")
     example_patients: int = Field(3, ge=0, le=50, description="an integer from 0 to 50")
     triage: bool = Field(True, description="true or false")
@@ -124,8 +139,10 @@ class ReportSection(ConfigTable):
     decision_threshold_min: float = Field(0.0, ge=0.0, lt=1.0, description="a number from 0 up to (not including) 1")
     example_timelines: bool = Field(True, description="true or false")
     effect_units: dict[Name, float | Literal["iqr", "sd"]] = Field(
-        default_factory=dict, description='a table covariate = step: a number > 0 in the covariate\'s unit, "iqr" '
-        'or "sd" (hazard ratios are shown per that step; default per interquartile range, binary per 1)')
+        default_factory=dict,
+        description='a table covariate = step: a number > 0 in the covariate\'s unit, "iqr" '
+        'or "sd" (hazard ratios are shown per that step; default per interquartile range, binary per 1)',
+    )
 
     @field_validator("effect_units")
     @classmethod
@@ -148,8 +165,12 @@ class PrivacySection(ConfigTable):
 
 
 SECTIONS: dict[str, type[ConfigTable]] = {
-    "landmarks": LandmarksSection, "missing_data": MissingDataSection, "validation": ValidationSection,
-    "execution": ExecutionSection, "report": ReportSection, "privacy": PrivacySection,
+    "landmarks": LandmarksSection,
+    "missing_data": MissingDataSection,
+    "validation": ValidationSection,
+    "execution": ExecutionSection,
+    "report": ReportSection,
+    "privacy": PrivacySection,
 }
 
 
@@ -163,8 +184,17 @@ def _years_list(value: Any) -> Any:
     return value
 
 
-def _rename(table: dict, old: str, new: str, where: str, deprecations: list[str], *, convert=None,
-            target: dict | None = None, target_where: str | None = None) -> None:
+def _rename(
+    table: dict,
+    old: str,
+    new: str,
+    where: str,
+    deprecations: list[str],
+    *,
+    convert=None,
+    target: dict | None = None,
+    target_where: str | None = None,
+) -> None:
     """Move ``table[old]`` to ``(target or table)[new]`` (converted) when the new key is not given."""
     if old not in table:
         return
@@ -173,8 +203,10 @@ def _rename(table: dict, old: str, new: str, where: str, deprecations: list[str]
         return  # both given: the old key stays and is reported as unknown
     value = table.pop(old)
     dest[new] = convert(value) if convert else value
-    deprecations.append(f"{where} {old} = {show(value)} is deprecated; write {target_where or where} "
-                        f"{new} = {show(readable_duration(dest[new]))}")
+    deprecations.append(
+        f"{where} {old} = {show(value)} is deprecated; write {target_where or where} "
+        f"{new} = {show(readable_duration(dest[new]))}"
+    )
 
 
 def migrate(data: Mapping[str, Any], deprecations: list[str]) -> dict[str, Any]:
@@ -183,8 +215,9 @@ def migrate(data: Mapping[str, Any], deprecations: list[str]) -> dict[str, Any]:
     lm = out.get("landmarks")
     if isinstance(lm, dict):
         _rename(lm, "landmarks_years", "landmarks", "[landmarks]", deprecations, convert=_years_list)
-        _rename(lm, "horizon_years", "prediction_window", "[landmarks]", deprecations,
-                convert=lambda v: _years_list([v])[0])
+        _rename(
+            lm, "horizon_years", "prediction_window", "[landmarks]", deprecations, convert=lambda v: _years_list([v])[0]
+        )
     models = out.get("models")
     if isinstance(models, list):
         out["models"] = [_migrate_model(m, i, deprecations) for i, m in enumerate(models)]
@@ -195,18 +228,30 @@ def migrate(data: Mapping[str, Any], deprecations: list[str]) -> dict[str, Any]:
         if isinstance(compare, list) and len(compare) == 2 and "candidate" not in val and "reference" not in val:
             val.pop("compare")
             val["candidate"], val["reference"] = compare
-            deprecations.append(f"[validation] compare = {show(compare)} is deprecated; write candidate = "
-                                f"{compare[0]!r} and reference = {compare[1]!r}")
+            deprecations.append(
+                f"[validation] compare = {show(compare)} is deprecated; write candidate = "
+                f"{compare[0]!r} and reference = {compare[1]!r}"
+            )
         if any(k in val for k in ("n_jobs", "dask_address")):
             execution = out.setdefault("execution", {})
             if isinstance(execution, dict):
-                _rename(val, "n_jobs", "workers", "[validation]", deprecations, target=execution,
-                        target_where="[execution]")
-                _rename(val, "dask_address", "scheduler_address", "[validation]", deprecations,
-                        target=execution, target_where="[execution]")
+                _rename(
+                    val, "n_jobs", "workers", "[validation]", deprecations, target=execution, target_where="[execution]"
+                )
+                _rename(
+                    val,
+                    "dask_address",
+                    "scheduler_address",
+                    "[validation]",
+                    deprecations,
+                    target=execution,
+                    target_where="[execution]",
+                )
         if "seed" in val:
-            deprecations.append(f"[validation] seed = {show(val['seed'])} is deprecated; every random step now "
-                                "derives from the top-level seed (leave [validation] seed out)")
+            deprecations.append(
+                f"[validation] seed = {show(val['seed'])} is deprecated; every random step now "
+                "derives from the top-level seed (leave [validation] seed out)"
+            )
     rep = out.get("report")
     if isinstance(rep, dict):
         _rename(rep, "horizons_years", "report_horizons", "[report]", deprecations, convert=_years_list)
@@ -220,7 +265,8 @@ def _migrate_model(model: Any, index: int, deprecations: list[str]) -> Any:
     family = model.get("family")
     if isinstance(family, str) and family in ALIASES:
         model["family"] = ALIASES[family]
-        deprecations.append(f"[[models]] #{index + 1} family = {family!r} is deprecated; write family = "
-                            f"{ALIASES[family]!r} (the Cox model on the whole time-varying follow-up)")
+        deprecations.append(
+            f"[[models]] #{index + 1} family = {family!r} is deprecated; write family = "
+            f"{ALIASES[family]!r} (the Cox model on the whole time-varying follow-up)"
+        )
     return model
-

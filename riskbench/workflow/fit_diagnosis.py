@@ -75,8 +75,14 @@ def event_counts(model: Any, landmark_stack: pd.DataFrame, counting_process: pd.
             coefficients = LandmarkSupermodel(covariates, **dict(model.params)).n_coefficients(len(levels))
         except TypeError:  # unknown params are reported by the fit itself
             coefficients = len(covariates)
-    return EventCounts(int((status == 1).sum()), int((status == 2).sum()), coefficients,
-                       tuple(float(s) for s in levels), tuple(p[0] for p in per), tuple(p[1] for p in per))
+    return EventCounts(
+        int((status == 1).sum()),
+        int((status == 2).sum()),
+        coefficients,
+        tuple(float(s) for s in levels),
+        tuple(p[0] for p in per),
+        tuple(p[1] for p in per),
+    )
 
 
 def _cause_of(exc: BaseException) -> str:
@@ -102,8 +108,11 @@ def events_sentence(counts: EventCounts, cause: str, threshold: int) -> str:
     ratio = n / counts.coefficients
     if ratio >= EVENTS_PER_COEFFICIENT:
         return text
-    text += (", under 1 per coefficient" if ratio < 1 else
-             f", under {EVENTS_PER_COEFFICIENT} per coefficient (the common rule of thumb)")
+    text += (
+        ", under 1 per coefficient"
+        if ratio < 1
+        else f", under {EVENTS_PER_COEFFICIENT} per coefficient (the common rule of thumb)"
+    )
     thin = _thin_landmarks(counts, cause)
     if thin and len(thin) < len(counts.landmarks_days):
         text += f", and landmark{'s' if len(thin) > 1 else ''} {', '.join(thin)} with fewer {what} than coefficients"
@@ -146,9 +155,15 @@ def _fix(model: Any, *, landmarks: bool) -> str:
     return ", ".join(fixes[:-1]) + (" or " if len(fixes) > 1 else "") + fixes[-1]
 
 
-def describe_fit_failure(model: Any, exc: BaseException, landmark_stack: pd.DataFrame,
-                         counting_process: pd.DataFrame | None, *, threshold: int,
-                         where: str = "on the whole cohort") -> str:
+def describe_fit_failure(
+    model: Any,
+    exc: BaseException,
+    landmark_stack: pd.DataFrame,
+    counting_process: pd.DataFrame | None,
+    *,
+    threshold: int,
+    where: str = "on the whole cohort",
+) -> str:
     """One paragraph: why ``model`` (a ``[[models]]`` entry) could not be fitted ``where``, and what to change.
 
     ``landmark_stack`` / ``counting_process`` are the tables the fit saw (for the event counts).
@@ -162,30 +177,55 @@ def describe_fit_failure(model: Any, exc: BaseException, landmark_stack: pd.Data
     head = f"could not be fitted {where}"
     if isinstance(exc, CoxCollinearityError):
         landmark_terms = any(t.split(":")[0] in _LANDMARK_TERMS for t in getattr(exc, "terms", ()))
-        also = (" together with the landmark terms of the smooth baseline (params baseline = \"smooth\")"
-                if landmark_terms else "")
-        return (f"{head}: in the {which}, covariates {_quoted(terms)}{also} are collinear in these rows (one is "
-                f"a linear combination of the others), so their effects cannot be told apart; "
-                f"{_fix(model, landmarks=False)}"
-                + (' or use params baseline = "stratified"' if landmark_terms else "") + ".")
+        also = (
+            ' together with the landmark terms of the smooth baseline (params baseline = "smooth")'
+            if landmark_terms
+            else ""
+        )
+        return (
+            f"{head}: in the {which}, covariates {_quoted(terms)}{also} are collinear in these rows (one is "
+            f"a linear combination of the others), so their effects cannot be told apart; "
+            f"{_fix(model, landmarks=False)}"
+            + (' or use params baseline = "stratified"' if landmark_terms else "")
+            + "."
+        )
     if isinstance(exc, CoxConstantCovariateError):
-        return (f"{head}: covariate(s) {_quoted(terms)} take a single value in these rows, so they carry no "
-                f"information; remove them ([[models]] covariates of {model.name!r}) or include patients "
-                "with other values.")
-    numerical = isinstance(exc, (CoxNumericalError, np.linalg.LinAlgError, FloatingPointError)) or \
-        "infs or NaNs" in str(exc) or "not finite" in str(exc)
+        return (
+            f"{head}: covariate(s) {_quoted(terms)} take a single value in these rows, so they carry no "
+            f"information; remove them ([[models]] covariates of {model.name!r}) or include patients "
+            "with other values."
+        )
+    numerical = (
+        isinstance(exc, (CoxNumericalError, np.linalg.LinAlgError, FloatingPointError))
+        or "infs or NaNs" in str(exc)
+        or "not finite" in str(exc)
+    )
     if numerical:
-        separated = (f"; the coefficients of {_quoted(terms)} were running off to infinity (a covariate "
-                     "separates the events from the other patients at risk)") if terms else ""
-        return (f"{head}: the {which} broke down numerically with "
-                f"{events_sentence(counts, cause, threshold)}{separated}; {_fix(model, landmarks=True)}.")
+        separated = (
+            (
+                f"; the coefficients of {_quoted(terms)} were running off to infinity (a covariate "
+                "separates the events from the other patients at risk)"
+            )
+            if terms
+            else ""
+        )
+        return (
+            f"{head}: the {which} broke down numerically with "
+            f"{events_sentence(counts, cause, threshold)}{separated}; {_fix(model, landmarks=True)}."
+        )
     if "no " in str(exc) and ("events" in str(exc) or "status" in str(exc)):
         return f"{head}: {events_sentence(counts, cause, threshold)}; a Cox model needs events of each cause."
     return f"{head}: {type(exc).__name__}: {hide_small_numbers(str(exc), threshold)}"
 
 
-def describe_warnings(model: Any, log: Sequence[FitWarning], landmark_stack: pd.DataFrame,
-                      counting_process: pd.DataFrame | None, *, threshold: int) -> str | None:
+def describe_warnings(
+    model: Any,
+    log: Sequence[FitWarning],
+    landmark_stack: pd.DataFrame,
+    counting_process: pd.DataFrame | None,
+    *,
+    threshold: int,
+) -> str | None:
     """A sentence about the warnings of ``model``'s fit on the whole cohort (None when it did not warn)."""
     if not log:
         return None
@@ -200,7 +240,8 @@ def describe_warnings(model: Any, log: Sequence[FitWarning], landmark_stack: pd.
         parts.append(
             f"covariate(s) {_quoted(terms)} perfectly separate events from non-events at some event times, so "
             f"their coefficients run off to infinity and their hazard ratios and intervals are meaningless "
-            f"[{events}]; {_fix(model, landmarks=True)}")
+            f"[{events}]; {_fix(model, landmarks=True)}"
+        )
     if "non-convergence" in kinds:
         parts.append("the fitting iterations did not converge; estimates may be inaccurate")
     if "numerical" in kinds:

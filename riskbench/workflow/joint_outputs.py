@@ -24,7 +24,11 @@ __all__ = ["joint_model_outputs"]
 
 
 def joint_model_outputs(
-    config: Any, name: str, model: Any, counting_process: pd.DataFrame, run_dir: Path,
+    config: Any,
+    name: str,
+    model: Any,
+    counting_process: pd.DataFrame,
+    run_dir: Path,
     label_of: Callable[[str], str],
 ) -> tuple[dict[str, pd.DataFrame], dict[str, FigureFiles], list[Note]]:
     """Tables (``joint_estimates_<name>``), figures (``joint_patient_<name>``) and notes of one fitted model.
@@ -40,8 +44,14 @@ def joint_model_outputs(
         try:
             chosen = choose_example_patients(counting_process, 1, config.seed)
             rows = counting_process[counting_process["patient_id"] == chosen[0]].sort_values("start")
-            figure = joint_patient_figure(model, rows.head(1), float(rows["stop"].max()),
-                                          config.landmarks.horizon_days, pseudonym(0), labels=label_of)
+            figure = joint_patient_figure(
+                model,
+                rows.head(1),
+                float(rows["stop"].max()),
+                config.landmarks.horizon_days,
+                pseudonym(0),
+                labels=label_of,
+            )
             figures[f"joint_patient_{name}"] = save_figure(figure, run_dir, f"joint_patient_{name}")
         except PART_ERRORS as exc:
             notes.append(Note("models", "joint model example patient", f"not drawn: {exc}", model=name))

@@ -87,9 +87,11 @@ def local_socket_kernel_manager(folder: str, temp_folder: str | None = None) -> 
             try:
                 at = cmd.index("ipykernel_launcher")
             except ValueError:
-                raise RuntimeError(f"the kernel spec does not start ipykernel_launcher ({cmd}); riskbench cannot "
-                                   "keep that kernel off the network") from None
-            return [*cmd[:at], LAUNCHER, folder, temp, *cmd[at + 1:]]
+                raise RuntimeError(
+                    f"the kernel spec does not start ipykernel_launcher ({cmd}); riskbench cannot "
+                    "keep that kernel off the network"
+                ) from None
+            return [*cmd[:at], LAUNCHER, folder, temp, *cmd[at + 1 :]]
 
     return LocalSocketKernelManager
 

@@ -42,8 +42,10 @@ def bind_output_pipe_to_ipc(folder: str) -> None:
     thread_class = iostream.IOPubThread
     for name in ("_setup_pipe_in", "_setup_pipe_out", "_handle_pipe_msg"):
         if not hasattr(thread_class, name):  # a future ipykernel: refuse rather than open a TCP port
-            raise RuntimeError(f"ipykernel {getattr(sys.modules.get('ipykernel'), '__version__', '?')} has no "
-                               f"IOPubThread.{name}; riskbench cannot keep the kernel off TCP with this version")
+            raise RuntimeError(
+                f"ipykernel {getattr(sys.modules.get('ipykernel'), '__version__', '?')} has no "
+                f"IOPubThread.{name}; riskbench cannot keep the kernel off TCP with this version"
+            )
 
     def setup_pipe_in(self) -> None:
         ctx = self.socket.context

@@ -25,8 +25,23 @@ from riskbench.workflow.config import AnalysisConfig, file_sha256
 
 MANIFEST = "manifest.json"
 PACKAGES: tuple[str, ...] = (
-    "riskbench", "numpy", "pandas", "scipy", "scikit-learn", "scikit-survival", "lifelines", "matplotlib",
-    "duckdb", "pyarrow", "joblib", "dask", "distributed", "papermill", "nbconvert", "nbformat", "ipykernel",
+    "riskbench",
+    "numpy",
+    "pandas",
+    "scipy",
+    "scikit-learn",
+    "scikit-survival",
+    "lifelines",
+    "matplotlib",
+    "duckdb",
+    "pyarrow",
+    "joblib",
+    "dask",
+    "distributed",
+    "papermill",
+    "nbconvert",
+    "nbformat",
+    "ipykernel",
 )
 
 
@@ -53,10 +68,16 @@ def git_commit(source_dir: str | Path | None = None) -> dict[str, Any] | None:
     """
     folder = Path(source_dir) if source_dir else Path(__file__).resolve().parents[2]
     try:
-        commit = subprocess.run(["git", "-C", str(folder), "rev-parse", "HEAD"], capture_output=True,
-                                text=True, timeout=10, check=True).stdout.strip()
-        status = subprocess.run(["git", "-C", str(folder), "status", "--porcelain", "--untracked-files=no"],
-                                capture_output=True, text=True, timeout=10, check=True).stdout
+        commit = subprocess.run(
+            ["git", "-C", str(folder), "rev-parse", "HEAD"], capture_output=True, text=True, timeout=10, check=True
+        ).stdout.strip()
+        status = subprocess.run(
+            ["git", "-C", str(folder), "status", "--porcelain", "--untracked-files=no"],
+            capture_output=True,
+            text=True,
+            timeout=10,
+            check=True,
+        ).stdout
     except (OSError, subprocess.SubprocessError):
         return None
     return {"commit": commit, "dirty": bool(status.strip())}
@@ -65,15 +86,21 @@ def git_commit(source_dir: str | Path | None = None) -> dict[str, Any] | None:
 def network_record(config: AnalysisConfig) -> dict[str, Any]:
     """Where the run's data went: sent off this machine or not, the Dask scheduler, the kernel transport."""
     plan = config.execution
-    return {"data_left_machine": data_leaves_machine(plan), "statement": execution_statement(plan),
-            "scheduler_address": getattr(plan, "scheduler_address", None) or None,
-            "kernel_transport": "Unix-domain sockets (ZeroMQ ipc); no TCP or UDP port opened"}
+    return {
+        "data_left_machine": data_leaves_machine(plan),
+        "statement": execution_statement(plan),
+        "scheduler_address": getattr(plan, "scheduler_address", None) or None,
+        "kernel_transport": "Unix-domain sockets (ZeroMQ ipc); no TCP or UDP port opened",
+    }
 
 
 def input_files(config: AnalysisConfig) -> dict[str, Path]:
     """The files the run reads: the configuration and the three source tables."""
-    files = {"patients": config.sources.patients.path, "measurements": config.sources.measurements.path,
-             "outcomes": config.sources.outcomes.path}
+    files = {
+        "patients": config.sources.patients.path,
+        "measurements": config.sources.measurements.path,
+        "outcomes": config.sources.outcomes.path,
+    }
     if config.path is not None:
         files = {"configuration": config.path, **files}
     return {k: Path(v) for k, v in files.items()}
@@ -118,8 +145,7 @@ def build_manifest(
         "input_sha256": {k: file_sha256(p) for k, p in input_files(config).items()},
         "seeds": {"analysis": config.seed, "validation": config.validation.seed},
         "versions": package_versions(),
-        "platform": {"system": platform.system(), "machine": platform.machine(),
-                     "python_executable": sys.executable},
+        "platform": {"system": platform.system(), "machine": platform.machine(), "python_executable": sys.executable},
         "git": git_commit(),
         "outputs_sha256": output_digests(run_dir),
         "network": network_record(config),

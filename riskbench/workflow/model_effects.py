@@ -66,8 +66,9 @@ def effect_bands(model: Any, level: float = 0.95) -> pd.DataFrame | None:
     per_fit = [f.landmark_effect_bands(grid, level=level) for f in fits]
     if len(per_fit) == 1:
         return per_fit[0]
-    pooled = pool_estimates(np.stack([b["coef"].to_numpy() for b in per_fit]),
-                            np.stack([b["se"].to_numpy() ** 2 for b in per_fit]))
+    pooled = pool_estimates(
+        np.stack([b["coef"].to_numpy() for b in per_fit]), np.stack([b["se"].to_numpy() ** 2 for b in per_fit])
+    )
     low, high = pooled.interval(level)
     out = per_fit[0][["covariate", "landmark_days"]].copy()
     out["coef"], out["se"], out["lower"], out["upper"] = pooled.estimate, pooled.se, low, high
@@ -89,9 +90,14 @@ def form_tests(model: Any, spec: Any, stack: pd.DataFrame) -> list[dict[str, Any
     return rows
 
 
-def model_effects(model: Any, summary: pd.DataFrame, stack: pd.DataFrame, covariates: list[str],
-                  rules: Mapping[str, float | str], label_of: Callable[[str], str]
-                  ) -> tuple[pd.DataFrame, dict[str, EffectStep]]:
+def model_effects(
+    model: Any,
+    summary: pd.DataFrame,
+    stack: pd.DataFrame,
+    covariates: list[str],
+    rules: Mapping[str, float | str],
+    label_of: Callable[[str], str],
+) -> tuple[pd.DataFrame, dict[str, EffectStep]]:
     """Hazard ratios per step of the model's main terms (see :func:`riskbench.report.effects.scaled_hazard_ratios`)
     and the steps used, measured over the landmark rows of ``stack``."""
     steps = effect_steps(stack, covariates, rules)

@@ -34,12 +34,19 @@ def model_spec(model: ModelConfig, analysis_plan: object | None = None) -> Model
 
     ``analysis_plan`` is the configuration's ``[missing_data]`` section (``config.missing_data``).
     """
-    return ModelSpec(model.name, tuple(model.covariates), model.family, dict(model.params),
-                     missing_data_plan(model, analysis_plan))
+    return ModelSpec(
+        model.name, tuple(model.covariates), model.family, dict(model.params), missing_data_plan(model, analysis_plan)
+    )
 
 
-def fit_model(model: ModelConfig, landmark_stack: pd.DataFrame, counting_process: pd.DataFrame | None,
-              *, seed: int, missing_data: object | None = None) -> Any:
+def fit_model(
+    model: ModelConfig,
+    landmark_stack: pd.DataFrame,
+    counting_process: pd.DataFrame | None,
+    *,
+    seed: int,
+    missing_data: object | None = None,
+) -> Any:
     """Fit one configured model (Cox family on the counting-process rows, others on the landmark stack).
 
     ``missing_data`` is the configuration's ``[missing_data]`` section (``config.missing_data``); with the
@@ -50,8 +57,9 @@ def fit_model(model: ModelConfig, landmark_stack: pd.DataFrame, counting_process
     ConfigError
         If the model's covariates are not columns of the tables or its ``params`` are not accepted.
     """
-    table = (counting_process if model.family in ("cox", "time_varying_cox", "shared_trajectory_joint")
-             else landmark_stack)
+    table = (
+        counting_process if model.family in ("cox", "time_varying_cox", "shared_trajectory_joint") else landmark_stack
+    )
     if table is not None:
         missing = [c for c in model.covariates if c not in table.columns]
         if missing:
@@ -60,8 +68,7 @@ def fit_model(model: ModelConfig, landmark_stack: pd.DataFrame, counting_process
                 f"available: {', '.join(c for c in table.columns if c not in ('patient_id', 'status'))}"
             )
     try:
-        return fit_spec(model_spec(model, missing_data), ValidationTables(landmark_stack, counting_process),
-                        seed=seed)
+        return fit_spec(model_spec(model, missing_data), ValidationTables(landmark_stack, counting_process), seed=seed)
     except TypeError as exc:
         raise ConfigError(f"[[models]] {model.name!r}: params {dict(model.params)} not accepted: {exc}") from None
 
@@ -84,8 +91,7 @@ def missing_data_tables(config: Any, stack: pd.DataFrame, labels: Any = None) ->
             staleness[f"{v.column}{suffix}"] = v.staleness_column
     tables = {"missing_data": missing_data_table(stack, covariates, staleness, threshold=threshold, labels=labels)}
     plan = config.missing_data
-    complete = {m.name: m.covariates for m in config.models
-                if missing_data_plan(m, plan).method == "complete_cases"}
+    complete = {m.name: m.covariates for m in config.models if missing_data_plan(m, plan).method == "complete_cases"}
     if complete:
         tables["complete_cases"] = complete_case_table(stack, complete, threshold=threshold)
     return tables

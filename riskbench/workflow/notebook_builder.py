@@ -104,8 +104,11 @@ def stage_notebook(stage: str) -> nbformat.NotebookNode:
         new_code_cell(_FURTHER[stage]),
     ]
     nb = new_notebook(cells=cells)
-    nb.metadata["kernelspec"] = {"name": "riskbench", "display_name": "riskbench (this environment)",
-                                 "language": "python"}
+    nb.metadata["kernelspec"] = {
+        "name": "riskbench",
+        "display_name": "riskbench (this environment)",
+        "language": "python",
+    }
     nb.metadata["language_info"] = {"name": "python"}
     return nb
 

@@ -51,8 +51,16 @@ class ProgressRelay:
         On a stream that is not interactive, the least number of seconds between two lines of one part.
     """
 
-    def __init__(self, path: str | os.PathLike[str], stage: str, stream: TextIO | None = None, *,
-                 interactive: bool | None = None, poll_s: float = 0.5, interval_s: float = 30.0) -> None:
+    def __init__(
+        self,
+        path: str | os.PathLike[str],
+        stage: str,
+        stream: TextIO | None = None,
+        *,
+        interactive: bool | None = None,
+        poll_s: float = 0.5,
+        interval_s: float = 30.0,
+    ) -> None:
         self._path = Path(path)
         self._stage = stage
         self._stream = stream
@@ -113,8 +121,9 @@ class ProgressRelay:
         if self._sink is None or state.label != self._label:
             if self._sink is not None and self._last is not None and not self._last.finished:
                 self._sink.close(self._last)
-            self._sink = TerminalSink(self._stream, interactive=self._interactive, interval_s=self._interval,
-                                      prefix=f"stage {self._stage}: ")
+            self._sink = TerminalSink(
+                self._stream, interactive=self._interactive, interval_s=self._interval, prefix=f"stage {self._stage}: "
+            )
             self._label = state.label
         self._last = state
         if state.finished:
@@ -124,7 +133,8 @@ class ProgressRelay:
             self._sink.show(state)
 
 
-def stage_progress(temp_folder: str | os.PathLike[str], stage: str,
-                   show: bool = True) -> AbstractContextManager[object]:
+def stage_progress(
+    temp_folder: str | os.PathLike[str], stage: str, show: bool = True
+) -> AbstractContextManager[object]:
     """While a stage runs: relay its kernel's progress file (in ``temp_folder``) to standard error when ``show``."""
     return ProgressRelay(progress_file(temp_folder), stage) if show else nullcontext()

@@ -51,10 +51,8 @@ def pseudonym_map(ids: Iterable, key: bytes) -> dict:
         ``HMAC-SHA-256(key, id)``.
     """
     if not isinstance(key, (bytes, bytearray)) or len(key) < MIN_KEY_BYTES:
-        raise PseudonymKeyError(
-            f"the pseudonym key must be at least {MIN_KEY_BYTES} bytes (got {type(key).__name__})")
-    distinct = sorted({str(i) for i in ids if not pd.isna(i)},
-                      key=lambda s: hmac_sha256(bytes(key), s.encode("utf-8")))
+        raise PseudonymKeyError(f"the pseudonym key must be at least {MIN_KEY_BYTES} bytes (got {type(key).__name__})")
+    distinct = sorted({str(i) for i in ids if not pd.isna(i)}, key=lambda s: hmac_sha256(bytes(key), s.encode("utf-8")))
     width = max(5, len(str(len(distinct))))
     return {s: f"R{n:0{width}d}" for n, s in enumerate(distinct, start=1)}
 
@@ -82,7 +80,8 @@ def key_file_of(config: Any) -> Path:
     if path is None:
         raise PseudonymKeyError(
             "the configuration has no file and names no [privacy] key_file: the pseudonym key needs a place "
-            "outside the run folder (set [privacy] key_file or load the configuration from a file)")
+            "outside the run folder (set [privacy] key_file or load the configuration from a file)"
+        )
     return Path(path).with_suffix(".key")
 
 
@@ -92,7 +91,7 @@ def run_folders(run_dir: str | Path) -> list[Path]:
     folders = [run_dir]
     name = run_dir.name
     if name.startswith(".") and name.endswith(".partial"):
-        final = name[1:-len(".partial")]
+        final = name[1 : -len(".partial")]
         folders += [run_dir.parent / final, run_dir.parent / f"{final}.failed"]
     return folders
 
@@ -118,7 +117,8 @@ def load_or_create_key(path: str | Path, *, run_dir: str | Path | None = None) -
     if run_dir is not None and any(_inside(path, folder) for folder in run_folders(run_dir)):
         raise PseudonymKeyError(
             f"{path}: the pseudonym key file lies inside the run folder, where it would travel with the "
-            "results; set [privacy] key_file to a place outside the run folder")
+            "results; set [privacy] key_file to a place outside the run folder"
+        )
     if not path.exists():
         try:
             fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
@@ -127,7 +127,8 @@ def load_or_create_key(path: str | Path, *, run_dir: str | Path | None = None) -
         except OSError as exc:
             raise PseudonymKeyError(
                 f"{path}: cannot create the pseudonym key file ({exc.strerror}); set [privacy] key_file to "
-                "a writable place outside the run folder") from None
+                "a writable place outside the run folder"
+            ) from None
         with os.fdopen(fd, "w", encoding="ascii") as fh:
             fh.write(secrets.token_hex(KEY_BYTES) + "\n")
     if not path.is_file():
@@ -136,7 +137,8 @@ def load_or_create_key(path: str | Path, *, run_dir: str | Path | None = None) -
     if mode & 0o077:
         raise PseudonymKeyError(
             f"{path}: the pseudonym key file is accessible to others (mode {mode:04o}); "
-            f"make it owner-only with: chmod 600 {path}")
+            f"make it owner-only with: chmod 600 {path}"
+        )
     with open(path, "rb") as fh:
         text = fh.read(4096).decode("ascii", errors="replace").strip()  # a key is one short line
     try:
@@ -146,7 +148,8 @@ def load_or_create_key(path: str | Path, *, run_dir: str | Path | None = None) -
     if len(key) < MIN_KEY_BYTES:
         raise PseudonymKeyError(
             f"{path}: not a pseudonym key (expected at least {2 * MIN_KEY_BYTES} hexadecimal digits on one "
-            "line); remove the file to have a new key made, or name another with [privacy] key_file")
+            "line); remove the file to have a new key made, or name another with [privacy] key_file"
+        )
     return key
 
 

@@ -57,8 +57,13 @@ def _time_scale(origin: str) -> str:
     return "time since the landmark" if origin == "landmark" else "time since entry"
 
 
-def cox_checks(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, label_of: Callable[[str], str],
-               skip: frozenset[str] = frozenset()) -> tuple[dict[str, pd.DataFrame], list[Note]]:
+def cox_checks(
+    config: AnalysisConfig,
+    stack: pd.DataFrame,
+    cp: pd.DataFrame,
+    label_of: Callable[[str], str],
+    skip: frozenset[str] = frozenset(),
+) -> tuple[dict[str, pd.DataFrame], list[Note]]:
     """Proportional-hazards tests of the Cox-family models and the nested likelihood-ratio test.
 
     Each model is refitted as a plain Cox model of its outcome (:func:`riskbench.models.cox_diagnostics.cox_refit`)
@@ -77,12 +82,19 @@ def cox_checks(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, la
             notes.append(Note("models", "proportional-hazards test", f"not computed: {exc}", model=m.name))
             continue
         test = test.reset_index()
-        ph.append(pd.DataFrame({
-            "model": m.name, "term": test["covariate"],
-            "label": [t if t == "GLOBAL" else term_label(t, label_of) for t in test["covariate"]],
-            "statistic": test["statistic"], "df": test["df"], "p_value": test["p_value"],
-            "time_scale": f"1 - Kaplan-Meier of {_time_scale(refit.time_origin)}",
-        }))
+        ph.append(
+            pd.DataFrame(
+                {
+                    "model": m.name,
+                    "term": test["covariate"],
+                    "label": [t if t == "GLOBAL" else term_label(t, label_of) for t in test["covariate"]],
+                    "statistic": test["statistic"],
+                    "df": test["df"],
+                    "p_value": test["p_value"],
+                    "time_scale": f"1 - Kaplan-Meier of {_time_scale(refit.time_origin)}",
+                }
+            )
+        )
     if ph:
         tables["proportional_hazards"] = pd.concat(ph, ignore_index=True)
     lr = _nested_test(config, stack, cp, label_of, skip, notes)
@@ -91,8 +103,14 @@ def cox_checks(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, la
     return tables, notes
 
 
-def _nested_test(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, label_of: Callable[[str], str],
-                 skip: frozenset[str], notes: list[Note]) -> pd.DataFrame | None:
+def _nested_test(
+    config: AnalysisConfig,
+    stack: pd.DataFrame,
+    cp: pd.DataFrame,
+    label_of: Callable[[str], str],
+    skip: frozenset[str],
+    notes: list[Note],
+) -> pd.DataFrame | None:
     part = "likelihood-ratio test"
     pair = config.validation.compare
     models = {m.name: m for m in config.models}
@@ -113,22 +131,31 @@ def _nested_test(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, 
         return None
     table = _table_of(candidate, stack, cp)
     try:
-        fits = [cox_refit(m.family, m.covariates, m.params, table, complete_on=candidate.covariates)
-                for m in (reference, candidate)]
+        fits = [
+            cox_refit(m.family, m.covariates, m.params, table, complete_on=candidate.covariates)
+            for m in (reference, candidate)
+        ]
         test = nested_cox_lr_test(fits[0].model, fits[1].model)
     except CHECK_ERRORS as exc:
         notes.append(Note("models", part, f"not computed: {exc}"))
         return None
     added = [c for c in fits[1].model.fit_.names if c not in set(fits[0].model.fit_.names)]
     threshold = config.report.small_count_threshold
-    return pd.DataFrame([{
-        "reference": reference.name, "candidate": candidate.name,
-        "added_terms": "; ".join(term_label(t, label_of) for t in added),
-        "df": test.df, "statistic": test.statistic, "p_value": test.p_value,
-        # rows used + left out = the landmark rows stated in the methods: hide one that gives the other away
-        "rows_used": shown_parts([len(fits[1].table), fits[1].rows_left_out], threshold)[0],
-        "outcomes": format_count(int((fits[1].table["status"] == 1).sum()), threshold),
-    }])
+    return pd.DataFrame(
+        [
+            {
+                "reference": reference.name,
+                "candidate": candidate.name,
+                "added_terms": "; ".join(term_label(t, label_of) for t in added),
+                "df": test.df,
+                "statistic": test.statistic,
+                "p_value": test.p_value,
+                # rows used + left out = the landmark rows stated in the methods: hide one that gives the other away
+                "rows_used": shown_parts([len(fits[1].table), fits[1].rows_left_out], threshold)[0],
+                "outcomes": format_count(int((fits[1].table["status"] == 1).sum()), threshold),
+            }
+        ]
+    )
 
 
 # --------------------------------------------------------------------------------------------- comparison stage
@@ -153,10 +180,17 @@ def _follow_up(patients: pd.DataFrame) -> tuple[float, float, float]:
 def follow_up_table(patients: pd.DataFrame, threshold: int) -> pd.DataFrame:
     """Median follow-up and quartiles by reverse Kaplan–Meier (years), with the number of patients."""
     median, low, high = _follow_up(patients)
-    return pd.DataFrame([{"n_patients": format_count(len(patients), threshold),
-                          "median_follow_up_years": median / DAYS_PER_YEAR,
-                          "lower_quartile_years": low / DAYS_PER_YEAR, "upper_quartile_years": high / DAYS_PER_YEAR,
-                          "method": "reverse Kaplan-Meier (Schemper & Smith 1996)"}])
+    return pd.DataFrame(
+        [
+            {
+                "n_patients": format_count(len(patients), threshold),
+                "median_follow_up_years": median / DAYS_PER_YEAR,
+                "lower_quartile_years": low / DAYS_PER_YEAR,
+                "upper_quartile_years": high / DAYS_PER_YEAR,
+                "method": "reverse Kaplan-Meier (Schemper & Smith 1996)",
+            }
+        ]
+    )
 
 
 def sample_size_table(config: AnalysisConfig, patients: pd.DataFrame, n_landmarks: int) -> pd.DataFrame:
@@ -183,14 +217,23 @@ def sample_size_table(config: AnalysisConfig, patients: pd.DataFrame, n_landmark
         if p == 0:
             continue
         for c in riley_survival_criteria(p, None, rate, mean_fu, config.landmarks.horizon_years):
-            rows.append({"model": m.name, "parameters": p, "criterion": c.criterion, "aim": c.description,
-                         "required_patients": c.participants, "required_outcomes": int(np.ceil(c.events)),
-                         "cohort_patients": format_count(n, threshold),
-                         "cohort_outcomes": format_count(outcomes, threshold),
-                         "cohort_outcomes_per_parameter": outcomes / p,
-                         "met": "yes" if n >= c.participants else "no",
-                         "anticipated_r2_cox_snell": r2, "outcome_rate_per_year": rate,
-                         "mean_follow_up_years": mean_fu})
+            rows.append(
+                {
+                    "model": m.name,
+                    "parameters": p,
+                    "criterion": c.criterion,
+                    "aim": c.description,
+                    "required_patients": c.participants,
+                    "required_outcomes": int(np.ceil(c.events)),
+                    "cohort_patients": format_count(n, threshold),
+                    "cohort_outcomes": format_count(outcomes, threshold),
+                    "cohort_outcomes_per_parameter": outcomes / p,
+                    "met": "yes" if n >= c.participants else "no",
+                    "anticipated_r2_cox_snell": r2,
+                    "outcome_rate_per_year": rate,
+                    "mean_follow_up_years": mean_fu,
+                }
+            )
     return pd.DataFrame(rows)
 
 
@@ -203,41 +246,66 @@ def _global_ph_violations(run_dir: Path) -> tuple[str, ...]:
     return tuple(dict.fromkeys(str(m) for m in hits["model"]))
 
 
-def study_facts(config: AnalysisConfig, patients: pd.DataFrame, stack: pd.DataFrame,
-                sample_size: pd.DataFrame, run_dir: Path, label_of: Callable[[str], str]) -> StudyFacts:
+def study_facts(
+    config: AnalysisConfig,
+    patients: pd.DataFrame,
+    stack: pd.DataFrame,
+    sample_size: pd.DataFrame,
+    run_dir: Path,
+    label_of: Callable[[str], str],
+) -> StudyFacts:
     """The facts the methods and limitations paragraphs state, from the configuration and the run's data."""
     has_competing = bool((patients["end_status"] == 2).any())
     n_landmarks = int(stack["landmark"].nunique())
     models = []
     for m in config.models:
         plan = missing_data_plan(m, config.missing_data)
-        models.append(ModelFacts(m.name, m.family, tuple(label_of(c) for c in m.covariates),
-                                 model_parameters(m, n_landmarks), plan.method, plan.imputations,
-                                 prediction_kind(m.family, m.params, has_competing)))
+        models.append(
+            ModelFacts(
+                m.name,
+                m.family,
+                tuple(label_of(c) for c in m.covariates),
+                model_parameters(m, n_landmarks),
+                plan.method,
+                plan.imputations,
+                prediction_kind(m.family, m.params, has_competing),
+            )
+        )
     unmet = () if sample_size.empty else tuple(dict.fromkeys(sample_size.loc[sample_size["met"] == "no", "model"]))
     pair = config.validation.compare
     if pair is not None and not set(pair) <= {m.name for m in config.models}:
         pair = None  # the comparison names a model that is not configured: no comparison to describe
     return StudyFacts(
-        n_patients=len(patients), n_outcomes=int((patients["end_status"] == 1).sum()),
-        n_competing=int((patients["end_status"] == 2).sum()), n_censored=int((patients["end_status"] == 0).sum()),
+        n_patients=len(patients),
+        n_outcomes=int((patients["end_status"] == 1).sum()),
+        n_competing=int((patients["end_status"] == 2).sum()),
+        n_censored=int((patients["end_status"] == 0).sum()),
         follow_up_days=_follow_up(patients),
         time_varying=tuple(label_of(v.column) for v in config.cohort.variables),
         static=tuple(label_of(c) for c in config.cohort.static_columns),
-        max_carry_days=config.cohort.max_carry_days, lookback_days=float(config.cohort.lookback_days),
-        landmarks_days=tuple(config.landmarks.landmarks_days), horizon_days=config.landmarks.horizon_days,
-        report_horizons_days=tuple(config.report.horizons_days), n_landmark_rows=len(stack),
-        models=tuple(models), folds=config.validation.folds,
-        bootstrap_resamples=config.validation.bootstrap_resamples, optimism=config.validation.optimism,
-        reference=pair[1] if pair else None, candidate=pair[0] if pair else None,
-        threshold=config.report.small_count_threshold, nri=nri_kind(None),
-        unmet_sample_size=unmet, ph_violations=_global_ph_violations(run_dir),
+        max_carry_days=config.cohort.max_carry_days,
+        lookback_days=float(config.cohort.lookback_days),
+        landmarks_days=tuple(config.landmarks.landmarks_days),
+        horizon_days=config.landmarks.horizon_days,
+        report_horizons_days=tuple(config.report.horizons_days),
+        n_landmark_rows=len(stack),
+        models=tuple(models),
+        folds=config.validation.folds,
+        bootstrap_resamples=config.validation.bootstrap_resamples,
+        optimism=config.validation.optimism,
+        reference=pair[1] if pair else None,
+        candidate=pair[0] if pair else None,
+        threshold=config.report.small_count_threshold,
+        nri=nri_kind(None),
+        unmet_sample_size=unmet,
+        ph_violations=_global_ph_violations(run_dir),
         develop_before=config.validation.develop_before,
     )
 
 
-def write_review_items(config: AnalysisConfig, run_dir: str | Path, stack: pd.DataFrame,
-                       label_of: Callable[[str], str]) -> list[Note]:
+def write_review_items(
+    config: AnalysisConfig, run_dir: str | Path, stack: pd.DataFrame, label_of: Callable[[str], str]
+) -> list[Note]:
     """Write the sample-size, follow-up, methods, limitations and reporting-items files; return notes.
 
     Call it after every other table of the run is written: the reporting-items table looks for them.
@@ -263,8 +331,14 @@ def write_review_items(config: AnalysisConfig, run_dir: str | Path, stack: pd.Da
         if len(sample_size):
             save_table(sample_size, run_dir, "sample_size")
         elif not notes:
-            notes.append(Note("comparison", "sample size", "not shown: no Cox-family model, or the number of "
-                              f"outcomes is hidden by the small-count rule (threshold {threshold})."))
+            notes.append(
+                Note(
+                    "comparison",
+                    "sample size",
+                    "not shown: no Cox-family model, or the number of "
+                    f"outcomes is hidden by the small-count rule (threshold {threshold}).",
+                )
+            )
         try:
             facts = study_facts(config, patients, stack, sample_size, run_dir, label_of)
         except _FACT_ERRORS as exc:

@@ -30,8 +30,9 @@ from riskbench.errors import RiskbenchError
 MARKER = ".riskbench-run"
 MARKER_HEADER = "riskbench run folder"
 TEMP = ".tmp"
-RUN_ENTRIES = frozenset({"data", "tables", "figures", "notebooks", "notes", "report.html", "manifest.json",
-                         MARKER, TEMP, ".templates"})
+RUN_ENTRIES = frozenset(
+    {"data", "tables", "figures", "notebooks", "notes", "report.html", "manifest.json", MARKER, TEMP, ".templates"}
+)
 UNREADABLE_LOCK_GRACE_S = 10.0
 
 
@@ -121,7 +122,8 @@ def remove_owned(folder: Path, purpose: str) -> None:
     if reason is not None:
         raise NotARunFolder(
             f"{folder} is in the way ({purpose}) but {reason}; riskbench removes only folders its runs made. "
-            "Move it away or choose another --out")
+            "Move it away or choose another --out"
+        )
     shutil.rmtree(folder)
 
 
@@ -185,9 +187,12 @@ class RunLock:
         self.path = paths.lock
         self.out = paths.out
         self._say = say
-        self._record = {"pid": os.getpid(), "host": socket.gethostname(),
-                        "started_utc": datetime.now(UTC).isoformat(timespec="seconds"),
-                        "token": os.urandom(8).hex()}
+        self._record = {
+            "pid": os.getpid(),
+            "host": socket.gethostname(),
+            "started_utc": datetime.now(UTC).isoformat(timespec="seconds"),
+            "token": os.urandom(8).hex(),
+        }
 
     def _create(self) -> bool:
         try:
@@ -209,22 +214,27 @@ class RunLock:
                 except FileNotFoundError:
                     continue
                 if age < UNREADABLE_LOCK_GRACE_S:
-                    raise RunLocked(f"another run is starting in {self.out} (lock file {self.path}); wait for it "
-                                    "or choose another --out")
-                self._say(f"removing the unreadable lock file {self.path} (older than "
-                          f"{UNREADABLE_LOCK_GRACE_S:.0f} s)")
+                    raise RunLocked(
+                        f"another run is starting in {self.out} (lock file {self.path}); wait for it "
+                        "or choose another --out"
+                    )
+                self._say(f"removing the unreadable lock file {self.path} (older than {UNREADABLE_LOCK_GRACE_S:.0f} s)")
             elif holder.get("host") != self._record["host"]:
                 raise RunLocked(
                     f"{self.out} is locked by process {holder['pid']} on host {holder.get('host')!r} since "
-                    f"{holder.get('started_utc')}; if that run is no longer going, delete {self.path}")
+                    f"{holder.get('started_utc')}; if that run is no longer going, delete {self.path}"
+                )
             elif pid_alive(holder["pid"]):
                 raise RunLocked(
                     f"another run (process {holder['pid']}, started {holder.get('started_utc')}) is writing into "
                     f"{self.out}; wait for it to finish or choose another --out "
-                    f"(if no run is going, delete {self.path})")
+                    f"(if no run is going, delete {self.path})"
+                )
             else:
-                self._say(f"taking over the stale lock of process {holder['pid']} (started "
-                          f"{holder.get('started_utc')}, no longer running) on {self.out}")
+                self._say(
+                    f"taking over the stale lock of process {holder['pid']} (started "
+                    f"{holder.get('started_utc')}, no longer running) on {self.out}"
+                )
             with contextlib.suppress(FileNotFoundError):
                 self.path.unlink()
         raise RunLocked(f"could not lock {self.out}: another run keeps taking the lock {self.path}")
@@ -244,9 +254,14 @@ class RunLock:
 
 def location_error(exc: OSError, where: Path) -> RunLocationError:
     """A one-line message for an OSError met while creating or writing the run folder."""
-    reason = {errno.EACCES: "permission denied", errno.EPERM: "permission denied",
-              errno.EROFS: "read-only file system", errno.ENOSPC: "no space left on the device",
-              errno.EDQUOT: "disk quota exceeded"}.get(exc.errno or 0, exc.strerror or type(exc).__name__)
+    reason = {
+        errno.EACCES: "permission denied",
+        errno.EPERM: "permission denied",
+        errno.EROFS: "read-only file system",
+        errno.ENOSPC: "no space left on the device",
+        errno.EDQUOT: "disk quota exceeded",
+    }.get(exc.errno or 0, exc.strerror or type(exc).__name__)
     target = exc.filename or where
-    return RunLocationError(f"cannot write the run folder at {where}: {reason} ({target}); choose an --out in a "
-                            "folder you can write to")
+    return RunLocationError(
+        f"cannot write the run folder at {where}: {reason} ({target}); choose an --out in a folder you can write to"
+    )

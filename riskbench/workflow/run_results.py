@@ -43,8 +43,14 @@ from riskbench.workflow.stage_calibration import model_target, summary_row
 from riskbench.workflow.stage_result import cv_risks, horizon_days
 
 #: The report tables that describe the cohort (what :attr:`FinishedRun.cohort` shows).
-COHORT_TABLES: tuple[str, ...] = ("cohort_flow", "ledger_summary", "landmark_summary", "baseline_characteristics",
-                                  "missing_data", "complete_cases")
+COHORT_TABLES: tuple[str, ...] = (
+    "cohort_flow",
+    "ledger_summary",
+    "landmark_summary",
+    "baseline_characteristics",
+    "missing_data",
+    "complete_cases",
+)
 
 
 class RunFolderError(RiskbenchError):
@@ -70,8 +76,9 @@ def open_run(run_dir: str | Path, config: str | Path | AnalysisConfig | None = N
     run_dir = Path(run_dir)
     manifest_path = run_dir / MANIFEST
     if not manifest_path.is_file():
-        raise RunFolderError(f"{run_dir} has no {MANIFEST}: give the folder of a finished run (riskbench run "
-                             "writes it last)")
+        raise RunFolderError(
+            f"{run_dir} has no {MANIFEST}: give the folder of a finished run (riskbench run writes it last)"
+        )
     manifest = json.loads(manifest_path.read_text(encoding="utf-8"))
     if config is None and manifest.get("configuration_path") and Path(manifest["configuration_path"]).is_file():
         config = manifest["configuration_path"]
@@ -152,12 +159,20 @@ class FinishedRun:
     def cohort(self) -> CohortSummary:
         """The cohort as the report describes it (tables with small counts hidden; ``plot_flow()``)."""
         tables = {n: self.table(n) for n in COHORT_TABLES if n in self.table_names}
-        patients = load_data(self.run_dir, "patients") if output_path(self.run_dir, DATA, "patients",
-                                                                      ".parquet").is_file() else None
-        return CohortSummary(tables=tables, flow=None,
-                             n_patients=len(patients) if patients is not None else 0,
-                             n_intervals=len(self.counting_process), n_landmark_rows=len(self.landmark_stack),
-                             threshold=self.threshold, flow_png=self.run_dir / FIGURES / "cohort_flow.png")
+        patients = (
+            load_data(self.run_dir, "patients")
+            if output_path(self.run_dir, DATA, "patients", ".parquet").is_file()
+            else None
+        )
+        return CohortSummary(
+            tables=tables,
+            flow=None,
+            n_patients=len(patients) if patients is not None else 0,
+            n_intervals=len(self.counting_process),
+            n_landmark_rows=len(self.landmark_stack),
+            threshold=self.threshold,
+            flow_png=self.run_dir / FIGURES / "cohort_flow.png",
+        )
 
     @property
     def concordance(self) -> ConcordanceView:
@@ -183,8 +198,15 @@ class FinishedRun:
         loaded = [load_model(b) for b in bundles]
         return {m.name: m for m in loaded}
 
-    def refit(self, model: str, *, covariates: Sequence[str] | None = None, add: Sequence[str] = (),
-              drop: Sequence[str] = (), params: dict[str, Any] | None = None) -> Any:
+    def refit(
+        self,
+        model: str,
+        *,
+        covariates: Sequence[str] | None = None,
+        add: Sequence[str] = (),
+        drop: Sequence[str] = (),
+        params: dict[str, Any] | None = None,
+    ) -> Any:
         """Fit a configured model again on the run's tables with its covariates (or parameters) changed.
 
         Parameters
@@ -213,8 +235,9 @@ class FinishedRun:
         chosen = [c for c in (covariates if covariates is not None else spec.covariates) if c not in set(drop)]
         chosen += [c for c in add if c not in chosen]
         spec = dataclasses.replace(spec, covariates=tuple(chosen), params={**spec.params, **(params or {})})
-        return fit_model(spec, self.landmark_stack, self.counting_process, seed=config.seed,
-                         missing_data=config.missing_data)
+        return fit_model(
+            spec, self.landmark_stack, self.counting_process, seed=config.seed, missing_data=config.missing_data
+        )
 
     # --- evaluation ------------------------------------------------------------------------------------
 
@@ -242,30 +265,42 @@ class FinishedRun:
         if isinstance(model, str):
             risk, label, target = self.risks(model, days), model, model_target(config, model)
             # as in the report: the rows every model predicts (a complete-case model leaves some out)
-            keep = np.logical_and.reduce([np.isfinite(self.risks(str(m), days))
-                                          for m in self.cv_predictions["model"].unique()])
+            keep = np.logical_and.reduce(
+                [np.isfinite(self.risks(str(m), days)) for m in self.cv_predictions["model"].unique()]
+            )
         else:
             risk = np.asarray(risk_curve(model, stack, [days]), dtype=float)[:, 0]
             label, target = name or "refit", fitted_target(model)
             keep = np.isfinite(risk)
         time, status = stack_outcome(stack)
         patient = stack["patient_id"].to_numpy()[keep]
-        cal = calibration_at_horizon(time[keep], status[keep], risk[keep], evaluation_time(days, time[keep]),
-                                     target=target, cluster=patient, seed=config.validation.seed)
+        cal = calibration_at_horizon(
+            time[keep],
+            status[keep],
+            risk[keep],
+            evaluation_time(days, time[keep]),
+            target=target,
+            cluster=patient,
+            seed=config.validation.seed,
+        )
         row = summary_row(label, days, cal, int(keep.sum()), int(pd.unique(patient).size), self.threshold)
         return CalibrationView(cal, risk[keep], label, days, row, self.threshold)
 
     def _config(self, what: str) -> AnalysisConfig:
         if self.config is None:
-            raise RunFolderError(f"to {what}, open the run with its configuration: open_run({str(self.run_dir)!r}, "
-                                 "config='path/to/analysis.toml') (the file the manifest names is gone)")
+            raise RunFolderError(
+                f"to {what}, open the run with its configuration: open_run({str(self.run_dir)!r}, "
+                "config='path/to/analysis.toml') (the file the manifest names is gone)"
+            )
         return self.config
 
     def _repr_html_(self) -> str:
         tables = ", ".join(html.escape(n) for n in self.table_names)
         models = ", ".join(html.escape(m["name"]) for m in self.manifest.get("configuration", {}).get("models", []))
-        return (f"<div><h3>Finished run <code>{html.escape(self.run_dir.name)}</code></h3>"
-                f"<p>Models: {models or '(see the configuration)'}</p><p>Tables: {tables}</p>"
-                "<p>Look closer with <code>.cohort</code>, <code>.concordance</code>, <code>.table(name)</code>, "
-                "<code>.refit(model, drop=[...])</code> and <code>.calibration(model, horizon).plot()</code>.</p>"
-                "</div>")
+        return (
+            f"<div><h3>Finished run <code>{html.escape(self.run_dir.name)}</code></h3>"
+            f"<p>Models: {models or '(see the configuration)'}</p><p>Tables: {tables}</p>"
+            "<p>Look closer with <code>.cohort</code>, <code>.concordance</code>, <code>.table(name)</code>, "
+            "<code>.refit(model, drop=[...])</code> and <code>.calibration(model, horizon).plot()</code>.</p>"
+            "</div>"
+        )

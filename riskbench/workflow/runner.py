@@ -23,6 +23,7 @@ kernel is reached over Unix-domain sockets only (:mod:`riskbench.workflow.kernel
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import os
 import re
@@ -70,8 +71,15 @@ KERNEL_STOP_WAIT_S = 5.0
 # Importing the stage functions registers every RiskbenchError subclass the stages can raise.
 USER_ERROR_MODULES: tuple[str, ...] = ("riskbench.workflow.stages", "riskbench.workflow.pseudonyms")
 
-__all__ = ["NotARunFolder", "RunFolderExists", "RunInterrupted", "RunResult", "StageFailed", "StageInputError",
-           "run_analysis"]
+__all__ = [
+    "NotARunFolder",
+    "RunFolderExists",
+    "RunInterrupted",
+    "RunResult",
+    "StageFailed",
+    "StageInputError",
+    "run_analysis",
+]
 
 
 class StageFailed(Exception):
@@ -202,8 +210,10 @@ def run_analysis(
     inside = files_inside(kept, paths.owned())
     if inside:
         file, folder = inside[0]
-        raise NotARunFolder(f"the file {file}, which this run reads, lies inside {folder}, which this run would "
-                            "replace or remove; choose an --out elsewhere")
+        raise NotARunFolder(
+            f"the file {file}, which this run reads, lies inside {folder}, which this run would "
+            "replace or remove; choose an --out elsewhere"
+        )
     try:
         paths.out.parent.mkdir(parents=True, exist_ok=True)
         lock = RunLock(paths, say).acquire()
@@ -216,16 +226,24 @@ def run_analysis(
         lock.release()
 
 
-def _run_locked(config: AnalysisConfig, paths: RunPaths, overwrite: bool, notebooks_dir: str | Path | None,
-                stages: Sequence[tuple[str, str]], say: Callable[[str], None]) -> RunResult:
+def _run_locked(
+    config: AnalysisConfig,
+    paths: RunPaths,
+    overwrite: bool,
+    notebooks_dir: str | Path | None,
+    stages: Sequence[tuple[str, str]],
+    say: Callable[[str], None],
+) -> RunResult:
     out, staging = paths.out, paths.staging
     if out.exists() or out.is_symlink():
         if not overwrite:
             raise RunFolderExists(f"{out} already exists; choose another --out or pass --overwrite to replace it")
         reason = why_not_a_run_folder(out)
         if reason is not None:
-            raise NotARunFolder(f"--overwrite refused: {out} exists but {reason}; riskbench replaces only run "
-                                "folders it made. Move it away or choose another --out")
+            raise NotARunFolder(
+                f"--overwrite refused: {out} exists but {reason}; riskbench replaces only run "
+                "folders it made. Move it away or choose another --out"
+            )
     for leftover in (staging, paths.failed, paths.old):
         remove_owned(leftover, "a leftover of an earlier run")
     try:
@@ -250,9 +268,15 @@ def _run_locked(config: AnalysisConfig, paths: RunPaths, overwrite: bool, notebo
         shutil.rmtree(sockets, ignore_errors=True)
 
 
-def _run_in_staging(config: AnalysisConfig, paths: RunPaths, notebooks_dir: str | Path | None,
-                    stages: Sequence[tuple[str, str]], temp: Path, sockets: str,
-                    say: Callable[[str], None]) -> RunResult:
+def _run_in_staging(
+    config: AnalysisConfig,
+    paths: RunPaths,
+    notebooks_dir: str | Path | None,
+    stages: Sequence[tuple[str, str]],
+    temp: Path,
+    sockets: str,
+    say: Callable[[str], None],
+) -> RunResult:
     staging = paths.staging
     if notebooks_dir is None:
         notebooks_dir = default_notebooks_dir()
@@ -268,8 +292,7 @@ def _run_in_staging(config: AnalysisConfig, paths: RunPaths, notebooks_dir: str 
         say(f"stage {name}: running {notebook}")
         t0 = time.perf_counter()
         with stage_progress(temp, name, show=say is not _quiet):  # replicates done, elapsed, time left on stderr
-            error = _execute(notebooks_dir / notebook, staging / NOTEBOOKS / notebook, config, staging, kernel,
-                             manager)
+            error = _execute(notebooks_dir / notebook, staging / NOTEBOOKS / notebook, config, staging, kernel, manager)
         seconds[name] = time.perf_counter() - t0
         if error is not None:
             _stop_kernels(sockets)
@@ -290,18 +313,25 @@ def _run_in_staging(config: AnalysisConfig, paths: RunPaths, notebooks_dir: str 
     return RunResult(run_dir=out, report=out / REPORT, manifest=out / "manifest.json", stage_seconds=seconds)
 
 
-def _execute(source: Path, executed: Path, config: AnalysisConfig, staging: Path, kernel: str,
-             manager: type) -> Exception | None:
+def _execute(
+    source: Path, executed: Path, config: AnalysisConfig, staging: Path, kernel: str, manager: type
+) -> Exception | None:
     """Run one notebook with papermill; return the notebook's error (None when it ran through)."""
     import papermill as pm
     from papermill.exceptions import PapermillExecutionError
 
     try:
         pm.execute_notebook(
-            str(source), str(executed),
+            str(source),
+            str(executed),
             parameters={"config_path": str(config.path), "run_dir": str(staging)},
-            kernel_name=kernel, language="python", progress_bar=False, log_output=False, cwd=str(staging),
-            request_save_on_cell_execute=True, kernel_manager_class=manager,
+            kernel_name=kernel,
+            language="python",
+            progress_bar=False,
+            log_output=False,
+            cwd=str(staging),
+            request_save_on_cell_execute=True,
+            kernel_manager_class=manager,
         )
     except PapermillExecutionError as exc:
         return exc
@@ -326,8 +356,15 @@ def _saved_names(config: AnalysisConfig) -> set[str]:
     return names
 
 
-def _stop(config: AnalysisConfig, paths: RunPaths, stage: str, notebook: str, started: str,
-          seconds: dict[str, float], exc: Exception) -> StageFailed:
+def _stop(
+    config: AnalysisConfig,
+    paths: RunPaths,
+    stage: str,
+    notebook: str,
+    started: str,
+    seconds: dict[str, float],
+    exc: Exception,
+) -> StageFailed:
     """Keep the partial run as ``<name>.failed`` (messages scrubbed) and build the one-line error."""
     staging, failed = paths.staging, paths.failed
     executed = staging / NOTEBOOKS / notebook
@@ -343,13 +380,26 @@ def _stop(config: AnalysisConfig, paths: RunPaths, stage: str, notebook: str, st
             scrub_notebook(executed, names, files)
             relocate_notebook(executed, staging, failed)
         write_marker(staging, "failed")
-        write_manifest(build_manifest(config, staging, started=started, finished=utc_now(), stage_seconds=seconds,
-                                      status="failed", failure=saved), staging)
+        write_manifest(
+            build_manifest(
+                config,
+                staging,
+                started=started,
+                finished=utc_now(),
+                stage_seconds=seconds,
+                status="failed",
+                failure=saved,
+            ),
+            staging,
+        )
     except (OSError, ValueError):  # the one-line error matters more than the record of a failed run
         pass
     os.replace(staging, failed)
-    advice = ("fix the configuration or the data as the message says and run again" if user else
-              "this looks like a problem in riskbench or its environment; rerun with --debug and report it")
+    advice = (
+        "fix the configuration or the data as the message says and run again"
+        if user
+        else "this looks like a problem in riskbench or its environment; rerun with --debug and report it"
+    )
     cls = StageInputError if user else StageFailed
     error = cls(f"{where}: {_one_line(evalue)} (partial run kept in {failed}; {advice})")
     error.details = _ANSI.sub("", "\n".join(getattr(exc, "traceback", None) or [f"{ename}: {evalue}"]))
@@ -439,10 +489,8 @@ def _stop_kernels(sockets: str) -> None:
     pids = [p for p in kernel_pids(sockets) if pid_alive(p) and _is_our_kernel(p, sockets)]
     for sig in (signal.SIGTERM, signal.SIGKILL):
         for pid in pids:
-            try:
+            with contextlib.suppress(ProcessLookupError, PermissionError):
                 os.killpg(pid, sig)  # the kernel leads its own session and process group
-            except (ProcessLookupError, PermissionError):
-                pass
         deadline = time.monotonic() + KERNEL_STOP_WAIT_S
         while time.monotonic() < deadline and any(pid_alive(p) for p in pids):
             _reap(pids)
@@ -455,7 +503,5 @@ def _stop_kernels(sockets: str) -> None:
 
 def _reap(pids: Sequence[int]) -> None:
     for pid in pids:
-        try:
+        with contextlib.suppress(ChildProcessError):
             os.waitpid(pid, os.WNOHANG)
-        except ChildProcessError:
-            pass

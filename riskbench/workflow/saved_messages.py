@@ -24,10 +24,44 @@ import nbformat
 REDACTED = "…"
 LOCATORS = frozenset({"line", "lines", "row", "rows", "cell", "cells", "stage"})
 JOINERS = frozenset({"and", "or", "to", "...", REDACTED})
-NOUNS = frozenset({"line", "lines", "row", "rows", "cell", "cells", "value", "values", "patient", "patients",
-                   "outcome", "outcomes", "event", "events", "parameter", "parameters", "column", "columns",
-                   "landmark", "landmarks", "fold", "folds", "resample", "resamples", "missing", "duplicate",
-                   "duplicated", "distinct", "more", "times", "records", "measurements", "ids", "other"})
+NOUNS = frozenset(
+    {
+        "line",
+        "lines",
+        "row",
+        "rows",
+        "cell",
+        "cells",
+        "value",
+        "values",
+        "patient",
+        "patients",
+        "outcome",
+        "outcomes",
+        "event",
+        "events",
+        "parameter",
+        "parameters",
+        "column",
+        "columns",
+        "landmark",
+        "landmarks",
+        "fold",
+        "folds",
+        "resample",
+        "resamples",
+        "missing",
+        "duplicate",
+        "duplicated",
+        "distinct",
+        "more",
+        "times",
+        "records",
+        "measurements",
+        "ids",
+        "other",
+    }
+)
 _QUOTED = re.compile(r"""(?<![A-Za-z0-9])(?:'[^'\n]*'|"[^"\n]*")(?![A-Za-z0-9])""")
 _TOKEN = re.compile(r"[^\s,;:()\[\]{}<>=|'\"`]+")
 _WHOLE = re.compile(r"\d+\.?")
@@ -66,12 +100,13 @@ def scrub_text(text: str, names: Iterable[str] = (), paths: Iterable[str | Path]
     line = " ".join(str(text).split())
     for path in sorted((str(p) for p in paths), key=len, reverse=True):
         line = line.replace(path, Path(path).name)
-    line = _QUOTED.sub(lambda m: m.group(0) if m.group(0)[1:-1] in names else m.group(0)[0] + REDACTED
-                       + m.group(0)[0], line)
+    line = _QUOTED.sub(
+        lambda m: m.group(0) if m.group(0)[1:-1] in names else m.group(0)[0] + REDACTED + m.group(0)[0], line
+    )
     tokens = list(_TOKEN.finditer(line))
     out, end = [], 0
     for match, keep in zip(tokens, _kept_tokens([m.group(0) for m in tokens], names), strict=True):
-        out.append(line[end:match.start()])
+        out.append(line[end : match.start()])
         out.append(match.group(0) if keep else REDACTED)
         end = match.end()
     out.append(line[end:])
@@ -90,8 +125,10 @@ def scrub_notebook(path: str | Path, names: Iterable[str] = (), paths: Iterable[
             kind = output.get("output_type")
             if kind == "error":
                 output["evalue"] = scrub_text(output.get("evalue", ""), names, paths)
-                output["traceback"] = [f"{output.get('ename', 'Error')}: {output['evalue']} (the full message "
-                                       "was shown on the terminal only)"]
+                output["traceback"] = [
+                    f"{output.get('ename', 'Error')}: {output['evalue']} (the full message "
+                    "was shown on the terminal only)"
+                ]
             elif kind == "stream" and output.get("name") == "stderr":
                 output["text"] = scrub_text(output.get("text", ""), names, paths) + "\n"
     nbformat.write(nb, str(path))

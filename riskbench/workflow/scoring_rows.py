@@ -75,8 +75,7 @@ def rows_at_dates(cohort: Cohort, at_date: Any) -> pd.DataFrame:
     last_seen = (patients["landmark"] == patients["end_days"]) & (patients["end_status"] == 0)
     patients = patients[(patients["landmark"] >= 0) & ((patients["landmark"] < patients["end_days"]) | last_seen)]
     cp = cohort.counting_process
-    merged = cp.merge(patients[["patient_id", "landmark", "prediction_date", "end_days"]], on="patient_id",
-                      how="inner")
+    merged = cp.merge(patients[["patient_id", "landmark", "prediction_date", "end_days"]], on="patient_id", how="inner")
     inside = (merged["start"] <= merged["landmark"]) & (merged["landmark"] < merged["stop"])
     at_end = (merged["stop"] == merged["landmark"]) & (merged["stop"] == merged["end_days"])
     merged = merged[inside | at_end]
@@ -94,8 +93,13 @@ def _joined(mask: np.ndarray, names: Sequence[str]) -> list[str]:
     return [";".join(n for n, bad in zip(names, row) if bad) for row in mask]
 
 
-def row_flags(rows: pd.DataFrame, covariates: Sequence[str], ranges: Mapping[str, Mapping[str, Any]],
-              spec: CohortSpec, max_carry_days: float | None) -> pd.DataFrame:
+def row_flags(
+    rows: pd.DataFrame,
+    covariates: Sequence[str],
+    ranges: Mapping[str, Mapping[str, Any]],
+    spec: CohortSpec,
+    max_carry_days: float | None,
+) -> pd.DataFrame:
     """The flag columns of :data:`FLAG_COLUMNS` for each row.
 
     ``outside_development_range``: covariates whose value lies outside the development minimum..maximum (or
@@ -116,8 +120,12 @@ def row_flags(rows: pd.DataFrame, covariates: Sequence[str], ranges: Mapping[str
                 outside[:, j] |= x[:, j] > float(high)
             if entry.get("values") is not None:
                 outside[:, j] |= np.isfinite(x[:, j]) & ~np.isin(x[:, j], entry["values"])
-    variables = [v for v in spec.variables if set(names) & {v.column, f"{v.column}_change", v.previous_column,
-                                                             f"{v.column}_slope_per_year", v.staleness_column}]
+    variables = [
+        v
+        for v in spec.variables
+        if set(names)
+        & {v.column, f"{v.column}_change", v.previous_column, f"{v.column}_slope_per_year", v.staleness_column}
+    ]
     stale = np.zeros((len(rows), len(variables)), dtype=bool)
     if max_carry_days is not None:
         for j, v in enumerate(variables):
@@ -125,8 +133,10 @@ def row_flags(rows: pd.DataFrame, covariates: Sequence[str], ranges: Mapping[str
                 age = pd.to_numeric(rows[v.staleness_column], errors="coerce").to_numpy(float)
                 with np.errstate(invalid="ignore"):
                     stale[:, j] = age > max_carry_days
-    return pd.DataFrame({
-        "outside_development_range": _joined(outside, names),
-        "older_than_carry_forward": _joined(stale, [v.name for v in variables]),
-        "missing_covariates": _joined(np.isnan(x), names),
-    })
+    return pd.DataFrame(
+        {
+            "outside_development_range": _joined(outside, names),
+            "older_than_carry_forward": _joined(stale, [v.name for v in variables]),
+            "missing_covariates": _joined(np.isnan(x), names),
+        }
+    )

@@ -36,9 +36,16 @@ def model_target(config: AnalysisConfig, model: str) -> str:
     return prediction_target(entry.family, entry.params)
 
 
-def calibration_part(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, patient: np.ndarray,
-                     risks_at: dict[float, dict[str, np.ndarray]], result: StageResult, notes: Any,
-                     file_label: Any) -> None:
+def calibration_part(
+    config: AnalysisConfig,
+    time: np.ndarray,
+    status: np.ndarray,
+    patient: np.ndarray,
+    risks_at: dict[float, dict[str, np.ndarray]],
+    result: StageResult,
+    notes: Any,
+    file_label: Any,
+) -> None:
     """Calibration figures and ``calibration_summary`` for every model at every report horizon.
 
     Parameters
@@ -65,16 +72,28 @@ def calibration_part(config: AnalysisConfig, time: np.ndarray, status: np.ndarra
         for model, risk in by_model.items():
             target = model_target(config, model)
             t_eval = evaluation_time(h, time)
-            cal = notes.attempt(f"calibration at {format_duration(h)}", model, calibration_at_horizon, time,
-                                status, risk, t_eval, target=target, cluster=patient,
-                                seed=config.validation.seed)
+            cal = notes.attempt(
+                f"calibration at {format_duration(h)}",
+                model,
+                calibration_at_horizon,
+                time,
+                status,
+                risk,
+                t_eval,
+                target=target,
+                cluster=patient,
+                seed=config.validation.seed,
+            )
             if cal is None:
                 continue
             name = f"calibration_{model}_{file_label(h)}"
             result.figures[name] = save_figure(
-                calibration_figure(cal, risk, model_name=model, min_group_size=threshold, row_unit="landmark rows",
-                                   horizon_days=h),
-                result.run_dir, name)
+                calibration_figure(
+                    cal, risk, model_name=model, min_group_size=threshold, row_unit="landmark rows", horizon_days=h
+                ),
+                result.run_dir,
+                name,
+            )
             row = summary_row(model, h, cal, risk.size, n_patients, threshold)
             summaries.append(row)
             if isinstance(result, ComparisonStageResult):  # the calibration object, for the notebook
@@ -83,22 +102,30 @@ def calibration_part(config: AnalysisConfig, time: np.ndarray, status: np.ndarra
         result.tables["calibration_summary"] = pd.DataFrame(summaries)
 
 
-def summary_row(model: str, horizon_days: float, cal: Any, n_rows: int, n_patients: int,
-                threshold: int) -> dict[str, Any]:
+def summary_row(
+    model: str, horizon_days: float, cal: Any, n_rows: int, n_patients: int, threshold: int
+) -> dict[str, Any]:
     """One row of ``calibration_summary``: the measures of ``cal`` with what the prediction is and what it
     was compared with."""
     return {
         "model": model,
         "prediction": TARGET_WORDS[cal.target],
-        "observed_by": ("Aalen–Johansen" if cal.target == "cumulative_incidence"
-                        else "1 − Kaplan–Meier, competing events censored"),
+        "observed_by": (
+            "Aalen–Johansen" if cal.target == "cumulative_incidence" else "1 − Kaplan–Meier, competing events censored"
+        ),
         "horizon_years": horizon_days / DAYS_PER_YEAR,
         "landmark_rows": format_count(n_rows, threshold),
         "patients": format_count(n_patients, threshold),
         "observed_risk": cal.observed,
         "mean_predicted": cal.expected,
-        "observed_expected": cal.oe_ratio, "oe_lower": cal.oe_lower, "oe_upper": cal.oe_upper,
-        "calibration_intercept": cal.intercept, "intercept_se": cal.intercept_se,
-        "slope": cal.slope, "slope_se": cal.slope_se,
-        "ici": cal.ici, "e50": cal.e50, "e90": cal.e90,
+        "observed_expected": cal.oe_ratio,
+        "oe_lower": cal.oe_lower,
+        "oe_upper": cal.oe_upper,
+        "calibration_intercept": cal.intercept,
+        "intercept_se": cal.intercept_se,
+        "slope": cal.slope,
+        "slope_se": cal.slope_se,
+        "ici": cal.ici,
+        "e50": cal.e50,
+        "e90": cal.e90,
     }

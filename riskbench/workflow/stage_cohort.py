@@ -20,9 +20,9 @@ from riskbench.report.flow_suppression import suppress_flow
 from riskbench.report.outputs import save_data, save_figure, save_table
 from riskbench.report.suppression import coarsen_sequence
 from riskbench.report.timelines import choose_example_patients, timeline_figure
+from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.workflow.config import AnalysisConfig
 from riskbench.workflow.model_factory import missing_data_tables
-from riskbench.time_units import DAYS_PER_YEAR
 from riskbench.workflow.pseudonyms import config_key, pseudonym_map, replace_ids
 from riskbench.workflow.stage_result import CohortStageResult
 from riskbench.workflow.temporal_parts import mark_parts
@@ -46,8 +46,8 @@ END_LABELS = {1: "Outcome", 2: "Competing event", 0: "Censored (end of follow-up
 def patient_flow(flow: pd.DataFrame, patients: pd.DataFrame) -> pd.DataFrame:
     """Patients remaining after each exclusion step, from the cohort stage's row flow (patients table).
 
-    Returns ``step, n_patients, n_excluded, level`` (level 1: the included patients by end of follow-up); steps that excluded nobody are left out, and the included
-    patients are split by how follow-up ended.
+    Returns ``step, n_patients, n_excluded, level`` (level 1: the included patients by end of follow-up); steps
+    that excluded nobody are left out, and the included patients are split by how follow-up ended.
     """
     excluded = _excluded_column(flow)
     rows = []
@@ -55,8 +55,7 @@ def patient_flow(flow: pd.DataFrame, patients: pd.DataFrame) -> pd.DataFrame:
         if r["state"] in STATE_LABELS:
             rows.append((STATE_LABELS[r["state"]], int(r["remaining"]), 0, 0))
         elif r[excluded] > 0:
-            rows.append((f"after excluding: {r['state'].replace('_', ' ')}", int(r["remaining"]),
-                         int(r[excluded]), 0))
+            rows.append((f"after excluding: {r['state'].replace('_', ' ')}", int(r["remaining"]), int(r[excluded]), 0))
     rows[-1] = (STATE_LABELS["used"], len(patients), 0, 0)
     for code, label in END_LABELS.items():
         n_end = int((patients["end_status"] == code).sum())
@@ -74,11 +73,25 @@ def ledger_summary(rows_flow: pd.DataFrame, threshold: int) -> pd.DataFrame:
     """
     parts = []
     for table, rows in rows_flow.groupby("table", sort=False):
-        flow = pd.DataFrame({"step": rows["state"].to_numpy(), "n_patients": rows["rows_remaining"].to_numpy(),
-                             "n_excluded": rows["rows_excluded"].to_numpy(), "level": 0})
+        flow = pd.DataFrame(
+            {
+                "step": rows["state"].to_numpy(),
+                "n_patients": rows["rows_remaining"].to_numpy(),
+                "n_excluded": rows["rows_excluded"].to_numpy(),
+                "level": 0,
+            }
+        )
         shown = suppress_flow(flow, threshold, prefix="")
-        parts.append(pd.DataFrame({"table": table, "state": shown["step"], "rows_remaining": shown["n_patients"],
-                                   "rows_excluded": shown["n_excluded"]}))
+        parts.append(
+            pd.DataFrame(
+                {
+                    "table": table,
+                    "state": shown["step"],
+                    "rows_remaining": shown["n_patients"],
+                    "rows_excluded": shown["n_excluded"],
+                }
+            )
+        )
     return pd.concat(parts, ignore_index=True)
 
 
@@ -98,8 +111,14 @@ def landmark_counts(stack: pd.DataFrame) -> pd.DataFrame:
     """Patients at risk and events within the horizon at each landmark (years), as numbers."""
     rows = []
     for s, g in stack.groupby("landmark", sort=True):
-        rows.append({"landmark_years": round(float(s) / DAYS_PER_YEAR, 4), "at_risk": int(g["patient_id"].nunique()),
-                     "outcomes": int((g["status"] == 1).sum()), "competing_events": int((g["status"] == 2).sum())})
+        rows.append(
+            {
+                "landmark_years": round(float(s) / DAYS_PER_YEAR, 4),
+                "at_risk": int(g["patient_id"].nunique()),
+                "outcomes": int((g["status"] == 1).sum()),
+                "competing_events": int((g["status"] == 2).sum()),
+            }
+        )
     return pd.DataFrame(rows, columns=["landmark_years", *LANDMARK_COUNTS])
 
 
@@ -130,6 +149,7 @@ def covariate_labels(config: AnalysisConfig) -> Callable[[str], str]:
             return str(label(column))
         except (KeyError, ValueError):
             return column
+
     return safe
 
 
@@ -144,7 +164,8 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> CohortStage
     mapping = pseudonym_map(ids, key)
     cp = replace_ids(cohort.counting_process, mapping)
     stack = replace_ids(
-        cohort.landmark_stack(list(config.landmarks.landmarks_days), config.landmarks.horizon_days), mapping)
+        cohort.landmark_stack(list(config.landmarks.landmarks_days), config.landmarks.horizon_days), mapping
+    )
     static = [c for c in config.cohort.static_columns if c in cohort.patients.columns]
     patients = replace_ids(cohort.patients[[*PATIENT_COLUMNS, *static]], mapping)  # no dates leave the stage
     patients = mark_parts(patients, cohort.patients["entry_date"], config.validation.develop_before)
@@ -153,8 +174,16 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> CohortStage
     save_data(patients, run_dir, "patients")
 
     flow = patient_flow(cohort.flow, patients)
-    result = CohortStageResult(stage="cohort", run_dir=run_dir, counting_process=cp, landmark_stack=stack,
-                               patients=patients, cohort=cohort, flow=flow, threshold=threshold)
+    result = CohortStageResult(
+        stage="cohort",
+        run_dir=run_dir,
+        counting_process=cp,
+        landmark_stack=stack,
+        patients=patients,
+        cohort=cohort,
+        flow=flow,
+        threshold=threshold,
+    )
     result.tables["cohort_flow"] = suppress_flow(flow, threshold)
     result.figures["cohort_flow"] = save_figure(flow_figure(flow, threshold=threshold), run_dir, "cohort_flow")
     # the full row ledger, summarised: every input row of every table in exactly one state
@@ -169,7 +198,8 @@ def run_cohort_stage(config: AnalysisConfig, run_dir: str | Path) -> CohortStage
     at_entry = at_entry.drop(columns=[c for c in ("start", "stop", "status") if c in at_entry.columns])
     labels = covariate_labels(config)
     result.tables["baseline_characteristics"] = baseline_table(
-        patients, at_entry, covariates, threshold=threshold, labels=labels)
+        patients, at_entry, covariates, threshold=threshold, labels=labels
+    )
 
     if getattr(config.report, "example_timelines", True) and config.report.example_patients > 0:
         chosen = choose_example_patients(cp, config.report.example_patients, config.seed)

@@ -60,8 +60,14 @@ from riskbench.workflow.stage_validation import (
 )
 
 #: Names other modules import from here (the statistics and words now live in their own modules).
-__all__ = ["COMPARISON_METRICS", "comparison_table", "discrimination_table", "risk_matrices",
-           "run_comparison_stage", "years_label"]
+__all__ = [
+    "COMPARISON_METRICS",
+    "comparison_table",
+    "discrimination_table",
+    "risk_matrices",
+    "run_comparison_stage",
+    "years_label",
+]
 
 
 def _switch(config: AnalysisConfig, name: str) -> bool:
@@ -83,29 +89,41 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> Compari
     report_days: tuple[float, ...] = ()
     with recorded_warnings() as stray:
         if not _switch(config, "example_timelines"):
-            notes.add("example timelines", "switched off by [report] example_timelines = false.",
-                      kind="switched off")
+            notes.add("example timelines", "switched off by [report] example_timelines = false.", kind="switched off")
         if len(cv):
             horizons, risks = risk_matrices(cv, len(stack))
             keep = predicted_rows([risks])  # the rows every model predicts (complete cases leave some out)
             if not keep.all():
                 left_out = format_count(int((~keep).sum()), threshold)  # small counts hidden
-                notes.add("performance", f"{left_out} landmark rows without a prediction from a "
-                          "complete-case model are left out of every model's performance (table complete_cases).",
-                          kind="not computed")
+                notes.add(
+                    "performance",
+                    f"{left_out} landmark rows without a prediction from a "
+                    "complete-case model are left out of every model's performance (table complete_cases).",
+                    kind="not computed",
+                )
             time, status, risks = time[keep], status[keep], {m: r[keep] for m, r in risks.items()}
             report_days = _horizons_with_outcomes(config, time, status, threshold, notes)
             _performance(config, time, status, horizons, risks, report_days, result, notes)
-            report_landmark_performance(config, stack[keep].reset_index(drop=True), horizons, risks, report_days,
-                                        result, notes.add)
-            calibration_part(config, time, status, stack["patient_id"].to_numpy()[keep],
-                             {h: {m: r[:, prediction_column(horizons, h)] for m, r in risks.items()}
-                              for h in report_days},
-                             result, notes, years_label)
+            report_landmark_performance(
+                config, stack[keep].reset_index(drop=True), horizons, risks, report_days, result, notes.add
+            )
+            calibration_part(
+                config,
+                time,
+                status,
+                stack["patient_id"].to_numpy()[keep],
+                {h: {m: r[:, prediction_column(horizons, h)] for m, r in risks.items()} for h in report_days},
+                result,
+                notes,
+                years_label,
+            )
             _decisions(config, time, status, horizons, risks, report_days, result, notes)
         else:
-            notes.add("performance", "not computed: no model has cross-validated predictions (see the notes of "
-                      "the models and validation stages).")
+            notes.add(
+                "performance",
+                "not computed: no model has cross-validated predictions (see the notes of "
+                "the models and validation stages).",
+            )
         paired = _comparison(config, stack, cp, cv, report_days, result, notes, fits)
     for table_name, table in result.tables.items():
         save_table(table, run_dir, table_name)
@@ -120,13 +138,17 @@ def run_comparison_stage(config: AnalysisConfig, run_dir: str | Path) -> Compari
     write_report(config, run_dir)
     result.notes.append(f"Report written to {run_dir / 'report.html'}.")
     discrimination = result.tables.get("discrimination")
-    concordance = (None if discrimination is None else
-                   ConcordanceView.from_discrimination(discrimination, str(discrimination["obtained_by"].iloc[0])))
+    concordance = (
+        None
+        if discrimination is None
+        else ConcordanceView.from_discrimination(discrimination, str(discrimination["obtained_by"].iloc[0]))
+    )
     return replace(result, concordance=concordance, comparison=paired)
 
 
-def _horizons_with_outcomes(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, threshold: int,
-                            notes: StageNotes) -> tuple[float, ...]:
+def _horizons_with_outcomes(
+    config: AnalysisConfig, time: np.ndarray, status: np.ndarray, threshold: int, notes: StageNotes
+) -> tuple[float, ...]:
     """Report horizons with at least ``threshold`` outcomes before them (a note for the others)."""
     kept = []
     for h in config.report.horizons_days:
@@ -134,21 +156,42 @@ def _horizons_with_outcomes(config: AnalysisConfig, time: np.ndarray, status: np
         if n >= max(threshold, 1):
             kept.append(h)
         else:
-            notes.add(f"measures at {format_duration(h)}",
-                      f"AUC, concordance, Brier score and calibration not computed: {count_text(n, threshold)} "
-                      f"outcomes before {format_duration(h)} after the landmark (at least {threshold}, the "
-                      "small-count threshold, are needed); choose shorter or longer [report] report_horizons.")
+            notes.add(
+                f"measures at {format_duration(h)}",
+                f"AUC, concordance, Brier score and calibration not computed: {count_text(n, threshold)} "
+                f"outcomes before {format_duration(h)} after the landmark (at least {threshold}, the "
+                "small-count threshold, are needed); choose shorter or longer [report] report_horizons.",
+            )
     return tuple(kept)
 
 
-def _performance(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
-                 risks: dict[str, np.ndarray], report_days: tuple[float, ...], result: StageResult,
-                 notes: StageNotes) -> None:
+def _performance(
+    config: AnalysisConfig,
+    time: np.ndarray,
+    status: np.ndarray,
+    horizons: np.ndarray,
+    risks: dict[str, np.ndarray],
+    report_days: tuple[float, ...],
+    result: StageResult,
+    notes: StageNotes,
+) -> None:
     """Discrimination table of every model (AUC curve and performance per landmark: ``landmark_report``;
     calibration: ``stage_calibration``)."""
     if report_days:
-        parts = [notes.attempt("discrimination", m, discrimination_table, time, status, horizons, {m: r},
-                               report_days, {m: model_target(config, m)}) for m, r in risks.items()]
+        parts = [
+            notes.attempt(
+                "discrimination",
+                m,
+                discrimination_table,
+                time,
+                status,
+                horizons,
+                {m: r},
+                report_days,
+                {m: model_target(config, m)},
+            )
+            for m, r in risks.items()
+        ]
         parts = [p for p in parts if p is not None]
         if parts:
             table = parts[0]
@@ -158,15 +201,24 @@ def _performance(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, h
             result.tables["discrimination"] = table
 
 
-def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, horizons: np.ndarray,
-               risks: dict[str, np.ndarray], report_days: tuple[float, ...], result: StageResult,
-               notes: StageNotes) -> None:
+def _decisions(
+    config: AnalysisConfig,
+    time: np.ndarray,
+    status: np.ndarray,
+    horizons: np.ndarray,
+    risks: dict[str, np.ndarray],
+    report_days: tuple[float, ...],
+    result: StageResult,
+    notes: StageNotes,
+) -> None:
     """Decision curves and the triage operating point at the longest report horizon with enough outcomes."""
     from riskbench import metrics
 
     threshold = config.report.small_count_threshold
-    wanted = {"decision curves": _switch(config, "decision_curves"),
-              "triage operating point": _switch(config, "triage")}
+    wanted = {
+        "decision curves": _switch(config, "decision_curves"),
+        "triage operating point": _switch(config, "triage"),
+    }
     keys = {"decision curves": "[report] decision_curves", "triage operating point": "[report] triage"}
     for part, on in wanted.items():
         if not on:
@@ -182,9 +234,18 @@ def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, hor
     if wanted["triage operating point"]:
         triage = []
         for m, r in risks.items():
-            op = notes.attempt("triage operating point", m, metrics.triage_operating_point, time, status,
-                               r[:, column], t_main, target_npv=config.report.triage_target_npv,
-                               n_boot=max(bootstrap_resamples(config), 20), seed=config.validation.seed)
+            op = notes.attempt(
+                "triage operating point",
+                m,
+                metrics.triage_operating_point,
+                time,
+                status,
+                r[:, column],
+                t_main,
+                target_npv=config.report.triage_target_npv,
+                n_boot=max(bootstrap_resamples(config), 20),
+                seed=config.validation.seed,
+            )
             if op is not None:
                 op.insert(0, "model", m)
                 op.insert(1, "horizon_years", main / DAYS_PER_YEAR)
@@ -194,45 +255,69 @@ def _decisions(config: AnalysisConfig, time: np.ndarray, status: np.ndarray, hor
             result.tables["triage_operating_point"] = suppress_counts(table, count_columns(table), threshold)
 
 
-def _comparison(config: AnalysisConfig, stack: pd.DataFrame, cp: pd.DataFrame, cv: pd.DataFrame,
-                report_days: tuple[float, ...], result: StageResult, notes: StageNotes,
-                fits: list) -> ComparisonView | None:
+def _comparison(
+    config: AnalysisConfig,
+    stack: pd.DataFrame,
+    cp: pd.DataFrame,
+    cv: pd.DataFrame,
+    report_days: tuple[float, ...],
+    result: StageResult,
+    notes: StageNotes,
+    fits: list,
+) -> ComparisonView | None:
     """The paired bootstrap comparison of the candidate against the reference at the report horizons with
     enough outcomes (or a note why not); its view for the notebook."""
     part = "comparison of the model sets"
     pair = getattr(config, "comparison", None)
     if not pair or None in tuple(pair):
-        notes.add(part, "not computed: no candidate and reference models are configured "
-                  "([validation] candidate, reference).", kind="switched off")
+        notes.add(
+            part,
+            "not computed: no candidate and reference models are configured ([validation] candidate, reference).",
+            kind="switched off",
+        )
         return None
     candidate, reference = pair
     n_boot = bootstrap_resamples(config)
     if n_boot < 2:
-        notes.add(part, f"not computed: it needs at least 2 bootstrap resamples ([validation] bootstrap_resamples "
-                  f"= {n_boot}).", kind="switched off")
+        notes.add(
+            part,
+            f"not computed: it needs at least 2 bootstrap resamples ([validation] bootstrap_resamples = {n_boot}).",
+            kind="switched off",
+        )
         return None
     failed = failed_models(result.run_dir)
     absent = [m for m in (reference, candidate) if m in failed or m not in set(cv["model"])]
     if absent:
-        notes.add(part, f"not computed: model(s) {', '.join(repr(m) for m in absent)} could not be fitted "
-                  "(see the notes above).")
+        notes.add(
+            part,
+            f"not computed: model(s) {', '.join(repr(m) for m in absent)} could not be fitted (see the notes above).",
+        )
         return None
     if not report_days:
         notes.add(part, "not computed: no report horizon has enough outcomes before it (see the notes above).")
         return None
-    specs = [model_spec(config.model(reference), config.missing_data),
-             model_spec(config.model(candidate), config.missing_data)]
+    specs = [
+        model_spec(config.model(reference), config.missing_data),
+        model_spec(config.model(candidate), config.missing_data),
+    ]
     try:
-        comparison = compare_specs(specs, stage_source(result.run_dir), list(report_days),  # workers read Parquet
-                                   n_boot=n_boot, seed=config.validation.seed, pairs=[(0, 1)],
-                                   config=execution(config))
+        comparison = compare_specs(
+            specs,
+            stage_source(result.run_dir),
+            list(report_days),  # workers read Parquet
+            n_boot=n_boot,
+            seed=config.validation.seed,
+            pairs=[(0, 1)],
+            config=execution(config),
+        )
     except ValidationInputError as exc:  # every resample failed; the message gives the first reasons
         notes.add(part, f"not computed: {exc}")
         return None
     table = comparison_table(comparison, reference, candidate)
     result.tables["model_comparison"] = table
     fits += comparison.fit_log
-    notes.notes.extend(failure_notes(comparison.failures, n_boot, "comparison", part,
-                                     config.report.small_count_threshold))
+    notes.notes.extend(
+        failure_notes(comparison.failures, n_boot, "comparison", part, config.report.small_count_threshold)
+    )
     notes.notes.extend(warning_notes(comparison.fit_warnings, "comparison", part, f"{n_boot} bootstrap resamples"))
     return ComparisonView(comparison, table, reference, candidate)

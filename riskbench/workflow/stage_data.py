@@ -31,8 +31,9 @@ def stage_tables(run_dir: str | Path, names: Sequence[str] = RESAMPLED_TABLES) -
     for name in names:
         path = output_path(run_dir, DATA, name, ".parquet")
         if not path.is_file():
-            raise FileNotFoundError(f"{path} is missing: run the earlier stage notebooks of this run first "
-                                    "(in order 01..04)")
+            raise FileNotFoundError(
+                f"{path} is missing: run the earlier stage notebooks of this run first (in order 01..04)"
+            )
         paths[name] = path
     return TableFiles.of(paths)
 

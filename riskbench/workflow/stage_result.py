@@ -56,12 +56,15 @@ def _overview_html(result: StageResult, body: str = "") -> str:
     notes = "".join(f"<li>{html.escape(n)}</li>" for n in result.notes)
     written = ", ".join(html.escape(f"tables/{safe_file_stem(n)}.csv") for n in result.tables)
     drawn = ", ".join(html.escape(f"figures/{f.png.name}") for f in result.figures.values())
-    return (f"<div><h3>Stage {html.escape(result.stage)}</h3>{body}"
-            + (f"<ul>{notes}</ul>" if notes else "")
-            + (f"<p>Tables: <code>{written}</code></p>" if written else "")
-            + (f"<p>Figures: <code>{drawn}</code></p>" if drawn else "")
-            + "<p>(<code>show(result)</code> shows every table and figure.)</p>"
-            + ("" if caution in body else f"<p><em>{caution}</em></p>") + "</div>")
+    return (
+        f"<div><h3>Stage {html.escape(result.stage)}</h3>{body}"
+        + (f"<ul>{notes}</ul>" if notes else "")
+        + (f"<p>Tables: <code>{written}</code></p>" if written else "")
+        + (f"<p>Figures: <code>{drawn}</code></p>" if drawn else "")
+        + "<p>(<code>show(result)</code> shows every table and figure.)</p>"
+        + ("" if caution in body else f"<p><em>{caution}</em></p>")
+        + "</div>"
+    )
 
 
 def horizon_days(horizon: float | str) -> float:
@@ -96,9 +99,14 @@ class CohortStageResult(StageResult):
     @property
     def summary(self) -> CohortSummary:
         """Flow, rows used per source table, landmarks and baseline as in the report (``plot_flow()``)."""
-        return CohortSummary(tables=dict(self.tables), flow=self.flow, n_patients=len(self.patients),
-                             n_intervals=len(self.counting_process), n_landmark_rows=len(self.landmark_stack),
-                             threshold=self.threshold)
+        return CohortSummary(
+            tables=dict(self.tables),
+            flow=self.flow,
+            n_patients=len(self.patients),
+            n_intervals=len(self.counting_process),
+            n_landmark_rows=len(self.landmark_stack),
+            threshold=self.threshold,
+        )
 
     def _repr_html_(self) -> str:
         return _overview_html(self, self.summary._repr_html_())
@@ -217,8 +225,10 @@ def cv_risks(cv: pd.DataFrame | None, model: str, horizon: float | str) -> np.nd
     rows = cv[cv["model"] == model]
     at = rows[np.isclose(rows["horizon"].to_numpy(float), days, atol=1e-3)]
     if at.empty:
-        raise KeyError(f"no predictions at {days:g} days; horizons (days): "
-                       f"{', '.join(f'{h:g}' for h in sorted(rows['horizon'].unique()))}")
+        raise KeyError(
+            f"no predictions at {days:g} days; horizons (days): "
+            f"{', '.join(f'{h:g}' for h in sorted(rows['horizon'].unique()))}"
+        )
     return at.sort_values("row")["risk"].to_numpy(float)
 
 
@@ -291,8 +301,12 @@ def show(result: StageResult) -> None:
     for name, table in result.tables.items():
         if display:
             where = f"tables/{safe_file_stem(name)}.csv"
-            display(HTML(f"<p><strong>{html.escape(name)}</strong> (<code>{html.escape(where)}</code>)</p>"
-                         + _html_table(table)))
+            display(
+                HTML(
+                    f"<p><strong>{html.escape(name)}</strong> (<code>{html.escape(where)}</code>)</p>"
+                    + _html_table(table)
+                )
+            )
         else:
             print(name, table, sep="\n")
     for name, files in result.figures.items():

@@ -89,10 +89,18 @@ def _fold_predictions(shared: dict[str, Any], i: int, _seed: np.random.SeedSeque
     fit_cp = cp[cp["patient_id"].isin(split.fit_ids)]
     frames, failures, fits = [], {}, []
     for spec in shared["models"]:
-        fit = fit_recorded(spec, fit_stack, fit_cp, seed=shared["seed"], threshold=shared["threshold"],
-                           missing_data=shared["missing_data"],
-                           horizons=shared["horizons"], predict_stack=stack.iloc[held_out], predict_rows=held_out,
-                           where=f"in cross-validation fold {i + 1} (without that fold's patients)")
+        fit = fit_recorded(
+            spec,
+            fit_stack,
+            fit_cp,
+            seed=shared["seed"],
+            threshold=shared["threshold"],
+            missing_data=shared["missing_data"],
+            horizons=shared["horizons"],
+            predict_stack=stack.iloc[held_out],
+            predict_rows=held_out,
+            where=f"in cross-validation fold {i + 1} (without that fold's patients)",
+        )
         fits.append((spec.name, fit.warnings))
         if fit.failure is not None:
             failures[spec.name] = fit.failure
@@ -102,8 +110,9 @@ def _fold_predictions(shared: dict[str, Any], i: int, _seed: np.random.SeedSeque
     return {"frame": frame, "failures": failures, "fits": fits}
 
 
-def cross_validated_predictions(config: AnalysisConfig, tables: Mapping[str, pd.DataFrame],
-                                models: list[Any] | None = None) -> tuple[pd.DataFrame, list[Note], list]:
+def cross_validated_predictions(
+    config: AnalysisConfig, tables: Mapping[str, pd.DataFrame], models: list[Any] | None = None
+) -> tuple[pd.DataFrame, list[Note], list]:
     """Out-of-fold risks at the evaluation horizons, notes on models that failed in a fold, and fold fits.
 
     A model whose fit fails in any fold is left out of the predictions (a performance estimate from some
@@ -115,22 +124,41 @@ def cross_validated_predictions(config: AnalysisConfig, tables: Mapping[str, pd.
     """
     models = list(config.models) if models is None else models
     stack = tables["landmark_stack"]
-    splits = patient_folds(stack["patient_id"].to_numpy(), stack["status"].to_numpy(),
-                           config.validation.folds, config.validation.seed)
-    shared = {"splits": splits, "tables": tables, "models": models, "seed": config.seed,
-              "horizons": evaluation_horizons(config), "threshold": config.report.small_count_threshold,
-              "missing_data": config.missing_data}
-    parts = run_replicates(_fold_predictions, shared, config.validation.seed, len(splits), execution(config),
-                           description="cross-validation folds")
+    splits = patient_folds(
+        stack["patient_id"].to_numpy(), stack["status"].to_numpy(), config.validation.folds, config.validation.seed
+    )
+    shared = {
+        "splits": splits,
+        "tables": tables,
+        "models": models,
+        "seed": config.seed,
+        "horizons": evaluation_horizons(config),
+        "threshold": config.report.small_count_threshold,
+        "missing_data": config.missing_data,
+    }
+    parts = run_replicates(
+        _fold_predictions,
+        shared,
+        config.validation.seed,
+        len(splits),
+        execution(config),
+        description="cross-validation folds",
+    )
     failed: dict[str, list[str]] = {}
     for part in parts:
         for name, reason in part["failures"].items():
             failed.setdefault(name, []).append(reason)
-    notes = [Note("validation", "cross-validation",
-                  f"the fit failed in {len(reasons)} of {len(splits)} folds, so the model has no cross-validated "
-                  f"predictions and no performance in the report. First failure: {reasons[0]}",
-                  model=name, kind="fit failed")
-             for name, reasons in failed.items()]
+    notes = [
+        Note(
+            "validation",
+            "cross-validation",
+            f"the fit failed in {len(reasons)} of {len(splits)} folds, so the model has no cross-validated "
+            f"predictions and no performance in the report. First failure: {reasons[0]}",
+            model=name,
+            kind="fit failed",
+        )
+        for name, reasons in failed.items()
+    ]
     frames = [p["frame"] for p in parts if len(p["frame"])]
     cv = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=CV_COLUMNS)
     cv = cv[~cv["model"].isin(failed)]
@@ -138,8 +166,9 @@ def cross_validated_predictions(config: AnalysisConfig, tables: Mapping[str, pd.
     return cv, notes, [fit for p in parts for fit in p["fits"]]
 
 
-def failure_notes(failures: tuple[tuple[str, str], ...], n_total: int, stage: str, part: str,
-                  threshold: int) -> list[Note]:
+def failure_notes(
+    failures: tuple[tuple[str, str], ...], n_total: int, stage: str, part: str, threshold: int
+) -> list[Note]:
     """One note per model: how many of ``n_total`` resamples its refit made fail (by error), and the first reason
     (small numbers in it hidden below ``threshold``).
 
@@ -154,10 +183,17 @@ def failure_notes(failures: tuple[tuple[str, str], ...], n_total: int, stage: st
         kinds = Counter(r.split(":")[0] for r in reasons)
         listed = ", ".join(f"{k} ×{n}" for k, n in kinds.most_common())
         what = "could not be refitted" if model else "could not be measured"
-        notes.append(Note(stage, part, f"{len(reasons)} of {n_total} bootstrap resamples {what} and were dropped "
-                          f"({listed}); the estimates and intervals use the others. First reason: "
-                          f"{hide_small_numbers(reasons[0][:400], threshold)}",
-                          model=model, kind="resamples dropped"))
+        notes.append(
+            Note(
+                stage,
+                part,
+                f"{len(reasons)} of {n_total} bootstrap resamples {what} and were dropped "
+                f"({listed}); the estimates and intervals use the others. First reason: "
+                f"{hide_small_numbers(reasons[0][:400], threshold)}",
+                model=model,
+                kind="resamples dropped",
+            )
+        )
     return notes
 
 
@@ -172,14 +208,16 @@ def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> Validat
     with recorded_warnings() as stray:
         cv, cv_notes, cv_fits = cross_validated_predictions(config, tables, models)
         notes += cv_notes
-        notes += warning_notes(count_warnings(cv_fits), "validation", "cross-validation",
-                               f"{config.validation.folds} folds")
+        notes += warning_notes(
+            count_warnings(cv_fits), "validation", "cross-validation", f"{config.validation.folds} folds"
+        )
         fits += cv_fits
         save_data(cv, run_dir, "cv_predictions")
         result.frames["cv_predictions"] = cv
         result.notes.append(
             f"{config.validation.folds}-fold cross-validation grouped by patient (seed {config.validation.seed}): "
-            f"{cv['row'].nunique()} landmark rows predicted by models fitted without their patient.")
+            f"{cv['row'].nunique()} landmark rows predicted by models fitted without their patient."
+        )
         cv_failed = {n.model for n in cv_notes}
         notes += _optimism(config, tables, [m for m in models if m.name not in cv_failed], result, fits)
         notes += temporal_validation(config, run_dir, tables, models, result, fits)  # [validation] develop_before
@@ -196,8 +234,21 @@ def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> Validat
 RECOMMENDED_RESAMPLES = 200
 
 #: Column order of the report's bootstrap-validation table.
-_VALIDATED_COLUMNS = ["model", "metric", "horizon_years", "threshold", "apparent", "validated", "obtained_by",
-                      "optimism", "optimism_low", "optimism_high", "out_of_bag", "dot632_plus", "n_boot"]
+_VALIDATED_COLUMNS = [
+    "model",
+    "metric",
+    "horizon_years",
+    "threshold",
+    "apparent",
+    "validated",
+    "obtained_by",
+    "optimism",
+    "optimism_low",
+    "optimism_high",
+    "out_of_bag",
+    "dot632_plus",
+    "n_boot",
+]
 
 
 def validated_table(table: pd.DataFrame, families: dict[str, str]) -> pd.DataFrame:
@@ -208,28 +259,49 @@ def validated_table(table: pd.DataFrame, families: dict[str, str]) -> pd.DataFra
     return out[_VALIDATED_COLUMNS]
 
 
-def _optimism(config: AnalysisConfig, tables: Mapping[str, pd.DataFrame], models: list[Any], result: StageResult,
-              fits: list) -> list[Note]:
+def _optimism(
+    config: AnalysisConfig, tables: Mapping[str, pd.DataFrame], models: list[Any], result: StageResult, fits: list
+) -> list[Note]:
     """Bootstrap optimism of ``models`` into ``result.tables``; the notes it leads to."""
     n_boot = bootstrap_resamples(config)
     if not getattr(config.validation, "optimism", True):
         return [switched_off("validation", "bootstrap optimism", "[validation] optimism")]
     if n_boot <= 0:
-        return [Note("validation", "bootstrap optimism", "skipped: [validation] bootstrap_resamples = 0.",
-                     kind="switched off")]
+        return [
+            Note(
+                "validation",
+                "bootstrap optimism",
+                "skipped: [validation] bootstrap_resamples = 0.",
+                kind="switched off",
+            )
+        ]
     if not models:
-        return [Note("validation", "bootstrap optimism", "not computed: no model could be fitted in every "
-                     "cross-validation fold.")]
+        return [
+            Note(
+                "validation",
+                "bootstrap optimism",
+                "not computed: no model could be fitted in every cross-validation fold.",
+            )
+        ]
     horizons = measurable_horizons(config, tables["landmark_stack"])
     if not horizons:
-        return [Note("validation", "bootstrap optimism", "not computed: no report horizon has enough outcomes "
-                     "before it ([report] report_horizons, small_count_threshold).")]
+        return [
+            Note(
+                "validation",
+                "bootstrap optimism",
+                "not computed: no report horizon has enough outcomes "
+                "before it ([report] report_horizons, small_count_threshold).",
+            )
+        ]
     try:
         outcome = bootstrap_optimism_result(
             [model_spec(m, config.missing_data) for m in models],
             table_source(tables),
-            list(horizons), n_boot=n_boot, seed=config.validation.seed,
-            config=execution(config))
+            list(horizons),
+            n_boot=n_boot,
+            seed=config.validation.seed,
+            config=execution(config),
+        )
     except ValidationInputError as exc:  # every resample failed (the message gives the first reasons)
         return [Note("validation", "bootstrap optimism", f"not computed: {exc}")]
     fits += outcome.fit_log
@@ -238,14 +310,23 @@ def _optimism(config: AnalysisConfig, tables: Mapping[str, pd.DataFrame], models
     result.notes.append(
         f"Bootstrap validation from {n_boot} resamples of patients: optimism-corrected = apparent - mean optimism "
         "(Harrell, Lee & Mark 1996) for regression models; out-of-bag (refits scored on the patients their "
-        "resample left out) for forests, whose apparent performance is near perfect by construction.")
-    notes = failure_notes(outcome.failures, n_boot, "validation", "bootstrap optimism",
-                          config.report.small_count_threshold)
+        "resample left out) for forests, whose apparent performance is near perfect by construction."
+    )
+    notes = failure_notes(
+        outcome.failures, n_boot, "validation", "bootstrap optimism", config.report.small_count_threshold
+    )
     if n_boot < RECOMMENDED_RESAMPLES:
-        notes.append(Note("validation", "bootstrap optimism", f"only {n_boot} bootstrap resamples: fewer than "
-                          f"{RECOMMENDED_RESAMPLES} (common practice) make the percentile intervals and the validated "
-                          "estimates vary from run to run; set [validation] bootstrap_resamples = "
-                          f"{RECOMMENDED_RESAMPLES} for a report others will read.", kind="caution"))
+        notes.append(
+            Note(
+                "validation",
+                "bootstrap optimism",
+                f"only {n_boot} bootstrap resamples: fewer than "
+                f"{RECOMMENDED_RESAMPLES} (common practice) make the percentile intervals and the validated "
+                "estimates vary from run to run; set [validation] bootstrap_resamples = "
+                f"{RECOMMENDED_RESAMPLES} for a report others will read.",
+                kind="caution",
+            )
+        )
     notes += warning_notes(outcome.fit_warnings, "validation", "bootstrap optimism", f"{n_boot} bootstrap resamples")
     return notes
 
@@ -258,8 +339,10 @@ def warning_notes(counts: pd.DataFrame, stage: str, part: str, over: str) -> lis
     ``over`` says over what, e.g. ``"20 bootstrap resamples"``."""
     notes = []
     for model, rows in counts.groupby("model", sort=False):
-        said = "; ".join(f"{int(r.fits_warned)} of {int(r.fits)} refits warned of {_WARNED_OF.get(r.kind, r.kind)}"
-                         + (f" ({terms_text(str(r.terms).split(', '))})" if r.terms else "")
-                         for r in rows.itertuples(index=False))
+        said = "; ".join(
+            f"{int(r.fits_warned)} of {int(r.fits)} refits warned of {_WARNED_OF.get(r.kind, r.kind)}"
+            + (f" ({terms_text(str(r.terms).split(', '))})" if r.terms else "")
+            for r in rows.itertuples(index=False)
+        )
         notes.append(Note(stage, part, f"over {over}: {said}.", model=str(model), kind="fitting warnings"))
     return notes

@@ -11,8 +11,15 @@ import pytest
 BASE = pd.Timestamp("2020-01-01")
 
 
-def random_cohort(n_patients: int, seed: int, *, n_vars: int = 2, max_values: int = 6,
-                  follow_up_days: int = 1500, lookback: bool = True) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+def random_cohort(
+    n_patients: int,
+    seed: int,
+    *,
+    n_vars: int = 2,
+    max_values: int = 6,
+    follow_up_days: int = 1500,
+    lookback: bool = True,
+) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     """Random patients / measurements / outcomes tables in the input contract (integer days).
 
     Values fall on integer days in [-60, end]; some share a day with the end or with each other; variable
@@ -23,10 +30,17 @@ def random_cohort(n_patients: int, seed: int, *, n_vars: int = 2, max_values: in
     entry = BASE + pd.to_timedelta(rng.integers(0, 400, n_patients), unit="D")
     end = rng.integers(1, follow_up_days, n_patients)
     kinds = rng.choice(["outcome", "competing", "end_of_follow_up"], n_patients, p=[0.3, 0.2, 0.5])
-    patients = pd.DataFrame({
-        "patient_id": ids, "entry_date": entry.strftime("%Y-%m-%d"),
-        "birth_date": (entry - pd.to_timedelta(rng.integers(40 * 365, 80 * 365, n_patients), unit="D")).strftime("%Y-%m-%d"),
-        "sex": rng.choice(["F", "M"], n_patients), "pack_years": rng.gamma(2.0, 10.0, n_patients).round(1)})
+    patients = pd.DataFrame(
+        {
+            "patient_id": ids,
+            "entry_date": entry.strftime("%Y-%m-%d"),
+            "birth_date": (entry - pd.to_timedelta(rng.integers(40 * 365, 80 * 365, n_patients), unit="D")).strftime(
+                "%Y-%m-%d"
+            ),
+            "sex": rng.choice(["F", "M"], n_patients),
+            "pack_years": rng.gamma(2.0, 10.0, n_patients).round(1),
+        }
+    )
     rows = []
     for i in range(n_patients):
         for v in range(n_vars):
@@ -37,8 +51,9 @@ def random_cohort(n_patients: int, seed: int, *, n_vars: int = 2, max_values: in
                 rows.append((ids[i], entry[i] + pd.Timedelta(days=int(d)), f"v{v}", float(rng.integers(1, 50))))
     meas = pd.DataFrame(rows, columns=["patient_id", "date", "variable", "value"])
     meas["date"] = pd.to_datetime(meas["date"]).dt.strftime("%Y-%m-%d")
-    outcomes = pd.DataFrame({"patient_id": ids, "date": (entry + pd.to_timedelta(end, unit="D")).strftime("%Y-%m-%d"),
-                             "kind": kinds})
+    outcomes = pd.DataFrame(
+        {"patient_id": ids, "date": (entry + pd.to_timedelta(end, unit="D")).strftime("%Y-%m-%d"), "kind": kinds}
+    )
     return patients, meas, outcomes
 
 

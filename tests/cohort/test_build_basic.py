@@ -13,22 +13,49 @@ from riskbench.cohort import CohortInputError, CohortSpec, RowState, VariableSpe
 
 
 def _tables():
-    patients = pd.DataFrame({"patient_id": ["A", "B", "C"], "entry_date": ["2020-01-01"] * 3,
-                             "birth_date": ["1960-01-01"] * 3, "sex": ["F", "M", "F"], "pack_years": [10, 20, None]})
-    meas = pd.DataFrame({
-        "patient_id": ["A", "A", "A", "B", "B", "C", "A", "Z"],
-        "date": ["2020-01-01", "2020-03-01", "2020-06-01", "2019-12-01", "2020-02-01", "2020-01-05", "2020-03-01",
-                 "2020-01-01"],
-        "variable": ["vol"] * 8, "value": [100, "0.2", 150, 50, 60, 70, 250, 1],
-        "unit": ["mm3", "cm3", "mm3", "mm3", "mm3", "mm3", "mm3", "mm3"]})
-    outcomes = pd.DataFrame({"patient_id": ["A", "B", "C", "C"],
-                             "date": ["2020-12-01", "2020-05-01", "2020-08-01", "2020-09-01"],
-                             "kind": ["outcome", "competing", "end_of_follow_up", "outcome"]})
+    patients = pd.DataFrame(
+        {
+            "patient_id": ["A", "B", "C"],
+            "entry_date": ["2020-01-01"] * 3,
+            "birth_date": ["1960-01-01"] * 3,
+            "sex": ["F", "M", "F"],
+            "pack_years": [10, 20, None],
+        }
+    )
+    meas = pd.DataFrame(
+        {
+            "patient_id": ["A", "A", "A", "B", "B", "C", "A", "Z"],
+            "date": [
+                "2020-01-01",
+                "2020-03-01",
+                "2020-06-01",
+                "2019-12-01",
+                "2020-02-01",
+                "2020-01-05",
+                "2020-03-01",
+                "2020-01-01",
+            ],
+            "variable": ["vol"] * 8,
+            "value": [100, "0.2", 150, 50, 60, 70, 250, 1],
+            "unit": ["mm3", "cm3", "mm3", "mm3", "mm3", "mm3", "mm3", "mm3"],
+        }
+    )
+    outcomes = pd.DataFrame(
+        {
+            "patient_id": ["A", "B", "C", "C"],
+            "date": ["2020-12-01", "2020-05-01", "2020-08-01", "2020-09-01"],
+            "kind": ["outcome", "competing", "end_of_follow_up", "outcome"],
+        }
+    )
     return patients, meas, outcomes
 
 
-SPEC = CohortSpec(variables=(VariableSpec("vol", "mm3", {"cm3": 1000.0}, 1, 1e6, "log", True, True),),
-                  max_carry_days=200, lookback_days=60, exam_variables=("vol",))
+SPEC = CohortSpec(
+    variables=(VariableSpec("vol", "mm3", {"cm3": 1000.0}, 1, 1e6, "log", True, True),),
+    max_carry_days=200,
+    lookback_days=60,
+    exam_variables=("vol",),
+)
 
 
 def test_rows_covariates_and_ledger_by_hand() -> None:

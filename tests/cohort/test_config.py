@@ -42,36 +42,69 @@ def test_cohort_section_round_trip() -> None:
     vol = spec.variable("vol")
     assert vol.factors == {"mm3": 1.0, "cm3": 1000.0} and (vol.plausible_min, vol.plausible_max) == (1, 100000)
     assert vol.slope_window_days == pytest.approx(DAYS_PER_YEAR / 2)
-    assert spec.covariate_columns[:5] == ("log_vol", "log_vol_change", "log_vol_slope_per_year",
-                                          "vol_staleness_days", "marker")
+    assert spec.covariate_columns[:5] == (
+        "log_vol",
+        "log_vol_change",
+        "log_vol_slope_per_year",
+        "vol_staleness_days",
+        "marker",
+    )
 
 
-@pytest.mark.parametrize("section, message", [
-    ({"max_carry": 3}, r"\[cohort\] max_carry = 3 is not allowed: expected a duration with a unit in quotes"),
-    ({"max_cary": "3 years"}, r"\[cohort\] has unknown key 'max_cary' = '3 years'; allowed keys: variables.*"
-                              r"\(did you mean 'max_carry'\?\)"),
-    ({"same_day_rule": "median"}, r"same_day_rule = 'median' is not allowed: expected one of 'mean', 'last', 'error'"),
-    ({"lookback": "90"}, r"lookback = '90' is not allowed: expected a duration with a unit"),
-    ({"current_age": 1}, r"current_age = 1 is not allowed: expected true or false"),
-    ({"variables": {"v": {"transform": "sqrt"}}}, r"\[cohort.variables.v\] transform = 'sqrt' is not allowed"),
-    ({"variables": {"v": {"range": [5, 1]}}}, r"range = \[5, 1\] is not allowed: expected \[min, max\] with min <= max"),
-    ({"variables": {"v": {"units": "mm"}}}, r"\[cohort.variables.v\] has unknown key 'units'.*did you mean 'unit'"),
-    ({"lookback_days": 1, "lookback": "1 day"}, r"\[cohort\] has unknown key 'lookback_days'"),
-    ({"exam_variables": ["ct"]}, r"\[cohort\] exam_variables = 'ct' is not allowed: expected names of "
-                                 r"\[cohort.variables.\*\] tables"),
-])
+@pytest.mark.parametrize(
+    "section, message",
+    [
+        ({"max_carry": 3}, r"\[cohort\] max_carry = 3 is not allowed: expected a duration with a unit in quotes"),
+        (
+            {"max_cary": "3 years"},
+            r"\[cohort\] has unknown key 'max_cary' = '3 years'; allowed keys: variables.*"
+            r"\(did you mean 'max_carry'\?\)",
+        ),
+        (
+            {"same_day_rule": "median"},
+            r"same_day_rule = 'median' is not allowed: expected one of 'mean', 'last', 'error'",
+        ),
+        ({"lookback": "90"}, r"lookback = '90' is not allowed: expected a duration with a unit"),
+        ({"current_age": 1}, r"current_age = 1 is not allowed: expected true or false"),
+        ({"variables": {"v": {"transform": "sqrt"}}}, r"\[cohort.variables.v\] transform = 'sqrt' is not allowed"),
+        (
+            {"variables": {"v": {"range": [5, 1]}}},
+            r"range = \[5, 1\] is not allowed: expected \[min, max\] with min <= max",
+        ),
+        ({"variables": {"v": {"units": "mm"}}}, r"\[cohort.variables.v\] has unknown key 'units'.*did you mean 'unit'"),
+        ({"lookback_days": 1, "lookback": "1 day"}, r"\[cohort\] has unknown key 'lookback_days'"),
+        (
+            {"exam_variables": ["ct"]},
+            r"\[cohort\] exam_variables = 'ct' is not allowed: expected names of "
+            r"\[cohort.variables.\*\] tables",
+        ),
+    ],
+)
 def test_cohort_section_errors_name_key_value_and_choices(section, message) -> None:
     with pytest.raises(SpecError, match=message):
         read_cohort(section)
 
 
 def _write_sources(folder: Path) -> None:
-    pd.DataFrame({"id": ["A", "B"], "first_ct": ["01/02/2020", "15/03/2020"], "born": ["01/01/1950", "01/01/1960"],
-                  "sex": ["F", "M"]}).to_csv(folder / "pts.csv", index=False)
-    pd.DataFrame({"id": ["A", "A", "B"], "when": ["01/02/2020", "01/05/2020", "15/03/2020"],
-                  "vol": [100.0, 0.2, 50.0], "marker": [1.0, None, 2.0]}).to_csv(folder / "wide.csv", index=False)
-    pd.DataFrame({"id": ["A", "B"], "date": ["01/01/2021", "15/09/2020"], "kind": ["death", "end_of_follow_up"]}) \
-        .to_parquet(folder / "out.parquet")
+    pd.DataFrame(
+        {
+            "id": ["A", "B"],
+            "first_ct": ["01/02/2020", "15/03/2020"],
+            "born": ["01/01/1950", "01/01/1960"],
+            "sex": ["F", "M"],
+        }
+    ).to_csv(folder / "pts.csv", index=False)
+    pd.DataFrame(
+        {
+            "id": ["A", "A", "B"],
+            "when": ["01/02/2020", "01/05/2020", "15/03/2020"],
+            "vol": [100.0, 0.2, 50.0],
+            "marker": [1.0, None, 2.0],
+        }
+    ).to_csv(folder / "wide.csv", index=False)
+    pd.DataFrame(
+        {"id": ["A", "B"], "date": ["01/01/2021", "15/09/2020"], "kind": ["death", "end_of_follow_up"]}
+    ).to_parquet(folder / "out.parquet")
 
 
 SOURCES_TOML = """
@@ -114,11 +147,9 @@ def test_sources_section_errors(tmp_path) -> None:
         read_sources({t: {"path": "nope.csv"} for t in ("patients", "measurements", "outcomes")}, tmp_path)
     (tmp_path / "p.csv").write_text("patient_id\n")
     with pytest.raises(SpecError, match=r"\[sources.patients\] has unknown key 'layout' = 'wide'; allowed keys: path"):
-        read_sources({"patients": {"path": "p.csv", "layout": "wide"}, "measurements": {}, "outcomes": {}},
-                             tmp_path)
+        read_sources({"patients": {"path": "p.csv", "layout": "wide"}, "measurements": {}, "outcomes": {}}, tmp_path)
     with pytest.raises(SpecError, match=r"\[sources.patients\] columns = 3 is not allowed: expected a table"):
-        read_sources({"patients": {"path": "p.csv", "columns": 3}, "measurements": {}, "outcomes": {}},
-                             tmp_path)
+        read_sources({"patients": {"path": "p.csv", "columns": 3}, "measurements": {}, "outcomes": {}}, tmp_path)
 
 
 def test_build_tables_command(tmp_path, capsys) -> None:
@@ -127,8 +158,23 @@ def test_build_tables_command(tmp_path, capsys) -> None:
     config = tmp_path / "analysis.toml"
     config.write_text(SOURCES_TOML + COHORT_TOML + '\n[cohort.kind_map]\ndeath = "competing"\n', encoding="utf-8")
     out = tmp_path / "tables"
-    assert main(["build-tables", str(config), "--out", str(out), "--landmark-every-months", "6",
-                 "--landmark-up-to-years", "1", "--horizon-years", "1"]) == 0
+    assert (
+        main(
+            [
+                "build-tables",
+                str(config),
+                "--out",
+                str(out),
+                "--landmark-every-months",
+                "6",
+                "--landmark-up-to-years",
+                "1",
+                "--horizon-years",
+                "1",
+            ]
+        )
+        == 0
+    )
     printed = capsys.readouterr().out
     assert "measurements: excluded, implausible_value" in printed and "Top exclusion reasons" in printed
     cp = pd.read_parquet(out / "counting_process.parquet")

@@ -15,9 +15,13 @@ from riskbench.cohort import CohortSpec, VariableSpec, build_cohort, contract, c
 # itself) is an internal choice with no public handle; the public result is the same either way.
 from riskbench.cohort.reading import _numbered_arrow
 
-SPEC = CohortSpec(variables=(VariableSpec("v0", transform="log", change=True, slope=True, slope_window_days=200),
-                             VariableSpec("v1")),
-                  max_carry_days=300, lookback_days=30, exam_variables=("v0",), static=("sex_male",))
+SPEC = CohortSpec(
+    variables=(VariableSpec("v0", transform="log", change=True, slope=True, slope_window_days=200), VariableSpec("v1")),
+    max_carry_days=300,
+    lookback_days=30,
+    exam_variables=("v0",),
+    static=("sex_male",),
+)
 
 
 @pytest.fixture(scope="module")
@@ -69,8 +73,9 @@ def test_mixed_type_frame_is_read_by_duckdb_directly() -> None:
 
 
 def test_empty_cohort_has_an_empty_table_with_the_columns() -> None:
-    patients = pd.DataFrame({"patient_id": ["A"], "entry_date": ["2020-01-01"], "birth_date": ["1960-01-01"],
-                             "sex": ["F"]})
+    patients = pd.DataFrame(
+        {"patient_id": ["A"], "entry_date": ["2020-01-01"], "birth_date": ["1960-01-01"], "sex": ["F"]}
+    )
     outcomes = pd.DataFrame({"patient_id": ["A"], "date": ["2020-01-01"], "kind": ["outcome"]})  # zero follow-up
     meas = pd.DataFrame({"patient_id": ["A"], "date": ["2020-01-01"], "variable": ["v0"], "value": [1.0]})
     cohort = build_cohort(patients, meas, outcomes, SPEC)
@@ -89,8 +94,10 @@ def test_typed_columns_are_read_like_text(cohort_tables, plain) -> None:
     meas["date"] = pd.to_datetime(meas["date"])
     cohort = build_cohort(patients, meas, outcomes, SPEC)
     expected = plain[0].assign(patient_id=plain[0]["patient_id"].map(lambda p: str(number[p])))
-    got = cohort.counting_process.sort_values(["patient_id", "start"], key=lambda s: s.astype(float) if
-                                               s.name == "patient_id" else s, ignore_index=True)
-    expected = expected.sort_values(["patient_id", "start"], key=lambda s: s.astype(float) if
-                                    s.name == "patient_id" else s, ignore_index=True)
+    got = cohort.counting_process.sort_values(
+        ["patient_id", "start"], key=lambda s: s.astype(float) if s.name == "patient_id" else s, ignore_index=True
+    )
+    expected = expected.sort_values(
+        ["patient_id", "start"], key=lambda s: s.astype(float) if s.name == "patient_id" else s, ignore_index=True
+    )
     pd.testing.assert_frame_equal(got, expected)

@@ -41,8 +41,9 @@ def test_clean_cohort_reproduces_the_generator_intervals() -> None:
     for col in ["start", "stop", "status"]:
         np.testing.assert_array_equal(ours[col].to_numpy(float), truth[col].to_numpy(float), err_msg=col)
     for col in COVARIATES:
-        np.testing.assert_allclose(ours[col].to_numpy(float), truth[col].to_numpy(float), rtol=0, atol=1e-12,
-                                   err_msg=col)
+        np.testing.assert_allclose(
+            ours[col].to_numpy(float), truth[col].to_numpy(float), rtol=0, atol=1e-12, err_msg=col
+        )
 
 
 def test_messy_cohort_ledger_matches_recorded_defects() -> None:
@@ -54,7 +55,10 @@ def test_messy_cohort_ledger_matches_recorded_defects() -> None:
     assumed = demo.defects["assumptions"]
     spec = demo_cohort_spec()
     assert (spec.lookback_days, spec.max_carry_days, spec.same_day_rule) == (
-        assumed["lookback_days"], assumed["max_carry_days"], assumed["same_day_rule"])
+        assumed["lookback_days"],
+        assumed["max_carry_days"],
+        assumed["same_day_rule"],
+    )
     for v in spec.variables:
         assert [v.plausible_min, v.plausible_max] == assumed["plausible_ranges"][v.name]
         assert v.factors == assumed["unit_conversions"][v.name]
@@ -63,8 +67,9 @@ def test_messy_cohort_ledger_matches_recorded_defects() -> None:
 @pytest.mark.skipif(not (DEMO_DATA / "messy" / "defects.json").exists(), reason="demo_data/messy not generated")
 def test_committed_messy_files_through_csv() -> None:
     folder = DEMO_DATA / "messy"
-    cohort = build_cohort(folder / "patients.csv", folder / "measurements.csv", folder / "outcomes.csv",
-                          demo_cohort_spec())
+    cohort = build_cohort(
+        folder / "patients.csv", folder / "measurements.csv", folder / "outcomes.csv", demo_cohort_spec()
+    )
     recorded = json.loads((folder / "defects.json").read_text())
     counts = _state_counts(cohort)
     for table in ("patients", "measurements", "outcomes"):

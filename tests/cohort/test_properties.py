@@ -31,18 +31,33 @@ def cohorts(draw):
         entry = BASE + pd.Timedelta(days=draw(st.integers(0, 30)))
         patients.append({"patient_id": pid, "entry_date": entry.date().isoformat(), "birth_date": "1950-06-15"})
         end = draw(st.integers(1, 300))
-        outcomes.append({"patient_id": pid, "date": (entry + pd.Timedelta(days=end)).date().isoformat(),
-                         "kind": draw(st.sampled_from(sorted(KINDS)))})
+        outcomes.append(
+            {
+                "patient_id": pid,
+                "date": (entry + pd.Timedelta(days=end)).date().isoformat(),
+                "kind": draw(st.sampled_from(sorted(KINDS))),
+            }
+        )
         for _ in range(draw(st.integers(0, 8))):
             day = draw(st.integers(-90, end + 30))
-            meas.append({"patient_id": pid, "date": (entry + pd.Timedelta(days=day)).date().isoformat(),
-                         "variable": draw(st.sampled_from(["v0", "v1"])), "value": draw(st.integers(1, 9))})
+            meas.append(
+                {
+                    "patient_id": pid,
+                    "date": (entry + pd.Timedelta(days=day)).date().isoformat(),
+                    "variable": draw(st.sampled_from(["v0", "v1"])),
+                    "value": draw(st.integers(1, 9)),
+                }
+            )
     spec = CohortSpec(
-        variables=(VariableSpec("v0", transform="log", change=True, slope=True, slope_window_days=100),
-                   VariableSpec("v1")),
+        variables=(
+            VariableSpec("v0", transform="log", change=True, slope=True, slope_window_days=100),
+            VariableSpec("v1"),
+        ),
         max_carry_days=draw(st.sampled_from([None, 20.0, 75.0])),
         lookback_days=draw(st.sampled_from([0.0, 45.0])),
-        exam_variables=("v0",), static=("age_at_entry",))
+        exam_variables=("v0",),
+        static=("age_at_entry",),
+    )
     frame = pd.DataFrame(meas, columns=["patient_id", "date", "variable", "value"])
     return pd.DataFrame(patients), frame, pd.DataFrame(outcomes), spec
 
@@ -102,10 +117,15 @@ def test_invariants(data) -> None:
                 expected = (math.log(v) if var == "v0" else v) if s - d < carry else np.nan
                 np.testing.assert_allclose(got, expected)
                 if var == "v0" and not np.isnan(expected):
-                    np.testing.assert_allclose(rows.set_index("start").log_v0_change[s], math.log(v) - math.log(known[0][1]))
+                    np.testing.assert_allclose(
+                        rows.set_index("start").log_v0_change[s], math.log(v) - math.log(known[0][1])
+                    )
                     window = [(dd, vv) for dd, vv in known if dd >= d - 100]
-                    slope = np.polyfit([w[0] for w in window], np.log([w[1] for w in window]), 1)[0] * 365.25 \
-                        if len(window) > 1 else np.nan
+                    slope = (
+                        np.polyfit([w[0] for w in window], np.log([w[1] for w in window]), 1)[0] * 365.25
+                        if len(window) > 1
+                        else np.nan
+                    )
                     np.testing.assert_allclose(rows.set_index("start").log_v0_slope_per_year[s], slope, atol=1e-9)
         exams = [d for d, _ in values.get((pid, "v0"), [])]
         np.testing.assert_array_equal(rows.n_exams, [sum(d <= s for d in exams) for s in start])

@@ -25,10 +25,13 @@ SPEC = CohortSpec(variables=(VariableSpec("v0"), VariableSpec("v1")), static=(),
 def lifelines_table(patients: pd.DataFrame, meas: pd.DataFrame, outcomes: pd.DataFrame) -> pd.DataFrame:
     """The same table built with lifelines' utilities (days since entry)."""
     entry = pd.to_datetime(patients.set_index("patient_id")["entry_date"])
-    base = pd.DataFrame({
-        "patient_id": outcomes.patient_id,
-        "duration": (pd.to_datetime(outcomes.date) - entry.loc[outcomes.patient_id].to_numpy()).dt.days,
-        "event": outcomes.kind != "end_of_follow_up"})
+    base = pd.DataFrame(
+        {
+            "patient_id": outcomes.patient_id,
+            "duration": (pd.to_datetime(outcomes.date) - entry.loc[outcomes.patient_id].to_numpy()).dt.days,
+            "event": outcomes.kind != "end_of_follow_up",
+        }
+    )
     table = to_long_format(base, "duration")
     days = (pd.to_datetime(meas.date) - entry.loc[meas.patient_id].to_numpy()).dt.days
     for var in ["v0", "v1"]:
@@ -44,8 +47,13 @@ def join_unchanged_rows(cp: pd.DataFrame, covariates: list[str]) -> pd.DataFrame
     same = cp[covariates].fillna(-1e300).eq(cp[covariates].fillna(-1e300).shift()).all(axis=1)
     new_block = ~same | cp.patient_id.ne(cp.patient_id.shift())
     block = new_block.cumsum()
-    out = cp.groupby(block).agg(patient_id=("patient_id", "first"), start=("start", "first"), stop=("stop", "last"),
-                                status=("status", "last"), **{c: (c, "first") for c in covariates})
+    out = cp.groupby(block).agg(
+        patient_id=("patient_id", "first"),
+        start=("start", "first"),
+        stop=("stop", "last"),
+        status=("status", "last"),
+        **{c: (c, "first") for c in covariates},
+    )
     return out.reset_index(drop=True)
 
 

@@ -36,15 +36,33 @@ def _raw_tables(shipped: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame, pd.D
         accept = ORIGIN + pd.Timedelta(days=round(first.year * 365.25))
         birth = accept - pd.Timedelta(days=round((first.age + 48) * 365.25))
         entry = accept - pd.Timedelta(days=1)
-        patients.append({"patient_id": str(pid), "entry_date": entry, "acceptance_date": accept,
-                         "birth_date": birth, "surgery": int(first.surgery)})
+        patients.append(
+            {
+                "patient_id": str(pid),
+                "entry_date": entry,
+                "acceptance_date": accept,
+                "birth_date": birth,
+                "surgery": int(first.surgery),
+            }
+        )
         meas.append({"patient_id": str(pid), "date": entry, "variable": "transplant", "value": 0.0})
         done = g[g.transplant == 1]
         if len(done):
-            meas.append({"patient_id": str(pid), "date": entry + pd.Timedelta(days=float(done.start.iloc[0])),
-                         "variable": "transplant", "value": 1.0})
-        outcomes.append({"patient_id": str(pid), "date": entry + pd.Timedelta(days=float(last.stop)),
-                         "kind": "outcome" if last.event else "end_of_follow_up"})
+            meas.append(
+                {
+                    "patient_id": str(pid),
+                    "date": entry + pd.Timedelta(days=float(done.start.iloc[0])),
+                    "variable": "transplant",
+                    "value": 1.0,
+                }
+            )
+        outcomes.append(
+            {
+                "patient_id": str(pid),
+                "date": entry + pd.Timedelta(days=float(last.stop)),
+                "kind": "outcome" if last.event else "end_of_follow_up",
+            }
+        )
     patients = pd.DataFrame(patients)
     # Static covariates of the shipped data, from the raw dates (conventions above).
     patients["year"] = (patients.acceptance_date - ORIGIN).dt.days / 365.25
@@ -55,8 +73,12 @@ def _raw_tables(shipped: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame, pd.D
 @pytest.fixture(scope="module")
 def rebuilt() -> tuple[pd.DataFrame, pd.DataFrame]:
     shipped = load_stanford_heart_transplants()
-    spec = CohortSpec(variables=(VariableSpec("transplant", unit="1", plausible_min=0, plausible_max=1),),
-                      max_carry_days=None, static=("age", "year", "surgery"), current_age=False)
+    spec = CohortSpec(
+        variables=(VariableSpec("transplant", unit="1", plausible_min=0, plausible_max=1),),
+        max_carry_days=None,
+        static=("age", "year", "surgery"),
+        current_age=False,
+    )
     cohort = build_cohort(*_raw_tables(shipped), spec)
     assert (cohort.ledger.state == RowState.USED).all()
     ours = cohort.counting_process.rename(columns={"status": "event"})
@@ -76,8 +98,13 @@ def test_rebuilt_rows_equal_the_shipped_rows(rebuilt) -> None:
 
 def test_cox_on_rebuilt_rows_gives_published_fit(rebuilt) -> None:
     ours, _ = rebuilt
-    ctv = CoxTimeVaryingFitter().fit(ours[["patient_id", "start", "stop", "event", *COVARIATES]],
-                                     id_col="patient_id", start_col="start", stop_col="stop", event_col="event")
+    ctv = CoxTimeVaryingFitter().fit(
+        ours[["patient_id", "start", "stop", "event", *COVARIATES]],
+        id_col="patient_id",
+        start_col="start",
+        stop_col="stop",
+        event_col="event",
+    )
     assert np.round(ctv.params_[COVARIATES].to_numpy(), 4).tolist() == PUBLISHED_COEF
     assert np.round(ctv.standard_errors_[COVARIATES].to_numpy(), 4).tolist() == PUBLISHED_SE
     assert round(ctv.log_likelihood_ratio_test().test_statistic, 1) == 15.1

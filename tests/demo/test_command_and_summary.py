@@ -17,8 +17,22 @@ from riskbench.workflow.cli import main
 def test_simulate_then_summarise_from_the_command_line(tmp_path, capsys):
     out = tmp_path / "cohort"
     assert main(["simulate-cohort", "--patients", "220", "--seed", "3", "--variant", "messy", "--out", str(out)]) == 0
-    assert main(["simulate-cohort", "--patients", "220", "--seed", "3", "--out", str(tmp_path / "clean"),
-                 "--risk-paths", "3"]) == 0
+    assert (
+        main(
+            [
+                "simulate-cohort",
+                "--patients",
+                "220",
+                "--seed",
+                "3",
+                "--out",
+                str(tmp_path / "clean"),
+                "--risk-paths",
+                "3",
+            ]
+        )
+        == 0
+    )
     for name in ("patients", "measurements", "outcomes"):
         assert (out / f"{name}.csv").exists() and (out / f"{name}.parquet").exists()
     assert json.loads((out / "defects.json").read_text())["patients"]["no_follow_up"] >= 1

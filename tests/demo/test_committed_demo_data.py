@@ -32,13 +32,18 @@ def test_committed_demo_cohort_regenerates(variant, tmp_path):
     committed = DEMO / variant
     _compare_folders(tmp_path, committed)
     if variant == "messy":
-        assert json.loads((committed / "defects.json").read_text()) == json.loads((tmp_path / "defects.json").read_text())
+        assert json.loads((committed / "defects.json").read_text()) == json.loads(
+            (tmp_path / "defects.json").read_text()
+        )
         return
     assert json.loads((committed / "truth.json").read_text()) == json.loads((tmp_path / "truth.json").read_text())
     for name in ("true_intervals", "true_risk"):
         pd.testing.assert_frame_equal(
-            pd.read_parquet(tmp_path / f"{name}.parquet"), pd.read_parquet(committed / f"{name}.parquet"),
-            check_exact=False, rtol=1e-12, obj=name,
+            pd.read_parquet(tmp_path / f"{name}.parquet"),
+            pd.read_parquet(committed / f"{name}.parquet"),
+            check_exact=False,
+            rtol=1e-12,
+            obj=name,
         )
 
 

@@ -109,7 +109,8 @@ def test_true_covariates_are_the_last_values_known_at_start(small):
             last = {v: known.loc[known["variable"] == v, "value"].iloc[-1] for v in known["variable"].unique()}
             assert row.log_nodule_volume == pytest.approx(np.log(last["nodule_volume"]), abs=1e-12)
             assert row.log_nodule_volume_change == pytest.approx(
-                np.log(last["nodule_volume"]) - np.log(vol["value"].iloc[0]), abs=1e-12)
+                np.log(last["nodule_volume"]) - np.log(vol["value"].iloc[0]), abs=1e-12
+            )
             assert row.suspicion_score == last["suspicion_score"]
             assert row.serum_marker == last["serum_marker"]
             age = (pd.Timestamp(p.loc[pid, "entry_date"]) - pd.Timestamp(p.loc[pid, "birth_date"])).days / 365.25
@@ -175,8 +176,15 @@ def test_conditional_next_exam_matches_rejection_sampling(volume, after):
     reference = raw[raw > after][:20_000]
     assert reference.size == 20_000
     lo, hi = exam_interval_bounds(np.full(20_000, volume), p)
-    ours = next_visit_after(np.zeros(20_000), lo, hi, p.exam_miss_probability, p.min_gap_days,
-                            np.full(20_000, after), np.random.default_rng(18))
+    ours = next_visit_after(
+        np.zeros(20_000),
+        lo,
+        hi,
+        p.exam_miss_probability,
+        p.min_gap_days,
+        np.full(20_000, after),
+        np.random.default_rng(18),
+    )
     assert (ours > after).all()
     assert ks_2samp(ours, reference).pvalue > 0.001
 
@@ -192,7 +200,13 @@ def test_conditional_next_lab_matches_rejection_sampling(after):
     raw = next_lab_day(np.zeros(400_000), p, np.random.default_rng(5))
     reference = raw[raw > after][:20_000]
     assert reference.size == 20_000
-    ours = next_visit_after(np.zeros(20_000), *lab_interval_bounds(20_000, p), p.lab_miss_probability,
-                            p.min_gap_days, np.full(20_000, after), np.random.default_rng(6))
+    ours = next_visit_after(
+        np.zeros(20_000),
+        *lab_interval_bounds(20_000, p),
+        p.lab_miss_probability,
+        p.min_gap_days,
+        np.full(20_000, after),
+        np.random.default_rng(6),
+    )
     assert (ours > after).all()
     assert ks_2samp(ours, reference).pvalue > 0.001

@@ -30,7 +30,10 @@ def test_cox_time_varying_fit_covers_true_coefficients():
     assert rows["event"].sum() > 200  # enough outcomes for the check to have power
     fit = CoxTimeVaryingFitter().fit(
         rows[["patient_id", "start", "stop", "event", *COVARIATES]],
-        id_col="patient_id", event_col="event", start_col="start", stop_col="stop",
+        id_col="patient_id",
+        event_col="event",
+        start_col="start",
+        stop_col="stop",
     )
     coef, se = fit.summary["coef"], fit.summary["se(coef)"]
     for name in COVARIATES:
@@ -45,7 +48,11 @@ def test_kaplan_meier_matches_closed_form_weibull_when_covariates_have_no_effect
     Weibull: S(t) = exp(-rho (t/365.25)^shape). Event days are ceil(t), so S at whole days is exact."""
     params = GeneratorParameters().replace(
         coefficients={name: 0.0 for name in COVARIATES},
-        weibull_rho=0.3, weibull_shape=0.6, gompertz_b=0.0, loss_rate_per_year=0.0, discharge_probability=0.0,
+        weibull_rho=0.3,
+        weibull_shape=0.6,
+        gompertz_b=0.0,
+        loss_rate_per_year=0.0,
+        discharge_probability=0.0,
     )
     cohort = generate_cohort(3000, seed=3, n_risk_paths=0, parameters=params)
     ends = cohort.outcomes

@@ -13,8 +13,11 @@ import pytest
 from riskbench.cohort.reasons import RowState
 from riskbench.demo import generate_cohort
 
-KNOWN_UNITS = {"nodule_volume": {"mm3": 1.0, "cm3": 1000.0}, "suspicion_score": {"1": 1.0},
-               "serum_marker": {"ng/mL": 1.0, "ug/L": 1.0}}
+KNOWN_UNITS = {
+    "nodule_volume": {"mm3": 1.0, "cm3": 1000.0},
+    "suspicion_score": {"1": 1.0},
+    "serum_marker": {"ng/mL": 1.0, "ug/L": 1.0},
+}
 
 
 @pytest.fixture(scope="module")
@@ -55,8 +58,13 @@ def test_patient_and_outcome_defects_are_recorded(messy):
     order = o[valid].assign(when=_iso(o["date"])).sort_values(["patient_id", "when"], kind="stable")
     later = pd.Series(False, index=o.index)
     later[order.index[order.duplicated("patient_id")]] = True
-    flags = {"unknown_patient": unknown, "exact_duplicate": dup, "unknown_kind": bad_kind,
-             "unparseable_date": bad_date, "later_event": later}
+    flags = {
+        "unknown_patient": unknown,
+        "exact_duplicate": dup,
+        "unknown_kind": bad_kind,
+        "unparseable_date": bad_date,
+        "later_event": later,
+    }
     _check(flags, messy.defects["outcomes"], len(o))
 
 

@@ -87,8 +87,11 @@ def test_true_risk_with_competing_death_matches_adaptive_quadrature():
     from riskbench.demo import COVARIATES
 
     params = GeneratorParameters().replace(
-        coefficients={c: 0.0 for c in COVARIATES}, weibull_rho=0.3, weibull_shape=0.7,
-        gompertz_b=4e-4, gompertz_c=0.1,
+        coefficients={c: 0.0 for c in COVARIATES},
+        weibull_rho=0.3,
+        weibull_shape=0.7,
+        gompertz_b=4e-4,
+        gompertz_c=0.1,
     )
     cohort = generate_cohort(40, seed=9, landmarks_days=(0.0, 500.0), n_risk_paths=2, parameters=params)
     entry = pd.to_datetime(cohort.patients.set_index("patient_id")["entry_date"])

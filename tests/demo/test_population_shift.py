@@ -13,17 +13,20 @@ from riskbench.demo import CohortShift, GeneratorParameters, generate_cohort
 from riskbench.errors import RiskbenchError
 
 # Fingerprints of generate_cohort(60, 7, n_risk_paths=4) (clean, with its true risk) and
-# generate_cohort(200, 3, "messy"), taken with the generator before the shift parameters existed.
-CLEAN_FINGERPRINT = "237df495c39c8ba5bf9a605e100940e2d9317e60de9a88ba113b374e66bfd814"
-MESSY_FINGERPRINT = "836589b7e8c4e5dabe85728d803869a4f5dcb6c87a638db4647bec338c3f169d"
+# generate_cohort(200, 3, "messy"), taken with the generator before the shift parameters existed (its parent
+# commit). The tables are hashed as CSV text with 12 significant digits, so a change of pandas' in-memory dtypes
+# (its hash of an object column differs between versions) does not move them, while any changed value does.
+CLEAN_FINGERPRINT = "73d37b5824b86ce02ac19c4f2ebbbe6fe2813b76275242c60ac019cd555f917b"
+MESSY_FINGERPRINT = "53a7b6348e6371b5a585ebca647f4ab591b75cedf7e257863e2bcaae68fd3151"
 
 
 def _fingerprint(cohort) -> str:
     digest = hashlib.sha256()
-    for table in (cohort.patients, cohort.measurements, cohort.outcomes):
-        digest.update(pd.util.hash_pandas_object(table, index=True).values.tobytes())
+    tables = [cohort.patients, cohort.measurements, cohort.outcomes]
     if cohort.truth is not None and cohort.truth.true_risk is not None:
-        digest.update(pd.util.hash_pandas_object(cohort.truth.true_risk, index=True).values.tobytes())
+        tables.append(cohort.truth.true_risk)
+    for table in tables:
+        digest.update(table.to_csv(index=False, float_format="%.12g").encode())
     return digest.hexdigest()
 
 
@@ -36,8 +39,9 @@ def test_no_shift_gives_the_cohorts_of_before_bit_for_bit(shift):
 
 
 def test_shift_is_recorded_in_the_truth_and_applied_to_the_parameters():
-    shift = CohortShift(outcome_hazard_multiplier=2.0, age_shift_years=5.0, pack_years_multiplier=1.5,
-                        log_volume_shift=0.3)
+    shift = CohortShift(
+        outcome_hazard_multiplier=2.0, age_shift_years=5.0, pack_years_multiplier=1.5, log_volume_shift=0.3
+    )
     base = GeneratorParameters()
     shifted = shift.apply(base)
     assert shifted.weibull_rho == pytest.approx(2.0 * base.weibull_rho)
@@ -49,8 +53,15 @@ def test_shift_is_recorded_in_the_truth_and_applied_to_the_parameters():
     assert truth["outcome_hazard"]["rho"] == pytest.approx(2.0 * base.weibull_rho)
 
 
-@pytest.mark.parametrize("bad", [dict(outcome_hazard_multiplier=0.0), dict(pack_years_multiplier=-1.0),
-                                 dict(age_shift_years=float("nan")), dict(log_volume_shift=float("inf"))])
+@pytest.mark.parametrize(
+    "bad",
+    [
+        dict(outcome_hazard_multiplier=0.0),
+        dict(pack_years_multiplier=-1.0),
+        dict(age_shift_years=float("nan")),
+        dict(log_volume_shift=float("inf")),
+    ],
+)
 def test_impossible_shifts_are_refused_with_the_parameter_named(bad):
     with pytest.raises(RiskbenchError, match=next(iter(bad))):
         CohortShift(**bad)
@@ -69,22 +80,27 @@ def _nelson_aalen_at(intervals: pd.DataFrame, t: float) -> float:
 def test_hazard_multiplier_scales_the_baseline_cumulative_hazard():
     """With every coefficient 0 and no competing death the outcome time is Weibull with cumulative hazard
     m·rho·(t / 365.25)^shape (the closed form documented in GeneratorParameters); Nelson–Aalen recovers it."""
-    flat = GeneratorParameters().replace(coefficients={name: 0.0 for name in GeneratorParameters().coefficients},
-                                         weibull_rho=0.08, gompertz_b=1e-12, loss_rate_per_year=0.0)
+    flat = GeneratorParameters().replace(
+        coefficients={name: 0.0 for name in GeneratorParameters().coefficients},
+        weibull_rho=0.08,
+        gompertz_b=1e-12,
+        loss_rate_per_year=0.0,
+    )
     t = 2 * 365.25
     closed = {m: m * 0.08 * 2.0**flat.weibull_shape for m in (1.0, 2.5)}
     for m, expected in closed.items():
-        cohort = generate_cohort(3000, 11, n_risk_paths=0, parameters=flat,
-                                 shift=CohortShift(outcome_hazard_multiplier=m))
+        cohort = generate_cohort(
+            3000, 11, n_risk_paths=0, parameters=flat, shift=CohortShift(outcome_hazard_multiplier=m)
+        )
         estimate = _nelson_aalen_at(cohort.truth.intervals, t)
         assert estimate == pytest.approx(expected, rel=0.15), (m, estimate, expected)
 
 
 def test_case_mix_shift_moves_age_pack_years_and_nodule_size():
     base = generate_cohort(1500, 4, n_risk_paths=0)
-    moved = generate_cohort(1500, 5, n_risk_paths=0, shift=CohortShift(age_shift_years=6.0,
-                                                                       pack_years_multiplier=1.5,
-                                                                       log_volume_shift=0.5))
+    moved = generate_cohort(
+        1500, 5, n_risk_paths=0, shift=CohortShift(age_shift_years=6.0, pack_years_multiplier=1.5, log_volume_shift=0.5)
+    )
 
     def first(cohort, column):
         rows = cohort.truth.intervals

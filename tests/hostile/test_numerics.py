@@ -25,7 +25,8 @@ from riskbench.models.fit_warnings import count_warnings, recorded_warnings
 from riskbench.workflow.fit_diagnosis import describe_fit_failure, describe_warnings
 
 _SPEC = importlib.util.spec_from_file_location(
-    "analysis_builder", Path(__file__).resolve().parents[1] / "workflow" / "analysis_builder.py")
+    "analysis_builder", Path(__file__).resolve().parents[1] / "workflow" / "analysis_builder.py"
+)
 B = importlib.util.module_from_spec(_SPEC)
 _SPEC.loader.exec_module(B)
 
@@ -110,11 +111,16 @@ def test_collinearity_is_phrased_with_the_model_and_its_keys(tiny):
     terms the three columns are collinear."""
     _, run_dir = tiny
     stack = pd.read_parquet(run_dir / "data" / "landmark_stack.parquet")
-    model = SimpleNamespace(name="ages", covariates=("age", "age_at_entry"), family="landmark_cox",
-                            params={"baseline": "smooth", "landmark_effects": "none"})
+    model = SimpleNamespace(
+        name="ages",
+        covariates=("age", "age_at_entry"),
+        family="landmark_cox",
+        params={"baseline": "smooth", "landmark_effects": "none"},
+    )
     with pytest.raises(CoxCollinearityError) as info:
-        LandmarkSupermodel(["age", "age_at_entry"], baseline="smooth", landmark_effects="none",
-                           competing=False).fit(stack)
+        LandmarkSupermodel(["age", "age_at_entry"], baseline="smooth", landmark_effects="none", competing=False).fit(
+            stack
+        )
     text = describe_fit_failure(model, info.value, stack, None, threshold=10)
     assert "covariates 'age', 'age_at_entry' together with the landmark terms of the smooth baseline" in text
     assert "[[models]] covariates of 'ages'" in text and 'params baseline = "stratified"' in text
@@ -127,8 +133,12 @@ def test_separation_is_phrased_as_a_covariate_that_separates(tiny):
     stack = pd.read_parquet(run_dir / "data" / "landmark_stack.parquet")
     stack = stack.assign(flag=(stack["status"] == 1).astype(float))
     with recorded_warnings() as log:
-        fit_cox(stack[["flag", "age_at_entry"]], stack["time"], (stack["status"] == 1).astype(float),
-                names=["flag", "age_at_entry"])
+        fit_cox(
+            stack[["flag", "age_at_entry"]],
+            stack["time"],
+            (stack["status"] == 1).astype(float),
+            names=["flag", "age_at_entry"],
+        )
     assert any(w.kind == "separation" and "flag" in w.terms for w in log)
     assert isinstance(MonotoneLikelihoodWarning("x", ["flag"]).terms, tuple)
     model = SimpleNamespace(name="flagged", covariates=("flag", "age_at_entry"), family="landmark_cox", params={})

@@ -37,7 +37,7 @@ from riskbench.workflow.stage_result import StageResult, show
 IMG = "<img src=x onerror=alert(1)>"
 SCRIPT = "<script>alert(1)</script>"
 ESCAPE = "x/../../../../escaped_outside"
-FORMULAS = ["=HYPERLINK(\"http://x\",\"y\")", "+1+1", "-2+3", "@SUM(A1:A2)", "\tcmd", "\rcmd", "=1", "-cmd|' /C calc'!A0"]
+FORMULAS = ['=HYPERLINK("http://x","y")', "+1+1", "-2+3", "@SUM(A1:A2)", "\tcmd", "\rcmd", "=1", "-cmd|' /C calc'!A0"]
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -68,8 +68,12 @@ def test_a_model_name_that_climbs_out_writes_inside_the_run_folder(tmp_path):
     fig, ax = plt.subplots()
     ax.plot([0, 1])
     figure = save_figure(fig, run, f"calibration_{ESCAPE}_1y")
-    paths = [save_table(pd.DataFrame({"x": [1]}), run, f"coefficients_{ESCAPE}"),
-             save_data(pd.DataFrame({"x": [1]}), run, ESCAPE), figure.png, figure.svg]
+    paths = [
+        save_table(pd.DataFrame({"x": [1]}), run, f"coefficients_{ESCAPE}"),
+        save_data(pd.DataFrame({"x": [1]}), run, ESCAPE),
+        figure.png,
+        figure.svg,
+    ]
     for path in paths:
         assert run.resolve() in path.resolve().parents, path
     outside = [p for p in tmp_path.rglob("*") if p.is_file() and run not in p.parents]
@@ -94,12 +98,14 @@ def _is_float(text: str) -> bool:
 
 
 def test_formula_cells_are_neutralised_and_negative_numbers_kept(tmp_path):
-    table = pd.DataFrame({
-        "model": FORMULAS,
-        "=label": ["ok"] * len(FORMULAS),
-        "coef": np.linspace(-2.5, 1.0, len(FORMULAS)),
-        "as_text": ["-0.25", "-1e-3", "+3", "-inf", "12", "-7", "0", "-0.5 (-1.2 to 0.1)"],
-    })
+    table = pd.DataFrame(
+        {
+            "model": FORMULAS,
+            "=label": ["ok"] * len(FORMULAS),
+            "coef": np.linspace(-2.5, 1.0, len(FORMULAS)),
+            "as_text": ["-0.25", "-1e-3", "+3", "-inf", "12", "-7", "0", "-0.5 (-1.2 to 0.1)"],
+        }
+    )
     path = save_table(table, tmp_path, "coefficients_hostile")
     cells = _cells(path.read_text())
     for cell in cells:
@@ -162,10 +168,16 @@ def live_user_markup(page: str) -> list:
 
 
 def _hostile_run(run: Path) -> None:
-    save_table(pd.DataFrame({"model": [IMG, SCRIPT], "term": ["=cmd", "x"], "coef": [0.1, -0.2],
-                             IMG: ["a", "b"]}), run, f"coefficients_{IMG}")
-    save_table(pd.DataFrame({"characteristic": [f"{SCRIPT}, median (IQR)"], "All": ["1 (0–2)"]}), run,
-               "baseline_characteristics")
+    save_table(
+        pd.DataFrame({"model": [IMG, SCRIPT], "term": ["=cmd", "x"], "coef": [0.1, -0.2], IMG: ["a", "b"]}),
+        run,
+        f"coefficients_{IMG}",
+    )
+    save_table(
+        pd.DataFrame({"characteristic": [f"{SCRIPT}, median (IQR)"], "All": ["1 (0–2)"]}),
+        run,
+        "baseline_characteristics",
+    )
     fig, ax = plt.subplots()
     ax.set_title(IMG)
     save_figure(fig, run, f"calibration_{IMG}_1y")
@@ -173,8 +185,9 @@ def _hostile_run(run: Path) -> None:
 
 def test_the_report_shows_hostile_names_and_titles_as_text(tmp_path):
     _hostile_run(tmp_path)
-    page = build_report(tmp_path, title=f"Study {SCRIPT}", threshold=10,
-                        facts=[("configuration", IMG), (SCRIPT, "1")]).read_text()
+    page = build_report(
+        tmp_path, title=f"Study {SCRIPT}", threshold=10, facts=[("configuration", IMG), (SCRIPT, "1")]
+    ).read_text()
     assert live_user_markup(page) == []
     assert "<script" not in page
     assert "&lt;img src=x onerror=alert(1)&gt;" in page and "&lt;script&gt;" in page
@@ -188,17 +201,24 @@ def test_a_stage_notebook_exported_to_html_has_no_live_user_markup(tmp_path, mon
     _hostile_run(tmp_path)
     fig, ax = plt.subplots()
     ax.plot([0, 1])
-    result = StageResult(stage="models", run_dir=tmp_path, notes=[f"Model {IMG} failed {SCRIPT}"],
-                         tables={f"coefficients_{IMG}": pd.DataFrame({"model": [IMG], SCRIPT: [1.0]})},
-                         figures={f"hazard_ratios_{IMG}": save_figure(fig, tmp_path, f"hazard_ratios_{IMG}")})
+    result = StageResult(
+        stage="models",
+        run_dir=tmp_path,
+        notes=[f"Model {IMG} failed {SCRIPT}"],
+        tables={f"coefficients_{IMG}": pd.DataFrame({"model": [IMG], SCRIPT: [1.0]})},
+        figures={f"hazard_ratios_{IMG}": save_figure(fig, tmp_path, f"hazard_ratios_{IMG}")},
+    )
     shown = []
     monkeypatch.setattr(IPython.display, "display", lambda obj: shown.append(obj))
     show(result)
     outputs = []
     for obj in shown:
         bundle = {"text/plain": repr(obj)[:40]}
-        for mime, method in (("text/html", "_repr_html_"), ("text/markdown", "_repr_markdown_"),
-                             ("image/png", "_repr_png_")):
+        for mime, method in (
+            ("text/html", "_repr_html_"),
+            ("text/markdown", "_repr_markdown_"),
+            ("image/png", "_repr_png_"),
+        ):
             value = getattr(obj, method, lambda: None)()
             if value is not None:
                 bundle[mime] = value if isinstance(value, str) else base64.b64encode(value).decode()
@@ -249,8 +269,10 @@ def hostile_stage_run(tmp_path_factory):
     config = load_config(base / "study.toml")
     models = tuple(dataclasses.replace(m, name=name) for m, name in zip(config.models, (IMG, ESCAPE)))
     report = dataclasses.replace(config.report, title=f"Study {SCRIPT}")
-    hostile_labels = {"serum_marker": f"=HYPERLINK(\"http://x\") {IMG}", "suspicion_score": "@SUM(A1) $\\frac{1}{0$"}
-    variables = tuple(dataclasses.replace(v, label=hostile_labels.get(v.name, v.label)) for v in config.cohort.variables)
+    hostile_labels = {"serum_marker": f'=HYPERLINK("http://x") {IMG}', "suspicion_score": "@SUM(A1) $\\frac{1}{0$"}
+    variables = tuple(
+        dataclasses.replace(v, label=hostile_labels.get(v.name, v.label)) for v in config.cohort.variables
+    )
     cohort = dataclasses.replace(config.cohort, variables=variables)
     config = dataclasses.replace(config, models=models, report=report, cohort=cohort)
     run = base / "deep" / "er" / "run"
@@ -262,14 +284,20 @@ def hostile_stage_run(tmp_path_factory):
 def test_stage_outputs_stay_in_the_run_folder_with_derived_names(hostile_stage_run):
     base, run = hostile_stage_run["base"], hostile_stage_run["run"]
     written = [p for p in base.rglob("*") if p.is_file()]
-    outside = [p for p in written if run not in p.parents and p.parent.name != "data" and p.suffix != ".key"
-               and p.name != "study.toml"]
+    outside = [
+        p
+        for p in written
+        if run not in p.parents and p.parent.name != "data" and p.suffix != ".key" and p.name != "study.toml"
+    ]
     assert outside == []
     for path in run.rglob("*"):
         if path.is_file():
             # saved models: <stem>[.part<k>|.bundle|.imputer].<json|md|joblib>[.sha256] (workflow/model_bundle.py)
-            assert re.fullmatch(r"[A-Za-z0-9_]+(\.part\d+|\.bundle|\.imputer)?\.(csv|png|svg|parquet|html|json|md|"
-                                r"joblib)(\.sha256)?", path.name), path
+            assert re.fullmatch(
+                r"[A-Za-z0-9_]+(\.part\d+|\.bundle|\.imputer)?\.(csv|png|svg|parquet|html|json|md|"
+                r"joblib)(\.sha256)?",
+                path.name,
+            ), path
     assert any(p.name.startswith("coefficients_x_escaped_outside_") for p in (run / "tables").iterdir())
     sheets = [p.read_text() for p in (run / "models").glob("*.md")]  # model sheets show the names as text
     assert len(sheets) == 2 and not any("<img" in text or "<script" in text for text in sheets)

@@ -20,15 +20,25 @@ from hypothesis import strategies as st
 from riskbench.cohort import CohortInputError, CohortSpec, TableSource, VariableSpec, build_cohort
 from riskbench.cohort import RowState as S
 
-SPEC = CohortSpec(variables=(VariableSpec("vol", unit="mm3", plausible_min=1, plausible_max=1e6),),
-                  static=("sex_male", "pack_years", "age_at_entry"), lookback_days=30)
+SPEC = CohortSpec(
+    variables=(VariableSpec("vol", unit="mm3", plausible_min=1, plausible_max=1e6),),
+    static=("sex_male", "pack_years", "age_at_entry"),
+    lookback_days=30,
+)
 RUN_DAY = datetime.date(2024, 6, 1)
 
 
 def _tables(n: int) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     ids = [f"P{i:05d}" for i in range(n)]
-    patients = pd.DataFrame({"patient_id": ids, "entry_date": "2020-01-01", "birth_date": "1955-03-04",
-                             "sex": ["F", "M"] * (n // 2) + ["F"] * (n % 2), "pack_years": "12.5"})
+    patients = pd.DataFrame(
+        {
+            "patient_id": ids,
+            "entry_date": "2020-01-01",
+            "birth_date": "1955-03-04",
+            "sex": ["F", "M"] * (n // 2) + ["F"] * (n % 2),
+            "pack_years": "12.5",
+        }
+    )
     meas = pd.DataFrame({"patient_id": ids, "date": "2020-01-01", "variable": "vol", "value": "120"})
     outcomes = pd.DataFrame({"patient_id": ids, "date": "2021-01-01", "kind": "end_of_follow_up"})
     return patients, meas, outcomes
@@ -79,8 +89,17 @@ def test_blank_lines_keep_line_numbers(tmp_path) -> None:
     lines[3:3] = ["", "   "]  # two blank lines before the patient on (old) line 4
     paths[0].write_text("\n".join(lines) + "\n\n")  # and one at the end
     ledger = _build(paths).ledger.query("table == 'patients'").set_index("row_number")
-    assert ledger.state.to_dict() == {2: S.USED, 3: S.USED, 4: S.BLANK_LINE, 5: S.BLANK_LINE, 6: S.USED,
-                                      7: S.USED, 8: S.USED, 9: S.USED, 10: S.BLANK_LINE}
+    assert ledger.state.to_dict() == {
+        2: S.USED,
+        3: S.USED,
+        4: S.BLANK_LINE,
+        5: S.BLANK_LINE,
+        6: S.USED,
+        7: S.USED,
+        8: S.USED,
+        9: S.USED,
+        10: S.BLANK_LINE,
+    }
     assert ledger.loc[6, "patient_id"] == "P00002"  # line 6 of the file holds P00002
 
 
@@ -105,8 +124,13 @@ def test_implausible_birth_dates_and_negative_pack_years(tmp_path) -> None:
     patients.loc[3, "birth_date"] = "2021-01-01"  # after entry, not in the future
     patients.loc[4, "pack_years"] = "-3"
     cohort = _build(_write((patients, meas, outcomes), tmp_path))
-    assert _states(cohort, "patients") == [S.USED, S.IMPLAUSIBLE_DATE, S.FUTURE_DATE, S.IMPLAUSIBLE_STATIC,
-                                           S.IMPLAUSIBLE_STATIC]
+    assert _states(cohort, "patients") == [
+        S.USED,
+        S.IMPLAUSIBLE_DATE,
+        S.FUTURE_DATE,
+        S.IMPLAUSIBLE_STATIC,
+        S.IMPLAUSIBLE_STATIC,
+    ]
     assert _states(cohort, "measurements") == [S.USED] + [S.PATIENT_EXCLUDED] * 4
     assert cohort.counting_process.age_at_entry.between(0, 120).all()
     flow = cohort.flow.set_index("label")
@@ -158,8 +182,9 @@ def test_utf16_file_with_encoding_reads(tmp_path) -> None:
     assert _states(cohort, "outcomes") == [S.USED] * 3
 
 
-@pytest.mark.parametrize("content", [bytes(range(256)) * 40, b"PAR1" + bytes(200) + b"PAR1",
-                                     b"\x89PNG\r\n\x1a\n" + bytes(300)])
+@pytest.mark.parametrize(
+    "content", [bytes(range(256)) * 40, b"PAR1" + bytes(200) + b"PAR1", b"\x89PNG\r\n\x1a\n" + bytes(300)]
+)
 def test_binary_file_is_one_line(tmp_path, content) -> None:
     paths = _write(_tables(3), tmp_path)
     paths[1].write_bytes(content)
@@ -174,9 +199,12 @@ def test_empty_and_non_tabular_files(tmp_path) -> None:
     with pytest.raises(CohortInputError, match=r"outcomes\.csv: the file is empty"):
         _build(paths)
     paths[2].write_text("Dear colleague, here are the data you asked for.\nBest wishes\n")
-    with pytest.raises(CohortInputError, match=r"outcomes\.csv: required column 'patient_id' is missing; the "
-                                               r"file's columns are \['Dear colleague'\] and 1 name\(s\) that look "
-                                               r"like data, not shown"):
+    with pytest.raises(
+        CohortInputError,
+        match=r"outcomes\.csv: required column 'patient_id' is missing; the "
+        r"file's columns are \['Dear colleague'\] and 1 name\(s\) that look "
+        r"like data, not shown",
+    ):
         _build(paths)
 
 
@@ -184,24 +212,48 @@ def test_headerless_file_does_not_show_its_first_row(tmp_path) -> None:
     """Probe: a headerless patients file's error quoted its first row (an id and dates)."""
     paths = _write(_tables(3), tmp_path)
     paths[0].write_text("\n".join(paths[0].read_text().splitlines()[1:]) + "\n")
-    with pytest.raises(CohortInputError, match=r"patients\.csv: required column 'patient_id' is missing; the "
-                                               r"file's columns are \['F'\] and 4 name\(s\) that look like data, "
-                                               r"not shown \(is line 1 a data row") as info:
+    with pytest.raises(
+        CohortInputError,
+        match=r"patients\.csv: required column 'patient_id' is missing; the "
+        r"file's columns are \['F'\] and 4 name\(s\) that look like data, "
+        r"not shown \(is line 1 a data row",
+    ) as info:
         _build(paths)
     assert "P0000" not in str(info.value) and "2020" not in str(info.value)
 
 
 def test_dates_with_time_zone_before_1900_and_future(tmp_path) -> None:
     patients, meas, outcomes = _tables(2)
-    extra = pd.DataFrame({"patient_id": "P00000", "variable": "vol", "value": "130",
-                          "date": ["2020-02-01T10:00+02:00", "2020-02-02 08:30Z", "2020-02-03T10:00:00 UTC",
-                                   "1899-12-31", "2024-06-02", "2024-06-01", "2020-02-04T10:00"]})
+    extra = pd.DataFrame(
+        {
+            "patient_id": "P00000",
+            "variable": "vol",
+            "value": "130",
+            "date": [
+                "2020-02-01T10:00+02:00",
+                "2020-02-02 08:30Z",
+                "2020-02-03T10:00:00 UTC",
+                "1899-12-31",
+                "2024-06-02",
+                "2024-06-01",
+                "2020-02-04T10:00",
+            ],
+        }
+    )
     meas = pd.concat([meas, extra], ignore_index=True)
     outcomes.loc[1, "date"] = "2025-01-01"
     cohort = _build(_write((patients, meas, outcomes), tmp_path))
     assert _states(cohort, "measurements") == [
-        S.USED, S.PATIENT_EXCLUDED, S.DATE_WITH_TIME_ZONE, S.DATE_WITH_TIME_ZONE, S.DATE_WITH_TIME_ZONE,
-        S.IMPLAUSIBLE_DATE, S.FUTURE_DATE, S.AFTER_FOLLOW_UP, S.USED]  # the run day itself is not the future
+        S.USED,
+        S.PATIENT_EXCLUDED,
+        S.DATE_WITH_TIME_ZONE,
+        S.DATE_WITH_TIME_ZONE,
+        S.DATE_WITH_TIME_ZONE,
+        S.IMPLAUSIBLE_DATE,
+        S.FUTURE_DATE,
+        S.AFTER_FOLLOW_UP,
+        S.USED,
+    ]  # the run day itself is not the future
     assert _states(cohort, "outcomes") == [S.USED, S.FUTURE_DATE]
     assert _states(cohort, "patients") == [S.USED, S.NO_FOLLOW_UP]  # its only outcome row is refused
 
@@ -210,8 +262,11 @@ def test_missing_static_column_lists_the_files_columns(tmp_path) -> None:
     """Probe: a missing static column was reported with the columns riskbench had loaded."""
     patients, meas, outcomes = _tables(2)
     patients = patients.drop(columns="pack_years").assign(smoking_history="x")
-    with pytest.raises(CohortInputError, match=r"column \(read by a static covariate\) 'pack_years' is missing; "
-                                               r"the file's columns are \[.*'smoking_history'.*\]"):
+    with pytest.raises(
+        CohortInputError,
+        match=r"column \(read by a static covariate\) 'pack_years' is missing; "
+        r"the file's columns are \[.*'smoking_history'.*\]",
+    ):
         _build(_write((patients, meas, outcomes), tmp_path))
 
 
@@ -219,8 +274,11 @@ def test_messages_name_lines_not_ids(tmp_path) -> None:
     patients, meas, outcomes = _tables(4)
     patients.loc[3, "patient_id"] = "P00001"
     patients.loc[3, "pack_years"] = "20"
-    with pytest.raises(CohortInputError, match=r"patients\.csv: 1 patient id\(s\) appear on more than one line "
-                                               r".*lines \[3, 5\]") as info:
+    with pytest.raises(
+        CohortInputError,
+        match=r"patients\.csv: 1 patient id\(s\) appear on more than one line "
+        r".*lines \[3, 5\]",
+    ) as info:
         _build(_write((patients, meas, outcomes), tmp_path))
     assert "P0000" not in str(info.value)
 
@@ -238,8 +296,17 @@ def test_unreadable_quoting_is_one_line_naming_the_line(tmp_path) -> None:
 
 # --- property test: random CSV mutations --------------------------------------------------------------------
 
-MUTATIONS = ("remark", "blank", "spaces", "more_fields", "fewer_fields", "quoted", "quoted_comma",
-             "quoted_newline", "hash_id")
+MUTATIONS = (
+    "remark",
+    "blank",
+    "spaces",
+    "more_fields",
+    "fewer_fields",
+    "quoted",
+    "quoted_comma",
+    "quoted_newline",
+    "hash_id",
+)
 
 
 def _mutate(lines: list[str], mutations: list[tuple[str, int]]) -> list[str]:
@@ -268,12 +335,20 @@ def _mutate(lines: list[str], mutations: list[tuple[str, int]]) -> list[str]:
     return lines
 
 
-@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow,
-                                                                  HealthCheck.function_scoped_fixture])
-@given(mutations=st.lists(st.tuples(st.sampled_from(("patients", "measurements", "outcomes")),
-                                    st.sampled_from(MUTATIONS), st.integers(0, 50)), max_size=12),
-       encoding=st.sampled_from(("utf-8", "latin-1", "cp1252", "utf-16")),
-       accent=st.booleans(), crlf=st.booleans())
+@settings(
+    max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture]
+)
+@given(
+    mutations=st.lists(
+        st.tuples(
+            st.sampled_from(("patients", "measurements", "outcomes")), st.sampled_from(MUTATIONS), st.integers(0, 50)
+        ),
+        max_size=12,
+    ),
+    encoding=st.sampled_from(("utf-8", "latin-1", "cp1252", "utf-16")),
+    accent=st.booleans(),
+    crlf=st.booleans(),
+)
 def test_every_line_is_accounted_for(tmp_path_factory, mutations, encoding, accent, crlf) -> None:
     folder = tmp_path_factory.mktemp("mutated")
     patients, meas, outcomes = _tables(6)
@@ -304,12 +379,18 @@ def test_wide_layout_keeps_line_numbers(tmp_path) -> None:
     """A wide measurement file: one ledger row per filled cell, numbered by its line; blank cells are no
     measurement; blank and ragged lines are ledger rows."""
     paths = _write(_tables(2), tmp_path)
-    paths[1].write_text("patient_id,date,vol,note\nP00000,2020-01-01,100,\n\nP00001,2020-01-01,,a\n"
-                        "P00001,2020-01-02,90,b,surplus\nP00001,2020-01-03,95,c\n")
+    paths[1].write_text(
+        "patient_id,date,vol,note\nP00000,2020-01-01,100,\n\nP00001,2020-01-01,,a\n"
+        "P00001,2020-01-02,90,b,surplus\nP00001,2020-01-03,95,c\n"
+    )
     spec = CohortSpec(variables=SPEC.variables, static=("age_at_entry",), measurement_layout="wide")
     ledger = _build(paths, spec).ledger.query("table == 'measurements'")
     assert ledger[["row_number", "state"]].values.tolist() == [
-        [2, S.USED], [3, S.BLANK_LINE], [5, S.WRONG_FIELD_COUNT], [6, S.USED]]
+        [2, S.USED],
+        [3, S.BLANK_LINE],
+        [5, S.WRONG_FIELD_COUNT],
+        [6, S.USED],
+    ]
 
 
 def test_typed_dates_time_zone_aware_is_one_line_and_old_dates_are_implausible() -> None:

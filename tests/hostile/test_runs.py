@@ -66,15 +66,19 @@ def notebook(code: str) -> nbformat.NotebookNode:
     return new_notebook(cells=[params, new_code_cell(code)])
 
 
-WRITE = ("from pathlib import Path\n"
-         "(Path(run_dir) / 'tables').mkdir(exist_ok=True)\n"
-         "(Path(run_dir) / 'tables' / 'one.csv').write_text('a,b\\n1,2\\n')\n")
-SLOW = ("import os, tempfile, time\nfrom pathlib import Path\n"
-        "Path(run_dir, 'environment.json').write_text(__import__('json').dumps(\n"
-        "    {'tmp': tempfile.gettempdir(), 'joblib': os.environ.get('JOBLIB_TEMP_FOLDER')}))\n"
-        "with open(Path(tempfile.gettempdir()) / 'spill.txt', 'w') as f:\n"
-        "    f.write(open(Path(config_path).parent / 'patients.csv').read())  # a stage spilling raw rows\n"
-        "time.sleep({seconds})\n")
+WRITE = (
+    "from pathlib import Path\n"
+    "(Path(run_dir) / 'tables').mkdir(exist_ok=True)\n"
+    "(Path(run_dir) / 'tables' / 'one.csv').write_text('a,b\\n1,2\\n')\n"
+)
+SLOW = (
+    "import os, tempfile, time\nfrom pathlib import Path\n"
+    "Path(run_dir, 'environment.json').write_text(__import__('json').dumps(\n"
+    "    {'tmp': tempfile.gettempdir(), 'joblib': os.environ.get('JOBLIB_TEMP_FOLDER')}))\n"
+    "with open(Path(tempfile.gettempdir()) / 'spill.txt', 'w') as f:\n"
+    "    f.write(open(Path(config_path).parent / 'patients.csv').read())  # a stage spilling raw rows\n"
+    "time.sleep({seconds})\n"
+)
 
 
 @pytest.fixture(scope="module")
@@ -86,21 +90,29 @@ def project(tmp_path_factory) -> dict:
     nbformat.write(notebook(WRITE), str(books / "one.ipynb"))
     nbformat.write(notebook(SLOW.replace("{seconds}", "30")), str(books / "slow.ipynb"))
     # a message that quotes a source id and a raw row, as a library error deep inside a stage may do
-    nbformat.write(notebook("from pathlib import Path\n"
-                            "from riskbench.cohort.errors import CohortInputError\n"
-                            "row = (Path(config_path).parent / 'patients.csv').read_text().splitlines()[1]\n"
-                            "raise CohortInputError(f'patients.csv: patient id {row.split(\",\")[0]} is repeated on '\n"
-                            "                       f'lines 3 and 9; columns present: {row}')"),
-                   str(books / "user_error.ipynb"))
+    nbformat.write(
+        notebook(
+            "from pathlib import Path\n"
+            "from riskbench.cohort.errors import CohortInputError\n"
+            "row = (Path(config_path).parent / 'patients.csv').read_text().splitlines()[1]\n"
+            "raise CohortInputError(f'patients.csv: patient id {row.split(\",\")[0]} is repeated on '\n"
+            "                       f'lines 3 and 9; columns present: {row}')"
+        ),
+        str(books / "user_error.ipynb"),
+    )
     nbformat.write(notebook("raise KeyError('no such column: volume')"), str(books / "bug.ipynb"))
     headerless = base / "headerless_patients.csv"
     headerless.write_text("".join((config.parent / "patients.csv").read_text().splitlines(True)[1:]))
-    nbformat.write(notebook(
-        "from riskbench.workflow.config import load_config\nfrom riskbench.cohort import build_cohort\n"
-        "c = load_config(config_path)\n"
-        f"build_cohort({str(headerless)!r}, c.sources.measurements, c.sources.outcomes, c.cohort, "
-        "temp_folder=run_dir + '/.tmp')"), str(books / "headerless.ipynb"))
-    cohort_book = (ROOT / "notebooks" / "01_cohort.ipynb")
+    nbformat.write(
+        notebook(
+            "from riskbench.workflow.config import load_config\nfrom riskbench.cohort import build_cohort\n"
+            "c = load_config(config_path)\n"
+            f"build_cohort({str(headerless)!r}, c.sources.measurements, c.sources.outcomes, c.cohort, "
+            "temp_folder=run_dir + '/.tmp')"
+        ),
+        str(books / "headerless.ipynb"),
+    )
+    cohort_book = ROOT / "notebooks" / "01_cohort.ipynb"
     (books / "01_cohort.ipynb").write_bytes(cohort_book.read_bytes())
     return {"base": base, "config": config, "ids": ids, "books": books}
 
@@ -159,8 +171,9 @@ def test_overwrite_replaces_a_marked_run_and_refuses_inputs_inside_the_run(proje
     inside = tmp_path / "inside.toml"
     inside.write_text(in_run.read_text().replace('path = "', f'path = "{in_run.parent}/'))
     with pytest.raises(NotARunFolder, match="lies inside"):
-        run_analysis(inside, out, notebooks_dir=project["books"], stages=[("one", "one.ipynb")], log=None,
-                     overwrite=True)
+        run_analysis(
+            inside, out, notebooks_dir=project["books"], stages=[("one", "one.ipynb")], log=None, overwrite=True
+        )
     assert (out / "inputs" / "patients.csv").is_file()
 
 
@@ -192,18 +205,26 @@ def test_a_run_made_before_the_marker_is_still_replaced(project, tmp_path):
 # The lock
 
 
-def _driver(project: dict, out: Path, stages: list[tuple[str, str]], tmpdir: Path,
-            overwrite: bool = False) -> subprocess.Popen:
+def _driver(
+    project: dict, out: Path, stages: list[tuple[str, str]], tmpdir: Path, overwrite: bool = False
+) -> subprocess.Popen:
     """A run in another process (stand-in notebooks), started with its own system temporary folder."""
-    code = ("import sys\nfrom riskbench.workflow.runner import run_analysis\nfrom riskbench.workflow.cli import "
-            "describe_failure\ntry:\n    run_analysis(sys.argv[1], sys.argv[2], notebooks_dir=sys.argv[3], "
-            f"stages={stages!r}, overwrite={overwrite}, log=print)\nexcept KeyboardInterrupt as exc:\n"
-            "    status, line = describe_failure(exc, 'run-analysis')\n    print(line, file=sys.stderr)\n"
-            "    sys.exit(status)\n")
+    code = (
+        "import sys\nfrom riskbench.workflow.runner import run_analysis\nfrom riskbench.workflow.cli import "
+        "describe_failure\ntry:\n    run_analysis(sys.argv[1], sys.argv[2], notebooks_dir=sys.argv[3], "
+        f"stages={stages!r}, overwrite={overwrite}, log=print)\nexcept KeyboardInterrupt as exc:\n"
+        "    status, line = describe_failure(exc, 'run-analysis')\n    print(line, file=sys.stderr)\n"
+        "    sys.exit(status)\n"
+    )
     tmpdir.mkdir(parents=True, exist_ok=True)
     env = {**os.environ, "TMPDIR": str(tmpdir)}
-    return subprocess.Popen([PYTHON, "-c", code, str(project["config"]), str(out), str(project["books"])],
-                            env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    return subprocess.Popen(
+        [PYTHON, "-c", code, str(project["config"]), str(out), str(project["books"])],
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
 
 
 def _wait_for(condition, timeout: float = 60.0, what: str = "") -> None:
@@ -235,8 +256,7 @@ def test_stale_lock_is_taken_over_with_a_message_and_a_foreign_host_lock_refuses
     lock = RunPaths(out).lock
     lock.write_text(json.dumps({"pid": gone.pid, "host": socket.gethostname(), "started_utc": "2026-01-01T00:00:00"}))
     said: list[str] = []
-    run_analysis(project["config"], out, notebooks_dir=project["books"], stages=[("one", "one.ipynb")],
-                 log=said.append)
+    run_analysis(project["config"], out, notebooks_dir=project["books"], stages=[("one", "one.ipynb")], log=said.append)
     assert any(f"taking over the stale lock of process {gone.pid}" in s for s in said)
     assert not lock.exists()  # released at the end
     lock.write_text(json.dumps({"pid": 1, "host": "another-host", "started_utc": "2026-01-01T00:00:00"}))
@@ -278,8 +298,9 @@ def test_read_only_parent_is_one_line_exit_2(project, tmp_path, capsys):
     assert err.count("\n") == 0 and "cannot write the run folder" in err and "choose an --out" in err
 
 
-def test_exit_status_2_for_data_problems_1_for_internal_errors_and_debug_shows_the_traceback(project, tmp_path,
-                                                                                           capsys, monkeypatch):
+def test_exit_status_2_for_data_problems_1_for_internal_errors_and_debug_shows_the_traceback(
+    project, tmp_path, capsys, monkeypatch
+):
     with pytest.raises(StageInputError) as user:
         run(project, tmp_path / "a", [("cohort", "user_error.ipynb")])
     assert isinstance(user.value, RiskbenchError)
@@ -297,8 +318,10 @@ def test_exit_status_2_for_data_problems_1_for_internal_errors_and_debug_shows_t
     monkeypatch.setattr("riskbench.workflow.runner.run_analysis", boom)
     assert main(["run-analysis", str(project["config"]), "--out", str(tmp_path / "c")]) == 1
     err = capsys.readouterr().err.strip()
-    assert err == ("riskbench run-analysis: internal error: ZeroDivisionError: float division by zero; rerun with "
-                   "--debug for the traceback and report it")
+    assert err == (
+        "riskbench run-analysis: internal error: ZeroDivisionError: float division by zero; rerun with "
+        "--debug for the traceback and report it"
+    )
     assert main(["run-analysis", str(project["config"]), "--out", str(tmp_path / "c"), "--debug"]) == 1
     err = capsys.readouterr().err
     assert "Traceback (most recent call last)" in err and "def boom" not in err and "in boom" in err
@@ -307,10 +330,14 @@ def test_exit_status_2_for_data_problems_1_for_internal_errors_and_debug_shows_t
     assert describe_failure(ConfigError("[validation] folds = 1"), "check-config")[0] == 2
     several = ConfigError("a.toml: 2 problems:\n  [validation] folds = 1 ...\n  [report] title = 3 ...")
     assert describe_failure(several, "run-analysis") == (
-        2, "riskbench run-analysis: error: a.toml: 2 problems:\n  [validation] folds = 1 ...\n  [report] title = 3 ...")
+        2,
+        "riskbench run-analysis: error: a.toml: 2 problems:\n  [validation] folds = 1 ...\n  [report] title = 3 ...",
+    )
     assert describe_failure(KeyboardInterrupt(), "run-analysis") == (
-        130, "riskbench run-analysis: stopped by Ctrl-C; its temporary files and unfinished folder were removed, "
-             "an earlier run folder is unchanged")
+        130,
+        "riskbench run-analysis: stopped by Ctrl-C; its temporary files and unfinished folder were removed, "
+        "an earlier run folder is unchanged",
+    )
 
 
 # --------------------------------------------------------------------------------------------------
@@ -387,9 +414,13 @@ def test_sigterm_during_a_real_stage_leaves_no_id_outside_the_inputs(kill_projec
     systemp.mkdir()
     out = tmp_path / "run"
     paths = RunPaths(out)
-    proc = subprocess.Popen([PYTHON, "-m", "riskbench", "run-analysis", str(kill_project["config"]), "--out",
-                             str(out)], env={**os.environ, "TMPDIR": str(systemp)}, stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(
+        [PYTHON, "-m", "riskbench", "run-analysis", str(kill_project["config"]), "--out", str(out)],
+        env={**os.environ, "TMPDIR": str(systemp)},
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     status, err = _kill_when(proc, _in_stage(paths, stage), signal.SIGTERM, f"stage {stage}")
     assert status == 128 + signal.SIGTERM
     assert err.strip().splitlines()[-1].startswith("riskbench run-analysis: stopped by SIGTERM")
@@ -411,8 +442,9 @@ def test_sigint_in_a_later_stage_removes_temporary_files_and_keeps_the_earlier_r
     env_file = paths.staging / "environment.json"
     for sig in (signal.SIGINT, signal.SIGTERM):
         proc = _driver(project, out, stages, systemp, overwrite=True)
-        status, err = _kill_when(proc, lambda: env_file.is_file() and any((paths.staging / ".tmp").glob("spill*")),
-                                 sig, "the slow stage")
+        status, err = _kill_when(
+            proc, lambda: env_file.is_file() and any((paths.staging / ".tmp").glob("spill*")), sig, "the slow stage"
+        )
         assert status == 128 + sig, err
         assert err.strip().splitlines()[-1].startswith("riskbench run-analysis: stopped by "), err
         _wait_for(lambda: _no_kernel_left(str(paths.staging)), timeout=20, what="the kernel to end")
@@ -423,7 +455,8 @@ def test_sigint_in_a_later_stage_removes_temporary_files_and_keeps_the_earlier_r
 
 
 def test_after_sigkill_of_the_runner_the_kernel_removes_its_temporary_files_and_the_next_run_cleans_up(
-        project, tmp_path):
+    project, tmp_path
+):
     """SIGKILL cannot be caught: the kernel's watchdog notices its runner is gone, removes the temporary
     folder (raw rows) and ends; the next run into the same folder removes the marked leftover."""
     out = tmp_path / "run"
@@ -436,8 +469,7 @@ def test_after_sigkill_of_the_runner_the_kernel_removes_its_temporary_files_and_
     assert files_with_ids(tmp_path, project["ids"]) == []
     assert paths.staging.is_dir() and paths.lock.is_file()  # what SIGKILL leaves: a marked folder, a stale lock
     said: list[str] = []
-    run_analysis(project["config"], out, notebooks_dir=project["books"], stages=[("one", "one.ipynb")],
-                 log=said.append)
+    run_analysis(project["config"], out, notebooks_dir=project["books"], stages=[("one", "one.ipynb")], log=said.append)
     assert any("taking over the stale lock" in s for s in said)
     assert not paths.staging.exists() and (out / "tables" / "one.csv").is_file()
 
@@ -460,16 +492,18 @@ def test_stage_temporary_files_live_inside_the_staging_folder(project, tmp_path)
 # Network: no TCP port for the kernel; Dask only when configured, remote only with opt-in and TLS
 
 
-LISTENERS = ("import os\nfrom pathlib import Path\n"
-             "inodes = {os.readlink(f'/proc/self/fd/{fd}') for fd in os.listdir('/proc/self/fd')\n"
-             "          if os.path.exists(f'/proc/self/fd/{fd}')}\n"
-             "listening = []\n"
-             "for table in ('tcp', 'tcp6', 'udp', 'udp6'):\n"
-             "    for row in Path(f'/proc/net/{table}').read_text().splitlines()[1:]:\n"
-             "        fields = row.split()\n"
-             "        if f'socket:[{fields[9]}]' in inodes:\n"
-             "            listening.append((table, fields[1], fields[3]))\n"
-             "Path(run_dir, 'sockets.json').write_text(__import__('json').dumps(listening))\n")
+LISTENERS = (
+    "import os\nfrom pathlib import Path\n"
+    "inodes = {os.readlink(f'/proc/self/fd/{fd}') for fd in os.listdir('/proc/self/fd')\n"
+    "          if os.path.exists(f'/proc/self/fd/{fd}')}\n"
+    "listening = []\n"
+    "for table in ('tcp', 'tcp6', 'udp', 'udp6'):\n"
+    "    for row in Path(f'/proc/net/{table}').read_text().splitlines()[1:]:\n"
+    "        fields = row.split()\n"
+    "        if f'socket:[{fields[9]}]' in inodes:\n"
+    "            listening.append((table, fields[1], fields[3]))\n"
+    "Path(run_dir, 'sockets.json').write_text(__import__('json').dumps(listening))\n"
+)
 
 
 @pytest.mark.skipif(not Path("/proc/net/tcp").is_file(), reason="needs Linux /proc/net")
@@ -485,8 +519,14 @@ def test_the_kernel_holds_no_tcp_or_udp_socket(project, tmp_path):
 
 
 def plan(**kw) -> SimpleNamespace:
-    base = {"workers": 1, "scheduler_address": None, "allow_remote_scheduler": False, "tls_ca_file": None,
-            "tls_client_cert_file": None, "tls_client_key_file": None}
+    base = {
+        "workers": 1,
+        "scheduler_address": None,
+        "allow_remote_scheduler": False,
+        "tls_ca_file": None,
+        "tls_client_cert_file": None,
+        "tls_client_key_file": None,
+    }
     return SimpleNamespace(**{**base, **kw})
 
 
@@ -508,16 +548,26 @@ def test_remote_scheduler_needs_the_opt_in_and_tls(tls_files):
     assert any("not on this machine" in p and "allow_remote_scheduler = true" in p for p in remote)
     assert any("write tls://10.0.0.5:8786" in p for p in remote)
     assert any("tls_ca_file, tls_client_cert_file, tls_client_key_file not set" in p for p in remote)
-    opted_in_plain = check_scheduler(plan(scheduler_address="tcp://10.0.0.5:8786", allow_remote_scheduler=True,
-                                          **tls_files))
-    assert opted_in_plain == ["[execution] scheduler_address = 'tcp://10.0.0.5:8786': a scheduler on another "
-                              "machine must be reached over TLS; write tls://10.0.0.5:8786"]
-    assert check_scheduler(plan(scheduler_address="tls://10.0.0.5:8786", allow_remote_scheduler=True,
-                                **tls_files)) == []
-    missing = check_scheduler(plan(scheduler_address="tls://10.0.0.5:8786", allow_remote_scheduler=True,
-                                   **{**tls_files, "tls_client_key_file": "/nonexistent/key.pem"}))
-    assert missing == ["[execution] tls_client_key_file = '/nonexistent/key.pem' is not a readable file; give the "
-                       "path of the PEM file"]
+    opted_in_plain = check_scheduler(
+        plan(scheduler_address="tcp://10.0.0.5:8786", allow_remote_scheduler=True, **tls_files)
+    )
+    assert opted_in_plain == [
+        "[execution] scheduler_address = 'tcp://10.0.0.5:8786': a scheduler on another "
+        "machine must be reached over TLS; write tls://10.0.0.5:8786"
+    ]
+    assert (
+        check_scheduler(plan(scheduler_address="tls://10.0.0.5:8786", allow_remote_scheduler=True, **tls_files)) == []
+    )
+    missing = check_scheduler(
+        plan(
+            scheduler_address="tls://10.0.0.5:8786",
+            allow_remote_scheduler=True,
+            **{**tls_files, "tls_client_key_file": "/nonexistent/key.pem"},
+        )
+    )
+    assert missing == [
+        "[execution] tls_client_key_file = '/nonexistent/key.pem' is not a readable file; give the path of the PEM file"
+    ]
     assert "is not a Dask address" in check_scheduler(plan(scheduler_address="tcp://host:port"))[0]
     assert "uses ucx://" in check_scheduler(plan(scheduler_address="ucx://10.0.0.5:8786"))[0]
     # a loopback scheduler with workers elsewhere is refused too, before any data is sent
@@ -544,6 +594,12 @@ def test_remote_run_is_refused_before_connecting_and_uses_encryption_when_allowe
         def close(self):
             seen["closed"] = True
 
+        def __enter__(self):  # the real Client is a context manager that closes itself on exit
+            return self
+
+        def __exit__(self, *exc_info):
+            self.close()
+
     monkeypatch.setattr(distributed, "Client", FakeClient)
     with pytest.raises(ValidationInputError, match="not on this machine"):
         run_replicates(_square, None, 1, 2, ExecutionConfig(scheduler_address="tcp://10.0.0.5:8786"))
@@ -564,8 +620,11 @@ def test_remote_run_is_refused_before_connecting_and_uses_encryption_when_allowe
 
 def test_remote_scheduler_in_the_configuration_is_refused_before_anything_runs(project, tmp_path):
     config = tmp_path / "remote.toml"
-    text = project["config"].read_text().replace(
-        "[execution]\n", "[execution]\nscheduler_address = \"tcp://10.0.0.5:8786\"\n")
+    text = (
+        project["config"]
+        .read_text()
+        .replace("[execution]\n", '[execution]\nscheduler_address = "tcp://10.0.0.5:8786"\n')
+    )
     config.write_text(text.replace('path = "', f'path = "{project["config"].parent}/'))
     with pytest.raises(ConfigError, match="scheduler_address"):
         load_config(config)

@@ -154,8 +154,9 @@ def test_clustered_rows_duplicate_gives_the_same_slope_and_standard_error(cohort
     t, s, x = (a[:2000] for a in cohort)
     one = calibration_at_horizon(t, s, true_cif(x), TAU, n_boot=0)
     ids = np.arange(t.size)
-    two = calibration_at_horizon(np.r_[t, t], np.r_[s, s], np.r_[true_cif(x), true_cif(x)], TAU, n_boot=0,
-                                 cluster=np.r_[ids, ids])
+    two = calibration_at_horizon(
+        np.r_[t, t], np.r_[s, s], np.r_[true_cif(x), true_cif(x)], TAU, n_boot=0, cluster=np.r_[ids, ids]
+    )
     assert two.slope == pytest.approx(one.slope, rel=0.02)
     assert two.slope_se == pytest.approx(one.slope_se, rel=0.05)
     # the O/E interval from the clustered jackknife variance matches the delta-method interval of one copy

@@ -31,8 +31,11 @@ def _data(seed: int, n: int):
 
 
 @settings(max_examples=20, deadline=None)
-@given(seed=st.integers(0, 10_000), n=st.integers(60, 600),
-       target=st.sampled_from(["cumulative_incidence", "cause_specific"]))
+@given(
+    seed=st.integers(0, 10_000),
+    n=st.integers(60, 600),
+    target=st.sampled_from(["cumulative_incidence", "cause_specific"]),
+)
 def test_slope_and_ici_equal_those_of_calibration_at_horizon(seed, n, target):
     time, status, risk = _data(seed, n)
     full = calibration_at_horizon(time, status, risk, 365.0, target=target, n_boot=0, check_direction=False)

@@ -21,7 +21,9 @@ def test_kaplan_meier_leukemia_six_mp_arm():
     curve = kaplan_meier(arm["t"].to_numpy(float), arm["status"].to_numpy())
     weeks = [6, 7, 10, 13, 16, 22, 23]
     np.testing.assert_allclose(curve(weeks), [0.8571, 0.8067, 0.7529, 0.6902, 0.6275, 0.5378, 0.4482], atol=5e-5)
-    np.testing.assert_allclose(np.sqrt(curve.var_at(weeks)), [0.0764, 0.0869, 0.0963, 0.1068, 0.1141, 0.1282, 0.1346], atol=5e-5)
+    np.testing.assert_allclose(
+        np.sqrt(curve.var_at(weeks)), [0.0764, 0.0869, 0.0963, 0.1068, 0.1141, 0.1282, 0.1346], atol=5e-5
+    )
 
 
 def test_censoring_curve_agrees_with_scikit_survival(shipped):

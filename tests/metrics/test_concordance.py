@@ -43,8 +43,12 @@ def test_uno_with_separate_training_data_agrees_with_scikit_survival(shipped):
     test = Surv.from_arrays(shipped.event[half], shipped.time[half])
     tau = float(shipped.horizons[-1])
     ours = concordance_uno(
-        shipped.time[half], shipped.event[half], shipped.risk[half], tau,
-        train_time=shipped.time, train_event=shipped.event,
+        shipped.time[half],
+        shipped.event[half],
+        shipped.risk[half],
+        tau,
+        train_time=shipped.time,
+        train_event=shipped.event,
     )
     assert ours.estimate == pytest.approx(concordance_index_ipcw(train, test, shipped.risk[half], tau)[0], abs=1e-6)
 
@@ -84,8 +88,10 @@ def _simulated(n, seed):
 def test_standard_error_matches_bootstrap(which):
     """Infinitesimal jackknife vs 200 bootstrap replicates; loose tolerance (±30%) for bootstrap noise."""
     t, e, x = _simulated(400, 11)
-    fn = (lambda a, b, c, **k: concordance_harrell(a, b, c, **k)) if which == "harrell" else (
-        lambda a, b, c, **k: concordance_uno(a, b, c, 1.5, **k)
+    fn = (
+        (lambda a, b, c, **k: concordance_harrell(a, b, c, **k))
+        if which == "harrell"
+        else (lambda a, b, c, **k: concordance_uno(a, b, c, 1.5, **k))
     )
     se = fn(t, e, x).se
     rng = np.random.default_rng(0)
@@ -209,11 +215,17 @@ def test_uno_with_competing_events_matches_the_pairwise_definition():
     assert ours.estimate == pytest.approx(_uno_competing_by_pairs(time, status, risk, tau, ones), abs=1e-12)
     # standard error: the infinitesimal jackknife, derivative of C in each case weight by finite differences
     eps = 1e-6
-    grad = [(_uno_competing_by_pairs(time, status, risk, tau, ones + eps * (np.arange(n) == k))
-             - _uno_competing_by_pairs(time, status, risk, tau, ones - eps * (np.arange(n) == k))) / (2 * eps)
-            for k in range(n)]
+    grad = [
+        (
+            _uno_competing_by_pairs(time, status, risk, tau, ones + eps * (np.arange(n) == k))
+            - _uno_competing_by_pairs(time, status, risk, tau, ones - eps * (np.arange(n) == k))
+        )
+        / (2 * eps)
+        for k in range(n)
+    ]
     assert ours.se == pytest.approx(float(np.sqrt(np.sum(np.square(grad)))), rel=1e-5)
     # without competing events it is Uno's C (checked against scikit-survival above)
     plain = np.where(status == 2, 0, status)
     assert concordance_uno(time, plain, risk, tau).estimate == pytest.approx(
-        _uno_competing_by_pairs(time, plain, risk, tau, ones), abs=1e-12)
+        _uno_competing_by_pairs(time, plain, risk, tau, ones), abs=1e-12
+    )

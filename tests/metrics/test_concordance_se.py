@@ -18,8 +18,9 @@ from lifelines import KaplanMeierFitter
 from riskbench.metrics import concordance_counting_process, concordance_harrell, concordance_uno
 
 
-def _ij_se(pairs: list[tuple[int, int, float, float]], n: int,
-           cluster: np.ndarray | None = None) -> tuple[float, float]:
+def _ij_se(
+    pairs: list[tuple[int, int, float, float]], n: int, cluster: np.ndarray | None = None
+) -> tuple[float, float]:
     """(C, SE) from pairs ``(i, j, weight, score)``: score 1 / ½ / 0 (concordant / tied risk / discordant)."""
     num = sum(w * c for _, _, w, c in pairs)
     den = sum(w for _, _, w, _ in pairs)
@@ -78,8 +79,12 @@ def test_uno_se_equals_the_pairwise_infinitesimal_jackknife_with_fixed_weights()
     time, status, risk = _data(80, 5, competing=False, rounded=False)
     tau = float(np.quantile(time, 0.8))
     g = KaplanMeierFitter().fit(time, (status == 0).astype(int)).survival_function_at_times(time).to_numpy()
-    pairs = [(i, j, 1.0 / g[i] ** 2, _score(risk[i], risk[j]))
-             for i in np.flatnonzero((status == 1) & (time < tau)) for j in range(len(time)) if time[j] > time[i]]
+    pairs = [
+        (i, j, 1.0 / g[i] ** 2, _score(risk[i], risk[j]))
+        for i in np.flatnonzero((status == 1) & (time < tau))
+        for j in range(len(time))
+        if time[j] > time[i]
+    ]
     estimate, se = _ij_se(pairs, len(time))
     ours = concordance_uno(time, status, risk, tau)
     assert ours.estimate == pytest.approx(estimate, abs=1e-12)

@@ -25,8 +25,13 @@ def _separate(t, status, risk, tau):
 
 
 @settings(max_examples=60, deadline=None)
-@given(seed=st.integers(0, 10_000), n=st.integers(3, 300), competing=st.booleans(), coarse=st.booleans(),
-       q=st.floats(0.2, 1.0))
+@given(
+    seed=st.integers(0, 10_000),
+    n=st.integers(3, 300),
+    competing=st.booleans(),
+    coarse=st.booleans(),
+    q=st.floats(0.2, 1.0),
+)
 def test_combined_pass_equals_the_separate_indices(seed, n, competing, coarse, q):
     rng = np.random.default_rng(seed)
     t = rng.integers(1, 25, n).astype(float) if coarse else rng.exponential(100, n).round(1)

@@ -73,8 +73,16 @@ def test_default_r2_is_fifteen_percent_of_max():
     assert default == explicit
 
 
-@pytest.mark.parametrize("kwargs", [dict(parameters=0), dict(parameters=2.5), dict(rate_per_year=-1.0),
-                                    dict(r2_cox_snell=0.9), dict(horizon_years=float("nan"))])
+@pytest.mark.parametrize(
+    "kwargs",
+    [
+        dict(parameters=0),
+        dict(parameters=2.5),
+        dict(rate_per_year=-1.0),
+        dict(r2_cox_snell=0.9),
+        dict(horizon_years=float("nan")),
+    ],
+)
 def test_bad_inputs_are_named(kwargs):
     args = dict(parameters=30, r2_cox_snell=0.051, rate_per_year=0.065, mean_follow_up_years=2.07, horizon_years=2.0)
     args.update(kwargs)

@@ -52,8 +52,10 @@ def test_waltons_medians_and_limits_equal_lifelines(waltons):
 @pytest.mark.parametrize("scale", ["log-log", "log"])
 def test_quantiles_and_limits_equal_statsmodels_on_both_scales(waltons, scale):
     rossi = load_rossi()
-    for time, event, group in ((waltons["T"], waltons["E"], waltons["group"]),
-                               (rossi["week"], rossi["arrest"], rossi["fin"])):
+    for time, event, group in (
+        (waltons["T"], waltons["E"], waltons["group"]),
+        (rossi["week"], rossi["arrest"], rossi["fin"]),
+    ):
         est = kaplan_meier_estimate(time, event, group=group, ci_scale=scale)
         table = est.quantiles([0.1, 0.2, 0.25, 0.5]).set_index(["group", "probability"])
         for g in est.groups:
@@ -62,8 +64,10 @@ def test_quantiles_and_limits_equal_statsmodels_on_both_scales(waltons, scale):
             for p in (0.1, 0.2, 0.25, 0.5):
                 lower, upper = peer.quantile_ci(p, method=SCALE_IN_STATSMODELS[scale])
                 ours = table.loc[(g, p)]
-                np.testing.assert_equal([ours["time"], ours["lower"], ours["upper"]],
-                                        [_finite(peer.quantile(p)), _finite(lower), _finite(upper)])
+                np.testing.assert_equal(
+                    [ours["time"], ours["lower"], ours["upper"]],
+                    [_finite(peer.quantile(p)), _finite(lower), _finite(upper)],
+                )
     # the log scale gives different limits somewhere (the test sees both scales at work)
     default = kaplan_meier_estimate(waltons["T"], waltons["E"], group=waltons["group"]).median()
     log = kaplan_meier_estimate(waltons["T"], waltons["E"], group=waltons["group"], ci_scale="log").median()

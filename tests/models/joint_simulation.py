@@ -38,8 +38,9 @@ class JointTruth:
     extra: dict = field(default_factory=dict)
 
 
-def simulate_joint(n: int, truth: JointTruth = JointTruth(), seed: int = 0, grid_points: int = 2001
-                   ) -> tuple[pd.DataFrame, pd.DataFrame]:
+def simulate_joint(
+    n: int, truth: JointTruth = JointTruth(), seed: int = 0, grid_points: int = 2001
+) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Measurement table (patient_id, time days, value) and survival table (patient_id, time, status, x, w)."""
     rng = np.random.default_rng(seed)
     x = rng.normal(size=n)
@@ -50,10 +51,12 @@ def simulate_joint(n: int, truth: JointTruth = JointTruth(), seed: int = 0, grid
     slope = beta1 + b[:, 1]
     t_max = truth.censor_years[1]
     grid = np.linspace(0.0, t_max, grid_points)
-    hazard = truth.rate_outcome * np.exp(truth.gamma_outcome * w[:, None]
-                                         + truth.alpha * (intercept[:, None] + slope[:, None] * grid))
-    cumulative = np.concatenate([np.zeros((n, 1)), np.cumsum(0.5 * (hazard[:, 1:] + hazard[:, :-1])
-                                                             * np.diff(grid), axis=1)], axis=1)
+    hazard = truth.rate_outcome * np.exp(
+        truth.gamma_outcome * w[:, None] + truth.alpha * (intercept[:, None] + slope[:, None] * grid)
+    )
+    cumulative = np.concatenate(
+        [np.zeros((n, 1)), np.cumsum(0.5 * (hazard[:, 1:] + hazard[:, :-1]) * np.diff(grid), axis=1)], axis=1
+    )
     target = rng.exponential(size=n)
     t1 = np.full(n, np.inf)
     for i in range(n):

@@ -21,8 +21,9 @@ def test_true_coefficients_inside_99_percent_intervals():
     from riskbench.cohort import build_cohort
     from riskbench.demo.cohort_spec import demo_cohort_spec
 
-    cohort = build_cohort(*(DEMO / f"{t}.parquet" for t in ("patients", "measurements", "outcomes")),
-                          demo_cohort_spec())
+    cohort = build_cohort(
+        *(DEMO / f"{t}.parquet" for t in ("patients", "measurements", "outcomes")), demo_cohort_spec()
+    )
     truth = json.loads((DEMO / "truth.json").read_text())["coefficients"]
     model = CoxModel(list(truth)).fit(cohort.counting_process)
     summary = model.summary(alpha=0.01)

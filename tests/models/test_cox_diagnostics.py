@@ -89,9 +89,16 @@ def _stack(seed: int = 4, n: int = 400) -> pd.DataFrame:
     x1, x2 = rng.normal(size=n), rng.binomial(1, 0.4, n).astype(float)
     t = rng.exponential(500 / np.exp(0.7 * x1 + 0.5 * x2))
     cens = rng.uniform(100, 730, n)
-    return pd.DataFrame({"patient_id": np.arange(n) % 250, "landmark": np.where(np.arange(n) < 250, 0.0, 182.625),
-                         "time": np.maximum(np.round(np.minimum(t, cens)), 1.0), "status": (t <= cens).astype(int),
-                         "x1": x1, "x2": np.where(rng.uniform(size=n) < 0.05, np.nan, x2)})
+    return pd.DataFrame(
+        {
+            "patient_id": np.arange(n) % 250,
+            "landmark": np.where(np.arange(n) < 250, 0.0, 182.625),
+            "time": np.maximum(np.round(np.minimum(t, cens)), 1.0),
+            "status": (t <= cens).astype(int),
+            "x1": x1,
+            "x2": np.where(rng.uniform(size=n) < 0.05, np.nan, x2),
+        }
+    )
 
 
 @pytest.mark.parametrize("baseline", ["stratified", "smooth"])
@@ -116,13 +123,15 @@ def test_nested_refits_give_lifelines_likelihood_ratio():
 
     stack = _stack(seed=9)
     params = {"landmark_effects": "linear", "baseline": "stratified"}
-    small, large = (cox_refit("landmark_cox", c, params, stack, complete_on=["x1", "x2"])
-                    for c in (["x1"], ["x1", "x2"]))
+    small, large = (
+        cox_refit("landmark_cox", c, params, stack, complete_on=["x1", "x2"]) for c in (["x1"], ["x1", "x2"])
+    )
     ours = nested_cox_lr_test(small.model, large.model)
     lls = []
     for refit in (small, large):
-        peer = CoxPHFitter().fit(refit.table, "time", "status", strata=["landmark"],
-                                 fit_options={"precision": 1e-11, "r_precision": 1e-14})
+        peer = CoxPHFitter().fit(
+            refit.table, "time", "status", strata=["landmark"], fit_options={"precision": 1e-11, "r_precision": 1e-14}
+        )
         lls.append(peer.log_likelihood_)
     assert ours.df == 2 and ours.statistic == pytest.approx(2 * (lls[1] - lls[0]), rel=1e-6)
 

@@ -128,7 +128,11 @@ def test_strata_match_lifelines():
     fit = fit_cox(df[cols], df["stop"], df["event"], df["start"], strata=df["g"])
     peer = CoxTimeVaryingFitter().fit(
         df[["id", "start", "stop", "event", "g", *cols]],
-        id_col="id", event_col="event", start_col="start", stop_col="stop", strata=["g"],
+        id_col="id",
+        event_col="event",
+        start_col="start",
+        stop_col="stop",
+        strata=["g"],
     )
     np.testing.assert_allclose(fit.coef, peer.params_.values, atol=1e-6)
     np.testing.assert_allclose(fit.se, peer.standard_errors_.values, atol=1e-6)
@@ -167,9 +171,7 @@ def test_cluster_robust_matches_lifelines(weighted):
     """lifelines' CoxPHFitter(cluster_col=...) sandwich variance on time-fixed data without ties
     (lifelines' score residuals ignore ties, so the comparison uses distinct times)."""
     df = _untied_time_fixed(6)
-    fit = fit_cox(
-        df[["a", "b", "c"]], df["T"], df["E"], cluster=df["cl"], weights=df["w"] if weighted else None
-    )
+    fit = fit_cox(df[["a", "b", "c"]], df["T"], df["E"], cluster=df["cl"], weights=df["w"] if weighted else None)
     cols = ["a", "b", "c", "T", "E", "cl"] + (["w"] if weighted else [])
     peer = CoxPHFitter().fit(
         df[cols], "T", "E", cluster_col="cl", weights_col="w" if weighted else None, fit_options=TIGHT
@@ -203,7 +205,7 @@ def test_efron_baseline_increments_follow_definition():
         at_risk = (df["start"] < t) & (df["stop"] >= t)
         died = at_risk & (df["stop"] == t) & (df["event"] == 1)
         s0, e0, m = risk[at_risk].sum(), risk[died].sum(), int(died.sum())
-        expected.append(sum(1.0 / (s0 - l / m * e0) for l in range(m)))
+        expected.append(sum(1.0 / (s0 - k / m * e0) for k in range(m)))
     np.testing.assert_allclose(fit.baseline["cumhaz"].to_numpy(), np.cumsum(expected), rtol=1e-9)
 
 
@@ -218,17 +220,26 @@ def test_score_information_and_residuals_consistent(ties):
     X = df[["x0", "x1", "x2"]].to_numpy()
     Xs = (X - X.mean(0)) / X.std(0, ddof=1)
     w = np.random.default_rng(0).uniform(0.5, 2.0, len(df))
-    L = _layout(df["start"].to_numpy(float), df["stop"].to_numpy(float), df["event"].to_numpy(float),
-                np.zeros(len(df), dtype=np.int64), ties)
+    L = _layout(
+        df["start"].to_numpy(float),
+        df["stop"].to_numpy(float),
+        df["event"].to_numpy(float),
+        np.zeros(len(df), dtype=np.int64),
+        ties,
+    )
     Xa, wa = Xs[L.active], w[L.active]
     b = np.array([0.3, -0.2, 0.1])
     s = _evaluate(b, Xa, wa, L)
     eps = 1e-6
     eye = np.eye(3)
-    grad = [(_evaluate(b + eps * eye[j], Xa, wa, L).loglik - _evaluate(b - eps * eye[j], Xa, wa, L).loglik) / (2 * eps)
-            for j in range(3)]
-    hess = [(_evaluate(b + eps * eye[j], Xa, wa, L).score - _evaluate(b - eps * eye[j], Xa, wa, L).score) / (2 * eps)
-            for j in range(3)]
+    grad = [
+        (_evaluate(b + eps * eye[j], Xa, wa, L).loglik - _evaluate(b - eps * eye[j], Xa, wa, L).loglik) / (2 * eps)
+        for j in range(3)
+    ]
+    hess = [
+        (_evaluate(b + eps * eye[j], Xa, wa, L).score - _evaluate(b - eps * eye[j], Xa, wa, L).score) / (2 * eps)
+        for j in range(3)
+    ]
     np.testing.assert_allclose(grad, s.score, atol=1e-5)
     np.testing.assert_allclose(-np.array(hess), s.info, atol=1e-5)
     np.testing.assert_allclose((_score_residuals(Xa, L, s) * wa[:, None]).sum(0), s.score, atol=1e-9)
@@ -324,8 +335,8 @@ def test_efron_score_residuals_equal_explicit_loop():
         dead = at_risk & (stop == t) & (ev == 1)
         m = int(dead.sum())
         means = []
-        for l in range(m):
-            c = np.where(dead, 1.0 - l / m, 1.0) * at_risk
+        for k in range(m):
+            c = np.where(dead, 1.0 - k / m, 1.0) * at_risk
             denom = (r * c).sum()
             xbar = (r * c) @ Xs / denom
             means.append(xbar)

@@ -94,7 +94,11 @@ def test_time_varying_fit_matches_lifelines_and_predicts_per_stratum():
     model = CoxModel(["x"], strata="site").fit(df)
     peer = CoxTimeVaryingFitter().fit(
         df[["patient_id", "start", "stop", "status", "x", "site"]],
-        id_col="patient_id", event_col="status", start_col="start", stop_col="stop", strata=["site"],
+        id_col="patient_id",
+        event_col="status",
+        start_col="start",
+        stop_col="stop",
+        strata=["site"],
     )
     np.testing.assert_allclose(model.coef_.to_numpy(), peer.params_.to_numpy(), atol=1e-6)
     probe = pd.DataFrame({"x": [0.0, 0.0], "site": ["north", "south"], "landmark": [100.0, 100.0]})

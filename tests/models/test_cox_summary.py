@@ -83,8 +83,9 @@ def test_named_columns_and_renamed_columns_give_identical_results(rossi, summary
 
 def _two_rows_per_patient(rossi: pd.DataFrame) -> pd.DataFrame:
     """Each Rossi subject split at week 20 into two (start, stop] rows: the same partial likelihood."""
-    first = rossi.assign(start=0.0, stop=np.minimum(rossi["week"], 20.0),
-                         status=np.where(rossi["week"] <= 20, rossi["arrest"], 0))
+    first = rossi.assign(
+        start=0.0, stop=np.minimum(rossi["week"], 20.0), status=np.where(rossi["week"] <= 20, rossi["arrest"], 0)
+    )
     second = rossi[rossi["week"] > 20].assign(start=20.0, stop=lambda d: d["week"], status=lambda d: d["arrest"])
     rows = pd.concat([first.assign(pid=rossi.index), second.assign(pid=second.index)], ignore_index=True)
     return rows.drop(columns=["week", "arrest"])
@@ -99,8 +100,9 @@ def test_counting_process_rows_with_named_start_and_id(rossi, summary):
     assert split.likelihood_ratio.statistic == pytest.approx(summary.likelihood_ratio.statistic, abs=1e-8)
     assert split.concordance == pytest.approx(summary.concordance, abs=1e-12)  # same risk sets, same pairs
     plain = CoxModel(ROSSI_COLS, cluster="pid").fit(_two_rows_per_patient(rossi))
-    np.testing.assert_allclose(model.predict_risk(rows, 20.0), plain.predict_risk(_two_rows_per_patient(rossi), 20.0),
-                               rtol=1e-10)  # predicted from the named start column, as from 'start'
+    np.testing.assert_allclose(
+        model.predict_risk(rows, 20.0), plain.predict_risk(_two_rows_per_patient(rossi), 20.0), rtol=1e-10
+    )  # predicted from the named start column, as from 'start'
 
 
 def test_robust_variance_only_when_asked(rossi):
@@ -144,8 +146,13 @@ def test_stratified_concordance_counts_pairs_within_strata():
 
 def test_html_display_escapes_names():
     rng = np.random.default_rng(2)
-    df = pd.DataFrame({"<script>alert(1)</script>": rng.normal(size=80), "stop": rng.exponential(size=80) + 0.1,
-                       "status": rng.integers(0, 2, 80)})
+    df = pd.DataFrame(
+        {
+            "<script>alert(1)</script>": rng.normal(size=80),
+            "stop": rng.exponential(size=80) + 0.1,
+            "status": rng.integers(0, 2, 80),
+        }
+    )
     model = CoxModel(["<script>alert(1)</script>"]).fit(df)
     page = model.fit_summary(df)._repr_html_()
     assert "<script>" not in page and "&lt;script&gt;alert(1)&lt;/script&gt;" in page
@@ -172,5 +179,6 @@ def test_global_tests_do_not_depend_on_units_or_row_order(rossi, summary, scale,
         assert getattr(again, name).statistic == pytest.approx(getattr(summary, name).statistic, rel=1e-7), name
     assert again.minus2_loglik == pytest.approx(summary.minus2_loglik, rel=1e-10)
     assert again.concordance == pytest.approx(summary.concordance, abs=1e-12)
-    assert again.coefficients.loc["age", "coef"] == pytest.approx(summary.coefficients.loc["age", "coef"] / scale,
-                                                                  rel=1e-6)
+    assert again.coefficients.loc["age", "coef"] == pytest.approx(
+        summary.coefficients.loc["age", "coef"] / scale, rel=1e-6
+    )

@@ -35,8 +35,9 @@ def test_warm_started_refit_reaches_the_same_estimate(ties, penalty):
     for _ in range(3):  # bootstrap resamples of the rows, as a replicate draws them
         rows = rng.integers(0, stop.size, stop.size)
         cold = fit_cox(x[rows], stop[rows], event[rows], strata=strata[rows], ties=ties, penalty=penalty)
-        warm = fit_cox(x[rows], stop[rows], event[rows], strata=strata[rows], ties=ties, penalty=penalty,
-                       initial=full.coef)
+        warm = fit_cox(
+            x[rows], stop[rows], event[rows], strata=strata[rows], ties=ties, penalty=penalty, initial=full.coef
+        )
         assert cold.converged and warm.converged
         np.testing.assert_allclose(warm.coef, cold.coef, rtol=0, atol=1e-8)
         np.testing.assert_allclose(warm.var, cold.var, rtol=1e-8, atol=0)

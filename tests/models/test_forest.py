@@ -109,17 +109,26 @@ def test_one_block_without_grid_is_scikit_survivals_forest(make_stack, max_sampl
     from sksurv.ensemble import RandomSurvivalForest
 
     stack = make_stack(n_patients=120, seed=21, competing_rate=1 / 900)
-    ours = SurvivalForest(["x1", "x2"], grid_days=None, n_estimators=20, min_samples_leaf=8, random_state=13,
-                          max_samples=max_samples).fit(stack)
+    ours = SurvivalForest(
+        ["x1", "x2"], grid_days=None, n_estimators=20, min_samples_leaf=8, random_state=13, max_samples=max_samples
+    ).fit(stack)
     seed = int(np.random.SeedSequence(13).spawn(1)[0].generate_state(1)[0])
     target = np.empty(len(stack), dtype=[("event", bool), ("time", float)])
     target["event"], target["time"] = stack["status"].to_numpy() == 1, stack["time"].to_numpy()
     x = stack[["x1", "x2"]].to_numpy()
-    reference = RandomSurvivalForest(n_estimators=20, min_samples_leaf=8, min_samples_split=16, max_features="sqrt",
-                                     max_samples=max_samples, random_state=seed, n_jobs=1).fit(x, target)
+    reference = RandomSurvivalForest(
+        n_estimators=20,
+        min_samples_leaf=8,
+        min_samples_split=16,
+        max_features="sqrt",
+        max_samples=max_samples,
+        random_state=seed,
+        n_jobs=1,
+    ).fit(x, target)
     fresh = make_stack(n_patients=60, seed=22)
     for horizon in (200.0, 365.25, 700.0):
-        expected = 1.0 - np.array([f(horizon) for f in reference.predict_survival_function(
-            fresh[["x1", "x2"]].to_numpy())])
+        expected = 1.0 - np.array(
+            [f(horizon) for f in reference.predict_survival_function(fresh[["x1", "x2"]].to_numpy())]
+        )
         np.testing.assert_array_equal(ours.predict_risk(fresh, horizon), expected)
     assert tree_blocks(20, 13) == [(20, seed)] and [n for n, _ in tree_blocks(60, 13)] == [25, 25, 10]

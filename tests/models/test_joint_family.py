@@ -73,8 +73,13 @@ def test_validation_fits_it_on_the_counting_process_table(demo_tables):
     from riskbench.validation.sources import ValidationTables
 
     counting, stack = demo_tables
-    spec = ModelSpec("joint", ("log_nodule_volume", "age_at_entry"), "shared_trajectory_joint",
-                     {"prediction_draws": 20}, "multiple_imputation")
+    spec = ModelSpec(
+        "joint",
+        ("log_nodule_volume", "age_at_entry"),
+        "shared_trajectory_joint",
+        {"prediction_draws": 20},
+        "multiple_imputation",
+    )
     model = fit_spec(spec, ValidationTables(stack, counting), seed=1)
     assert isinstance(model, SharedTrajectoryModel)
     assert "patient_id" in prediction_columns(spec, stack.columns)
@@ -115,8 +120,9 @@ def test_models_stage_outputs_for_a_joint_model(fitted, demo_tables, tmp_path):
     from riskbench.workflow.joint_outputs import joint_model_outputs
 
     counting, _ = demo_tables
-    config = SimpleNamespace(seed=5, report=SimpleNamespace(example_patients=3),
-                             landmarks=SimpleNamespace(horizon_days=730.5))
+    config = SimpleNamespace(
+        seed=5, report=SimpleNamespace(example_patients=3), landmarks=SimpleNamespace(horizon_days=730.5)
+    )
     tables, figures, notes = joint_model_outputs(config, "joint", fitted, counting, tmp_path, str)
     assert list(tables) == ["joint_estimates_joint"] and list(figures) == ["joint_patient_joint"] and not notes
     assert figures["joint_patient_joint"].png.exists()

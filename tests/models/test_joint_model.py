@@ -28,8 +28,9 @@ def small_data() -> tuple[pd.DataFrame, pd.DataFrame]:
 @pytest.fixture(scope="module")
 def no_association(small_data: tuple[pd.DataFrame, pd.DataFrame]) -> JointModel:
     measurements, survival = small_data
-    return JointModel("value", marker_covariates=["x"], event_covariates=["w"], association="none",
-                      competing=False).fit(measurements, survival)
+    return JointModel(
+        "value", marker_covariates=["x"], event_covariates=["w"], association="none", competing=False
+    ).fit(measurements, survival)
 
 
 def test_marker_submodel_equals_statsmodels_mixedlm_ml(small_data, no_association):
@@ -44,7 +45,8 @@ def test_marker_submodel_equals_statsmodels_mixedlm_ml(small_data, no_associatio
     data["t"] = data["time"] / DAYS
     data["xc"] = data["x"] - survival["x"].mean()  # the model centres covariates at their means
     reference = smf.mixedlm("value ~ t + xc", data, groups=data["patient_id"], re_formula="~t").fit(
-        reml=False, method="lbfgs")
+        reml=False, method="lbfgs"
+    )
     theta = no_association.theta_
     np.testing.assert_allclose(theta[:3], reference.fe_params.to_numpy(), atol=1e-4)
     assert abs(np.exp(2 * theta[3]) - reference.scale) < 1e-4
@@ -73,15 +75,15 @@ def test_survival_submodel_equals_piecewise_exponential_poisson_glm(small_data, 
     dummies = np.tile(np.eye(len(knots)), (len(end), 1))[keep]
     w = np.repeat(survival["w"].to_numpy(), len(knots))[keep]
     design = np.column_stack([dummies, w])
-    fit = sm.GLM(events.ravel()[keep], design, family=sm.families.Poisson(),
-                 offset=np.log(exposure.ravel()[keep])).fit(tol=1e-12)
+    fit = sm.GLM(events.ravel()[keep], design, family=sm.families.Poisson(), offset=np.log(exposure.ravel()[keep])).fit(
+        tol=1e-12
+    )
     layout = no_association.structure_.layout
     sl_h, sl_g, _ = layout.cause_slices(0)
     gamma = no_association.theta_[sl_g][0]
     assert abs(gamma - fit.params[-1]) < 1e-4
     # our baseline refers to the mean of w: log h_k = GLM piece coefficient + γ · mean(w)
-    np.testing.assert_allclose(no_association.theta_[sl_h], fit.params[:-1] + gamma * survival["w"].mean(),
-                               atol=1e-4)
+    np.testing.assert_allclose(no_association.theta_[sl_h], fit.params[:-1] + gamma * survival["w"].mean(), atol=1e-4)
 
 
 def test_recovers_association_in_one_large_replicate():
@@ -94,10 +96,13 @@ def test_recovers_association_in_one_large_replicate():
     model = JointModel("value", marker_covariates=["x"], event_covariates=["w"]).fit(measurements, survival)
     table = model.summary().set_index("parameter")
     checks = {
-        "marker: time_years": truth.beta[1], "marker: x": truth.beta[2], "marker: residual SD": truth.sigma,
+        "marker: time_years": truth.beta[1],
+        "marker: x": truth.beta[2],
+        "marker: residual SD": truth.sigma,
         "marker: random-intercept SD": np.sqrt(truth.d[0][0]),
         "marker: random-slope SD per year": np.sqrt(truth.d[1][1]),
-        "outcome: w": truth.gamma_outcome, "outcome: association, current marker value": truth.alpha,
+        "outcome: w": truth.gamma_outcome,
+        "outcome: association, current marker value": truth.alpha,
         "competing: w": truth.gamma_competing,
     }
     for name, value in checks.items():
@@ -122,18 +127,32 @@ def test_gradient_is_exact():
     patient = np.repeat(np.arange(n), counts)
     times = rng.uniform(0, 1, len(patient)) * end[patient]
     basis = TimeBasis((0.0, 1.0, 2.0, 4.0))
-    arrays = build_arrays(History(patient, times, rng.normal(size=len(patient)) + times), end, status,
-                          rng.normal(size=(n, 1)), [rng.normal(size=(n, 2)), rng.normal(size=(n, 1))],
-                          [("value", "slope"), ("value",)], basis, np.array([0.0, 1.0, 2.5]), 5)
+    arrays = build_arrays(
+        History(patient, times, rng.normal(size=len(patient)) + times),
+        end,
+        status,
+        rng.normal(size=(n, 1)),
+        [rng.normal(size=(n, 2)), rng.normal(size=(n, 1))],
+        [("value", "slope"), ("value",)],
+        basis,
+        np.array([0.0, 1.0, 2.5]),
+        5,
+    )
     layout = ParameterLayout(2 + basis.n_columns, 3, ((2, 2), (1, 1)))
     theta = rng.normal(size=layout.size) * 0.3
-    points, log_weight = adaptive_nodes(rng.normal(size=(n, 2)) * 0.3, np.tile(np.eye(2) * 0.2, (n, 1, 1)),
-                                        *hermite_grid(4, 2))
+    points, log_weight = adaptive_nodes(
+        rng.normal(size=(n, 2)) * 0.3, np.tile(np.eye(2) * 0.2, (n, 1, 1)), *hermite_grid(4, 2)
+    )
     _, grad, _ = joint_loglik(theta, arrays, layout, points, log_weight)
     step = 1e-6
-    numeric = [(joint_loglik(theta + e, arrays, layout, points, log_weight)[0]
-                - joint_loglik(theta - e, arrays, layout, points, log_weight)[0]) / (2 * step)
-               for e in np.eye(layout.size) * step]
+    numeric = [
+        (
+            joint_loglik(theta + e, arrays, layout, points, log_weight)[0]
+            - joint_loglik(theta - e, arrays, layout, points, log_weight)[0]
+        )
+        / (2 * step)
+        for e in np.eye(layout.size) * step
+    ]
     np.testing.assert_allclose(grad, numeric, atol=1e-5 * max(1.0, np.abs(grad).max()))
 
 

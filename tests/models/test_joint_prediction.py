@@ -28,7 +28,8 @@ def data() -> tuple[pd.DataFrame, pd.DataFrame]:
 def model(data) -> JointModel:
     measurements, survival = data
     return JointModel("value", marker_covariates=["x"], event_covariates=["w"], prediction_draws=100).fit(
-        measurements, survival)
+        measurements, survival
+    )
 
 
 def _rows(survival: pd.DataFrame, landmark_years: float) -> pd.DataFrame:
@@ -81,8 +82,9 @@ def test_without_association_equals_closed_form_piecewise_exponential(data):
     1 - exp(-(H(s + w) - H(s))) of the piecewise-constant hazard (Friedman 1982, Ann Stat 10:101-113):
     closed form from the fitted parameters, against the Monte Carlo product-integral, to 1e-3."""
     measurements, survival = data
-    model = JointModel("value", event_covariates=["w"], association="none", competing=False,
-                       prediction_draws=10).fit(measurements, survival)
+    model = JointModel("value", event_covariates=["w"], association="none", competing=False, prediction_draws=10).fit(
+        measurements, survival
+    )
     rows = _rows(survival, 0.5).head(40)
     horizon_years = 2.0
     sl_h, sl_g, _ = model.structure_.layout.cause_slices(0)

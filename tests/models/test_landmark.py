@@ -28,9 +28,7 @@ def test_stratified_constant_effects_equal_stratified_cox_with_robust_se(make_st
     )
     np.testing.assert_allclose(ours.coef_, plain.params_[["x1", "x2"]], atol=1e-5)
     np.testing.assert_allclose(np.sqrt(np.diag(ours.var_)), plain.standard_errors_[["x1", "x2"]], atol=1e-5)
-    np.testing.assert_allclose(
-        np.sqrt(np.diag(ours.robust_var_)), robust.standard_errors_[["x1", "x2"]], atol=1e-5
-    )
+    np.testing.assert_allclose(np.sqrt(np.diag(ours.robust_var_)), robust.standard_errors_[["x1", "x2"]], atol=1e-5)
     summary = ours.summary()
     assert list(summary["term"]) == ["x1", "x2"] and (summary["cause"] == "outcome").all()
 

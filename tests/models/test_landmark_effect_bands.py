@@ -36,7 +36,7 @@ def test_band_equals_delta_method_by_hand(make_stack, form) -> None:
             coef = b[i0] + r * b[i1] + (r * r * b[i2] if i2 is not None else 0.0)
             var = V[i0, i0] + r * r * V[i1, i1] + 2 * r * V[i0, i1]
             if i2 is not None:
-                var += r ** 4 * V[i2, i2] + 2 * r * r * V[i0, i2] + 2 * r ** 3 * V[i1, i2]
+                var += r**4 * V[i2, i2] + 2 * r * r * V[i0, i2] + 2 * r**3 * V[i1, i2]
             assert rows.loc[k, "coef"] == pytest.approx(coef, abs=1e-12)
             assert rows.loc[k, "se"] == pytest.approx(np.sqrt(var), rel=1e-10)
             assert rows.loc[k, "lower"] == pytest.approx(coef - 1.959963984540054 * np.sqrt(var), rel=1e-9)
@@ -55,5 +55,6 @@ def test_constant_effect_band_is_flat_and_errors_are_clear(make_stack) -> None:
     with pytest.raises(ModelInputError, match="level"):
         model.landmark_effect_bands([0.0], level=1.5)
     with pytest.raises(ModelInputError, match="no fitted model for cause 'competing'"):
-        LandmarkSupermodel(["x1"], competing=False).fit(make_stack(n_patients=150, seed=5)) \
-            .landmark_effect_bands([0.0], cause="competing")
+        LandmarkSupermodel(["x1"], competing=False).fit(make_stack(n_patients=150, seed=5)).landmark_effect_bands(
+            [0.0], cause="competing"
+        )

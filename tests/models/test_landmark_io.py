@@ -11,8 +11,10 @@ import pytest
 from riskbench.models import LandmarkSupermodel, ModelInputError
 
 
-@pytest.mark.parametrize(("effects", "baseline", "competing_rate"),
-                         [("quadratic", "smooth", 1 / 600), ("none", "stratified", 1 / 600), ("linear", "smooth", 0)])
+@pytest.mark.parametrize(
+    ("effects", "baseline", "competing_rate"),
+    [("quadratic", "smooth", 1 / 600), ("none", "stratified", 1 / 600), ("linear", "smooth", 0)],
+)
 def test_round_trip_reproduces_predictions(tmp_path, make_stack, effects, baseline, competing_rate) -> None:
     stack = make_stack(n_patients=150, competing_rate=competing_rate, seed=4)
     model = LandmarkSupermodel(["x1", "x2"], landmark_effects=effects, baseline=baseline).fit(stack)

@@ -67,7 +67,8 @@ def test_nelson_aalen_equals_lifelines_with_and_without_delayed_entry(make_stack
     np.testing.assert_array_equal(matrix[:, 0], (final == 1).astype(float))
     patients = rows.groupby("patient_id").agg(entry=("start", "min"), exit=("stop", "max"), status=("status", "last"))
     fitter = NelsonAalenFitter(nelson_aalen_smoothing=False).fit(
-        patients["exit"], patients["status"] == 1, entry=patients["entry"])
+        patients["exit"], patients["status"] == 1, entry=patients["entry"]
+    )
     curve = fitter.cumulative_hazard_.iloc[:, 0]
     at = lambda t: curve.to_numpy()[np.searchsorted(curve.index.to_numpy(), t, side="right") - 1]  # noqa: E731
     exits = rows["patient_id"].map(patients["exit"]).to_numpy()
@@ -129,7 +130,9 @@ def test_prediction_imputer_keeps_observed_values_and_draws_around_the_condition
 # ----------------------------------------------------------------------------------- plans and messages
 def test_plan_checks_name_the_key() -> None:
     assert MissingDataPlan().method == "multiple_imputation"
-    with pytest.raises(ModelInputError, match=r"\[missing_data\] method = 'complete_case'.*did you mean 'complete_cases'"):
+    with pytest.raises(
+        ModelInputError, match=r"\[missing_data\] method = 'complete_case'.*did you mean 'complete_cases'"
+    ):
         MissingDataPlan("complete_case")
     with pytest.raises(ModelInputError, match=r"\[missing_data\] imputations = 1"):
         MissingDataPlan(imputations=1)
@@ -146,8 +149,14 @@ def test_a_bare_model_names_variable_landmarks_patients_and_the_key(make_stack) 
     message = str(info.value)
     n_rows = int(stack["x2"].isna().sum())
     n_patients = stack.loc[stack["x2"].isna(), "patient_id"].nunique()
-    for words in ("'x2'", f"{n_rows} row(s) of {n_patients} patient(s)", "landmarks 0, 0.5, 1 years",
-                  "[missing_data] method", "[[models]] missing_data", "complete_cases"):
+    for words in (
+        "'x2'",
+        f"{n_rows} row(s) of {n_patients} patient(s)",
+        "landmarks 0, 0.5, 1 years",
+        "[missing_data] method",
+        "[[models]] missing_data",
+        "complete_cases",
+    ):
         assert words in message, (words, message)
     stack.loc[0, "x1"] = np.inf
     with pytest.raises(ModelInputError, match=r"non-numeric or infinite .*\[cohort.variables.x1\] range"):
@@ -198,8 +207,9 @@ def test_multiple_imputation_on_complete_data_fits_once_and_equals_the_bare_mode
     model = MissingDataModel(LandmarkSupermodel(["x1", "x2"], **CONSTANT), imputations=5).fit(stack)
     reference = LandmarkSupermodel(["x1", "x2"], **CONSTANT).fit(stack)
     assert model.fitted_once_ and len(model.models_) == 1 and "fitted once" in model.note_
-    np.testing.assert_array_equal(model.predict_curve(stack, [200.0, 400.0]),
-                                  reference.predict_curve(stack, [200.0, 400.0]))
+    np.testing.assert_array_equal(
+        model.predict_curve(stack, [200.0, 400.0]), reference.predict_curve(stack, [200.0, 400.0])
+    )
     summary = model.summary()
     assert (summary["fraction_missing_info"] == 0).all()
     pd.testing.assert_frame_equal(summary.drop(columns="fraction_missing_info"), reference.summary())
@@ -210,8 +220,9 @@ def test_multiple_imputation_on_complete_data_fits_once_and_equals_the_bare_mode
 
 def test_multiple_imputation_pools_by_rubins_rules_and_predicts_row_by_row(make_stack) -> None:
     stack = _with_missing(make_stack(n_patients=300, seed=7), 0.3)
-    model = MissingDataModel(LandmarkSupermodel(["x1", "x2"], **CONSTANT), imputations=4,
-                             max_iterations=3, random_state=11).fit(stack)
+    model = MissingDataModel(
+        LandmarkSupermodel(["x1", "x2"], **CONSTANT), imputations=4, max_iterations=3, random_state=11
+    ).fit(stack)
     assert not model.fitted_once_ and len(model.models_) == 4
     summary = model.summary()
     inner = model.models_[0].summary()
@@ -231,11 +242,13 @@ def test_multiple_imputation_pools_by_rubins_rules_and_predicts_row_by_row(make_
     np.testing.assert_allclose(model.predict_risk(stack.iloc[::-1], 365.0)[::-1], risk, rtol=1e-12)
     np.testing.assert_allclose(model.predict_risk(stack.iloc[:7], 365.0), risk[:7], rtol=1e-12)
     # the same seed gives the same model; another seed other imputations
-    again = MissingDataModel(LandmarkSupermodel(["x1", "x2"], **CONSTANT), imputations=4,
-                             max_iterations=3, random_state=11).fit(stack)
+    again = MissingDataModel(
+        LandmarkSupermodel(["x1", "x2"], **CONSTANT), imputations=4, max_iterations=3, random_state=11
+    ).fit(stack)
     np.testing.assert_array_equal(again.predict_risk(stack, 365.0), risk)
-    other = MissingDataModel(LandmarkSupermodel(["x1", "x2"], **CONSTANT), imputations=4,
-                             max_iterations=3, random_state=12).fit(stack)
+    other = MissingDataModel(
+        LandmarkSupermodel(["x1", "x2"], **CONSTANT), imputations=4, max_iterations=3, random_state=12
+    ).fit(stack)
     assert not np.allclose(other.summary()["coef"], summary["coef"])
 
 
@@ -249,8 +262,7 @@ def test_time_varying_cox_on_counting_process_rows_and_the_forest(make_stack) ->
     stack = _with_missing(make_stack(n_patients=100, seed=8), 0.3)
     assert np.isfinite(cox.predict_risk(stack, 365.0)).all()
 
-    forest = MissingDataModel(SurvivalForest(["x1", "x2"], n_estimators=10), imputations=2,
-                              max_iterations=2).fit(stack)
+    forest = MissingDataModel(SurvivalForest(["x1", "x2"], n_estimators=10), imputations=2, max_iterations=2).fit(stack)
     assert not hasattr(forest, "summary")
     risk = forest.predict_curve(stack, [200.0, 400.0])
     assert np.isfinite(risk).all() and (risk[:, 1] >= risk[:, 0]).all()
@@ -263,9 +275,14 @@ _IMPUTER = PredictionImputer(seed=3, max_iterations=3).fit(_TRAIN, _RNG.choice([
 
 
 @settings(max_examples=40, deadline=None)
-@given(st.lists(st.tuples(st.floats(-3, 3), st.one_of(st.none(), st.floats(-3, 3)), st.sampled_from([0.0, 182.625])),
-                min_size=1, max_size=30),
-       st.randoms(use_true_random=False))
+@given(
+    st.lists(
+        st.tuples(st.floats(-3, 3), st.one_of(st.none(), st.floats(-3, 3)), st.sampled_from([0.0, 182.625])),
+        min_size=1,
+        max_size=30,
+    ),
+    st.randoms(use_true_random=False),
+)
 def test_prediction_imputation_is_row_wise(rows, shuffle) -> None:
     """Invariant of the prediction contract: a row's imputed values depend only on that row (not on the other
     rows, their order or how often it is imputed), observed values are kept, and draws stay in range."""

@@ -43,14 +43,22 @@ def test_fitted_models_say_what_they_predict():
     rng = np.random.default_rng(0)
     n = 400
     x = rng.normal(size=n)
-    stack = pd.DataFrame({"patient_id": np.arange(n), "landmark": 0.0, "time": rng.uniform(1, 700, n),
-                          "status": rng.choice([0, 1, 2], n, p=[0.6, 0.25, 0.15]), "x": x})
+    stack = pd.DataFrame(
+        {
+            "patient_id": np.arange(n),
+            "landmark": 0.0,
+            "time": rng.uniform(1, 700, n),
+            "status": rng.choice([0, 1, 2], n, p=[0.6, 0.25, 0.15]),
+            "x": x,
+        }
+    )
     with_competing = LandmarkSupermodel(covariates=["x"], landmark_effects="none").fit(stack)
     assert fitted_target(with_competing) == CUMULATIVE_INCIDENCE
     without = LandmarkSupermodel(covariates=["x"], landmark_effects="none", competing=False).fit(stack)
     assert fitted_target(without) == CAUSE_SPECIFIC
     forest = SurvivalForest(covariates=["x"], n_estimators=5, random_state=0).fit(stack)
     assert fitted_target(forest) == CAUSE_SPECIFIC
-    wrapped = MissingDataModel(LandmarkSupermodel(covariates=["x"], landmark_effects="none"),
-                               method="complete_cases").fit(stack)
+    wrapped = MissingDataModel(
+        LandmarkSupermodel(covariates=["x"], landmark_effects="none"), method="complete_cases"
+    ).fit(stack)
     assert fitted_target(wrapped) == CUMULATIVE_INCIDENCE

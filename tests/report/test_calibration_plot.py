@@ -31,8 +31,7 @@ def cohort():
 
 
 def _texts(fig):
-    return " ".join(t.get_text() for t in fig.texts) + " " + " ".join(
-        t.get_text() for ax in fig.axes for t in ax.texts)
+    return " ".join(t.get_text() for t in fig.texts) + " " + " ".join(t.get_text() for ax in fig.axes for t in ax.texts)
 
 
 def test_figure_draws_the_computed_curve_groups_and_histogram(cohort):

@@ -25,8 +25,18 @@ def _stack(n: int = 300, seed: int = 0) -> pd.DataFrame:
     frames = []
     for s in (0.0, 365.25):
         t = rng.exponential(900 / np.exp(0.04 * (age - 60) + 0.5 * smoker))
-        frames.append(pd.DataFrame({"patient_id": np.arange(n), "landmark": s, "time": np.minimum(t, 730.5),
-                                    "status": (t <= 730.5).astype(int), "age": age + s / 365.25, "smoker": smoker}))
+        frames.append(
+            pd.DataFrame(
+                {
+                    "patient_id": np.arange(n),
+                    "landmark": s,
+                    "time": np.minimum(t, 730.5),
+                    "status": (t <= 730.5).astype(int),
+                    "age": age + s / 365.25,
+                    "smoker": smoker,
+                }
+            )
+        )
     return pd.concat(frames, ignore_index=True)
 
 
@@ -42,8 +52,12 @@ def test_per_iqr_hazard_ratio_is_exp_beta_times_iqr():
     table = scaled_hazard_ratios(summary, steps, labels.get).set_index("term")
     beta, se = summary.set_index("term").loc["age", ["coef", "se_robust"]]
     assert table.loc["age", "hazard_ratio"] == pytest.approx(np.exp(beta * (q3 - q1)), rel=1e-10)
-    assert table.loc["age", "hr_lower_95"] == pytest.approx(np.exp((beta - 1.959963984540054 * se) * (q3 - q1)), rel=1e-9)
-    assert table.loc["age", "hr_upper_95"] == pytest.approx(np.exp((beta + 1.959963984540054 * se) * (q3 - q1)), rel=1e-9)
+    assert table.loc["age", "hr_lower_95"] == pytest.approx(
+        np.exp((beta - 1.959963984540054 * se) * (q3 - q1)), rel=1e-9
+    )
+    assert table.loc["age", "hr_upper_95"] == pytest.approx(
+        np.exp((beta + 1.959963984540054 * se) * (q3 - q1)), rel=1e-9
+    )
     assert table.loc["age", "per"] == f"{q3 - q1:.3g} years (interquartile range)"
     assert table.loc["smoker", "per"] == "1 (present vs absent)"
     assert table.loc["smoker", "hazard_ratio"] == pytest.approx(np.exp(summary.set_index("term").loc["smoker", "coef"]))
@@ -82,9 +96,16 @@ def test_fallbacks_and_errors():
 @given(st.floats(-3, 3), st.floats(0.01, 2), st.floats(0.01, 50))
 def test_scaling_is_a_power_of_the_per_unit_ratio(beta, se, step):
     """exp(β·u) = HR₁ᵘ and the interval endpoints scale the same way, whatever β, SE and u > 0."""
-    summary = pd.DataFrame({"term": ["x"], "hazard_ratio": [np.exp(beta)], "hr_lower_95": [np.exp(beta - 1.96 * se)],
-                            "hr_upper_95": [np.exp(beta + 1.96 * se)]})
+    summary = pd.DataFrame(
+        {
+            "term": ["x"],
+            "hazard_ratio": [np.exp(beta)],
+            "hr_lower_95": [np.exp(beta - 1.96 * se)],
+            "hr_upper_95": [np.exp(beta + 1.96 * se)],
+        }
+    )
     from riskbench.report.effects import EffectStep
+
     row = scaled_hazard_ratios(summary, {"x": EffectStep(step, "configured")}).iloc[0]
     assert row["hazard_ratio"] == pytest.approx(np.exp(beta * step), rel=1e-9)
     assert row["hr_lower_95"] <= row["hazard_ratio"] <= row["hr_upper_95"]

@@ -71,8 +71,12 @@ def test_missing_columns_are_named() -> None:
         suppress_flow(pd.DataFrame({"step": ["a"], "n_patients": [1], "level": [0]}), 10)
 
 
-@given(st.integers(0, 400), st.lists(st.integers(0, 60), max_size=6),
-       st.lists(st.floats(0, 1), max_size=3), st.integers(2, 12))
+@given(
+    st.integers(0, 400),
+    st.lists(st.integers(0, 60), max_size=6),
+    st.lists(st.floats(0, 1), max_size=3),
+    st.integers(2, 12),
+)
 def test_no_hidden_count_follows_from_the_shown_ones(start, removed, cuts, threshold) -> None:
     removed = [n for n in removed if n > 0]
     assume(sum(removed) <= start)

@@ -41,9 +41,11 @@ def test_report_has_every_section_caution_and_embedded_figures(tmp_path):
     assert "<script" not in page
 
 
-def test_missing_section_says_so(tmp_path):
+def test_missing_section_says_so_and_a_missing_optional_one_is_left_out(tmp_path):
     page = build_report(tmp_path, title="t", threshold=11).read_text()
-    assert page.count("Not produced in this run") == len(SECTIONS)
+    required = [s for s in SECTIONS if not s.optional]
+    assert page.count("Not produced in this run") == len(required) < len(SECTIONS)
+    assert all(f'id="{s.anchor}"' not in page and f'href="#{s.anchor}"' not in page for s in SECTIONS if s.optional)
     assert "&lt;11" in page
 
 
@@ -60,8 +62,14 @@ def test_every_figure_loads_in_headless_chromium(tmp_path, chromium):
 def test_a_table_in_a_notebook_looks_as_in_the_report(tmp_path: Path):
     """``table_html`` (the notebook display) passes a table through the same CSV text and formatting as the
     report page: the same cells, escaped, formula-looking text shown as written."""
-    table = pd.DataFrame({"model": ["<b>m</b>", "=cmd()"], "horizon_years": [2.0, 2.0],
-                          "harrell_c": [0.725288, 0.7], "n_patients": ["<10", "120"]})
+    table = pd.DataFrame(
+        {
+            "model": ["<b>m</b>", "=cmd()"],
+            "horizon_years": [2.0, 2.0],
+            "harrell_c": [0.725288, 0.7],
+            "n_patients": ["<10", "120"],
+        }
+    )
     save_table(table, tmp_path, "discrimination")
     page = build_report(tmp_path, title="t", threshold=10).read_text()
     shown = table_html(table)

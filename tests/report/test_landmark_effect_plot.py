@@ -11,14 +11,30 @@ from riskbench.report.landmark_effect_plot import landmark_effect_figure
 
 def _bands(shift: float = 0.0) -> pd.DataFrame:
     grid = np.linspace(0.0, 730.5, 11)
-    return pd.concat([pd.DataFrame({"covariate": c, "landmark_days": grid, "coef": m + shift + 0.2 * grid / 730.5,
-                                    "lower": m + shift - 0.3, "upper": m + shift + 0.5})
-                      for c, m in (("age", 0.03), ("score", 1.2))], ignore_index=True)
+    return pd.concat(
+        [
+            pd.DataFrame(
+                {
+                    "covariate": c,
+                    "landmark_days": grid,
+                    "coef": m + shift + 0.2 * grid / 730.5,
+                    "lower": m + shift - 0.3,
+                    "upper": m + shift + 0.5,
+                }
+            )
+            for c, m in (("age", 0.03), ("score", 1.2))
+        ],
+        ignore_index=True,
+    )
 
 
 def test_curve_is_the_hazard_ratio_per_step_and_ticks_are_plain_numbers():
-    fig = landmark_effect_figure({"full": _bands()}, {"age": 10.0, "score": 0.5}, labels={"age": "Age $ (years)"},
-                                 per={"age": "10 years (set in the configuration)"})
+    fig = landmark_effect_figure(
+        {"full": _bands()},
+        {"age": 10.0, "score": 0.5},
+        labels={"age": "Age $ (years)"},
+        per={"age": "10 years (set in the configuration)"},
+    )
     axes = [ax for ax in fig.axes if ax.get_visible()]
     assert len(axes) == 2
     line = axes[0].get_lines()[0]

@@ -72,8 +72,9 @@ def small_cohorts(draw):
     marker = rng.normal(5, 1, n)
     marker[rng.random(n) < draw(st.sampled_from([0.0, 0.1, 0.5]))] = np.nan
     threshold = draw(st.sampled_from([3, 5, 10]))
-    patients = pd.DataFrame({"patient_id": [f"R{i:05d}" for i in range(n)],
-                             "end_days": rng.uniform(1, 1500, n), "end_status": status})
+    patients = pd.DataFrame(
+        {"patient_id": [f"R{i:05d}" for i in range(n)], "end_days": rng.uniform(1, 1500, n), "end_status": status}
+    )
     covs = pd.DataFrame({"patient_id": patients["patient_id"], "sex_male": male, "marker": marker})
     return patients, covs, threshold
 
@@ -142,8 +143,14 @@ def landmark_stacks(draw):
     for s in (0.0, 182.625, 365.25, 547.875, 730.5):
         for i in np.flatnonzero(end > s):
             within = end[i] - s <= horizon
-            rows.append({"patient_id": f"R{i}", "landmark": s, "time": min(end[i] - s, horizon),
-                         "status": int(status[i]) if within else 0})
+            rows.append(
+                {
+                    "patient_id": f"R{i}",
+                    "landmark": s,
+                    "time": min(end[i] - s, horizon),
+                    "status": int(status[i]) if within else 0,
+                }
+            )
     return pd.DataFrame(rows, columns=["patient_id", "landmark", "time", "status"]), draw(st.sampled_from([5, 10]))
 
 

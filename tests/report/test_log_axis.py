@@ -11,8 +11,10 @@ from riskbench.report.hazard_ratio_plot import hazard_ratio_figure
 
 
 def _table(low: float, high: float) -> pd.DataFrame:
-    return pd.DataFrame({"hazard_ratio": [(low * high) ** 0.5, 1.1], "hr_lower_95": [low, 1.0],
-                         "hr_upper_95": [high, 1.2]}, index=["a", "b"])
+    return pd.DataFrame(
+        {"hazard_ratio": [(low * high) ** 0.5, 1.1], "hr_lower_95": [low, 1.0], "hr_upper_95": [high, 1.2]},
+        index=["a", "b"],
+    )
 
 
 def _labels(fig) -> list[str]:
@@ -28,8 +30,9 @@ def test_log_ticks_are_plain_numbers_that_do_not_overlap(low, high):
     labels = _labels(fig)
     assert len(labels) >= 2 and all("$" not in t and "10^" not in t for t in labels)
     ax = fig.axes[0]
-    boxes = sorted((t.get_window_extent() for t in ax.get_xticklabels() if t.get_text() and t.get_visible()),
-                   key=lambda b: b.x0)
+    boxes = sorted(
+        (t.get_window_extent() for t in ax.get_xticklabels() if t.get_text() and t.get_visible()), key=lambda b: b.x0
+    )
     shown = [b for b in boxes if ax.bbox.x0 - 1 <= (b.x0 + b.x1) / 2 <= ax.bbox.x1 + 1]
     assert all(a.x1 <= b.x0 for a, b in itertools.pairwise(shown))  # no two labels overlap
     assert not any(t.get_text() for t in ax.xaxis.get_minorticklabels())

@@ -18,7 +18,8 @@ import pytest
 from riskbench.report.methods_text import CAUSE_SPECIFIC, CUMULATIVE_INCIDENCE
 
 _SPEC = importlib.util.spec_from_file_location(
-    "analysis_builder", Path(__file__).parents[1] / "workflow" / "analysis_builder.py")
+    "analysis_builder", Path(__file__).parents[1] / "workflow" / "analysis_builder.py"
+)
 B = importlib.util.module_from_spec(_SPEC)
 _SPEC.loader.exec_module(B)
 
@@ -55,8 +56,15 @@ def three_family_run(tmp_path_factory) -> Path:
 
 def test_nested_landmark_models_get_every_item(nested_run):
     tables = nested_run / "tables"
-    for name in ("sample_size.csv", "follow_up.csv", "proportional_hazards.csv", "likelihood_ratio_test.csv",
-                 "reporting_items.csv", "methods.txt", "limitations.txt"):
+    for name in (
+        "sample_size.csv",
+        "follow_up.csv",
+        "proportional_hazards.csv",
+        "likelihood_ratio_test.csv",
+        "reporting_items.csv",
+        "methods.txt",
+        "limitations.txt",
+    ):
         assert (tables / name).exists(), name
     lr = pd.read_csv(tables / "likelihood_ratio_test.csv").iloc[0]
     coefficients = {m: len(pd.read_csv(tables / f"coefficients_{m}.csv")) for m in ("clinical", "imaging_clinical")}

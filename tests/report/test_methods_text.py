@@ -30,21 +30,51 @@ from riskbench.validation.reclassification import nri_kind
 
 def _facts(**change) -> StudyFacts:
     models = (
-        ModelFacts("clinical", "landmark_cox", ("Age at entry (years)",), 2, "complete_cases", 10,
-                   prediction_kind("landmark_cox", {}, True)),
-        ModelFacts("imaging", "time_varying_cox", ("Age at entry (years)", "log nodule volume (log mm3)"), 2,
-                   "multiple_imputation", 7, prediction_kind("time_varying_cox", {}, True)),
-        ModelFacts("trees", "forest", ("suspicion score",), 0, "missing_indicator", 10,
-                   prediction_kind("forest", {}, True)),
+        ModelFacts(
+            "clinical",
+            "landmark_cox",
+            ("Age at entry (years)",),
+            2,
+            "complete_cases",
+            10,
+            prediction_kind("landmark_cox", {}, True),
+        ),
+        ModelFacts(
+            "imaging",
+            "time_varying_cox",
+            ("Age at entry (years)", "log nodule volume (log mm3)"),
+            2,
+            "multiple_imputation",
+            7,
+            prediction_kind("time_varying_cox", {}, True),
+        ),
+        ModelFacts(
+            "trees", "forest", ("suspicion score",), 0, "missing_indicator", 10, prediction_kind("forest", {}, True)
+        ),
     )
     facts = StudyFacts(
-        n_patients=800, n_outcomes=90, n_competing=4, n_censored=706,
+        n_patients=800,
+        n_outcomes=90,
+        n_competing=4,
+        n_censored=706,
         follow_up_days=(3 * DAYS_PER_YEAR, 2 * DAYS_PER_YEAR, 4 * DAYS_PER_YEAR),
-        time_varying=("log nodule volume (log mm3)",), static=("Age at entry (years)",), max_carry_days=365.25,
-        lookback_days=180.0, landmarks_days=(0.0, DAYS_PER_YEAR / 2), horizon_days=2 * DAYS_PER_YEAR,
-        report_horizons_days=(DAYS_PER_YEAR, 2 * DAYS_PER_YEAR), n_landmark_rows=1500, models=models, folds=5,
-        bootstrap_resamples=20, optimism=True, reference="clinical", candidate="imaging", threshold=10,
-        nri=nri_kind(None))
+        time_varying=("log nodule volume (log mm3)",),
+        static=("Age at entry (years)",),
+        max_carry_days=365.25,
+        lookback_days=180.0,
+        landmarks_days=(0.0, DAYS_PER_YEAR / 2),
+        horizon_days=2 * DAYS_PER_YEAR,
+        report_horizons_days=(DAYS_PER_YEAR, 2 * DAYS_PER_YEAR),
+        n_landmark_rows=1500,
+        models=models,
+        folds=5,
+        bootstrap_resamples=20,
+        optimism=True,
+        reference="clinical",
+        candidate="imaging",
+        threshold=10,
+        nri=nri_kind(None),
+    )
     return dataclasses.replace(facts, **change)
 
 
@@ -78,8 +108,17 @@ def test_methods_state_timing_carry_forward_outcome_models_and_validation():
 
 
 def test_methods_without_competing_events_or_follow_up_estimate():
-    text = " ".join(methods_paragraphs(_facts(n_competing=0, follow_up_days=(float("inf"),) * 3,
-                                              max_carry_days=None, lookback_days=0.0, candidate=None)))
+    text = " ".join(
+        methods_paragraphs(
+            _facts(
+                n_competing=0,
+                follow_up_days=(float("inf"),) * 3,
+                max_carry_days=None,
+                lookback_days=0.0,
+                candidate=None,
+            )
+        )
+    )
     assert "none had a competing event" in text and "could not be estimated" in text
     assert "without a time limit" in text and "before entry" not in text and "paired bootstrap" not in text
 
@@ -112,8 +151,9 @@ def test_reporting_items_status_follows_the_files(tmp_path):
 
 def test_text_files_become_escaped_paragraphs(tmp_path):
     atomic_write_text(tmp_path / "tables" / "methods.txt", "Model '<script>x</script>' is fine.\nSecond.\n")
-    page = build_report(tmp_path, title="t", threshold=10,
-                        sections=(Section("methods", "Methods", "intro", texts=("methods",)),)).read_text()
+    page = build_report(
+        tmp_path, title="t", threshold=10, sections=(Section("methods", "Methods", "intro", texts=("methods",)),)
+    ).read_text()
     assert "<script>" not in page and html.escape("'<script>x</script>'") in page
     assert "<p>Second.</p>" in page and "Not produced in this run" not in page
 

@@ -13,11 +13,25 @@ def _stack() -> pd.DataFrame:
     """40 patients at landmark 0 and 30 at landmark 1 year; volume missing for 12 and 3 rows; staleness known."""
     rows = []
     for i in range(40):
-        rows.append({"patient_id": f"P{i}", "landmark": 0.0, "log_volume": np.nan if i < 12 else 1.0,
-                     "volume_staleness_days": np.nan if i < 12 else float(i), "age_at_entry": 60.0})
+        rows.append(
+            {
+                "patient_id": f"P{i}",
+                "landmark": 0.0,
+                "log_volume": np.nan if i < 12 else 1.0,
+                "volume_staleness_days": np.nan if i < 12 else float(i),
+                "age_at_entry": 60.0,
+            }
+        )
     for i in range(30):
-        rows.append({"patient_id": f"P{i}", "landmark": DAYS_PER_YEAR, "log_volume": np.nan if i < 3 else 2.0,
-                     "volume_staleness_days": 500.0 if i < 3 else 10.0 * i, "age_at_entry": 60.0})
+        rows.append(
+            {
+                "patient_id": f"P{i}",
+                "landmark": DAYS_PER_YEAR,
+                "log_volume": np.nan if i < 3 else 2.0,
+                "volume_staleness_days": 500.0 if i < 3 else 10.0 * i,
+                "age_at_entry": 60.0,
+            }
+        )
     return pd.DataFrame(rows)
 
 

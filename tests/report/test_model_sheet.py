@@ -27,7 +27,8 @@ from riskbench.report.model_sheet import CAUTION, read_sheet_table
 from riskbench.workflow.model_bundle import load_model, save_run_model
 
 _SPEC = importlib.util.spec_from_file_location(
-    "analysis_builder", Path(__file__).parents[1] / "workflow" / "analysis_builder.py")
+    "analysis_builder", Path(__file__).parents[1] / "workflow" / "analysis_builder.py"
+)
 B = importlib.util.module_from_spec(_SPEC)
 _SPEC.loader.exec_module(B)
 
@@ -44,8 +45,9 @@ def run(tmp_path_factory) -> Path:
     folder = tmp_path_factory.mktemp("sheet")
     B.write_data(folder, 300, seed=7)
     config = B.write_config(folder, models=MODELS, validation={"candidate": "stratified", "reference": "smooth"})
-    config.write_text(config.read_text() + '\n[missing_data]\nmethod = "multiple_imputation"\nimputations = 2\n'
-                      "max_iterations = 2\n")
+    config.write_text(
+        config.read_text() + '\n[missing_data]\nmethod = "multiple_imputation"\nimputations = 2\nmax_iterations = 2\n'
+    )
     B.run_stages(config, folder / "run", ("cohort", "models"))
     return folder / "run"
 
@@ -133,9 +135,19 @@ def test_a_stratified_cox_models_sheet_is_recomputed_in_the_examples_stratum(run
     covariates = [c for c in B.CLINICAL if c != "sex_male"]
     model = CoxModel(covariates, strata="sex_male").fit(cp)
     spec = load_model(run / "models" / "cox.bundle.json").cohort_spec()
-    saved = load_model(save_run_model(tmp_path, "strata", "time_varying_cox", model, cohort_rules=spec,
-                                      development=cp, landmarks_days=[0.0, 365.25], prediction_window_days=730.5,
-                                      horizons_days=[730.5]))
+    saved = load_model(
+        save_run_model(
+            tmp_path,
+            "strata",
+            "time_varying_cox",
+            model,
+            cohort_rules=spec,
+            development=cp,
+            landmarks_days=[0.0, 365.25],
+            prediction_window_days=730.5,
+            horizons_days=[730.5],
+        )
+    )
     text = (tmp_path / "models" / "strata.md").read_text()
     assert "in stratum sex\\_male = 0\\.0" in text
     values, s, w = _example(text)
@@ -146,8 +158,12 @@ def test_a_stratified_cox_models_sheet_is_recomputed_in_the_examples_stratum(run
 def test_the_sheet_has_the_caution_rules_equation_and_both_causes(run: Path) -> None:
     text = (run / "models" / "stratified.md").read_text()
     assert md_text(CAUTION) in text
-    for heading in ("## Cohort rules", "## The equation", "## Baseline risk at each landmark and horizon",
-                    "## Worked example (an invented patient)"):
+    for heading in (
+        "## Cohort rules",
+        "## The equation",
+        "## Baseline risk at each landmark and horizon",
+        "## Worked example (an invented patient)",
+    ):
         assert heading in text
     assert "coefficients competing 1" in text and "baseline 1 stratum 0.0" in text
     assert "carried forward for at most 1095.75 days" in text
@@ -170,9 +186,19 @@ def test_a_forest_sheet_says_it_has_no_equation(run: Path, tmp_path: Path) -> No
 
     stack = pd.read_parquet(run / "data" / "landmark_stack.parquet").dropna(subset=B.CLINICAL)
     forest = SurvivalForest(B.CLINICAL, n_estimators=5, random_state=1).fit(stack)
-    saved = load_model(save_run_model(tmp_path, "forest", "forest", forest, cohort_rules=load_model(
-        run / "models" / "cox.bundle.json").cohort_spec(), development=stack, landmarks_days=[0.0, 365.25],
-        prediction_window_days=730.5, horizons_days=[730.5]))
+    saved = load_model(
+        save_run_model(
+            tmp_path,
+            "forest",
+            "forest",
+            forest,
+            cohort_rules=load_model(run / "models" / "cox.bundle.json").cohort_spec(),
+            development=stack,
+            landmarks_days=[0.0, 365.25],
+            prediction_window_days=730.5,
+            horizons_days=[730.5],
+        )
+    )
     text = (tmp_path / "models" / "forest.md").read_text()
     assert "no equation" in text and "n\\_estimators" in text and "| 5 |" in text
     assert "Variable importance" in text
@@ -183,9 +209,18 @@ def test_user_strings_cannot_become_markup(run: Path, tmp_path: Path) -> None:
     saved = load_model(run / "models" / "cox.bundle.json")
     stack = pd.read_parquet(run / "data" / "counting_process.parquet")
     hostile = "<img src=x onerror=alert(1)> | [link](http://x) # head\n* item"
-    bundle = save_run_model(tmp_path, hostile, "time_varying_cox", saved.parts[0], cohort_rules=saved.cohort_spec(),
-                            development=stack, landmarks_days=[0.0, 365.25], prediction_window_days=730.5,
-                            horizons_days=[730.5], labels={"age_at_entry": "Age | <b>years</b>"})
+    bundle = save_run_model(
+        tmp_path,
+        hostile,
+        "time_varying_cox",
+        saved.parts[0],
+        cohort_rules=saved.cohort_spec(),
+        development=stack,
+        landmarks_days=[0.0, 365.25],
+        prediction_window_days=730.5,
+        horizons_days=[730.5],
+        labels={"age_at_entry": "Age | <b>years</b>"},
+    )
     text = bundle.with_name(bundle.name.replace(".bundle.json", ".md")).read_text()
     assert "<img" not in text and "<b>" not in text and "](http" not in text
     assert "\n* item" not in text and "# head" not in text.replace("\\# head", "")

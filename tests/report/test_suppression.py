@@ -42,10 +42,12 @@ def test_baseline_table_hides_small_groups_and_their_complement():
     rng = np.random.default_rng(1)
     n = 60
     status = np.r_[np.full(4, 1), np.full(20, 2), np.full(36, 0)]  # only 4 outcomes
-    patients = pd.DataFrame({"patient_id": [f"R{i}" for i in range(n)], "end_days": rng.uniform(100, 2000, n),
-                             "end_status": status})
-    covs = pd.DataFrame({"patient_id": patients["patient_id"], "age_at_entry": rng.normal(65, 8, n),
-                         "sex_male": rng.integers(0, 2, n)})
+    patients = pd.DataFrame(
+        {"patient_id": [f"R{i}" for i in range(n)], "end_days": rng.uniform(100, 2000, n), "end_status": status}
+    )
+    covs = pd.DataFrame(
+        {"patient_id": patients["patient_id"], "age_at_entry": rng.normal(65, 8, n), "sex_male": rng.integers(0, 2, n)}
+    )
     table = baseline_table(patients, covs, ["age_at_entry", "sex_male"], threshold=10)
     first = table.iloc[0]
     assert first["Outcome"] == "<10"

@@ -15,8 +15,15 @@ from riskbench.report.timelines import timeline_figure
 
 
 def _cp() -> pd.DataFrame:
-    return pd.DataFrame({"patient_id": ["a", "a", "b"], "start": [0.0, 100.0, 0.0], "stop": [100.0, 400.0, 300.0],
-                         "status": [0, 1, 0], "log_nodule_volume": [5.0, 5.5, 4.0]})
+    return pd.DataFrame(
+        {
+            "patient_id": ["a", "a", "b"],
+            "start": [0.0, 100.0, 0.0],
+            "stop": [100.0, 400.0, 300.0],
+            "status": [0, 1, 0],
+            "log_nodule_volume": [5.0, 5.5, 4.0],
+        }
+    )
 
 
 def test_panels_carry_labels_and_one_legend_below_without_absent_endings():
@@ -39,8 +46,9 @@ def test_timeline_titles_without_labels_lose_underscores():
 def test_flow_without_competing_events_has_no_competing_box():
     from riskbench.workflow.stage_cohort import patient_flow
 
-    flow = pd.DataFrame({"table": ["patients", "patients"], "state": ["read", "used"], "remaining": [60, 60],
-                         "excluded": [0, 0]})
+    flow = pd.DataFrame(
+        {"table": ["patients", "patients"], "state": ["read", "used"], "remaining": [60, 60], "excluded": [0, 0]}
+    )
     patients = pd.DataFrame({"patient_id": range(60), "end_status": [1] * 20 + [0] * 40})
     table = patient_flow(flow, patients)
     assert "Competing event" not in set(table["step"]) and "Outcome" in set(table["step"])

@@ -25,13 +25,24 @@ def simulate_stack(
     stop = np.maximum(np.minimum(t_event, t_cens).round(), 1.0)
     status = (t_event <= t_cens).astype(int)
     ids = np.array([f"P{i:05d}" for i in range(n)])
-    cp = pd.DataFrame({"patient_id": ids, "start": 0.0, "stop": stop, "status": status,
-                       "clinical": clinical, "imaging": imaging})
+    cp = pd.DataFrame(
+        {"patient_id": ids, "start": 0.0, "stop": stop, "status": status, "clinical": clinical, "imaging": imaging}
+    )
     rows = []
     for s in landmarks:
         at_risk = stop > s
         t = np.minimum(stop[at_risk], s + horizon) - s
         st = np.where(stop[at_risk] <= s + horizon, status[at_risk], 0)
-        rows.append(pd.DataFrame({"patient_id": ids[at_risk], "landmark": s, "time": t, "status": st,
-                                  "clinical": clinical[at_risk], "imaging": imaging[at_risk]}))
+        rows.append(
+            pd.DataFrame(
+                {
+                    "patient_id": ids[at_risk],
+                    "landmark": s,
+                    "time": t,
+                    "status": st,
+                    "clinical": clinical[at_risk],
+                    "imaging": imaging[at_risk],
+                }
+            )
+        )
     return pd.concat(rows, ignore_index=True), cp

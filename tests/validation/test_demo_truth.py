@@ -78,8 +78,10 @@ def test_optimism_corrected_c_is_close_to_c_in_a_large_fresh_cohort(development)
 def test_imaging_adds_over_clinical_on_the_demo_truth(development):
     """Suspicion score (log HR 3.5 per unit) and nodule volume drive the true hazard: the out-of-bag
     gain in C is large compared with its bootstrap spread, so the 95% interval must exclude 0."""
-    specs = [ModelSpec("clinical", CLINICAL, params=CONSTANT),
-             ModelSpec("imaging + clinical", IMAGING + CLINICAL, params=CONSTANT)]
+    specs = [
+        ModelSpec("clinical", CLINICAL, params=CONSTANT),
+        ModelSpec("imaging + clinical", IMAGING + CLINICAL, params=CONSTANT),
+    ]
     res = compare_specs(specs, development, [EVAL_HORIZON], n_boot=15, seed=5)
     d = res.differences.set_index("metric")
     for metric in ("harrell_c", "uno_c", "auc"):
@@ -98,8 +100,10 @@ def test_interval_includes_zero_when_imaging_is_pure_noise(development):
     for column in IMAGING:
         stack[column] = stack["patient_id"].map(pd.Series(rng.normal(size=len(ids)), index=ids))
     null_source = PrecomputedTables(stack)
-    specs = [ModelSpec("clinical", CLINICAL, params=CONSTANT),
-             ModelSpec("noise + clinical", IMAGING + CLINICAL, params=CONSTANT)]
+    specs = [
+        ModelSpec("clinical", CLINICAL, params=CONSTANT),
+        ModelSpec("noise + clinical", IMAGING + CLINICAL, params=CONSTANT),
+    ]
     res = compare_specs(specs, null_source, [EVAL_HORIZON], n_boot=15, seed=5)
     d = res.differences.set_index("metric")
     for metric in ("harrell_c", "uno_c"):
@@ -131,7 +135,9 @@ def test_temporal_split_by_entry_date_on_the_demo_cohort(development):
     clearly better-than-chance C (the generator's hazard does not change with calendar time)."""
     entry = development.entry_dates()
     split = temporal_split(entry.index.to_numpy(), entry.to_numpy(), fit_fraction=0.6)
-    assert pd.to_datetime(entry.loc[split.fit_ids]).max() < pd.to_datetime(entry.loc[split.eval_ids]).min() + pd.Timedelta(days=1)
+    assert pd.to_datetime(entry.loc[split.fit_ids]).max() < pd.to_datetime(
+        entry.loc[split.eval_ids]
+    ).min() + pd.Timedelta(days=1)
     spec = ModelSpec("true covariates", list(COVARIATES), params=CONSTANT)
     per_spec, _ = evaluate_splits([spec], development, [split], [EVAL_HORIZON])
     c = per_spec.set_index("metric").loc["harrell_c", "value"]

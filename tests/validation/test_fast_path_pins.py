@@ -5,8 +5,9 @@ estimate per evaluation set, shared by every measure and horizon; counting-proce
 no spec fits on it; out-of-bag patients found by hashing; warm-started refits). They are this project's own
 outputs, not published figures: the check is that the reorganisation changed no result beyond the Cox engine's
 convergence tolerance. The calibration slope and ICI are left out: their method is being revised on its own
-(the calibration module), and their inputs are the same risks that the pinned measures check. The tolerance, 1e-7 relative, is far above floating-point reordering (about 1e-15) and
-far below any difference a reader could see (the reports print three decimals).
+(the calibration module), and their inputs are the same risks that the pinned measures check. The tolerance,
+1e-7 relative, is far above floating-point reordering (about 1e-15) and far below any difference a reader could
+see (the reports print three decimals).
 """
 
 from __future__ import annotations
@@ -36,8 +37,11 @@ def scenario():
     cohort = build_cohort(raw.patients, raw.measurements, raw.outcomes, demo_cohort_spec())
     source = PrecomputedTables.from_cohort(cohort, DEFAULT_LANDMARKS_DAYS, DEFAULT_HORIZON_DAYS)
     stratified = {"baseline": "stratified"}
-    specs = [ModelSpec("clinical", CLINICAL, params=stratified), ModelSpec("imaging", IMAGING, params=stratified),
-             ModelSpec("tv", IMAGING, family="time_varying_cox")]
+    specs = [
+        ModelSpec("clinical", CLINICAL, params=stratified),
+        ModelSpec("imaging", IMAGING, params=stratified),
+        ModelSpec("tv", IMAGING, family="time_varying_cox"),
+    ]
     return source, specs
 
 
@@ -94,9 +98,18 @@ def test_landmark_performance_numbers_are_those_of_the_code_before(scenario):
     stack = source.full_tables().landmark_stack
     models = fit_all(specs[:2], source.full_tables(), 0)
     risks = {s.name: np.asarray(risk_curve(m, stack, CURVE_DAYS)) for s, m in zip(specs[:2], models)}
-    perf = landmark_performance(EvaluationRows.from_stack(stack), CURVE_DAYS, risks, report_days=HORIZONS,
-                                curve_days=CURVE_DAYS, decision_days=730.5, thresholds=(0.0, 0.05, 0.1, 0.2),
-                                min_outcomes=10, n_boot=3, seed=9)
+    perf = landmark_performance(
+        EvaluationRows.from_stack(stack),
+        CURVE_DAYS,
+        risks,
+        report_days=HORIZONS,
+        curve_days=CURVE_DAYS,
+        decision_days=730.5,
+        thresholds=(0.0, 0.05, 0.1, 0.2),
+        min_outcomes=10,
+        n_boot=3,
+        seed=9,
+    )
     m = perf.measures
     pins = [
         (0.0, 365.25, "harrell_c", "estimate", 0.80412571762187413),
@@ -108,8 +121,9 @@ def test_landmark_performance_numbers_are_those_of_the_code_before(scenario):
     for landmark, horizon, metric, column, value in pins:
         got = _value(m[m["model"] == "clinical"], column, landmark_days=landmark, horizon_days=horizon, metric=metric)
         assert got == pytest.approx(value, rel=RTOL), (landmark, horizon, metric, column)
-    pooled = m[(m["model"] == "imaging") & m["landmark_days"].isna() & (m["metric"] == "uno_c")
-               & (m["horizon_days"] == 365.25)]
+    pooled = m[
+        (m["model"] == "imaging") & m["landmark_days"].isna() & (m["metric"] == "uno_c") & (m["horizon_days"] == 365.25)
+    ]
     assert float(pooled["estimate"].iloc[0]) == pytest.approx(0.82116530282082356, rel=RTOL)
     assert float(pooled["ci_low"].iloc[0]) == pytest.approx(0.80444693342765494, rel=RTOL)
     curve = perf.auc_curve.set_index(["model", "horizon"])

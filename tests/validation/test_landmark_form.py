@@ -16,8 +16,12 @@ from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.landmark_form import form_comparisons, landmark_form_test
 
 
-def simulate_stack(n_patients: int = 300, beta: tuple[float, float] = (0.7, -0.4),
-                   beta_slope: tuple[float, float] = (0.0, 0.0), seed: int = 0) -> pd.DataFrame:
+def simulate_stack(
+    n_patients: int = 300,
+    beta: tuple[float, float] = (0.7, -0.4),
+    beta_slope: tuple[float, float] = (0.0, 0.0),
+    seed: int = 0,
+) -> pd.DataFrame:
     """Landmarks 0, 6, 12, 18 months; outcome hazard exp(β(s)·x)/800 per day with β(s) = beta + beta_slope·s/S,
     uniform censoring, administrative censoring at 2 years after each landmark."""
     rng = np.random.default_rng(seed)
@@ -29,8 +33,18 @@ def simulate_stack(n_patients: int = 300, beta: tuple[float, float] = (0.7, -0.4
         b = np.asarray(beta) + np.asarray(beta_slope) * s / landmarks[-1]
         t1 = rng.exponential(800.0 / np.exp(x @ b))
         time = np.minimum.reduce([t1, rng.uniform(60.0, 1500.0, size=n_patients), np.full(n_patients, 730.5)])
-        frames.append(pd.DataFrame({"patient_id": [f"P{i:04d}" for i in range(n_patients)], "landmark": s,
-                                    "time": time, "status": (time == t1).astype(int), "x1": x[:, 0], "x2": x[:, 1]}))
+        frames.append(
+            pd.DataFrame(
+                {
+                    "patient_id": [f"P{i:04d}" for i in range(n_patients)],
+                    "landmark": s,
+                    "time": time,
+                    "status": (time == t1).astype(int),
+                    "x1": x[:, 0],
+                    "x2": x[:, 1],
+                }
+            )
+        )
     return pd.concat(frames, ignore_index=True)
 
 
@@ -40,8 +54,8 @@ def _lifelines_loglik(stack: pd.DataFrame, power: int) -> float:
     for c in ("x1", "x2"):
         design[c] = stack[c]
         for k in range(1, power + 1):
-            design[f"{c}_s{k}"] = stack[c] * r ** k
-    design["ls1"], design["ls2"] = r, r ** 2
+            design[f"{c}_s{k}"] = stack[c] * r**k
+    design["ls1"], design["ls2"] = r, r**2
     return CoxPHFitter().fit(design, "time", "event").log_likelihood_
 
 
@@ -58,9 +72,12 @@ def test_quadratic_form_not_needed_when_the_truth_is_linear():
     """Under the smaller form the statistic is chi-squared(2): over 20 simulated stacks the test rejects at 5%
     a handful of times at most (binomial(20, 0.05): P(>= 5) < 0.003)."""
     rejections = sum(
-        landmark_form_test(simulate_stack(n_patients=250, beta_slope=(0.5, 0.0), seed=100 + i),
-                           ["x1", "x2"], "linear", "quadratic")["p_value"] < 0.05
-        for i in range(20))
+        landmark_form_test(
+            simulate_stack(n_patients=250, beta_slope=(0.5, 0.0), seed=100 + i), ["x1", "x2"], "linear", "quadratic"
+        )["p_value"]
+        < 0.05
+        for i in range(20)
+    )
     assert rejections < 5
 
 

@@ -49,9 +49,18 @@ def _risks(stack: pd.DataFrame) -> dict[str, np.ndarray]:
 def evaluated():
     stack = _with_competing(simulate_stack(500, 4)[0], 4)
     rows = EvaluationRows.from_stack(stack)
-    result = landmark_performance(rows, HORIZONS, _risks(stack), report_days=[YEAR, 730.0],
-                                  curve_days=list(HORIZONS), decision_days=730.0,
-                                  thresholds=[0.0, 0.1, 0.2, 0.4], min_outcomes=10, n_boot=30, seed=8)
+    result = landmark_performance(
+        rows,
+        HORIZONS,
+        _risks(stack),
+        report_days=[YEAR, 730.0],
+        curve_days=list(HORIZONS),
+        decision_days=730.0,
+        thresholds=[0.0, 0.1, 0.2, 0.4],
+        min_outcomes=10,
+        n_boot=30,
+        seed=8,
+    )
     return stack, result
 
 
@@ -67,11 +76,14 @@ def test_each_landmark_equals_the_metric_functions_on_its_rows(evaluated) -> Non
         key = ("both", landmark, YEAR)
         by_h = np.where(time <= at, status, 0)
         assert table[(*key, "harrell_c")] == pytest.approx(
-            metrics.concordance_harrell(np.minimum(time, at), by_h, risk, with_se=False).estimate, abs=1e-12)
+            metrics.concordance_harrell(np.minimum(time, at), by_h, risk, with_se=False).estimate, abs=1e-12
+        )
         assert table[(*key, "uno_c")] == pytest.approx(
-            metrics.concordance_uno(time, status, risk, at, with_se=False).estimate, abs=1e-12)
+            metrics.concordance_uno(time, status, risk, at, with_se=False).estimate, abs=1e-12
+        )
         assert table[(*key, "auc")] == pytest.approx(
-            float(metrics.auc_cumulative_dynamic(time, status, risk, [at]).table["auc"].iloc[0]), abs=1e-12)
+            float(metrics.auc_cumulative_dynamic(time, status, risk, [at]).table["auc"].iloc[0]), abs=1e-12
+        )
         brier = metrics.brier_score(time, status, risk, [at], check_direction=False)
         assert table[(*key, "brier")] == pytest.approx(float(brier["brier"].iloc[0]), abs=1e-12)
         assert table[(*key, "scaled_brier")] == pytest.approx(float(brier["scaled_brier"].iloc[0]), abs=1e-12)
@@ -101,8 +113,14 @@ def test_intervals_surround_the_estimates_and_count_resamples(evaluated) -> None
 def test_decision_curve_treat_all_equals_net_benefit_on_the_pooled_rows(evaluated) -> None:
     stack, result = evaluated
     time, status = stack["time"].to_numpy(float), stack["status"].to_numpy(int)
-    direct = metrics.net_benefit(time, status, _risks(stack)["both"][:, 2], evaluation_time(730.0, time),
-                                 [0.0, 0.1, 0.2, 0.4], check_direction=False)
+    direct = metrics.net_benefit(
+        time,
+        status,
+        _risks(stack)["both"][:, 2],
+        evaluation_time(730.0, time),
+        [0.0, 0.1, 0.2, 0.4],
+        check_direction=False,
+    )
     mine = result.decision_curve[result.decision_curve["model_name"] == "both"].reset_index(drop=True)
     np.testing.assert_allclose(mine["treat_all"], direct["treat_all"], atol=1e-12)
     np.testing.assert_allclose(mine["model"], direct["model"], atol=1e-12)
@@ -114,8 +132,9 @@ def test_a_landmark_with_few_outcomes_is_not_measured() -> None:
     stack = simulate_stack(200, 2)[0]
     rows = EvaluationRows.from_stack(stack)
     few = (stack["landmark"] == 365.0) & (stack["status"] == 1)
-    result = landmark_performance(rows, HORIZONS, _risks(stack), report_days=[YEAR], n_boot=0,
-                                  min_outcomes=int(few.sum()) + 1)
+    result = landmark_performance(
+        rows, HORIZONS, _risks(stack), report_days=[YEAR], n_boot=0, min_outcomes=int(few.sum()) + 1
+    )
     assert 365.0 not in set(result.measures["landmark_days"])
     assert result.measures["ci_low"].isna().all() and (result.measures["resamples"] == 0).all()
 
@@ -123,8 +142,10 @@ def test_a_landmark_with_few_outcomes_is_not_measured() -> None:
 def test_same_seed_same_intervals_and_a_bad_matrix_is_refused() -> None:
     stack = simulate_stack(150, 9)[0]
     rows = EvaluationRows.from_stack(stack)
-    run = lambda seed: landmark_performance(rows, HORIZONS, _risks(stack), report_days=[730.0],  # noqa: E731
-                                            n_boot=5, seed=seed).measures
+
+    def run(seed: int) -> pd.DataFrame:
+        return landmark_performance(rows, HORIZONS, _risks(stack), report_days=[730.0], n_boot=5, seed=seed).measures
+
     pd.testing.assert_frame_equal(run(1), run(1))
     assert not run(1)["ci_low"].equals(run(2)["ci_low"])
     with pytest.raises(ValidationInputError, match="rows × horizons"):
@@ -153,8 +174,9 @@ def test_a_cause_specific_model_is_judged_against_one_minus_kaplan_meier(evaluat
     stack, _ = evaluated
     rows = EvaluationRows.from_stack(stack)
     risk = _risks(stack)["both"]
-    result = landmark_performance(rows, HORIZONS, {"both": risk}, report_days=[YEAR], n_boot=0,
-                                  targets={"both": "cause_specific"})
+    result = landmark_performance(
+        rows, HORIZONS, {"both": risk}, report_days=[YEAR], n_boot=0, targets={"both": "cause_specific"}
+    )
     oe = result.measures.set_index(["landmark_days", "metric"])["estimate"]
     at_zero = (stack["landmark"] == 0.0).to_numpy()
     time, status = stack["time"].to_numpy(float)[at_zero], stack["status"].to_numpy(int)[at_zero]

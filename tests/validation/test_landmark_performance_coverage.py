@@ -31,12 +31,22 @@ def _true_risk(stack: pd.DataFrame) -> np.ndarray:
 
 def test_auc_band_covers_the_true_auc_at_close_to_the_nominal_rate() -> None:
     big = simulate_stack(100_000, 999)[0]
-    truth = float(auc_cumulative_dynamic(big["time"].to_numpy(), big["status"].to_numpy(), _true_risk(big)[:, 0],
-                                         [HORIZON]).table["auc"].iloc[0])
+    truth = float(
+        auc_cumulative_dynamic(big["time"].to_numpy(), big["status"].to_numpy(), _true_risk(big)[:, 0], [HORIZON])
+        .table["auc"]
+        .iloc[0]
+    )
     covered = 0
     for r in range(REPLICATES):
         stack = simulate_stack(300, r)[0]
-        curve = landmark_performance(EvaluationRows.from_stack(stack), [HORIZON], {"truth": _true_risk(stack)},
-                                     report_days=[], curve_days=[HORIZON], n_boot=100, seed=r).auc_curve.iloc[0]
+        curve = landmark_performance(
+            EvaluationRows.from_stack(stack),
+            [HORIZON],
+            {"truth": _true_risk(stack)},
+            report_days=[],
+            curve_days=[HORIZON],
+            n_boot=100,
+            seed=r,
+        ).auc_curve.iloc[0]
         covered += int(curve["auc_lower"] <= truth <= curve["auc_upper"])
     assert 88 <= covered <= REPLICATES, f"{covered} of {REPLICATES} bands cover the true AUC {truth:.4f}"

@@ -46,7 +46,11 @@ def test_nested_fits_give_positive_statistic_and_check_nesting():
         cph = CoxPHFitter().fit(rossi[["week", "arrest", *covs]], "week", "arrest")
         fits[name] = SimpleNamespace(
             covariates=tuple(covs),
-            fit_=SimpleNamespace(loglik=cph.log_likelihood_, loglik_null=_null_loglik_efron(rossi["week"].to_numpy(), rossi["arrest"].to_numpy()), coef=cph.params_.to_numpy()),
+            fit_=SimpleNamespace(
+                loglik=cph.log_likelihood_,
+                loglik_null=_null_loglik_efron(rossi["week"].to_numpy(), rossi["arrest"].to_numpy()),
+                coef=cph.params_.to_numpy(),
+            ),
         )
     res = nested_cox_lr_test(fits["small"], fits["large"])
     # The definition (Fox & Weisberg, appendix cited above, section 3): twice the gain in log partial likelihood,
@@ -57,8 +61,12 @@ def test_nested_fits_give_positive_statistic_and_check_nesting():
     assert 0.001 < res.p_value < 0.5  # fin and wexp add something, not overwhelming, on these data
     with pytest.raises(ValidationInputError, match="not nested"):
         nested_cox_lr_test(fits["large"], SimpleNamespace(covariates=("age",), fit_=fits["small"].fit_))
-    shifted = SimpleNamespace(covariates=tuple(large_cov), fit_=SimpleNamespace(
-        loglik=fits["large"].fit_.loglik, loglik_null=fits["large"].fit_.loglik_null - 3, coef=np.zeros(4)))
+    shifted = SimpleNamespace(
+        covariates=tuple(large_cov),
+        fit_=SimpleNamespace(
+            loglik=fits["large"].fit_.loglik, loglik_null=fits["large"].fit_.loglik_null - 3, coef=np.zeros(4)
+        ),
+    )
     with pytest.raises(ValidationInputError, match="different rows"):
         nested_cox_lr_test(fits["small"], shifted)
 

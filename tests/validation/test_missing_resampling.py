@@ -36,8 +36,10 @@ def source():
 
 def _specs(method: str) -> list[ModelSpec]:
     plan = MissingDataPlan(method, imputations=2, max_iterations=2)
-    return [ModelSpec("clinical", ["clinical"], params=NO_EFFECTS, missing=plan),
-            ModelSpec("imaging + clinical", ["clinical", "imaging"], params=NO_EFFECTS, missing=plan)]
+    return [
+        ModelSpec("clinical", ["clinical"], params=NO_EFFECTS, missing=plan),
+        ModelSpec("imaging + clinical", ["clinical", "imaging"], params=NO_EFFECTS, missing=plan),
+    ]
 
 
 @pytest.mark.parametrize("method", METHODS)
@@ -73,9 +75,12 @@ def test_complete_case_evaluation_uses_the_rows_every_model_predicts(source) -> 
     from riskbench.validation.paired import evaluate_fitted
 
     full = source.full_tables()
-    specs = [ModelSpec("mi", ["clinical", "imaging"], params=NO_EFFECTS,
-                       missing=MissingDataPlan(imputations=2, max_iterations=2)),
-             ModelSpec("cc", ["clinical", "imaging"], params=NO_EFFECTS, missing="complete_cases")]
+    specs = [
+        ModelSpec(
+            "mi", ["clinical", "imaging"], params=NO_EFFECTS, missing=MissingDataPlan(imputations=2, max_iterations=2)
+        ),
+        ModelSpec("cc", ["clinical", "imaging"], params=NO_EFFECTS, missing="complete_cases"),
+    ]
     models = [fit_spec(s, full) for s in specs]
     assert isinstance(models[0], MissingDataModel)
     per_spec, _ = evaluate_fitted(specs, models, full.landmark_stack, [365.0], pairs=[(0, 1)])
@@ -86,7 +91,10 @@ def test_complete_case_evaluation_uses_the_rows_every_model_predicts(source) -> 
     assert got == pytest.approx(want, abs=1e-12)
     with pytest.raises(ValidationInputError, match=r"\[\[models\]\] missing_data = 'drop'"):
         ModelSpec("x", ["clinical"], missing="drop")
-    assert ModelSpec("x", ["clinical", "imaging"], missing="complete_cases").without(["imaging"]).missing.method == "complete_cases"
+    assert (
+        ModelSpec("x", ["clinical", "imaging"], missing="complete_cases").without(["imaging"]).missing.method
+        == "complete_cases"
+    )
 
 
 def test_importance_runs_with_a_complete_case_model(source) -> None:

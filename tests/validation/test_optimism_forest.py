@@ -48,13 +48,24 @@ def test_632_plus_limits():
 
 
 def test_validated_estimate_follows_the_family():
-    table = pd.DataFrame({"spec": ["cox", "cox", "forest", "forest"], "metric": ["harrell_c", "brier"] * 2,
-                          "apparent": [0.8, 0.1, 0.97, 0.02], "corrected": [0.78, 0.11, 0.9, 0.03],
-                          "out_of_bag": [0.77, 0.12, 0.79, 0.031], "dot632_plus": [0.785, np.nan, 0.83, np.nan]})
+    table = pd.DataFrame(
+        {
+            "spec": ["cox", "cox", "forest", "forest"],
+            "metric": ["harrell_c", "brier"] * 2,
+            "apparent": [0.8, 0.1, 0.97, 0.02],
+            "corrected": [0.78, 0.11, 0.9, 0.03],
+            "out_of_bag": [0.77, 0.12, 0.79, 0.031],
+            "dot632_plus": [0.785, np.nan, 0.83, np.nan],
+        }
+    )
     out = validated_performance(table, {"cox": "landmark_cox", "forest": "forest"})
     assert out["validated"].tolist() == [0.78, 0.11, 0.79, 0.031]
-    assert out["obtained_by"].tolist() == ["optimism-corrected bootstrap", "optimism-corrected bootstrap",
-                                           "out-of-bag bootstrap", "out-of-bag bootstrap"]
+    assert out["obtained_by"].tolist() == [
+        "optimism-corrected bootstrap",
+        "optimism-corrected bootstrap",
+        "out-of-bag bootstrap",
+        "out-of-bag bootstrap",
+    ]
 
 
 LANDMARKS = (0.0, 182.625, 365.25)
@@ -63,8 +74,12 @@ HORIZON = 730.5
 
 def _tables(n: int, seed: int) -> PrecomputedTables:
     c = generate_cohort(n, seed, n_risk_paths=0)
-    return PrecomputedTables.from_cohort(build_cohort(c.patients, c.measurements, c.outcomes, demo_cohort_spec()),
-                                         LANDMARKS, HORIZON, with_counting_process=False)
+    return PrecomputedTables.from_cohort(
+        build_cohort(c.patients, c.measurements, c.outcomes, demo_cohort_spec()),
+        LANDMARKS,
+        HORIZON,
+        with_counting_process=False,
+    )
 
 
 def _harrell(stack: pd.DataFrame, risk: np.ndarray) -> float:
@@ -81,8 +96,9 @@ def forest_validation():
     development = _tables(3000, 101)
     stack = development.full_tables().landmark_stack
     spec = ModelSpec("forest", list(COVARIATES), family="forest", params={"n_estimators": 50, "random_state": 1})
-    table = validated_performance(bootstrap_optimism(spec, development, [HORIZON], n_boot=5, seed=3),
-                                  {"forest": "forest"})
+    table = validated_performance(
+        bootstrap_optimism(spec, development, [HORIZON], n_boot=5, seed=3), {"forest": "forest"}
+    )
     row = table.set_index("metric").loc["harrell_c"]
     risk = np.full(len(stack), np.nan)
     for split in patient_folds(stack["patient_id"].to_numpy(), stack["status"].to_numpy(), 5, 7):

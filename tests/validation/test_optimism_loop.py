@@ -64,8 +64,9 @@ class _LifelinesCox:
         data = rows[["time", *COVARIATES]].assign(event=(rows["status"] == 1).astype(int))
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            self.fitter = CoxPHFitter().fit(data, duration_col="time", event_col="event",
-                                            fit_options={"precision": 1e-12, "r_precision": 1e-14})
+            self.fitter = CoxPHFitter().fit(
+                data, duration_col="time", event_col="event", fit_options={"precision": 1e-12, "r_precision": 1e-14}
+            )
 
     def risk(self, rows: pd.DataFrame) -> np.ndarray:
         baseline = self.fitter.baseline_cumulative_hazard_.iloc[:, 0]

@@ -93,8 +93,9 @@ def local_cluster():
     tests_dir = str(Path(__file__).parents[1])
     sys.path.insert(0, tests_dir)
     try:
-        with distributed.LocalCluster(n_workers=3, threads_per_worker=1, processes=True,
-                                      dashboard_address=None, silence_logs=40) as cluster:
+        with distributed.LocalCluster(
+            n_workers=3, threads_per_worker=1, processes=True, dashboard_address=None, silence_logs=40
+        ) as cluster:
             yield cluster
     finally:
         sys.path.remove(tests_dir)
@@ -103,8 +104,9 @@ def local_cluster():
 def test_dask_local_cluster_equals_serial(local_cluster):
     """Replicates on the three-process LocalCluster equal the serial run."""
     serial = run_replicates(_mean_of_draws, {"n": 30}, 5, 5)
-    on_cluster = run_replicates(_mean_of_draws, {"n": 30}, 5, 5,
-                                ExecutionConfig(scheduler_address=local_cluster.scheduler_address))
+    on_cluster = run_replicates(
+        _mean_of_draws, {"n": 30}, 5, 5, ExecutionConfig(scheduler_address=local_cluster.scheduler_address)
+    )
     assert on_cluster == serial
 
 
@@ -112,11 +114,19 @@ def test_bootstrap_optimism_on_local_cluster_equals_serial(local_cluster):
     """The full pipeline (resample patients, refit, all metrics) gives identical numbers on the cluster."""
     stack, cp = simulate_stack(200, seed=8)
     source = PrecomputedTables(stack, cp)
-    specs = [ModelSpec("clinical", ["clinical"], params={"landmark_effects": "none"}),
-             ModelSpec("both", ["clinical", "imaging"], params={"landmark_effects": "none"})]
+    specs = [
+        ModelSpec("clinical", ["clinical"], params={"landmark_effects": "none"}),
+        ModelSpec("both", ["clinical", "imaging"], params={"landmark_effects": "none"}),
+    ]
     serial = bootstrap_optimism(specs, source, [365.0], n_boot=3, seed=4)
-    on_cluster = bootstrap_optimism(specs, source, [365.0], n_boot=3, seed=4,
-                                    config=ExecutionConfig(scheduler_address=local_cluster.scheduler_address))
+    on_cluster = bootstrap_optimism(
+        specs,
+        source,
+        [365.0],
+        n_boot=3,
+        seed=4,
+        config=ExecutionConfig(scheduler_address=local_cluster.scheduler_address),
+    )
     pd.testing.assert_frame_equal(serial, on_cluster, check_exact=True)
 
 
@@ -127,13 +137,16 @@ def parquet_source(tmp_path_factory):
     folder = tmp_path_factory.mktemp("data")
     stack.to_parquet(folder / "landmark_stack.parquet", index=False)
     cp.to_parquet(folder / "counting_process.parquet", index=False)
-    files = TableFiles.of({"landmark_stack": folder / "landmark_stack.parquet",
-                           "counting_process": folder / "counting_process.parquet"})
+    files = TableFiles.of(
+        {"landmark_stack": folder / "landmark_stack.parquet", "counting_process": folder / "counting_process.parquet"}
+    )
     return parquet_tables(files.files["landmark_stack"], files.files["counting_process"]), PrecomputedTables(stack, cp)
 
 
-SPECS = [ModelSpec("clinical", ["clinical"], params={"landmark_effects": "none"}),
-         ModelSpec("both", ["clinical", "imaging"], params={"landmark_effects": "none"})]
+SPECS = [
+    ModelSpec("clinical", ["clinical"], params={"landmark_effects": "none"}),
+    ModelSpec("both", ["clinical", "imaging"], params={"landmark_effects": "none"}),
+]
 
 
 def _cached_tables():
@@ -170,8 +183,9 @@ def test_folds_from_parquet_identical_serial_joblib_and_cluster(local_cluster, p
     splits = patient_folds(stack["patient_id"].to_numpy(), stack["status"].to_numpy(), 5, 9)
     serial = evaluate_splits(SPECS, frames, splits, [365.0], seed=2)
     on_joblib = evaluate_splits(SPECS, files, splits, [365.0], seed=2, config=ExecutionConfig(n_jobs=2))
-    on_cluster = evaluate_splits(SPECS, files, splits, [365.0], seed=2,
-                                 config=ExecutionConfig(scheduler_address=local_cluster.scheduler_address))
+    on_cluster = evaluate_splits(
+        SPECS, files, splits, [365.0], seed=2, config=ExecutionConfig(scheduler_address=local_cluster.scheduler_address)
+    )
     for other in (on_joblib, on_cluster):
         for expected, got in zip(serial, other):
             pd.testing.assert_frame_equal(expected, got, check_exact=True)
@@ -198,5 +212,10 @@ def test_progress_bar_only_when_asked_or_interactive(capsys):
 
 def test_unreachable_scheduler_gives_a_clear_error():
     with pytest.raises(ValidationInputError, match="cannot reach the Dask scheduler"):
-        run_replicates(_mean_of_draws, {"n": 3}, 1, 2,
-                       ExecutionConfig(scheduler_address="tcp://127.0.0.1:9", connect_timeout_s=1.0))
+        run_replicates(
+            _mean_of_draws,
+            {"n": 3},
+            1,
+            2,
+            ExecutionConfig(scheduler_address="tcp://127.0.0.1:9", connect_timeout_s=1.0),
+        )

@@ -68,7 +68,9 @@ def test_optimism_table_is_consistent_and_parallel_equals_serial(source):
 
 def test_paired_interval_excludes_zero_for_a_strong_imaging_effect(source):
     """Imaging hazard ratio e^0.8 per SD: the out-of-bag C gain is ~0.1, far above its bootstrap spread."""
-    res = compare_specs([CLINICAL, BOTH], source, [365.0], n_boot=15, seed=2, thresholds=[0.1, 0.2], nri_categories=[0.1, 0.3])
+    res = compare_specs(
+        [CLINICAL, BOTH], source, [365.0], n_boot=15, seed=2, thresholds=[0.1, 0.2], nri_categories=[0.1, 0.3]
+    )
     d = res.differences.set_index("metric")
     for metric in ("harrell_c", "uno_c", "auc", "idi", "nri"):
         assert d.loc[metric, "ci_low"] > 0, metric
@@ -78,8 +80,9 @@ def test_paired_interval_excludes_zero_for_a_strong_imaging_effect(source):
 
 
 def test_cross_validation_and_temporal_split(source):
-    splits = patient_folds(source.full_tables().counting_process["patient_id"],
-                           source.full_tables().counting_process["status"], 3, seed=1)
+    splits = patient_folds(
+        source.full_tables().counting_process["patient_id"], source.full_tables().counting_process["status"], 3, seed=1
+    )
     per_spec, _per_pair = evaluate_splits([CLINICAL, BOTH], source, splits, [365.0])
     assert per_spec["split"].nunique() == 3
     c = per_spec[per_spec["metric"] == "harrell_c"].groupby("spec")["value"].mean()
@@ -96,8 +99,9 @@ def test_external_validation_fits_on_a_and_evaluates_on_b():
     stack_b, cp_b = simulate_stack(250, seed=22)
     for frame in (stack_b, cp_b):
         frame["patient_id"] = "B" + frame["patient_id"]
-    res = external_validation([CLINICAL, BOTH], PrecomputedTables(stack_a, cp_a), PrecomputedTables(stack_b, cp_b),
-                              [365.0], n_boot=10, seed=4)
+    res = external_validation(
+        [CLINICAL, BOTH], PrecomputedTables(stack_a, cp_a), PrecomputedTables(stack_b, cp_b), [365.0], n_boot=10, seed=4
+    )
     perf = res.performance.set_index(["spec", "metric"])
     assert perf.loc[("imaging + clinical", "harrell_c"), "estimate"] > 0.65
     # The estimate is the C on all of B of the model fitted once on A: recomputed with scikit-survival's
@@ -107,13 +111,16 @@ def test_external_validation_fits_on_a_and_evaluates_on_b():
     model = fit_spec(CLINICAL, PrecomputedTables(stack_a, cp_a).full_tables())
     time, status = stack_b["time"].to_numpy(), stack_b["status"].to_numpy()
     t_eval = 365.0 - 1e-6 if time.max() <= 365.0 else 365.0
-    expected = concordance_index_censored((status == 1) & (time <= t_eval), np.minimum(time, t_eval),
-                                          model.predict_risk(stack_b, 365.0))[0]
+    expected = concordance_index_censored(
+        (status == 1) & (time <= t_eval), np.minimum(time, t_eval), model.predict_risk(stack_b, 365.0)
+    )[0]
     row = perf.loc[("clinical", "harrell_c")]
     assert row["estimate"] == pytest.approx(expected, abs=1e-12)
     assert row["ci_low"] < row["estimate"] < row["ci_high"] and row["ci_high"] - row["ci_low"] < 0.2
     with pytest.raises(ValidationInputError, match="both cohorts"):
-        external_validation([CLINICAL], PrecomputedTables(stack_a, cp_a), PrecomputedTables(stack_a, cp_a), [365.0], n_boot=2)
+        external_validation(
+            [CLINICAL], PrecomputedTables(stack_a, cp_a), PrecomputedTables(stack_a, cp_a), [365.0], n_boot=2
+        )
 
 
 def test_importance_ranks_the_strong_group_and_not_noise():
@@ -148,8 +155,9 @@ def test_spec_and_argument_errors(source):
 
 def test_cox_and_forest_families_run_through_the_same_pipeline(source):
     """The counting-process Cox model and the forest are validated by the same code as the super-model."""
-    splits = patient_folds(source.full_tables().counting_process["patient_id"],
-                           source.full_tables().counting_process["status"], 2, seed=3)[:1]
+    splits = patient_folds(
+        source.full_tables().counting_process["patient_id"], source.full_tables().counting_process["status"], 2, seed=3
+    )[:1]
     cox = ModelSpec("cox", ["clinical", "imaging"], family="cox")
     forest = ModelSpec("forest", ["clinical", "imaging"], family="forest", params={"n_estimators": 25})
     per_spec, per_pair = evaluate_splits([cox, forest], source, splits, [365.0])

@@ -27,8 +27,16 @@ def shifted_rows():
     censor = rng.uniform(200, 1500, n)
     time = np.minimum(event_time, censor)
     status = (event_time <= censor).astype(int)
-    rows = UpdatingRows(730.5, "cumulative_incidence", risk, pseudo_observations(time, status, 730.5),
-                        np.zeros(n), np.arange(n), ("x1", "x2"), x)
+    rows = UpdatingRows(
+        730.5,
+        "cumulative_incidence",
+        risk,
+        pseudo_observations(time, status, 730.5),
+        np.zeros(n),
+        np.arange(n),
+        ("x1", "x2"),
+        x,
+    )
     return rows, time, target_status(status, "cumulative_incidence")
 
 
@@ -54,8 +62,10 @@ def test_optimism_is_small_for_one_parameter_and_larger_for_a_revision(shifted_r
     assert wide.loc[("in_the_large", "oe_ratio"), "apparent"] == pytest.approx(1.0, abs=0.03)
     assert abs(wide.loc[("in_the_large", "oe_ratio"), "optimism"]) < 0.03
     # the revision fits three more parameters to the same rows: its calibration slope is more optimistic
-    assert wide.loc[("revision", "calibration_slope"), "optimism"] > \
-        wide.loc[("in_the_large", "calibration_slope"), "optimism"]
+    assert (
+        wide.loc[("revision", "calibration_slope"), "optimism"]
+        > wide.loc[("in_the_large", "calibration_slope"), "optimism"]
+    )
     corrected = wide["apparent"] - wide["optimism"]
     assert np.allclose(corrected, wide["corrected"])
     again = update_optimism(rows, time, status, fits, n_boot=40, seed=2)
@@ -66,3 +76,24 @@ def test_without_replicates_the_optimism_is_unknown_not_zero(shifted_rows):
     rows, time, status = shifted_rows
     table = update_optimism(rows, time, status, {"slope": fit_update(rows, "slope")}, n_boot=0, seed=0)
     assert table["optimism"].isna().all() and (table["resamples"] == 0).all()
+
+
+def test_a_revision_of_a_model_whose_risk_is_its_covariates_drops_one_aliased_correction(shifted_rows):
+    """z = cloglog(risk) is exactly −2.5 + 0.8·x1 + 0.4·x2 here, as a Cox model's z is its baseline plus its linear
+    predictor, so intercept, slope and both corrections cannot all be estimated (the design is singular). The
+    last correction is reported aliased (kept at 0, no SE), and the updated risks do not depend on which one
+    that is: fitting with the covariates in the other order gives the same risks (the same model space)."""
+    from dataclasses import replace
+
+    rows, _, _ = shifted_rows
+    forward = fit_update(rows, "revision")
+    swapped_rows = replace(rows, covariates=rows.covariates[::-1], x=rows.x[:, ::-1])
+    backward = fit_update(swapped_rows, "revision")
+    assert forward.aliased == ("correction:x2",) and backward.aliased == ("correction:x1",)
+    table = forward.table().set_index("term")
+    assert table.loc["correction:x2", "estimate"] == 0.0 and np.isnan(table.loc["correction:x2", "se"])
+    np.testing.assert_allclose(
+        forward.risk(rows.risk, rows.landmark, rows.x),
+        backward.risk(rows.risk, rows.landmark, swapped_rows.x),
+        rtol=1e-6,
+    )

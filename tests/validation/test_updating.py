@@ -28,8 +28,7 @@ from riskbench.validation.updating import (
 HORIZON = 730.5  # days: two years
 LANDMARKS = [0.0, 182.625, 365.25, 547.875, 730.5]
 COVARIATES = ["log_nodule_volume", "suspicion_score", "serum_marker", "age_at_entry", "pack_years"]
-SHIFT = CohortShift(outcome_hazard_multiplier=2.0, age_shift_years=4.0, pack_years_multiplier=1.3,
-                    log_volume_shift=0.3)
+SHIFT = CohortShift(outcome_hazard_multiplier=2.0, age_shift_years=4.0, pack_years_multiplier=1.3, log_volume_shift=0.3)
 
 
 def _cohort(n: int, seed: int, shift: CohortShift | None = None, paths: int = 0):
@@ -58,8 +57,7 @@ def shifted(model):
 
 
 def _oe(stack: pd.DataFrame, rows: UpdatingRows, risk: np.ndarray) -> tuple[float, float, float]:
-    return observed_expected(stack["time"].to_numpy(), stack["status"].to_numpy(), risk, HORIZON,
-                             cluster=rows.patient)
+    return observed_expected(stack["time"].to_numpy(), stack["status"].to_numpy(), risk, HORIZON, cluster=rows.patient)
 
 
 def test_original_oe_moves_with_the_shift_by_the_size_the_truth_gives(model, shifted, same):
@@ -140,8 +138,12 @@ def test_pseudo_observations_of_complete_follow_up_are_the_outcomes():
     stack = pd.DataFrame({"patient_id": np.arange(n), "landmark": 0.0, "time": time, "status": status})
     rows = updating_rows(Fixed(), stack, 730.5, covariates=[])
     assert rows.pseudo == pytest.approx(outcome.astype(float), abs=1e-12)
-    glm = sm.GLM(outcome.astype(float), np.ones((n, 1)), offset=cloglog(risk),
-                 family=sm.families.Binomial(link=sm.families.links.CLogLog())).fit(tol=1e-12)
+    glm = sm.GLM(
+        outcome.astype(float),
+        np.ones((n, 1)),
+        offset=cloglog(risk),
+        family=sm.families.Binomial(link=sm.families.links.CLogLog()),
+    ).fit(tol=1e-12)
     assert fit_update(rows, "in_the_large").coef == pytest.approx(glm.params, abs=1e-6)
 
 
@@ -194,8 +196,9 @@ def test_recalibration_keeps_the_order_of_the_risks(seed, factor):
     outcome = rng.uniform(size=n) < np.minimum(1.0, factor * risk)
     assume(3 <= outcome.sum() <= n - 3)
     time = np.where(outcome, rng.uniform(1, 700, n), rng.uniform(100, 900, n))
-    rows = UpdatingRows(730.5, "cumulative_incidence", risk, np.zeros(n), np.zeros(n), np.arange(n), (),
-                        np.empty((n, 0)))
+    rows = UpdatingRows(
+        730.5, "cumulative_incidence", risk, np.zeros(n), np.zeros(n), np.arange(n), (), np.empty((n, 0))
+    )
     from riskbench.metrics.pseudo_observations import pseudo_observations
 
     rows = UpdatingRows(**{**rows.__dict__, "pseudo": pseudo_observations(time, outcome.astype(int), 730.5)})

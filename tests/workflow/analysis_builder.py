@@ -57,12 +57,18 @@ range = [0.0, 1000.0]
 """
 
 DEFAULTS: dict[str, dict[str, Any]] = {
-    "landmarks": {"landmarks": ["0 years", "6 months", "1 year", "18 months", "2 years"],
-                  "prediction_window": "2 years"},
+    "landmarks": {
+        "landmarks": ["0 years", "6 months", "1 year", "18 months", "2 years"],
+        "prediction_window": "2 years",
+    },
     "validation": {"folds": 3, "bootstrap_resamples": 3, "candidate": "imaging_clinical", "reference": "clinical"},
     "execution": {"workers": 1},
-    "report": {"title": "Synthetic surveillance cohort (test)", "report_horizons": ["1 year", "2 years"],
-               "small_count_threshold": 10, "example_patients": 2},
+    "report": {
+        "title": "Synthetic surveillance cohort (test)",
+        "report_horizons": ["1 year", "2 years"],
+        "small_count_threshold": 10,
+        "example_patients": 2,
+    },
 }
 
 
@@ -72,8 +78,7 @@ def _value(v: Any) -> str:
     return json.dumps(v)  # strings, numbers, booleans and lists of them are written alike in TOML
 
 
-def write_data(folder: Path, n_patients: int, *, seed: int = 5, competing: bool = True,
-               rare_patients: int = 0) -> Path:
+def write_data(folder: Path, n_patients: int, *, seed: int = 5, competing: bool = True, rare_patients: int = 0) -> Path:
     """Demo-generator cohort as CSV files in ``folder/data``.
 
     ``competing=False`` switches the competing hazard off (no competing events). ``rare_patients`` > 0 adds a
@@ -92,9 +97,15 @@ def write_data(folder: Path, n_patients: int, *, seed: int = 5, competing: bool 
     return data
 
 
-def write_config(folder: Path, *, models: Sequence[Mapping[str, Any]] = DEFAULT_MODELS,
-                 static: Sequence[str] = STATIC, name: str = "analysis", seed: int = 11,
-                 **sections: Mapping[str, Any]) -> Path:
+def write_config(
+    folder: Path,
+    *,
+    models: Sequence[Mapping[str, Any]] = DEFAULT_MODELS,
+    static: Sequence[str] = STATIC,
+    name: str = "analysis",
+    seed: int = 11,
+    **sections: Mapping[str, Any],
+) -> Path:
     """An analysis configuration reading ``folder/data``; ``sections`` override keys of the defaults
     (e.g. ``report={"triage": False}``)."""
     lines = [f"seed = {seed}"]

@@ -83,8 +83,11 @@ def test_report_horizon_beyond_the_landmark_horizon_is_rejected():
 def test_comparison_must_name_configured_models_and_cohort_errors_carry_the_file():
     data = demo_dict()
     data["validation"]["reference"] = "genomics"
-    with pytest.raises(ConfigError, match=r"\[validation\] reference = 'genomics' is not allowed: expected one of "
-                                          "the models: clinical, imaging_clinical"):
+    with pytest.raises(
+        ConfigError,
+        match=r"\[validation\] reference = 'genomics' is not allowed: expected one of "
+        "the models: clinical, imaging_clinical",
+    ):
         parse(data)
     data = demo_dict()
     data["cohort"]["max_cary_days"] = 10

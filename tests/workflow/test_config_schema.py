@@ -44,18 +44,24 @@ def test_the_previous_spelling_still_loads_and_means_the_same():
     assert new.validation.seed == new.seed  # the new spelling derives it from the one seed
 
 
-@pytest.mark.parametrize("old, new", [
-    ("[landmarks] landmarks_years", "[landmarks] landmarks = ['0 days', '0.5 years', '1 year', '1.5 years', '2 years']"),
-    ("[landmarks] horizon_years", "prediction_window = '2 years'"),
-    ("[validation] bootstrap_reps", "bootstrap_resamples = 20"),
-    ("[validation] compare", "candidate = 'imaging_clinical' and reference = 'clinical'"),
-    ("[validation] n_jobs", "[execution] workers = 2"),
-    ("[validation] seed", "top-level seed"),
-    ("[report] horizons_years", "report_horizons = ['1 year', '2 years']"),
-    ("[cohort] max_carry_days", "max_carry = '1095 days'"),
-    ("[cohort] lookback_days", "lookback = '180 days'"),
-    ("[cohort.variables.nodule_volume] slope_window_days", "slope_window = '1 year'"),
-])
+@pytest.mark.parametrize(
+    "old, new",
+    [
+        (
+            "[landmarks] landmarks_years",
+            "[landmarks] landmarks = ['0 days', '0.5 years', '1 year', '1.5 years', '2 years']",
+        ),
+        ("[landmarks] horizon_years", "prediction_window = '2 years'"),
+        ("[validation] bootstrap_reps", "bootstrap_resamples = 20"),
+        ("[validation] compare", "candidate = 'imaging_clinical' and reference = 'clinical'"),
+        ("[validation] n_jobs", "[execution] workers = 2"),
+        ("[validation] seed", "top-level seed"),
+        ("[report] horizons_years", "report_horizons = ['1 year', '2 years']"),
+        ("[cohort] max_carry_days", "max_carry = '1095 days'"),
+        ("[cohort] lookback_days", "lookback = '180 days'"),
+        ("[cohort.variables.nodule_volume] slope_window_days", "slope_window = '1 year'"),
+    ],
+)
 def test_every_old_key_gets_a_message_naming_its_new_key(old, new):
     messages = load_config(PREVIOUS).deprecations
     assert any(m.startswith(old) and "is deprecated" in m and new in m for m in messages), messages
@@ -126,7 +132,8 @@ def test_list_covariates_prints_columns_labels_and_users(capsys):
     assert rows["log_nodule_volume"].rstrip().endswith("imaging_clinical")
     assert "(log mm3)" in rows["log_nodule_volume"]
     assert "Smoking (pack-years)" in rows["pack_years"] and rows["pack_years"].rstrip().endswith(
-        "clinical, imaging_clinical")
+        "clinical, imaging_clinical"
+    )
     assert rows["n_exams"].rstrip().endswith("-")
 
 
@@ -145,9 +152,13 @@ def test_scheduler_and_tls_paths_resolve_against_the_configuration(tmp_path):
     data = tomllib.loads(DEMO.read_text())
     for table in data["sources"].values():
         table["path"] = str((DEMO.parent / table["path"]).resolve())
-    data["execution"] = {"scheduler_address": "tls://10.1.2.3:8786", "allow_remote_scheduler": True,
-                         "tls_ca_file": "ca.pem", "tls_client_cert_file": "cert.pem",
-                         "tls_client_key_file": "key.pem"}
+    data["execution"] = {
+        "scheduler_address": "tls://10.1.2.3:8786",
+        "allow_remote_scheduler": True,
+        "tls_ca_file": "ca.pem",
+        "tls_client_cert_file": "cert.pem",
+        "tls_client_key_file": "key.pem",
+    }
     config = AnalysisConfig.from_dict(data, base_dir=tmp_path)
     assert config.execution.tls_ca_file == tmp_path.resolve() / "ca.pem"
     assert config.validation.dask_address == "tls://10.1.2.3:8786"
@@ -162,7 +173,7 @@ def test_a_key_missing_one_letter_is_refused_with_a_suggestion_from_its_table(da
     fields = sorted(SECTIONS[section].model_fields)
     key = data.draw(st.sampled_from(fields))
     i = data.draw(st.integers(0, len(key) - 1))
-    typo = key[:i] + key[i + 1:]
+    typo = key[:i] + key[i + 1 :]
     assume(typo not in fields and typo not in ("n_jobs", "dask_address", "compare", "bootstrap_reps"))
     doc = tomllib.loads(DEMO.read_text())
     doc.setdefault(section, {})[typo] = 1

@@ -21,8 +21,7 @@ ROOT = Path(__file__).resolve().parents[2]
 LANDMARKS = [0.0, 182.625, 365.25, 547.875, 730.5]
 WINDOW = 730.5
 COVARIATES = ["log_nodule_volume", "suspicion_score", "serum_marker", "age_at_entry", "pack_years"]
-SHIFT = CohortShift(outcome_hazard_multiplier=2.0, age_shift_years=4.0, pack_years_multiplier=1.3,
-                    log_volume_shift=0.3)
+SHIFT = CohortShift(outcome_hazard_multiplier=2.0, age_shift_years=4.0, pack_years_multiplier=1.3, log_volume_shift=0.3)
 
 
 def _config_for(folder: Path, data: Path, name: str) -> Path:
@@ -43,12 +42,23 @@ def saved(tmp_path_factory):
 
     folder = tmp_path_factory.mktemp("external")
     dev = generate_cohort(1000, 1, n_risk_paths=0)
-    stack = build_cohort(dev.patients, dev.measurements, dev.outcomes, demo_cohort_spec()).landmark_stack(
-        LANDMARKS, WINDOW).dropna(subset=COVARIATES)
+    stack = (
+        build_cohort(dev.patients, dev.measurements, dev.outcomes, demo_cohort_spec())
+        .landmark_stack(LANDMARKS, WINDOW)
+        .dropna(subset=COVARIATES)
+    )
     model = LandmarkSupermodel(COVARIATES).fit(stack)
-    bundle = save_run_model(folder / "run", "imaging_clinical", "landmark_cox", model,
-                            cohort_rules=demo_cohort_spec(), development=stack, landmarks_days=LANDMARKS,
-                            prediction_window_days=WINDOW, horizons_days=[365.25, WINDOW])
+    bundle = save_run_model(
+        folder / "run",
+        "imaging_clinical",
+        "landmark_cox",
+        model,
+        cohort_rules=demo_cohort_spec(),
+        development=stack,
+        landmarks_days=LANDMARKS,
+        prediction_window_days=WINDOW,
+        horizons_days=[365.25, WINDOW],
+    )
     configs = {}
     for name, seed, shift in (("shifted", 3, SHIFT), ("same", 2, None)):
         data = write_cohort(generate_cohort(1000, seed, n_risk_paths=0, shift=shift), folder / name)
@@ -70,8 +80,14 @@ def test_shifted_cohort_gets_an_update_that_brings_oe_back_to_one(saved):
     html = page.read_text(encoding="utf-8")
     assert "not a medical device" in html and "Which update the new cohort warrants" in html
     assert "<script" not in html
-    for name in ("update_comparison", "closed_test", "update_parameters", "update_optimism", "external_cohort",
-                 "external_calibration"):
+    for name in (
+        "update_comparison",
+        "closed_test",
+        "update_parameters",
+        "update_optimism",
+        "external_cohort",
+        "external_calibration",
+    ):
         assert (folder / "out_shifted" / "tables" / f"{name}.csv").is_file(), name
     manifest = json.loads((folder / "out_shifted" / "manifest.json").read_text())
     assert manifest["chosen_update"][f"{WINDOW:g}"] == chosen
@@ -83,8 +99,20 @@ def test_shifted_cohort_gets_an_update_that_brings_oe_back_to_one(saved):
 
 def test_unshifted_cohort_keeps_the_original_model(saved, capsys):
     folder, bundle, _ = saved
-    code = main(["validate-model", str(bundle), "--data", str(folder / "same"), "--out",
-                 str(folder / "out_same"), "--resamples", "5", "--horizons", "1 year, 2 years"])
+    code = main(
+        [
+            "validate-model",
+            str(bundle),
+            "--data",
+            str(folder / "same"),
+            "--out",
+            str(folder / "out_same"),
+            "--resamples",
+            "5",
+            "--horizons",
+            "1 year, 2 years",
+        ]
+    )
     assert code == 0
     printed = capsys.readouterr().out
     assert printed.count("chosen: original model") == 2  # both horizons
@@ -97,8 +125,19 @@ def test_an_existing_folder_is_not_replaced_without_overwrite(saved, capsys):
     (folder / "taken" / "notes.txt").write_text("mine")
     with pytest.raises(RunFolderExists, match="--overwrite"):
         validate_saved_model(bundle, folder / "taken", config_path=configs["same"], resamples=0)
-    code = main(["validate-model", str(bundle), "--config", str(configs["same"]), "--out", str(folder / "taken"),
-                 "--overwrite", "--resamples", "0"])
+    code = main(
+        [
+            "validate-model",
+            str(bundle),
+            "--config",
+            str(configs["same"]),
+            "--out",
+            str(folder / "taken"),
+            "--overwrite",
+            "--resamples",
+            "0",
+        ]
+    )
     assert code == 2 and "not made by a riskbench run" in capsys.readouterr().err
     assert (folder / "taken" / "notes.txt").read_text() == "mine"
     with pytest.raises(ExternalRunError, match="--data"):
@@ -107,8 +146,21 @@ def test_an_existing_folder_is_not_replaced_without_overwrite(saved, capsys):
         validate_saved_model(bundle, folder / "elsewhere")
     with pytest.raises(ExternalRunError, match="prediction window"):
         validate_saved_model(bundle, folder / "elsewhere", data=folder / "same", horizons_days=[3 * 365.25])
-    assert main(["validate-model", str(bundle), "--data", str(folder / "same"), "--out", str(folder / "x"),
-                 "--horizons", "two years"]) == 2
+    assert (
+        main(
+            [
+                "validate-model",
+                str(bundle),
+                "--data",
+                str(folder / "same"),
+                "--out",
+                str(folder / "x"),
+                "--horizons",
+                "two years",
+            ]
+        )
+        == 2
+    )
     assert "--horizons" in capsys.readouterr().err
 
 

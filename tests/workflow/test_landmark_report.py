@@ -73,10 +73,18 @@ def test_decision_thresholds_run_from_the_configured_minimum() -> None:
 
 
 def test_table_shows_each_estimate_with_its_interval_and_the_pooled_label() -> None:
-    measures = pd.DataFrame({
-        "model": "m", "landmark_days": [0.0, 0.0, np.nan], "horizon_days": 730.5,
-        "metric": ["auc", "brier", "auc"], "estimate": [0.71234, 0.1, 0.7], "ci_low": [0.68, np.nan, 0.69],
-        "ci_high": [0.74, np.nan, 0.72], "resamples": [50, 0, 50]})
+    measures = pd.DataFrame(
+        {
+            "model": "m",
+            "landmark_days": [0.0, 0.0, np.nan],
+            "horizon_days": 730.5,
+            "metric": ["auc", "brier", "auc"],
+            "estimate": [0.71234, 0.1, 0.7],
+            "ci_low": [0.68, np.nan, 0.69],
+            "ci_high": [0.74, np.nan, 0.72],
+            "resamples": [50, 0, 50],
+        }
+    )
     table = performance_table(measures)
     assert list(table["landmark"]) == ["at entry", POOLED_LABEL]
     assert list(table.loc[0, ["AUC", "AUC_low", "AUC_high"]]) == [0.71234, 0.68, 0.74]  # numbers, full precision
@@ -88,14 +96,29 @@ def test_table_shows_each_estimate_with_its_interval_and_the_pooled_label() -> N
 
 
 def test_figures_draw_the_bands() -> None:
-    auc = pd.DataFrame({"model": "m", "horizon": [365.25, 730.5], "auc": [0.7, 0.72], "auc_lower": [0.65, 0.66],
-                        "auc_upper": [0.75, 0.78]})
+    auc = pd.DataFrame(
+        {
+            "model": "m",
+            "horizon": [365.25, 730.5],
+            "auc": [0.7, 0.72],
+            "auc_lower": [0.65, 0.66],
+            "auc_upper": [0.75, 0.78],
+        }
+    )
     fig = auc_curve_figure(auc, band_label="pointwise 95% band")
     assert len(fig.axes[0].collections) == 1 and "pointwise 95% band" in fig.axes[0].get_xlabel()
-    curve = pd.DataFrame({"threshold": [0.0, 0.1, 0.2], "model": [0.1, 0.06, 0.03], "model_lower": [0.08, 0.04, 0.01],
-                          "model_upper": [0.12, 0.08, 0.05], "treat_all": [0.1, 0.0, -0.1],
-                          "treat_all_lower": [0.08, -0.02, -0.12], "treat_all_upper": [0.12, 0.02, -0.08],
-                          "treat_none": 0.0})
+    curve = pd.DataFrame(
+        {
+            "threshold": [0.0, 0.1, 0.2],
+            "model": [0.1, 0.06, 0.03],
+            "model_lower": [0.08, 0.04, 0.01],
+            "model_upper": [0.12, 0.08, 0.05],
+            "treat_all": [0.1, 0.0, -0.1],
+            "treat_all_lower": [0.08, -0.02, -0.12],
+            "treat_all_upper": [0.12, 0.02, -0.08],
+            "treat_none": 0.0,
+        }
+    )
     fig = decision_curve_figure(curve, horizon_days=730.5)
     assert len(fig.axes[0].collections) == 2 and "2 years" in fig.axes[0].get_title()
     assert fig.axes[0].get_xlim()[0] == 0.0
@@ -118,17 +141,30 @@ def test_the_stage_part_writes_tables_figures_and_the_caution(tmp_path) -> None:
     stack.loc[(stack["status"] == 0) & (stack["time"] < 600) & (rng.random(len(stack)) < 0.3), "status"] = 2
     horizons = np.array([182.625, 365.25, 730.0])
     rate = (1 / 1500) * np.exp(0.6 * stack["clinical"] + 0.8 * stack["imaging"]).to_numpy()
-    risks = {"clinical": 1 - np.exp(-(1 / 1500) * np.exp(0.6 * stack["clinical"].to_numpy())[:, None] * horizons),
-             "imaging_clinical": 1 - np.exp(-rate[:, None] * horizons)}
+    risks = {
+        "clinical": 1 - np.exp(-(1 / 1500) * np.exp(0.6 * stack["clinical"].to_numpy())[:, None] * horizons),
+        "imaging_clinical": 1 - np.exp(-rate[:, None] * horizons),
+    }
     said = []
     result = StageResult(stage="comparison", run_dir=tmp_path)
-    perf = report_landmark_performance(config, stack, horizons, risks, (365.25, 730.0), result,
-                                       lambda part, text, model="", kind="not computed": said.append((part, kind)))
+    perf = report_landmark_performance(
+        config,
+        stack,
+        horizons,
+        risks,
+        (365.25, 730.0),
+        result,
+        lambda part, text, model="", kind="not computed": said.append((part, kind)),
+    )
     assert perf is not None and perf.n_boot == 20
     curve = [n for n in result.tables if n.startswith("decision_curve_")]
     assert len(curve) == 1 and {"auc_curves", curve[0]} <= set(result.figures)
-    assert {"performance_by_landmark", "performance_by_landmark_values", "landmark_outcome_counts",
-            "auc_by_horizon"} <= set(result.tables)
+    assert {
+        "performance_by_landmark",
+        "performance_by_landmark_values",
+        "landmark_outcome_counts",
+        "auc_by_horizon",
+    } <= set(result.tables)
     assert (tmp_path / "figures" / "auc_curves.png").is_file()
     assert result.tables[curve[0]]["threshold"].min() == 0.0
     assert result.tables["auc_by_horizon"][["auc_lower", "auc_upper"]].notna().all().all()
@@ -141,11 +177,25 @@ def test_landmarks_left_out_for_few_outcomes_get_a_note() -> None:
     from riskbench.validation.landmark_performance import LandmarkPerformance
     from riskbench.workflow.landmark_report import _unmeasured_notes
 
-    measures = pd.DataFrame({"model": "m", "landmark_days": [0.0, np.nan], "horizon_days": 365.25,
-                             "metric": "auc", "estimate": [0.7, np.nan], "ci_low": np.nan, "ci_high": np.nan,
-                             "resamples": 0})
+    measures = pd.DataFrame(
+        {
+            "model": "m",
+            "landmark_days": [0.0, np.nan],
+            "horizon_days": 365.25,
+            "metric": "auc",
+            "estimate": [0.7, np.nan],
+            "ci_low": np.nan,
+            "ci_high": np.nan,
+            "resamples": 0,
+        }
+    )
     said = []
-    _unmeasured_notes(LandmarkPerformance(measures, pd.DataFrame(), pd.DataFrame(), 0), _rows(), (365.25,), 10,
-                      lambda part, text, model="", kind="not computed": said.append((text, model)))
+    _unmeasured_notes(
+        LandmarkPerformance(measures, pd.DataFrame(), pd.DataFrame(), 0),
+        _rows(),
+        (365.25,),
+        10,
+        lambda part, text, model="", kind="not computed": said.append((text, model)),
+    )
     assert "not computed for 180 days after entry within 1 year: fewer than 10" in said[0][0]
     assert said[1][1] == "m" and POOLED_LABEL in said[1][0] and "(auc)" in said[1][0]

@@ -82,22 +82,30 @@ def _entry(i: int) -> date:
     return ENTRY + timedelta(days=7 * i)
 
 
-def write_data(folder: Path, *, patient_dates: Callable[[date], str] = date.isoformat,
-               kinds: tuple[str, ...] = ("end_of_follow_up", "outcome")) -> None:
+def write_data(
+    folder: Path,
+    *,
+    patient_dates: Callable[[date], str] = date.isoformat,
+    kinds: tuple[str, ...] = ("end_of_follow_up", "outcome"),
+) -> None:
     """The invented cohort: patients, long measurements and outcomes as CSV files."""
     folder.mkdir(parents=True, exist_ok=True)
     lines = ["patient_id,entry_date,birth_date,sex,pack_years"]
     for i in range(N_PATIENTS):
-        lines.append(f"Q{i:03d},{patient_dates(_entry(i))},{patient_dates(date(1950 + i % 20, 1 + i % 12, 3))},"
-                     f"{'MF'[i % 2]},{(i * 7) % 60}")
+        lines.append(
+            f"Q{i:03d},{patient_dates(_entry(i))},{patient_dates(date(1950 + i % 20, 1 + i % 12, 3))},"
+            f"{'MF'[i % 2]},{(i * 7) % 60}"
+        )
     (folder / "patients.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
     lines = ["patient_id,date,variable,value,unit"]
     for i in range(N_PATIENTS):
         for k, day in enumerate(VISIT_DAYS):
             when = (_entry(i) + timedelta(days=day)).isoformat()
-            lines += [f"Q{i:03d},{when},nodule_volume,{100 + 5 * k + i},mm3",
-                      f"Q{i:03d},{when},suspicion_score,{(i % 10) / 10},1",
-                      f"Q{i:03d},{when},serum_marker,{10 + i % 7},ng/mL"]
+            lines += [
+                f"Q{i:03d},{when},nodule_volume,{100 + 5 * k + i},mm3",
+                f"Q{i:03d},{when},suspicion_score,{(i % 10) / 10},1",
+                f"Q{i:03d},{when},serum_marker,{10 + i % 7},ng/mL",
+            ]
     (folder / "measurements.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
     lines = ["patient_id,date,kind"]
     for i in range(N_PATIENTS):
@@ -171,6 +179,7 @@ def _add(path: list, value):
         for p in path[:-1]:
             target = target.setdefault(p, {}) if isinstance(p, str) else target[p]
         target[path[-1]] = value
+
     return change
 
 
@@ -180,12 +189,14 @@ def _delete(path: list):
         for p in path[:-1]:
             target = target[p]
         del target[path[-1]]
+
     return change
 
 
 def _model(index: int, **fields):
     def change(d: dict, folder: Path) -> None:
         d["models"][index].update(fields)
+
     return change
 
 
@@ -193,6 +204,7 @@ def _both(*changes):
     def change(d: dict, folder: Path) -> None:
         for c in changes:
             c(d, folder)
+
     return change
 
 
@@ -256,120 +268,271 @@ def _run_folder(d: dict, folder: Path) -> None:
 
 
 CASES: list[tuple[str, Callable, tuple[str, ...]]] = [
-    ("misspelled covariate", _model(1, covariates=["age_at_entry", "log_nodule_volum"]),
-     ("[[models]] #2 (imaging_clinical) covariates = 'log_nodule_volum'", "did you mean 'log_nodule_volume'?",
-      "list-covariates")),
-    ("unknown forest parameter n_trees", _model(0, family="forest", params={"n_trees": 100}),
-     ("[[models]] #1 (clinical) params.n_trees = 100", "not a parameter of family 'forest'",
-      "n_estimators (default 200)")),
-    ("landmark_effects spline", _model(0, params={"landmark_effects": "spline"}),
-     ("params.landmark_effects = 'spline'", "'none', 'linear', 'quadratic'", "default 'linear'")),
-    ("forest parameter of the wrong type", _model(0, family="forest", params={"min_samples_leaf": 2.5}),
-     ("params.min_samples_leaf = 2.5", "an integer >= 1", "default 15")),
-    ("parameter the run sets itself", _model(0, family="forest", params={"random_state": 3}),
-     ("params.random_state = 3", "set by the run from the configuration's seed")),
-    ("missing static list (no demo default)", _delete(["cohort", "static"]),
-     ("covariates = 'pack_years'", "[cohort] static lists none")),
-    ("one bootstrap resample", _add(["validation", "bootstrap_resamples"], 1),
-     ("[validation] bootstrap_resamples = 1", "at least 2 resamples")),
-    ("optimism without resamples", _both(_add(["validation", "bootstrap_resamples"], 0),
-                                         _add(["validation", "optimism"], True)),
-     ("[validation] optimism = True", "bootstrap_resamples >= 2")),
+    (
+        "misspelled covariate",
+        _model(1, covariates=["age_at_entry", "log_nodule_volum"]),
+        (
+            "[[models]] #2 (imaging_clinical) covariates = 'log_nodule_volum'",
+            "did you mean 'log_nodule_volume'?",
+            "list-covariates",
+        ),
+    ),
+    (
+        "unknown forest parameter n_trees",
+        _model(0, family="forest", params={"n_trees": 100}),
+        (
+            "[[models]] #1 (clinical) params.n_trees = 100",
+            "not a parameter of family 'forest'",
+            "n_estimators (default 200)",
+        ),
+    ),
+    (
+        "landmark_effects spline",
+        _model(0, params={"landmark_effects": "spline"}),
+        ("params.landmark_effects = 'spline'", "'none', 'linear', 'quadratic'", "default 'linear'"),
+    ),
+    (
+        "forest parameter of the wrong type",
+        _model(0, family="forest", params={"min_samples_leaf": 2.5}),
+        ("params.min_samples_leaf = 2.5", "an integer >= 1", "default 15"),
+    ),
+    (
+        "parameter the run sets itself",
+        _model(0, family="forest", params={"random_state": 3}),
+        ("params.random_state = 3", "set by the run from the configuration's seed"),
+    ),
+    (
+        "missing static list (no demo default)",
+        _delete(["cohort", "static"]),
+        ("covariates = 'pack_years'", "[cohort] static lists none"),
+    ),
+    (
+        "one bootstrap resample",
+        _add(["validation", "bootstrap_resamples"], 1),
+        ("[validation] bootstrap_resamples = 1", "at least 2 resamples"),
+    ),
+    (
+        "optimism without resamples",
+        _both(_add(["validation", "bootstrap_resamples"], 0), _add(["validation", "optimism"], True)),
+        ("[validation] optimism = True", "bootstrap_resamples >= 2"),
+    ),
     ("one fold", _add(["validation", "folds"], 1), ("[validation] folds = 1", "an integer from 2")),
-    ("more folds than outcome events", _add(["validation", "folds"], 80),
-     ("[validation] folds = 80", "at most the number of patients with an outcome event")),
-    ("range with nan", _add(["cohort", "variables", "suspicion_score", "range"], [float("nan"), 1.0]),
-     ("[cohort.variables.suspicion_score] range = [nan, 1.0]", "finite numbers")),
-    ("range upside down", _add(["cohort", "variables", "suspicion_score", "range"], [1.0, 0.0]),
-     ("[cohort.variables.suspicion_score] range = [1.0, 0.0]", "min <= max")),
-    ("infinite conversion factor", _add(["cohort", "variables", "nodule_volume", "conversions"], {"cm3": math.inf}),
-     ("[cohort.variables.nodule_volume] conversions", "finite")),
-    ("landmark beyond all follow-up", _add(["landmarks", "landmarks"], ["0 years", "4 months", "10 years"]),
-     ("[landmarks] landmarks = '10 years'", "no patient is still followed")),
-    ("landmark with too few at risk", _add(["landmarks", "landmarks"], ["0 years", "4 months", "2900 days"]),
-     ("[landmarks] landmarks = '2900 days'", "fewer than 10 patients are still followed")),
-    ("day-first dates without date_format", _day_first,
-     ("[sources.patients] date_format", "do not parse", "'%d/%m/%Y'")),
-    ("dates ambiguous day-first or month-first", _ambiguous,
-     ("[sources.patients] date_format", "both day-first", "month-first")),
-    ("static not in the patients file", _add(["cohort", "static"], ["sex_male", "pack_years", "age_at_entry", "bmi"]),
-     ("[cohort] static = 'bmi'", "the file's columns: patient_id, entry_date")),
-    ("required column missing", _renamed_entry,
-     ("[sources.patients]", "no column 'entry_date'", "columns = { entry_date", "did you mean")),
+    (
+        "more folds than outcome events",
+        _add(["validation", "folds"], 80),
+        ("[validation] folds = 80", "at most the number of patients with an outcome event"),
+    ),
+    (
+        "range with nan",
+        _add(["cohort", "variables", "suspicion_score", "range"], [float("nan"), 1.0]),
+        ("[cohort.variables.suspicion_score] range = [nan, 1.0]", "finite numbers"),
+    ),
+    (
+        "range upside down",
+        _add(["cohort", "variables", "suspicion_score", "range"], [1.0, 0.0]),
+        ("[cohort.variables.suspicion_score] range = [1.0, 0.0]", "min <= max"),
+    ),
+    (
+        "infinite conversion factor",
+        _add(["cohort", "variables", "nodule_volume", "conversions"], {"cm3": math.inf}),
+        ("[cohort.variables.nodule_volume] conversions", "finite"),
+    ),
+    (
+        "landmark beyond all follow-up",
+        _add(["landmarks", "landmarks"], ["0 years", "4 months", "10 years"]),
+        ("[landmarks] landmarks = '10 years'", "no patient is still followed"),
+    ),
+    (
+        "landmark with too few at risk",
+        _add(["landmarks", "landmarks"], ["0 years", "4 months", "2900 days"]),
+        ("[landmarks] landmarks = '2900 days'", "fewer than 10 patients are still followed"),
+    ),
+    (
+        "day-first dates without date_format",
+        _day_first,
+        ("[sources.patients] date_format", "do not parse", "'%d/%m/%Y'"),
+    ),
+    (
+        "dates ambiguous day-first or month-first",
+        _ambiguous,
+        ("[sources.patients] date_format", "both day-first", "month-first"),
+    ),
+    (
+        "static not in the patients file",
+        _add(["cohort", "static"], ["sex_male", "pack_years", "age_at_entry", "bmi"]),
+        ("[cohort] static = 'bmi'", "the file's columns: patient_id, entry_date"),
+    ),
+    (
+        "required column missing",
+        _renamed_entry,
+        ("[sources.patients]", "no column 'entry_date'", "columns = { entry_date", "did you mean"),
+    ),
     ("file in another encoding", _latin1, ("[sources.patients] encoding = 'utf-8'", "latin-1")),
-    ("sex coded 0/1 without declared codes", _sex_zero_one,
-     ("[cohort.statics.sex] codes", "column 'sex'", "codes outside them", "140 of 140 sampled values")),
-    ("unknown outcome kind", _died, ("[cohort] kind_map", "'died'", "\"competing\"")),
-    ("unsafe model name", _model(0, name="x/../../escaped"),
-     ("[[models]] #1 (x/../../escaped) name = 'x/../../escaped'", "letters, digits and underscores")),
-    ("unsafe variable name", _add(["cohort", "variables", "nodule volume"], {}),
-     ("[cohort.variables] the variable name 'nodule volume' is not allowed", "letters, digits and underscores")),
-    ("unsafe level name", _add(["cohort", "statics"], {"sex": {"codes": {"M": "male!", "F": "female"},
-                                                               "reference": "female"}}),
-     ("[cohort.statics.sex] codes", "letters, digits and underscores")),
-    ("landmark effects need more landmarks", _both(_add(["landmarks", "landmarks"], ["0 years", "1 year"]),
-                                                   _model(0, params={"landmark_effects": "quadratic"})),
-     ("params.landmark_effects = 'quadratic'", "at least 3 distinct landmarks")),
-    ("remote scheduler without opt-in", _add(["execution"], {"scheduler_address": "tls://10.1.2.3:8786"}),
-     ("[execution] scheduler_address", "allow_remote_scheduler = true")),
-    ("remote scheduler with missing TLS files",
-     _add(["execution"], {"scheduler_address": "tls://10.1.2.3:8786", "allow_remote_scheduler": True,
-                          "tls_ca_file": "ca.pem", "tls_client_cert_file": "c.pem", "tls_client_key_file": "k.pem"}),
-     ("[execution]", "tls_ca_file")),
-    ("report horizon beyond the prediction window", _add(["report", "report_horizons"], ["1 year", "2 years"]),
-     ("[report] report_horizons", "no longer than [landmarks] prediction_window = '1 year'")),
-    ("candidate equals reference", _add(["validation", "reference"], "imaging_clinical"),
-     ("[validation] reference = 'imaging_clinical'", "other than the candidate")),
-    ("unknown candidate", _add(["validation", "candidate"], "imaging"),
-     ("[validation] candidate = 'imaging'", "did you mean 'imaging_clinical'?")),
+    (
+        "sex coded 0/1 without declared codes",
+        _sex_zero_one,
+        ("[cohort.statics.sex] codes", "column 'sex'", "codes outside them", "140 of 140 sampled values"),
+    ),
+    ("unknown outcome kind", _died, ("[cohort] kind_map", "'died'", '"competing"')),
+    (
+        "unsafe model name",
+        _model(0, name="x/../../escaped"),
+        ("[[models]] #1 (x/../../escaped) name = 'x/../../escaped'", "letters, digits and underscores"),
+    ),
+    (
+        "unsafe variable name",
+        _add(["cohort", "variables", "nodule volume"], {}),
+        ("[cohort.variables] the variable name 'nodule volume' is not allowed", "letters, digits and underscores"),
+    ),
+    (
+        "unsafe level name",
+        _add(["cohort", "statics"], {"sex": {"codes": {"M": "male!", "F": "female"}, "reference": "female"}}),
+        ("[cohort.statics.sex] codes", "letters, digits and underscores"),
+    ),
+    (
+        "landmark effects need more landmarks",
+        _both(
+            _add(["landmarks", "landmarks"], ["0 years", "1 year"]), _model(0, params={"landmark_effects": "quadratic"})
+        ),
+        ("params.landmark_effects = 'quadratic'", "at least 3 distinct landmarks"),
+    ),
+    (
+        "remote scheduler without opt-in",
+        _add(["execution"], {"scheduler_address": "tls://10.1.2.3:8786"}),
+        ("[execution] scheduler_address", "allow_remote_scheduler = true"),
+    ),
+    (
+        "remote scheduler with missing TLS files",
+        _add(
+            ["execution"],
+            {
+                "scheduler_address": "tls://10.1.2.3:8786",
+                "allow_remote_scheduler": True,
+                "tls_ca_file": "ca.pem",
+                "tls_client_cert_file": "c.pem",
+                "tls_client_key_file": "k.pem",
+            },
+        ),
+        ("[execution]", "tls_ca_file"),
+    ),
+    (
+        "report horizon beyond the prediction window",
+        _add(["report", "report_horizons"], ["1 year", "2 years"]),
+        ("[report] report_horizons", "no longer than [landmarks] prediction_window = '1 year'"),
+    ),
+    (
+        "candidate equals reference",
+        _add(["validation", "reference"], "imaging_clinical"),
+        ("[validation] reference = 'imaging_clinical'", "other than the candidate"),
+    ),
+    (
+        "unknown candidate",
+        _add(["validation", "candidate"], "imaging"),
+        ("[validation] candidate = 'imaging'", "did you mean 'imaging_clinical'?"),
+    ),
     ("key file inside a run folder", _run_folder, ("[privacy] key_file", "inside the run folder")),
-    ("duration without a unit", _add(["cohort", "max_carry"], "3"),
-     ("[cohort] max_carry = '3'", "a duration with a unit")),
-    ("landmarks as bare numbers under the new key", _add(["landmarks", "landmarks"], [0, 0.5]),
-     ("[landmarks] landmarks = [0, 0.5]", "a duration with a unit")),
-    ("misspelled top-level table", lambda d, f: d.update(valdation={"folds": 3}),
-     ("unknown top-level key 'valdation'", "did you mean 'validation'?")),
-    ("unknown family", _model(0, family="cox_ph"),
-     ("[[models]] #1 (clinical) family = 'cox_ph'", "'time_varying_cox'")),
-    ("misspelled key", _add(["validation", "bootstrap_resample"], 5),
-     ("[validation] has unknown key 'bootstrap_resample'", "did you mean 'bootstrap_resamples'?")),
-    ("unknown exam variable", _add(["cohort", "exam_variables"], ["ct_scan"]),
-     ("[cohort] exam_variables = 'ct_scan'", "[cohort.variables.*]")),
-    ("one imputation", _add(["missing_data"], {"imputations": 1}),
-     ("[missing_data] imputations = 1", "from 2")),
-    ("unknown per-model missing-data method", _model(0, missing_data="mean_imputation"),
-     ("missing_data = 'mean_imputation'", "'multiple_imputation'")),
-    ("triage target above 1", _add(["report", "triage_target_npv"], 1.5),
-     ("[report] triage_target_npv = 1.5", "a number from 0.5 to 1")),
-    ("negative lowest decision threshold", _add(["report", "decision_threshold_min"], -0.01),
-     ("[report] decision_threshold_min = -0.01", "a number from 0 up to")),
-    ("decision curves from above where they stop", _both(_add(["report", "decision_threshold_min"], 0.3),
-                                                         _add(["report", "decision_threshold_max"], 0.2)),
-     ("[report] decision_threshold_min = 0.3", "below decision_threshold_max = 0.2")),
-    ("stratifying on a column that does not exist", _model(0, family="time_varying_cox", params={"strata": "site"}),
-     ("params.strata = 'site'", "a column of the counting-process table")),
-    ("two models with one name", _model(1, name="clinical"),
-     ("[[models]] name = 'clinical'", "not used by another model")),
-    ("label with a line break", _add(["cohort", "variables", "serum_marker", "label"], "Serum\nmarker"),
-     ("[cohort.variables.serum_marker] label", "control characters")),
-    ("variable absent from the data with a near miss", _add(["cohort", "variables", "serum_markr"], {}),
-     ("[cohort.variables.serum_markr]", "did you mean 'serum_marker'?")),
-    ("integer written as text", _add(["validation", "folds"], "5"),
-     ("[validation] folds = '5'", "an integer from 2")),
-    ("hazard-ratio step of zero", _add(["report", "effect_units"], {"age_at_entry": 0}),
-     ("[report] effect_units", "expected steps > 0", "'iqr' or 'sd'")),
-    ("hazard-ratio step for no covariate", _add(["report", "effect_units"], {"age_at_entr": 10}),
-     ("[report] effect_units names 'age_at_entr'", "did you mean 'age_at_entry'?")),
-    ("model name with a final line break", _model(0, name="clinical\n"),
-     ("[[models]] #1", "name", "letters, digits")),
-    ("no time-varying variable", lambda d, f: (d["cohort"].pop("variables"), d["cohort"].pop("exam_variables"),
-                                               d["models"][1].update(covariates=["age_at_entry"])),
-     ("[cohort.variables] is empty", "at least one variable")),
-    ("patient ids written as decimals in the measurements file", _decimal_ids,
-     ("[sources.measurements] columns", "not in the patients file", "written as decimals")),
-    ("outcomes keyed by the wrong column", _add(["sources", "outcomes", "columns"], {"patient_id": "kind",
-                                                                                     "kind": "patient_id"}),
-     ("[sources.outcomes] columns", "not in the patients file")),
+    (
+        "duration without a unit",
+        _add(["cohort", "max_carry"], "3"),
+        ("[cohort] max_carry = '3'", "a duration with a unit"),
+    ),
+    (
+        "landmarks as bare numbers under the new key",
+        _add(["landmarks", "landmarks"], [0, 0.5]),
+        ("[landmarks] landmarks = [0, 0.5]", "a duration with a unit"),
+    ),
+    (
+        "misspelled top-level table",
+        lambda d, f: d.update(valdation={"folds": 3}),
+        ("unknown top-level key 'valdation'", "did you mean 'validation'?"),
+    ),
+    (
+        "unknown family",
+        _model(0, family="cox_ph"),
+        ("[[models]] #1 (clinical) family = 'cox_ph'", "'time_varying_cox'"),
+    ),
+    (
+        "misspelled key",
+        _add(["validation", "bootstrap_resample"], 5),
+        ("[validation] has unknown key 'bootstrap_resample'", "did you mean 'bootstrap_resamples'?"),
+    ),
+    (
+        "unknown exam variable",
+        _add(["cohort", "exam_variables"], ["ct_scan"]),
+        ("[cohort] exam_variables = 'ct_scan'", "[cohort.variables.*]"),
+    ),
+    ("one imputation", _add(["missing_data"], {"imputations": 1}), ("[missing_data] imputations = 1", "from 2")),
+    (
+        "unknown per-model missing-data method",
+        _model(0, missing_data="mean_imputation"),
+        ("missing_data = 'mean_imputation'", "'multiple_imputation'"),
+    ),
+    (
+        "triage target above 1",
+        _add(["report", "triage_target_npv"], 1.5),
+        ("[report] triage_target_npv = 1.5", "a number from 0.5 to 1"),
+    ),
+    (
+        "negative lowest decision threshold",
+        _add(["report", "decision_threshold_min"], -0.01),
+        ("[report] decision_threshold_min = -0.01", "a number from 0 up to"),
+    ),
+    (
+        "decision curves from above where they stop",
+        _both(_add(["report", "decision_threshold_min"], 0.3), _add(["report", "decision_threshold_max"], 0.2)),
+        ("[report] decision_threshold_min = 0.3", "below decision_threshold_max = 0.2"),
+    ),
+    (
+        "stratifying on a column that does not exist",
+        _model(0, family="time_varying_cox", params={"strata": "site"}),
+        ("params.strata = 'site'", "a column of the counting-process table"),
+    ),
+    (
+        "two models with one name",
+        _model(1, name="clinical"),
+        ("[[models]] name = 'clinical'", "not used by another model"),
+    ),
+    (
+        "label with a line break",
+        _add(["cohort", "variables", "serum_marker", "label"], "Serum\nmarker"),
+        ("[cohort.variables.serum_marker] label", "control characters"),
+    ),
+    (
+        "variable absent from the data with a near miss",
+        _add(["cohort", "variables", "serum_markr"], {}),
+        ("[cohort.variables.serum_markr]", "did you mean 'serum_marker'?"),
+    ),
+    ("integer written as text", _add(["validation", "folds"], "5"), ("[validation] folds = '5'", "an integer from 2")),
+    (
+        "hazard-ratio step of zero",
+        _add(["report", "effect_units"], {"age_at_entry": 0}),
+        ("[report] effect_units", "expected steps > 0", "'iqr' or 'sd'"),
+    ),
+    (
+        "hazard-ratio step for no covariate",
+        _add(["report", "effect_units"], {"age_at_entr": 10}),
+        ("[report] effect_units names 'age_at_entr'", "did you mean 'age_at_entry'?"),
+    ),
+    ("model name with a final line break", _model(0, name="clinical\n"), ("[[models]] #1", "name", "letters, digits")),
+    (
+        "no time-varying variable",
+        lambda d, f: (
+            d["cohort"].pop("variables"),
+            d["cohort"].pop("exam_variables"),
+            d["models"][1].update(covariates=["age_at_entry"]),
+        ),
+        ("[cohort.variables] is empty", "at least one variable"),
+    ),
+    (
+        "patient ids written as decimals in the measurements file",
+        _decimal_ids,
+        ("[sources.measurements] columns", "not in the patients file", "written as decimals"),
+    ),
+    (
+        "outcomes keyed by the wrong column",
+        _add(["sources", "outcomes", "columns"], {"patient_id": "kind", "kind": "patient_id"}),
+        ("[sources.outcomes] columns", "not in the patients file"),
+    ),
 ]
 
 
@@ -418,8 +581,11 @@ def test_covariates_and_parameters_are_checked_even_when_another_section_fails(s
     with pytest.raises(ConfigError) as err:
         load_config(write_config(study, data, "partial.toml"))
     keys = {p.key for p in err.value.problems}
-    assert keys == {"[validation] folds", "[[models]] #2 (imaging_clinical) covariates",
-                    "[[models]] #1 (clinical) params.landmark_effects"}
+    assert keys == {
+        "[validation] folds",
+        "[[models]] #2 (imaging_clinical) covariates",
+        "[[models]] #1 (clinical) params.landmark_effects",
+    }
 
 
 # --------------------------------------------------------------------------------------------------
@@ -435,8 +601,9 @@ def test_carry_forward_limit_just_before_a_landmark_warns(study, capsys):
     data["validation"]["folds"] = 2
     path = write_config(study, data, "carry.toml")
     config = load_config(path, check_data=True)
-    assert any("[cohort] max_carry = '1095 days' ends 0.75 days before the landmark '3 years'" in w
-               for w in config.warnings)
+    assert any(
+        "[cohort] max_carry = '1095 days' ends 0.75 days before the landmark '3 years'" in w for w in config.warnings
+    )
     assert main(["check-config", str(path)]) == 0
     assert "warning: [cohort] max_carry" in capsys.readouterr().out
     data["cohort"]["max_carry"] = "3 years"  # 1095.75 days: the values of entry reach the landmark
@@ -461,13 +628,21 @@ def test_too_few_events_per_covariate_warns_and_no_event_is_an_error(study, tmp_
     for table in ("patients", "measurements", "outcomes"):
         data["sources"][table]["path"] = str(tmp_path / "few" / f"{table}.csv")
     config = load_config(write_config(tmp_path, data), check_data=True)
-    assert any(w.startswith("[[models]] #2 (imaging_clinical) covariates = '6 covariates' is doubtful: about 10 "
-                            "outcome events per covariate") for w in config.warnings)
+    assert any(
+        w.startswith(
+            "[[models]] #2 (imaging_clinical) covariates = '6 covariates' is doubtful: about 10 "
+            "outcome events per covariate"
+        )
+        for w in config.warnings
+    )
     write_data(tmp_path / "none", kinds=("end_of_follow_up",))
     for table in ("patients", "measurements", "outcomes"):
         data["sources"][table]["path"] = str(tmp_path / "none" / f"{table}.csv")
-    with pytest.raises(ConfigError, match=r"\[cohort\] kind_map = \{\} is not allowed: no patient of .* has an "
-                                          "outcome row of kind 'outcome'"):
+    with pytest.raises(
+        ConfigError,
+        match=r"\[cohort\] kind_map = \{\} is not allowed: no patient of .* has an "
+        "outcome row of kind 'outcome'",
+    ):
         load_config(write_config(tmp_path, data), check_data=True)
 
 
@@ -493,7 +668,10 @@ def test_rare_data_defects_are_warnings_with_counts(study, tmp_path):
         fh.write(f"Q001,{_entry(1).isoformat()},nodule_volume,0.2,cm³\n")
     text = "\n".join(_warnings_on(data_dir, tmp_path))
     assert "[cohort] kind_map = {} is doubtful: the outcome kind 'transferred' (0.7% of the sampled rows" in text
-    assert "[cohort.statics.pack_years] range (at least 0): column 'pack_years'" in text and "1 of 140 sampled values" in text
+    assert (
+        "[cohort.statics.pack_years] range (at least 0): column 'pack_years'" in text
+        and "1 of 140 sampled values" in text
+    )
     assert "[cohort.variables.nodule_volume] conversions: 1 unit(s)" in text and "1 of 701 sampled values" in text
 
 
@@ -532,10 +710,12 @@ def test_parquet_sources_with_typed_dates_and_wide_measurements(study, tmp_path)
     outcomes.to_parquet(folder / "outcomes.parquet")
     wide.to_csv(folder / "wide.csv", index=False)
     data = base()
-    data["sources"] = {"date_format": "%d/%m/%Y",  # for text columns only; the Parquet dates are typed
-                       "patients": {"path": str(folder / "patients.parquet")},
-                       "measurements": {"path": str(folder / "wide.csv"), "layout": "wide", "date_format": "%Y-%m-%d"},
-                       "outcomes": {"path": str(folder / "outcomes.parquet")}}
+    data["sources"] = {
+        "date_format": "%d/%m/%Y",  # for text columns only; the Parquet dates are typed
+        "patients": {"path": str(folder / "patients.parquet")},
+        "measurements": {"path": str(folder / "wide.csv"), "layout": "wide", "date_format": "%Y-%m-%d"},
+        "outcomes": {"path": str(folder / "outcomes.parquet")},
+    }
     config = load_config(write_config(tmp_path, data), check_data=True)
     assert config.sources.measurements.layout == "wide"
     wide.drop(columns="serum_marker").to_csv(folder / "wide.csv", index=False)

@@ -31,8 +31,7 @@ def _config(folder: Path, name: str, imaging_method: str | None, method: str = "
     if imaging_method is not None:
         imaging["missing_data"] = imaging_method
     path = B.write_config(folder, models=[{**B.DEFAULT_MODELS[0], "params": CONSTANT}, imaging], name=name)
-    path.write_text(path.read_text() + f'\n[missing_data]\nmethod = "{method}"\nimputations = 3\n'
-                    "max_iterations = 3\n")
+    path.write_text(path.read_text() + f'\n[missing_data]\nmethod = "{method}"\nimputations = 3\nmax_iterations = 3\n')
     return path
 
 

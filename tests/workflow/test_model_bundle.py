@@ -27,11 +27,14 @@ _SPEC.loader.exec_module(B)
 
 MODELS = (
     {"name": "imaging_clinical", "covariates": B.IMAGING, "params": {"baseline": "stratified"}},
-    {"name": "clinical_indicator", "covariates": B.CLINICAL + ["suspicion_score"],
-     "missing_data": "missing_indicator"},
+    {"name": "clinical_indicator", "covariates": B.CLINICAL + ["suspicion_score"], "missing_data": "missing_indicator"},
     {"name": "clinical_cox", "family": "time_varying_cox", "covariates": B.CLINICAL},
-    {"name": "forest", "family": "forest", "covariates": B.IMAGING,
-     "params": {"n_estimators": 10, "min_samples_leaf": 20}},
+    {
+        "name": "forest",
+        "family": "forest",
+        "covariates": B.IMAGING,
+        "params": {"n_estimators": 10, "min_samples_leaf": 20},
+    },
 )
 
 
@@ -44,10 +47,12 @@ def run(tmp_path_factory) -> Path:
     never = set(ids[np.random.default_rng(1).uniform(size=len(ids)) < 0.3])
     gone = measurements["patient_id"].isin(never) & (measurements["variable"] == "suspicion_score")
     measurements[~gone].to_csv(data / "measurements.csv", index=False)
-    config = B.write_config(folder, models=MODELS, validation={"candidate": "imaging_clinical",
-                                                               "reference": "clinical_cox"})
-    config.write_text(config.read_text() + '\n[missing_data]\nmethod = "multiple_imputation"\nimputations = 3\n'
-                      "max_iterations = 3\n")
+    config = B.write_config(
+        folder, models=MODELS, validation={"candidate": "imaging_clinical", "reference": "clinical_cox"}
+    )
+    config.write_text(
+        config.read_text() + '\n[missing_data]\nmethod = "multiple_imputation"\nimputations = 3\nmax_iterations = 3\n'
+    )
     B.run_stages(config, folder / "run", ("cohort", "models"))
     return folder
 
@@ -92,8 +97,9 @@ def test_the_model_applied_to_its_own_raw_tables_reproduces_the_run(run: Path) -
     run's own apparent predictions exactly (same rows in the same order, same risks)."""
     saved = load_model(_bundle(run, "imaging_clinical"))
     data = run / "data"
-    result = saved.predict(sources=(data / "patients.csv", data / "measurements.csv", data / "outcomes.csv"),
-                           horizons_days=[365.25, 730.5])
+    result = saved.predict(
+        sources=(data / "patients.csv", data / "measurements.csv", data / "outcomes.csv"), horizons_days=[365.25, 730.5]
+    )
     predictions = pd.read_parquet(run / "run" / "data" / "apparent_predictions.parquet")
     for horizon in (365.25, 730.5):
         ours = result[result["horizon_days"] == horizon]
@@ -179,7 +185,8 @@ def test_rows_at_a_date_match_the_landmark_rows(run: Path) -> None:
     dates = {str(p): (entry[p] + pd.Timedelta(days=365)).date() for p in entry.index}
     at_date = saved.build_tables(*sources, at_date=dates)
     merged = at_landmark.assign(patient_id=at_landmark["patient_id"].astype(str)).merge(
-        at_date.assign(patient_id=at_date["patient_id"].astype(str)), on="patient_id", suffixes=("", "_d"))
+        at_date.assign(patient_id=at_date["patient_id"].astype(str)), on="patient_id", suffixes=("", "_d")
+    )
     assert len(merged) >= 0.9 * len(at_landmark)
     assert (merged["landmark_d"] == 365.0).all()
     for column in ("age_at_entry", "pack_years", "log_nodule_volume"):
@@ -232,8 +239,7 @@ def test_a_patient_last_seen_on_the_prediction_date_is_scored_one_with_an_event_
     assert rows[["age_at_entry", "pack_years"]].notna().all().all()
 
 
-def test_a_model_family_that_cannot_be_saved_is_refused_before_anything_is_written(run: Path,
-                                                                                   tmp_path: Path) -> None:
+def test_a_model_family_that_cannot_be_saved_is_refused_before_anything_is_written(run: Path, tmp_path: Path) -> None:
     from riskbench.workflow.model_bundle import save_run_model
 
     class Unsaveable:
@@ -241,7 +247,15 @@ def test_a_model_family_that_cannot_be_saved_is_refused_before_anything_is_writt
 
     spec = load_model(_bundle(run, "clinical_cox")).cohort_spec()
     with pytest.raises(ModelInputError, match="cannot be saved"):
-        save_run_model(tmp_path, "other", "landmark_cox", Unsaveable(), cohort_rules=spec,
-                       development=pd.DataFrame({"age_at_entry": [50.0]}), landmarks_days=[0.0],
-                       prediction_window_days=365.25, horizons_days=[365.25])
+        save_run_model(
+            tmp_path,
+            "other",
+            "landmark_cox",
+            Unsaveable(),
+            cohort_rules=spec,
+            development=pd.DataFrame({"age_at_entry": [50.0]}),
+            landmarks_days=[0.0],
+            prediction_window_days=365.25,
+            horizons_days=[365.25],
+        )
     assert not any((tmp_path / "models").glob("*"))

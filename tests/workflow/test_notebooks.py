@@ -16,7 +16,8 @@ def test_committed_notebooks_match_the_builder(tmp_path):
     for path in write_notebooks(tmp_path):
         committed = ROOT / "notebooks" / path.name
         assert committed.read_bytes() == path.read_bytes(), (
-            f"{committed} differs from the builder; run python -m riskbench.workflow.notebook_builder notebooks")
+            f"{committed} differs from the builder; run python -m riskbench.workflow.notebook_builder notebooks"
+        )
 
 
 def test_each_notebook_has_a_parameters_cell_and_only_calls_its_stage():

@@ -28,22 +28,26 @@ def test_relay_shows_new_lines_with_the_stage_and_skips_what_is_not_progress(tmp
         handle.write("not json\n" + ProgressState("bootstrap optimism", 2, 4, 10.0).to_json()[:12])  # half a line
     relay.poll()
     assert stream.getvalue().splitlines() == [
-        "stage validation: bootstrap optimism: 0 of 4 replicates, 0.0 s elapsed, estimating the time left"]
+        "stage validation: bootstrap optimism: 0 of 4 replicates, 0.0 s elapsed, estimating the time left"
+    ]
     with open(path, "a", encoding="utf-8") as handle:
         handle.write(ProgressState("bootstrap optimism", 2, 4, 10.0).to_json()[12:] + "\n")
     _write(path, [ProgressState("bootstrap optimism", 4, 4, 21.0)])
     relay.poll()
     assert stream.getvalue().splitlines()[1:] == [
         "stage validation: bootstrap optimism: 2 of 4 replicates, 10 s elapsed, about 10 s left",
-        "stage validation: bootstrap optimism: 4 of 4 replicates in 21 s"]
+        "stage validation: bootstrap optimism: 4 of 4 replicates in 21 s",
+    ]
 
 
 def test_relay_in_a_thread_ends_an_unfinished_line(tmp_path):
     """A stage that stops in the middle of a part still leaves a whole line on the terminal."""
     path = tmp_path / "progress.jsonl"
     stream = io.StringIO()
-    with (ProgressRelay(path, "comparison", stream, interactive=True, poll_s=0.01),
-          Progress("paired bootstrap", 10, [FileSink(path, interval_s=0.0)]) as progress):
+    with (
+        ProgressRelay(path, "comparison", stream, interactive=True, poll_s=0.01),
+        Progress("paired bootstrap", 10, [FileSink(path, interval_s=0.0)]) as progress,
+    ):
         progress.advance(3)
         progress.close = lambda: None  # the kernel died before telling the end
     text = stream.getvalue()
@@ -87,9 +91,15 @@ def test_executed_notebook_shows_progress_as_one_output_and_has_no_stderr(tmp_pa
     stream = io.StringIO()
     try:
         with ProgressRelay(progress_file(temp), "demo", stream, interactive=False, interval_s=0.0, poll_s=0.05):
-            pm.execute_notebook(str(source), str(executed), kernel_name=ensure_kernel(), progress_bar=False,
-                                log_output=False, cwd=str(tmp_path),
-                                kernel_manager_class=local_socket_kernel_manager(sockets, str(temp)))
+            pm.execute_notebook(
+                str(source),
+                str(executed),
+                kernel_name=ensure_kernel(),
+                progress_bar=False,
+                log_output=False,
+                cwd=str(tmp_path),
+                kernel_manager_class=local_socket_kernel_manager(sockets, str(temp)),
+            )
     finally:
         _stop_kernels(sockets)
         shutil.rmtree(sockets, ignore_errors=True)

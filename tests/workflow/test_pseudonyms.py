@@ -33,15 +33,20 @@ KEY = bytes(range(32))
 # RFC 4231, section 4.2-4.8 (test case 5 is truncated output and is left out): key, data, HMAC-SHA-256.
 RFC_4231 = [
     (b"\x0b" * 20, b"Hi There", "b0344c61d8db38535ca8afceaf0bf12b881dc200c9833da726e9376c2e32cff7"),
-    (b"Jefe", b"what do ya want for nothing?",
-     "5bdcc146bf60754e6a042426089575c75a003f089d2739839dec58b964ec3843"),
+    (b"Jefe", b"what do ya want for nothing?", "5bdcc146bf60754e6a042426089575c75a003f089d2739839dec58b964ec3843"),
     (b"\xaa" * 20, b"\xdd" * 50, "773ea91e36800e46854db8ebd09181a72959098b3ef8c122d9635514ced565fe"),
     (bytes(range(1, 26)), b"\xcd" * 50, "82558a389a443c0ea4cc819899f2083a85f0faa3e578f8077a2e3ff46729665b"),
-    (b"\xaa" * 131, b"Test Using Larger Than Block-Size Key - Hash Key First",
-     "60e431591ee0b67f0d8a26aacbf5b77f8e0bc6213728c5140546040f0ee37f54"),
-    (b"\xaa" * 131, b"This is a test using a larger than block-size key and a larger than block-size data. The key "
-                    b"needs to be hashed before being used by the HMAC algorithm.",
-     "9b09ffa71b942fcb27635fbcd5b0e944bfdc63644f0713938a7f51535c3a35e2"),
+    (
+        b"\xaa" * 131,
+        b"Test Using Larger Than Block-Size Key - Hash Key First",
+        "60e431591ee0b67f0d8a26aacbf5b77f8e0bc6213728c5140546040f0ee37f54",
+    ),
+    (
+        b"\xaa" * 131,
+        b"This is a test using a larger than block-size key and a larger than block-size data. The key "
+        b"needs to be hashed before being used by the HMAC algorithm.",
+        "9b09ffa71b942fcb27635fbcd5b0e944bfdc63644f0713938a7f51535c3a35e2",
+    ),
 ]
 
 
@@ -192,6 +197,7 @@ def _material(run: Path) -> set:
             text = data.decode("utf-8", "replace")
             found.update(re.findall(r"[A-Za-z0-9_.+\-]{1,80}", text))
             if path.suffix == ".json":
+
                 def walk(v):
                     if isinstance(v, dict):
                         for x in v.values():
@@ -201,6 +207,7 @@ def _material(run: Path) -> set:
                             walk(x)
                     elif v is not None:
                         found.add(str(v))
+
                 walk(json.loads(text))
     return found
 

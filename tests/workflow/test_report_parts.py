@@ -49,9 +49,13 @@ def _run_later(cohort: Path, name: str, **config) -> Path:
 
 
 def test_every_switch_off_leaves_its_part_out_with_a_note(cohort):
-    path = B.write_config(cohort, static=[*B.STATIC, "rare"], name="all_off",
-                          report={"triage": False, "decision_curves": False, "example_timelines": False},
-                          validation={"optimism": False})
+    path = B.write_config(
+        cohort,
+        static=[*B.STATIC, "rare"],
+        name="all_off",
+        report={"triage": False, "decision_curves": False, "example_timelines": False},
+        validation={"optimism": False},
+    )
     run_dir = cohort / "all_off"
     B.run_stages(path, run_dir)
     names = {p.stem for p in (run_dir / "tables").glob("*.csv")} | {p.stem for p in (run_dir / "figures").glob("*.png")}
@@ -78,7 +82,11 @@ def test_no_bootstrap_resamples_skips_optimism_and_comparison_with_notes(cohort)
 
 def test_weak_third_model_with_an_unreachable_npv_target_becomes_a_note(cohort):
     """The issue's failure: a weak third model and a high NPV target used to stop a finished run."""
-    weak = {"name": "weak", "covariates": ["sex_male"], "params": {"landmark_effects": "none", "baseline": "stratified"}}
+    weak = {
+        "name": "weak",
+        "covariates": ["sex_male"],
+        "params": {"landmark_effects": "none", "baseline": "stratified"},
+    }
     run_dir = _run_later(cohort, "weak", models=[*B.DEFAULT_MODELS, weak], report={"triage_target_npv": 0.995})
     notes = B.notes_of(run_dir)
     triage = notes[notes["part"] == "triage operating point"]
@@ -89,8 +97,11 @@ def test_weak_third_model_with_an_unreachable_npv_target_becomes_a_note(cohort):
     assert "[report] triage = false" in text
     curves = pd.read_csv(next((run_dir / "tables").glob("decision_curve_*.csv")))
     assert set(curves["model_name"]) == {"clinical", "imaging_clinical", "weak"}  # other parts still report
-    shown = pd.read_csv(run_dir / "tables" / "triage_operating_point.csv") if \
-        (run_dir / "tables" / "triage_operating_point.csv").exists() else pd.DataFrame({"model": []})
+    shown = (
+        pd.read_csv(run_dir / "tables" / "triage_operating_point.csv")
+        if (run_dir / "tables" / "triage_operating_point.csv").exists()
+        else pd.DataFrame({"model": []})
+    )
     assert set(shown["model"]) | set(triage["model"]) == {"clinical", "imaging_clinical", "weak"}
     assert "weak" not in set(shown["model"])
     assert html.escape(text) in (run_dir / "report.html").read_text()
@@ -102,14 +113,16 @@ def test_unreachable_target_is_a_named_error_of_the_metric():
     time = rng.uniform(10, 800, 200)
     event = (rng.uniform(size=200) < 0.2).astype(int)
     with pytest.raises(TargetUnreachable, match=r"no risk threshold reaches NPV 0.98 .*no candidate spares anyone"):
-        triage_operating_point(time, event, np.full(200, 0.3), 365.25, target_npv=0.98, n_boot=0,
-                               check_direction=False)
+        triage_operating_point(time, event, np.full(200, 0.3), 365.25, target_npv=0.98, n_boot=0, check_direction=False)
 
 
 def test_a_model_failing_in_a_cross_validation_fold_is_dropped_with_a_note(cohort):
     """``rare`` is 1 for one patient: without that patient's fold, the covariate is constant."""
-    rare = {"name": "rare_model", "covariates": ["age_at_entry", "rare"],
-            "params": {"landmark_effects": "none", "baseline": "stratified"}}
+    rare = {
+        "name": "rare_model",
+        "covariates": ["age_at_entry", "rare"],
+        "params": {"landmark_effects": "none", "baseline": "stratified"},
+    }
     run_dir = _run_later(cohort, "rare", models=[*B.DEFAULT_MODELS, rare])
     notes = B.notes_of(run_dir)
     failed = notes[(notes["stage"] == "validation") & (notes["kind"] == "fit failed")]
@@ -130,8 +143,9 @@ def test_failing_resamples_are_counted_dropped_and_their_warnings_recorded(cohor
     stack = pd.read_parquet(cohort / "cohort_run" / "data" / "landmark_stack.parquet")
     cp = pd.read_parquet(cohort / "cohort_run" / "data" / "counting_process.parquet")
     assert stack.groupby("patient_id")["rare"].first().sum() == 1
-    spec = ModelSpec("rare_model", ("age_at_entry", "rare"), "landmark_cox",
-                     {"landmark_effects": "none", "baseline": "stratified"})
+    spec = ModelSpec(
+        "rare_model", ("age_at_entry", "rare"), "landmark_cox", {"landmark_effects": "none", "baseline": "stratified"}
+    )
     source = PrecomputedTables(stack, cp)
     result = bootstrap_optimism_result([spec], source, [365.25], n_boot=8, seed=3)
     assert 0 < result.n_failed < 8
@@ -201,8 +215,11 @@ def test_a_horizon_with_too_few_outcomes_gets_a_note_instead_of_measures(cohort)
 def test_a_model_that_cannot_be_fitted_on_the_whole_cohort_is_a_note_and_the_others_report(cohort):
     """``age`` at a landmark is ``age_at_entry`` plus the landmark time, so with the smooth baseline's landmark
     term the design is collinear: that model fails, the two others go through every stage."""
-    ages = {"name": "ages", "covariates": ["age", "age_at_entry"],
-            "params": {"landmark_effects": "none", "baseline": "smooth"}}
+    ages = {
+        "name": "ages",
+        "covariates": ["age", "age_at_entry"],
+        "params": {"landmark_effects": "none", "baseline": "smooth"},
+    }
     run_dir = _run_later(cohort, "ages", models=[*B.DEFAULT_MODELS, ages])
     notes = B.notes_of(run_dir)
     failed = notes[notes["kind"] == "fit failed"]
@@ -211,6 +228,9 @@ def test_a_model_that_cannot_be_fitted_on_the_whole_cohort_is_a_note_and_the_oth
     assert "covariates 'age', 'age_at_entry' together with the landmark terms of the smooth baseline" in text
     assert "[[models]] covariates of 'ages'" in text and "left out of the rest of the report" in text
     assert not (run_dir / "tables" / "coefficients_ages.csv").exists()
-    assert set(pd.read_parquet(run_dir / "data" / "cv_predictions.parquet")["model"]) == {"clinical", "imaging_clinical"}
+    assert set(pd.read_parquet(run_dir / "data" / "cv_predictions.parquet")["model"]) == {
+        "clinical",
+        "imaging_clinical",
+    }
     assert (run_dir / "tables" / "model_comparison.csv").exists()
     assert html.escape(text) in (run_dir / "report.html").read_text()

@@ -36,16 +36,19 @@ def finished(tmp_path_factory) -> tuple[Path, dict]:
     config_path = B.write_config(folder)
     run_dir = folder / "run"
     results = B.run_stages(config_path, run_dir)
-    write_manifest(build_manifest(load_config(config_path), run_dir, started=utc_now(), finished=utc_now(),
-                                  stage_seconds={}), run_dir)
+    write_manifest(
+        build_manifest(load_config(config_path), run_dir, started=utc_now(), finished=utc_now(), stage_seconds={}),
+        run_dir,
+    )
     return run_dir, results
 
 
 def test_each_stage_result_holds_what_it_wrote(finished):
     run_dir, results = finished
     cohort = results["cohort"]
-    pd.testing.assert_frame_equal(cohort.landmark_stack.reset_index(drop=True),
-                                  pd.read_parquet(run_dir / "data" / "landmark_stack.parquet"))
+    pd.testing.assert_frame_equal(
+        cohort.landmark_stack.reset_index(drop=True), pd.read_parquet(run_dir / "data" / "landmark_stack.parquet")
+    )
     assert cohort.summary.n_patients == len(pd.read_parquet(run_dir / "data" / "patients.parquet"))
     assert isinstance(cohort.summary.plot_flow(), Figure)
 
@@ -63,8 +66,9 @@ def test_each_stage_result_holds_what_it_wrote(finished):
         models.model_summary("nonexistent")
 
     validation = results["validation"]
-    pd.testing.assert_frame_equal(validation.cv_predictions.reset_index(drop=True),
-                                  pd.read_parquet(run_dir / "data" / "cv_predictions.parquet"))
+    pd.testing.assert_frame_equal(
+        validation.cv_predictions.reset_index(drop=True), pd.read_parquet(run_dir / "data" / "cv_predictions.parquet")
+    )
     cv = validation.cv_predictions
     by_hand = cv[(cv["model"] == "clinical") & np.isclose(cv["horizon"], 730.5)].sort_values("row")["risk"]
     np.testing.assert_array_equal(validation.risks("clinical", "2 years"), by_hand.to_numpy())
@@ -79,8 +83,13 @@ def test_each_stage_result_holds_what_it_wrote(finished):
     assert isinstance(comparison.concordance.plot(), Figure)
     paired = comparison.comparison
     assert paired is not None and paired.candidate == "imaging_clinical"
-    pd.testing.assert_frame_equal(paired.table, pd.read_csv(run_dir / "tables" / "model_comparison.csv"),
-                                  check_exact=False, rtol=1e-5, check_dtype=False)
+    pd.testing.assert_frame_equal(
+        paired.table,
+        pd.read_csv(run_dir / "tables" / "model_comparison.csv"),
+        check_exact=False,
+        rtol=1e-5,
+        check_dtype=False,
+    )
     assert isinstance(paired.plot(), Figure)
     with pytest.raises(KeyError, match="computed: "):
         comparison.calibration("imaging_clinical", "7 years")
@@ -93,9 +102,14 @@ def test_results_show_as_escaped_html_with_small_counts_hidden(finished):
         assert page.startswith("<div>") and "<script" not in page
         assert "Research software, not a medical device" in page
     assert "Research software, not a medical device" in results["comparison"]._repr_html_()
-    hostile = CohortSummary(tables={"cohort_flow": pd.DataFrame({"step": ["<script>alert(1)</script>"],
-                                                                 "n_patients": ["<10"]})},
-                            flow=None, n_patients=7, n_intervals=3000, n_landmark_rows=4, threshold=10)
+    hostile = CohortSummary(
+        tables={"cohort_flow": pd.DataFrame({"step": ["<script>alert(1)</script>"], "n_patients": ["<10"]})},
+        flow=None,
+        n_patients=7,
+        n_intervals=3000,
+        n_landmark_rows=4,
+        threshold=10,
+    )
     page = hostile._repr_html_()
     assert "<script>" not in page and "&lt;script&gt;" in page
     assert "&lt;10 patients included" in page and "3000 counting-process intervals" in page
@@ -123,9 +137,19 @@ def test_the_documented_recipe_runs_on_a_finished_run(finished):
     # the refit is the configured model with one covariate fewer, fitted on the run's tables
     config = load_config(run.manifest["configuration_path"])
     spec = config.model("imaging_clinical")
-    direct = fit_model(type(spec)(spec.name, tuple(c for c in spec.covariates if c != "serum_marker"), spec.family,
-                                  spec.params, spec.missing_data),
-                       run.landmark_stack, run.counting_process, seed=config.seed, missing_data=config.missing_data)
+    direct = fit_model(
+        type(spec)(
+            spec.name,
+            tuple(c for c in spec.covariates if c != "serum_marker"),
+            spec.family,
+            spec.params,
+            spec.missing_data,
+        ),
+        run.landmark_stack,
+        run.counting_process,
+        seed=config.seed,
+        missing_data=config.missing_data,
+    )
     terms = refit.summary()
     assert "serum_marker" not in set(terms.get("term", terms.index))
     pd.testing.assert_frame_equal(terms, direct.summary())
@@ -138,8 +162,9 @@ def test_the_documented_recipe_runs_on_a_finished_run(finished):
     assert set(saved) == {"clinical", "imaging_clinical"}
     apparent = run.apparent_predictions
     by_2y = apparent[(apparent["model"] == "clinical") & np.isclose(apparent["horizon"], 730.5)].sort_values("row")
-    np.testing.assert_allclose(saved["clinical"].model.predict_risk(run.landmark_stack, 730.5), by_2y["risk"],
-                               rtol=1e-12)
+    np.testing.assert_allclose(
+        saved["clinical"].model.predict_risk(run.landmark_stack, 730.5), by_2y["risk"], rtol=1e-12
+    )
 
 
 def test_open_run_refuses_a_folder_that_is_not_a_finished_run(tmp_path):
@@ -156,8 +181,13 @@ def test_a_cox_model_of_the_models_stage_gives_its_summary_object(finished):
     _, results = finished
     cp = results["cohort"].counting_process
     cox = CoxModel(["age_at_entry", "pack_years"]).fit(cp)
-    result = ModelsStageResult(stage="models", run_dir=Path("."), models={"tv": cox},
-                               landmark_stack=results["cohort"].landmark_stack, counting_process=cp)
+    result = ModelsStageResult(
+        stage="models",
+        run_dir=Path("."),
+        models={"tv": cox},
+        landmark_stack=results["cohort"].landmark_stack,
+        counting_process=cp,
+    )
     summary = result.model_summary("tv")
     assert summary.n_rows == len(cp) and summary.n_events == int((cp["status"] == 1).sum())
     assert "Cox proportional-hazards model" in summary._repr_html_()

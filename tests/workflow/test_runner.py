@@ -40,11 +40,13 @@ def _notebook(code: str) -> nbformat.NotebookNode:
     return new_notebook(cells=[params, new_code_cell(code)])
 
 
-WRITE = ("from pathlib import Path\n"
-         "from riskbench.workflow.config import load_config\n"
-         "c = load_config(config_path)\n"
-         "(Path(run_dir) / 'tables').mkdir(exist_ok=True)\n"
-         "(Path(run_dir) / 'tables' / '{name}.csv').write_text(f'seed,{{c.seed}}\\n')\n")
+WRITE = (
+    "from pathlib import Path\n"
+    "from riskbench.workflow.config import load_config\n"
+    "c = load_config(config_path)\n"
+    "(Path(run_dir) / 'tables').mkdir(exist_ok=True)\n"
+    "(Path(run_dir) / 'tables' / '{name}.csv').write_text(f'seed,{{c.seed}}\\n')\n"
+)
 
 
 @pytest.fixture()
@@ -59,8 +61,9 @@ def project(tmp_path: Path) -> dict:
 
 
 def _run(project: dict, stages, **kw):
-    return run_analysis(project["config"], project["out"], notebooks_dir=project["books"], stages=stages,
-                        log=None, **kw)
+    return run_analysis(
+        project["config"], project["out"], notebooks_dir=project["books"], stages=stages, log=None, **kw
+    )
 
 
 def test_run_writes_outputs_html_and_manifest_then_refuses_to_overwrite(project):
@@ -121,8 +124,9 @@ def test_executed_notebooks_name_the_run_folder_never_the_staging_folder(project
     """papermill records the folder a notebook ran in, its paths and parameters, and cells print paths: after
     the run is moved into place none of them names the staging folder (which no longer exists)."""
     books = project["books"]
-    nbformat.write(_notebook(WRITE.format(name="three") + "print(Path(run_dir) / 'tables')\n"),
-                   str(books / "three.ipynb"))
+    nbformat.write(
+        _notebook(WRITE.format(name="three") + "print(Path(run_dir) / 'tables')\n"), str(books / "three.ipynb")
+    )
     _run(project, [("third", "three.ipynb")])
     out = project["out"].resolve()
     staging_name = f".{out.name}.partial"

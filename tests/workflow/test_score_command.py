@@ -35,8 +35,9 @@ def run(tmp_path_factory) -> Path:
     folder = tmp_path_factory.mktemp("score")
     B.write_data(folder, 250, seed=3)
     config = B.write_config(folder, models=MODELS)
-    config.write_text(config.read_text() + '\n[missing_data]\nmethod = "multiple_imputation"\nimputations = 2\n'
-                      "max_iterations = 2\n")
+    config.write_text(
+        config.read_text() + '\n[missing_data]\nmethod = "multiple_imputation"\nimputations = 2\nmax_iterations = 2\n'
+    )
     B.run_stages(config, folder / "run", ("cohort", "models"))
     return folder
 
@@ -46,8 +47,7 @@ def _score(run: Path, out: Path, *args: str, model: str = "imaging_clinical") ->
 
 
 def _risks(out: Path) -> pd.DataFrame:
-    return pd.read_csv(out / "risks.csv", float_precision="round_trip", keep_default_na=False,
-                       na_values={"risk": [""]})
+    return pd.read_csv(out / "risks.csv", float_precision="round_trip", keep_default_na=False, na_values={"risk": [""]})
 
 
 def test_scoring_the_development_tables_reproduces_the_runs_predictions(run: Path, tmp_path: Path) -> None:
@@ -59,10 +59,12 @@ def test_scoring_the_development_tables_reproduces_the_runs_predictions(run: Pat
     for horizon in (365.25, 730.5):
         theirs = predictions[(predictions["model"] == "imaging_clinical") & np.isclose(predictions["horizon"], horizon)]
         expected = stack[["patient_id", "landmark"]].assign(risk=theirs.sort_values("row")["risk"].to_numpy())
-        ours = risks[risks["horizon_days"] == horizon].rename(columns={"patient": "patient_id",
-                                                                       "landmark_days": "landmark"})
-        merged = expected.merge(ours, on=["patient_id", "landmark"], how="outer", suffixes=("_run", "_scored"),
-                                indicator=True)
+        ours = risks[risks["horizon_days"] == horizon].rename(
+            columns={"patient": "patient_id", "landmark_days": "landmark"}
+        )
+        merged = expected.merge(
+            ours, on=["patient_id", "landmark"], how="outer", suffixes=("_run", "_scored"), indicator=True
+        )
         # the same pseudonymised patients at the same landmarks
         assert len(merged) == len(stack) > 500 and (merged["_merge"] == "both").all()
         np.testing.assert_array_equal(merged["risk_scored"].to_numpy(), merged["risk_run"].to_numpy())
@@ -87,11 +89,13 @@ def test_ids_stay_out_of_the_output_unless_asked_for(run: Path, tmp_path: Path) 
 def test_a_hostile_id_is_neutralised_in_the_csv(run: Path, tmp_path: Path) -> None:
     data = tmp_path / "data"
     shutil.copytree(run / "data", data)
-    tables = {name: pd.read_csv(data / f"{name}.csv", dtype={"patient_id": str}) for name in
-              ("patients", "measurements", "outcomes")}
+    tables = {
+        name: pd.read_csv(data / f"{name}.csv", dtype={"patient_id": str})
+        for name in ("patients", "measurements", "outcomes")
+    }
     first = tables["patients"]["patient_id"].iloc[0]
     for name, table in tables.items():
-        table["patient_id"] = table["patient_id"].replace(first, "=HYPERLINK(\"http://x\")")
+        table["patient_id"] = table["patient_id"].replace(first, '=HYPERLINK("http://x")')
         table.to_csv(data / f"{name}.csv", index=False)
     out = tmp_path / "scored"
     assert _score(run, out, "--data", str(data), "--keep-ids") == 0
@@ -138,8 +142,16 @@ def test_a_changed_model_is_refused_with_exit_status_2(run: Path, tmp_path: Path
     doc = json.loads((models / "clinical.json").read_text())
     doc["outcome"]["coef"][0] += 0.5
     (models / "clinical.json").write_text(json.dumps(doc))
-    status = main(["score-patients", str(models / "clinical.bundle.json"), "--out", str(tmp_path / "o"),
-                   "--data", str(run / "data")])
+    status = main(
+        [
+            "score-patients",
+            str(models / "clinical.bundle.json"),
+            "--out",
+            str(tmp_path / "o"),
+            "--data",
+            str(run / "data"),
+        ]
+    )
     assert status == 2 and "SHA-256" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
 
@@ -152,15 +164,24 @@ def test_rows_a_complete_case_model_cannot_predict_say_why(run: Path, tmp_path: 
     stack = pd.read_parquet(run / "run" / "data" / "landmark_stack.parquet")
     model = MissingDataModel(LandmarkSupermodel(B.IMAGING, baseline="stratified"), method="complete_cases").fit(stack)
     spec = load_model(run / "run" / "models" / "clinical.bundle.json").cohort_spec()
-    bundle = save_run_model(tmp_path / "run", "complete", "landmark_cox", model, cohort_rules=spec, development=stack,
-                            landmarks_days=[0.0, 182.625, 365.25, 547.875, 730.5], prediction_window_days=730.5,
-                            horizons_days=[730.5])
+    bundle = save_run_model(
+        tmp_path / "run",
+        "complete",
+        "landmark_cox",
+        model,
+        cohort_rules=spec,
+        development=stack,
+        landmarks_days=[0.0, 182.625, 365.25, 547.875, 730.5],
+        prediction_window_days=730.5,
+        horizons_days=[730.5],
+    )
     data = tmp_path / "data"
     shutil.copytree(run / "data", data)
     measurements = pd.read_csv(data / "measurements.csv")
     some = measurements["patient_id"].isin(measurements["patient_id"].unique()[:40])
-    measurements[~(some & (measurements["variable"] == "suspicion_score"))].to_csv(data / "measurements.csv",
-                                                                                   index=False)
+    measurements[~(some & (measurements["variable"] == "suspicion_score"))].to_csv(
+        data / "measurements.csv", index=False
+    )
     out = tmp_path / "scored"
     assert main(["score-patients", str(bundle), "--out", str(out), "--data", str(data), "--keep-ids"]) == 0
     risks = _risks(out)
@@ -179,8 +200,9 @@ def test_values_older_than_the_carry_forward_limit_are_flagged(run: Path, tmp_pa
     patients = pd.read_csv(data / "patients.csv")
     entry = pd.to_datetime(measurements["patient_id"].map(patients.set_index("patient_id")["entry_date"]))
     stopped = patients["patient_id"].iloc[:60]
-    late = measurements["patient_id"].isin(stopped) & (pd.to_datetime(measurements["date"]) - entry
-                                                        > pd.Timedelta(days=180))
+    late = measurements["patient_id"].isin(stopped) & (
+        pd.to_datetime(measurements["date"]) - entry > pd.Timedelta(days=180)
+    )
     measurements[~late].to_csv(data / "measurements.csv", index=False)
     out = tmp_path / "scored"
     assert _score(run, out, "--data", str(data), "--keep-ids", "--landmarks", "4 years", model="clinical") == 0
@@ -210,7 +232,8 @@ def test_a_sources_only_configuration_with_its_own_column_names_and_date_format(
         '[sources.patients]\npath = "p.csv"\ncolumns = { patient_id = "PatientNo", entry_date = "FirstCT" }\n'
         '[sources.measurements]\npath = "m.csv"\ncolumns = { patient_id = "PatientNo" }\n'
         '[sources.outcomes]\npath = "o.csv"\ncolumns = { patient_id = "PatientNo" }\n'
-        f'[privacy]\nkey_file = "{tmp_path / "shared.key"}"\n')
+        f'[privacy]\nkey_file = "{tmp_path / "shared.key"}"\n'
+    )
     ours, theirs = tmp_path / "ours", tmp_path / "theirs"
     assert _score(run, theirs, "--config", str(site / "site.toml")) == 0
     assert _score(run, ours, "--data", str(run / "data"), "--key-file", str(tmp_path / "shared.key")) == 0
@@ -231,8 +254,9 @@ def test_patients_without_an_outcomes_table_are_scored_as_followed_until_a_date(
     assert _score(run, open_, "--data", str(data), "--keep-ids", "--followed-until", until, model="clinical") == 0
     known = tmp_path / "known"
     assert _score(run, known, "--data", str(run / "data"), "--keep-ids", model="clinical") == 0
-    merged = _risks(known).merge(_risks(open_), on=["patient_id", "landmark_days", "horizon_days"],
-                                 suffixes=("_known", "_open"))
+    merged = _risks(known).merge(
+        _risks(open_), on=["patient_id", "landmark_days", "horizon_days"], suffixes=("_known", "_open")
+    )
     assert len(merged) == len(_risks(known))  # everyone at risk with outcomes known is scored without them
     np.testing.assert_array_equal(merged["risk_open"].to_numpy(), merged["risk_known"].to_numpy())
     assert len(_risks(open_)) > len(merged)  # and patients whose outcome came earlier are scored too

@@ -40,8 +40,9 @@ def _config(families):
             raise ConfigError(f"no model named {name!r}")
         return models[name]
 
-    return SimpleNamespace(report=SimpleNamespace(small_count_threshold=10), validation=SimpleNamespace(seed=3),
-                           model=model)
+    return SimpleNamespace(
+        report=SimpleNamespace(small_count_threshold=10), validation=SimpleNamespace(seed=3), model=model
+    )
 
 
 @pytest.fixture(scope="module")
@@ -66,8 +67,9 @@ def test_each_model_is_calibrated_against_its_estimand(stack, tmp_path):
     config = _config({"landmark": ("landmark_cox", {}), "forest": ("forest", {})})
     result = StageResult(stage="comparison", run_dir=tmp_path)
     notes = _Notes()
-    calibration_part(config, time, status, patient, {HORIZON: {"landmark": cif, "forest": cs}}, result, notes,
-                     lambda h: "2y")
+    calibration_part(
+        config, time, status, patient, {HORIZON: {"landmark": cif, "forest": cs}}, result, notes, lambda h: "2y"
+    )
     table = result.tables["calibration_summary"].set_index("model")
     assert table.loc["landmark", "prediction"] == "cumulative incidence"
     assert table.loc["forest", "prediction"] == "cause-specific 1 − S"
@@ -90,8 +92,9 @@ def test_a_model_that_cannot_be_calibrated_becomes_a_note(stack, tmp_path):
     coarse = np.where(np.arange(time.size) % 10 == 0, 0.2, 0.1)  # 90% of the rows share one risk
     result = StageResult(stage="comparison", run_dir=tmp_path)
     notes = _Notes()
-    calibration_part(config, time, status, patient, {HORIZON: {"coarse": coarse, "landmark": cif}}, result, notes,
-                     lambda h: "2y")
+    calibration_part(
+        config, time, status, patient, {HORIZON: {"coarse": coarse, "landmark": cif}}, result, notes, lambda h: "2y"
+    )
     assert [n[1] for n in notes.added] == ["coarse"] and "distinct values" in notes.added[0][2]
     table = result.tables["calibration_summary"]
     assert list(table["model"]) == ["landmark"]

@@ -55,7 +55,9 @@ bootstrap_resamples = 0
 
 
 def _raw_tables():
-    spec = importlib.util.spec_from_file_location("stanford_raw", HERE.parent / "cohort" / "test_stanford_end_to_end.py")
+    spec = importlib.util.spec_from_file_location(
+        "stanford_raw", HERE.parent / "cohort" / "test_stanford_end_to_end.py"
+    )
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)
     return module._raw_tables(load_stanford_heart_transplants())
@@ -66,8 +68,9 @@ def run(tmp_path_factory) -> Path:
     folder = tmp_path_factory.mktemp("stanford")
     (folder / "data").mkdir()
     patients, measurements, outcomes = _raw_tables()
-    patients = patients.drop(columns=["acceptance_date"]).rename(columns={"age": "age_minus_48",
-                                                                          "year": "years_since_1967"})
+    patients = patients.drop(columns=["acceptance_date"]).rename(
+        columns={"age": "age_minus_48", "year": "years_since_1967"}
+    )
     for name, table in (("patients", patients), ("measurements", measurements), ("outcomes", outcomes)):
         table = table.copy()
         for column in table.columns:

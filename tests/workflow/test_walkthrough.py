@@ -19,7 +19,8 @@ def test_committed_walkthrough_matches_the_builder(tmp_path):
     built = write_walkthrough(tmp_path)
     committed = ROOT / "notebooks" / WALKTHROUGH
     assert committed.read_bytes() == built.read_bytes(), (
-        "run python -m riskbench.workflow.walkthrough_notebook notebooks")
+        "run python -m riskbench.workflow.walkthrough_notebook notebooks"
+    )
 
 
 def test_guide_lists_every_family_and_parameter_with_its_default():
@@ -59,13 +60,24 @@ def test_walkthrough_checks_the_messy_demo_and_accounts_for_every_row(tmp_path):
 
     executed = tmp_path / "walkthrough.ipynb"
     pm.execute_notebook(
-        str(ROOT / "notebooks" / WALKTHROUGH), str(executed), kernel_name=ensure_kernel(),
-        parameters={"config_path": str(ROOT / "configs" / "messy_demo.toml"), "out": str(tmp_path / "run"),
-                    "run": False},
-        cwd=str(tmp_path), progress_bar=False)
+        str(ROOT / "notebooks" / WALKTHROUGH),
+        str(executed),
+        kernel_name=ensure_kernel(),
+        parameters={
+            "config_path": str(ROOT / "configs" / "messy_demo.toml"),
+            "out": str(tmp_path / "run"),
+            "run": False,
+        },
+        cwd=str(tmp_path),
+        progress_bar=False,
+    )
     nb = nbformat.read(str(executed), as_version=4)
-    text = "\n".join(str(o.get("data", {}).get("text/plain", "")) + str(o.get("text", ""))
-                     for c in nb.cells if c.cell_type == "code" for o in c.get("outputs", []))
+    text = "\n".join(
+        str(o.get("data", {}).get("text/plain", "")) + str(o.get("text", ""))
+        for c in nb.cells
+        if c.cell_type == "code"
+        for o in c.get("outputs", [])
+    )
     assert "log_nodule_volume_change" in text and "imaging_clinical" in text
     assert "later_event" in text and "exact_duplicate" in text
     assert not (tmp_path / "run").exists()
