@@ -21,7 +21,7 @@ each row (``patient_id``, ``landmark`` in days, the baseline covariates), the pr
 ``(landmark, landmark + horizon]`` given survival to the landmark and the patient's measurements taken at or
 before the landmark -- the measurement history given to :meth:`JointModel.fit` or :meth:`JointModel.set_history`,
 keyed by ``patient_id`` (see :mod:`riskbench.models.joint_prediction`). A measurement after a row's landmark
-never changes its prediction.
+never changes its prediction, and neither do the other rows or horizons predicted in the same call.
 """
 
 from __future__ import annotations
@@ -58,6 +58,7 @@ from riskbench.models.joint_prediction import (
 )
 from riskbench.models.joint_structure import JointStructure
 from riskbench.models.risk_contract import ModelInputError, check_horizon, prediction_origin
+from riskbench.models.row_streams import row_keys, row_normals
 from riskbench.time_units import DAYS_PER_YEAR
 
 __all__ = ["ASSOCIATIONS", "JointModel"]
@@ -109,9 +110,11 @@ class JointModel(BaseEstimator):
     prediction_draws : int
         Monte Carlo draws of the random effects per prediction row.
     grid_steps : int
-        Steps of the product-integral over the prediction window.
+        Steps per year of the product-integral's time grid (steps also end at the baseline knots; see
+        :mod:`riskbench.models.joint_window`).
     random_state : int
-        Seed of the Monte Carlo predictions.
+        Seed of the Monte Carlo predictions; each row draws from its own stream, seeded by this and the row's
+        data: landmark, covariates and measurement history (:mod:`riskbench.models.row_streams`).
 
     Attributes (after fit)
     ----------------------
@@ -144,7 +147,7 @@ class JointModel(BaseEstimator):
         adaptive_rounds: int = 2,
         max_iter: int = 1000,
         prediction_draws: int = 100,
-        grid_steps: int = 24,
+        grid_steps: int = 6,
         random_state: int = 0,
     ) -> None:
         self.marker = marker
@@ -345,7 +348,11 @@ class JointModel(BaseEstimator):
             raise ModelInputError("this JointModel is not fitted yet; call fit(measurements, survival) first")
 
     # ------------------------------------------------------------------ prediction
-    def _rows(self, table: pd.DataFrame, measurements: pd.DataFrame | None = None) -> PredictionRows:
+    def _rows(
+        self, table: pd.DataFrame, measurements: pd.DataFrame | None = None
+    ) -> tuple[PredictionRows, list[bytes]]:
+        """The prediction rows and each row's identity (the key of its random stream): its landmark, covariates
+        and measurement history, all that its prediction depends on."""
         structure = self.structure_
         landmark = prediction_origin(table) / DAYS_PER_YEAR
         if "patient_id" not in table.columns:
@@ -365,7 +372,9 @@ class JointModel(BaseEstimator):
             covariate_block(table, list(c), "prediction table") - m
             for c, m in zip(structure.cause_covariates, structure.cause_means)
         )
-        return PredictionRows(landmark, history, marker_x - structure.marker_means, cause_x)
+        rows = PredictionRows(landmark, history, marker_x - structure.marker_means, cause_x)
+        columns = np.column_stack([landmark, rows.marker_x, *cause_x])
+        return rows, row_keys(columns, history.patient, np.column_stack([history.time, history.value]))
 
     def _chunks(self, n_rows: int, width: int) -> list[slice]:
         size = max(1, _CELLS_PER_CHUNK // max(1, int(self.prediction_draws) * width))
@@ -386,13 +395,15 @@ class JointModel(BaseEstimator):
         horizons = np.asarray(times, dtype=float) / DAYS_PER_YEAR
         if np.any(~np.isfinite(horizons)) or np.any(horizons < 0):
             raise ModelInputError(f"times must be non-negative numbers of days, got {list(times)[:5]}")
-        rows = self._rows(table, measurements)
-        rng = np.random.default_rng(self.random_state)
+        rows, keys = self._rows(table, measurements)
         out = np.zeros((len(rows), len(horizons)))
-        width = int(self.grid_steps) + len(horizons) + len(self.structure_.knots) * self.legendre_points
+        top = float(horizons.max()) if len(horizons) else 0.0
+        knots = len(self.structure_.knots)
+        width = int(np.ceil(top * self.grid_steps)) + 2 * knots + len(horizons) + knots * self.legendre_points
         for part in self._chunks(len(rows), width):
             sub = rows.subset(part)
-            draws, weights = posterior_draws(self.structure_, self.theta_, sub, int(self.prediction_draws), rng)
+            z = row_normals(self.random_state, keys[part], (int(self.prediction_draws), 2))
+            draws, weights = posterior_draws(self.structure_, self.theta_, sub, z)
             out[part] = risk_given_draws(
                 self.structure_, self.theta_, sub, draws, weights, horizons, int(self.grid_steps)
             )
@@ -418,17 +429,20 @@ class JointModel(BaseEstimator):
 
         For each of ``parameter_draws`` draws ``θ⁽ᵐ⁾ ~ N(θ̂, covariance_)`` the risk is averaged over
         ``draws_per_parameter`` posterior draws of ``b``; the table gives, per row and horizon (days), the mean
-        and median of those risks and their 2.5% and 97.5% quantiles.
+        and median of those risks and their 2.5% and 97.5% quantiles. The parameter draws come from the seed
+        alone and each row's draws of ``b`` from its own stream, so a row's numbers do not depend on the others.
         """
         self._check_fitted()
-        rng = np.random.default_rng(self.random_state if seed is None else seed)
-        rows = self._rows(table)
+        seed = self.random_state if seed is None else seed
+        rng = np.random.default_rng(seed)
+        rows, keys = self._rows(table)
         horizons_years = np.asarray(horizons, dtype=float) / DAYS_PER_YEAR
         chol = np.linalg.cholesky(_nearest_positive(self.covariance_))
         risks = np.empty((parameter_draws, len(rows), len(horizons_years)))
         for m in range(parameter_draws):
             theta = self.theta_ + chol @ rng.standard_normal(len(self.theta_))
-            draws, weights = posterior_draws(self.structure_, theta, rows, draws_per_parameter, rng)
+            z = row_normals(seed, keys, (draws_per_parameter, 2), stream=m + 1)
+            draws, weights = posterior_draws(self.structure_, theta, rows, z)
             risks[m] = risk_given_draws(
                 self.structure_, theta, rows, draws, weights, horizons_years, int(self.grid_steps)
             )
@@ -457,9 +471,9 @@ class JointModel(BaseEstimator):
         Each row uses its measurements up to its landmark and its survival to the landmark.
         """
         self._check_fitted()
-        rows = self._rows(table)
-        rng = np.random.default_rng(self.random_state)
-        draws, weights = posterior_draws(self.structure_, self.theta_, rows, int(self.prediction_draws), rng)
+        rows, keys = self._rows(table)
+        z = row_normals(self.random_state, keys, (int(self.prediction_draws), 2))
+        draws, weights = posterior_draws(self.structure_, self.theta_, rows, z)
         grid = np.asarray(times, dtype=float) / DAYS_PER_YEAR
         mean, lower, upper = marker_band(self.structure_, self.theta_, rows, draws, weights, grid, level)
         n, t = mean.shape

@@ -17,10 +17,14 @@ Monte Carlo scheme (seeded):
 * with ``parameter_draws > 0`` the parameters are drawn too, ``θ⁽ᵐ⁾ ~ N(θ̂, var(θ̂))``, each with its own
   ``b`` draws, and the prediction is the mean of the ``π⁽ᵐ⁾`` with the 2.5% and 97.5% quantiles as an
   interval (the published scheme); otherwise ``θ = θ̂``;
-* the cumulative incidence over ``(s, s + w]`` is the product-integral of the cause-specific hazards on a grid
-  of ``grid_steps`` steps (midpoint hazards; :func:`riskbench.models.risk_contract.cumulative_incidence`).
+* the cumulative incidence over ``(s, s + w]`` is the product-integral of the cause-specific hazards
+  (Aalen & Johansen 1978) over steps ending at the multiples of ``1 / steps_per_year`` years and at the
+  baseline knots, cut at ``s`` and ``s + w`` (:mod:`riskbench.models.joint_window`), each step's hazards held
+  at their midpoint values and integrated exactly (:func:`riskbench.models.joint_window.step_factors`).
 
-Only measurements at or before each row's ``s`` enter its prediction (leakage-free by construction).
+Only measurements at or before each row's ``s`` enter its prediction (leakage-free by construction). A row's
+prediction is a function of the row and the model only: its standard normal draws come from its own stream
+(:mod:`riskbench.models.row_streams`) and its time grid does not depend on the other horizons asked for.
 """
 
 from __future__ import annotations
@@ -33,7 +37,7 @@ from riskbench.models.joint_data import History, fixed_design, marker_sums
 from riskbench.models.joint_likelihood import marker_posterior
 from riskbench.models.joint_quadrature import legendre_pieces, piece_index
 from riskbench.models.joint_structure import JointStructure
-from riskbench.models.risk_contract import cumulative_incidence
+from riskbench.models.joint_window import grid_edges, last_edge, step_factors
 
 __all__ = ["PredictionRows", "marker_band", "posterior_draws", "risk_given_draws", "rows_history"]
 
@@ -106,15 +110,17 @@ def _log_hazard(
 
 
 def posterior_draws(
-    structure: JointStructure, theta: np.ndarray, rows: PredictionRows, n_draws: int, rng: np.random.Generator
+    structure: JointStructure, theta: np.ndarray, rows: PredictionRows, z: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Draws of ``b`` (R, K, 2) and their normalised importance weights (R, K) given ``T > s`` and ``Y(s)``."""
-    n = len(rows)
+    """Draws of ``b`` (R, K, 2) and their normalised importance weights (R, K) given ``T > s`` and ``Y(s)``.
+
+    ``z`` (R, K, 2) holds each row's standard normal draws (:func:`riskbench.models.row_streams.row_normals`).
+    """
+    n, n_draws = z.shape[:2]
     beta, sigma, chol = structure.layout.marker_parts(theta)
     x = rows.marker_x[rows.history.patient]
     fixed, _ = fixed_design(structure.basis, rows.history.time, x)
     mean, cov = marker_posterior(marker_sums(rows.history, fixed, n), beta, sigma, chol)
-    z = rng.standard_normal((n, n_draws, 2))
     draws = mean[:, None, :] + np.einsum("nij,nkj->nki", np.linalg.cholesky(cov), z)
     times, weights = legendre_pieces(rows.landmark, structure.knots, structure.legendre_points)
     log_w = np.zeros((n, n_draws))
@@ -133,23 +139,41 @@ def risk_given_draws(
     draws: np.ndarray,
     weights: np.ndarray,
     horizons: np.ndarray,
-    grid_steps: int,
+    steps_per_year: int,
 ) -> np.ndarray:
-    """Weighted mean over draws of the outcome's cumulative incidence over ``(s, s + h]`` -> (R, len(h))."""
+    """Weighted mean over draws of the outcome's cumulative incidence over ``(s, s + h]`` -> (R, len(h)).
+
+    Parameters
+    ----------
+    horizons : ndarray (H,)
+        Horizons ``h`` (years).
+    steps_per_year : int
+        Steps per year of the grid (:func:`riskbench.models.joint_window.grid_edges`).
+    """
     horizons = np.asarray(horizons, dtype=float)
+    n = len(rows)
     top = float(horizons.max()) if len(horizons) else 0.0
     if top <= 0:
-        return np.zeros((len(rows), len(horizons)))
-    edges = np.unique(np.concatenate([np.linspace(0.0, top, grid_steps + 1), horizons, [0.0]]))
-    mids, width = 0.5 * (edges[1:] + edges[:-1]), np.diff(edges)
-    times = rows.landmark[:, None] + mids[None, :]  # (R, J)
-    increments = [
-        np.exp(_log_hazard(structure, theta, rows, c, draws, times)) * width for c in range(len(structure.cause_terms))
-    ]
-    incidence = cumulative_incidence(increments[0], increments[1] if len(increments) > 1 else None)
-    incidence = np.concatenate([np.zeros(incidence.shape[:-1] + (1,)), incidence], axis=-1)  # at each edge
-    at = np.searchsorted(edges, horizons)
-    return np.einsum("nk,nkh->nh", weights, incidence[..., at])
+        return np.zeros((n, len(horizons)))
+    causes = range(len(structure.cause_terms))
+    edges = grid_edges(rows.landmark, top, structure.knots, steps_per_year)  # (R, M + 1)
+    m = edges.shape[1] - 1
+    # each horizon reads the product-integral at its last edge and adds one partial step to s + h
+    ends = rows.landmark[:, None] + horizons[None, :]  # (R, H)
+    at = last_edge(edges, ends)
+    low = np.take_along_axis(edges, at, axis=1)
+    # the grid's M steps, then the H partial steps, in one pass over the hazards
+    left, right = np.concatenate([edges[:, :-1], low], axis=1), np.concatenate([edges[:, 1:], ends], axis=1)
+    mids, width = 0.5 * (left + right), right - left
+    increments = [np.exp(_log_hazard(structure, theta, rows, c, draws, mids)) * width[:, None, :] for c in causes]
+    gain, kept = step_factors(increments)
+    survival = np.ones(gain.shape[:-1] + (m + 1,))  # all-cause survival at each edge
+    np.cumprod(kept[..., :m], axis=-1, out=survival[..., 1:])
+    incidence = np.zeros_like(survival)
+    np.cumsum(survival[..., :-1] * gain[..., :m], axis=-1, out=incidence[..., 1:])
+    index = np.broadcast_to(at[:, None, :], (n, draws.shape[1], len(horizons)))
+    risk = np.take_along_axis(incidence, index, axis=-1) + np.take_along_axis(survival, index, axis=-1) * gain[..., m:]
+    return np.einsum("nk,nkh->nh", weights, np.clip(risk, 0.0, 1.0))
 
 
 def marker_band(

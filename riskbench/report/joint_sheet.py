@@ -26,7 +26,7 @@ from riskbench.models.joint_likelihood import marker_posterior
 from riskbench.models.joint_prediction import PredictionRows, risk_given_draws
 from riskbench.models.joint_quadrature import piece_index
 from riskbench.models.joint_structure import JointStructure
-from riskbench.models.risk_contract import cumulative_incidence
+from riskbench.models.joint_window import step_edges, step_factors
 from riskbench.report.markdown_text import md_table, md_text
 from riskbench.report.sheet_text import example_patient_table, full_number, table_tag
 from riskbench.time_units import DAYS_PER_YEAR
@@ -202,7 +202,7 @@ def _settings(part: SharedTrajectoryModel) -> list[str]:
     rows = [
         ["association", md_text(jm.association)],
         ["prediction_draws (Monte Carlo draws K per row)", str(jm.prediction_draws)],
-        ["grid_steps (steps J of the product-integral)", str(jm.grid_steps)],
+        ["grid_steps (steps per year of the product-integral)", str(jm.grid_steps)],
         ["random_state (seed of the draws)", str(jm.random_state)],
         ["legendre_points (Gauss–Legendre points per piece, cumulative hazards)", str(jm.legendre_points)],
         ["hermite_points (Gauss–Hermite points per random effect, fitting)", str(jm.hermite_points)],
@@ -229,14 +229,16 @@ def _how(part: SharedTrajectoryModel) -> list[str]:
         "1. computes the posterior of b given the measurements alone, Normal(b̂, Σ) with "
         "Σ = (D⁻¹ + ZᵀZ/σ²)⁻¹ and b̂ = Σ·Zᵀ(y − Xβ)/σ² (Z has rows (1, tj), X the fixed part's terms at each "
         "measurement time tj, years) -- the empirical-Bayes estimate b̂ of the mixed model;",
-        f"2. draws K = {jm.prediction_draws} values of b from Normal(b̂, Σ) (seed {jm.random_state}; one random "
-        "stream per call, so a row's draws also depend on the rows predicted with it) and weights each by its "
+        f"2. draws K = {jm.prediction_draws} values of b from Normal(b̂, Σ) (seed {jm.random_state} with the "
+        "row's landmark, covariates and measurements: each row has its own random stream, so its draws do not "
+        "depend on the rows predicted with it) and weights each by its "
         "survival to s, exp(−H₁(s | b) − H₂(s | b)) (cumulative hazards by Gauss–Legendre quadrature on each "
         "piece), normalised to sum to 1 -- importance sampling of the posterior given survival too;",
-        f"3. for each draw computes F₁ by the product-integral over J = {jm.grid_steps} equal steps from s to "
-        "s + w (plus a step edge at each other horizon asked for in the same call): the hazards are taken at each "
-        "step's midpoint, dAc = hc(midpoint) · width (years), S after a step = S before · (1 − dA₁ − dA₂), "
-        "F₁ after = F₁ before + S before · dA₁ (if dA₁ + dA₂ > 1, both are divided by their sum);",
+        f"3. for each draw computes F₁ by the product-integral over steps from s to s + w that end at every "
+        f"1/{jm.grid_steps} year since entry and at the baseline hazard's knots (the same steps whatever else is "
+        "predicted in the same call): the hazards are taken at each step's midpoint, dAc = hc(midpoint) · width "
+        "(years), dA = dA₁ + dA₂, S after a step = S before · exp(−dA), F₁ after = F₁ before + S before · "
+        "dA₁ / dA · (1 − exp(−dA)) (exact for hazards constant over the step);",
         "4. averages F₁ over the draws with their weights.",
         "",
         "The worked example repeats steps 1 and 3 with b fixed at b̂: the risk *conditional on the "
@@ -276,16 +278,12 @@ def _steps(
     s: JointStructure, theta: np.ndarray, rows: PredictionRows, b: np.ndarray, horizon_years: float, steps: int
 ) -> pd.DataFrame:
     """The product-integral of step 3 with b fixed, one row per step (what the sheet prints)."""
-    edges = np.unique(np.concatenate([np.linspace(0.0, horizon_years, steps + 1), [horizon_years, 0.0]]))
-    mids, width = 0.5 * (edges[1:] + edges[:-1]), np.diff(edges)
-    t = rows.landmark[0] + mids
+    edges = step_edges(rows.landmark[0], horizon_years, s.knots, steps)  # years since entry
+    t, width = 0.5 * (edges[1:] + edges[:-1]), np.diff(edges)
     design, slope = fixed_design(s.basis, t, np.broadcast_to(rows.marker_x[0], (len(t), rows.marker_x.shape[1])))
     beta = theta[: s.layout.n_fixed]
     marker = {"value": design @ beta + b[0] + b[1] * t, "slope": slope @ beta + b[1]}
-    start = rows.landmark[0] * DAYS_PER_YEAR
-    out = pd.DataFrame(
-        {"from_days": start + edges[:-1] * DAYS_PER_YEAR, "to_days": start + edges[1:] * DAYS_PER_YEAR, "t_years": t}
-    )
+    out = pd.DataFrame({"from_days": edges[:-1] * DAYS_PER_YEAR, "to_days": edges[1:] * DAYS_PER_YEAR, "t_years": t})
     out["m"] = marker["value"]
     if any("slope" in terms for terms in s.cause_terms):
         out["m_slope"] = marker["slope"]
@@ -299,9 +297,9 @@ def _steps(
         out[f"h{c + 1}"] = np.exp(log_h)
         increments.append(out[f"h{c + 1}"].to_numpy() * width)
         out[f"dA{c + 1}"] = increments[-1]
-    total = np.minimum(sum(increments), 1.0)
-    out["S_before"] = np.concatenate([[1.0], np.cumprod(1.0 - total)[:-1]])
-    out["F1_after"] = cumulative_incidence(increments[0], increments[1] if len(increments) > 1 else None)
+    gain, factor = step_factors(increments)
+    out["S_before"] = np.concatenate([[1.0], np.cumprod(factor)[:-1]])
+    out["F1_after"] = np.cumsum(out["S_before"].to_numpy() * gain)
     return out
 
 

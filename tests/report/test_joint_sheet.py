@@ -4,9 +4,10 @@ The recomputation is written from the published equations, not with riskbench's 
 random effects of a linear mixed model, b̂ = Σ Zᵀ(y − Xβ)/σ² with Σ = (D⁻¹ + ZᵀZ/σ²)⁻¹ (Laird & Ware 1982,
 Biometrics 38:963-974; Rizopoulos 2012, *Joint Models for Longitudinal and Time-to-Event Data*, section 2.2),
 the natural cubic spline basis of Hastie, Tibshirani & Friedman (2009, eqs. 5.4-5.5), and the cumulative
-incidence as the product-integral of cause-specific hazard increments (Aalen & Johansen 1978) on the step grid
-the sheet describes. The sheet's "risk given b = b̂" is the library's number (it is computed by the prediction
-code); agreement to 1e-10 checks the sheet's parameters and the library against each other.
+incidence as the product-integral of cause-specific hazards constant over each step (Aalen & Johansen 1978;
+Kalbfleisch & Prentice 2002, section 8.2) on the steps the sheet prints. The sheet's "risk given b = b̂" is the
+library's number (it is computed by the prediction code); agreement to 1e-10 checks the sheet's parameters and
+the library against each other.
 """
 
 from __future__ import annotations
@@ -118,11 +119,16 @@ def test_the_worked_example_recomputes_from_the_printed_numbers(sheet: str) -> N
     np.testing.assert_allclose([printed["b̂0"], printed["b̂1"]], b, rtol=0, atol=1e-10)
     np.testing.assert_allclose([printed["Σ11"], printed["Σ21"], printed["Σ22"]], cov[[0, 1, 1], [0, 0, 1]], atol=1e-12)
 
-    # step 3: product-integral of the cause-specific hazards with b = b̂ over J equal steps of (s, s + w]
-    steps = int(_by_key(sheet, "prediction settings")["grid_steps (steps J of the product-integral)"])
-    edges = np.linspace(0.0, w, steps + 1)
+    # step 3: product-integral of the cause-specific hazards with b = b̂ over the printed steps, which must tile
+    # (s, s + w], be at most 1/grid_steps year long and keep each baseline hazard constant (the sheet's rule)
+    per_year = int(_by_key(sheet, "prediction settings")["grid_steps (steps per year of the product-integral)"])
+    printed_steps = read_sheet_table(sheet, "example steps")
+    edges = np.array([float(r[0]) for r in printed_steps] + [float(printed_steps[-1][1])]) / DAYS
+    np.testing.assert_allclose([float(r[1]) for r in printed_steps[:-1]], [float(r[0]) for r in printed_steps[1:]])
+    assert edges[0] == pytest.approx(s, abs=1e-12) and edges[-1] == pytest.approx(s + w, abs=1e-12)
     width = np.diff(edges)
-    t = s + 0.5 * (edges[1:] + edges[:-1])
+    assert np.all(width > 0) and width.max() <= 1 / per_year + 1e-12
+    t = 0.5 * (edges[1:] + edges[:-1])
     mean, slope = fixed_part(t)
     marker = {"value": mean + b[0] + b[1] * t, "slope": slope + b[1]}
     increments = []
@@ -140,10 +146,14 @@ def test_the_worked_example_recomputes_from_the_printed_numbers(sheet: str) -> N
                 eta += estimate * marker[term.removeprefix("association_")]
             else:
                 eta += estimate * (patient[term] - float(row[4]))
+        inside = (low > s) & (low < s + w)  # knots inside the window are step edges
+        assert np.all(np.min(np.abs(low[inside][:, None] - edges[None, :]), axis=1) < 1e-9)
         increments.append(np.exp(eta) * width)
-    total = np.minimum(sum(increments), 1.0)
-    survival_before = np.concatenate([[1.0], np.cumprod(1.0 - total)[:-1]])
-    risk = float(np.sum(survival_before * increments[0] / np.maximum(sum(increments), 1.0)))
+    # hazards constant over each step: S falls by exp(-dA), F1 gains S dA1/dA (1 - exp(-dA)) (piecewise
+    # exponential competing risks; Kalbfleisch & Prentice 2002, The Statistical Analysis of Failure Time Data, 8.2)
+    total = sum(increments)
+    survival_before = np.concatenate([[1.0], np.cumprod(np.exp(-total))[:-1]])
+    risk = float(np.sum(survival_before * increments[0] / total * (1.0 - np.exp(-total))))
     risks = _by_key(sheet, "example risks")
     library = float(next(v for k, v in risks.items() if k.startswith("risk given b = b̂")))
     assert risk == pytest.approx(library, abs=1e-10)

@@ -86,7 +86,7 @@ def test_the_loaded_model_with_the_runs_history_reproduces_the_run(run: Path) ->
     stack = pd.read_parquet(run / "run" / "data" / "landmark_stack.parquet")
     cp = pd.read_parquet(run / "run" / "data" / "counting_process.parquet")
     model = saved.model_with_history(saved.model.history_from(cp))
-    # the run predicted both horizons in one call: the Monte Carlo draws and the grid are those of one call
+    # a row's risk depends on the row and the model only, so the reload repeats the run exactly
     curve = model.predict_curve(stack, [365.25, 730.5])
     for j, horizon in enumerate((365.25, 730.5)):
         np.testing.assert_array_equal(curve[:, j], _run_risks(run, horizon))
