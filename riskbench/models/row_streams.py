@@ -24,9 +24,9 @@ __all__ = ["row_keys", "row_normals"]
 _DECIMALS = 9
 
 
-def _canonical(values: np.ndarray) -> bytes:
+def _canonical(values: np.ndarray) -> np.ndarray:
     # rounded so that one value reached by two computing paths names the same row; + 0.0 folds -0.0 into 0.0
-    return (np.round(np.asarray(values, dtype=float), _DECIMALS) + 0.0).tobytes()
+    return np.round(np.asarray(values, dtype=float), _DECIMALS) + 0.0
 
 
 def row_keys(columns: np.ndarray, group: np.ndarray, records: np.ndarray) -> list[bytes]:
@@ -45,12 +45,10 @@ def row_keys(columns: np.ndarray, group: np.ndarray, records: np.ndarray) -> lis
     -------
     list of bytes, one per row.
     """
-    columns = np.asarray(columns, dtype=float).reshape(len(columns), -1)
-    records = np.asarray(records, dtype=float).reshape(len(group), -1)
+    columns = _canonical(columns).reshape(len(columns), -1)
+    records = _canonical(records).reshape(len(group), -1)
     bounds = np.searchsorted(np.asarray(group), np.arange(len(columns) + 1))
-    return [
-        _canonical(columns[i]) + b"\x1f" + _canonical(records[bounds[i] : bounds[i + 1]]) for i in range(len(columns))
-    ]
+    return [columns[i].tobytes() + b"\x1f" + records[bounds[i] : bounds[i + 1]].tobytes() for i in range(len(columns))]
 
 
 def row_normals(seed: int, keys: list[bytes], shape: tuple[int, ...], stream: int = 0) -> np.ndarray:
