@@ -186,3 +186,13 @@ def test_dynamic_prediction_of_a_row_does_not_depend_on_the_other_rows(model, ro
     alone = model.dynamic_prediction(rows.iloc[[20]], [365.25], parameter_draws=5, draws_per_parameter=20, seed=4)
     columns = ["risk_mean", "risk_lower_95", "risk_upper_95"]
     np.testing.assert_allclose(both[columns].to_numpy()[1], alone[columns].to_numpy()[0], rtol=0, atol=1e-12)
+
+
+def test_the_risks_do_not_depend_on_how_the_rows_are_split_into_blocks(model, rows, monkeypatch):
+    """Large calls are predicted in blocks of rows (memory); a row's risk is the same in any block."""
+    import riskbench.models.joint_model as joint_model
+
+    whole = model.predict_curve(rows, [150.0, 800.0])
+    monkeypatch.setattr(joint_model, "_CELLS_PER_CHUNK", int(model.prediction_draws) * 40 * 7)
+    assert len(model._chunks(len(rows), 40)) > 5
+    np.testing.assert_allclose(model.predict_curve(rows, [150.0, 800.0]), whole, rtol=0, atol=1e-12)
