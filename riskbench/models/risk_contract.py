@@ -295,7 +295,7 @@ def cumulative_incidence_at(
     grid: np.ndarray,
     times: np.ndarray,
     *,
-    block_cells: int = 4_000_000,
+    block_cells: int = 262_144,
 ) -> np.ndarray:
     """Cox-based cumulative incidence of the outcome at ``times``, one row per subject.
 
@@ -330,6 +330,11 @@ def cumulative_incidence_at(
     b = None if competing_score is None else np.clip(np.asarray(competing_baseline, float)[:width], 0.0, None)
     read = index >= 0
     block = max(1, block_cells // width)
+    largest = float(np.max(event_score)) * float(a.max())
+    if b is not None and competing_score is not None:
+        largest += float(np.max(competing_score)) * float(b.max())
+    if largest <= 1.0:  # no increment reaches 1 (the usual case): the short path below needs no cap
+        return _incidence_uncapped(event_score, a, competing_score, b, index, block)
     for start in range(0, n, block):
         part = slice(start, start + block)
         d1 = np.multiply.outer(event_score[part], a)
@@ -343,6 +348,39 @@ def cumulative_incidence_at(
         d1[:, 1:] *= total[:, :-1]  # S(t_j -) dA1(t_j)
         np.cumsum(d1, axis=1, out=d1)
         out[part, read] = d1[:, index[read]]
+    return np.clip(out, 0.0, 1.0)
+
+
+def _incidence_uncapped(
+    event_score: np.ndarray,
+    a: np.ndarray,
+    competing_score: np.ndarray | None,
+    b: np.ndarray | None,
+    index: np.ndarray,
+    block: int,
+) -> np.ndarray:
+    """:func:`cumulative_incidence_at` when every increment is below 1, read only at the columns ``index``.
+
+    F1(t_J) = Σ_{j≤J} S(t_j−) s₁ a_j = s₁ (a_0 + Σ_{1≤j≤J} S(t_{j−1}) a_j): the all-cause survival is built in
+    place (one product-integral pass) and each reading time is a matrix–vector product with the baseline
+    increments, instead of writing the whole incidence curve of every row (the prediction step of a
+    resampling replicate; the sums differ from the curve's running sums only by rounding).
+    """
+    n, width = len(event_score), a.size
+    out = np.zeros((n, index.size))
+    read = np.flatnonzero(index >= 0)
+    weights = np.zeros((width, read.size))  # column r: a_1..a_J of reading time r, aligned with S(t_0..t_{J-1})
+    for column, r in enumerate(read):
+        weights[: index[r], column] = a[1 : index[r] + 1]
+    first = a[0]
+    for start in range(0, n, block):
+        part = slice(start, start + block)
+        survival = np.multiply.outer(event_score[part], -a)
+        if b is not None and competing_score is not None:
+            survival -= np.multiply.outer(competing_score[part], b)
+        survival += 1.0
+        np.cumprod(survival, axis=1, out=survival)  # all-cause survival S(t_j)
+        out[part, read] = event_score[part, None] * (first + survival @ weights)
     return np.clip(out, 0.0, 1.0)
 
 

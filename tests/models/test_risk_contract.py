@@ -173,3 +173,30 @@ def test_cumulative_incidence_at_equals_the_full_product_integral_read_at_times(
             s1, a, s2 if competing else None, b if competing else None, grid, times, block_cells=7_000
         )
         np.testing.assert_array_equal(got, expected)
+
+
+def test_cumulative_incidence_at_without_capped_increments_equals_the_full_product_integral():
+    """When no increment reaches 1 the evaluator reads each time as a matrix-vector product with the baseline
+    increments instead of a running sum (the path of nearly every prediction): equal to the full-grid
+    Aalen–Johansen combination to rounding, whatever the block size, with and without a competing event."""
+    import numpy as np
+
+    from riskbench.models.risk_contract import cumulative_incidence, cumulative_incidence_at, step_function_at
+
+    rng = np.random.default_rng(2)
+    n, m = 500, 300
+    grid = np.sort(rng.choice(np.arange(1, 3000), m, replace=False)).astype(float)
+    a = rng.uniform(0, 0.004, m) * (rng.random(m) < 0.6)
+    b = rng.uniform(0, 0.004, m)
+    s1, s2 = np.exp(rng.normal(0, 1, n)), np.exp(rng.normal(0, 1, n))
+    assert s1.max() * a.max() + s2.max() * b.max() < 1  # the premise: no cap
+    times = np.array([0.5, grid[0], 100.0, 1500.0, grid[-1], 5000.0])
+    for competing in (True, False):
+        full = cumulative_incidence(s1[:, None] * a, s2[:, None] * b if competing else None)
+        expected = step_function_at(grid, full, times)
+        assert (expected[:, -1] > 0.05).mean() > 0.5  # risks large enough for rounding to be relative
+        for block_cells in (1_000, 262_144):
+            got = cumulative_incidence_at(
+                s1, a, s2 if competing else None, b if competing else None, grid, times, block_cells=block_cells
+            )
+            np.testing.assert_allclose(got, expected, rtol=1e-12, atol=1e-15)
