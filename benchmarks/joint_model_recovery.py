@@ -12,7 +12,22 @@ truth. With 50 replicates a coverage is known to about ±3 percentage points (bi
 
 Last measured (50 replicates of 1,000 patients, seeds 1000-1049; see the report of issue 15)::
 
-    (filled in from the run below)
+    parameter                                     true  mean_estimate    bias  empirical_sd  mean_se  coverage_95
+    marker: time_years                          0.3000         0.3001  0.0001        0.0107   0.0106         0.92
+    marker: x                                   0.5000         0.4995 -0.0005        0.0220   0.0229         0.98
+    marker: residual SD                         0.3000         0.3001  0.0001        0.0026   0.0026         0.96
+    marker: random-intercept SD                 0.7071         0.7057 -0.0015        0.0203   0.0170         0.90
+    marker: random-slope SD per year            0.3000         0.2997 -0.0003        0.0083   0.0080         0.94
+    marker: random intercept-slope correlation  0.2357         0.2369  0.0012        0.0326   0.0356         0.98
+    outcome: w                                  0.5000         0.5090  0.0090        0.1130   0.1006         0.90
+    outcome: association, current marker value  0.6000         0.6044  0.0044        0.0431   0.0404         0.94
+    competing: w                               -0.3000        -0.2684  0.0316        0.2106   0.2003         0.94
+    competing: association, current marker val  0.0000         0.0188  0.0188        0.0783   0.0799         0.92
+
+    50 replicates in 984 s (every fit converged; 354 to 443 outcomes per replicate). The association's 95%
+    intervals covered the truth in 47 of 50 replicates (0.94; a coverage from 50 replicates is known to about
+    ±0.03), its bias is 0.7% of its value; the random-intercept SD's intervals cover least (0.90: its observed-
+    information SE, 0.017, is below the spread of the estimates, 0.020).
 
 Usage: ``python benchmarks/joint_model_recovery.py [--replicates 50] [--patients 1000]``
 """
