@@ -351,6 +351,9 @@ def cumulative_incidence_at(
     return np.clip(out, 0.0, 1.0)
 
 
+_SUM_CHUNK = 64  # columns summed together when reading the incidence (see _incidence_uncapped)
+
+
 def _incidence_uncapped(
     event_score: np.ndarray,
     a: np.ndarray,
@@ -361,26 +364,41 @@ def _incidence_uncapped(
 ) -> np.ndarray:
     """:func:`cumulative_incidence_at` when every increment is below 1, read only at the columns ``index``.
 
-    F1(t_J) = Σ_{j≤J} S(t_j−) s₁ a_j = s₁ (a_0 + Σ_{1≤j≤J} S(t_{j−1}) a_j): the all-cause survival is built in
-    place (one product-integral pass) and each reading time is a matrix–vector product with the baseline
-    increments, instead of writing the whole incidence curve of every row (the prediction step of a
-    resampling replicate; the sums differ from the curve's running sums only by rounding).
+    F1(t_J) = Σ_{j≤J} S(t_j−) s₁ a_j = s₁ (a_0 + Σ_{0≤j<J} S(t_j) a_{j+1}): the all-cause survival is built in
+    place (one product-integral pass), weighted in place by the next baseline increment and summed in fixed
+    chunks of columns, instead of writing a running sum of the whole incidence curve of every row (the
+    prediction step of a resampling replicate). The sum for a row and a reading time depends on nothing else --
+    not on the rows predicted with it, the block size or the other times asked -- so a saved model reproduces a
+    run's predictions exactly; it differs from the running sum only by rounding.
     """
-    n, width = len(event_score), a.size
+    n, chunk = len(event_score), _SUM_CHUNK
+    width = -(-a.size // chunk) * chunk  # padded with zero increments: the chunks reshape without a copy
+    a_pad = np.zeros(width)
+    a_pad[: a.size] = a
+    b_pad = None
+    if b is not None and competing_score is not None:
+        b_pad = np.zeros(width)
+        b_pad[: b.size] = b
+    next_increment = np.append(a_pad[1:], 0.0)
     out = np.zeros((n, index.size))
     read = np.flatnonzero(index >= 0)
-    weights = np.zeros((width, read.size))  # column r: a_1..a_J of reading time r, aligned with S(t_0..t_{J-1})
-    for column, r in enumerate(read):
-        weights[: index[r], column] = a[1 : index[r] + 1]
-    first = a[0]
     for start in range(0, n, block):
         part = slice(start, start + block)
-        survival = np.multiply.outer(event_score[part], -a)
-        if b is not None and competing_score is not None:
-            survival -= np.multiply.outer(competing_score[part], b)
+        survival = np.multiply.outer(event_score[part], -a_pad)
+        if b_pad is not None and competing_score is not None:
+            survival -= np.multiply.outer(competing_score[part], b_pad)
         survival += 1.0
         np.cumprod(survival, axis=1, out=survival)  # all-cause survival S(t_j)
-        out[part, read] = event_score[part, None] * (first + survival @ weights)
+        survival *= next_increment  # S(t_j) a_{j+1}
+        rows = survival.shape[0]
+        chunks = np.cumsum(survival.reshape(rows, width // chunk, chunk).sum(axis=2), axis=1)
+        for r in read:
+            upto = int(index[r])  # columns 0 .. upto-1
+            whole = upto // chunk
+            total = survival[:, whole * chunk : upto].sum(axis=1) + a[0]
+            if whole:
+                total += chunks[:, whole - 1]
+            out[part, r] = event_score[part] * total
     return np.clip(out, 0.0, 1.0)
 
 

@@ -224,7 +224,14 @@ def _driver(
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         text=True,
+        # a run started in the background of a shell inherits SIGINT ignored (and then rightly ignores Ctrl-C);
+        # the driver stands for a run in a terminal, so it gets the default handling whatever started the tests
+        preexec_fn=_default_sigint,
     )
+
+
+def _default_sigint() -> None:
+    signal.signal(signal.SIGINT, signal.default_int_handler)
 
 
 def _wait_for(condition, timeout: float = 60.0, what: str = "") -> None:

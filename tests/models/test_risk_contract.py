@@ -200,3 +200,27 @@ def test_cumulative_incidence_at_without_capped_increments_equals_the_full_produ
                 s1, a, s2 if competing else None, b if competing else None, grid, times, block_cells=block_cells
             )
             np.testing.assert_allclose(got, expected, rtol=1e-12, atol=1e-15)
+
+
+def test_a_rows_cumulative_incidence_does_not_depend_on_the_rows_predicted_with_it():
+    """Saved models must reproduce a run's predictions exactly on any subset or order of its rows and whatever
+    other horizons are asked: each row and time is summed alone (a matrix product through BLAS, or a running sum
+    over the segments between the times asked, would not guarantee that)."""
+    import numpy as np
+
+    from riskbench.models.risk_contract import cumulative_incidence_at
+
+    rng = np.random.default_rng(5)
+    n, m = 3_000, 400
+    grid = np.arange(1.0, m + 1)
+    a, b = rng.uniform(0, 5e-4, m), rng.uniform(0, 5e-4, m)
+    s1, s2 = np.exp(rng.normal(0, 1, n)), np.exp(rng.normal(0, 1, n))
+    times = np.array([100.0, 365.0, 399.5])
+    whole = cumulative_incidence_at(s1, a, s2, b, grid, times)
+    pick = rng.permutation(n)[:777]
+    np.testing.assert_array_equal(cumulative_incidence_at(s1[pick], a, s2[pick], b, grid, times), whole[pick])
+    np.testing.assert_array_equal(
+        cumulative_incidence_at(s1, a, s2, b, grid, times, block_cells=5_000), whole
+    )  # another block size
+    alone = cumulative_incidence_at(s1, a, s2, b, grid, times[2:])
+    np.testing.assert_array_equal(alone[:, 0], whole[:, 2])  # a time read alone or with others
