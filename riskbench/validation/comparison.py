@@ -143,10 +143,10 @@ class StackOnlyTables:
         # a file-backed source travels to workers as its file references (each worker reads them once)
         self._files = source if isinstance(source, ParquetTables) else None
 
-    def __reduce__(self) -> tuple[Any, ...]:
+    def __reduce_ex__(self, protocol: Any) -> Any:
         if self._files is not None:
             return (stack_only_tables, (self._files,))
-        return (_restore_stack_only, (self._ids, self._status, self._full))
+        return super().__reduce_ex__(protocol)
 
     def patient_ids(self) -> np.ndarray:
         """The source's patient ids."""
@@ -165,11 +165,11 @@ class StackOnlyTables:
         return subset_tables(self._full, patient_ids)
 
 
-_stack_only: dict[int, tuple[PrecomputedTables, StackOnlyTables]] = {}
+_stack_only: dict[int, tuple[ParquetTables, StackOnlyTables]] = {}
 
 
-def stack_only_tables(source: PrecomputedTables) -> StackOnlyTables:
-    """The :class:`StackOnlyTables` of ``source``, built once per process (unpickling a file-backed one calls
+def stack_only_tables(source: ParquetTables) -> StackOnlyTables:
+    """The :class:`StackOnlyTables` of a file-backed ``source``, built once per process (unpickling one calls
     this; :func:`~riskbench.validation.table_files.parquet_tables` gives the same source object each time)."""
     cached = _stack_only.get(id(source))
     if cached is None or cached[0] is not source:
@@ -178,17 +178,11 @@ def stack_only_tables(source: PrecomputedTables) -> StackOnlyTables:
     return cached[1]
 
 
-def _restore_stack_only(ids: np.ndarray, status: pd.Series, full: ValidationTables) -> StackOnlyTables:
-    tables = StackOnlyTables.__new__(StackOnlyTables)
-    tables._ids, tables._status, tables._full, tables._files = ids, status, full, None
-    return tables
-
-
 def resampling_source(source: TableSource, specs: Sequence[ModelSpec]) -> TableSource:
     """``source`` as the replicates should cut it: without the counting-process table when it is precomputed
     and no spec fits on it (:class:`StackOnlyTables`)."""
     if isinstance(source, PrecomputedTables) and all(s.family != "time_varying_cox" for s in specs):
-        return stack_only_tables(source)
+        return stack_only_tables(source) if isinstance(source, ParquetTables) else StackOnlyTables(source)
     return source
 
 
