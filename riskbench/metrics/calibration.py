@@ -285,7 +285,7 @@ def _band(pseudo, design, grid_design, cluster, start, n_boot, seed) -> np.ndarr
     for _ in range(n_boot):
         # a bootstrap sample of clusters as weights: how often each row's cluster was drawn
         drawn = np.bincount(rng.integers(0, n_clusters, n_clusters), minlength=n_clusters)
-        fit = fit_cloglog(design, pseudo, start=start, weights=drawn[code].astype(float))
+        fit = fit_cloglog(design, pseudo, start=start, weights=drawn[code].astype(float), covariance=False)
         draws.append(fit.mean(grid_design))
     return np.quantile(np.array(draws), [0.025, 0.975], axis=0) if draws else nan_band
 
@@ -377,7 +377,8 @@ def calibration_at_horizon(
 
     grid_risk = np.quantile(r, np.linspace(0.01, 0.99, 60))
     grid_design = _smoother_design(cloglog(grid_risk), knots)
-    band = _band(pseudo, design, grid_design, groups_of_rows, start, n_boot, seed)
+    # each resample starts from the whole-data smoother: the same root (to the fit's tolerance), half the steps
+    band = _band(pseudo, design, grid_design, groups_of_rows, smooth.coef, n_boot, seed)
     curve = pd.DataFrame(
         {
             "predicted": grid_risk,

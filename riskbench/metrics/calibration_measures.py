@@ -83,8 +83,8 @@ def slope_and_ici(
     else:
         pseudo = outcomes.cached(("pseudo", h, target), lambda: pseudo_observations(t, codes, h, cause=1))
     ones = np.ones((t.size, 1))
-    slope_fit = fit_cloglog(np.column_stack([ones, z]), pseudo, start=np.array([0.0, 1.0]))
+    slope_fit = fit_cloglog(np.column_stack([ones, z]), pseudo, start=np.array([0.0, 1.0]), covariance=False)
     design = np.column_stack([np.ones(z.size), rcs_basis(z, knots)])
     start = np.r_[0.0, 1.0, np.zeros(knots.size - 2)]  # the identity: observed = predicted
-    smooth = fit_cloglog(design, pseudo, start=start)
+    smooth = fit_cloglog(design, pseudo, start=start, covariance=False)
     return SlopeAndICI(float(slope_fit.coef[1]), float(np.abs(smooth.mean(design) - r).mean()))

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from riskbench.metrics.cloglog_pass import score_and_information
 from riskbench.metrics.inputs import MetricInputError
 
 #: Linear predictors are kept in this range: exp(5) makes the mean 1 to double precision, exp(-40) ~ 4e-18.
@@ -60,6 +61,7 @@ def fit_cloglog(
     weights: np.ndarray | None = None,
     max_iter: int = 100,
     tol: float = 1e-10,
+    covariance: bool = True,
 ) -> CloglogFit:
     """Fit E[y | x] = 1 − exp(−exp(x β + offset)) by quasi-likelihood (GEE, working independence).
 
@@ -79,6 +81,8 @@ def fit_cloglog(
         Non-negative row weights (e.g. how often a bootstrap sample drew the row's cluster); default 1.
     max_iter, tol
         Iterations, and the value of U'I⁻¹U (score in the information metric) below which they stop.
+    covariance
+        Compute the sandwich covariance (False: ``cov`` is NaN; the point estimate alone, for resampling loops).
 
     Returns
     -------
@@ -88,19 +92,14 @@ def fit_cloglog(
     y = np.asarray(y, dtype=float)
     w = np.ones(y.size) if weights is None else np.asarray(weights, dtype=float)
     beta = np.zeros(x.shape[1]) if start is None else np.asarray(start, dtype=float).copy()
+    offsets = np.broadcast_to(np.asarray(offset, dtype=float), y.shape)
 
-    def eta_of(b):
-        return np.clip(x @ b + offset, *_ETA_RANGE)
-
-    def score_info(eta: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
-        mu, ratio, irls = _pieces(eta)
-        info = (x * (w * irls)[:, None]).T @ x
-        score = x.T @ (w * ratio * (y - mu))
+    def score_info(b: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
+        score, info = score_and_information(x, b, offsets, y, w, _ETA_RANGE)
         size = float(score @ np.linalg.lstsq(info, score, rcond=None)[0])
         return score, info, size
 
-    eta = eta_of(beta)
-    score, info, size = score_info(eta)
+    score, info, size = score_info(beta)
     converged = size <= tol
     for _ in range(max_iter):
         if converged:
@@ -110,16 +109,18 @@ def fit_cloglog(
         except np.linalg.LinAlgError as exc:
             raise MetricInputError("the calibration regression is singular (predicted risks nearly constant?)") from exc
         for _half in range(40):
-            new_eta = eta_of(beta + step)
-            new_score, new_info, new_size = score_info(new_eta)
+            new_score, new_info, new_size = score_info(beta + step)
             if np.isfinite(new_size) and new_size < size:
                 break
             step = step / 2
         else:
             break  # no step brings the score closer to 0: as close to a root as double precision allows
         beta = beta + step
-        eta, score, info, size = new_eta, new_score, new_info, new_size
+        score, info, size = new_score, new_info, new_size
         converged = size <= tol
+    if not covariance:
+        return CloglogFit(coef=beta, cov=np.full((beta.size, beta.size), np.nan), converged=converged)
+    eta = np.clip(x @ beta + offset, *_ETA_RANGE)
     mu, ratio, irls = _pieces(eta)
     bread = np.linalg.pinv((x * (w * irls)[:, None]).T @ x)
     scores = x * (w * ratio * (y - mu))[:, None]

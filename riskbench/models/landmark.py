@@ -57,7 +57,6 @@ from riskbench.models.risk_contract import (
 __all__ = ["CauseSpecificFit", "LandmarkSupermodel"]
 
 _EFFECT_POWERS = {"none": 0, "linear": 1, "quadratic": 2}
-_CHUNK_CELLS = 262_144  # rows x grid cells per block when combining hazards (2 MB of float64: stays in cache)
 
 
 @dataclass(frozen=True)
@@ -236,6 +235,9 @@ class LandmarkSupermodel(BaseEstimator):
         design = self._design(x, s)
         strata = s if self.baseline == "stratified" else np.zeros(len(s))
         cluster = stack["patient_id"].to_numpy()
+        codes = pd.factorize(cluster)[0]  # once for both causes: factorizing text ids is the slow part of the setup
+        if (codes >= 0).all():  # a missing id stays as it is, for the Cox engine to name
+            cluster = codes
 
         self.outcome_ = self._fit_cause(design, time, (status == 1).astype(float), strata, cluster, "outcome")
         has_competing = bool(self.competing) and bool((status == 2).any())
@@ -350,7 +352,6 @@ class LandmarkSupermodel(BaseEstimator):
             jumps[1] if competing else None,
             grid,
             times,
-            block_cells=_CHUNK_CELLS,
         )
 
     def predict_risk(self, stack: pd.DataFrame, horizon: float) -> np.ndarray:

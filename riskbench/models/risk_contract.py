@@ -36,6 +36,7 @@ import pandas as pd
 from numpy.typing import ArrayLike
 
 from riskbench.errors import RiskbenchError
+from riskbench.models.incidence_kernel import incidence_at_columns
 
 __all__ = [
     "MISSING_DATA_KEYS",
@@ -294,14 +295,14 @@ def cumulative_incidence_at(
     competing_baseline: np.ndarray | None,
     grid: np.ndarray,
     times: np.ndarray,
-    *,
-    block_cells: int = 262_144,
 ) -> np.ndarray:
     """Cox-based cumulative incidence of the outcome at ``times``, one row per subject.
 
     The same product-integral as :func:`cumulative_incidence` with subject increments
-    ``score * baseline increment``, but built in place, one block of rows at a time, and only up to the
-    last grid time needed -- the prediction step of resampling loops runs it hundreds of times.
+    ``score * baseline increment`` (capped the same way), but run by a compiled loop that keeps two numbers
+    per row and reads only the columns needed (:mod:`riskbench.models.incidence_kernel`) -- the prediction
+    step of resampling loops runs it hundreds of times. A row's value depends on nothing but its own scores:
+    not on the rows predicted with it or the other times asked.
 
     Parameters
     ----------
@@ -322,84 +323,13 @@ def cumulative_incidence_at(
     times = np.asarray(times, dtype=float)
     index = np.searchsorted(grid, times, side="right") - 1  # last grid time <= t (-1: before any jump)
     width = int(index.max()) + 1 if len(index) else 0
-    n = len(event_score)
-    out = np.zeros((n, len(times)))
-    if width == 0 or n == 0:
-        return out
+    if width == 0 or len(event_score) == 0:
+        return np.zeros((len(event_score), len(times)))
     a = np.clip(np.asarray(event_baseline, dtype=float)[:width], 0.0, None)
-    b = None if competing_score is None else np.clip(np.asarray(competing_baseline, float)[:width], 0.0, None)
-    read = index >= 0
-    block = max(1, block_cells // width)
-    largest = float(np.max(event_score)) * float(a.max())
-    if b is not None and competing_score is not None:
-        largest += float(np.max(competing_score)) * float(b.max())
-    if largest <= 1.0:  # no increment reaches 1 (the usual case): the short path below needs no cap
-        return _incidence_uncapped(event_score, a, competing_score, b, index, block)
-    for start in range(0, n, block):
-        part = slice(start, start + block)
-        d1 = np.multiply.outer(event_score[part], a)
-        total = d1.copy() if b is None or competing_score is None else np.multiply.outer(competing_score[part], b) + d1
-        over = total > 1.0
-        if over.any():  # a large exp(lp) can push an increment past 1: share the cap between causes
-            d1[over] /= total[over]
-            total[over] = 1.0
-        np.subtract(1.0, total, out=total)
-        np.cumprod(total, axis=1, out=total)  # all-cause survival S(t_j)
-        d1[:, 1:] *= total[:, :-1]  # S(t_j -) dA1(t_j)
-        np.cumsum(d1, axis=1, out=d1)
-        out[part, read] = d1[:, index[read]]
-    return np.clip(out, 0.0, 1.0)
-
-
-_SUM_CHUNK = 64  # columns summed together when reading the incidence (see _incidence_uncapped)
-
-
-def _incidence_uncapped(
-    event_score: np.ndarray,
-    a: np.ndarray,
-    competing_score: np.ndarray | None,
-    b: np.ndarray | None,
-    index: np.ndarray,
-    block: int,
-) -> np.ndarray:
-    """:func:`cumulative_incidence_at` when every increment is below 1, read only at the columns ``index``.
-
-    F1(t_J) = Σ_{j≤J} S(t_j−) s₁ a_j = s₁ (a_0 + Σ_{0≤j<J} S(t_j) a_{j+1}): the all-cause survival is built in
-    place (one product-integral pass), weighted in place by the next baseline increment and summed in fixed
-    chunks of columns, instead of writing a running sum of the whole incidence curve of every row (the
-    prediction step of a resampling replicate). The sum for a row and a reading time depends on nothing else --
-    not on the rows predicted with it, the block size or the other times asked -- so a saved model reproduces a
-    run's predictions exactly; it differs from the running sum only by rounding.
-    """
-    n, chunk = len(event_score), _SUM_CHUNK
-    width = -(-a.size // chunk) * chunk  # padded with zero increments: the chunks reshape without a copy
-    a_pad = np.zeros(width)
-    a_pad[: a.size] = a
-    b_pad = None
-    if b is not None and competing_score is not None:
-        b_pad = np.zeros(width)
-        b_pad[: b.size] = b
-    next_increment = np.append(a_pad[1:], 0.0)
-    out = np.zeros((n, index.size))
-    read = np.flatnonzero(index >= 0)
-    for start in range(0, n, block):
-        part = slice(start, start + block)
-        survival = np.multiply.outer(event_score[part], -a_pad)
-        if b_pad is not None and competing_score is not None:
-            survival -= np.multiply.outer(competing_score[part], b_pad)
-        survival += 1.0
-        np.cumprod(survival, axis=1, out=survival)  # all-cause survival S(t_j)
-        survival *= next_increment  # S(t_j) a_{j+1}
-        rows = survival.shape[0]
-        chunks = np.cumsum(survival.reshape(rows, width // chunk, chunk).sum(axis=2), axis=1)
-        for r in read:
-            upto = int(index[r])  # columns 0 .. upto-1
-            whole = upto // chunk
-            total = survival[:, whole * chunk : upto].sum(axis=1) + a[0]
-            if whole:
-                total += chunks[:, whole - 1]
-            out[part, r] = event_score[part] * total
-    return np.clip(out, 0.0, 1.0)
+    b = None
+    if competing_score is not None and competing_baseline is not None:
+        b = np.clip(np.asarray(competing_baseline, dtype=float)[:width], 0.0, None)
+    return np.clip(incidence_at_columns(event_score, a, competing_score, b, index), 0.0, 1.0)
 
 
 def risk_curve(model: RiskModel, table: pd.DataFrame, times: ArrayLike) -> np.ndarray:

@@ -49,7 +49,11 @@ def calibration_measures(
     expected = float(np.mean(risk))
     z = cloglog(risk)
     try:
-        slope = float(fit_cloglog(np.column_stack([np.ones(z.size), z]), pseudo, start=np.array([0.0, 1.0])).coef[1])
+        slope = float(
+            fit_cloglog(
+                np.column_stack([np.ones(z.size), z]), pseudo, start=np.array([0.0, 1.0]), covariance=False
+            ).coef[1]
+        )
     except MetricInputError:
         slope = np.nan
     return {"oe_ratio": observed / expected if expected > 0 else np.nan, "calibration_slope": slope}

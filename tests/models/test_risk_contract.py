@@ -169,22 +169,19 @@ def test_cumulative_incidence_at_equals_the_full_product_integral_read_at_times(
     for competing in (True, False):
         full = cumulative_incidence(s1[:, None] * a, s2[:, None] * b if competing else None)
         expected = step_function_at(grid, full, times)
-        got = cumulative_incidence_at(
-            s1, a, s2 if competing else None, b if competing else None, grid, times, block_cells=7_000
-        )
+        got = cumulative_incidence_at(s1, a, s2 if competing else None, b if competing else None, grid, times)
         np.testing.assert_array_equal(got, expected)
 
 
 def test_cumulative_incidence_at_without_capped_increments_equals_the_full_product_integral():
-    """When no increment reaches 1 the evaluator reads each time as a matrix-vector product with the baseline
-    increments instead of a running sum (the path of nearly every prediction): equal to the full-grid
-    Aalen–Johansen combination to rounding, whatever the block size, with and without a competing event."""
+    """The path of nearly every prediction (no increment reaches 1): equal to the full-grid Aalen–Johansen
+    combination, with and without a competing event, for more rows than the compiled loop advances at once."""
     import numpy as np
 
     from riskbench.models.risk_contract import cumulative_incidence, cumulative_incidence_at, step_function_at
 
     rng = np.random.default_rng(2)
-    n, m = 500, 300
+    n, m = 5_000, 300
     grid = np.sort(rng.choice(np.arange(1, 3000), m, replace=False)).astype(float)
     a = rng.uniform(0, 0.004, m) * (rng.random(m) < 0.6)
     b = rng.uniform(0, 0.004, m)
@@ -195,17 +192,14 @@ def test_cumulative_incidence_at_without_capped_increments_equals_the_full_produ
         full = cumulative_incidence(s1[:, None] * a, s2[:, None] * b if competing else None)
         expected = step_function_at(grid, full, times)
         assert (expected[:, -1] > 0.05).mean() > 0.5  # risks large enough for rounding to be relative
-        for block_cells in (1_000, 262_144):
-            got = cumulative_incidence_at(
-                s1, a, s2 if competing else None, b if competing else None, grid, times, block_cells=block_cells
-            )
-            np.testing.assert_allclose(got, expected, rtol=1e-12, atol=1e-15)
+        got = cumulative_incidence_at(s1, a, s2 if competing else None, b if competing else None, grid, times)
+        np.testing.assert_allclose(got, expected, rtol=1e-12, atol=1e-15)
 
 
 def test_a_rows_cumulative_incidence_does_not_depend_on_the_rows_predicted_with_it():
     """Saved models must reproduce a run's predictions exactly on any subset or order of its rows and whatever
-    other horizons are asked: each row and time is summed alone (a matrix product through BLAS, or a running sum
-    over the segments between the times asked, would not guarantee that)."""
+    other horizons are asked: each row is summed alone, in grid order (a matrix product through BLAS, or
+    pairwise sums across a block of rows, would not guarantee that)."""
     import numpy as np
 
     from riskbench.models.risk_contract import cumulative_incidence_at
@@ -219,8 +213,5 @@ def test_a_rows_cumulative_incidence_does_not_depend_on_the_rows_predicted_with_
     whole = cumulative_incidence_at(s1, a, s2, b, grid, times)
     pick = rng.permutation(n)[:777]
     np.testing.assert_array_equal(cumulative_incidence_at(s1[pick], a, s2[pick], b, grid, times), whole[pick])
-    np.testing.assert_array_equal(
-        cumulative_incidence_at(s1, a, s2, b, grid, times, block_cells=5_000), whole
-    )  # another block size
     alone = cumulative_incidence_at(s1, a, s2, b, grid, times[2:])
     np.testing.assert_array_equal(alone[:, 0], whole[:, 2])  # a time read alone or with others

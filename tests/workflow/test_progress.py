@@ -4,7 +4,6 @@ shows progress as one output, with nothing on its standard error."""
 import io
 import shutil
 import tempfile
-from pathlib import Path
 
 import nbformat
 
@@ -112,4 +111,6 @@ def test_executed_notebook_shows_progress_as_one_output_and_has_no_stderr(tmp_pa
     relayed = stream.getvalue().splitlines()
     assert relayed[0].startswith("stage demo: demo replicates: 0 of 5 replicates")
     assert relayed[-1].startswith("stage demo: demo replicates: 5 of 5 replicates in ")
-    assert Path(progress_file(temp)).is_file()
+    # No check that the progress file is still there: a kernel told to stop removes its temporary folder
+    # (progress file included), and whether papermill's shutdown or the runner's clean-up gets there first is
+    # a race. The relayed lines above could only have come through that file.
