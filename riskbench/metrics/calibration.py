@@ -377,7 +377,7 @@ def calibration_at_horizon(
 
     grid_risk = np.quantile(r, np.linspace(0.01, 0.99, 60))
     grid_design = _smoother_design(cloglog(grid_risk), knots)
-    # each resample starts from the whole-data smoother: the same root (to the fit's tolerance), half the steps
+    # each resample starts from the whole-data smoother, near its own root (reached to the fit's tolerance)
     band = _band(pseudo, design, grid_design, groups_of_rows, smooth.coef, n_boot, seed)
     curve = pd.DataFrame(
         {

@@ -88,11 +88,12 @@ def fit_cloglog(
     -------
     CloglogFit
     """
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
-    w = np.ones(y.size) if weights is None else np.asarray(weights, dtype=float)
+    # contiguous float64 once, so that no scoring step copies its inputs for the compiled pass
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    y = np.ascontiguousarray(y, dtype=np.float64)
+    w = np.ones(y.size) if weights is None else np.ascontiguousarray(weights, dtype=np.float64)
     beta = np.zeros(x.shape[1]) if start is None else np.asarray(start, dtype=float).copy()
-    offsets = np.broadcast_to(np.asarray(offset, dtype=float), y.shape)
+    offsets = np.ascontiguousarray(np.broadcast_to(np.asarray(offset, dtype=np.float64), y.shape))
 
     def score_info(b: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
         score, info = score_and_information(x, b, offsets, y, w, _ETA_RANGE)
