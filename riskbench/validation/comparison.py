@@ -16,7 +16,7 @@ Intervals are percentile bootstrap intervals (Efron & Tibshirani 1993, ch. 13).
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -106,21 +106,22 @@ class _ComparisonJob:
 
 def _comparison_replicate(job: _ComparisonJob, index: int, seed: np.random.SeedSequence) -> Any:
     rng = np.random.default_rng(seed)
-    ids = job.source.patient_ids()
-    drawn = bootstrap_patient_draw(ids, rng)
+    drawn = bootstrap_patient_draw(job.source.patient_ids(), rng)
     log = ReplicateLog()
     try:
         fit_tables = draw_tables(job.source, drawn)
         models = fit_all_recorded(job.evaluation.specs, fit_tables, seed_to_int(seed), log)
-        if job.out_of_bag:
-            stack = subset_tables(job.source.full_tables(), not_drawn(ids, drawn)).landmark_stack
-        else:
-            stack = fit_tables.landmark_stack
+        stack = out_of_bag_stack(job.source, drawn) if job.out_of_bag else fit_tables.landmark_stack
         with recorded_warnings():  # a poor model on an unlucky resample may warn while being measured
             frames = job.evaluation.run(models, stack)
     except REPLICATE_ERRORS as exc:
         return failed_replicate(index, exc, log)
     return tagged_replicate(index, *frames, log=log)
+
+
+def out_of_bag_stack(source: TableSource, drawn: np.ndarray) -> pd.DataFrame:
+    """The landmark-stack rows of the patients a bootstrap draw left out, in the stack's order."""
+    return subset_tables(source.full_tables(), not_drawn(source.patient_ids(), drawn)).landmark_stack
 
 
 def not_drawn(ids: np.ndarray, drawn: np.ndarray) -> np.ndarray:
@@ -254,6 +255,25 @@ def collect_replicates(results: list) -> tuple[pd.DataFrame, pd.DataFrame, int]:
     return pd.concat(specs, ignore_index=True), (pd.concat(pairs, ignore_index=True) if pairs else None), n_failed
 
 
+def comparison_plan(
+    specs: Sequence[ModelSpec],
+    horizons: Sequence[float],
+    stack: pd.DataFrame,
+    *,
+    pairs: str | Sequence[tuple[int, int]] = "all",
+    thresholds: Sequence[float] = (),
+    nri_categories: Sequence[float] | None = None,
+) -> Evaluation:
+    """What :func:`compare_specs` measures in each replicate, given the same arguments (``stack``: the source's
+    full landmark stack); also the ``paired`` plan of :func:`riskbench.validation.optimism.bootstrap_optimism_result`.
+    """
+    specs = check_specs(specs)
+    if len(specs) < 2:
+        raise ValidationInputError("compare_specs needs at least two specs.")
+    hs = check_horizons(horizons, stack)
+    return Evaluation.build(specs, hs, pairs=pairs, thresholds=thresholds, nri_categories=nri_categories)
+
+
 def compare_specs(
     specs: Sequence[ModelSpec],
     source: TableSource,
@@ -267,6 +287,7 @@ def compare_specs(
     nri_categories: Sequence[float] | None = None,
     level: float = 0.95,
     config: ExecutionConfig | None = None,
+    known: Mapping[int, tuple] | None = None,
 ) -> Comparison:
     """Evaluate specs on the same bootstrap resamples of patients and compare them pairwise.
 
@@ -294,6 +315,11 @@ def compare_specs(
         Coverage of the percentile intervals.
     config : ExecutionConfig, optional
         Serial, joblib processes or a Dask scheduler.
+    known : mapping of int to replicate result, optional
+        Out-of-bag replicates already computed for these specs, evaluation plan, source and seed (the bootstrap
+        optimism computes them from its own refits when given the plan, see ``paired`` of
+        :func:`riskbench.validation.optimism.bootstrap_optimism_result`); only
+        the other replicates are run here. Replicate i is the same whichever computed it.
 
     Returns
     -------
@@ -307,12 +333,23 @@ def compare_specs(
     if n_boot < 2:
         raise ValidationInputError(f"n_boot must be at least 2 for an interval; got {n_boot}.")
     full = source.full_tables()
-    hs = check_horizons(horizons, full.landmark_stack)
-    plan = Evaluation.build(specs, hs, pairs=pairs, thresholds=thresholds, nri_categories=nri_categories)
+    plan = comparison_plan(
+        specs, horizons, full.landmark_stack, pairs=pairs, thresholds=thresholds, nri_categories=nri_categories
+    )
     job = _ComparisonJob(
         evaluation=plan, source=resampling_source(source, specs), out_of_bag=evaluation == "out_of_bag"
     )
-    results = run_replicates(_comparison_replicate, job, seed, n_boot, config, description="paired bootstrap")
+    known = {i: r for i, r in (known or {}).items() if 0 <= i < n_boot}
+    if known and evaluation != "out_of_bag":
+        raise ValidationInputError(
+            "replicates computed elsewhere are out-of-bag ones; evaluation must be 'out_of_bag'."
+        )
+    missing = [i for i in range(n_boot) if i not in known]
+    run = run_replicates(
+        _comparison_replicate, job, seed, n_boot, config, description="paired bootstrap", indices=missing
+    )
+    done = dict(zip(missing, run)) | known
+    results = [done[i] for i in range(n_boot)]
     spec_point = pair_point = None
     if evaluation == "apparent":
         spec_point, pair_point = plan.run(fit_all(specs, full, seed), full.landmark_stack)

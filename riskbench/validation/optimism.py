@@ -33,7 +33,7 @@ References: Harrell FE, Lee KL, Mark DB (1996) Stat Med 15:361-387; Steyerberg E
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -47,6 +47,7 @@ from riskbench.validation.comparison import (
     collect_replicates,
     failed_replicate,
     fit_all_recorded,
+    out_of_bag_stack,
     replicate_problems,
     resampling_source,
     tagged_replicate,
@@ -72,16 +73,22 @@ OVERFITTING_FAMILIES = ("forest",)
 class _OptimismJob:
     evaluation: Evaluation
     source: TableSource
+    paired: Evaluation | None = None
 
 
-def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSequence) -> Any:
+def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSequence) -> tuple[Any, Any]:
+    """The optimism replicate's result, and the paired comparison's replicate from the same refits (None when
+    no paired plan was given or it cannot be decided here)."""
     rng = np.random.default_rng(seed)
     drawn = bootstrap_patient_draw(job.source.patient_ids(), rng)
     log = ReplicateLog()
+    paired = None
     try:
         boot_tables = draw_tables(job.source, drawn)
         plan = job.evaluation
         models = fit_all_recorded(plan.specs, boot_tables, seed_to_int(seed), log)
+        if job.paired is not None:
+            paired = _paired_replicate(job, index, models, drawn, log)
         boot_stack, orig_stack = boot_tables.landmark_stack, job.source.full_tables().landmark_stack
         with recorded_warnings():  # a poor refit may warn while being measured; the result says enough
             # The drawn rows repeat original rows: predict each distinct row once for both evaluations.
@@ -89,13 +96,46 @@ def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSeque
             on_boot, _ = plan.run(models, boot_stack, risk_boot)
             on_orig, _ = plan.run(models, orig_stack, risk_orig)
     except REPLICATE_ERRORS as exc:
-        return failed_replicate(index, exc, log)
+        return failed_replicate(index, exc, log), paired
     frame = on_boot.rename(columns={"value": "bootstrap"})
     frame["test"] = on_orig["value"].to_numpy()
     frame["value"] = frame["bootstrap"] - frame["test"]
-    oob = _out_of_bag(plan, models, orig_stack, risk_orig, drawn)
+    if paired is not None and paired[1] is not None and _same_measures(plan, job.paired):
+        oob: pd.DataFrame | None = _out_of_bag_columns(paired[1])  # the paired replicate measured the same
+    else:
+        oob = _out_of_bag(plan, models, orig_stack, risk_orig, drawn)
     frame = frame.merge(oob, on=OPTIMISM_KEYS, how="left") if oob is not None else frame.assign(out_of_bag=np.nan)
-    return tagged_replicate(index, frame, log=log)
+    return tagged_replicate(index, frame, log=log), paired
+
+
+def _paired_replicate(job: _OptimismJob, index: int, models: list[Any], drawn: np.ndarray, log: ReplicateLog) -> Any:
+    """The paired comparison's replicate ``index`` (as :mod:`riskbench.validation.comparison` computes it: its
+    specs' refits measured on the patients the draw left out), from this replicate's refits."""
+    assert job.paired is not None
+    names = [s.name for s in job.evaluation.specs]
+    chosen = [models[names.index(s.name)] for s in job.paired.specs]
+    wanted = {s.name for s in job.paired.specs}
+    own_log = ReplicateLog(fits=[fit for fit in log.fits if fit[0] in wanted])
+    try:
+        with recorded_warnings():
+            frames = job.paired.run(chosen, out_of_bag_stack(job.source, drawn))
+    except REPLICATE_ERRORS as exc:
+        return failed_replicate(index, exc, own_log)
+    return tagged_replicate(index, *frames, log=own_log)
+
+
+def _same_measures(plan: Evaluation, paired: Evaluation | None) -> bool:
+    """True when the paired plan measures exactly what the optimism's out-of-bag step would."""
+    return (
+        paired is not None
+        and [s.name for s in plan.specs] == [s.name for s in paired.specs]
+        and plan.horizons == paired.horizons
+        and plan.thresholds == paired.thresholds
+    )
+
+
+def _out_of_bag_columns(per_spec: pd.DataFrame) -> pd.DataFrame:
+    return per_spec.rename(columns={"value": "out_of_bag"})[OPTIMISM_KEYS + ["out_of_bag"]]
 
 
 def _out_of_bag(
@@ -113,7 +153,7 @@ def _out_of_bag(
             measured, _ = plan.run(models, rows, held_risks)
     except REPLICATE_ERRORS:
         return None
-    return measured.rename(columns={"value": "out_of_bag"})[OPTIMISM_KEYS + ["out_of_bag"]]
+    return _out_of_bag_columns(measured)
 
 
 def dot632_plus(apparent: ArrayLike, out_of_bag: ArrayLike, no_information: ArrayLike = 0.5) -> np.ndarray:
@@ -143,12 +183,17 @@ class OptimismResult:
         Why each dropped replicate failed: ``(spec whose refit failed, or "", error)``.
     fit_log : tuple of (str, list of FitWarning)
         Every refit of every replicate: the spec name and the warnings it raised.
+    paired : mapping of int to replicate result
+        With a paired plan: the paired comparison's out-of-bag replicates computed from the same refits, by
+        replicate index (those that could not be decided here are absent), for
+        :func:`riskbench.validation.comparison.compare_specs` ``known``.
     """
 
     table: pd.DataFrame
     n_failed: int = 0
     failures: tuple[tuple[str, str], ...] = ()
     fit_log: tuple[tuple[str, list[FitWarning]], ...] = ()
+    paired: Mapping[int, tuple] = field(default_factory=dict)
 
     @property
     def fit_warnings(self) -> pd.DataFrame:
@@ -166,6 +211,7 @@ def bootstrap_optimism_result(
     thresholds: Sequence[float] = (),
     level: float = 0.95,
     config: ExecutionConfig | None = None,
+    paired: Evaluation | None = None,
 ) -> OptimismResult:
     """Apparent, optimism and optimism-corrected performance of each spec, with the failed replicates (and
     why) and the refits' warnings.
@@ -185,6 +231,12 @@ def bootstrap_optimism_result(
     level : float, default 0.95
         Coverage of the percentile interval of the per-replicate optimism.
     config : ExecutionConfig, optional
+    paired : Evaluation, optional
+        A paired comparison to measure from the same refits
+        (:func:`riskbench.validation.comparison.comparison_plan`): the replicates that
+        :func:`riskbench.validation.comparison.compare_specs` would compute with the same seed, number of
+        resamples and source, out-of-bag, for these specs (a subset of ``specs``) and horizons. A comparison
+        then refits nothing twice; each replicate equals the comparison's own (a test checks this).
 
     Returns
     -------
@@ -205,9 +257,13 @@ def bootstrap_optimism_result(
     full = source.full_tables()
     hs = check_horizons(horizons, full.landmark_stack)
     plan = Evaluation.build(specs, hs, pairs=(), thresholds=thresholds)
+    if paired is not None:
+        _check_paired(specs, paired, full.landmark_stack)
     apparent, _ = plan.run(fit_all(specs, full, seed), full.landmark_stack)
-    job = _OptimismJob(evaluation=plan, source=resampling_source(source, specs))
-    results = run_replicates(_optimism_replicate, job, seed, n_boot, config, description="bootstrap optimism")
+    job = _OptimismJob(evaluation=plan, source=resampling_source(source, specs), paired=paired)
+    both = run_replicates(_optimism_replicate, job, seed, n_boot, config, description="bootstrap optimism")
+    results = [r[0] for r in both]
+    known = {r[1][0]: r[1] for r in both if r[1] is not None}
     reps, _, n_failed = collect_replicates(results)
     summary = percentile_summary(reps, OPTIMISM_KEYS, level=level).rename(
         columns={"estimate": "optimism", "ci_low": "optimism_low", "ci_high": "optimism_high"}
@@ -225,7 +281,18 @@ def bootstrap_optimism_result(
         + ["apparent", "optimism", "corrected", "optimism_low", "optimism_high", "out_of_bag", "dot632_plus", "n_boot"]
     ]
     failures, fit_log = replicate_problems(results)
-    return OptimismResult(table, n_failed, failures, fit_log)
+    return OptimismResult(table, n_failed, failures, fit_log, known)
+
+
+def _check_paired(specs: Sequence[ModelSpec], paired: Evaluation, stack: pd.DataFrame) -> None:
+    own = {s.name: s for s in specs}
+    foreign = [s.name for s in paired.specs if own.get(s.name) != s]
+    if foreign:
+        raise ValidationInputError(
+            f"the paired plan's specs {foreign} are not among the specs refitted for the optimism (same name and "
+            "settings); compare only models the optimism refits."
+        )
+    check_horizons(paired.horizons, stack)
 
 
 def bootstrap_optimism(

@@ -299,8 +299,12 @@ def _run_task(func: ReplicateFunction, shared: Any, task: Sequence[tuple[int, np
     return [_single_threaded(func, shared, i, s) for i, s in task]
 
 
-def _tasks(seeds: Sequence[np.random.SeedSequence], size: int) -> list[list[tuple[int, np.random.SeedSequence]]]:
-    return [[(i, seeds[i]) for i in chunk] for chunk in replicate_chunks(len(seeds), size)]
+#: Replicates to run: each index with its seed.
+Numbered = Sequence[tuple[int, np.random.SeedSequence]]
+
+
+def _tasks(numbered: Numbered, size: int) -> list[list[tuple[int, np.random.SeedSequence]]]:
+    return [[numbered[k] for k in chunk] for chunk in replicate_chunks(len(numbered), size)]
 
 
 def run_replicates(
@@ -311,8 +315,10 @@ def run_replicates(
     config: ExecutionConfig | None = None,
     *,
     description: str = "replicates",
+    indices: Sequence[int] | None = None,
 ) -> list[Any]:
-    """Call ``func(shared, i, seed_i)`` for i = 0..n-1 and return the results in order.
+    """Call ``func(shared, i, seed_i)`` for i = 0..n-1 (or for the given ``indices`` only) and return the
+    results in order.
 
     Replicates are grouped into tasks of consecutive indices (``config.replicates_per_task``, by default
     about four tasks per worker); replicate i always receives seed i, so the results do not depend on the
@@ -337,37 +343,47 @@ def run_replicates(
         Serial by default.
     description : str
         What the replicates do, for the progress report (:mod:`riskbench.progress`).
+    indices : sequence of int, optional
+        Run only these replicates of the n (each still with its own seed i), e.g. those an earlier stage did
+        not already compute.
 
     Returns
     -------
     list
-        ``[func(shared, 0, s0), func(shared, 1, s1), ...]``.
+        ``[func(shared, 0, s0), func(shared, 1, s1), ...]`` (with ``indices``: one result per index, in
+        increasing order).
     """
     config = config or ExecutionConfig()
     seeds = replicate_seeds(seed, n)
-    with Progress(description, n, default_sinks(config.progress)) as progress:
+    chosen = range(n) if indices is None else sorted(set(int(i) for i in indices))
+    if chosen and not (chosen[0] >= 0 and chosen[-1] < n):
+        raise ValidationInputError(f"replicate indices must lie in 0..{n - 1}; got {chosen[0]}..{chosen[-1]}.")
+    numbered = [(i, seeds[i]) for i in chosen]
+    if not numbered:
+        return []
+    with Progress(description, len(numbered), default_sinks(config.progress)) as progress:
         if config.scheduler_address is not None:
-            return _run_dask(func, shared, seeds, config, progress)
+            return _run_dask(func, shared, numbered, config, progress)
         if config.n_jobs == 1:
             results = []
-            for i, s in enumerate(seeds):
+            for i, s in numbered:
                 results.append(_single_threaded(func, shared, i, s))
                 progress.advance()
             return results
-        return _run_joblib(func, shared, seeds, config, progress)
+        return _run_joblib(func, shared, numbered, config, progress)
 
 
 def _run_joblib(
     func: ReplicateFunction,
     shared: Any,
-    seeds: Sequence[np.random.SeedSequence],
+    numbered: Numbered,
     config: ExecutionConfig,
     progress: Progress,
 ) -> list[Any]:
     from joblib import Parallel, cpu_count, delayed
 
     workers = cpu_count() if config.n_jobs == -1 else config.n_jobs
-    tasks = _tasks(seeds, task_size(len(seeds), workers, config.replicates_per_task))
+    tasks = _tasks(numbered, task_size(len(numbered), workers, config.replicates_per_task))
     parallel = Parallel(n_jobs=config.n_jobs, backend="loky", return_as="generator")
     results: list[Any] = []
     for part in parallel(delayed(_run_task)(func, shared, task) for task in tasks):
@@ -379,7 +395,7 @@ def _run_joblib(
 def _run_dask(
     func: ReplicateFunction,
     shared: Any,
-    seeds: Sequence[np.random.SeedSequence],
+    numbered: Numbered,
     config: ExecutionConfig,
     progress: Progress,
 ) -> list[Any]:
@@ -416,7 +432,7 @@ def _run_dask(
         problems = check_workers(workers, config.allow_remote_scheduler) or _worker_table_problems(client, shared)
         if problems:
             raise ValidationInputError("; ".join(problems))
-        tasks = _tasks(seeds, task_size(len(seeds), len(workers), config.replicates_per_task))
+        tasks = _tasks(numbered, task_size(len(numbered), len(workers), config.replicates_per_task))
         shared_future = client.scatter(shared, broadcast=True)  # small: tables travel as file references
         futures = {client.submit(_run_task, func, shared_future, task, pure=False): k for k, task in enumerate(tasks)}
         parts: dict[int, list[Any]] = {}

@@ -33,7 +33,7 @@ from riskbench.report.notes import failed_models, save_notes, switched_off
 from riskbench.report.outputs import load_data, save_table
 from riskbench.report.suppression import count_columns, format_count, suppress_counts
 from riskbench.time_units import DAYS_PER_YEAR, format_duration
-from riskbench.validation.comparison import compare_specs
+from riskbench.validation.comparison import compare_specs, comparison_plan
 from riskbench.validation.comparison_statistics import (
     COMPARISON_METRICS,
     comparison_table,
@@ -43,18 +43,21 @@ from riskbench.validation.comparison_statistics import (
 )
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.performance import evaluation_time, stack_outcome
+from riskbench.validation.table_files import table_source
 from riskbench.workflow.comparison_presentation import StageNotes, write_report, years_label
 from riskbench.workflow.config import AnalysisConfig
 from riskbench.workflow.fit_diagnosis import count_text
 from riskbench.workflow.landmark_report import report_landmark_performance
-from riskbench.workflow.model_factory import model_spec
+from riskbench.workflow.shared_replicates import load_replicates, replicate_key
 from riskbench.workflow.stage_calibration import calibration_part, model_target
-from riskbench.workflow.stage_data import stage_source
+from riskbench.workflow.stage_data import stage_tables
 from riskbench.workflow.stage_result import ComparisonStageResult, StageResult
 from riskbench.workflow.stage_validation import (
     bootstrap_resamples,
+    comparison_specs,
     execution,
     failure_notes,
+    outcome_horizons,
     outcomes_before,
     warning_notes,
 )
@@ -150,19 +153,17 @@ def _horizons_with_outcomes(
     config: AnalysisConfig, time: np.ndarray, status: np.ndarray, threshold: int, notes: StageNotes
 ) -> tuple[float, ...]:
     """Report horizons with at least ``threshold`` outcomes before them (a note for the others)."""
-    kept = []
+    kept = outcome_horizons(config, time, status)  # as the validation stage computes them for the replicates
     for h in config.report.horizons_days:
-        n = outcomes_before(time, status, h)
-        if n >= max(threshold, 1):
-            kept.append(h)
-        else:
+        if h not in kept:
+            n = outcomes_before(time, status, h)
             notes.add(
                 f"measures at {format_duration(h)}",
                 f"AUC, concordance, Brier score and calibration not computed: {count_text(n, threshold)} "
                 f"outcomes before {format_duration(h)} after the landmark (at least {threshold}, the "
                 "small-count threshold, are needed); choose shorter or longer [report] report_horizons.",
             )
-    return tuple(kept)
+    return kept
 
 
 def _performance(
@@ -296,19 +297,21 @@ def _comparison(
     if not report_days:
         notes.add(part, "not computed: no report horizon has enough outcomes before it (see the notes above).")
         return None
-    specs = [
-        model_spec(config.model(reference), config.missing_data),
-        model_spec(config.model(candidate), config.missing_data),
-    ]
+    specs = comparison_specs(config) or []
+    tables = stage_tables(result.run_dir)
+    source = table_source(tables)  # workers read Parquet
     try:
+        plan = comparison_plan(specs, list(report_days), source.full_tables().landmark_stack, pairs=[(0, 1)])
+        key = replicate_key(plan, config.validation.seed, n_boot, tables.files["landmark_stack"].sha256)
         comparison = compare_specs(
             specs,
-            stage_source(result.run_dir),
-            list(report_days),  # workers read Parquet
+            source,
+            list(report_days),
             n_boot=n_boot,
             seed=config.validation.seed,
             pairs=[(0, 1)],
             config=execution(config),
+            known=load_replicates(result.run_dir, key),  # measured by the validation stage from its refits
         )
     except ValidationInputError as exc:  # every resample failed; the message gives the first reasons
         notes.add(part, f"not computed: {exc}")

@@ -6,7 +6,9 @@ predicted by the models fitted without its patient) and the bootstrap-validation
 ``bootstrap_resamples`` > 0): per model, measure and horizon the apparent value, the ``validated`` one and how
 it was obtained (``obtained_by``: optimism-corrected for regression models, out-of-bag for forests;
 :func:`riskbench.validation.optimism.validated_performance`), the optimism with its interval, the out-of-bag
-and .632+ values. Fewer than 200 resamples (common practice) leave a caution note.
+and .632+ values. Fewer than 200 resamples (common practice) leave a caution note. The same refits also give
+the comparison stage's paired bootstrap replicates (``data/paired_replicates*``,
+:mod:`riskbench.workflow.shared_replicates`), so stage 4 refits nothing stage 3 already refitted.
 
 Nothing here stops the run for a model that cannot be fitted: a model whose whole-cohort fit failed in
 stage 2 is skipped; a model whose fit fails in a cross-validation fold gets no cross-validated predictions
@@ -24,19 +26,26 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from riskbench.errors import RiskbenchError
 from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
+from riskbench.models.missing_data import predicted_rows
 from riskbench.report.notes import Note, failed_models, save_notes, switched_off
 from riskbench.report.outputs import save_data, save_table
 from riskbench.time_units import DAYS_PER_YEAR
+from riskbench.validation.comparison import comparison_plan
+from riskbench.validation.comparison_statistics import risk_matrices
 from riskbench.validation.errors import ValidationInputError
+from riskbench.validation.model_specs import ModelSpec
 from riskbench.validation.optimism import bootstrap_optimism_result, validated_performance
+from riskbench.validation.paired import Evaluation
 from riskbench.validation.parallel import ExecutionConfig, run_replicates
 from riskbench.validation.performance import evaluation_time, stack_outcome
 from riskbench.validation.plans import patient_folds
-from riskbench.validation.table_files import table_source
+from riskbench.validation.table_files import TableFiles, table_source
 from riskbench.workflow.config import AnalysisConfig
 from riskbench.workflow.fit_diagnosis import hide_small_numbers, terms_text
 from riskbench.workflow.model_factory import model_spec
+from riskbench.workflow.shared_replicates import forget_replicates, replicate_key, save_replicates
 from riskbench.workflow.stage_data import stage_tables
 from riskbench.workflow.stage_models import evaluation_horizons, fit_recorded
 from riskbench.workflow.stage_result import StageResult, ValidationStageResult
@@ -65,9 +74,7 @@ def measurable_horizons(config: AnalysisConfig, stack: pd.DataFrame) -> tuple[fl
     """Report horizons (days) with at least the small-count threshold of outcomes before them in ``stack``;
     at the others AUC, Brier score and calibration would rest on a handful of patients (the comparison stage
     notes them)."""
-    time, status = stack_outcome(stack)
-    least = max(config.report.small_count_threshold, 1)
-    return tuple(h for h in config.report.horizons_days if outcomes_before(time, status, h) >= least)
+    return outcome_horizons(config, *stack_outcome(stack))
 
 
 def fitted_models(config: AnalysisConfig, run_dir: Path) -> list[Any]:
@@ -219,7 +226,9 @@ def run_validation_stage(config: AnalysisConfig, run_dir: str | Path) -> Validat
             f"{cv['row'].nunique()} landmark rows predicted by models fitted without their patient."
         )
         cv_failed = {n.model for n in cv_notes}
-        notes += _optimism(config, tables, [m for m in models if m.name not in cv_failed], result, fits)
+        refitted = [m for m in models if m.name not in cv_failed]
+        paired = _paired_plan(config, tables, cv, {m.name for m in refitted})
+        notes += _optimism(config, tables, refitted, result, fits, paired)
         notes += temporal_validation(config, run_dir, tables, models, result, fits)  # [validation] develop_before
     if stray:
         fits.append(("(outside the fits)", list(stray)))
@@ -259,10 +268,63 @@ def validated_table(table: pd.DataFrame, families: dict[str, str]) -> pd.DataFra
     return out[_VALIDATED_COLUMNS]
 
 
+def comparison_specs(config: AnalysisConfig) -> list[ModelSpec] | None:
+    """The specs of the paired comparison, reference first (None when none is configured)."""
+    try:
+        pair = config.comparison
+    except RiskbenchError:  # fewer than two models: no comparison
+        return None
+    if not pair or None in tuple(pair):
+        return None
+    candidate, reference = pair
+    return [model_spec(config.model(name), config.missing_data) for name in (reference, candidate)]
+
+
+def predicted_outcomes(stack: pd.DataFrame, cv: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Follow-up and status of the landmark rows every model predicts (complete-case models leave some out),
+    and which rows those are: the rows the comparison stage measures."""
+    time, status = stack_outcome(stack)
+    _, risks = risk_matrices(cv, len(stack))
+    keep = predicted_rows([risks])
+    return time[keep], status[keep], keep
+
+
+def outcome_horizons(config: AnalysisConfig, time: np.ndarray, status: np.ndarray) -> tuple[float, ...]:
+    """Report horizons (days) with at least the small-count threshold of outcomes before them."""
+    least = max(config.report.small_count_threshold, 1)
+    return tuple(h for h in config.report.horizons_days if outcomes_before(time, status, h) >= least)
+
+
+def _paired_plan(
+    config: AnalysisConfig, tables: Mapping[str, pd.DataFrame], cv: pd.DataFrame, refitted: set[str]
+) -> Evaluation | None:
+    """What the comparison stage's paired bootstrap will measure, when the bootstrap optimism refits both of
+    its models (:mod:`riskbench.workflow.shared_replicates`); None otherwise."""
+    specs = comparison_specs(config)
+    if specs is None or bootstrap_resamples(config) < 2 or not len(cv) or any(s.name not in refitted for s in specs):
+        return None
+    stack = tables["landmark_stack"]
+    time, status, _ = predicted_outcomes(stack, cv)
+    days = outcome_horizons(config, time, status)
+    if not days:
+        return None
+    try:
+        return comparison_plan(specs, list(days), stack, pairs=[(0, 1)])
+    except ValidationInputError:
+        return None
+
+
 def _optimism(
-    config: AnalysisConfig, tables: Mapping[str, pd.DataFrame], models: list[Any], result: StageResult, fits: list
+    config: AnalysisConfig,
+    tables: Mapping[str, pd.DataFrame],
+    models: list[Any],
+    result: StageResult,
+    fits: list,
+    paired: Evaluation | None = None,
 ) -> list[Note]:
-    """Bootstrap optimism of ``models`` into ``result.tables``; the notes it leads to."""
+    """Bootstrap optimism of ``models`` into ``result.tables`` (and the paired comparison's replicates from
+    the same refits, saved for the comparison stage); the notes it leads to."""
+    forget_replicates(result.run_dir)
     n_boot = bootstrap_resamples(config)
     if not getattr(config.validation, "optimism", True):
         return [switched_off("validation", "bootstrap optimism", "[validation] optimism")]
@@ -301,9 +363,15 @@ def _optimism(
             n_boot=n_boot,
             seed=config.validation.seed,
             config=execution(config),
+            paired=paired,
         )
     except ValidationInputError as exc:  # every resample failed (the message gives the first reasons)
         return [Note("validation", "bootstrap optimism", f"not computed: {exc}")]
+    if paired is not None and outcome.paired and isinstance(tables, TableFiles):
+        stack_file = tables.files["landmark_stack"].sha256
+        save_replicates(
+            result.run_dir, replicate_key(paired, config.validation.seed, n_boot, stack_file), outcome.paired
+        )
     fits += outcome.fit_log
     optimism = validated_table(outcome.table, {m.name: m.family for m in models})
     result.tables["bootstrap_optimism"] = optimism.dropna(axis="columns", how="all")

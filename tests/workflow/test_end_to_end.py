@@ -4,13 +4,16 @@ One module-scoped run of configs/demo.toml, on its first 800 patients and with a
 runs the whole cohort), feeds every check: the report has every
 section and renders in headless chromium with every figure loaded; no input patient id appears in any
 output; the stage functions run again in-process give byte-identical tables (same configuration and data,
-same tables); changing the horizon changes the outputs that depend on it.
+same tables); the comparison stage, reading the paired replicates the validation stage measured from its
+own refits, writes the tables it writes when it refits them itself; changing the horizon changes the outputs
+that depend on it.
 """
 
 from __future__ import annotations
 
 import json
 import re
+import shutil
 from pathlib import Path
 
 import pandas as pd
@@ -18,6 +21,7 @@ import pytest
 
 from riskbench.report.html_report import SECTIONS
 from riskbench.report.render_check import check_report_renders
+from riskbench.validation import comparison as comparison_module
 from riskbench.workflow.config import load_config
 from riskbench.workflow.runner import run_analysis
 from riskbench.workflow.stages import STAGE_FUNCTIONS
@@ -129,6 +133,28 @@ def test_same_configuration_and_data_give_identical_tables(demo_run):
     assert first.keys() == second.keys() and len(first) >= 10
     for name in first:
         assert first[name] == second[name], name
+
+
+def test_comparison_reads_the_validation_refits_and_writes_what_its_own_refits_give(demo_run, monkeypatch, tmp_path):
+    config = load_config(demo_run["config"])
+    saved = json.loads((demo_run["run"] / "data" / "paired_replicates.json").read_text())
+    assert saved["key"]["n_boot"] == 2 and sorted(saved["replicates"]) == ["0", "1"]
+    reused, own = tmp_path / "reused", tmp_path / "own"
+    for copy in (reused, own):
+        shutil.copytree(demo_run["run"], copy)
+    for path in (own / "data").glob("paired_replicates*"):
+        path.unlink()
+    STAGE_FUNCTIONS["comparison"](config, own)  # refits every replicate itself
+
+    def refit(*_args):
+        raise AssertionError("the comparison refitted a replicate the validation stage had measured")
+
+    monkeypatch.setattr(comparison_module, "_comparison_replicate", refit)
+    STAGE_FUNCTIONS["comparison"](config, reused)
+    tables = sorted(p.name for p in (own / "tables").glob("*.csv"))
+    assert "model_comparison.csv" in tables
+    for name in tables + ["../notes/comparison.json"]:
+        assert (reused / "tables" / name).read_bytes() == (own / "tables" / name).read_bytes(), name
 
 
 def test_changing_the_horizon_changes_the_outputs_that_depend_on_it(demo_run):
