@@ -34,7 +34,7 @@ from the fitted coefficients (the Efron partial likelihood is used for the coeff
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -68,7 +68,8 @@ class CauseSpecificFit:
     coef : ndarray (p,)
         Log hazard ratios per design column.
     var, robust_var : ndarray (p, p)
-        Model-based and cluster-robust (by patient) covariance.
+        Model-based and cluster-robust (by patient) covariance (``robust_var`` all NaN when the fit was asked
+        not to compute it, see :meth:`LandmarkSupermodel.fit`).
     means : ndarray (p,)
         Training means of the design columns (the baseline hazard refers to them).
     baseline : dict
@@ -95,21 +96,23 @@ def _fit_cox_arrays(
     event: np.ndarray,
     *,
     strata: np.ndarray,
-    cluster: np.ndarray,
+    cluster: np.ndarray | None,
     ties: str,
     names: Sequence[str],
+    initial: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, float, float]:
     """Cox fit of one cause on the stack (entry 0, exit ``time``): coef, model-based and robust covariance,
     log partial likelihood at the fit and at zero.
 
-    The coefficients come from :func:`riskbench.models.cox_engine.fit_cox` (Newton–Raphson, cluster-robust
-    sandwich variance by ``cluster``).
+    The coefficients come from :func:`riskbench.models.cox_engine.fit_cox` (Newton–Raphson from ``initial``
+    or 0, cluster-robust sandwich variance by ``cluster``; all NaN when ``cluster`` is None).
     """
-    fit = fit_cox(design, time, event, strata=strata, cluster=cluster, ties=ties, names=names)
+    fit = fit_cox(design, time, event, strata=strata, cluster=cluster, ties=ties, names=names, initial=initial)
+    p = len(fit.coef)
     return (
         np.asarray(fit.coef),
         np.asarray(fit.var),
-        np.asarray(fit.robust_var),
+        np.full((p, p), np.nan) if fit.robust_var is None else np.asarray(fit.robust_var),
         float(fit.loglik),
         float(fit.loglik_null),
     )
@@ -129,6 +132,10 @@ def _breslow_increments(
         keep = deaths > 0
         out[float(stratum)] = (unique[keep], deaths[keep] / at_risk[keep])
     return out
+
+
+#: Starting coefficients of one cause: its design columns and their values (see ``LandmarkSupermodel.fit``).
+StartingValues = tuple[Sequence[str], np.ndarray]
 
 
 class LandmarkSupermodel(BaseEstimator):
@@ -215,8 +222,24 @@ class LandmarkSupermodel(BaseEstimator):
         return np.hstack(blocks)
 
     # --------------------------------------------------------------------- fit
-    def fit(self, stack: pd.DataFrame) -> LandmarkSupermodel:
-        """Fit on a landmark stack (``patient_id, landmark, time, status`` + covariates); returns self."""
+    def fit(
+        self, stack: pd.DataFrame, *, start: Mapping[str, StartingValues] | None = None, robust: bool = True
+    ) -> LandmarkSupermodel:
+        """Fit on a landmark stack (``patient_id, landmark, time, status`` + covariates); returns self.
+
+        Parameters
+        ----------
+        stack : pandas.DataFrame
+        start : mapping, optional
+            Where Newton–Raphson starts for each cause (``"outcome"``, ``"competing event"``): the
+            :meth:`starting_values` of a fit of the same model, e.g. on the whole cohort when this fit is a
+            refit on a bootstrap resample. The partial likelihood is concave, so the optimum is the same (to the
+            convergence tolerance) and is reached in fewer iterations. A cause whose design columns differ
+            (another covariate set) starts from 0.
+        robust : bool, default True
+            Compute the patient-clustered covariance ``robust_var_``. A resampling refit needs only the point
+            estimates and the baseline: False skips the sandwich and leaves ``robust_var_`` all NaN.
+        """
         time, status = check_stack_outcome(stack, required=("patient_id", "landmark"))
         covariates = list(self.covariates)
         x = check_covariates(stack, covariates, what="landmark stack")
@@ -234,22 +257,36 @@ class LandmarkSupermodel(BaseEstimator):
         self.max_time_ = float(time.max())
         design = self._design(x, s)
         strata = s if self.baseline == "stratified" else np.zeros(len(s))
-        cluster = stack["patient_id"].to_numpy()
-        codes = pd.factorize(cluster)[0]  # once for both causes: factorizing text ids is the slow part of the setup
-        if (codes >= 0).all():  # a missing id stays as it is, for the Cox engine to name
-            cluster = codes
+        cluster: np.ndarray | None = None
+        if robust:
+            cluster = stack["patient_id"].to_numpy()
+            codes = pd.factorize(cluster)[0]  # once for both causes: factorizing text ids is slow
+            if (codes >= 0).all():  # a missing id stays as it is, for the Cox engine to name
+                cluster = codes
+        starts = dict(start or {})
 
-        self.outcome_ = self._fit_cause(design, time, (status == 1).astype(float), strata, cluster, "outcome")
+        def cause(code: int, label: str) -> CauseSpecificFit:
+            initial = self._initial(starts.get(label))
+            return self._fit_cause(design, time, (status == code).astype(float), strata, cluster, label, initial)
+
+        self.outcome_ = cause(1, "outcome")
         has_competing = bool(self.competing) and bool((status == 2).any())
-        self.competing_ = (
-            self._fit_cause(design, time, (status == 2).astype(float), strata, cluster, "competing event")
-            if has_competing
-            else None
-        )
+        self.competing_ = cause(2, "competing event") if has_competing else None
         self.coef_ = self.outcome_.coef
         self.var_ = self.outcome_.var
         self.robust_var_ = self.outcome_.robust_var
         return self
+
+    def starting_values(self) -> dict[str, StartingValues]:
+        """The fitted coefficients per cause with their design columns, for ``fit(start=...)`` of a refit."""
+        self._check_fitted()
+        fits = {"outcome": self.outcome_, "competing event": self.competing_}
+        return {label: (tuple(self.design_columns_), fit.coef.copy()) for label, fit in fits.items() if fit is not None}
+
+    def _initial(self, values: StartingValues | None) -> np.ndarray | None:
+        if values is None or tuple(values[0]) != tuple(self.design_columns_):
+            return None
+        return np.asarray(values[1], dtype=float)
 
     def _fit_cause(
         self,
@@ -257,14 +294,22 @@ class LandmarkSupermodel(BaseEstimator):
         time: np.ndarray,
         event: np.ndarray,
         strata: np.ndarray,
-        cluster: np.ndarray,
+        cluster: np.ndarray | None,
         label: str,
+        initial: np.ndarray | None = None,
     ) -> CauseSpecificFit:
         if event.sum() == 0:
             raise ModelInputError(f"the landmark stack has no {label} (status) rows; nothing to fit")
         try:
             coef, var, robust_var, loglik, loglik_null = _fit_cox_arrays(
-                design, time, event, strata=strata, cluster=cluster, ties=self.ties, names=self.design_columns_
+                design,
+                time,
+                event,
+                strata=strata,
+                cluster=cluster,
+                ties=self.ties,
+                names=self.design_columns_,
+                initial=initial,
             )
         except CoxInputError as exc:
             # say which cause-specific model failed; callers restate it with the model's name

@@ -284,8 +284,11 @@ class MissingDataModel(BaseEstimator):
         return out
 
     # --------------------------------------------------------------------- fit
-    def fit(self, table: pd.DataFrame) -> MissingDataModel:
-        """Fit on a landmark stack or counting-process rows with missing covariate values; returns self."""
+    def fit(self, table: pd.DataFrame, **fit_params: Any) -> MissingDataModel:
+        """Fit on a landmark stack or counting-process rows with missing covariate values; returns self.
+
+        ``fit_params`` go to every fit of the wrapped estimator (e.g. a landmark super-model's ``start`` and
+        ``robust``)."""
         plan = MissingDataPlan(self.method, int(self.imputations), int(self.max_iterations))
         names = self.covariates
         x = covariate_values(table, names, what="fitting table", allow_missing=True)
@@ -299,21 +302,21 @@ class MissingDataModel(BaseEstimator):
             check_imputable(x, names, what="training rows")
             self.medians_ = {n: float(np.nanmedian(x[:, j])) for j, n in enumerate(names)}
         if not missing.any():
-            self.models_ = [clone(self.estimator).fit(table)]
+            self.models_ = [clone(self.estimator).fit(table, **fit_params)]
             self.note_ = "no covariate of the model is missing in the training rows: fitted once"
         elif plan.method == "complete_cases":
-            self._fit_complete_cases(table, missing)
+            self._fit_complete_cases(table, missing, fit_params)
         elif plan.method == "missing_indicator":
-            self._fit_indicator(table, x, missing)
+            self._fit_indicator(table, x, missing, fit_params)
         else:
-            self._fit_imputed(table, x, plan)
+            self._fit_imputed(table, x, plan, fit_params)
         if plan.method == "multiple_imputation":
             self._origin_train_ = prediction_origin(table)
             self._x_train_ = x
             self._prediction_imputer_: PredictionImputer | None = None  # fitted when first needed
         return self
 
-    def _fit_complete_cases(self, table: pd.DataFrame, missing: np.ndarray) -> None:
+    def _fit_complete_cases(self, table: pd.DataFrame, missing: np.ndarray, fit_params: dict[str, Any]) -> None:
         dropped = np.asarray(missing.any(axis=1), dtype=bool)
         if dropped.all():
             raise ModelInputError(
@@ -322,10 +325,12 @@ class MissingDataModel(BaseEstimator):
                 "or remove the covariates that are most often missing"
             )
         self.dropped_rows_ = dropped_rows_by_landmark(table, dropped)
-        self.models_ = [clone(self.estimator).fit(table.loc[~dropped])]
+        self.models_ = [clone(self.estimator).fit(table.loc[~dropped], **fit_params)]
         self.note_ = f"complete cases: {describe_rows(table, dropped)} left out of the fit"
 
-    def _fit_indicator(self, table: pd.DataFrame, x: np.ndarray, missing: np.ndarray) -> None:
+    def _fit_indicator(
+        self, table: pd.DataFrame, x: np.ndarray, missing: np.ndarray, fit_params: dict[str, Any]
+    ) -> None:
         names = self.covariates
         self.indicator_columns_ = [f"{n}_missing" for j, n in enumerate(names) if missing[:, j].any()]
         clash = [c for c in self.indicator_columns_ if c in table.columns]
@@ -335,7 +340,7 @@ class MissingDataModel(BaseEstimator):
                 f"method with {MISSING_DATA_KEYS}"
             )
         estimator = clone(self.estimator).set_params(covariates=[*names, *self.indicator_columns_])
-        self.models_ = [estimator.fit(self._indicator_table(table, x))]
+        self.models_ = [estimator.fit(self._indicator_table(table, x), **fit_params)]
         self.note_ = f"missing indicator: {len(self.indicator_columns_)} indicator column(s) added"
 
     def _indicator_table(self, table: pd.DataFrame, x: np.ndarray) -> pd.DataFrame:
@@ -348,7 +353,9 @@ class MissingDataModel(BaseEstimator):
                 out[f"{name}_missing"] = missing[:, j].astype(float)
         return out
 
-    def _fit_imputed(self, table: pd.DataFrame, x: np.ndarray, plan: MissingDataPlan) -> None:
+    def _fit_imputed(
+        self, table: pd.DataFrame, x: np.ndarray, plan: MissingDataPlan, fit_params: dict[str, Any]
+    ) -> None:
         names = self.covariates
         check_imputable(x, names, what="training rows")
         outcome, _ = outcome_predictors(table)
@@ -356,12 +363,18 @@ class MissingDataModel(BaseEstimator):
         self.models_ = []
         for seed in imputation_seeds(self.random_state, plan.imputations):
             completed = impute_training_rows(x, origin, outcome, seed=seed, max_iterations=plan.max_iterations)
-            self.models_.append(clone(self.estimator).fit(self._with_values(table, names, completed)))
+            self.models_.append(clone(self.estimator).fit(self._with_values(table, names, completed), **fit_params))
         self.fitted_once_ = False
         self.note_ = (
             f"multiple imputation: {plan.imputations} imputations of "
             f"{sum(self.training_missing_.values())} missing training values"
         )
+
+    def starting_values(self) -> Any:
+        """The wrapped fit's starting values for a refit (of the first fit when there are several imputations),
+        or None when the wrapped estimator has none."""
+        first = self.models_[0]
+        return first.starting_values() if hasattr(first, "starting_values") else None
 
     # ----------------------------------------------------------------- predict
     def _prediction_imputer(self, seed: int) -> PredictionImputer:

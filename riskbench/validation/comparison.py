@@ -25,7 +25,7 @@ import pandas as pd
 
 from riskbench.models.fit_warnings import FitWarning, count_warnings, recorded_warnings
 from riskbench.validation.errors import ValidationInputError
-from riskbench.validation.model_specs import ModelSpec, fit_spec
+from riskbench.validation.model_specs import ModelSpec, fit_spec, starting_values
 from riskbench.validation.paired import Evaluation, check_specs, fit_all, percentile_summary
 from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
 from riskbench.validation.performance import METRIC_DIRECTION, check_horizons
@@ -81,14 +81,19 @@ class ReplicateLog:
 
 
 def fit_all_recorded(
-    specs: Sequence[ModelSpec], tables: ValidationTables, seed: int | None, log: ReplicateLog
+    specs: Sequence[ModelSpec],
+    tables: ValidationTables,
+    seed: int | None,
+    log: ReplicateLog,
+    starts: Sequence[Any] | None = None,
 ) -> list[Any]:
-    """:func:`~riskbench.validation.paired.fit_all`, recording each fit's warnings (and a failing spec) in ``log``."""
+    """:func:`~riskbench.validation.paired.fit_all`, recording each fit's warnings (and a failing spec) in ``log``;
+    ``starts`` (one per spec) make the fits resampling refits (:func:`~riskbench.validation.model_specs.fit_spec`)."""
     models = []
-    for spec in specs:
+    for k, spec in enumerate(specs):
         try:
             with recorded_warnings() as warned:
-                models.append(fit_spec(spec, tables, seed=seed))
+                models.append(fit_spec(spec, tables, seed=seed, start=None if starts is None else starts[k]))
         except BaseException:
             log.failed_spec = spec.name
             raise
@@ -102,6 +107,7 @@ class _ComparisonJob:
     evaluation: Evaluation
     source: TableSource
     out_of_bag: bool
+    starts: tuple[Any, ...] | None = None  # whole-cohort estimates the refits start from
 
 
 def _comparison_replicate(job: _ComparisonJob, index: int, seed: np.random.SeedSequence) -> Any:
@@ -110,7 +116,7 @@ def _comparison_replicate(job: _ComparisonJob, index: int, seed: np.random.SeedS
     log = ReplicateLog()
     try:
         fit_tables = draw_tables(job.source, drawn)
-        models = fit_all_recorded(job.evaluation.specs, fit_tables, seed_to_int(seed), log)
+        models = fit_all_recorded(job.evaluation.specs, fit_tables, seed_to_int(seed), log, job.starts)
         stack = out_of_bag_stack(job.source, drawn) if job.out_of_bag else fit_tables.landmark_stack
         with recorded_warnings():  # a poor model on an unlucky resample may warn while being measured
             frames = job.evaluation.run(models, stack)
@@ -336,15 +342,19 @@ def compare_specs(
     plan = comparison_plan(
         specs, horizons, full.landmark_stack, pairs=pairs, thresholds=thresholds, nri_categories=nri_categories
     )
-    job = _ComparisonJob(
-        evaluation=plan, source=resampling_source(source, specs), out_of_bag=evaluation == "out_of_bag"
-    )
     known = {i: r for i, r in (known or {}).items() if 0 <= i < n_boot}
     if known and evaluation != "out_of_bag":
         raise ValidationInputError(
             "replicates computed elsewhere are out-of-bag ones; evaluation must be 'out_of_bag'."
         )
     missing = [i for i in range(n_boot) if i not in known]
+    whole = fit_all(specs, full, seed) if missing or evaluation == "apparent" else []
+    job = _ComparisonJob(
+        evaluation=plan,
+        source=resampling_source(source, specs),
+        out_of_bag=evaluation == "out_of_bag",
+        starts=tuple(starting_values(m) for m in whole) if whole else None,
+    )
     run = run_replicates(
         _comparison_replicate, job, seed, n_boot, config, description="paired bootstrap", indices=missing
     )
@@ -352,5 +362,5 @@ def compare_specs(
     results = [done[i] for i in range(n_boot)]
     spec_point = pair_point = None
     if evaluation == "apparent":
-        spec_point, pair_point = plan.run(fit_all(specs, full, seed), full.landmark_stack)
+        spec_point, pair_point = plan.run(whole, full.landmark_stack)
     return summarise_comparison(results, level=level, spec_point=spec_point, pair_point=pair_point)

@@ -53,7 +53,7 @@ from riskbench.validation.comparison import (
     tagged_replicate,
 )
 from riskbench.validation.errors import ValidationInputError
-from riskbench.validation.model_specs import ModelSpec
+from riskbench.validation.model_specs import ModelSpec, starting_values
 from riskbench.validation.paired import Evaluation, check_specs, fit_all, percentile_summary, predict_all
 from riskbench.validation.parallel import ExecutionConfig, run_replicates, seed_to_int
 from riskbench.validation.performance import check_horizons
@@ -74,6 +74,7 @@ class _OptimismJob:
     evaluation: Evaluation
     source: TableSource
     paired: Evaluation | None = None
+    starts: tuple[Any, ...] | None = None  # whole-cohort estimates the refits start from
 
 
 def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSequence) -> tuple[Any, Any]:
@@ -86,7 +87,7 @@ def _optimism_replicate(job: _OptimismJob, index: int, seed: np.random.SeedSeque
     try:
         boot_tables = draw_tables(job.source, drawn)
         plan = job.evaluation
-        models = fit_all_recorded(plan.specs, boot_tables, seed_to_int(seed), log)
+        models = fit_all_recorded(plan.specs, boot_tables, seed_to_int(seed), log, job.starts)
         if job.paired is not None:
             paired = _paired_replicate(job, index, models, drawn, log)
         boot_stack, orig_stack = boot_tables.landmark_stack, job.source.full_tables().landmark_stack
@@ -259,8 +260,14 @@ def bootstrap_optimism_result(
     plan = Evaluation.build(specs, hs, pairs=(), thresholds=thresholds)
     if paired is not None:
         _check_paired(specs, paired, full.landmark_stack)
-    apparent, _ = plan.run(fit_all(specs, full, seed), full.landmark_stack)
-    job = _OptimismJob(evaluation=plan, source=resampling_source(source, specs), paired=paired)
+    whole = fit_all(specs, full, seed)
+    apparent, _ = plan.run(whole, full.landmark_stack)
+    job = _OptimismJob(
+        evaluation=plan,
+        source=resampling_source(source, specs),
+        paired=paired,
+        starts=tuple(starting_values(m) for m in whole),
+    )
     both = run_replicates(_optimism_replicate, job, seed, n_boot, config, description="bootstrap optimism")
     results = [r[0] for r in both]
     known = {r[1][0]: r[1] for r in both if r[1] is not None}
