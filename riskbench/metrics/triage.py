@@ -15,7 +15,7 @@ import pandas as pd
 
 from riskbench.metrics.horizon_inputs import single_horizon_inputs
 from riskbench.metrics.inputs import ArrayLike, MetricInputError
-from riskbench.metrics.threshold_groups import split_by_thresholds
+from riskbench.metrics.threshold_groups import ThresholdGroups
 
 
 class TargetUnreachable(MetricInputError):
@@ -117,7 +117,8 @@ def triage_operating_point(
     candidates = np.unique(r)
     if candidates.size > _MAX_CANDIDATES:
         candidates = np.unique(np.quantile(r, np.linspace(0, 1, _MAX_CANDIDATES)))
-    acc = _accuracy(split_by_thresholds(t, status, r, h, candidates))
+    groups = ThresholdGroups(t, status, r, h, candidates)  # sorted once; each replicate only recounts
+    acc = _accuracy(groups.split())
     chosen = _choose(acc, target_npv, target_sensitivity)
     if chosen < 0:
         what = f"NPV {target_npv}" if target_npv is not None else f"sensitivity {target_sensitivity}"
@@ -136,7 +137,8 @@ def triage_operating_point(
     draws: dict[str, list[float]] = {q: [] for q in QUANTITIES}
     for _ in range(n_boot):
         i = rng.integers(0, t.size, t.size)
-        b = _accuracy(split_by_thresholds(t[i], status[i], r[i], h, candidates))
+        # a subject drawn k times counts k times: the same whole-number counts as the resampled rows
+        b = _accuracy(groups.split(np.bincount(i, minlength=t.size)))
         for k, v in b.items():
             draws[k].append(v[chosen])
         j = _choose(b, target_npv, target_sensitivity)
