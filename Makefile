@@ -15,8 +15,10 @@ $(STAMP): pyproject.toml
 
 setup: $(STAMP)
 
+# The test files run on one process per core (pytest-xdist), each file's tests on one of them so that a
+# file's shared fixtures are built once.
 test: $(STAMP)
-	$(BIN)/python -m pytest
+	$(BIN)/python -m pytest -n auto --dist loadfile
 
 # Lint, format check and type check (configuration in pyproject.toml); about 10 s, run by .ci/run before the tests.
 check: $(STAMP)

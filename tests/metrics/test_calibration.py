@@ -68,11 +68,13 @@ def test_correct_model_is_calibrated(cohort):
 @settings(max_examples=6, deadline=None)
 @given(seed=st.integers(0, 100_000))
 def test_correct_model_calibrated_for_any_seed(seed):
-    """n = 2000: slope within 4 SE of 1; ICI under 0.04 (a few times its sampling spread at this size)."""
+    """n = 2000: slope within 4 SE of 1; ICI under 0.05. Measured over 400 seeds (every 250th of the range): ICI
+    median 0.013, 99th percentile 0.031, largest 0.043 (an earlier bound of 0.04 failed 1 seed in 400); largest
+    |slope - 1| / SE 2.9."""
     t, e, x = _cohort(2000, seed)
     cal = calibration_at_horizon(t, e, _true_risk(x), HORIZON, n_boot=0, check_direction=False)
     assert abs(cal.slope - 1) < 4 * cal.slope_se
-    assert cal.ici < 0.04
+    assert cal.ici < 0.05
 
 
 def test_inflated_risks_detected_by_observed_expected(cohort):

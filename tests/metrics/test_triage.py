@@ -8,6 +8,9 @@ import pytest
 from riskbench.metrics.threshold_groups import split_by_thresholds
 from riskbench.metrics.triage import QUANTITIES, _accuracy, _choose, triage_operating_point
 
+# _accuracy and _choose are private on purpose: the reference below must turn counts into accuracy and pick the
+# threshold by the module's own rules, so that only the counting of resampled subjects is under test.
+
 
 def _resampled_rows_reference(t, status, risk, horizon, target_npv, target_sensitivity, n_boot, seed):
     """The bootstrap written out: materialize each replicate's rows and split them afresh."""
