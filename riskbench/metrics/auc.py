@@ -13,7 +13,9 @@ integrated AUC weights by the rises of the Aalen–Johansen cumulative incidence
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -26,7 +28,7 @@ from riskbench.metrics.censoring import (
     kaplan_meier,
 )
 from riskbench.metrics.concordance import TIED_TOL
-from riskbench.metrics.inputs import ArrayLike, MetricInputError
+from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_status, as_time
 from riskbench.metrics.risk_sets import OutcomeSet, censoring_curve, dense_rank, horizon_inputs
 
 
@@ -83,12 +85,83 @@ def horizon_weights(t, status, horizons, train_time, train_event, outcomes: Outc
     return HorizonWeights(at_end, 1.0 / g_h)
 
 
-def observed_incidence(t: np.ndarray, status: np.ndarray) -> StepCurve:
-    """Observed risk curve of the outcome: Aalen–Johansen with competing events, else 1 − Kaplan–Meier."""
+def case_control_weights(
+    t: np.ndarray,
+    status: np.ndarray,
+    horizons: np.ndarray,
+    train_time: ArrayLike | None = None,
+    train_event: ArrayLike | None = None,
+    outcomes: OutcomeSet | None = None,
+) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Per horizon (days, sorted), the weights of the cases and of the controls (:class:`HorizonWeights`).
+
+    They depend on the rows and horizons only, so with ``outcomes`` (the same rows as an evaluation set) and no
+    training data they are computed once for every model measured there, and shared by the AUC and the Brier score.
+    """
+
+    def make() -> list[tuple[np.ndarray, np.ndarray]]:
+        weights = horizon_weights(t, status, horizons, train_time, train_event, outcomes)
+        return [(weights.case(t, status, hz), weights.control(t, status, k, hz)) for k, hz in enumerate(horizons)]
+
+    if outcomes is not None and train_time is None and train_event is None:
+        return outcomes.cached(("case_control", tuple(horizons.tolist())), make)
+    return make()
+
+
+def observed_incidence(
+    t: np.ndarray, status: np.ndarray, *, distinct_times: tuple[np.ndarray, np.ndarray] | None = None
+) -> StepCurve:
+    """Observed risk curve of the outcome: Aalen–Johansen with competing events, else 1 − Kaplan–Meier;
+    ``distinct_times``: ``np.unique(t, return_inverse=True)`` when at hand."""
     if (status == 2).any():
-        return aalen_johansen(t, status, cause=1)
-    km = kaplan_meier(t, status)
+        return aalen_johansen(t, status, cause=1, distinct_times=distinct_times)
+    km = kaplan_meier(t, status, distinct_times=distinct_times)
     return StepCurve(km.times, 1.0 - km.values, km.variance, 0.0, km.last_time)
+
+
+class AUCValues(NamedTuple):
+    """The AUC at each horizon (days, ascending) with its numbers of cases and controls, as arrays."""
+
+    horizon: np.ndarray
+    auc: np.ndarray
+    n_cases: np.ndarray
+    n_controls: np.ndarray
+
+
+def auc_values(
+    time: ArrayLike,
+    event: ArrayLike,
+    risk: ArrayLike,
+    horizons: float | ArrayLike,
+    *,
+    train_time: ArrayLike | None = None,
+    train_event: ArrayLike | None = None,
+    outcomes: OutcomeSet | None = None,
+    ranks: np.ndarray | Sequence[np.ndarray] | None = None,
+) -> AUCValues:
+    """The AUCs of :func:`auc_cumulative_dynamic` without its table and integrated AUC, for resampling loops
+    (the same parameters).
+
+    Returns
+    -------
+    AUCValues
+    """
+    t, status, r, h = horizon_inputs(time, event, risk, horizons, probability=False, outcomes=outcomes)
+    column_ranks = _column_ranks(r, horizons, ranks)
+    weights = case_control_weights(t, status, h, train_time, train_event, outcomes)
+    aucs, n_cases, n_ctrl = np.empty(h.size), np.empty(h.size, dtype=int), np.empty(h.size, dtype=int)
+    for k, hz in enumerate(h):
+        rk = column_ranks[0] if len(column_ranks) == 1 else column_ranks[k]
+        case_w, ctrl_w = weights[k]
+        if not (ctrl_w > 0).any():
+            raise MetricInputError(f"no subject is event-free after horizon {hz:g}: AUC is undefined there")
+        ctrl_per_rank = np.bincount(rk, weights=ctrl_w, minlength=int(rk.max()) + 1)
+        below = np.cumsum(ctrl_per_rank) - ctrl_per_rank
+        is_case = case_w > 0
+        rc, wc = rk[is_case], case_w[is_case]
+        aucs[k] = float(np.sum(wc * (below[rc] + 0.5 * ctrl_per_rank[rc])) / (wc.sum() * ctrl_w.sum()))
+        n_cases[k], n_ctrl[k] = int(is_case.sum()), int((ctrl_w > 0).sum())
+    return AUCValues(h, aucs, n_cases, n_ctrl)
 
 
 def auc_cumulative_dynamic(
@@ -100,6 +173,7 @@ def auc_cumulative_dynamic(
     train_time: ArrayLike | None = None,
     train_event: ArrayLike | None = None,
     outcomes: OutcomeSet | None = None,
+    ranks: np.ndarray | Sequence[np.ndarray] | None = None,
 ) -> AUCResult:
     """Cumulative/dynamic AUC at each horizon.
 
@@ -116,35 +190,58 @@ def auc_cumulative_dynamic(
     outcomes
         ``time`` and ``event`` as an evaluation set (:class:`riskbench.metrics.risk_sets.OutcomeSet`), whose
         censoring curve then serves every model and horizon measured on these rows.
+    ranks
+        ``dense_rank(risk, TIED_TOL)`` when already at hand (e.g. shared with the concordance of the same score):
+        one array for a 1-D ``risk``, else one array per column, in the order of ``horizons``.
 
     Returns
     -------
     AUCResult
     """
-    t, status, r, h = horizon_inputs(time, event, risk, horizons, probability=False)
-    weights = horizon_weights(t, status, h, train_time, train_event, outcomes)
-    aucs, n_cases, n_ctrl = np.empty(h.size), np.empty(h.size, dtype=int), np.empty(h.size, dtype=int)
-    rank = dense_rank(r, TIED_TOL) if r.ndim == 1 else None
-    for k, hz in enumerate(h):
-        rk = rank if rank is not None else dense_rank(r[:, k], TIED_TOL)
-        case_w = weights.case(t, status, hz)
-        ctrl_w = weights.control(t, status, k, hz)
-        if not (ctrl_w > 0).any():
-            raise MetricInputError(f"no subject is event-free after horizon {hz:g}: AUC is undefined there")
-        ctrl_per_rank = np.bincount(rk, weights=ctrl_w, minlength=int(rk.max()) + 1)
-        below = np.cumsum(ctrl_per_rank) - ctrl_per_rank
-        is_case = case_w > 0
-        rc, wc = rk[is_case], case_w[is_case]
-        aucs[k] = float(np.sum(wc * (below[rc] + 0.5 * ctrl_per_rank[rc])) / (wc.sum() * ctrl_w.sum()))
-        n_cases[k], n_ctrl[k] = int(is_case.sum()), int((ctrl_w > 0).sum())
+    values = auc_values(
+        time,
+        event,
+        risk,
+        horizons,
+        train_time=train_time,
+        train_event=train_event,
+        outcomes=outcomes,
+        ranks=ranks,
+    )
+    h, aucs = values.horizon, values.auc
     if h.size == 1:
         integrated = float(aucs[0])
     else:
-        incidence = observed_incidence(t, status)(h)
+        t, status = as_time(time), as_status(event, np.size(time), allow_competing=True)
+        curve = (
+            outcome_incidence(outcomes)
+            if outcomes is not None and train_time is None and train_event is None
+            else observed_incidence(t, status)
+        )
+        incidence = curve(h)
         rises = np.diff(np.r_[0.0, incidence])
         integrated = float(np.sum(aucs * rises) / incidence[-1])
-    table = pd.DataFrame({"horizon": h, "auc": aucs, "n_cases": n_cases, "n_controls": n_ctrl})
+    table = pd.DataFrame({"horizon": h, "auc": aucs, "n_cases": values.n_cases, "n_controls": values.n_controls})
     return AUCResult(table=table, integrated=integrated)
+
+
+def _column_ranks(
+    r: np.ndarray, horizons: float | ArrayLike, ranks: np.ndarray | Sequence[np.ndarray] | None
+) -> list[np.ndarray]:
+    """Dense ranks (``TIED_TOL``) of the one score, or of each column of ``r`` (columns already in the order of
+    the sorted horizons): those given, reordered like the columns, or computed."""
+    if ranks is None:
+        return [dense_rank(r, TIED_TOL)] if r.ndim == 1 else [dense_rank(c, TIED_TOL) for c in r.T]
+    if r.ndim == 1:
+        given = [np.asarray(ranks)]
+    else:  # a sequence of columns, or one (n, len(horizons)) array
+        given = list(ranks.T) if isinstance(ranks, np.ndarray) and ranks.ndim == 2 else list(ranks)
+    if r.ndim == 2:
+        order = np.argsort(np.atleast_1d(np.asarray(horizons, dtype=float)), kind="stable")
+        given = [given[k] for k in order] if len(given) == order.size else given
+    if len(given) != (1 if r.ndim == 1 else r.shape[1]) or any(g.shape != (r.shape[0],) for g in given):
+        raise MetricInputError("`ranks` must hold one rank per subject for the score, or for each column of `risk`")
+    return given
 
 
 def roc_at_horizon(
@@ -181,4 +278,12 @@ def roc_at_horizon(
             "sensitivity": np.r_[0.0, tp],
             "specificity": np.r_[1.0, 1.0 - fp],
         }
+    )
+
+
+def outcome_incidence(outcomes: OutcomeSet) -> StepCurve:
+    """:func:`observed_incidence` of an evaluation set, estimated once for every model and horizon."""
+    return outcomes.cached(
+        "incidence",
+        lambda: observed_incidence(outcomes.time, outcomes.status, distinct_times=outcomes.distinct_times()),
     )

@@ -9,19 +9,72 @@ probabilities; here ``risk`` = 1 − survival). With competing events (code 2) t
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 import pandas as pd
 
-from riskbench.metrics.auc import HorizonWeights, horizon_weights, observed_incidence
+from riskbench.metrics.auc import case_control_weights, observed_incidence, outcome_incidence
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_status, as_time
 from riskbench.metrics.risk_direction import check_risk_direction
 from riskbench.metrics.risk_sets import OutcomeSet, horizon_inputs
 
 
-def _ipcw_brier(t, status, risk_col, horizon, k, weights: HorizonWeights) -> float:
-    case_w = weights.case(t, status, horizon)
-    ctrl_w = weights.control(t, status, k, horizon)
+def _ipcw_brier(risk_col: np.ndarray, case_w: np.ndarray, ctrl_w: np.ndarray) -> float:
     return float(np.mean(case_w * (1.0 - risk_col) ** 2 + ctrl_w * risk_col**2))
+
+
+class BrierValues(NamedTuple):
+    """Brier score, null-model Brier score and scaled Brier score at each horizon (days, ascending)."""
+
+    horizon: np.ndarray
+    brier: np.ndarray
+    brier_null: np.ndarray
+    scaled_brier: np.ndarray
+
+
+def brier_values(
+    time: ArrayLike,
+    event: ArrayLike,
+    risk: ArrayLike,
+    horizons: float | ArrayLike,
+    *,
+    train_time: ArrayLike | None = None,
+    train_event: ArrayLike | None = None,
+    check_direction: bool = True,
+    outcomes: OutcomeSet | None = None,
+) -> BrierValues:
+    """The Brier scores of :func:`brier_score` as arrays (no table), for resampling loops (the same parameters).
+
+    Returns
+    -------
+    BrierValues
+    """
+    t, status, r, h = horizon_inputs(time, event, risk, horizons, probability=True, outcomes=outcomes)
+    if r.ndim == 1:
+        if h.size != 1:
+            raise MetricInputError(
+                f"`risk` is one column but {h.size} horizons were given: the risk by each horizon differs, so "
+                "give shape (n, len(horizons))"
+            )
+        r = r[:, None]
+    if check_direction:
+        check_risk_direction(t, status, r[:, -1])
+    weights = case_control_weights(t, status, h, train_time, train_event, outcomes)
+    if train_time is None or train_event is None:  # horizon_weights refused one without the other
+        null_curve = observed_incidence(t, status) if outcomes is None else outcome_incidence(outcomes)
+    else:
+        tt = as_time(train_time, "train_time")
+        null_curve = observed_incidence(tt, as_status(train_event, tt.size, allow_competing=True, name="train_event"))
+    brier, null = np.empty(h.size), np.empty(h.size)
+    for k, hz in enumerate(h):
+        case_w, ctrl_w = weights[k]
+        brier[k] = _ipcw_brier(r[:, k], case_w, ctrl_w)
+        null_risk = np.full(t.size, float(null_curve(hz)))
+        null[k] = _ipcw_brier(null_risk, case_w, ctrl_w)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        scaled = np.where(null > 0, 1.0 - brier / null, np.nan)
+    return BrierValues(h, brier, null, scaled)
 
 
 def brier_score(
@@ -61,33 +114,24 @@ def brier_score(
         Aalen–Johansen) risk by the horizon), ``scaled_brier`` = 1 − brier / brier_null (index of prediction
         accuracy; 0 = no better than the null model, 1 = perfect).
     """
-    t, status, r, h = horizon_inputs(time, event, risk, horizons, probability=True)
-    if r.ndim == 1:
-        if h.size != 1:
-            raise MetricInputError(
-                f"`risk` is one column but {h.size} horizons were given: the risk by each horizon differs, so "
-                "give shape (n, len(horizons))"
-            )
-        r = r[:, None]
-    if check_direction:
-        check_risk_direction(t, status, r[:, -1])
-    weights = horizon_weights(t, status, h, train_time, train_event, outcomes)
-    if train_time is None or train_event is None:  # horizon_weights refused one without the other
-        null_curve = (
-            observed_incidence(t, status)
-            if outcomes is None
-            else outcomes.cached("incidence", lambda: observed_incidence(t, status))
-        )
-    else:
-        tt = as_time(train_time, "train_time")
-        null_curve = observed_incidence(tt, as_status(train_event, tt.size, allow_competing=True, name="train_event"))
-    rows = []
-    for k, hz in enumerate(h):
-        b = _ipcw_brier(t, status, r[:, k], hz, k, weights)
-        null_risk = np.full(t.size, float(null_curve(hz)))
-        b0 = _ipcw_brier(t, status, null_risk, hz, k, weights)
-        rows.append((hz, b, b0, 1.0 - b / b0 if b0 > 0 else np.nan))
-    return pd.DataFrame(rows, columns=["horizon", "brier", "brier_null", "scaled_brier"])
+    values = brier_values(
+        time,
+        event,
+        risk,
+        horizons,
+        train_time=train_time,
+        train_event=train_event,
+        check_direction=check_direction,
+        outcomes=outcomes,
+    )
+    return pd.DataFrame(
+        {
+            "horizon": values.horizon,
+            "brier": values.brier,
+            "brier_null": values.brier_null,
+            "scaled_brier": values.scaled_brier,
+        }
+    )
 
 
 def integrated_brier_score(

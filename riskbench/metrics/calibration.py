@@ -49,6 +49,7 @@ from riskbench.metrics.cloglog_regression import CloglogFit, fit_cloglog
 from riskbench.metrics.horizon_inputs import single_horizon_inputs
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_horizons, as_time, check_lengths
 from riskbench.metrics.pseudo_observations import pseudo_observations
+from riskbench.metrics.risk_sets import OutcomeSet
 from riskbench.models.cox_engine import CoxNumericalError, MonotoneLikelihoodWarning, fit_cox
 
 Z95 = float(stats.norm.ppf(0.975))
@@ -188,6 +189,7 @@ def observed_expected(
     *,
     target: str = "cumulative_incidence",
     cluster: ArrayLike | None = None,
+    outcomes: OutcomeSet | None = None,
 ) -> tuple[float, float, float]:
     """Observed/expected ratio at ``horizon`` and its 95% interval: the observed risk (Aalen–Johansen, or
     1 − Kaplan–Meier for ``target="cause_specific"``) over the mean predicted risk.
@@ -197,9 +199,15 @@ def observed_expected(
     the cluster-robust variance of the mean of the jackknife pseudo-observations,
     G/(G − 1) · Σ_clusters (Σ_rows (θ_i − θ̄))² / n², since a patient's rows are not independent. This is the
     one O/E of the calibration table, its figure and the model comparison.
+
+    ``outcomes``: ``time`` and ``status`` as an evaluation set (:class:`riskbench.metrics.risk_sets.OutcomeSet`),
+    whose observed risk curve of each target is then estimated once for every model and horizon.
     """
     status = target_status(np.asarray(status), target)
-    observed, var_observed = observed_risk(time, status, horizon)
+    if outcomes is None:
+        observed, var_observed = observed_risk(time, status, horizon)
+    else:
+        observed, var_observed = outcomes.observed_risk(target, status).at(horizon)
     if cluster is not None:
         centred = pseudo_observations(time, status, horizon) - observed
         _, code = np.unique(np.asarray(cluster), return_inverse=True)

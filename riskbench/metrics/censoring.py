@@ -53,9 +53,15 @@ class StepCurve:
         return np.r_[0.0, self.variance][self.index(t) + 1]
 
 
-def _counts(time: np.ndarray, event: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+#: ``np.unique(time, return_inverse=True)`` of a follow-up array: its sorted distinct times and each row's position.
+DistinctTimes = tuple[np.ndarray, np.ndarray]
+
+
+def _counts(
+    time: np.ndarray, event: np.ndarray, distinct_times: DistinctTimes | None = None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Distinct times, outcomes, censorings and number at risk (time >= t) at each distinct time."""
-    uniq, inv = np.unique(time, return_inverse=True)
+    uniq, inv = np.unique(time, return_inverse=True) if distinct_times is None else distinct_times
     n_total = np.bincount(inv, minlength=uniq.size)
     n_event = np.bincount(inv, weights=event.astype(float), minlength=uniq.size)
     at_risk = time.size - np.r_[0, np.cumsum(n_total)[:-1]]
@@ -72,20 +78,24 @@ def _product_limit(times: np.ndarray, d: np.ndarray, r: np.ndarray, last_time: f
     return StepCurve(times, surv, var, 1.0, last_time)
 
 
-def kaplan_meier(time: np.ndarray, event: np.ndarray) -> StepCurve:
-    """Kaplan–Meier survival for the outcome (``event`` 1 = outcome, anything else = censored)."""
+def kaplan_meier(time: np.ndarray, event: np.ndarray, *, distinct_times: DistinctTimes | None = None) -> StepCurve:
+    """Kaplan–Meier survival for the outcome (``event`` 1 = outcome, anything else = censored);
+    ``distinct_times``: ``np.unique(time, return_inverse=True)`` when at hand."""
     time = np.asarray(time, dtype=float)
-    uniq, d, _, r = _counts(time, np.asarray(event) == 1)
+    uniq, d, _, r = _counts(time, np.asarray(event) == 1, distinct_times)
     return _product_limit(uniq, d, r, float(time.max()))
 
 
-def censoring_survival(time: np.ndarray, event: np.ndarray) -> StepCurve:
+def censoring_survival(
+    time: np.ndarray, event: np.ndarray, *, distinct_times: DistinctTimes | None = None
+) -> StepCurve:
     """Kaplan–Meier of the censoring distribution G(t) = P(C > t), outcomes ordered before censorings.
 
-    ``event`` 1 or 2 counts as an observed (non-censoring) end; 0 is a censoring.
+    ``event`` 1 or 2 counts as an observed (non-censoring) end; 0 is a censoring. ``distinct_times``:
+    ``np.unique(time, return_inverse=True)`` when at hand.
     """
     time = np.asarray(time, dtype=float)
-    uniq, d, c, r = _counts(time, np.asarray(event) != 0)
+    uniq, d, c, r = _counts(time, np.asarray(event) != 0, distinct_times)
     return _product_limit(uniq, c, r - d, float(time.max()))
 
 
@@ -116,16 +126,22 @@ def inverse_censoring_weights(curve: StepCurve, time: np.ndarray, use: np.ndarra
     return weight
 
 
-def aalen_johansen(time: np.ndarray, status: np.ndarray, cause: int = 1) -> StepCurve:
+def aalen_johansen(
+    time: np.ndarray, status: np.ndarray, cause: int = 1, *, distinct_times: DistinctTimes | None = None
+) -> StepCurve:
     """Aalen–Johansen cumulative incidence of ``cause`` with competing causes (status 0 = censored).
 
     The variance is the delta-method estimator of Marubini & Valsecchi (1995), *Analysing Survival Data
     from Clinical Trials and Observational Studies*, the one lifelines' ``AalenJohansenFitter`` reports.
+    ``distinct_times``: ``np.unique(time, return_inverse=True)`` when at hand.
     """
     time = np.asarray(time, dtype=float)
     status = np.asarray(status)
-    uniq, d_all, _, r = _counts(time, status != 0)
-    _, d_cause, _, _ = _counts(time, status == cause)
+    if distinct_times is None:
+        uniq, inv = np.unique(time, return_inverse=True)
+        distinct_times = (uniq, inv.reshape(-1))
+    uniq, d_all, _, r = _counts(time, status != 0, distinct_times)
+    _, d_cause, _, _ = _counts(time, status == cause, distinct_times)
     with np.errstate(divide="ignore", invalid="ignore"):
         surv = np.cumprod(np.where(r > 0, 1.0 - d_all / r, 1.0))
         lag_s = np.r_[1.0, surv[:-1]]
@@ -142,14 +158,34 @@ def aalen_johansen(time: np.ndarray, status: np.ndarray, cause: int = 1) -> Step
     return StepCurve(uniq, cif, np.maximum(var, 0.0), 0.0, float(time.max()))
 
 
+@dataclass(frozen=True)
+class ObservedRisk:
+    """The observed risk curve of the outcome: ``curve`` itself (Aalen–Johansen) or 1 − ``curve``
+    (Kaplan–Meier, ``complement`` True)."""
+
+    curve: StepCurve
+    complement: bool
+
+    def at(self, horizon: float) -> tuple[float, float]:
+        """Observed probability of the outcome by ``horizon`` (days) and its variance."""
+        value = self.curve(horizon)
+        return float(1.0 - value if self.complement else value), float(self.curve.var_at(horizon))
+
+
+def observed_risk_curve(
+    time: np.ndarray, status: np.ndarray, *, distinct_times: DistinctTimes | None = None
+) -> ObservedRisk:
+    """The curve :func:`observed_risk` reads, to read it at several horizons; ``distinct_times``:
+    ``np.unique(time, return_inverse=True)`` when at hand."""
+    if (np.asarray(status) == 2).any():
+        return ObservedRisk(aalen_johansen(time, status, cause=1, distinct_times=distinct_times), False)
+    return ObservedRisk(kaplan_meier(time, status, distinct_times=distinct_times), True)
+
+
 def observed_risk(time: np.ndarray, status: np.ndarray, horizon: float) -> tuple[float, float]:
     """Observed probability of the outcome by ``horizon`` and its variance.
 
     1 − Kaplan–Meier when only codes 0/1 occur; the Aalen–Johansen cumulative incidence of cause 1 when a
     competing event (code 2) is present.
     """
-    if (np.asarray(status) == 2).any():
-        curve = aalen_johansen(time, status, cause=1)
-        return float(curve(horizon)), float(curve.var_at(horizon))
-    curve = kaplan_meier(time, status)
-    return float(1.0 - curve(horizon)), float(curve.var_at(horizon))
+    return observed_risk_curve(time, status).at(horizon)

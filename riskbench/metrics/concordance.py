@@ -14,7 +14,7 @@ from typing import NamedTuple
 import numpy as np
 
 from riskbench.metrics.censoring import inverse_censoring_weights
-from riskbench.metrics.dominance import dominance_sums
+from riskbench.metrics.dominance import DominanceCounts, DominanceSums, dominance_counts, dominance_sums
 from riskbench.metrics.inputs import ArrayLike, MetricInputError, as_risk, as_status, as_time, check_lengths
 from riskbench.metrics.risk_sets import OutcomeSet, censoring_curve, dense_rank
 
@@ -284,7 +284,9 @@ class HorizonConcordance(NamedTuple):
     uno: float
 
 
-def concordance_at_horizon(outcomes: OutcomeSet, risk: ArrayLike, tau: float) -> HorizonConcordance:
+def concordance_at_horizon(
+    outcomes: OutcomeSet, risk: ArrayLike, tau: float, *, rank: np.ndarray | None = None
+) -> HorizonConcordance:
     """Harrell's C with outcome and follow-up truncated at ``tau`` and Uno's C with truncation time ``tau``, in
     one pass over the pairs; estimates equal to ``concordance_harrell(min(time, tau), status truncated at tau,
     risk)`` and ``concordance_uno(time, status, risk, tau)`` (no standard errors, no pair counts).
@@ -304,6 +306,8 @@ def concordance_at_horizon(outcomes: OutcomeSet, risk: ArrayLike, tau: float) ->
         Score per subject, higher = worse.
     tau
         Truncation time (days).
+    rank
+        ``dense_rank(risk, TIED_TOL)`` when already at hand (shared with the AUC of the same score).
 
     Raises
     ------
@@ -319,9 +323,10 @@ def concordance_at_horizon(outcomes: OutcomeSet, risk: ArrayLike, tau: float) ->
     if not harrell_event.any():
         raise MetricInputError("`event` holds no outcome (code 1): concordance is undefined")
     key, _ = outcomes.later_key()
-    rank = dense_rank(r, TIED_TOL)
-    later = dominance_sums(key, rank, np.ones(t.size))
-    below, tied, total = (np.where(is_event, a, 0.0) for a in (later.below, later.tied, later.total))
+    if rank is None:
+        rank = dense_rank(r, TIED_TOL)
+    later = dominance_counts(key, rank, asking=is_event)  # 0 for the subjects other than outcomes
+    below, tied, total = later.below, later.tied, later.total
     competing = status == 2
     earlier = None
     if competing.any():
@@ -334,23 +339,34 @@ def concordance_at_horizon(outcomes: OutcomeSet, risk: ArrayLike, tau: float) ->
     den = float(h_den.sum())
     _require_pairs(den)
     harrell = float(h_num.sum() / den)
-    use = is_event & (t < tau)
-    if not use.any():
-        raise MetricInputError(f"no outcome happens before tau={tau}: Uno's C is undefined; choose a later tau")
-    g_curve = outcomes.censoring
-    weight = inverse_censoring_weights(g_curve, t, use, power=2)
+    weight, pairs = outcomes.cached(("uno_weights", tau), lambda: _uno_weights(outcomes, tau))
     num_i = weight * (below + 0.5 * tied)
     den_i = weight * total
-    if earlier is not None:
-        pairs = _EarlierCompeting(
-            outcome_weight=inverse_censoring_weights(g_curve, t, use, power=1),
-            competing_weight=inverse_censoring_weights(g_curve, t, competing & (t < t[use].max()), power=1),
-        )
+    if pairs is not None:
         extra = _earlier_competing_pairs(outcomes.time_rank(), rank, is_event, competing, pairs)
         num_i, den_i = num_i + extra.below, den_i + extra.total
     den = float(den_i.sum())
     _require_pairs(den)
     return HorizonConcordance(harrell, float(num_i.sum() / den))
+
+
+def _uno_weights(outcomes: OutcomeSet, tau: float) -> tuple[np.ndarray, _EarlierCompeting | None]:
+    """Uno's pair weights 1/G(T_i)² of the outcomes before ``tau`` and, with competing events, the weights of
+    the pairs of an outcome and an earlier competing event; they depend on the rows and ``tau`` only."""
+    t, status = outcomes.time, outcomes.status
+    use = (status == 1) & (t < tau)
+    if not use.any():
+        raise MetricInputError(f"no outcome happens before tau={tau}: Uno's C is undefined; choose a later tau")
+    g_curve = outcomes.censoring
+    weight = inverse_censoring_weights(g_curve, t, use, power=2)
+    competing = status == 2
+    if not competing.any():
+        return weight, None
+    pairs = _EarlierCompeting(
+        outcome_weight=inverse_censoring_weights(g_curve, t, use, power=1),
+        competing_weight=inverse_censoring_weights(g_curve, t, competing & (t < t[use].max()), power=1),
+    )
+    return weight, pairs
 
 
 class _PairTotals(NamedTuple):
@@ -370,8 +386,11 @@ def _earlier_competing_pairs(
     (``pairs`` None) or weighted (``below`` and ``total`` then hold ``outcome_weight * (below + ½ tied)`` and
     ``outcome_weight * total``). Only outcomes and competing events enter the sums; zero for other subjects."""
     members = np.flatnonzero(is_event | competing)
-    point_weight = competing[members].astype(float) if pairs is None else pairs.competing_weight[members]
-    sums = dominance_sums(t_rank[members], rank[members], point_weight)
+    sums: DominanceCounts | DominanceSums
+    if pairs is None:  # integer counts: no sort needed
+        sums = dominance_counts(t_rank[members], rank[members], competing[members], asking=is_event[members])
+    else:
+        sums = dominance_sums(t_rank[members], rank[members], pairs.competing_weight[members])
     out = [np.zeros(t_rank.size) for _ in range(3)]
     if pairs is None:
         for full, part in zip(out, (sums.below, sums.tied, sums.total)):

@@ -17,6 +17,7 @@ import pandas as pd
 from riskbench.metrics.censoring import observed_risk
 from riskbench.metrics.horizon_inputs import single_horizon_inputs
 from riskbench.metrics.inputs import ArrayLike, MetricInputError
+from riskbench.metrics.risk_sets import OutcomeSet
 from riskbench.metrics.threshold_groups import split_by_thresholds
 
 
@@ -28,6 +29,7 @@ def net_benefit(
     thresholds: ArrayLike,
     *,
     check_direction: bool = True,
+    outcomes: OutcomeSet | None = None,
 ) -> pd.DataFrame:
     """Net benefit of the model, of treating everyone and of treating no one, at each risk threshold.
 
@@ -45,6 +47,9 @@ def net_benefit(
         Threshold probabilities in [0, 1) at which one would act (0: treat everyone the model gives any risk).
     check_direction
         Refuse a ``risk`` that is clearly anti-concordant (a survival probability passed by mistake).
+    outcomes
+        ``time`` and ``event`` as an evaluation set (:class:`riskbench.metrics.risk_sets.OutcomeSet`), whose
+        observed risk curve then serves every model measured on these rows.
 
     Returns
     -------
@@ -60,7 +65,12 @@ def net_benefit(
     order = np.argsort(p)
     split = split_by_thresholds(t, status, r, h, np.r_[p[order], 1.0 + 1e-9])  # last: nobody above = whole cohort below
     n = t.size
-    overall = observed_risk(t, status, h)[0]  # Aalen–Johansen with competing events (see the module notes)
+    # Aalen–Johansen with competing events (see the module notes)
+    overall = (
+        observed_risk(t, status, h)
+        if outcomes is None
+        else outcomes.observed_risk("cumulative_incidence", status).at(h)
+    )[0]
     odds = p[order] / (1 - p[order])
     frac = split.n_above[:-1] / n
     model = frac * (split.risk_above[:-1] - (1 - split.risk_above[:-1]) * odds)

@@ -24,12 +24,16 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from riskbench.metrics.auc import auc_values
+from riskbench.metrics.concordance import TIED_TOL
 from riskbench.metrics.inputs import MetricInputError
-from riskbench.metrics.risk_sets import OutcomeSet
+from riskbench.metrics.risk_sets import DistinctValues, OutcomeSet
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.parallel import ExecutionConfig, run_replicates
 from riskbench.validation.performance import HORIZON_MEASURES, evaluation_time, horizon_measures, stack_outcome
@@ -79,6 +83,20 @@ class EvaluationRows:
         patient = pd.factorize(stack["patient_id"])[0]
         return cls(time, status, landmark, patient)
 
+    @cached_property
+    def distinct_times(self) -> DistinctValues:
+        """The distinct times (days) of the rows, sorted once for every resample of them."""
+        return DistinctValues.of(self.time)
+
+    @cached_property
+    def landmark_blocks(self) -> tuple[dict[float, np.ndarray], np.ndarray]:
+        """The rows of each landmark (days), and each row's position among the rows of its landmark."""
+        members = {float(lm): np.flatnonzero(self.landmark == lm) for lm in np.unique(self.landmark)}
+        position = np.empty(self.landmark.size, np.int64)
+        for rows in members.values():
+            position[rows] = np.arange(rows.size)
+        return members, position
+
 
 @dataclass(frozen=True)
 class EvaluationPlan:
@@ -92,6 +110,32 @@ class EvaluationPlan:
     thresholds: tuple[float, ...] = ()
     cells: tuple[tuple[float, float], ...] = field(default=())  # (landmark or NaN, horizon) with enough outcomes
     targets: Mapping[str, str] = field(default_factory=dict)  # model -> estimand (default cumulative incidence)
+    # (model, column, landmark or None for all rows) -> the distinct risks there; filled on first use, not pickled
+    _distinct: dict[tuple[str, int, float | None], DistinctValues] = field(
+        default_factory=dict, init=False, repr=False, compare=False
+    )
+
+    def __getstate__(self) -> dict[str, Any]:
+        # a worker sorts the risk columns again rather than receive them with every task
+        return {**self.__dict__, "_distinct": {}}
+
+    def risk_rank(self, model: str, column: int, index: np.ndarray, rows: EvaluationRows | None = None) -> np.ndarray:
+        """``dense_rank(risks[model][index, column], TIED_TOL)``: the ranks every measure of that score uses,
+        from one sort of the column (``index`` may repeat rows). Given ``rows`` and an ``index`` within one
+        landmark, the sort is of that landmark's rows only, a few times fewer values to count through."""
+        if rows is None:
+            key: tuple[str, int, float | None] = (model, column, None)
+            if key not in self._distinct:
+                self._distinct[key] = DistinctValues.of(self.risks[model][:, column])
+            return self._distinct[key].dense_rank(index, TIED_TOL)
+        members, position = rows.landmark_blocks
+        landmark = float(rows.landmark[index[0]]) if index.size else np.nan
+        if np.isnan(landmark) or not (rows.landmark[index] == landmark).all():
+            return self.risk_rank(model, column, index)
+        key = (model, column, landmark)
+        if key not in self._distinct:
+            self._distinct[key] = DistinctValues.of(self.risks[model][members[landmark], column])
+        return self._distinct[key].dense_rank(position[index], TIED_TOL)
 
     def column(self, days: float) -> int:
         """Column of ``days`` in the risk matrices."""
@@ -153,28 +197,33 @@ def evaluate_plan(rows: EvaluationRows, plan: EvaluationPlan, index: np.ndarray 
     idx = np.arange(rows.time.size) if index is None else np.asarray(index)
     time, status, landmark = rows.time[idx], rows.status[idx], rows.landmark[idx]
     out: list[tuple] = []
-    # the rows of each landmark (and all rows), each one evaluation set shared by every model and horizon
-    rows_at = {lm: np.ones(idx.size, bool) if np.isnan(lm) else landmark == lm for lm, _ in plan.cells}
-    sets = {lm: _outcome_set(time[at], status[at]) for lm, at in rows_at.items()}
+    # the rows of each landmark (all rows, without a copy, for the pooled cells), each one evaluation set shared
+    # by every model and horizon; their distinct times come from one sort of all rows' times, by counting
+    where = {lm: slice(None) if np.isnan(lm) else np.flatnonzero(landmark == lm) for lm, _ in plan.cells}
+    picked = {lm: idx[at] for lm, at in where.items()}
+    sets = {lm: _outcome_set(time[at], status[at], rows, picked[lm]) for lm, at in where.items()}
+    pooled = next((sets[lm] for lm in sets if np.isnan(lm)), None) or _outcome_set(time, status, rows, idx)
     for model, matrix in plan.risks.items():
         risk = matrix[idx]
+        ranks: dict[tuple[str, int], np.ndarray] = {}  # the pooled ranks serve the pooled cells and the curve
         for lm, h in plan.cells:
-            at = rows_at[lm]
+            c = plan.column(h)
             values = _measures_or_nan(
-                time[at],
-                status[at],
-                risk[at, plan.column(h)],
+                sets[lm],
+                np.ascontiguousarray(risk[where[lm], c]),
                 h,
                 plan.targets.get(model, "cumulative_incidence"),
-                sets[lm],
+                _ranks_of(plan, rows, model, c, lm, picked[lm], ranks),
             )
             out += [("measure", model, lm, h, name, np.nan, values[name]) for name in HORIZON_MEASURES]
+        curve_ranks = [_ranks_of(plan, rows, model, plan.column(h), POOLED, idx, ranks) for h in plan.curve_days]
         out += [
             ("auc_curve", model, np.nan, h, "auc", np.nan, v)
-            for h, v in zip(plan.curve_days, _auc_curve(time, status, risk, plan))
+            for h, v in zip(plan.curve_days, _auc_curve(time, status, risk, plan, pooled, curve_ranks))
         ]
         if plan.decision_days is not None and plan.thresholds:
-            model_nb, all_nb, fraction = _net_benefit(time, status, risk[:, plan.column(plan.decision_days)], plan)
+            decision_risk = risk[:, plan.column(plan.decision_days)]
+            model_nb, all_nb, fraction = _net_benefit(time, status, decision_risk, plan, pooled)
             out += [
                 ("net_benefit", model, np.nan, plan.decision_days, "model", p, v)
                 for p, v in zip(plan.thresholds, model_nb)
@@ -190,55 +239,98 @@ def evaluate_plan(rows: EvaluationRows, plan: EvaluationPlan, index: np.ndarray 
     return pd.DataFrame(out, columns=[*KEY_COLUMNS, "value"])
 
 
-def _outcome_set(time: np.ndarray, status: np.ndarray) -> OutcomeSet | None:
-    """The evaluation set of these rows, or None when it cannot be measured (no rows in a resample)."""
+def _outcome_set(time: np.ndarray, status: np.ndarray, rows: EvaluationRows, index: np.ndarray) -> OutcomeSet | None:
+    """The evaluation set of ``rows`` at ``index`` (``time`` and ``status`` of those rows), or None when it cannot
+    be measured (no rows in a resample)."""
     try:
-        return OutcomeSet.from_arrays(time, status)
+        return OutcomeSet.from_arrays(time, status, distinct_times=rows.distinct_times.select(index))
     except MetricInputError:
         return None
 
 
+def _ranks_of(
+    plan: EvaluationPlan,
+    rows: EvaluationRows,
+    model: str,
+    column: int,
+    landmark: float,
+    index: np.ndarray,
+    memo: dict[tuple[str, int], np.ndarray],
+) -> np.ndarray:
+    """Ranks of ``model``'s risks in ``column`` at the rows ``index`` of ``landmark`` (NaN: pooled), once each."""
+    key = ("pooled" if np.isnan(landmark) else repr(landmark), column)
+    if key not in memo:
+        memo[key] = plan.risk_rank(model, column, index, None if np.isnan(landmark) else rows)
+    return memo[key]
+
+
 def _measures_or_nan(
-    time: np.ndarray, status: np.ndarray, risk: np.ndarray, h: float, target: str, outcomes: OutcomeSet | None
+    outcomes: OutcomeSet | None, risk: np.ndarray, h: float, target: str, rank: np.ndarray | None = None
 ) -> dict[str, float]:
     try:
         if outcomes is None:
             raise MetricInputError("no rows to measure")
-        return horizon_measures(time, status, risk, h, target=target, outcomes=outcomes)
+        return horizon_measures(outcomes.time, outcomes.status, risk, h, target=target, outcomes=outcomes, rank=rank)
     except MetricInputError:  # no outcome before the horizon or no control after it in these rows
         return dict.fromkeys(HORIZON_MEASURES, np.nan)
 
 
-def _auc_curve(time: np.ndarray, status: np.ndarray, risk: np.ndarray, plan: EvaluationPlan) -> np.ndarray:
-    from riskbench.metrics import auc_cumulative_dynamic
-
+def _auc_curve(
+    time: np.ndarray,
+    status: np.ndarray,
+    risk: np.ndarray,
+    plan: EvaluationPlan,
+    outcomes: OutcomeSet | None = None,
+    ranks: Sequence[np.ndarray] | None = None,
+) -> np.ndarray:
+    """The pooled AUC at each curve horizon; ``outcomes`` and ``ranks`` (of each curve column) when at hand."""
     if not plan.curve_days:
         return np.empty(0)
     columns = [plan.column(h) for h in plan.curve_days]
     at = [evaluation_time(float(h), time) for h in plan.curve_days]
+    # every column in order (the usual case) needs no copy of the risks
+    curve_risk = risk if columns == list(range(risk.shape[1])) else risk[:, columns]
     try:
-        return np.asarray(auc_cumulative_dynamic(time, status, risk[:, columns], at).table["auc"], float)
+        return np.asarray(auc_values(time, status, curve_risk, at, outcomes=outcomes, ranks=ranks).auc, float)
     except MetricInputError:
-        return np.array([_auc_one(time, status, risk[:, c], t) for c, t in zip(columns, at)])
+        return np.array(
+            [
+                _auc_one(time, status, risk[:, c], t, outcomes, None if ranks is None else ranks[k])
+                for k, (c, t) in enumerate(zip(columns, at))
+            ]
+        )
 
 
-def _auc_one(time: np.ndarray, status: np.ndarray, risk: np.ndarray, at: float) -> float:
-    from riskbench.metrics import auc_cumulative_dynamic
-
+def _auc_one(
+    time: np.ndarray,
+    status: np.ndarray,
+    risk: np.ndarray,
+    at: float,
+    outcomes: OutcomeSet | None = None,
+    rank: np.ndarray | None = None,
+) -> float:
     try:
-        return float(np.asarray(auc_cumulative_dynamic(time, status, risk, [at]).table["auc"])[0])
+        return float(auc_values(time, status, risk, [at], outcomes=outcomes, ranks=rank).auc[0])
     except MetricInputError:
         return np.nan
 
 
 def _net_benefit(
-    time: np.ndarray, status: np.ndarray, risk: np.ndarray, plan: EvaluationPlan
+    time: np.ndarray, status: np.ndarray, risk: np.ndarray, plan: EvaluationPlan, outcomes: OutcomeSet | None = None
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     from riskbench.metrics import net_benefit
 
     days = float(plan.decision_days) if plan.decision_days is not None else np.nan  # called only with decision days
     try:
-        nb = net_benefit(time, status, risk, evaluation_time(days, time), list(plan.thresholds), check_direction=False)
+        nb = net_benefit(
+            time,
+            status,
+            risk,
+            evaluation_time(days, time),
+            list(plan.thresholds),
+            check_direction=False,
+            outcomes=outcomes,
+        )
     except MetricInputError:
         empty = np.full(len(plan.thresholds), np.nan)
         return empty, empty, empty

@@ -29,11 +29,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from riskbench.metrics.auc import auc_values
+from riskbench.metrics.brier import brier_values
 from riskbench.metrics.calibration import observed_expected
 from riskbench.metrics.calibration_measures import SlopeAndICI, slope_and_ici
-from riskbench.metrics.concordance import concordance_at_horizon
+from riskbench.metrics.concordance import TIED_TOL, concordance_at_horizon
 from riskbench.metrics.inputs import MetricInputError
-from riskbench.metrics.risk_sets import OutcomeSet
+from riskbench.metrics.risk_sets import OutcomeSet, dense_rank
 from riskbench.models.prediction_target import fitted_target
 from riskbench.validation.errors import ValidationInputError
 
@@ -191,6 +193,7 @@ def horizon_measures(
     *,
     target: str = "cumulative_incidence",
     outcomes: OutcomeSet | None = None,
+    rank: np.ndarray | None = None,
 ) -> dict[str, float]:
     """Concordance (Harrell, Uno), cumulative/dynamic AUC, Brier score, scaled Brier (IPA) and
     calibration-in-the-large at one horizon (days), each treating a competing event as the module notes say.
@@ -201,25 +204,29 @@ def horizon_measures(
     events censored for ``"cause_specific"``) over the mean predicted risk. Raises
     :class:`riskbench.metrics.inputs.MetricInputError` when a measure is undefined (no outcome before the
     horizon, no control after it). ``outcomes``: ``time`` and ``status`` as a
-    :class:`riskbench.metrics.risk_sets.OutcomeSet`, to share its sort and censoring curve between models and
-    horizons measured on the same rows.
+    :class:`riskbench.metrics.risk_sets.OutcomeSet`, to share its sort, censoring curve and observed risk
+    curves between models and horizons measured on the same rows. ``rank``:
+    ``dense_rank(risk, riskbench.metrics.concordance.TIED_TOL)`` when at hand (the concordance and the AUC
+    rank the same score).
     """
-    from riskbench import metrics
-
     t_eval = evaluation_time(float(horizon), time)
     # Harrell's C with outcome and follow-up truncated at the horizon (either after it is censored there) and
     # Uno's C share one pass over the pairs and the evaluation set's sort and censoring curve.
     outcomes = outcomes if outcomes is not None else OutcomeSet.from_arrays(time, status)
-    c = concordance_at_horizon(outcomes, risk, t_eval)
-    auc = metrics.auc_cumulative_dynamic(time, status, risk, [t_eval], outcomes=outcomes)
-    brier = metrics.brier_score(time, status, risk, [t_eval], check_direction=False, outcomes=outcomes)
+    if rank is None:
+        rank = dense_rank(np.asarray(risk, dtype=float), TIED_TOL)
+    c = concordance_at_horizon(outcomes, risk, t_eval, rank=rank)
+    # the set's own (validated) arrays, so that the AUC and the Brier score need not check them again
+    t, s = outcomes.time, outcomes.status
+    auc = auc_values(t, s, risk, [t_eval], outcomes=outcomes, ranks=rank)
+    brier = brier_values(t, s, risk, [t_eval], check_direction=False, outcomes=outcomes)
     return {
         "harrell_c": c.harrell,
         "uno_c": c.uno,
-        "auc": float(np.asarray(auc.table["auc"])[0]),
-        "brier": float(np.asarray(brier["brier"])[0]),
-        "scaled_brier": float(np.asarray(brier["scaled_brier"])[0]),
-        "oe_ratio": observed_expected(time, status, risk, t_eval, target=target)[0],
+        "auc": float(auc.auc[0]),
+        "brier": float(brier.brier[0]),
+        "scaled_brier": float(brier.scaled_brier[0]),
+        "oe_ratio": observed_expected(time, status, risk, t_eval, target=target, outcomes=outcomes)[0],
     }
 
 

@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 from riskbench.metrics import concordance_harrell, concordance_uno
 from riskbench.metrics.concordance import concordance_at_horizon
 from riskbench.metrics.inputs import MetricInputError
-from riskbench.metrics.risk_sets import OutcomeSet, censoring_curve, dense_rank, horizon_inputs
+from riskbench.metrics.risk_sets import DistinctValues, OutcomeSet, censoring_curve, dense_rank, horizon_inputs
 
 
 def _separate(t, status, risk, tau):
@@ -101,3 +101,43 @@ def test_auc_and_brier_read_the_shared_censoring_curve_with_the_same_result(seed
         assert auc.table.equals(auc_cumulative_dynamic(t, status, risk, [horizon]).table)
         brier = brier_score(t, status, risk, [horizon], check_direction=False, outcomes=shared)
         assert brier.equals(brier_score(t, status, risk, [horizon], check_direction=False))
+
+
+@settings(max_examples=40, deadline=None)
+@given(seed=st.integers(0, 10_000), n=st.integers(1, 200), coarse=st.booleans())
+def test_a_selection_ranks_as_if_sorted_on_its_own(seed, n, coarse):
+    """Distinct values, positions and dense ranks (with the tolerance joining near neighbours) of any selection
+    with repeats, by counting, equal those of sorting the selection."""
+    rng = np.random.default_rng(seed)
+    values = rng.integers(0, 6, n) / 5 + rng.choice([0.0, 4e-9, 2e-8], n) if coarse else rng.random(n)
+    index = rng.integers(0, n, rng.integers(1, 2 * n + 1))
+    distinct = DistinctValues.of(values)
+    uniq, code = distinct.select(index)
+    expected_uniq, expected_code = np.unique(values[index], return_inverse=True)
+    np.testing.assert_array_equal(uniq, expected_uniq)
+    np.testing.assert_array_equal(code, expected_code.reshape(-1))
+    for tol in (0.0, 1e-8):
+        np.testing.assert_array_equal(distinct.dense_rank(index, tol), dense_rank(values[index], tol))
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 10_000), n=st.integers(5, 200))
+def test_an_outcome_set_given_its_distinct_times_caches_the_same_curves(seed, n):
+    rng = np.random.default_rng(seed)
+    t = rng.integers(1, 40, n).astype(float)
+    status = rng.choice([0, 1, 2], n)
+    index = rng.integers(0, n, n)
+    given_times = OutcomeSet.from_arrays(t[index], status[index], distinct_times=DistinctValues.of(t).select(index))
+    sorted_here = OutcomeSet.from_arrays(t[index], status[index])
+    for a, b in zip(given_times.later_key(), sorted_here.later_key()):
+        np.testing.assert_array_equal(a, b)
+    np.testing.assert_array_equal(given_times.time_rank(), sorted_here.time_rank())
+    for field in ("times", "values", "variance"):
+        np.testing.assert_array_equal(getattr(given_times.censoring, field), getattr(sorted_here.censoring, field))
+    for target, codes in (
+        ("cumulative_incidence", status[index]),
+        ("cause_specific", np.where(status[index] == 2, 0, status[index])),
+    ):
+        a, b = given_times.observed_risk(target, codes), sorted_here.observed_risk(target, codes)
+        np.testing.assert_array_equal(a.curve.values, b.curve.values)
+        assert a.at(20.0) == b.at(20.0)
