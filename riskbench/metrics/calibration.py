@@ -37,7 +37,9 @@ are uniform.
 
 from __future__ import annotations
 
+import os
 import warnings
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -279,9 +281,13 @@ def _smoother_start(knots: np.ndarray) -> np.ndarray:
     return np.r_[0.0, 1.0, np.zeros(knots.size - 2)]
 
 
-def _band(pseudo, design, grid_design, cluster, start, n_boot, seed) -> np.ndarray:
+def _band(pseudo, design, grid_design, cluster, start, n_boot, seed, threads=None) -> np.ndarray:
     """Pointwise 95% percentile band of the smoothed curve: the smoother refitted on bootstrap samples of
-    clusters (patients when given, else rows), the pseudo-observations held fixed."""
+    clusters (patients when given, else rows), the pseudo-observations held fixed.
+
+    The resamples are drawn in order from one stream and each refit depends on its draw only, so the refits can
+    run on several threads (the compiled scoring pass releases the interpreter lock) with the band unchanged to
+    the last bit; draws are made a few at a time to keep memory bounded."""
     nan_band = np.full((2, grid_design.shape[0]), np.nan)
     if n_boot <= 0:
         return nan_band
@@ -289,13 +295,35 @@ def _band(pseudo, design, grid_design, cluster, start, n_boot, seed) -> np.ndarr
     _, code = np.unique(labels, return_inverse=True)
     n_clusters = int(code.max()) + 1
     rng = np.random.default_rng(seed)
-    draws = []
-    for _ in range(n_boot):
+    design = np.ascontiguousarray(design, dtype=np.float64)
+
+    def refit(drawn: np.ndarray) -> np.ndarray:
         # a bootstrap sample of clusters as weights: how often each row's cluster was drawn
-        drawn = np.bincount(rng.integers(0, n_clusters, n_clusters), minlength=n_clusters)
         fit = fit_cloglog(design, pseudo, start=start, weights=drawn[code].astype(float), covariance=False)
-        draws.append(fit.mean(grid_design))
+        return fit.mean(grid_design)
+
+    def draw() -> np.ndarray:
+        return np.bincount(rng.integers(0, n_clusters, n_clusters), minlength=n_clusters)
+
+    workers = max(1, min(band_threads() if threads is None else int(threads), n_boot))
+    if workers == 1:
+        draws = [refit(draw()) for _ in range(n_boot)]
+    else:
+        draws = []
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            for first in range(0, n_boot, 2 * workers):
+                batch = [draw() for _ in range(min(2 * workers, n_boot - first))]
+                draws += list(pool.map(refit, batch))
     return np.quantile(np.array(draws), [0.025, 0.975], axis=0) if draws else nan_band
+
+
+def band_threads() -> int:
+    """Threads for the calibration band's refits: the cores this process may use, at most 8."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - platforms without affinity masks
+        cores = os.cpu_count() or 1
+    return max(1, min(cores, 8))
 
 
 def calibration_at_horizon(

@@ -19,6 +19,7 @@ from lifelines import AalenJohansenFitter, CoxPHFitter, KaplanMeierFitter
 from sksurv.linear_model import CoxPHSurvivalAnalysis
 from sksurv.util import Surv
 
+import riskbench.metrics.calibration as calibration_module
 from riskbench.metrics import (
     MetricInputError,
     auc_cumulative_dynamic,
@@ -227,3 +228,17 @@ def test_horizon_at_administrative_censoring(cohort):
     full = calibration_at_horizon(t, e, _true_risk(x), HORIZON, n_boot=0)
     assert inside.oe_lower < 1 < inside.oe_upper
     assert inside.observed == pytest.approx(full.observed, abs=1e-12)
+
+
+@pytest.mark.parametrize("clustered", [False, True])
+def test_band_is_the_same_on_one_thread_and_on_several(cohort, monkeypatch, clustered):
+    """The band's refits run on threads; each depends on its own draw only, so the band is bit-identical."""
+    t, e, x = cohort
+    cluster = np.arange(t.size) // 3 if clustered else None  # rows of one "patient" resampled together
+    bands = []
+    for threads in (1, 3):
+        monkeypatch.setattr(calibration_module, "band_threads", lambda threads=threads: threads)
+        cal = calibration_at_horizon(t, e, _true_risk(x), HORIZON, n_boot=7, seed=5, cluster=cluster)
+        bands.append(cal.curve[["observed_lower", "observed_upper"]].to_numpy())
+    assert np.isfinite(bands[0]).all()
+    np.testing.assert_array_equal(bands[0], bands[1])
