@@ -12,39 +12,39 @@ decision curves and the report.
 
 Goal: 200 resamples at 30 k patients, all stages, in at most 900 s on this 2-core machine.
 
-Where the time of one replicate went at 30 k patients (cProfile, one worker, 2 replicates of each bootstrap;
-seconds per replicate; "before" is main at the start of issue 14, "after" this script's commit; the machine was
-shared, so read the ratios rather than the seconds):
+Where the time of one replicate went at 30 k patients (cProfile, one worker; seconds per replicate; "start" is
+main at the start of issue 14, "middle" after the fast path and the compiled loops, "now" this script's
+commit; "—" was not measured; the first two columns were measured on a shared machine, so read the ratios
+rather than the seconds):
 
-| part of a replicate | before | after | what changed |
-|---|---|---|---|
-| paired comparison: patients left out of the draw (``np.setdiff1d`` on text ids) | 5.5 | 0.003 | hash look-up |
-| drawing a resample (counting-process table repeated although no spec fits on it) | 0.42 | 0.10 | stack only |
-| Harrell's + Uno's C per model and horizon (140 k landmark rows) | 0.30 | 0.08 | one pass, shared sort |
-| calibration slope + ICI per model and horizon | 0.16 | 0.09 | computed alone, pseudo-observations shared |
-| bootstrap-optimism replicate (fit, predict, measure on drawn, original and left-out rows) | 7.0 | 4.5 | the above |
-| paired-comparison replicate | 8.1 | 2.4 | the above |
-| per-landmark bootstrap replicate (fixed predictions, 24 cells) | 2.3 | 1.1 | the above |
+| part of a replicate | start | middle | now | what changed |
+|---|---|---|---|---|
+| paired comparison: patients left out of the draw (``np.setdiff1d`` on text ids) | 5.5 | 0.003 | 0.003 | hash look-up |
+| drawing a resample (counting-process table repeated although no spec fits on it) | 0.42 | 0.10 | 0.21 | stack only (unchanged since; the two later figures come from different profiles) |
+| Harrell's + Uno's C per model and horizon (140 k landmark rows) | 0.30 | 0.08 | 0.02 | one pass, shared sort; ranks shared with the AUC |
+| refitting the two landmark super-models (four cause-specific Cox fits) | — | 1.27 | 0.91 | started from the whole-cohort estimates, no cluster-robust variance |
+| bootstrap-optimism replicate (fit, predict, measure on drawn, original and left-out rows) | 7.0 | 4.5 | 3.7 | the above; also measures the paired comparison |
+| paired-comparison replicate (stage 4) | 8.1 | 2.4 | 0 | read from stage 3: same seeds, same refits |
+| per-landmark bootstrap replicate (fixed predictions, 24 cells) | 2.3 | 1.1 | 0.58 | ranks counted from one sort per column, curves and weights cached per outcome set |
+| triage bootstrap replicate, per model (140 k rows, 200 thresholds) | — | 0.12 | 0.007 | threshold groups sorted once, each resample recounted |
+| calibration with its 100-resample band, per model and horizon | — | 5.7 | 3.6 | band refits on threads (2 cores) |
 
-The rest of a replicate is refitting (about 0.3 s per landmark super-model) and predicting (the
-cumulative-incidence product integral, about 1 s per model on 140 k rows), both in the models package.
+Now a bootstrap-optimism replicate spends 0.9 s refitting, 0.6 s predicting, 1.3 s on calibration slopes and
+ICIs (two cloglog regressions per model, horizon and evaluation set), 0.45 s on the paired comparison's
+measures and the rest on the other measures. Every change kept the numbers: bit-identical, except the warm
+started refits, equal to the refits from zero to 1e-8 (tests/models/test_landmark_warm_start.py).
 
-Last measured (2 cores, nothing else running), after three inner loops were compiled with numba (the
-cumulative incidence read at the horizons, the dominance sums behind every concordance index, the score and
-information of the cloglog calibration regression) and resampling calibration fits stopped computing a
-covariance nobody reads:
+Last measured (2 cores, nothing else running):
 
 | patients | cohort | models | validation | comparison | total |
 |---|---|---|---|---|---|
-| 3 000 | 4.6 s | 7.7 s | 73.5 s | 87.4 s | 173.2 s |
-| 30 000 | 13.3 s | 21.2 s | 621.7 s | 530.1 s | 1186.3 s |
+| 3 000 | 5.4 s | 8.5 s | 59.2 s | 20.0 s | 93.1 s |
+| 30 000 | 11.1 s | 17.2 s | 408.8 s | 92.9 s | 530.0 s |
 
-Growth exponent from 3 k to 30 k: validation 0.93, comparison 0.78, total 0.84. The goal is not met (ratio
-0.76; the run before, with the same stages in numpy, took 1451.5 s: validation 817.9 s, comparison 604.9 s).
-At 30 k a bootstrap-optimism replicate now spends, on one worker, about 1.4 s refitting the two landmark
-super-models (four cause-specific Cox fits, a quarter of it the cluster-robust variance that a replicate never
-reads), 0.3 s predicting and about 1 s on each of its three evaluation sets (drawn, original and out-of-bag
-rows), half of that the calibration slope and ICI.
+Growth exponent from 3 k to 30 k: validation 0.84, comparison 0.67, total 0.76. Ratio to the goal 1.70. The run
+just before the calibration band went on threads took 531.1 s at 30 k (validation 399.1 s, comparison 103.3 s;
+95.6 s at 3 k), so the median of the two runs is 530.6 s. Before this round (numba loops, no shared
+refits): 1 186.3 s (validation 621.7 s, comparison 530.1 s), ratio 0.76.
 
 Usage: ``python benchmarks/full_analysis.py [--sizes 3000 30000] [--resamples 200] [--workers 2]``; smaller
 figures (e.g. ``--sizes 30000 --resamples 10``) give the per-replicate cost to extrapolate from.

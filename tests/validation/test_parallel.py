@@ -11,9 +11,11 @@ import pytest
 from hypothesis import assume, given
 from hypothesis import strategies as st
 
-from riskbench.validation import ModelSpec, PrecomputedTables, bootstrap_optimism
+from riskbench.validation import ModelSpec, PrecomputedTables, bootstrap_optimism, compare_specs
+from riskbench.validation.comparison import comparison_plan
 from riskbench.validation.errors import ValidationInputError
 from riskbench.validation.holdout import evaluate_splits
+from riskbench.validation.optimism import bootstrap_optimism_result
 from riskbench.validation.parallel import (
     ExecutionConfig,
     replicate_chunks,
@@ -174,6 +176,21 @@ def test_bootstrap_from_parquet_identical_serial_joblib_and_cluster(local_cluste
         read = client.run(_cached_tables)
     assert sum(bool(paths) for paths in read.values()) >= 2  # three tasks spread over the workers
     assert all(p in {f.path for f in files.files if f} for paths in read.values() for p in paths)
+
+
+def test_comparison_from_the_optimism_refits_identical_on_the_cluster(local_cluster, parquet_source):
+    """The optimism measures the paired comparison's replicates from its refits on the cluster, and the comparison
+    runs the one it is not given on the cluster too: the numbers of the comparison run serially on its own."""
+    files, frames = parquet_source
+    cluster = ExecutionConfig(scheduler_address=local_cluster.scheduler_address)
+    plan = comparison_plan(SPECS, [365.0], frames.full_tables().landmark_stack, pairs=[(0, 1)])
+    optimism = bootstrap_optimism_result(SPECS, files, [365.0], n_boot=4, seed=6, paired=plan, config=cluster)
+    some = {i: r for i, r in optimism.paired.items() if i != 2}
+    assert sorted(some) == [0, 1, 3]
+    mixed = compare_specs(SPECS, files, [365.0], n_boot=4, seed=6, pairs=[(0, 1)], known=some, config=cluster)
+    serial = compare_specs(SPECS, frames, [365.0], n_boot=4, seed=6, pairs=[(0, 1)])
+    for got, expected in ((mixed.performance, serial.performance), (mixed.differences, serial.differences)):
+        pd.testing.assert_frame_equal(got, expected, check_exact=True)
 
 
 def test_folds_from_parquet_identical_serial_joblib_and_cluster(local_cluster, parquet_source):
