@@ -34,17 +34,18 @@ ICIs (two cloglog regressions per model, horizon and evaluation set), 0.45 s on 
 measures and the rest on the other measures. Every change kept the numbers: bit-identical, except the warm
 started refits, equal to the refits from zero to 1e-8 (tests/models/test_landmark_warm_start.py).
 
-Last measured (2 cores, nothing else running):
+Last measured (2 cores, nothing else running; the median of three runs at 30 k, with its 3 k figures):
 
 | patients | cohort | models | validation | comparison | total |
 |---|---|---|---|---|---|
 | 3 000 | 5.4 s | 8.5 s | 59.2 s | 20.0 s | 93.1 s |
 | 30 000 | 11.1 s | 17.2 s | 408.8 s | 92.9 s | 530.0 s |
 
-Growth exponent from 3 k to 30 k: validation 0.84, comparison 0.67, total 0.76. Ratio to the goal 1.70. The run
-just before the calibration band went on threads took 531.1 s at 30 k (validation 399.1 s, comparison 103.3 s;
-95.6 s at 3 k), so the median of the two runs is 530.6 s. Before this round (numba loops, no shared
-refits): 1 186.3 s (validation 621.7 s, comparison 530.1 s), ratio 0.76.
+The three runs at 30 k took 531.1 s (before the calibration band went on threads: validation 399.1 s,
+comparison 103.3 s), 530.0 s and 492.7 s (validation 381.3 s, comparison 84.9 s): median 530.0 s, ratio to the
+goal 1.70. Growth exponent from 3 k to 30 k in the median run: validation 0.84, comparison 0.67, total 0.76.
+Before this round (numba loops, no shared refits): 1 186.3 s (validation 621.7 s, comparison 530.1 s), ratio
+0.76.
 
 Usage: ``python benchmarks/full_analysis.py [--sizes 3000 30000] [--resamples 200] [--workers 2]``; smaller
 figures (e.g. ``--sizes 30000 --resamples 10``) give the per-replicate cost to extrapolate from.

@@ -439,7 +439,8 @@ def _with_intervals(point: pd.DataFrame, draws: np.ndarray) -> pd.DataFrame:
     out["resamples"] = defined.sum(axis=0)
     low = np.full(len(out), np.nan)
     high = np.full(len(out), np.nan)
-    some = (out["resamples"].to_numpy() >= 2) & np.isfinite(out["estimate"].to_numpy())
+    estimate = pd.to_numeric(out["estimate"], errors="coerce").to_numpy(float)  # an empty plan has no dtype
+    some = (out["resamples"].to_numpy() >= 2) & np.isfinite(estimate)
     if some.any():
         low[some], high[some] = np.nanpercentile(draws[:, some], [2.5, 97.5], axis=0)
     out["ci_low"], out["ci_high"] = low, high

@@ -139,6 +139,13 @@ def test_a_landmark_with_few_outcomes_is_not_measured() -> None:
     assert result.measures["ci_low"].isna().all() and (result.measures["resamples"] == 0).all()
 
 
+def test_nothing_to_measure_gives_empty_tables() -> None:
+    stack = simulate_stack(120, 3)[0]
+    rows = EvaluationRows.from_stack(stack)
+    result = landmark_performance(rows, HORIZONS, _risks(stack), report_days=[], n_boot=3, seed=1)
+    assert result.measures.empty and result.auc_curve.empty and result.decision_curve.empty
+
+
 def test_same_seed_same_intervals_and_a_bad_matrix_is_refused() -> None:
     stack = simulate_stack(150, 9)[0]
     rows = EvaluationRows.from_stack(stack)
