@@ -78,6 +78,8 @@ class CauseSpecificFit:
     loglik, loglik_null : float
         Maximised log partial likelihood and its value at zero coefficients (NaN for a fit read from a file
         written before they were saved).
+    converged : bool
+        Whether Newton–Raphson met its convergence rule (True for a fit read from a file).
     """
 
     coef: np.ndarray
@@ -88,6 +90,7 @@ class CauseSpecificFit:
     n_events: int
     loglik: float = float("nan")
     loglik_null: float = float("nan")
+    converged: bool = True
 
 
 def _fit_cox_arrays(
@@ -100,9 +103,9 @@ def _fit_cox_arrays(
     ties: str,
     names: Sequence[str],
     initial: np.ndarray | None = None,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, float, float]:
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, float, float, bool]:
     """Cox fit of one cause on the stack (entry 0, exit ``time``): coef, model-based and robust covariance,
-    log partial likelihood at the fit and at zero.
+    log partial likelihood at the fit and at zero, and whether it converged.
 
     The coefficients come from :func:`riskbench.models.cox_engine.fit_cox` (Newton–Raphson from ``initial``
     or 0, cluster-robust sandwich variance by ``cluster``; all NaN when ``cluster`` is None).
@@ -115,6 +118,7 @@ def _fit_cox_arrays(
         np.full((p, p), np.nan) if fit.robust_var is None else np.asarray(fit.robust_var),
         float(fit.loglik),
         float(fit.loglik_null),
+        bool(fit.converged),
     )
 
 
@@ -278,10 +282,17 @@ class LandmarkSupermodel(BaseEstimator):
         return self
 
     def starting_values(self) -> dict[str, StartingValues]:
-        """The fitted coefficients per cause with their design columns, for ``fit(start=...)`` of a refit."""
+        """The fitted coefficients per cause with their design columns, for ``fit(start=...)`` of a refit.
+
+        A cause whose fit did not converge (e.g. a coefficient running off to infinity) offers no start: its
+        refits start from 0, as they would without a start."""
         self._check_fitted()
         fits = {"outcome": self.outcome_, "competing event": self.competing_}
-        return {label: (tuple(self.design_columns_), fit.coef.copy()) for label, fit in fits.items() if fit is not None}
+        return {
+            label: (tuple(self.design_columns_), fit.coef.copy())
+            for label, fit in fits.items()
+            if fit is not None and fit.converged and np.isfinite(fit.coef).all()
+        }
 
     def _initial(self, values: StartingValues | None) -> np.ndarray | None:
         if values is None or tuple(values[0]) != tuple(self.design_columns_):
@@ -301,7 +312,7 @@ class LandmarkSupermodel(BaseEstimator):
         if event.sum() == 0:
             raise ModelInputError(f"the landmark stack has no {label} (status) rows; nothing to fit")
         try:
-            coef, var, robust_var, loglik, loglik_null = _fit_cox_arrays(
+            coef, var, robust_var, loglik, loglik_null, converged = _fit_cox_arrays(
                 design,
                 time,
                 event,
@@ -327,6 +338,7 @@ class LandmarkSupermodel(BaseEstimator):
             n_events=int(event.sum()),
             loglik=loglik,
             loglik_null=loglik_null,
+            converged=converged,
         )
 
     # ----------------------------------------------------------------- predict

@@ -104,3 +104,16 @@ def test_fit_spec_makes_resampling_refits_through_the_missing_data_wrapper(stack
     )
     forest = ModelSpec("f", ("x1", "x2"), family="forest", params={"n_estimators": 5})
     assert starting_values(fit_spec(forest, ValidationTables(stack, None), seed=1)) is None
+
+
+def test_a_cause_whose_fit_did_not_converge_offers_no_start(stacks):
+    """A covariate carried by one patient with the outcome runs off to infinity (monotone likelihood): that
+    cause's fit does not converge, and a refit must not start from its runaway coefficient."""
+    stack, _ = stacks
+    carrier = stack.loc[stack["status"] == 1, "patient_id"].iloc[0]
+    rare = stack.assign(rare=(stack["patient_id"] == carrier).astype(float))
+    with pytest.warns(Warning):
+        whole = LandmarkSupermodel(["x1", "rare"], competing=False).fit(rare)
+    assert not whole.outcome_.converged
+    assert whole.starting_values() == {}
+    assert LandmarkSupermodel(["x1", "x2"]).fit(stack).outcome_.converged
