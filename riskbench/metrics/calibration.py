@@ -281,7 +281,7 @@ def _smoother_start(knots: np.ndarray) -> np.ndarray:
     return np.r_[0.0, 1.0, np.zeros(knots.size - 2)]
 
 
-def _band(pseudo, design, grid_design, cluster, start, n_boot, seed, threads=None) -> np.ndarray:
+def _band(pseudo, design, grid_design, cluster, start, n_boot, seed) -> np.ndarray:
     """Pointwise 95% percentile band of the smoothed curve: the smoother refitted on bootstrap samples of
     clusters (patients when given, else rows), the pseudo-observations held fixed.
 
@@ -305,7 +305,7 @@ def _band(pseudo, design, grid_design, cluster, start, n_boot, seed, threads=Non
     def draw() -> np.ndarray:
         return np.bincount(rng.integers(0, n_clusters, n_clusters), minlength=n_clusters)
 
-    workers = max(1, min(band_threads() if threads is None else int(threads), n_boot))
+    workers = max(1, min(band_threads(), n_boot))
     if workers == 1:
         draws = [refit(draw()) for _ in range(n_boot)]
     else:

@@ -16,6 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit
 
+from riskbench.metrics.inputs import MetricInputError
+
 
 @dataclass(frozen=True)
 class ThresholdSplit:
@@ -167,7 +169,9 @@ class ThresholdGroups:
                 or not np.issubdtype(given.dtype, np.integer)
                 or (given.size and given.min() < 0)
             ):
-                raise ValueError(f"`counts` must be {self.size} whole numbers >= 0 (an integer array), one per subject")
+                raise MetricInputError(
+                    f"`counts` must be {self.size} whole numbers >= 0 (an integer array), one per subject"
+                )
             w = np.ascontiguousarray(given, dtype=np.int64)
         group_total, risk_above, risk_below = _incidence_above_below(
             self._group,

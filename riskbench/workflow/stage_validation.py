@@ -280,13 +280,13 @@ def comparison_specs(config: AnalysisConfig) -> list[ModelSpec] | None:
     return [model_spec(config.model(name), config.missing_data) for name in (reference, candidate)]
 
 
-def predicted_outcomes(stack: pd.DataFrame, cv: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Follow-up and status of the landmark rows every model predicts (complete-case models leave some out),
-    and which rows those are: the rows the comparison stage measures."""
+def predicted_outcomes(stack: pd.DataFrame, cv: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Follow-up and status of the landmark rows every model predicts (complete-case models leave some out):
+    the rows the comparison stage measures."""
     time, status = stack_outcome(stack)
     _, risks = risk_matrices(cv, len(stack))
     keep = predicted_rows([risks])
-    return time[keep], status[keep], keep
+    return time[keep], status[keep]
 
 
 def outcome_horizons(config: AnalysisConfig, time: np.ndarray, status: np.ndarray) -> tuple[float, ...]:
@@ -304,7 +304,7 @@ def _paired_plan(
     if specs is None or bootstrap_resamples(config) < 2 or not len(cv) or any(s.name not in refitted for s in specs):
         return None
     stack = tables["landmark_stack"]
-    time, status, _ = predicted_outcomes(stack, cv)
+    time, status = predicted_outcomes(stack, cv)
     days = outcome_horizons(config, time, status)
     if not days:
         return None
